@@ -1,0 +1,170 @@
+"""The FHIR-agnostic intake model: named measurements in canonical units.
+
+Both the FHIR and the HL7 v2 adapters produce an ``Intake``; everything after them (pairing,
+physiology, rules) reads only this. Values are already converted to the canonical unit of
+their ``Quantity`` (see ``QUANTITY_UNITS``), once, by the adapter.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from datetime import date, datetime
+from enum import StrEnum
+
+
+class Quantity(StrEnum):
+    """What a measurement measures. The value names the fact the rules see."""
+
+    ARTERIAL_PO2 = "arterial_po2"
+    ARTERIAL_PCO2 = "arterial_pco2"
+    ARTERIAL_PH = "arterial_ph"
+    ARTERIAL_HCO3 = "arterial_hco3"
+    ARTERIAL_BASE_EXCESS = "arterial_base_excess"
+    ARTERIAL_SO2 = "arterial_so2"  # by co-oximetry / analyser (2708-6 without 59408-5)
+    SPO2 = "spo2"  # by pulse oximetry
+    VENOUS_PO2 = "venous_po2"
+    VENOUS_PCO2 = "venous_pco2"
+    VENOUS_PH = "venous_ph"
+    VENOUS_SO2 = "venous_so2"
+    MIXED_VENOUS_PO2 = "mixed_venous_po2"
+    MIXED_VENOUS_SO2 = "mixed_venous_so2"
+    CENTRAL_VENOUS_SO2 = "central_venous_so2"
+    CAPILLARY_PO2 = "capillary_po2"
+    CAPILLARY_PCO2 = "capillary_pco2"
+    CAPILLARY_PH = "capillary_ph"
+    FIO2 = "fio2"
+    OXYGEN_FLOW = "oxygen_flow"
+    OXYGEN_DEVICE = "oxygen_device"  # a code of the oxygen-device CodeSystem
+    PEEP = "peep"
+    MEAN_AIRWAY_PRESSURE = "mean_airway_pressure"
+    RESPIRATORY_RATE = "respiratory_rate"
+    BODY_TEMPERATURE = "body_temperature"
+    HAEMOGLOBIN = "haemoglobin"
+    CARBOXYHAEMOGLOBIN = "carboxyhaemoglobin"
+    METHAEMOGLOBIN = "methaemoglobin"
+    BAROMETRIC_PRESSURE = "barometric_pressure"
+    ALTITUDE = "altitude"
+    DLCO = "dlco"
+    DLCO_PERCENT_PREDICTED = "dlco_percent_predicted"
+    SPO2_EXERTIONAL_NADIR = "spo2_exertional_nadir"
+    SPO2_EXERTIONAL_BASELINE = "spo2_exertional_baseline"
+
+
+# Canonical unit (UCUM) of each quantity. Saturations, FiO2 and Hb fractions are fractions
+# (unit "1") inside the service; the rule catalogue presents saturations in %.
+QUANTITY_UNITS: dict[Quantity, str] = {
+    **{q: "mm[Hg]" for q in Quantity if q.value.endswith(("_po2", "_pco2"))},
+    **{q: "[pH]" for q in Quantity if q.value.endswith("_ph")},
+    **{q: "1" for q in Quantity if q.value.endswith("so2")},
+    Quantity.SPO2: "1",
+    Quantity.SPO2_EXERTIONAL_NADIR: "1",
+    Quantity.SPO2_EXERTIONAL_BASELINE: "1",
+    Quantity.ARTERIAL_HCO3: "mmol/L",
+    Quantity.ARTERIAL_BASE_EXCESS: "mmol/L",
+    Quantity.FIO2: "1",
+    Quantity.OXYGEN_FLOW: "L/min",
+    Quantity.OXYGEN_DEVICE: "",
+    Quantity.PEEP: "cm[H2O]",
+    Quantity.MEAN_AIRWAY_PRESSURE: "cm[H2O]",
+    Quantity.RESPIRATORY_RATE: "/min",
+    Quantity.BODY_TEMPERATURE: "Cel",
+    Quantity.HAEMOGLOBIN: "g/dL",
+    Quantity.CARBOXYHAEMOGLOBIN: "1",
+    Quantity.METHAEMOGLOBIN: "1",
+    Quantity.BAROMETRIC_PRESSURE: "mm[Hg]",
+    Quantity.ALTITUDE: "m",
+    Quantity.DLCO: "mL/min/mm[Hg]",
+    Quantity.DLCO_PERCENT_PREDICTED: "1",
+}
+
+
+class Specimen(StrEnum):
+    """Where a blood sample came from, as far as the data say."""
+
+    ARTERIAL = "arterial"
+    VENOUS = "venous"
+    CAPILLARY = "capillary"
+    MIXED_VENOUS = "mixed-venous"
+    CENTRAL_VENOUS = "central-venous"
+    UNKNOWN = "unknown"
+
+
+class Fio2Source(StrEnum):
+    """How an FiO2 came to be known (contract: ``fio2-source``)."""
+
+    MEASURED = "measured"
+    VENTILATOR_SETTING = "ventilator-setting"
+    DEVICE_ESTIMATE = "device-estimate"
+    SITE_SETTING = "site-setting"
+
+
+@dataclass(frozen=True, slots=True)
+class Source:
+    """Where a value was read: a reference for ``derivedFrom`` and a FHIRPath (or v2 path)
+    for error messages, e.g. ``Observation/pao2-1`` and ``Bundle.entry[3].resource``."""
+
+    reference: str
+    expression: str
+
+
+@dataclass(frozen=True, slots=True)
+class Measurement:
+    """One value, converted to the canonical unit of its quantity.
+
+    ``sent_value``/``sent_unit`` keep what the sender wrote when a conversion happened.
+    ``value`` is a str only for coded quantities (``OXYGEN_DEVICE``).
+    """
+
+    quantity: Quantity
+    value: float | str
+    time: datetime | None
+    source: Source
+    specimen: Specimen | None = None
+    sent_value: float | None = None
+    sent_unit: str | None = None
+    fio2_source: Fio2Source | None = None  # FIO2 only
+
+    @property
+    def unit(self) -> str:
+        """The canonical UCUM unit of ``value``."""
+        return QUANTITY_UNITS[self.quantity]
+
+
+class Severity(StrEnum):
+    """OperationOutcome issue severities used by intake issues."""
+
+    ERROR = "error"
+    WARNING = "warning"
+    INFORMATION = "information"
+
+
+@dataclass(frozen=True, slots=True)
+class IntakeIssue:
+    """Something met while reading the input that the result must report.
+
+    ``code`` is a finding code of the contract (``unit-converted``, ``observation-ignored``,
+    ``specimen-unknown``, ``value-out-of-range``, …); ``expression`` locates the element.
+    """
+
+    code: str
+    severity: Severity
+    message: str
+    expression: str
+
+
+@dataclass(frozen=True, slots=True)
+class Patient:
+    """The little the service needs of the patient. No name, no identifier."""
+
+    reference: str | None
+    birth_date: date | None
+    gender: str | None
+
+
+@dataclass(slots=True)
+class Intake:
+    """Everything read from one input (one patient's recent data)."""
+
+    patient: Patient | None
+    measurements: list[Measurement] = field(default_factory=list)
+    issues: list[IntakeIssue] = field(default_factory=list)
