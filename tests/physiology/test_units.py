@@ -1,0 +1,118 @@
+"""Unit conversion against UCUM's definitions."""
+
+from __future__ import annotations
+
+import pytest
+from hypothesis import given
+from hypothesis import strategies as st
+
+from service.exceptions import ImpossibleValueError, UnitError
+from service.physiology import units as u
+from service.physiology.units import Dimension
+
+
+def test_mmhg_to_kpa_uses_the_ucum_factor() -> None:
+    # UCUM essence: m[Hg] = 133.3220 kPa, so 1 mm[Hg] = 0.1333220 kPa.
+    assert u.kpa_from_mmhg(1.0) == pytest.approx(0.1333220, abs=1e-12)
+    # standards.md §2 (from the UCUM definition): 1 kPa = 7.500638 mm[Hg].
+    assert u.mmhg_from_kpa(1.0) == pytest.approx(7.500638, abs=5e-7)
+
+
+def test_mmhg_to_kpa_matches_published_worked_values() -> None:
+    # physiology.md §1 [CALC]: PAO2 101.8 mmHg = 13.57 kPa; 673.0 mmHg = 89.7 kPa.
+    assert u.kpa_from_mmhg(101.8) == pytest.approx(13.57, abs=0.005)
+    assert u.kpa_from_mmhg(673.0) == pytest.approx(89.7, abs=0.05)
+    # Grocott et al., NEJM 2009 abstract: PB 272 mmHg (36.3 kPa), PaO2 24.6 mmHg (3.28 kPa).
+    assert u.kpa_from_mmhg(272.0) == pytest.approx(36.3, abs=0.05)
+    assert u.kpa_from_mmhg(24.6) == pytest.approx(3.28, abs=0.005)
+
+
+def test_cmh2o_to_mmhg_uses_the_ucum_factor() -> None:
+    # UCUM: m[H2O] = 9.80665 kPa; standards.md §2: 1 mm[Hg] ≈ 1.3595 cm[H2O].
+    assert u.mmhg_from_cmh2o(1.3595) == pytest.approx(1.0, abs=1e-4)
+
+
+def test_fahrenheit_to_celsius_fixed_points() -> None:
+    # Definition of the Fahrenheit scale: 32 °F freezing, 212 °F boiling, 98.6 °F = 37 °C.
+    assert u.celsius_from_fahrenheit(32.0) == 0.0
+    assert u.celsius_from_fahrenheit(212.0) == pytest.approx(100.0)
+    assert u.celsius_from_fahrenheit(98.6) == pytest.approx(37.0)
+
+
+def test_haemoglobin_g_per_l_to_g_per_dl() -> None:
+    # SI definition: 1 L = 10 dL, so 150 g/L = 15 g/dL.
+    assert u.g_dl_from_g_l(150.0) == 15.0
+    assert u.g_l_from_g_dl(15.0) == 150.0
+
+
+@pytest.mark.parametrize(
+    ("value", "unit", "fraction", "reinterpreted"),
+    [
+        (21.0, "%", 0.21, False),
+        (0.21, "1", 0.21, False),
+        # standards.md §1.7: an ICU feed sends 0.3 with UCUM "%": a fraction.
+        (0.3, "%", 0.3, True),
+        (40.0, "1", 0.40, True),
+        (100.0, "%", 1.0, False),
+        (1.0, "%", 1.0, True),
+    ],
+)
+def test_normalise_fio2_reads_percent_and_fraction(
+    value: float, unit: str, fraction: float, reinterpreted: bool
+) -> None:
+    result = u.normalise_fio2(value, unit)
+    assert result.fraction == pytest.approx(fraction)
+    assert result.reinterpreted is reinterpreted
+
+
+@pytest.mark.parametrize(("value", "unit"), [(140.0, "%"), (5.0, "%"), (0.05, "1"), (0.0, "1")])
+def test_normalise_fio2_rejects_values_outside_ten_to_hundred_percent(
+    value: float, unit: str
+) -> None:
+    with pytest.raises(ImpossibleValueError, match=r"between 0\.1 and 1"):
+        u.normalise_fio2(value, unit)
+
+
+def test_normalise_fio2_rejects_a_unit_that_is_not_a_fraction() -> None:
+    with pytest.raises(UnitError, match="'L/min'"):
+        u.normalise_fio2(2.0, "L/min")
+
+
+def test_to_canonical_converts_each_dimension_once() -> None:
+    assert u.to_canonical(13.3, "kPa", Dimension.PRESSURE) == pytest.approx(99.76, abs=0.01)
+    assert u.to_canonical(97.0, "%", Dimension.FRACTION) == pytest.approx(0.97)
+    assert u.to_canonical(101.3, "[degF]", Dimension.TEMPERATURE) == pytest.approx(38.5)
+    assert u.to_canonical(2000.0, "mL/min", Dimension.FLOW) == pytest.approx(2.0)
+
+
+def test_to_canonical_names_the_accepted_units_when_it_refuses() -> None:
+    with pytest.raises(UnitError) as caught:
+        u.to_canonical(5.0, "psi", Dimension.PRESSURE)
+    assert "mm[Hg]" in str(caught.value)
+    assert "kPa" in str(caught.value)
+
+
+@given(st.floats(min_value=0.0, max_value=2000.0, allow_nan=False))
+def test_pressure_round_trip_is_exact(mmhg: float) -> None:
+    assert u.mmhg_from_kpa(u.kpa_from_mmhg(mmhg)) == pytest.approx(mmhg, rel=1e-12, abs=1e-12)
+
+
+@given(st.floats(min_value=0.0, max_value=1.0, allow_nan=False))
+def test_fraction_round_trip_is_exact(fraction: float) -> None:
+    assert u.fraction_from_percent(u.percent_from_fraction(fraction)) == pytest.approx(
+        fraction, rel=1e-12, abs=1e-15
+    )
+
+
+@given(st.floats(min_value=-50.0, max_value=120.0, allow_nan=False))
+def test_temperature_round_trip_is_exact(celsius: float) -> None:
+    assert u.celsius_from_fahrenheit(u.fahrenheit_from_celsius(celsius)) == pytest.approx(
+        celsius, abs=1e-9
+    )
+
+
+@given(st.floats(min_value=0.1, max_value=1.0), st.sampled_from(["%", "1"]))
+def test_normalise_fio2_is_idempotent_on_its_own_output(fraction: float, unit: str) -> None:
+    sent = fraction * 100.0 if unit == "%" else fraction
+    first = u.normalise_fio2(sent, unit)
+    assert u.normalise_fio2(first.fraction, "1").fraction == pytest.approx(first.fraction)
