@@ -1,0 +1,80 @@
+"""The FHIR-agnostic result of one assessment: what renderers (FHIR, HL7 v2, text) show."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from datetime import datetime
+
+from service.intake.model import Patient, Source
+
+from .derive import GasFacts
+
+CAUTION = (
+    "Decision support for qualified clinicians, not a diagnosis. The result depends on the "
+    "correctness and completeness of the data sent; it defers to clinical judgement, local "
+    "protocols, applicable codes and licensed practice."
+)
+
+MECHANISMS = (
+    "low-inspired-oxygen",
+    "hypoventilation",
+    "diffusion-limitation",
+    "vq-mismatch",
+    "shunt",
+)
+
+
+@dataclass(frozen=True, slots=True)
+class Finding:
+    """A data-quality or context finding: a contract finding code with its severity."""
+
+    code: str
+    severity: str  # error | warning | information
+    message: str
+    subject: Source | None = None
+    expression: str | None = None  # where in the input, for intake findings
+    rule: str | None = None  # id@version of the rule that raised it
+
+
+@dataclass(frozen=True, slots=True)
+class MechanismVerdict:
+    """One of the five mechanisms, graded, with the numbers and the rules behind the grade."""
+
+    code: str
+    grade: str  # likely | possible | unlikely | not-assessable
+    rationale: str
+    rules: tuple[str, ...]
+    discriminator: str | None = None
+
+
+@dataclass(frozen=True, slots=True)
+class GasResult:
+    """One assessed gas: its facts and derived values; ``index`` marks the latest gas."""
+
+    facts: GasFacts
+    index: bool
+    compared_with: GasFacts | None = None
+
+
+@dataclass(slots=True)
+class Assessment:
+    """Everything a renderer needs; nothing here knows FHIR."""
+
+    decision_id: str
+    timestamp: datetime
+    ruleset_identity: str  # "id|version"
+    ruleset_hash: str
+    patient: Patient | None
+    pattern: str
+    hypoxaemia: str  # present | absent | unknown
+    mechanisms: list[MechanismVerdict]
+    findings: list[Finding]
+    gases: list[GasResult]
+    data_requested: list[str]  # fact names that would settle open questions
+    status: str  # success | data-requested | data-required
+    evaluation: object = None  # the engine's full evaluation (trace), for explain
+    notes: list[str] = field(default_factory=list)
+
+    @property
+    def index_gas(self) -> GasResult | None:
+        return self.gases[0] if self.gases else None

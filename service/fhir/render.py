@@ -1,0 +1,308 @@
+"""Render an ``Assessment`` as the result Bundle of the contract (plain dicts, no models).
+
+Entries, in order: GuidanceResponse, Parameters (the machine-readable verdict), OperationOutcome
+(findings and the clinical caution), then derived Observations and the mechanism-assessment
+Observation. Built as dicts for speed; the tests validate every produced Bundle with
+``fhir.resources.R4B``. Pressures leave in mm[Hg] unless ``pressure_unit`` is ``kPa``: the one
+place where canonical units are converted for display.
+"""
+
+from __future__ import annotations
+
+import uuid
+from collections.abc import Iterable
+from typing import Any, Literal
+
+from service.assess.derive import Derived, GasFacts
+from service.assess.result import CAUTION, Assessment, Finding, MechanismVerdict
+from service.physiology.units import kpa_from_mmhg
+
+Json = dict[str, Any]
+PressureUnit = Literal["mm[Hg]", "kPa"]
+
+UCUM = "http://unitsofmeasure.org"
+LOINC = "http://loinc.org"
+BASE = "https://oxyrule.org/fhir/CodeSystem/"
+FINDING_SYSTEM = BASE + "finding"
+MECHANISM_SYSTEM = BASE + "hypoxaemia-mechanism"
+GRADE_SYSTEM = BASE + "mechanism-grade"
+PATTERN_SYSTEM = BASE + "hypoxaemia-pattern"
+DERIVED_SYSTEM = BASE + "derived"
+INTERPRETATION = "http://terminology.hl7.org/CodeSystem/v3-ObservationInterpretation"
+CATEGORY = "http://terminology.hl7.org/CodeSystem/observation-category"
+
+# Derived quantities in the order the contract lists them, with display decimals.
+QUANTITY_ORDER = (
+    "barometric-pressure",
+    "water-vapour-pressure",
+    "fio2",
+    "inspired-po2",
+    "alveolar-po2",
+    "aa-gradient",
+    "aa-gradient-upper-limit",
+    "a-a-ratio",
+    "pf-ratio",
+    "sf-ratio",
+    "arterial-o2-content",
+    "shunt-fraction",
+    "imputed-pao2",
+    "expected-hco3",
+)
+DECIMALS = {"fio2": 2, "a-a-ratio": 2, "pf-ratio": 0, "sf-ratio": 0}
+PRESSURES = {
+    "barometric-pressure",
+    "water-vapour-pressure",
+    "inspired-po2",
+    "alveolar-po2",
+    "aa-gradient",
+    "aa-gradient-upper-limit",
+    "pf-ratio",
+    "imputed-pao2",
+}
+# Derived values filed as Observations: (LOINC code or None for our own code, display).
+OBSERVATION_CODES: dict[str, tuple[str | None, str]] = {
+    "alveolar-po2": (None, "Alveolar oxygen partial pressure (alveolar gas equation)"),
+    "aa-gradient": (
+        "19991-9",
+        "Oxygen.alveolar - arterial [Partial pressure difference] Respiratory system",
+    ),
+    "pf-ratio": ("50984-4", "Horowitz index in Arterial blood"),
+    "sf-ratio": (None, "Oxygen saturation by pulse oximetry / inspired oxygen fraction"),
+    "a-a-ratio": ("78354-8", "Arterial-alveolar oxygen Partial pressure ratio"),
+    "shunt-fraction": (None, "Shunt fraction (venous admixture) estimate"),
+}
+ISSUE_CODE = {"error": "business-rule", "warning": "business-rule", "information": "informational"}
+
+
+def quantity(name: str, value: float, unit: str, pressure_unit: PressureUnit) -> Json:
+    """A UCUM Quantity, converting pressures to kPa when asked, rounded for display."""
+    decimals = DECIMALS.get(name, 1)
+    if unit == "mm[Hg]" and pressure_unit == "kPa":
+        value, unit = kpa_from_mmhg(value), "kPa"
+        decimals = 2 if name != "pf-ratio" else 1
+    rounded = round(value, decimals)
+    return {
+        "value": rounded if decimals else float(int(rounded)),
+        "unit": unit,
+        "system": UCUM,
+        "code": unit,
+    }
+
+
+def _ref(reference: str) -> Json:
+    return {"reference": reference}
+
+
+def _coding(system: str, code: str, display: str | None = None) -> Json:
+    coding: Json = {"system": system, "code": code}
+    if display:
+        coding["display"] = display
+    return coding
+
+
+def _mechanism_parameter(m: MechanismVerdict) -> Json:
+    part: list[Json] = [
+        {"name": "code", "valueCode": m.code},
+        {"name": "grade", "valueCode": m.grade},
+        {"name": "rationale", "valueString": m.rationale},
+    ]
+    part += [{"name": "rule", "valueString": rule} for rule in m.rules]
+    if m.discriminator:
+        part.append({"name": "discriminator", "valueString": m.discriminator})
+    return {"name": "mechanism", "part": part}
+
+
+def _finding_parameter(f: Finding) -> Json:
+    part: list[Json] = [
+        {"name": "code", "valueCode": f.code},
+        {"name": "severity", "valueCode": f.severity},
+        {"name": "message", "valueString": f.message},
+    ]
+    if f.subject is not None:
+        part.append({"name": "subject", "valueReference": _ref(f.subject.reference)})
+    return {"name": "finding", "part": part}
+
+
+def _quantities(derived: dict[str, Derived], pressure_unit: PressureUnit) -> list[Json]:
+    return [
+        {"name": name, "valueQuantity": quantity(name, d.value, d.unit, pressure_unit)}
+        for name in QUANTITY_ORDER
+        if (d := derived.get(name)) is not None
+    ]
+
+
+def _gas_parameter(gas: GasFacts, index: bool, pressure_unit: PressureUnit) -> Json:
+    part: list[Json] = []
+    if gas.gas.anchor is not None:
+        part.append(
+            {"name": "observation", "valueReference": _ref(gas.gas.anchor.source.reference)}
+        )
+    part.append({"name": "index", "valueBoolean": index})
+    part += _quantities(gas.derived, pressure_unit)
+    return {"name": "gas", "part": part}
+
+
+def _parameters(a: Assessment, pressure_unit: PressureUnit) -> Json:
+    params: list[Json] = [
+        {"name": "ruleset", "valueString": a.ruleset_identity},
+        {"name": "pattern", "valueCode": a.pattern},
+    ]
+    params += [_mechanism_parameter(m) for m in a.mechanisms]
+    params += [_finding_parameter(f) for f in a.findings]
+    params += [_gas_parameter(g.facts, g.index, pressure_unit) for g in a.gases]
+    index = a.index_gas
+    if index is not None:
+        params += _quantities(index.facts.derived, pressure_unit)
+        if index.facts.barometric_source:
+            params.append(
+                {"name": "barometric-pressure-source", "valueCode": index.facts.barometric_source}
+            )
+        if index.facts.fio2_source:
+            params.append({"name": "fio2-source", "valueCode": index.facts.fio2_source})
+    return {"resourceType": "Parameters", "id": "result", "parameter": params}
+
+
+def _issue(f: Finding) -> Json:
+    issue: Json = {
+        "severity": f.severity,
+        "code": ISSUE_CODE[f.severity],
+        "details": {"coding": [_coding(FINDING_SYSTEM, f.code)], "text": f.message},
+        "diagnostics": f.message + (f" (rule {f.rule})" if f.rule else ""),
+    }
+    if f.expression:
+        issue["expression"] = [f.expression]
+    return issue
+
+
+def _operation_outcome(a: Assessment) -> Json:
+    issues = [_issue(f) for f in a.findings]
+    issues.append({"severity": "information", "code": "informational", "diagnostics": CAUTION})
+    return {"resourceType": "OperationOutcome", "id": "messages", "issue": issues}
+
+
+def _data_requirements(codes: Iterable[tuple[str, str]]) -> list[Json]:
+    return [
+        {
+            "type": "Observation",
+            "codeFilter": [{"path": "code", "code": [_coding(system, code)]}],
+        }
+        for system, code in codes
+    ]
+
+
+def _subject(a: Assessment) -> Json | None:
+    if a.patient is not None and a.patient.reference:
+        return _ref(a.patient.reference)
+    return None
+
+
+def _effective(a: Assessment) -> str | None:
+    index = a.index_gas
+    if index is None or index.facts.gas.time is None:
+        return None
+    return index.facts.gas.time.isoformat()
+
+
+def _observation(
+    name: str, d: Derived, a: Assessment, aa_limit: Derived | None, pressure_unit: PressureUnit
+) -> Json:
+    loinc, display = OBSERVATION_CODES[name]
+    code = _coding(LOINC, loinc, display) if loinc else _coding(DERIVED_SYSTEM, name, display)
+    obs: Json = {
+        "resourceType": "Observation",
+        "id": name,
+        "status": "final",
+        "category": [{"coding": [_coding(CATEGORY, "laboratory")]}],
+        "code": {"coding": [code], "text": display},
+        "valueQuantity": quantity(name, d.value, d.unit, pressure_unit),
+        "method": {"text": d.method},
+    }
+    if (subject := _subject(a)) is not None:
+        obs["subject"] = subject
+    if (effective := _effective(a)) is not None:
+        obs["effectiveDateTime"] = effective
+    if name == "aa-gradient" and aa_limit is not None:
+        raised = d.value > aa_limit.value
+        obs["interpretation"] = [{"coding": [_coding(INTERPRETATION, "H" if raised else "N")]}]
+        limit = quantity("aa-gradient-upper-limit", aa_limit.value, aa_limit.unit, pressure_unit)
+        obs["referenceRange"] = [{"high": limit, "text": "room-air limit for age"}]
+    refs = list(dict.fromkeys(s.reference for s in d.inputs))
+    if refs:
+        obs["derivedFrom"] = [_ref(r) for r in refs]
+    return obs
+
+
+def _mechanism_observation(a: Assessment, derived_ids: list[str]) -> Json:
+    obs: Json = {
+        "resourceType": "Observation",
+        "id": "mechanism-assessment",
+        "status": "final",
+        "category": [{"coding": [_coding(CATEGORY, "laboratory")]}],
+        "code": {
+            "coding": [_coding(DERIVED_SYSTEM, "hypoxaemia-mechanism-assessment")],
+            "text": "Likely mechanism of hypoxaemia (decision support, not a diagnosis)",
+        },
+        "valueCodeableConcept": {"coding": [_coding(PATTERN_SYSTEM, a.pattern)]},
+        "note": [{"text": CAUTION}],
+        "component": [
+            {
+                "code": {"coding": [_coding(MECHANISM_SYSTEM, m.code)]},
+                "valueCodeableConcept": {"coding": [_coding(GRADE_SYSTEM, m.grade)]},
+            }
+            for m in a.mechanisms
+        ],
+    }
+    if (subject := _subject(a)) is not None:
+        obs["subject"] = subject
+    if (effective := _effective(a)) is not None:
+        obs["effectiveDateTime"] = effective
+    if derived_ids:
+        obs["derivedFrom"] = [_ref(f"Observation/{i}") for i in derived_ids]
+    return obs
+
+
+def render_bundle(
+    a: Assessment,
+    *,
+    data_requirements: Iterable[tuple[str, str]] = (),
+    pressure_unit: PressureUnit = "mm[Hg]",
+) -> Json:
+    """The result Bundle for ``a``. ``data_requirements`` are (system, code) pairs."""
+    guidance: Json = {
+        "resourceType": "GuidanceResponse",
+        "id": "guidance",
+        "identifier": [{"system": "urn:ietf:rfc:3986", "value": f"urn:uuid:{a.decision_id}"}],
+        "moduleUri": f"urn:oxyrule:ruleset:{a.ruleset_identity}#sha256:{a.ruleset_hash}",
+        "status": a.status,
+        "occurrenceDateTime": a.timestamp.isoformat(),
+        "outputParameters": _ref("Parameters/result"),
+        "evaluationMessage": [_ref("OperationOutcome/messages")],
+    }
+    if (subject := _subject(a)) is not None:
+        guidance["subject"] = subject
+    requirements = _data_requirements(data_requirements)
+    if requirements:
+        guidance["dataRequirement"] = requirements
+    resources: list[Json] = [guidance, _parameters(a, pressure_unit), _operation_outcome(a)]
+    index = a.index_gas
+    derived_ids: list[str] = []
+    if index is not None:
+        derived = index.facts.derived
+        for name in OBSERVATION_CODES:
+            if (d := derived.get(name)) is not None:
+                limit = derived.get("aa-gradient-upper-limit")
+                resources.append(_observation(name, d, a, limit, pressure_unit))
+                derived_ids.append(name)
+    resources.append(_mechanism_observation(a, derived_ids))
+    # Entry URLs derive from the decision id, so a result is reproducible apart from it.
+    namespace = uuid.UUID(a.decision_id)
+    return {
+        "resourceType": "Bundle",
+        "type": "collection",
+        "identifier": {"system": "urn:ietf:rfc:3986", "value": f"urn:uuid:{a.decision_id}"},
+        "timestamp": a.timestamp.isoformat(),
+        "entry": [
+            {"fullUrl": f"urn:uuid:{uuid.uuid5(namespace, r['id'])}", "resource": r}
+            for r in resources
+        ],
+    }
