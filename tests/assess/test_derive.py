@@ -1,0 +1,140 @@
+"""Deriving one gas's facts: precedence of sources, flags, and the serial comparison."""
+
+from __future__ import annotations
+
+from datetime import date, timedelta
+
+import pytest
+
+from service.assess.derive import GasFacts, add_serial_facts, age_years, derive_gas_facts
+from service.assess.pairing import pair_gases
+from service.config import Settings
+from service.intake.model import Fio2Source, Intake
+from service.intake.model import Quantity as Q
+
+from .builders import intake, m
+
+TODAY = date(2026, 11, 20)
+
+
+def facts_of(data: Intake, **settings: object) -> list[GasFacts]:
+    s = Settings(**settings)  # type: ignore[arg-type]
+    pairing = pair_gases(
+        data,
+        window=timedelta(minutes=s.pairing_window_minutes),
+        same_sample=timedelta(minutes=s.same_sample_minutes),
+    )
+    return [
+        derive_gas_facts(g, patient=data.patient, settings=s, today=TODAY) for g in pairing.gases
+    ]
+
+
+def test_sea_level_room_air_gas_matches_the_worked_alveolar_value() -> None:
+    # physiology.md §1: PB 760, FiO2 0.21, PaCO2 40, PH2O 47.12 (IAPWS at 37 °C) → PAO2 101.8.
+    (gas,) = facts_of(
+        intake(m(Q.ARTERIAL_PO2, 90.0), m(Q.ARTERIAL_PCO2, 40.0), m(Q.FIO2, 0.21)),
+        site_altitude_m=None,
+    )
+    assert gas.derived["alveolar-po2"].value == pytest.approx(101.8, abs=0.05)
+    assert gas.facts["aa_gradient"] == pytest.approx(11.8, abs=0.05)
+    assert gas.facts["barometric_pressure_assumed"] is True
+    assert gas.barometric_source == "sea-level-assumed"
+    assert gas.fio2_source == "measured"
+    # Age 66 on 2026-11-20 (born 1960-05-01): limit max(2.5 + 0.21 × 66, 66/4 + 4) = 20.5.
+    assert gas.facts["age"] == 66.0
+    assert gas.facts["aa_gradient_upper_limit"] == pytest.approx(20.5)
+    assert gas.facts["aa_gradient_excess"] == pytest.approx(11.8 - 20.5, abs=0.05)
+
+
+def test_barometric_pressure_precedence() -> None:
+    base = (m(Q.ARTERIAL_PO2, 60.0), m(Q.ARTERIAL_PCO2, 35.0), m(Q.FIO2, 0.21))
+    (measured,) = facts_of(
+        intake(*base, m(Q.BAROMETRIC_PRESSURE, 600.0), m(Q.ALTITUDE, 3000.0)),
+        site_altitude_m=1000.0,
+    )
+    assert (measured.barometric_source, measured.facts["barometric_pressure"]) == (
+        "measured",
+        600.0,
+    )
+    (model,) = facts_of(intake(*base, m(Q.ALTITUDE, 2500.0)), site_altitude_m=1000.0)
+    assert model.barometric_source == "altitude-model"
+    # West 1996 at 2500 m: 569.8 mmHg (physiology.md §3 table).
+    assert model.facts["barometric_pressure"] == pytest.approx(569.8, abs=0.1)
+    assert model.facts["barometric_pressure_estimated"] is True
+    (site,) = facts_of(intake(*base), site_altitude_m=1609.0)
+    assert site.barometric_source == "site-setting"
+    assert site.facts["barometric_pressure"] == pytest.approx(632.6, abs=0.1)
+
+
+def test_fio2_precedence_and_flags() -> None:
+    gas = (m(Q.ARTERIAL_PO2, 60.0), m(Q.ARTERIAL_PCO2, 35.0))
+    (setting,) = facts_of(intake(*gas, m(Q.FIO2, 0.5, fio2_source=Fio2Source.VENTILATOR_SETTING)))
+    assert setting.fio2_source == "ventilator-setting"
+    (estimate,) = facts_of(intake(*gas, m(Q.OXYGEN_DEVICE, "nasal-cannula"), m(Q.OXYGEN_FLOW, 2.0)))
+    assert estimate.fio2_source == "device-estimate"
+    assert estimate.facts["fio2"] == pytest.approx(0.29)
+    assert estimate.facts["fio2_estimated_from_flow"] is True
+    # Wettstein 2005 envelope at 2 L/min: 0.282 (rapid breathing) to 0.316 (rest).
+    assert estimate.fio2_range == pytest.approx((0.282, 0.316))
+    (missing,) = facts_of(intake(*gas))
+    assert "fio2" not in missing.facts
+    assert "alveolar_po2" not in missing.facts
+    (assumed,) = facts_of(intake(*gas), assume_room_air=True)
+    assert assumed.fio2_source == "site-setting"
+    (stale,) = facts_of(intake(*gas, m(Q.FIO2, 0.4, -90)))
+    assert stale.facts["fio2_time_mismatch"] is True
+
+
+def test_shunt_uses_measured_mixed_venous_content_when_present() -> None:
+    data = intake(
+        m(Q.ARTERIAL_PO2, 80.0),
+        m(Q.ARTERIAL_PCO2, 40.0),
+        m(Q.ARTERIAL_SO2, 0.95),
+        m(Q.FIO2, 0.6),
+        m(Q.HAEMOGLOBIN, 12.0),
+        m(Q.MIXED_VENOUS_SO2, 0.65),
+        m(Q.MIXED_VENOUS_PO2, 35.0),
+    )
+    (gas,) = facts_of(data)
+    assert "measured mixed-venous" in gas.derived["shunt-fraction"].method
+    assert "venous admixture" in gas.derived["shunt-fraction"].method
+    (assumed,) = facts_of(intake(*data.measurements[:5]))
+    assert "assumed a-v content difference 5" in assumed.derived["shunt-fraction"].method
+
+
+def test_spo2_only_gives_sf_ratio_and_an_imputed_pao2() -> None:
+    (gas,) = facts_of(intake(m(Q.SPO2, 0.94), m(Q.FIO2, 0.4)))
+    assert gas.facts["arterial_gas_present"] is False
+    assert gas.facts["sf_ratio"] == pytest.approx(235.0)  # Rice 2007 anchor: 94 % on 0.4
+    # physiology.md §6 exact inverse: S 0.94 → 70.87 mmHg.
+    assert gas.facts["imputed_pao2"] == pytest.approx(70.87, abs=0.01)
+    (high,) = facts_of(intake(m(Q.SPO2, 0.98), m(Q.FIO2, 0.21)))
+    assert "imputed_pao2" not in high.facts  # Brown 2016: not above 96 %
+
+
+def test_serial_gases_on_two_fio2_give_the_oxygen_response() -> None:
+    data = intake(
+        m(Q.ARTERIAL_PO2, 55.0, -60),
+        m(Q.ARTERIAL_PCO2, 38.0, -60),
+        m(Q.FIO2, 0.3, -60),
+        m(Q.HAEMOGLOBIN, 14.0, -60),
+        m(Q.ARTERIAL_PO2, 60.0, 0),
+        m(Q.ARTERIAL_PCO2, 38.0, 0),
+        m(Q.FIO2, 1.0, 0),
+        m(Q.HAEMOGLOBIN, 14.0, 0),
+    )
+    index, earlier = facts_of(data)
+    compared = add_serial_facts(index, [earlier])
+    assert compared is earlier
+    assert index.facts["fio2_change"] == pytest.approx(0.7)
+    assert index.facts["pao2_change"] == pytest.approx(5.0)
+    assert index.facts["shunt_fraction_at_higher_fio2"] == index.facts["shunt_fraction"]
+    assert index.facts["shunt_fraction_change"] == pytest.approx(
+        index.number("shunt_fraction")  # type: ignore[operator]
+        - earlier.number("shunt_fraction")
+    )
+
+
+def test_age_is_counted_in_whole_years_at_the_time_of_the_gas() -> None:
+    assert age_years(date(1960, 5, 1), date(2026, 4, 30)) == 65.0
+    assert age_years(date(1960, 5, 1), date(2026, 5, 1)) == 66.0
