@@ -443,8 +443,14 @@ class _Builder:
         except PhysiologyError as error:
             self.out.problems.append(f"acid-base: {error}")
             return
-        self.out.facts["ph_henderson_difference"] = check.ph_difference
-        self.out.facts["hco3_henderson_difference"] = check.hco3_difference_mmol_l
+        f = self.out.facts
+        f["ph_henderson_difference"] = check.ph_difference
+        f["ph_henderson_gap"] = abs(check.ph_difference)
+        f["hco3_henderson_difference"] = check.hco3_difference_mmol_l
+        for chronicity in ("acute", "chronic"):
+            expected = self.out.number(f"expected_hco3_{chronicity}")
+            if expected is not None:
+                f[f"hco3_above_expected_{chronicity}"] = hco3 - expected
 
     def oximetry(self, fio2: float | None) -> None:
         f = self.out.facts
@@ -452,7 +458,9 @@ class _Builder:
         sao2 = _value(self.gas.get(Quantity.ARTERIAL_SO2))
         src = self.source(Quantity.SPO2)
         if spo2 is not None and sao2 is not None:
-            f["spo2_sao2_difference"] = percent_from_fraction(spo2 - sao2)
+            difference = percent_from_fraction(spo2 - sao2)
+            f["spo2_sao2_difference"] = difference
+            f["spo2_sao2_gap"] = abs(difference)
         baseline = _value(self.gas.get(Quantity.SPO2_EXERTIONAL_BASELINE))
         nadir = _value(self.gas.get(Quantity.SPO2_EXERTIONAL_NADIR))
         if baseline is not None and nadir is not None:
@@ -486,35 +494,40 @@ def derive_gas_facts(
     return _Builder(gas, patient, settings, today).build()
 
 
-MIN_FIO2_STEP = 0.1  # two gases further apart than this in FiO2 show the oxygen response
-
-
 def add_serial_facts(index: GasFacts, earlier: list[GasFacts]) -> GasFacts | None:
-    """Compare the index gas with the latest earlier gas on an FiO2 at least 0.1 different.
+    """Compare the index gas with the earlier gas furthest from it in FiO2 (latest on a tie).
 
-    Adds ``fio2_change``, ``pao2_change`` and the shunt at the lower and higher FiO2 to the
-    index gas's facts; returns the gas compared with, or None.
+    Adds ``fio2_change`` (index minus earlier), ``fio2_step`` (higher minus lower FiO2),
+    ``pao2_change`` and the venous admixture at the lower and higher FiO2 to the index gas's
+    facts; returns the gas compared with, or None. Whether the step is large enough to judge
+    the response to oxygen is the rules' decision (parameter ``oxygen_step``).
     """
     fio2 = index.number("fio2")
     if fio2 is None:
         return None
-    for other in earlier:
-        other_fio2 = other.number("fio2")
-        if other_fio2 is None or abs(other_fio2 - fio2) < MIN_FIO2_STEP:
-            continue
-        f = index.facts
-        f["fio2_change"] = fio2 - other_fio2
-        pao2, other_pao2 = index.number("arterial_po2"), other.number("arterial_po2")
-        if pao2 is not None and other_pao2 is not None:
-            f["pao2_change"] = pao2 - other_pao2
-        shunt, other_shunt = index.number("shunt_fraction"), other.number("shunt_fraction")
-        if shunt is not None and other_shunt is not None:
-            low, high = (other_shunt, shunt) if fio2 > other_fio2 else (shunt, other_shunt)
-            f["shunt_fraction_at_lower_fio2"] = low
-            f["shunt_fraction_at_higher_fio2"] = high
-            f["shunt_fraction_change"] = high - low
-        return other
-    return None
+    candidates = [
+        (abs(f - fio2), -position, other)
+        for position, other in enumerate(earlier)
+        if (f := other.number("fio2")) is not None and f != fio2
+    ]
+    if not candidates:
+        return None
+    other = max(candidates, key=lambda c: (c[0], c[1]))[2]
+    other_fio2 = other.number("fio2")
+    assert other_fio2 is not None
+    facts = index.facts
+    facts["fio2_change"] = fio2 - other_fio2
+    facts["fio2_step"] = abs(fio2 - other_fio2)
+    pao2, other_pao2 = index.number("arterial_po2"), other.number("arterial_po2")
+    if pao2 is not None and other_pao2 is not None:
+        facts["pao2_change"] = pao2 - other_pao2
+    shunt, other_shunt = index.number("shunt_fraction"), other.number("shunt_fraction")
+    if shunt is not None and other_shunt is not None:
+        low, high = (other_shunt, shunt) if fio2 > other_fio2 else (shunt, other_shunt)
+        facts["shunt_fraction_at_lower_fio2"] = low
+        facts["shunt_fraction_at_higher_fio2"] = high
+        facts["shunt_fraction_change"] = high - low
+    return other
 
 
 def latest_first(gases: list[GasFacts]) -> list[GasFacts]:

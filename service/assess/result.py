@@ -69,12 +69,9 @@ class Assessment:
     hypoxaemia: str  # present | absent | unknown
     mechanisms: list[MechanismVerdict]
     findings: list[Finding]
-    gases: list[GasResult]
+    index: GasFacts  # the index gas (or, with no gas, the latest oximetry) and its context
+    gases: list[GasResult]  # one per arterial gas, index first
     data_requested: list[str]  # fact names that would settle open questions
     status: str  # success | data-requested | data-required
     evaluation: object = None  # the engine's full evaluation (trace), for explain
     notes: list[str] = field(default_factory=list)
-
-    @property
-    def index_gas(self) -> GasResult | None:
-        return self.gases[0] if self.gases else None

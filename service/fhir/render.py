@@ -150,15 +150,12 @@ def _parameters(a: Assessment, pressure_unit: PressureUnit) -> Json:
     params += [_mechanism_parameter(m) for m in a.mechanisms]
     params += [_finding_parameter(f) for f in a.findings]
     params += [_gas_parameter(g.facts, g.index, pressure_unit) for g in a.gases]
-    index = a.index_gas
-    if index is not None:
-        params += _quantities(index.facts.derived, pressure_unit)
-        if index.facts.barometric_source:
-            params.append(
-                {"name": "barometric-pressure-source", "valueCode": index.facts.barometric_source}
-            )
-        if index.facts.fio2_source:
-            params.append({"name": "fio2-source", "valueCode": index.facts.fio2_source})
+    index = a.index
+    params += _quantities(index.derived, pressure_unit)
+    if index.barometric_source:
+        params.append({"name": "barometric-pressure-source", "valueCode": index.barometric_source})
+    if index.fio2_source:
+        params.append({"name": "fio2-source", "valueCode": index.fio2_source})
     return {"resourceType": "Parameters", "id": "result", "parameter": params}
 
 
@@ -197,10 +194,8 @@ def _subject(a: Assessment) -> Json | None:
 
 
 def _effective(a: Assessment) -> str | None:
-    index = a.index_gas
-    if index is None or index.facts.gas.time is None:
-        return None
-    return index.facts.gas.time.isoformat()
+    time = a.index.gas.time
+    return time.isoformat() if time is not None else None
 
 
 def _observation(
@@ -284,15 +279,13 @@ def render_bundle(
     if requirements:
         guidance["dataRequirement"] = requirements
     resources: list[Json] = [guidance, _parameters(a, pressure_unit), _operation_outcome(a)]
-    index = a.index_gas
+    derived = a.index.derived
     derived_ids: list[str] = []
-    if index is not None:
-        derived = index.facts.derived
-        for name in OBSERVATION_CODES:
-            if (d := derived.get(name)) is not None:
-                limit = derived.get("aa-gradient-upper-limit")
-                resources.append(_observation(name, d, a, limit, pressure_unit))
-                derived_ids.append(name)
+    for name in OBSERVATION_CODES:
+        if (d := derived.get(name)) is not None:
+            limit = derived.get("aa-gradient-upper-limit")
+            resources.append(_observation(name, d, a, limit, pressure_unit))
+            derived_ids.append(name)
     resources.append(_mechanism_observation(a, derived_ids))
     # Entry URLs derive from the decision id, so a result is reproducible apart from it.
     namespace = uuid.UUID(a.decision_id)
