@@ -1,0 +1,109 @@
+"""The fact catalogue: every name a rule may test, with its kind, unit and range.
+
+A rule set is loaded against one catalogue; references to names outside it, unit
+mismatches and unknown codes are load errors. At evaluation time the same catalogue
+checks the facts handed in, so a value in the wrong unit or of the wrong kind cannot
+slip silently past a threshold.
+"""
+
+from collections.abc import Iterable, Iterator, Mapping
+
+from service.engine.default_facts import DEFAULT_FACT_SPECS
+from service.engine.errors import FactError, FactProblem
+from service.engine.facts import FactKind, FactOrigin, FactSpec
+
+__all__ = [
+    "DEFAULT_CATALOGUE",
+    "FactCatalogue",
+    "FactKind",
+    "FactOrigin",
+    "FactSpec",
+    "catalogue_markdown",
+]
+
+
+class FactCatalogue(Mapping[str, FactSpec]):
+    """An immutable mapping of fact name to `FactSpec`."""
+
+    __slots__ = ("_order", "_specs")
+
+    def __init__(self, specs: Iterable[FactSpec]) -> None:
+        table: dict[str, FactSpec] = {}
+        for spec in specs:
+            if spec.name in table:
+                raise ValueError(f"fact {spec.name} is defined twice in the catalogue")
+            table[spec.name] = spec
+        for spec in table.values():
+            unknown = [name for name in spec.inputs if name not in table]
+            if unknown:
+                raise ValueError(f"fact {spec.name} lists unknown inputs: {', '.join(unknown)}")
+        self._specs = table
+        self._order = {name: position for position, name in enumerate(table)}
+
+    def __getitem__(self, name: str) -> FactSpec:
+        return self._specs[name]
+
+    def __iter__(self) -> Iterator[str]:
+        return iter(self._specs)
+
+    def __len__(self) -> int:
+        return len(self._specs)
+
+    def __repr__(self) -> str:
+        return f"FactCatalogue({len(self._specs)} facts)"
+
+    def position(self, name: str) -> int:
+        """Where `name` stands in catalogue order (for stable, readable listings)."""
+        return self._order[name]
+
+    def check(self, facts: Mapping[str, object]) -> None:
+        """Raise `FactError` listing every fact that is unknown or breaks its spec.
+
+        Absent facts are fine (they are *missing*); `None` is rejected rather than read as
+        missing so that the caller's intent stays explicit: leave the name out instead.
+        """
+        problems: list[FactProblem] = []
+        specs = self._specs
+        for name, value in facts.items():
+            spec = specs.get(name)
+            if spec is None:
+                problems.append(FactProblem(name, "not in the fact catalogue"))
+                continue
+            if value is None:
+                problems.append(FactProblem(name, "None given; leave a missing fact out"))
+                continue
+            message = spec.problem(value)
+            if message is not None:
+                problems.append(FactProblem(name, message))
+        if problems:
+            raise FactError(problems)
+
+
+DEFAULT_CATALOGUE = FactCatalogue(DEFAULT_FACT_SPECS)
+"""The catalogue the default rule set and the intake agree on."""
+
+
+def _range(spec: FactSpec) -> str:
+    if spec.kind is FactKind.QUANTITY:
+        return f"{spec.minimum:g} to {spec.maximum:g}"
+    if spec.kind is FactKind.CODE:
+        return ", ".join(f"`{code}`" for code in sorted(spec.allowed))
+    return "true, false"
+
+
+def catalogue_markdown(catalogue: FactCatalogue) -> str:
+    """Render the catalogue as a Markdown table, in catalogue order, for documentation."""
+    lines = [
+        "| Fact | Kind | Unit (UCUM) | Accepted values | Origin | Description |",
+        "| --- | --- | --- | --- | --- | --- |",
+    ]
+    for spec in catalogue.values():
+        unit = f"`{spec.unit}`" if spec.unit else ""
+        description = spec.description.replace("|", "\\|")
+        if spec.inputs:
+            description += " (needs " + ", ".join(f"`{name}`" for name in spec.inputs) + ")"
+        lines.append(
+            f"| `{spec.name}` | {spec.kind} | {unit} | {_range(spec)} | {spec.origin} "
+            f"| {description} |"
+        )
+    return "\n".join(lines) + "\n"

@@ -1,0 +1,117 @@
+"""Closed vocabularies shared by rule files, the engine and its callers.
+
+Every word a rule file may use for an outcome is listed here, so a typo in a rule is a
+load error rather than a silently new category. The values are the wire spellings
+(kebab-case); the member names are their Python spellings. Extending a vocabulary is a
+code change on purpose: downstream consumers switch on these values.
+"""
+
+from enum import StrEnum
+
+__all__ = [
+    "FindingCode",
+    "Grade",
+    "HypoxaemiaStatus",
+    "Mechanism",
+    "Pattern",
+    "RuleStatus",
+    "Severity",
+]
+
+
+class Mechanism(StrEnum):
+    """Physiological mechanisms of hypoxaemia the rule set grades, in reporting order."""
+
+    LOW_INSPIRED_OXYGEN = "low-inspired-oxygen"
+    HYPOVENTILATION = "hypoventilation"
+    DIFFUSION_LIMITATION = "diffusion-limitation"
+    VQ_MISMATCH = "vq-mismatch"
+    SHUNT = "shunt"
+
+
+class Grade(StrEnum):
+    """How strongly the data support one mechanism.
+
+    Rules may only emit `likely`, `possible` and `unlikely`; `not-assessable` is what the
+    verdict reports when no rule about the mechanism fired.
+    """
+
+    LIKELY = "likely"
+    POSSIBLE = "possible"
+    UNLIKELY = "unlikely"
+    NOT_ASSESSABLE = "not-assessable"
+
+
+class Severity(StrEnum):
+    """Severity of a finding; any fired `error` finding makes the gas not classifiable."""
+
+    ERROR = "error"
+    WARNING = "warning"
+    INFORMATION = "information"
+
+
+class Pattern(StrEnum):
+    """Overall shape of the verdict across the five mechanisms."""
+
+    NO_HYPOXAEMIA = "no-hypoxaemia"
+    SINGLE = "single"
+    MIXED = "mixed"
+    INDETERMINATE = "indeterminate"
+    NOT_CLASSIFIABLE = "not-classifiable"
+
+
+class HypoxaemiaStatus(StrEnum):
+    """Whether hypoxaemia is present; rules may assert `present` or `absent` only."""
+
+    PRESENT = "present"
+    ABSENT = "absent"
+    UNKNOWN = "unknown"
+
+
+class RuleStatus(StrEnum):
+    """Lifecycle of a rule file: draft → testing → active → retired.
+
+    Only `active` rules shape the verdict. `testing` rules are evaluated in the shadow:
+    their results are reported next to the active ones but never change a grade, a
+    finding, the hypoxaemia status or the pattern. `draft` rules are validated at load
+    time and not evaluated; `retired` rules are read (they count for id uniqueness and
+    the content hash) and neither checked against the catalogue nor evaluated.
+    """
+
+    DRAFT = "draft"
+    TESTING = "testing"
+    ACTIVE = "active"
+    RETIRED = "retired"
+
+
+class FindingCode(StrEnum):
+    """Codes of findings: data-quality remarks and clinical context beside the grades."""
+
+    # Data quality and plausibility.
+    PAO2_EXCEEDS_ALVEOLAR = "pao2-exceeds-alveolar"
+    POSSIBLE_VENOUS_SAMPLE = "possible-venous-sample"
+    SPECIMEN_NOT_ARTERIAL = "specimen-not-arterial"
+    SPECIMEN_UNKNOWN = "specimen-unknown"
+    SPO2_SAO2_DISCORDANT = "spo2-sao2-discordant"
+    OCCULT_HYPOXAEMIA = "occult-hypoxaemia"
+    DYSHAEMOGLOBIN = "dyshaemoglobin"
+    ACID_BASE_INCONSISTENT = "acid-base-inconsistent"
+    FIO2_MISSING = "fio2-missing"
+    FIO2_ESTIMATED_FROM_FLOW = "fio2-estimated-from-flow"
+    FIO2_TIME_MISMATCH = "fio2-time-mismatch"
+    PB_ESTIMATED_FROM_ALTITUDE = "pb-estimated-from-altitude"
+    PB_ASSUMED_SEA_LEVEL = "pb-assumed-sea-level"
+    NO_ARTERIAL_GAS = "no-arterial-gas"
+    PACO2_MISSING = "paco2-missing"
+    VALUE_OUT_OF_RANGE = "value-out-of-range"
+    UNIT_CONVERTED = "unit-converted"
+    OBSERVATION_IGNORED = "observation-ignored"
+    # Clinical context.
+    HYPOXAEMIA_MILD = "hypoxaemia-mild"
+    HYPOXAEMIA_MODERATE = "hypoxaemia-moderate"
+    HYPOXAEMIA_SEVERE = "hypoxaemia-severe"
+    GAS_EXCHANGE_DEFECT_ON_OXYGEN = "gas-exchange-defect-on-oxygen"
+    NORMAL_FOR_ALTITUDE = "normal-for-altitude"
+    LOW_MIXED_VENOUS_OXYGEN = "low-mixed-venous-oxygen"
+    ACUTE_RESPIRATORY_ACIDOSIS = "acute-respiratory-acidosis"
+    CHRONIC_RESPIRATORY_ACIDOSIS = "chronic-respiratory-acidosis"
