@@ -1,0 +1,128 @@
+"""Compiled conditions: three-valued combinators as closures over the state vector.
+
+Evaluation first runs every leaf test once into a *state vector* (True, False or None
+per leaf index); a compiled condition then only reads that vector. Each node also
+carries `undecided`: for a node whose truth is unknown, the leaves whose missing facts
+keep it undecided. Parts that are already true or false do not count, so "data
+requested" never asks for a fact that could not change the answer.
+"""
+
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass
+from operator import itemgetter
+
+from service.engine.logic import TruthValue
+
+__all__ = ["BROKEN", "CompiledCondition", "StateVector", "all_of", "any_of", "leaf_node", "not_of"]
+
+StateVector = Sequence[TruthValue]
+
+
+@dataclass(frozen=True, slots=True)
+class CompiledCondition:
+    """A condition as closures over the state vector."""
+
+    truth: Callable[[StateVector], TruthValue]
+    undecided: Callable[[StateVector], frozenset[int]]
+    leaves: tuple[int, ...]
+    """Indices of every leaf under this node, in order of first appearance."""
+    leaf: int | None = None
+    """The index when the node is a single leaf (lets parents read the vector directly)."""
+
+
+def _never_decided(states: StateVector) -> frozenset[int]:
+    return frozenset()
+
+
+def _always_unknown(states: StateVector) -> TruthValue:
+    return None
+
+
+BROKEN = CompiledCondition(_always_unknown, _never_decided, ())
+"""Stand-in for a condition that failed to compile; the load fails anyway."""
+
+
+def _undecided_under(
+    parts: Sequence[CompiledCondition], truth: Callable[[StateVector], TruthValue]
+) -> Callable[[StateVector], frozenset[int]]:
+    def undecided(states: StateVector) -> frozenset[int]:
+        if truth(states) is not None:
+            return frozenset()
+        return frozenset().union(
+            *(part.undecided(states) for part in parts if part.truth(states) is None)
+        )
+
+    return undecided
+
+
+def _ordered_leaves(parts: Sequence[CompiledCondition]) -> tuple[int, ...]:
+    return tuple(dict.fromkeys(index for part in parts for index in part.leaves))
+
+
+def all_of(parts: Sequence[CompiledCondition]) -> CompiledCondition:
+    """`all`: false if any part is false, else unknown if any is unknown, else true."""
+    direct = tuple(part.leaf for part in parts if part.leaf is not None)
+    nested = tuple(part.truth for part in parts if part.leaf is None)
+
+    def truth(states: StateVector) -> TruthValue:
+        result: TruthValue = True
+        for index in direct:
+            value = states[index]
+            if value is False:
+                return False
+            if value is None:
+                result = None
+        for part in nested:
+            value = part(states)
+            if value is False:
+                return False
+            if value is None:
+                result = None
+        return result
+
+    return CompiledCondition(truth, _undecided_under(parts, truth), _ordered_leaves(parts))
+
+
+def any_of(parts: Sequence[CompiledCondition]) -> CompiledCondition:
+    """`any`: true if any part is true, else unknown if any is unknown, else false."""
+    direct = tuple(part.leaf for part in parts if part.leaf is not None)
+    nested = tuple(part.truth for part in parts if part.leaf is None)
+
+    def truth(states: StateVector) -> TruthValue:
+        result: TruthValue = False
+        for index in direct:
+            value = states[index]
+            if value is True:
+                return True
+            if value is None:
+                result = None
+        for part in nested:
+            value = part(states)
+            if value is True:
+                return True
+            if value is None:
+                result = None
+        return result
+
+    return CompiledCondition(truth, _undecided_under(parts, truth), _ordered_leaves(parts))
+
+
+def not_of(part: CompiledCondition) -> CompiledCondition:
+    """`not`: swaps true and false, keeps unknown."""
+    inner = part.truth
+
+    def truth(states: StateVector) -> TruthValue:
+        value = inner(states)
+        return None if value is None else not value
+
+    return CompiledCondition(truth, part.undecided, part.leaves)
+
+
+def leaf_node(index: int) -> CompiledCondition:
+    """A node that reads one leaf's state."""
+    read: Callable[[StateVector], TruthValue] = itemgetter(index)
+
+    def undecided(states: StateVector) -> frozenset[int]:
+        return frozenset((index,)) if states[index] is None else frozenset()
+
+    return CompiledCondition(read, undecided, (index,), index)

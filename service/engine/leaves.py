@@ -1,0 +1,72 @@
+"""Leaves: single tests on one fact, compiled to closures over the facts mapping.
+
+A leaf returns True or False, or None (unknown) when its fact is missing; `present` is
+the exception and is never unknown. The closures assume facts of the right kind: the
+catalogue checks the facts before any leaf sees them.
+"""
+
+import math
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass, field
+from typing import Any
+
+from service.engine.logic import Operator, TruthValue
+
+__all__ = ["FactTest", "Leaf", "Threshold", "leaf_test"]
+
+FactTest = Callable[[Mapping[str, Any]], TruthValue]
+Threshold = float | tuple[float, float] | bool | tuple[str, ...]
+
+
+@dataclass(frozen=True, slots=True)
+class Leaf:
+    """One distinct test of the rule set, as shown in traces."""
+
+    fact: str
+    operator: Operator
+    threshold: Threshold
+    """Number, `(low, high)` for between, the expected bool for is/present, codes for in."""
+    parameters: tuple[str, ...]
+    """Parameter names the threshold came from (two for a between with two parameters)."""
+    unit: str | None
+    test: FactTest = field(compare=False, repr=False)
+
+
+def _comparison_test(name: str, operator: Operator, threshold: Threshold) -> FactTest:
+    # One closure per operator keeps the hot path to a dict lookup and one comparison.
+    if operator is Operator.LT:
+        limit = threshold
+        return lambda facts: None if (v := facts.get(name)) is None else v < limit
+    if operator is Operator.LE:
+        limit = threshold
+        return lambda facts: None if (v := facts.get(name)) is None else v <= limit
+    if operator is Operator.GT:
+        limit = threshold
+        return lambda facts: None if (v := facts.get(name)) is None else v > limit
+    if operator is Operator.GE:
+        limit = threshold
+        return lambda facts: None if (v := facts.get(name)) is None else v >= limit
+    if operator is Operator.EQ:
+        target = float(threshold)  # type: ignore[arg-type]
+        # Tolerant equality: a computed 0.21000000000000002 should equal a written 0.21.
+        return lambda facts: (
+            None
+            if (v := facts.get(name)) is None
+            else math.isclose(v, target, rel_tol=1e-9, abs_tol=1e-12)
+        )
+    low, high = threshold  # type: ignore[misc]
+    return lambda facts: None if (v := facts.get(name)) is None else low <= v <= high
+
+
+def leaf_test(name: str, operator: Operator, threshold: Threshold) -> FactTest:
+    """Build the test closure of one leaf."""
+    if operator is Operator.PRESENT:
+        expected = threshold
+        return lambda facts: (name in facts) == expected
+    if operator is Operator.IS:
+        flag = threshold
+        return lambda facts: None if (v := facts.get(name)) is None else v is flag
+    if operator is Operator.IN:
+        codes = frozenset(threshold)  # type: ignore[arg-type]
+        return lambda facts: None if (v := facts.get(name)) is None else v in codes
+    return _comparison_test(name, operator, threshold)

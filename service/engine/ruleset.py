@@ -1,0 +1,149 @@
+"""A loaded, validated and compiled rule set, ready to evaluate many times.
+
+Nothing here is parsed or checked again at evaluation time: conditions are closures,
+rationales are parsed templates, parameters already include site overrides.
+"""
+
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+
+from service.engine.catalogue import FactCatalogue
+from service.engine.compiled import CompiledCondition
+from service.engine.leaves import FactTest, Leaf
+from service.engine.parameters import Parameter
+from service.engine.rationale import Template
+from service.engine.vocabulary import (
+    FindingCode,
+    Grade,
+    HypoxaemiaStatus,
+    Mechanism,
+    RuleStatus,
+    Severity,
+)
+
+__all__ = [
+    "Discriminator",
+    "FindingOutcome",
+    "HypoxaemiaOutcome",
+    "MechanismOutcome",
+    "Outcome",
+    "RetiredRule",
+    "Rule",
+    "RuleSet",
+]
+
+
+@dataclass(frozen=True, slots=True)
+class MechanismOutcome:
+    """The rule grades a mechanism; among fired rules the lowest `priority` wins."""
+
+    mechanism: Mechanism
+    grade: Grade
+    priority: int
+
+
+@dataclass(frozen=True, slots=True)
+class FindingOutcome:
+    """The rule raises a finding."""
+
+    code: FindingCode
+    severity: Severity
+
+
+@dataclass(frozen=True, slots=True)
+class HypoxaemiaOutcome:
+    """The rule states whether hypoxaemia is present or absent."""
+
+    status: HypoxaemiaStatus
+
+
+Outcome = MechanismOutcome | FindingOutcome | HypoxaemiaOutcome
+
+
+@dataclass(frozen=True, slots=True)
+class Discriminator:
+    """What would settle a `possible` grade, and which facts to ask for."""
+
+    text: str
+    requests: tuple[str, ...]
+
+
+@dataclass(frozen=True, slots=True)
+class Rule:
+    """A compiled rule (status draft, testing or active)."""
+
+    id: str
+    version: str
+    title: str
+    status: RuleStatus
+    description: str
+    references: tuple[str, ...]
+    outcome: Outcome
+    rationale: Template
+    discriminator: Discriminator | None
+    file: str
+    """Path of the rule file, relative to the rule-set directory."""
+    condition: CompiledCondition = field(compare=False, repr=False)
+    shadow: bool = field(init=False, compare=False, repr=False)
+    """True for `testing` rules: evaluated and reported, never part of the verdict."""
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "shadow", self.status is RuleStatus.TESTING)
+
+    @property
+    def ref(self) -> str:
+        """`id@version`, the way results cite a rule."""
+        return f"{self.id}@{self.version}"
+
+
+@dataclass(frozen=True, slots=True)
+class RetiredRule:
+    """A retired rule: kept for the record, never compiled or evaluated."""
+
+    id: str
+    version: str
+    title: str
+    file: str
+
+
+@dataclass(frozen=True, slots=True)
+class RuleSet:
+    """A rule set loaded from one directory, with site overrides applied."""
+
+    id: str
+    version: str
+    title: str
+    description: str
+    content_hash: str
+    """sha256 (hex) over every file read and the overrides; see `loader`."""
+    parameters: Mapping[str, Parameter]
+    overrides: Mapping[str, float]
+    catalogue: FactCatalogue
+    rules: tuple[Rule, ...]
+    """Draft, testing and active rules, in file-path order."""
+    retired: tuple[RetiredRule, ...]
+    leaves: tuple[Leaf, ...]
+    """Every distinct leaf; a rule's condition refers to them by index."""
+    evaluated: tuple[Rule, ...] = field(init=False, repr=False, compare=False)
+    """Active and testing rules: the ones `evaluate` runs."""
+    leaf_tests: tuple[FactTest, ...] = field(init=False, repr=False, compare=False)
+    """The leaves' test closures, kept as a plain tuple for the evaluation loop."""
+
+    def __post_init__(self) -> None:
+        evaluated = tuple(
+            rule for rule in self.rules if rule.status in (RuleStatus.ACTIVE, RuleStatus.TESTING)
+        )
+        object.__setattr__(self, "evaluated", evaluated)
+        object.__setattr__(self, "leaf_tests", tuple(leaf.test for leaf in self.leaves))
+
+    @property
+    def identity(self) -> str:
+        """`id|version` of the rule set."""
+        return f"{self.id}|{self.version}"
+
+    def rule(self, rule_id: str) -> Rule:
+        """The compiled rule with this id (KeyError if absent or retired)."""
+        for rule in self.rules:
+            if rule.id == rule_id:
+                return rule
+        raise KeyError(rule_id)
