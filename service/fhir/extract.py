@@ -1,0 +1,242 @@
+"""A FHIR Bundle (parsed JSON) as an ``Intake``: the entry point of the FHIR adapter.
+
+``read_bundle`` walks the dicts ``orjson`` produced, narrowly: it reads ``Patient`` (birthDate
+and gender, never name or identifier), ``Observation``, ``Location`` (``position.altitude``)
+and ``Specimen`` (for the type of "Bld" results); any other resource is reported as
+``resource-ignored``. It accepts every Bundle type. fhir.resources is not used here
+(performance.md); the optional strict check is ``service.fhir.models.validate_strict``.
+
+Two kinds of trouble, kept apart:
+
+* the input is not a usable Bundle (wrong JSON type, a required element missing, a unit the
+  quantity cannot take, a bad dateTime): every such problem is collected, located by FHIRPath,
+  and raised once as ``BundleError`` (HTTP 422);
+* the Bundle is usable but something in it cannot be used (an entered-in-error Observation, an
+  unknown code, an impossible value, an unknown specimen): an ``IntakeIssue`` is reported and
+  reading goes on. An impossible value (``value-out-of-range``, severity error) is dropped, not
+  the whole Bundle: the rest is still assessed, and the error finding tells the rules that the
+  data cannot be fully trusted (clinical-logic.md §2).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+from service.fhir import codes
+from service.fhir.concept_map import LocalCodeMap
+from service.fhir.dates import parse_date
+from service.fhir.observation import ObservationReader
+from service.fhir.outcome import BundleError, error
+from service.fhir.plausibility import out_of_range
+from service.fhir.references import FHIR_ID, BundleIndex, resource_reference, type_and_id
+from service.fhir.shape import (
+    Collector,
+    JsonObject,
+    as_object,
+    json_type,
+    member_list,
+    member_number,
+    member_object,
+)
+from service.fhir.shape import member_str as text
+from service.intake.model import Intake, Measurement, Patient, Quantity, Severity, Source
+
+_READ = frozenset({"Patient", "Observation", "Location", "Specimen"})
+_REQUEST_WITHOUT_RESOURCE = frozenset({"GET", "HEAD", "DELETE"})
+
+
+@dataclass(frozen=True, slots=True)
+class _Entry:
+    index: int
+    resource: JsonObject
+    kind: str
+    full_url: str | None
+
+    @property
+    def at(self) -> str:
+        return f"Bundle.entry[{self.index}].resource"
+
+    @property
+    def reference(self) -> str:
+        return resource_reference(self.resource, self.full_url)
+
+
+def read_bundle(data: object, *, concept_map: LocalCodeMap | None = None) -> Intake:
+    """Read one patient's Bundle into measurements in canonical units, with issues.
+
+    Args:
+        data: the parsed JSON body (``orjson.loads``).
+        concept_map: the site's local-code map, if any.
+
+    Raises:
+        BundleError: ``data`` is not a Bundle the service can read; lists every problem.
+    """
+    bundle = _bundle_object(data)
+    out = Collector()
+    kind = text(bundle, "type", "Bundle", out)
+    if kind is not None and kind not in codes.BUNDLE_TYPES:
+        out.problem("code-invalid", "not an R4 Bundle type", "Bundle.type")
+    index = BundleIndex()
+    entries = _entries(bundle, index, out)
+    reader = ObservationReader(out, index, concept_map)
+    subjects = _Subjects(index, out)
+    patient: Patient | None = None
+    measurements: list[Measurement] = []
+    for entry in entries:
+        if entry.kind == "Observation":
+            measurements.extend(reader.read(entry.resource, entry.at, entry.reference))
+            subjects.observation(entry)
+        elif entry.kind == "Patient":
+            patient = _patient(entry, patient, subjects, out)
+        elif entry.kind == "Location":
+            measurements.extend(_altitude(entry, out))
+        elif entry.kind != "Specimen":
+            kind = entry.kind if FHIR_ID.fullmatch(entry.kind) else "unknown"
+            message = f"{kind} resources are not read"
+            out.issue("resource-ignored", Severity.INFORMATION, message, entry.at)
+    out.raise_problems()
+    if patient is None and subjects.first is not None:
+        patient = Patient(reference=subjects.first, birth_date=None, gender=None)
+    return Intake(patient=patient, measurements=measurements, issues=out.issues)
+
+
+def _bundle_object(data: object) -> JsonObject:
+    if not isinstance(data, dict):
+        found = f"JSON {json_type(data)}"
+    elif data.get("resourceType") == "Bundle":
+        return data
+    elif isinstance(data.get("resourceType"), str) and FHIR_ID.fullmatch(data["resourceType"]):
+        found = f"a {data['resourceType']} resource"
+    else:
+        found = "an object without a FHIR resourceType"
+    diagnostics = f"expected a FHIR Bundle resource (resourceType 'Bundle'), got {found}"
+    raise BundleError([error("structure", diagnostics, "Bundle")])
+
+
+def _entries(bundle: JsonObject, index: BundleIndex, out: Collector) -> list[_Entry]:
+    """Check the entries' shape and index the resources read (references may point forward)."""
+    items = member_list(bundle, "entry", "Bundle", out) or []
+    found: list[_Entry] = []
+    for i, item in enumerate(items):
+        at = f"Bundle.entry[{i}]"
+        entry = as_object(item, at, out)
+        if entry is None:
+            continue
+        full_url = text(entry, "fullUrl", at, out)
+        if "resource" not in entry and _request_only(entry):
+            message = "a request without a resource: nothing to read"
+            out.issue("resource-ignored", Severity.INFORMATION, message, at)
+            continue
+        res = member_object(entry, "resource", at, out, required=True)
+        if res is None:
+            continue
+        resource, res_at = res
+        kind = text(resource, "resourceType", res_at, out, required=True)
+        if kind is None:
+            continue
+        if kind in _READ:
+            rid = text(resource, "id", res_at, out)
+            if rid is not None and not FHIR_ID.fullmatch(rid):
+                out.problem("value", "not a FHIR id (1-64 of A-Z a-z 0-9 - .)", f"{res_at}.id")
+            index.add(i, resource, full_url)
+        found.append(_Entry(i, resource, kind, full_url))
+    return found
+
+
+def _request_only(entry: JsonObject) -> bool:
+    request = entry.get("request")
+    return isinstance(request, dict) and request.get("method") in _REQUEST_WITHOUT_RESOURCE
+
+
+class _Subjects:
+    """Checks that every Observation is about the same patient (one patient per Bundle)."""
+
+    def __init__(self, index: BundleIndex, out: Collector) -> None:
+        self.index, self.out = index, out
+        self.first: str | None = None  # the first subject reference seen, for Intake.patient
+        self._key: object = None
+        self._patient_entry: int | None = None
+
+    def _agree(self, key: object, at: str) -> None:
+        if self._key is None:
+            self._key = key
+        elif key != self._key:
+            self.out.problem(
+                "invalid",
+                "this resource is about another patient than the rest of the Bundle; "
+                "send one patient's data per Bundle",
+                at,
+            )
+
+    def patient(self, entry: _Entry) -> None:
+        reference = entry.reference
+        if not reference:
+            return  # neither id nor fullUrl: nothing can point at it, nothing to compare
+        self._agree(("entry", self.index.resolve(reference)), entry.at)
+
+    def observation(self, entry: _Entry) -> None:
+        found = member_object(entry.resource, "subject", entry.at, self.out)
+        if found is None:
+            return
+        reference = text(found[0], "reference", found[1], self.out)
+        if reference is None:
+            return
+        target = self.index.resolve(reference)
+        if target is not None:
+            if self.index.resources[target].get("resourceType") != "Patient":
+                return  # a Group, Device or Location subject says nothing about the patient
+            key: object = ("entry", target)
+        else:
+            typed = type_and_id(reference)
+            if typed is not None and not typed.startswith("Patient/"):
+                return
+            key = ("reference", typed or reference)
+        if self.first is None:
+            self.first = reference
+        self._agree(key, f"{found[1]}.reference")
+
+
+def _patient(
+    entry: _Entry, previous: Patient | None, subjects: _Subjects, out: Collector
+) -> Patient | None:
+    subjects.patient(entry)
+    if previous is not None:
+        return previous  # a second, different Patient was reported by _Subjects
+    at = entry.at
+    birth_date = None
+    born = text(entry.resource, "birthDate", at, out)
+    if born is not None:
+        try:
+            birth_date, full = parse_date(born)
+        except ValueError as exc:
+            out.problem("value", str(exc), f"{at}.birthDate")
+        else:
+            if not full:
+                out.issue(
+                    "time-imprecise",
+                    Severity.WARNING,
+                    "birthDate without a day: age is counted from the first day of the period",
+                    f"{at}.birthDate",
+                )
+    gender = text(entry.resource, "gender", at, out)
+    if gender is not None and gender not in codes.ADMINISTRATIVE_GENDERS:
+        out.problem("code-invalid", "not an R4 administrative gender", f"{at}.gender")
+        gender = None
+    return Patient(reference=entry.reference, birth_date=birth_date, gender=gender)
+
+
+def _altitude(entry: _Entry, out: Collector) -> list[Measurement]:
+    """``Location.position.altitude`` (metres, per R4) as an ALTITUDE measurement."""
+    position = member_object(entry.resource, "position", entry.at, out)
+    if position is None:
+        return []
+    altitude = member_number(position[0], "altitude", position[1], out)
+    if altitude is None:
+        return []
+    at = f"{position[1]}.altitude"
+    reason = out_of_range(Quantity.ALTITUDE, altitude)
+    if reason is not None:
+        message = f"altitude is impossible: {reason}; the value is not used"
+        out.issue("value-out-of-range", Severity.ERROR, message, at)
+        return []
+    return [Measurement(Quantity.ALTITUDE, altitude, None, Source(entry.reference, at))]

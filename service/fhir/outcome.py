@@ -1,0 +1,90 @@
+"""Located errors and the FHIR OperationOutcome that reports them.
+
+An input the service cannot read is refused with every problem found, each located by a
+FHIRPath ``expression`` (``Bundle.entry[3].resource.valueQuantity.code``), never with the first
+one only and never with a stack trace. ``operation_outcome`` turns those problems into the R4
+OperationOutcome the HTTP layer returns (contract.md §1, standards.md §3.6).
+
+Diagnostics say what is wrong with an element: its JSON type, a unit or code that was sent,
+what would be accepted. They never quote a patient's value, name or identifier, so an error
+can be logged as it is.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterable, Sequence
+from dataclasses import dataclass
+from typing import Literal
+
+from service.exceptions import ServiceError
+
+IssueSeverity = Literal["fatal", "error", "warning", "information"]
+
+# The HL7 issue-type codes (http://hl7.org/fhir/issue-type) this service emits for input
+# problems: the shape is wrong (structure), something needed is absent (required), a value or
+# unit cannot be used (value), a code is not in its required code set (code-invalid), the input
+# is valid FHIR the service does not handle (not-supported), anything else invalid (invalid).
+IssueType = Literal["structure", "required", "value", "invalid", "code-invalid", "not-supported"]
+
+
+@dataclass(frozen=True, slots=True)
+class Problem:
+    """One located problem with an input: an OperationOutcome issue in waiting."""
+
+    severity: IssueSeverity
+    code: IssueType
+    diagnostics: str
+    expression: str
+
+
+class LocatedError(ServiceError):
+    """An input that cannot be used, with every problem found in it (at least one)."""
+
+    def __init__(self, problems: Sequence[Problem]) -> None:
+        if not problems:
+            raise ValueError("a LocatedError needs at least one problem")
+        self.problems: tuple[Problem, ...] = tuple(problems)
+        first = self.problems[0]
+        more = len(self.problems) - 1
+        suffix = f" (and {more} more)" if more else ""
+        super().__init__(f"{first.expression}: {first.diagnostics}{suffix}")
+
+    def __repr__(self) -> str:
+        return f"{type(self).__name__}({list(self.problems)!r})"
+
+    def operation_outcome(self) -> dict[str, object]:
+        """The problems as an R4 OperationOutcome dict."""
+        return operation_outcome(self.problems)
+
+
+class BundleError(LocatedError):
+    """The input is not a Bundle the service can read (HTTP 400/422, CLI exit 2)."""
+
+
+class ConceptMapError(LocatedError):
+    """A local-code ConceptMap that cannot be loaded (stops the service at start-up)."""
+
+
+def error(code: IssueType, diagnostics: str, expression: str) -> Problem:
+    """A Problem of severity ``error``, the usual kind."""
+    return Problem("error", code, diagnostics, expression)
+
+
+def operation_outcome(problems: Iterable[Problem]) -> dict[str, object]:
+    """An R4 OperationOutcome (as a JSON-ready dict) with one issue per problem.
+
+    Raises:
+        ValueError: no problems were given (an OperationOutcome needs at least one issue).
+    """
+    issues: list[dict[str, object]] = [
+        {
+            "severity": p.severity,
+            "code": p.code,
+            "diagnostics": p.diagnostics,
+            "expression": [p.expression],
+        }
+        for p in problems
+    ]
+    if not issues:
+        raise ValueError("an OperationOutcome needs at least one issue")
+    return {"resourceType": "OperationOutcome", "issue": issues}

@@ -1,0 +1,65 @@
+"""Resolving references between the resources of one Bundle.
+
+FHIR resolves a reference inside a Bundle by ``fullUrl`` first, then by ``Type/id`` relative to
+the server base (R4 bundle.html "Resolving references in Bundles"). The service needs this for
+``Observation.specimen`` and ``Observation.subject``; it never fetches anything from outside
+the Bundle.
+"""
+
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass, field
+
+from service.fhir.shape import JsonObject
+
+# The R4 id type: 1-64 of letters, digits, '-' and '.'.
+FHIR_ID = re.compile(r"[A-Za-z0-9\-.]{1,64}", re.ASCII)
+
+_TYPE_ID = re.compile(r"(?:^|/)([A-Z][A-Za-z]+)/([A-Za-z0-9\-.]{1,64})(?:/_history/[^/]+)?$")
+
+
+def type_and_id(reference: str) -> str | None:
+    """``Type/id`` of a relative or absolute RESTful reference, or None (urn:uuid, '#x')."""
+    match = _TYPE_ID.search(reference)
+    return None if match is None else f"{match.group(1)}/{match.group(2)}"
+
+
+@dataclass(slots=True)
+class BundleIndex:
+    """The resources of a Bundle by ``fullUrl`` and by ``Type/id``."""
+
+    resources: dict[int, JsonObject] = field(default_factory=dict)
+    _by_full_url: dict[str, int] = field(default_factory=dict)
+    _by_type_id: dict[str, int] = field(default_factory=dict)
+
+    def add(self, entry: int, resource: JsonObject, full_url: str | None) -> None:
+        """Index the resource of ``Bundle.entry[entry]``; the first of duplicates wins."""
+        self.resources[entry] = resource
+        if full_url is not None:
+            self._by_full_url.setdefault(full_url, entry)
+            key = type_and_id(full_url)
+            if key is not None:
+                self._by_type_id.setdefault(key, entry)
+        kind, rid = resource.get("resourceType"), resource.get("id")
+        if isinstance(kind, str) and isinstance(rid, str):
+            self._by_type_id.setdefault(f"{kind}/{rid}", entry)
+
+    def resolve(self, reference: str) -> int | None:
+        """The entry index a reference points at, or None when it is not in the Bundle."""
+        if reference in self._by_full_url:
+            return self._by_full_url[reference]
+        key = type_and_id(reference)
+        return None if key is None else self._by_type_id.get(key)
+
+
+def resource_reference(resource: JsonObject, full_url: str | None) -> str:
+    """How to point at a resource from the result: ``Type/id``, else its ``fullUrl``, else ''.
+
+    An empty string means the resource has neither an id nor a fullUrl and cannot be referenced;
+    renderers leave such a reference out.
+    """
+    kind, rid = resource.get("resourceType"), resource.get("id")
+    if isinstance(kind, str) and isinstance(rid, str) and FHIR_ID.fullmatch(rid):
+        return f"{kind}/{rid}"
+    return full_url or ""

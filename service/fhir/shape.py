@@ -1,0 +1,170 @@
+"""Strict readers for the JSON shapes of a FHIR resource, and the collector of what they find.
+
+The adapter walks plain dicts from ``orjson`` (performance.md: no model validation per
+request). Each reader takes the parent object, the member name and the FHIRPath of the parent,
+checks the member's JSON type, and on a wrong type records a located ``Problem`` and returns
+None, so one pass finds every problem before the Bundle is refused once.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import cast
+
+from service.fhir.outcome import BundleError, IssueType, Problem, error
+from service.intake.model import IntakeIssue, Severity
+
+JsonObject = dict[str, object]
+
+
+class Collector:
+    """What one read found: problems that refuse the input, issues that are reported."""
+
+    __slots__ = ("issues", "problems")
+
+    def __init__(self) -> None:
+        self.problems: list[Problem] = []
+        self.issues: list[IntakeIssue] = []
+
+    def problem(self, code: IssueType, diagnostics: str, expression: str) -> None:
+        """Record a problem that makes the input unusable (raised at the end of the read)."""
+        self.problems.append(error(code, diagnostics, expression))
+
+    def issue(self, code: str, severity: Severity, message: str, expression: str) -> None:
+        """Record a finding to report beside the result; reading goes on."""
+        self.issues.append(IntakeIssue(code, severity, message, expression))
+
+    def raise_problems(self) -> None:
+        """Raise one BundleError with every problem recorded, if there is any."""
+        if self.problems:
+            # A Specimen referenced twice is read twice: report each problem once.
+            raise BundleError(list(dict.fromkeys(self.problems)))
+
+
+def json_type(value: object) -> str:
+    """The JSON name of a value's type, for messages that must not quote the value."""
+    if value is None:
+        return "null"
+    if isinstance(value, bool):
+        return "boolean"
+    if isinstance(value, int | float):
+        return "number"
+    if isinstance(value, str):
+        return "string"
+    if isinstance(value, list):
+        return "array"
+    if isinstance(value, dict):
+        return "object"
+    return type(value).__name__
+
+
+def _wrong_type(out: Collector, expected: str, value: object, at: str) -> None:
+    out.problem("structure", f"expected {expected}, got {json_type(value)}", at)
+
+
+def as_object(value: object, at: str, out: Collector) -> JsonObject | None:
+    """``value`` if it is a JSON object, else a structure problem at ``at``."""
+    if isinstance(value, dict):
+        return cast(JsonObject, value)
+    _wrong_type(out, "an object", value, at)
+    return None
+
+
+def _member(
+    obj: JsonObject, key: str, at: str, out: Collector, required: bool
+) -> tuple[object, str] | None:
+    path = f"{at}.{key}"
+    if key not in obj:
+        if required:
+            out.problem("required", f"'{key}' is required here", path)
+        return None
+    return obj[key], path
+
+
+def member_object(
+    obj: JsonObject, key: str, at: str, out: Collector, *, required: bool = False
+) -> tuple[JsonObject, str] | None:
+    """The object member ``key`` of ``obj`` and its FHIRPath, or None (absent or wrong type)."""
+    found = _member(obj, key, at, out, required)
+    if found is None:
+        return None
+    value, path = found
+    checked = as_object(value, path, out)
+    return None if checked is None else (checked, path)
+
+
+def member_list(
+    obj: JsonObject, key: str, at: str, out: Collector, *, required: bool = False
+) -> list[object] | None:
+    """The array member ``key`` of ``obj``, or None (absent or wrong type)."""
+    found = _member(obj, key, at, out, required)
+    if found is None:
+        return None
+    value, path = found
+    if isinstance(value, list):
+        return cast(list[object], value)
+    _wrong_type(out, "an array", value, path)
+    return None
+
+
+def objects(items: list[object], at: str, out: Collector) -> list[tuple[JsonObject, str]]:
+    """The items of an array that are objects, each with its FHIRPath ``at[i]``."""
+    found: list[tuple[JsonObject, str]] = []
+    for i, item in enumerate(items):
+        path = f"{at}[{i}]"
+        checked = as_object(item, path, out)
+        if checked is not None:
+            found.append((checked, path))
+    return found
+
+
+def member_str(
+    obj: JsonObject, key: str, at: str, out: Collector, *, required: bool = False
+) -> str | None:
+    """The string member ``key`` of ``obj``, or None. FHIR strings are never empty."""
+    found = _member(obj, key, at, out, required)
+    if found is None:
+        return None
+    value, path = found
+    if not isinstance(value, str):
+        _wrong_type(out, "a string", value, path)
+        return None
+    if not value.strip():
+        out.problem("value", "a FHIR string must not be empty or blank", path)
+        return None
+    return value
+
+
+def member_number(
+    obj: JsonObject, key: str, at: str, out: Collector, *, required: bool = False
+) -> float | None:
+    """The number member ``key`` of ``obj`` as a finite float, or None."""
+    found = _member(obj, key, at, out, required)
+    if found is None:
+        return None
+    value, path = found
+    if isinstance(value, bool) or not isinstance(value, int | float):
+        _wrong_type(out, "a number", value, path)
+        return None
+    try:
+        number = float(value)
+    except OverflowError:
+        number = math.inf
+    if not math.isfinite(number):
+        out.problem("value", "expected a finite number", path)
+        return None
+    return number
+
+
+def str_items(obj: JsonObject, key: str, at: str, out: Collector) -> list[str]:
+    """The strings of an array-of-strings member (``meta.profile``); others are problems."""
+    items = member_list(obj, key, at, out)
+    if items is None:
+        return []
+    found: list[str] = []
+    for i, item in enumerate(items):
+        if isinstance(item, str):
+            found.append(item)
+        else:
+            _wrong_type(out, "a string", item, f"{at}.{key}[{i}]")
+    return found

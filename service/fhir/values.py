@@ -1,0 +1,158 @@
+"""One Observation value, read and converted once to the canonical unit of its quantity.
+
+``read_quantity`` takes a ``valueQuantity`` (of an Observation or of a component): the UCUM
+``code`` is preferred, else the ``unit`` text; every conversion goes through
+``service.physiology.units``. A unit the quantity cannot take refuses the Bundle (a located
+problem); a value that is impossible after conversion is reported ``value-out-of-range`` and
+not used, so the rest of the Bundle is still assessed. ``read_device`` reads the coded oxygen
+delivery method (LOINC 107117-4).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+from service.exceptions import ImpossibleValueError, UnitError
+from service.fhir import codes
+from service.fhir.codes import Concept
+from service.fhir.plausibility import out_of_range
+from service.fhir.shape import Collector, JsonObject, member_list, member_number, objects
+from service.fhir.shape import member_str as text
+from service.intake.model import QUANTITY_UNITS, Quantity, Severity
+from service.physiology.units import FIO2_LIMITS, Dimension, normalise_fio2, to_canonical
+
+
+@dataclass(frozen=True, slots=True)
+class Reading:
+    """A value in its quantity's canonical unit; ``sent_*`` are set when it was converted."""
+
+    value: float | str
+    sent_value: float | None = None
+    sent_unit: str | None = None
+
+
+def _unit(
+    q: JsonObject, at: str, dimension: Dimension | None, out: Collector
+) -> tuple[str, str] | None:
+    """The unit to convert from and where it was read, or None (a problem was recorded)."""
+    system = text(q, "system", at, out)
+    code = text(q, "code", at, out)
+    unit = text(q, "unit", at, out)
+    if code is not None and (system is None or system == codes.UCUM):
+        return code, f"{at}.code"
+    if unit is not None:
+        return unit, f"{at}.unit"
+    if code is not None:
+        out.problem("value", f"the unit code is not from UCUM ({codes.UCUM})", f"{at}.system")
+        return None
+    if dimension is Dimension.PH:
+        return "[pH]", f"{at}.code"  # pH has no unit; senders often leave it out
+    out.problem("required", "a unit is required: a UCUM code in valueQuantity.code", f"{at}.code")
+    return None
+
+
+def _convert(
+    value: float, unit: str, at: str, unit_at: str, concept: Concept, out: Collector
+) -> tuple[float, bool] | None:
+    """(canonical value, whether the unit was reinterpreted), or None if unusable."""
+    quantity = concept.quantity
+    try:
+        if quantity is Quantity.FIO2:
+            fio2 = normalise_fio2(value, unit)
+            return fio2.fraction, fio2.reinterpreted
+        if concept.dimension is None:
+            canonical = QUANTITY_UNITS[quantity]
+            if unit != canonical:
+                raise UnitError(unit, quantity.value, (canonical,))
+            return value, False
+        return to_canonical(value, unit, concept.dimension), False
+    except UnitError as exc:
+        accepted = ", ".join(exc.accepted)
+        out.problem(
+            "value",
+            f"unit '{unit}' cannot be used for {quantity.value}; accepted: {accepted}",
+            unit_at,
+        )
+    except ImpossibleValueError:
+        low, high = FIO2_LIMITS
+        out.issue(
+            "value-out-of-range",
+            Severity.ERROR,
+            f"fio2 is not between {low:g} and {high:g} once read as a fraction (sent unit "
+            f"'{unit}'); the value is not used",
+            f"{at}.value",
+        )
+    return None
+
+
+def read_quantity(q: JsonObject, at: str, concept: Concept, out: Collector) -> Reading | None:
+    """Read the ``valueQuantity`` at ``at`` for ``concept``; None when it cannot be used."""
+    quantity = concept.quantity
+    value = member_number(q, "value", at, out, required=True)
+    comparator = text(q, "comparator", at, out)
+    unit_found = _unit(q, at, concept.dimension, out)
+    if value is None or unit_found is None:
+        return None
+    if comparator is not None:
+        if comparator not in codes.QUANTITY_COMPARATORS:
+            out.problem("code-invalid", "not a FHIR quantity comparator", f"{at}.comparator")
+        else:
+            out.issue(
+                "observation-ignored",
+                Severity.WARNING,
+                f"{quantity.value} is a bound (comparator '{comparator}'), not a measured value",
+                f"{at}.comparator",
+            )
+        return None
+    unit, unit_at = unit_found
+    converted = _convert(value, unit, at, unit_at, concept, out)
+    if converted is None:
+        return None
+    canonical, reinterpreted = converted
+    reason = out_of_range(quantity, canonical)
+    if reason is not None:
+        hint = ""
+        if unit == "%" and 0.0 < value <= 1.0:
+            hint = " (was a fraction sent with unit '%'?)"
+        out.issue(
+            "value-out-of-range",
+            Severity.ERROR,
+            f"{quantity.value} is impossible: {reason}{hint}; the value is not used",
+            f"{at}.value",
+        )
+        return None
+    canonical_unit = QUANTITY_UNITS[quantity]
+    if unit == canonical_unit and not reinterpreted:
+        return Reading(canonical)
+    if reinterpreted:
+        severity = Severity.WARNING
+        how = f"read as {'a percentage' if unit == '1' else 'a fraction'} despite unit '{unit}'"
+    else:
+        severity = Severity.INFORMATION
+        how = f"converted from '{unit}' to '{canonical_unit}'"
+    out.issue("unit-converted", severity, f"{quantity.value} {how}", at)
+    return Reading(canonical, sent_value=value, sent_unit=unit)
+
+
+def read_device(cc: JsonObject, at: str, out: Collector) -> Reading | None:
+    """The oxygen-device code of a ``valueCodeableConcept`` (our CodeSystem or SNOMED CT)."""
+    codings = member_list(cc, "coding", at, out) or []
+    sent: list[str] = []
+    for coding, coding_at in objects(codings, f"{at}.coding", out):
+        system = text(coding, "system", coding_at, out)
+        code = text(coding, "code", coding_at, out)
+        if system is None or code is None:
+            continue
+        if system == codes.OXYGEN_DEVICE_CODES and code in codes.OXYGEN_DEVICES:
+            return Reading(code)
+        if system == codes.SNOMED_CT and code in codes.SNOMED_OXYGEN_DEVICES:
+            return Reading(codes.SNOMED_OXYGEN_DEVICES[code])
+        sent.append(f"{system}|{code}")
+    named = ", ".join(sent) if sent else "no coding"
+    out.issue(
+        "observation-ignored",
+        Severity.INFORMATION,
+        f"oxygen device not recognised ({named}); use {codes.OXYGEN_DEVICE_CODES}",
+        at,
+    )
+    return None
