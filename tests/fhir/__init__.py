@@ -1,0 +1,1 @@
+"""Tests of the FHIR adapter (service/fhir), one module per module."""
