@@ -26,7 +26,7 @@ from service.fhir import codes
 from service.fhir.concept_map import LocalCodeMap
 from service.fhir.dates import parse_date
 from service.fhir.observation import ObservationReader
-from service.fhir.outcome import BundleError, error
+from service.fhir.outcome import NotABundleError, error
 from service.fhir.plausibility import out_of_range
 from service.fhir.references import FHIR_ID, BundleIndex, resource_reference, type_and_id
 from service.fhir.shape import (
@@ -69,7 +69,8 @@ def read_bundle(data: object, *, concept_map: LocalCodeMap | None = None) -> Int
         concept_map: the site's local-code map, if any.
 
     Raises:
-        BundleError: ``data`` is not a Bundle the service can read; lists every problem.
+        NotABundleError: ``data`` is not a FHIR Bundle at all (HTTP 400).
+        BundleError: a Bundle the service cannot read; lists every problem (HTTP 422).
     """
     bundle = _bundle_object(data)
     out = Collector()
@@ -110,7 +111,7 @@ def _bundle_object(data: object) -> JsonObject:
     else:
         found = "an object without a FHIR resourceType"
     diagnostics = f"expected a FHIR Bundle resource (resourceType 'Bundle'), got {found}"
-    raise BundleError([error("structure", diagnostics, "Bundle")])
+    raise NotABundleError([error("structure", diagnostics, "Bundle")])
 
 
 def _entries(bundle: JsonObject, index: BundleIndex, out: Collector) -> list[_Entry]:

@@ -58,7 +58,11 @@ class LocatedError(ServiceError):
 
 
 class BundleError(LocatedError):
-    """The input is not a Bundle the service can read (HTTP 400/422, CLI exit 2)."""
+    """A Bundle the service cannot read, for a reason the sender can fix (HTTP 422, exit 2)."""
+
+
+class NotABundleError(BundleError):
+    """The JSON body is not a FHIR Bundle at all (HTTP 400, contract.md §1)."""
 
 
 class ConceptMapError(LocatedError):

@@ -8,7 +8,7 @@ from typing import Any
 import pytest
 
 from service.fhir.extract import read_bundle
-from service.fhir.outcome import BundleError, Problem
+from service.fhir.outcome import BundleError, NotABundleError, Problem
 from service.fhir.references import BundleIndex
 
 from .builders import Json, bundle, observation, patient, tagged
@@ -228,6 +228,9 @@ def test_malformed_location_altitude_is_a_located_error() -> None:
     ],
 )
 def test_non_bundle_input_is_refused(data: object, found: str) -> None:
+    # contract.md §1: a body that is not a Bundle is a 400, told apart from a fixable Bundle.
+    with pytest.raises(NotABundleError):
+        read_bundle(data)
     [problem] = refused(data)
     assert (problem.expression, problem.code) == ("Bundle", "structure")
     assert problem.diagnostics.endswith(found)
@@ -239,6 +242,9 @@ def test_every_problem_is_collected_and_raised_once() -> None:
         observation("2019-8", 40, "mmHgg", oid="b"),
         patient(gender="F"),
     )
+    with pytest.raises(BundleError) as caught:
+        read_bundle(data)
+    assert not isinstance(caught.value, NotABundleError)  # contract.md §1: 422, not 400
     expressions = [p.expression for p in refused(data)]
     assert expressions == [
         "Bundle.entry[0].resource.valueQuantity.value",
