@@ -124,6 +124,10 @@ def read_quantity(q: JsonObject, at: str, concept: Concept, out: Collector) -> R
     canonical_unit = QUANTITY_UNITS[quantity]
     if unit == canonical_unit and not reinterpreted:
         return Reading(canonical)
+    if unit == "%" and canonical_unit == "1" and not reinterpreted:
+        # Percentages are held as fractions inside the service: a representation, not a
+        # conversion of the sender's unit worth reporting on every saturation.
+        return Reading(canonical, sent_value=value, sent_unit=unit)
     if reinterpreted:
         severity = Severity.WARNING
         how = f"read as {'a percentage' if unit == '1' else 'a fraction'} despite unit '{unit}'"

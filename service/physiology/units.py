@@ -92,6 +92,8 @@ _CONVERTERS: dict[Dimension, dict[str, Callable[[float], float]]] = {
         "mmHg": _same,
         "kPa": mmhg_from_kpa,
         "cm[H2O]": mmhg_from_cmh2o,
+        "hPa": lambda hpa: mmhg_from_kpa(hpa / 10.0),  # ambient pressure is often in hPa
+        "mbar": lambda mbar: mmhg_from_kpa(mbar / 10.0),  # 1 mbar = 1 hPa = 0.1 kPa
     },
     Dimension.AIRWAY_PRESSURE: {
         "cm[H2O]": _same,
