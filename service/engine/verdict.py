@@ -1,0 +1,311 @@
+"""From rule results to a verdict: grades, findings, hypoxaemia, pattern, data requested.
+
+Only active rules count; `testing` rules are shadow-evaluated and reported only.
+
+* Each mechanism takes the grade of the fired rule with the lowest priority. Rules that
+  tie at that priority agree on the grade (the loader guarantees it) and are listed
+  together. A mechanism no rule fired for is `not-assessable`.
+* Hypoxaemia is `present` if a fired rule says so, else `absent` if one says that, else
+  `unknown`. Present wins a conflict because wrongly reassuring is the worse error.
+* The pattern is `not-classifiable` when an error finding fired or neither
+  `arterial_po2` nor `spo2` is known; then no grade may stay `likely`: it is demoted to
+  `possible` and its rationale says why. Otherwise `no-hypoxaemia` when hypoxaemia is
+  absent, `single` with one likely mechanism, `mixed` with more, else `indeterminate`.
+* Data requested joins the discriminator requests of `possible` grades and, for each
+  `not-assessable` mechanism, the missing facts that keep its unknown rules undecided.
+  A missing derived fact is replaced by its missing inputs, so the request names
+  something that can actually be measured or recorded.
+"""
+
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+
+from service.engine.catalogue import FactCatalogue
+from service.engine.facts import FactValue
+from service.engine.logic import Truth
+from service.engine.results import RuleResult
+from service.engine.ruleset import (
+    Discriminator,
+    FindingOutcome,
+    MechanismOutcome,
+)
+from service.engine.vocabulary import (
+    FindingCode,
+    Grade,
+    HypoxaemiaStatus,
+    Mechanism,
+    Pattern,
+    Severity,
+)
+
+__all__ = [
+    "OXYGENATION_FACTS",
+    "DataRequest",
+    "FindingResult",
+    "MechanismAssessment",
+    "Verdict",
+    "decide",
+]
+
+OXYGENATION_FACTS = ("arterial_po2", "spo2")
+"""Without at least one of these, nothing about oxygenation can be classified."""
+
+_SEVERITY_ORDER = {Severity.ERROR: 0, Severity.WARNING: 1, Severity.INFORMATION: 2}
+# Enum member and class iteration are slow on Python 3.11; the hot path uses these.
+_MECHANISMS = tuple(Mechanism)
+_TRUE, _FALSE, _UNKNOWN = Truth.TRUE, Truth.FALSE, Truth.UNKNOWN
+_LIKELY, _POSSIBLE, _NOT_ASSESSABLE = Grade.LIKELY, Grade.POSSIBLE, Grade.NOT_ASSESSABLE
+
+
+@dataclass(frozen=True, slots=True)
+class MechanismAssessment:
+    """The grade of one mechanism and the results of the rules that decided it."""
+
+    mechanism: Mechanism
+    grade: Grade
+    deciding: tuple[RuleResult, ...] = ()
+    """Fired rules at the winning priority (empty when not assessable)."""
+    losing: tuple[RuleResult, ...] = ()
+    """Rules that also fired for this mechanism at a higher (losing) priority."""
+    demoted_because: str | None = None
+    """Why a `likely` grade was lowered to `possible`, if it was."""
+
+    @property
+    def rules(self) -> tuple[str, ...]:
+        """`id@version` of the deciding rules."""
+        return tuple(result.ref for result in self.deciding)
+
+    @property
+    def superseded(self) -> tuple[str, ...]:
+        """`id@version` of rules that fired at a losing priority."""
+        return tuple(result.ref for result in self.losing)
+
+    @property
+    def demoted(self) -> bool:
+        """Whether the grade was demoted from `likely` to `possible`."""
+        return self.demoted_because is not None
+
+    @property
+    def rationales(self) -> tuple[str, ...]:
+        """The deciding rules' rationales, plus a sentence on any demotion."""
+        texts = [result.rationale for result in self.deciding]
+        if self.demoted_because is not None:
+            texts.append(
+                "Demoted from likely to possible: the gas is not classifiable "
+                f"({self.demoted_because})."
+            )
+        return tuple(texts)
+
+    @property
+    def discriminators(self) -> tuple[Discriminator, ...]:
+        """What would settle the grade, from the deciding rules."""
+        found = (result.rule.discriminator for result in self.deciding)
+        return tuple(dict.fromkeys(item for item in found if item is not None))
+
+
+@dataclass(frozen=True, slots=True)
+class FindingResult:
+    """A finding raised by a fired rule."""
+
+    code: FindingCode
+    severity: Severity
+    result: RuleResult
+
+    @property
+    def rule(self) -> str:
+        """`id@version` of the rule that raised it."""
+        return self.result.ref
+
+    @property
+    def rationale(self) -> str:
+        """The rule's rationale with this evaluation's values."""
+        return self.result.rationale
+
+
+@dataclass(frozen=True, slots=True)
+class DataRequest:
+    """A fact that would help, who asked for it, and which derived facts it feeds."""
+
+    fact: str
+    requested_by: tuple[str, ...]
+    needed_for: tuple[str, ...] = ()
+
+
+@dataclass(frozen=True, slots=True)
+class Verdict:
+    """The engine's answer for one set of facts."""
+
+    pattern: Pattern
+    pattern_reason: str
+    hypoxaemia: HypoxaemiaStatus
+    hypoxaemia_rules: tuple[str, ...]
+    mechanisms: tuple[MechanismAssessment, ...]
+    """One assessment per mechanism, in `Mechanism` order."""
+    findings: tuple[FindingResult, ...]
+    """Fired findings, errors first."""
+    data_requested: tuple[DataRequest, ...]
+    """In catalogue order."""
+
+    def assessment(self, mechanism: Mechanism) -> MechanismAssessment:
+        """The assessment of one mechanism."""
+        return next(item for item in self.mechanisms if item.mechanism is mechanism)
+
+    def grade(self, mechanism: Mechanism) -> Grade:
+        """The grade of one mechanism."""
+        return self.assessment(mechanism).grade
+
+
+class _Requests:
+    """Collects data requests, translating missing derived facts into missing inputs."""
+
+    def __init__(self, facts: Mapping[str, FactValue], catalogue: FactCatalogue) -> None:
+        self._facts = facts
+        self._catalogue = catalogue
+        self._asked: dict[str, tuple[set[str], set[str]]] = {}
+
+    def ask(self, fact: str, rule: str, wanted: str | None = None) -> None:
+        if fact in self._facts:
+            return
+        spec = self._catalogue[fact]
+        missing_inputs = [name for name in spec.inputs if name not in self._facts]
+        if missing_inputs:
+            for name in missing_inputs:
+                self.ask(name, rule, wanted or fact)
+            return
+        # All inputs known (or none declared): the fact itself is what is missing.
+        requested_by, needed_for = self._asked.setdefault(fact, (set(), set()))
+        requested_by.add(rule)
+        if wanted is not None:
+            needed_for.add(wanted)
+
+    def collected(self) -> tuple[DataRequest, ...]:
+        position = self._catalogue.position
+        return tuple(
+            DataRequest(fact, tuple(sorted(by)), tuple(sorted(needed)))
+            for fact, (by, needed) in sorted(
+                self._asked.items(), key=lambda item: position(item[0])
+            )
+        )
+
+
+def _assess(
+    mechanism: Mechanism,
+    fired: Sequence[tuple[RuleResult, MechanismOutcome]],
+    demotion: str | None,
+) -> MechanismAssessment:
+    if not fired:
+        return MechanismAssessment(mechanism, _NOT_ASSESSABLE)
+    best = min(outcome.priority for _, outcome in fired)
+    deciding = tuple(result for result, outcome in fired if outcome.priority == best)
+    losing = tuple(result for result, outcome in fired if outcome.priority != best)
+    grade = next(outcome.grade for _, outcome in fired if outcome.priority == best)
+    if demotion is not None and grade is _LIKELY:
+        return MechanismAssessment(mechanism, _POSSIBLE, deciding, losing, demotion)
+    return MechanismAssessment(mechanism, grade, deciding, losing)
+
+
+def _pattern(
+    demotion: str | None,
+    hypoxaemia: HypoxaemiaStatus,
+    mechanisms: Sequence[MechanismAssessment],
+) -> tuple[Pattern, str]:
+    if demotion is not None:
+        return Pattern.NOT_CLASSIFIABLE, demotion
+    if hypoxaemia is HypoxaemiaStatus.ABSENT:
+        return Pattern.NO_HYPOXAEMIA, "hypoxaemia is absent"
+    likely = [item.mechanism.value for item in mechanisms if item.grade is Grade.LIKELY]
+    if len(likely) == 1:
+        return Pattern.SINGLE, f"one mechanism is likely: {likely[0]}"
+    if likely:
+        return Pattern.MIXED, f"{len(likely)} mechanisms are likely: {', '.join(likely)}"
+    return Pattern.INDETERMINATE, "no mechanism is likely"
+
+
+@dataclass
+class _Fired:
+    """Active results sorted by what they assert."""
+
+    mechanisms: dict[Mechanism, list[tuple[RuleResult, MechanismOutcome]]]
+    undecided: dict[Mechanism, list[RuleResult]]
+    findings: list[FindingResult]
+    hypoxaemia: dict[HypoxaemiaStatus, list[str]]
+
+
+def _sort(results: Sequence[RuleResult]) -> _Fired:
+    fired = _Fired({m: [] for m in _MECHANISMS}, {m: [] for m in _MECHANISMS}, [], {})
+    for result in results:
+        state = result.state
+        if state is _FALSE or result.rule.shadow:
+            continue
+        outcome = result.rule.outcome
+        if isinstance(outcome, MechanismOutcome):
+            if state is _TRUE:
+                fired.mechanisms[outcome.mechanism].append((result, outcome))
+            else:
+                fired.undecided[outcome.mechanism].append(result)
+        elif state is _UNKNOWN:
+            continue
+        elif isinstance(outcome, FindingOutcome):
+            fired.findings.append(FindingResult(outcome.code, outcome.severity, result))
+        else:
+            fired.hypoxaemia.setdefault(outcome.status, []).append(result.ref)
+    fired.findings.sort(key=lambda item: (_SEVERITY_ORDER[item.severity], item.code, item.rule))
+    return fired
+
+
+def _demotion(findings: Sequence[FindingResult], facts: Mapping[str, FactValue]) -> str | None:
+    """Why the gas is not classifiable, or None when it is."""
+    reasons: list[str] = []
+    errors = sorted({item.code.value for item in findings if item.severity is Severity.ERROR})
+    if errors:
+        reasons.append("error finding fired: " + ", ".join(errors))
+    if not any(name in facts for name in OXYGENATION_FACTS):
+        reasons.append("neither " + " nor ".join(OXYGENATION_FACTS) + " is known")
+    return "; ".join(reasons) if reasons else None
+
+
+def _request_for(assessment: MechanismAssessment, fired: _Fired, requests: _Requests) -> None:
+    mechanism = assessment.mechanism
+    if assessment.grade is _NOT_ASSESSABLE:
+        for result in fired.undecided[mechanism]:
+            for fact in result.undecided:
+                requests.ask(fact, result.ref)
+    elif assessment.grade is _POSSIBLE:
+        for result in assessment.deciding:
+            discriminator = result.rule.discriminator
+            if discriminator is not None:
+                for fact in discriminator.requests:
+                    requests.ask(fact, result.ref)
+
+
+def decide(
+    results: Sequence[RuleResult], facts: Mapping[str, FactValue], catalogue: FactCatalogue
+) -> Verdict:
+    """Build the verdict from rule results; shadow (testing) results are skipped."""
+    fired = _sort(results)
+    said = fired.hypoxaemia
+    hypoxaemia = next(
+        (
+            status
+            for status in (HypoxaemiaStatus.PRESENT, HypoxaemiaStatus.ABSENT)
+            if status in said
+        ),
+        HypoxaemiaStatus.UNKNOWN,
+    )
+    demotion = _demotion(fired.findings, facts)
+    requests = _Requests(facts, catalogue)
+    mechanisms: list[MechanismAssessment] = []
+    for mechanism in _MECHANISMS:
+        assessment = _assess(mechanism, fired.mechanisms[mechanism], demotion)
+        mechanisms.append(assessment)
+        _request_for(assessment, fired, requests)
+    pattern, reason = _pattern(demotion, hypoxaemia, mechanisms)
+    return Verdict(
+        pattern=pattern,
+        pattern_reason=reason,
+        hypoxaemia=hypoxaemia,
+        hypoxaemia_rules=tuple(said.get(hypoxaemia, ())),
+        mechanisms=tuple(mechanisms),
+        findings=tuple(fired.findings),
+        data_requested=requests.collected(),
+    )

@@ -1,0 +1,20 @@
+"""The timing command runs and reports a ratio (it measures nothing in the test suite)."""
+
+import pytest
+
+from service.engine import evaluate
+from service.engine.bench import BENCH_FACTS, generated_documents, main
+from service.engine.loader import build_ruleset
+
+
+def test_generated_bench_rule_set_loads_forty_rules_and_evaluates() -> None:
+    ruleset = build_ruleset(generated_documents())
+    assert len(ruleset.evaluated) == 40
+    assert len(evaluate(ruleset, BENCH_FACTS).results) == 40
+
+
+def test_bench_main_prints_timings_and_the_ratio(capsys: pytest.CaptureFixture[str]) -> None:
+    assert main(["--iterations", "1"]) == 0
+    output = capsys.readouterr().out
+    assert "40 evaluated rules" in output
+    assert "ratio evaluate / baseline:" in output

@@ -1,0 +1,69 @@
+"""Rationale templates: values with readable units, sensible rounding, visible gaps."""
+
+import pytest
+
+from service.engine import DEFAULT_CATALOGUE, evaluate
+from service.engine.facts import FactValue
+from service.engine.parameters import Parameter
+from service.engine.rationale import compile_template, format_quantity
+
+from .builders import build, rule
+
+
+@pytest.mark.parametrize(
+    ("value", "decimals", "unit", "text"),
+    [
+        (52.349, 1, "mm[Hg]", "52.3 mmHg"),
+        (7.3149, 2, "[pH]", "7.31"),
+        (0.4, 2, "1", "0.40"),
+        (91.6, 0, "%", "92%"),
+        (37.25, 1, "Cel", "37.2 °C"),
+        (64, 0, "a", "64 years"),
+        (8, 0, "cm[H2O]", "8 cmH2O"),
+        (18, 0, "/min", "18/min"),
+        (24.04, 1, "mmol/L", "24.0 mmol/L"),
+        (-0.04, 1, "mm[Hg]", "0.0 mmHg"),
+        (-3.26, 1, "mm[Hg]", "-3.3 mmHg"),
+    ],
+)
+def test_format_quantity_rounds_to_the_fact_precision_and_shows_a_readable_unit(
+    value: float, decimals: int, unit: str, text: str
+) -> None:
+    assert format_quantity(value, decimals, unit) == text
+
+
+def test_template_fills_facts_of_every_kind() -> None:
+    template, problems = compile_template(
+        "PaCO2 {arterial_pco2}, pH {arterial_ph}, on {oxygen_device}, "
+        "estimated {fio2_estimated_from_flow}",
+        DEFAULT_CATALOGUE,
+        {},
+    )
+    assert problems == []
+    facts: dict[str, FactValue] = {
+        "arterial_pco2": 58.26,
+        "arterial_ph": 7.3,
+        "oxygen_device": "venturi-mask",
+        "fio2_estimated_from_flow": False,
+    }
+    assert template.render(facts) == "PaCO2 58.3 mmHg, pH 7.30, on venturi-mask, estimated no"
+
+
+def test_template_shows_a_missing_fact_by_name() -> None:
+    template, _ = compile_template("SpO2 {spo2}.", DEFAULT_CATALOGUE, {})
+    assert template.render({}) == "SpO2 (spo2 missing)."
+
+
+def test_template_writes_parameters_as_written_with_their_unit() -> None:
+    parameter = Parameter("limit", 0.75, "1", "d", 0.5, 0.9, "s", 0.75)
+    template, _ = compile_template(
+        "a/A below {limit}; {{braces}}", DEFAULT_CATALOGUE, {"limit": parameter}
+    )
+    assert template.render({}) == "a/A below 0.75; {braces}"
+
+
+def test_rendered_rationale_uses_the_overridden_parameter_value() -> None:
+    data = rule("r", rationale="PaCO2 {arterial_pco2} above {hypercapnia_threshold}.")
+    ruleset = build(rules=[data], overrides={"hypercapnia_threshold": 50})
+    result = evaluate(ruleset, {"arterial_pco2": 51.04}).result("r")
+    assert result.rationale == "PaCO2 51.0 mmHg above 50 mmHg."
