@@ -2,22 +2,76 @@
 
 Kept light on imports: each subcommand imports what it needs when it runs, so a one-off
 command answers quickly (the web framework is never imported here).
+
+Exit codes of ``assess`` (contract §1): 0 every input assessed, whatever the verdict;
+2 an input was rejected (its OperationOutcome is still printed); 1 an internal error.
 """
 
 from __future__ import annotations
 
 import argparse
 import sys
-from collections.abc import Sequence
+from collections.abc import Iterator, Sequence
+from pathlib import Path
+from typing import IO
 
 from service import __version__
 
+EXIT_OK, EXIT_INTERNAL, EXIT_REJECTED = 0, 1, 2
 
-def _demo(_: argparse.Namespace) -> int:
+
+def _demo(args: argparse.Namespace) -> int:
     from service.demo import run_demo
 
-    sys.stdout.write(run_demo())
-    return 0
+    sys.stdout.write(run_demo(as_json=args.json))
+    return EXIT_OK
+
+
+def _lines(stream: IO[bytes]) -> Iterator[tuple[int, bytes]]:
+    for number, line in enumerate(stream, start=1):
+        if line.strip():
+            yield number, line
+
+
+def _assess(args: argparse.Namespace) -> int:
+    import orjson
+
+    from service.config import Settings
+    from service.fhir.outcome import LocatedError, error, operation_outcome
+    from service.fhir.render import PressureUnit
+    from service.runtime import Runtime
+
+    overrides = {"rules_dir": args.rules} if args.rules else {}
+    runtime = Runtime.load(Settings(**overrides))
+    unit: PressureUnit | None = "kPa" if args.kpa else None
+    out = sys.stdout.buffer
+    path: str = args.path
+    ndjson = args.ndjson or path.endswith((".ndjson", ".jsonl"))
+    stream: IO[bytes] = sys.stdin.buffer if path == "-" else Path(path).open("rb")  # noqa: SIM115
+    rejected = False
+
+    def one(raw: bytes, where: str) -> bytes:
+        nonlocal rejected
+        try:
+            data = orjson.loads(raw)
+        except orjson.JSONDecodeError as exc:
+            rejected = True
+            problem = error("structure", f"not JSON: {exc.msg}", where)
+            return orjson.dumps(operation_outcome([problem]))
+        try:
+            return orjson.dumps(runtime.assess_bundle(data, pressure_unit=unit))
+        except LocatedError as exc:
+            rejected = True
+            return orjson.dumps(exc.operation_outcome())
+
+    with stream:
+        if ndjson:
+            for number, line in _lines(stream):
+                out.write(one(line, f"line {number}") + b"\n")
+        else:
+            out.write(one(stream.read(), "Bundle") + b"\n")
+    out.flush()
+    return EXIT_REJECTED if rejected else EXIT_OK
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -29,15 +83,31 @@ def build_parser() -> argparse.ArgumentParser:
     parser.add_argument("--version", action="version", version=f"oxyrule {__version__}")
     commands = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
     demo = commands.add_parser("demo", help="assess a built-in invented scenario and explain it")
+    demo.add_argument("--json", action="store_true", help="print the result Bundle instead")
     demo.set_defaults(handler=_demo)
+    assess = commands.add_parser(
+        "assess", help="assess a FHIR Bundle (JSON), or NDJSON of Bundles; '-' reads stdin"
+    )
+    assess.add_argument("path", help="a Bundle JSON file, an NDJSON file, or - for stdin")
+    assess.add_argument("--ndjson", action="store_true", help="read stdin as NDJSON")
+    assess.add_argument("--rules", type=Path, help="rule directory (default: the shipped set)")
+    assess.add_argument("--kpa", action="store_true", help="report pressures in kPa")
+    assess.set_defaults(handler=_assess)
     return parser
 
 
 def main(argv: Sequence[str] | None = None) -> int:
     """Entry point of the ``oxyrule`` console script; returns the process exit code."""
     args = build_parser().parse_args(argv)
-    handler = args.handler
-    result: int = handler(args)
+    try:
+        result: int = args.handler(args)
+    except Exception as exc:  # the last line of defence: say what failed, exit 1
+        from service.engine import RuleSetError
+
+        if isinstance(exc, RuleSetError | OSError):
+            sys.stderr.write(f"oxyrule: {exc}\n")
+            return EXIT_INTERNAL
+        raise
     return result
 
 

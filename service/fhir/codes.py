@@ -235,3 +235,25 @@ BUNDLE_TYPES = frozenset(
 ADMINISTRATIVE_GENDERS = frozenset({"male", "female", "other", "unknown"})
 
 QUANTITY_COMPARATORS = frozenset({"<", "<=", ">=", ">", "ad"})
+
+
+def _first_codes() -> dict[str, tuple[str, str]]:
+    """Quantity name -> the first (system, code) that fills it, LOINC before project codes."""
+    found: dict[str, tuple[str, str]] = {}
+    for system, table in ((LOINC, LOINC_CONCEPTS), (INPUT_CODES, INPUT_CONCEPTS)):
+        for code, concept in table.items():
+            if concept.by_specimen is None:
+                found.setdefault(concept.quantity.value, (system, code))
+    return found
+
+
+_CODE_FOR_QUANTITY = MappingProxyType(_first_codes())
+
+
+def code_for_fact(fact: str) -> tuple[str, str] | None:
+    """The (system, code) to request a measured fact by, e.g. ``arterial_po2`` → 2703-7.
+
+    The reverse of the table above, for ``GuidanceResponse.dataRequirement``; None for facts
+    the service derives rather than reads.
+    """
+    return _CODE_FOR_QUANTITY.get(fact)

@@ -1,0 +1,104 @@
+"""The loaded service: settings, the compiled rule set and the local code map, built once.
+
+Every surface (CLI, HTTP, HL7 v2) holds one ``Runtime`` and calls it per input. Loading is the
+only I/O; assessing is pure apart from the clock and the decision id.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from datetime import datetime
+from pathlib import Path
+from typing import Any
+
+import orjson
+
+from service.assess.assess import assess
+from service.assess.result import Assessment
+from service.config import Settings
+from service.engine import RuleSet, load_ruleset
+from service.fhir.codes import code_for_fact
+from service.fhir.concept_map import LocalCodeMap
+from service.fhir.extract import read_bundle
+from service.fhir.outcome import BundleError
+from service.fhir.render import PressureUnit, render_bundle
+from service.intake.model import Intake
+
+CONCEPT_MAP_FILE = "concept-map.json"
+# What a not-classifiable result asks for when no rule named anything: a trusted arterial gas.
+REPEAT_GAS = ("arterial_po2", "arterial_pco2", "fio2")
+
+
+def load_concept_map(rules_dir: Path) -> LocalCodeMap | None:
+    """The site's local-code ConceptMap (``concept-map.json`` in the rule directory), if any."""
+    path = rules_dir / CONCEPT_MAP_FILE
+    if not path.is_file():
+        return None
+    return LocalCodeMap.from_concept_map(orjson.loads(path.read_bytes()), source=str(path))
+
+
+@dataclass(frozen=True, slots=True)
+class Runtime:
+    """Settings, rule set and code map of one running service."""
+
+    settings: Settings
+    ruleset: RuleSet
+    concept_map: LocalCodeMap | None = None
+
+    @classmethod
+    def load(cls, settings: Settings | None = None) -> Runtime:
+        """Load and check everything once; a broken rule set raises ``RuleSetError``."""
+        settings = settings or Settings()
+        ruleset = load_ruleset(settings.rules_dir)
+        return cls(settings, ruleset, load_concept_map(settings.rules_dir))
+
+    def assess_intake(
+        self, intake: Intake, *, now: datetime | None = None, decision_id: str | None = None
+    ) -> Assessment:
+        """The assessment of an already-read input."""
+        return assess(
+            intake,
+            ruleset=self.ruleset,
+            settings=self.settings,
+            now=now,
+            decision_id=decision_id,
+        )
+
+    def render(
+        self, assessment: Assessment, *, pressure_unit: PressureUnit | None = None
+    ) -> dict[str, Any]:
+        """The contract's result Bundle for an assessment."""
+        facts = list(assessment.data_requested)
+        if assessment.status == "data-required" and not facts:
+            facts = list(REPEAT_GAS)
+        codes = list(dict.fromkeys(c for f in facts if (c := code_for_fact(f)) is not None))
+        if not codes and assessment.status == "data-requested":
+            assessment.status = "success"
+        return render_bundle(
+            assessment,
+            data_requirements=codes,
+            pressure_unit=pressure_unit or self.settings.pressure_unit,
+        )
+
+    def assess_bundle(
+        self,
+        data: object,
+        *,
+        pressure_unit: PressureUnit | None = None,
+        now: datetime | None = None,
+        decision_id: str | None = None,
+    ) -> dict[str, Any]:
+        """A parsed FHIR Bundle in, the result Bundle out.
+
+        Raises:
+            BundleError: the input cannot be assessed; its ``operation_outcome()`` says where.
+        """
+        if self.settings.strict_fhir:
+            from service.fhir.models import validate_strict
+
+            problems = [p for p in validate_strict(data) if p.severity in ("fatal", "error")]
+            if problems:
+                raise BundleError(problems)
+        intake = read_bundle(data, concept_map=self.concept_map)
+        assessment = self.assess_intake(intake, now=now, decision_id=decision_id)
+        return self.render(assessment, pressure_unit=pressure_unit)
