@@ -19,6 +19,7 @@ from service.engine.catalogue import (
     FactSpec,
     catalogue_markdown,
 )
+from service.engine.data_requests import DataRequest
 from service.engine.errors import FactError, FactProblem, RuleProblem, RuleSetError
 from service.engine.evaluate import Evaluation, evaluate
 from service.engine.facts import FactValue
@@ -37,7 +38,7 @@ from service.engine.ruleset import (
     Rule,
     RuleSet,
 )
-from service.engine.verdict import DataRequest, FindingResult, MechanismAssessment, Verdict
+from service.engine.verdict import FindingResult, MechanismAssessment, Verdict
 from service.engine.vocabulary import (
     FindingCode,
     Grade,

@@ -86,14 +86,13 @@ class Rule:
     condition: CompiledCondition = field(compare=False, repr=False)
     shadow: bool = field(init=False, compare=False, repr=False)
     """True for `testing` rules: evaluated and reported, never part of the verdict."""
+    ref: str = field(init=False, compare=False, repr=False)
+    """`id@version`, the way results cite a rule."""
 
     def __post_init__(self) -> None:
+        # Precomputed: both are read for every rule on every evaluation.
         object.__setattr__(self, "shadow", self.status is RuleStatus.TESTING)
-
-    @property
-    def ref(self) -> str:
-        """`id@version`, the way results cite a rule."""
-        return f"{self.id}@{self.version}"
+        object.__setattr__(self, "ref", f"{self.id}@{self.version}")
 
 
 @dataclass(frozen=True, slots=True)

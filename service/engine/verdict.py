@@ -21,6 +21,7 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 
 from service.engine.catalogue import FactCatalogue
+from service.engine.data_requests import DataRequest, DataRequests
 from service.engine.facts import FactValue
 from service.engine.logic import Truth
 from service.engine.results import RuleResult
@@ -123,15 +124,6 @@ class FindingResult:
 
 
 @dataclass(frozen=True, slots=True)
-class DataRequest:
-    """A fact that would help, who asked for it, and which derived facts it feeds."""
-
-    fact: str
-    requested_by: tuple[str, ...]
-    needed_for: tuple[str, ...] = ()
-
-
-@dataclass(frozen=True, slots=True)
 class Verdict:
     """The engine's answer for one set of facts."""
 
@@ -153,39 +145,6 @@ class Verdict:
     def grade(self, mechanism: Mechanism) -> Grade:
         """The grade of one mechanism."""
         return self.assessment(mechanism).grade
-
-
-class _Requests:
-    """Collects data requests, translating missing derived facts into missing inputs."""
-
-    def __init__(self, facts: Mapping[str, FactValue], catalogue: FactCatalogue) -> None:
-        self._facts = facts
-        self._catalogue = catalogue
-        self._asked: dict[str, tuple[set[str], set[str]]] = {}
-
-    def ask(self, fact: str, rule: str, wanted: str | None = None) -> None:
-        if fact in self._facts:
-            return
-        spec = self._catalogue[fact]
-        missing_inputs = [name for name in spec.inputs if name not in self._facts]
-        if missing_inputs:
-            for name in missing_inputs:
-                self.ask(name, rule, wanted or fact)
-            return
-        # All inputs known (or none declared): the fact itself is what is missing.
-        requested_by, needed_for = self._asked.setdefault(fact, (set(), set()))
-        requested_by.add(rule)
-        if wanted is not None:
-            needed_for.add(wanted)
-
-    def collected(self) -> tuple[DataRequest, ...]:
-        position = self._catalogue.position
-        return tuple(
-            DataRequest(fact, tuple(sorted(by)), tuple(sorted(needed)))
-            for fact, (by, needed) in sorted(
-                self._asked.items(), key=lambda item: position(item[0])
-            )
-        )
 
 
 def _assess(
@@ -264,7 +223,7 @@ def _demotion(findings: Sequence[FindingResult], facts: Mapping[str, FactValue])
     return "; ".join(reasons) if reasons else None
 
 
-def _request_for(assessment: MechanismAssessment, fired: _Fired, requests: _Requests) -> None:
+def _request_for(assessment: MechanismAssessment, fired: _Fired, requests: DataRequests) -> None:
     mechanism = assessment.mechanism
     if assessment.grade is _NOT_ASSESSABLE:
         for result in fired.undecided[mechanism]:
@@ -293,7 +252,7 @@ def decide(
         HypoxaemiaStatus.UNKNOWN,
     )
     demotion = _demotion(fired.findings, facts)
-    requests = _Requests(facts, catalogue)
+    requests = DataRequests(facts, catalogue)
     mechanisms: list[MechanismAssessment] = []
     for mechanism in _MECHANISMS:
         assessment = _assess(mechanism, fired.mechanisms[mechanism], demotion)

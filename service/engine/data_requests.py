@@ -1,0 +1,60 @@
+"""Data requests: the facts that would settle what the verdict leaves open.
+
+Rules ask for facts by name, and often for derived ones (`aa_gradient_excess`) that no
+one can supply directly. A request for a missing derived fact is therefore turned into
+requests for its missing inputs, recursively, with `needed_for` naming the derived fact
+the rule wanted; a derived fact whose inputs are all known (it could not be computed for
+another reason) is requested itself. Facts already known are never requested.
+"""
+
+from collections.abc import Mapping
+from dataclasses import dataclass
+
+from service.engine.catalogue import FactCatalogue
+from service.engine.facts import FactValue
+
+__all__ = ["DataRequest", "DataRequests"]
+
+
+@dataclass(frozen=True, slots=True)
+class DataRequest:
+    """A fact that would help, who asked for it, and which derived facts it feeds."""
+
+    fact: str
+    requested_by: tuple[str, ...]
+    needed_for: tuple[str, ...] = ()
+
+
+class DataRequests:
+    """Collects data requests, translating missing derived facts into missing inputs."""
+
+    def __init__(self, facts: Mapping[str, FactValue], catalogue: FactCatalogue) -> None:
+        self._facts = facts
+        self._catalogue = catalogue
+        self._asked: dict[str, tuple[set[str], set[str]]] = {}
+
+    def ask(self, fact: str, rule: str, wanted: str | None = None) -> None:
+        """Record that `rule` would like `fact` (or, if it is derived, its missing inputs)."""
+        if fact in self._facts:
+            return
+        spec = self._catalogue[fact]
+        missing_inputs = [name for name in spec.inputs if name not in self._facts]
+        if missing_inputs:
+            for name in missing_inputs:
+                self.ask(name, rule, wanted or fact)
+            return
+        # All inputs known (or none declared): the fact itself is what is missing.
+        requested_by, needed_for = self._asked.setdefault(fact, (set(), set()))
+        requested_by.add(rule)
+        if wanted is not None:
+            needed_for.add(wanted)
+
+    def collected(self) -> tuple[DataRequest, ...]:
+        """The requests so far, in catalogue order."""
+        position = self._catalogue.position
+        return tuple(
+            DataRequest(fact, tuple(sorted(by)), tuple(sorted(needed)))
+            for fact, (by, needed) in sorted(
+                self._asked.items(), key=lambda item: position(item[0])
+            )
+        )

@@ -1,0 +1,40 @@
+"""Data requests name facts someone can supply, never ones already known."""
+
+from service.engine import DEFAULT_CATALOGUE
+from service.engine.data_requests import DataRequest, DataRequests
+
+
+def test_a_known_fact_is_never_requested() -> None:
+    requests = DataRequests({"spo2": 93.0}, DEFAULT_CATALOGUE)
+    requests.ask("spo2", "r@1")
+    assert requests.collected() == ()
+
+
+def test_a_missing_measured_fact_is_requested_by_every_rule_that_asked() -> None:
+    requests = DataRequests({}, DEFAULT_CATALOGUE)
+    requests.ask("mixed_venous_po2", "b@1")
+    requests.ask("mixed_venous_po2", "a@2")
+    assert requests.collected() == (DataRequest("mixed_venous_po2", ("a@2", "b@1")),)
+
+
+def test_a_missing_derived_fact_becomes_its_missing_inputs_recursively() -> None:
+    # aa_gradient needs alveolar_po2 (needs fio2, barometric_pressure, arterial_pco2).
+    requests = DataRequests({"arterial_po2": 60.0, "barometric_pressure": 700.0}, DEFAULT_CATALOGUE)
+    requests.ask("aa_gradient", "r@1")
+    assert requests.collected() == (
+        DataRequest("arterial_pco2", ("r@1",), ("aa_gradient",)),
+        DataRequest("fio2", ("r@1",), ("aa_gradient",)),
+    )
+
+
+def test_a_derived_fact_whose_inputs_are_all_known_is_requested_itself() -> None:
+    requests = DataRequests({"spo2": 90.0, "fio2": 0.4}, DEFAULT_CATALOGUE)
+    requests.ask("sf_ratio", "r@1")
+    assert requests.collected() == (DataRequest("sf_ratio", ("r@1",)),)
+
+
+def test_requests_come_out_in_catalogue_order() -> None:
+    requests = DataRequests({}, DEFAULT_CATALOGUE)
+    for fact in ("peep", "spo2", "arterial_po2"):
+        requests.ask(fact, "r@1")
+    assert [item.fact for item in requests.collected()] == ["arterial_po2", "spo2", "peep"]
