@@ -1,0 +1,1 @@
+"""Tools for the people who own the rules: expected-outcome fixtures, and running them."""

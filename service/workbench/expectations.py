@@ -1,0 +1,230 @@
+"""Expected-outcome files: what must hold when a fixture Bundle is assessed.
+
+A fixture is ``NAME.bundle.json`` (a FHIR Bundle) with ``NAME.expected.yaml`` beside it::
+
+    description: Invented. Sea level, room air, PaCO2 62: pure hypoventilation.
+    bundle: NAME.bundle.json          # optional; default: same stem
+    expect:                           # only the keys present are checked
+      pattern: single
+      status: data-requested          # GuidanceResponse.status
+      hypoxaemia: present             # present | absent | unknown
+      mechanisms: {hypoventilation: likely, shunt: unlikely}
+      findings: [hypoxaemia-moderate] # finding codes that must be present
+      absent_findings: [pb-assumed-sea-level]
+      rules_fire: [hypoventilation-likely]    # rule ids whose condition must be true
+      rules_silent: [shunt-likely]            # rule ids whose condition must not be true
+      derived:                        # canonical units (mm[Hg], 1, %, mL/dL, mmol/L)
+        alveolar-po2: {value: 83.8, unit: "mm[Hg]", tolerance: 0.5}
+    known_gap: null                   # or a reason: the case is then a strict expected failure
+
+Checking compares an ``Assessment`` against the expectation and returns the mismatches as rows
+(what, expected, got, unit) for a short table, never a JSON diff.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Literal
+
+import yaml
+from pydantic import BaseModel, ConfigDict, Field, ValidationError
+
+from service.assess.result import Assessment
+from service.engine import Truth
+
+Grade = Literal["likely", "possible", "unlikely", "not-assessable"]
+MechanismCode = Literal[
+    "low-inspired-oxygen", "hypoventilation", "diffusion-limitation", "vq-mismatch", "shunt"
+]
+
+
+class _Strict(BaseModel):
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+
+class ExpectedQuantity(_Strict):
+    """A derived value with its canonical unit and the tolerance allowed."""
+
+    value: float
+    unit: str
+    tolerance: float = Field(ge=0)
+
+
+class Expectation(_Strict):
+    """The checks of one case; every key is optional."""
+
+    pattern: (
+        Literal["no-hypoxaemia", "single", "mixed", "indeterminate", "not-classifiable"] | None
+    ) = None
+    status: Literal["success", "data-requested", "data-required", "failure"] | None = None
+    hypoxaemia: Literal["present", "absent", "unknown"] | None = None
+    mechanisms: dict[MechanismCode, Grade] = Field(default_factory=dict)
+    findings: list[str] = Field(default_factory=list)
+    absent_findings: list[str] = Field(default_factory=list)
+    rules_fire: list[str] = Field(default_factory=list)
+    rules_silent: list[str] = Field(default_factory=list)
+    derived: dict[str, ExpectedQuantity] = Field(default_factory=dict)
+
+
+class ExpectedOutcome(_Strict):
+    """One ``*.expected.yaml`` file."""
+
+    description: str = Field(min_length=1)
+    bundle: str | None = None
+    expect: Expectation
+    known_gap: str | None = None
+
+
+@dataclass(frozen=True, slots=True)
+class Case:
+    """A fixture: its name (path relative to the fixture root), files and expectation."""
+
+    name: str
+    expected_path: Path
+    bundle_path: Path
+    outcome: ExpectedOutcome
+
+
+class FixtureError(ValueError):
+    """An expected-outcome file that cannot be read; the message names the file and field."""
+
+
+SUFFIX = ".expected.yaml"
+
+
+def load_case(path: Path, root: Path) -> Case:
+    """Read one expected-outcome file."""
+    try:
+        raw = yaml.safe_load(path.read_text(encoding="utf-8"))
+        outcome = ExpectedOutcome.model_validate(raw)
+    except yaml.YAMLError as exc:
+        raise FixtureError(f"{path}: not valid YAML: {exc}") from None
+    except ValidationError as exc:
+        details = "; ".join(
+            f"{'.'.join(str(p) for p in e['loc'])}: {e['msg']}" for e in exc.errors()
+        )
+        raise FixtureError(f"{path}: {details}") from None
+    stem = path.name[: -len(SUFFIX)]
+    bundle = path.parent / (outcome.bundle or f"{stem}.bundle.json")
+    if not bundle.is_file():
+        raise FixtureError(f"{path}: bundle file {bundle.name} not found beside it")
+    name = str(path.relative_to(root))[: -len(SUFFIX)]
+    return Case(name, path, bundle, outcome)
+
+
+def find_cases(paths: list[Path]) -> list[Case]:
+    """Every case under the given files or directories, sorted by name."""
+    cases: list[Case] = []
+    for path in paths:
+        if path.is_dir():
+            cases += [load_case(p, path) for p in sorted(path.rglob(f"*{SUFFIX}"))]
+        elif path.name.endswith(SUFFIX):
+            cases.append(load_case(path, path.parent))
+        else:
+            raise FixtureError(f"{path}: not a directory or a *{SUFFIX} file")
+    return sorted(cases, key=lambda c: c.name)
+
+
+@dataclass(frozen=True, slots=True)
+class Mismatch:
+    """One check that failed: a row of the report table."""
+
+    what: str
+    expected: str
+    got: str
+    unit: str = ""
+
+
+def _fmt(value: float | None) -> str:
+    return "absent" if value is None else f"{value:.4g}"
+
+
+def check(expectation: Expectation, a: Assessment) -> list[Mismatch]:
+    """Every way ``a`` differs from ``expectation`` (empty when it holds)."""
+    return (
+        _check_verdict(expectation, a)
+        + _check_findings(expectation, a)
+        + _check_rules(expectation, a)
+        + _check_derived(expectation, a)
+    )
+
+
+def _check_verdict(expectation: Expectation, a: Assessment) -> list[Mismatch]:
+    rows: list[Mismatch] = []
+    for what, want, got in (
+        ("pattern", expectation.pattern, a.pattern),
+        ("status", expectation.status, a.status),
+        ("hypoxaemia", expectation.hypoxaemia, a.hypoxaemia),
+    ):
+        if want is not None and want != got:
+            rows.append(Mismatch(what, want, got))
+    grades = {m.code: m.grade for m in a.mechanisms}
+    for code, grade in expectation.mechanisms.items():
+        if grades.get(code) != grade:
+            rows.append(Mismatch(f"mechanism {code}", grade, grades.get(code, "absent")))
+    return rows
+
+
+def _check_findings(expectation: Expectation, a: Assessment) -> list[Mismatch]:
+    codes = {f.code for f in a.findings}
+    missing = [c for c in expectation.findings if c not in codes]
+    unwanted = [c for c in expectation.absent_findings if c in codes]
+    return [Mismatch(f"finding {c}", "present", "absent") for c in missing] + [
+        Mismatch(f"finding {c}", "absent", "present") for c in unwanted
+    ]
+
+
+def _check_rules(expectation: Expectation, a: Assessment) -> list[Mismatch]:
+    states = _rule_states(a)
+    rows = [
+        Mismatch(f"rule {rule_id}", "fires", states.get(rule_id, "not evaluated"))
+        for rule_id in expectation.rules_fire
+        if states.get(rule_id) != Truth.TRUE.value
+    ]
+    rows += [
+        Mismatch(f"rule {rule_id}", "silent", "fires")
+        for rule_id in expectation.rules_silent
+        if states.get(rule_id) == Truth.TRUE.value
+    ]
+    return rows
+
+
+def _check_derived(expectation: Expectation, a: Assessment) -> list[Mismatch]:
+    rows: list[Mismatch] = []
+    derived = a.index.derived
+    for name, want in expectation.derived.items():
+        d = derived.get(name)
+        if d is None:
+            rows.append(Mismatch(name, _fmt(want.value), "absent", want.unit))
+        elif d.unit != want.unit:
+            rows.append(Mismatch(f"{name} unit", want.unit, d.unit))
+        elif abs(d.value - want.value) > want.tolerance:
+            expected = f"{_fmt(want.value)} ± {want.tolerance:g}"
+            rows.append(Mismatch(name, expected, _fmt(d.value), d.unit))
+    return rows
+
+
+def _rule_states(a: Assessment) -> dict[str, str]:
+    evaluation = a.evaluation
+    results = getattr(evaluation, "results", ())
+    return {r.rule.id: r.state.value for r in results}
+
+
+def deciding_rules(a: Assessment) -> list[str]:
+    """``id@version`` of every rule behind a grade or a finding, for failure reports."""
+    refs = [rule for m in a.mechanisms for rule in m.rules]
+    refs += [f.rule for f in a.findings if f.rule]
+    return list(dict.fromkeys(refs))
+
+
+def mismatch_table(rows: list[Mismatch]) -> str:
+    """Rows as an aligned plain-text table."""
+    header = Mismatch("what", "expected", "got", "unit")
+    table = [header, *rows]
+    widths = [max(len(getattr(r, f)) for r in table) for f in ("what", "expected", "got", "unit")]
+    lines = []
+    for r in table:
+        cells = (r.what, r.expected, r.got, r.unit)
+        lines.append("  ".join(c.ljust(w) for c, w in zip(cells, widths, strict=True)).rstrip())
+    return "\n".join(lines)
