@@ -4,7 +4,11 @@ Rules ask for facts by name, and often for derived ones (`aa_gradient_excess`) t
 one can supply directly. A request for a missing derived fact is therefore turned into
 requests for its missing inputs, recursively, with `needed_for` naming the derived fact
 the rule wanted; a derived fact whose inputs are all known (it could not be computed for
-another reason) is requested itself. Facts already known are never requested.
+another reason) is requested itself.
+
+A known fact is requested only when a discriminator names it: a discriminator such as
+"a gas on a higher FiO2" asks for a *new* value of `arterial_po2` and `fio2`, and leaving
+them out because the current gas has them would drop exactly what would settle the grade.
 """
 
 from collections.abc import Mapping
@@ -33,15 +37,23 @@ class DataRequests:
         self._catalogue = catalogue
         self._asked: dict[str, tuple[set[str], set[str]]] = {}
 
-    def ask(self, fact: str, rule: str, wanted: str | None = None) -> None:
-        """Record that `rule` would like `fact` (or, if it is derived, its missing inputs)."""
+    def ask(
+        self, fact: str, rule: str, *, even_if_known: bool = False, wanted: str | None = None
+    ) -> None:
+        """Record that `rule` would like `fact` (or, if it is derived, its missing inputs).
+
+        A known fact is skipped unless `even_if_known` (a discriminator asking for a new
+        value of it).
+        """
         if fact in self._facts:
+            if even_if_known:
+                self._asked.setdefault(fact, (set(), set()))[0].add(rule)
             return
         spec = self._catalogue[fact]
         missing_inputs = [name for name in spec.inputs if name not in self._facts]
         if missing_inputs:
             for name in missing_inputs:
-                self.ask(name, rule, wanted or fact)
+                self.ask(name, rule, wanted=wanted or fact)
             return
         # All inputs known (or none declared): the fact itself is what is missing.
         requested_by, needed_for = self._asked.setdefault(fact, (set(), set()))

@@ -11,10 +11,10 @@ Only active rules count; `testing` rules are shadow-evaluated and reported only.
   `arterial_po2` nor `spo2` is known; then no grade may stay `likely`: it is demoted to
   `possible` and its rationale says why. Otherwise `no-hypoxaemia` when hypoxaemia is
   absent, `single` with one likely mechanism, `mixed` with more, else `indeterminate`.
-* Data requested joins the discriminator requests of `possible` grades and, for each
-  `not-assessable` mechanism, the missing facts that keep its unknown rules undecided.
-  A missing derived fact is replaced by its missing inputs, so the request names
-  something that can actually be measured or recorded.
+* Data requested joins the discriminator requests of `possible` grades (known or not:
+  they ask for a new value) and, for each `not-assessable` mechanism, the missing facts
+  that keep its unknown rules undecided. A missing derived fact is replaced by its
+  missing inputs, so the request names something that can be measured or recorded.
 """
 
 from collections.abc import Mapping, Sequence
@@ -234,7 +234,7 @@ def _request_for(assessment: MechanismAssessment, fired: _Fired, requests: DataR
             discriminator = result.rule.discriminator
             if discriminator is not None:
                 for fact in discriminator.requests:
-                    requests.ask(fact, result.ref)
+                    requests.ask(fact, result.ref, even_if_known=True)
 
 
 def decide(

@@ -4,10 +4,11 @@ from service.engine import DEFAULT_CATALOGUE
 from service.engine.data_requests import DataRequest, DataRequests
 
 
-def test_a_known_fact_is_never_requested() -> None:
-    requests = DataRequests({"spo2": 93.0}, DEFAULT_CATALOGUE)
+def test_a_known_fact_is_requested_only_when_asked_for_even_if_known() -> None:
+    requests = DataRequests({"spo2": 93.0, "fio2": 0.5}, DEFAULT_CATALOGUE)
     requests.ask("spo2", "r@1")
-    assert requests.collected() == ()
+    requests.ask("fio2", "r@1", even_if_known=True)
+    assert requests.collected() == (DataRequest("fio2", ("r@1",)),)
 
 
 def test_a_missing_measured_fact_is_requested_by_every_rule_that_asked() -> None:

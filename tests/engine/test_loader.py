@@ -25,9 +25,17 @@ SAMPLE = Path(__file__).parent / "data" / "sample"
 
 
 def _located(problem: Any, file: str, rule_id: str | None, field: str) -> None:
+    """The problem names file, rule and field, in its fields and in its text, with a fix."""
     assert (problem.file, problem.rule_id, problem.field) == (file, rule_id, field), str(problem)
     assert problem.message
     assert problem.hint
+    text = str(problem)
+    assert text.startswith(file)
+    if rule_id is not None:
+        assert f" rule {rule_id} " in text
+    if field:
+        assert f" field {field}: " in text
+    assert f"(fix: {problem.hint})" in text
 
 
 def test_loader_loads_the_sample_rule_set() -> None:

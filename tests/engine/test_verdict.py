@@ -216,15 +216,27 @@ def test_a_testing_rule_is_reported_but_never_changes_the_verdict() -> None:
     assert {result.state.value for result in evaluation.results} == {"true"}
 
 
-def test_data_requested_lists_discriminator_requests_of_possible_grades_not_yet_known() -> None:
+def test_data_requested_lists_every_discriminator_request_of_a_possible_grade() -> None:
+    # fio2_change is known, but the discriminator asks for a new gas: it stays requested.
     discriminator = {
         "text": "A second gas on more oxygen.",
         "requests": ["fio2_change", "mixed_venous_po2"],
     }
     rules = [_grading("s", "shunt", "possible", 1, "peep", discriminator=discriminator)]
     verdict = _verdict(rules, {**OXYGENATED, "peep": 5.0, "fio2_change": 0.2})
-    assert verdict.data_requested == (DataRequest("mixed_venous_po2", ("s@1.0.0",)),)
+    assert verdict.data_requested == (
+        DataRequest("mixed_venous_po2", ("s@1.0.0",)),
+        DataRequest("fio2_change", ("s@1.0.0",)),
+    )
     assert verdict.assessment(Mechanism.SHUNT).discriminators[0].text == discriminator["text"]
+
+
+def test_discriminators_of_losing_or_other_grades_request_nothing() -> None:
+    rules = [
+        _grading("s-likely", "shunt", "likely", 1, "peep"),
+        _grading("s-possible", "shunt", "possible", 2, "peep"),
+    ]
+    assert _verdict(rules, {**OXYGENATED, "peep": 5.0}).data_requested == ()
 
 
 def test_data_requested_lists_missing_facts_that_could_decide_a_not_assessable_mechanism() -> None:
