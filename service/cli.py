@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import argparse
 import sys
-from collections.abc import Iterator, Sequence
+from collections.abc import Sequence
 from pathlib import Path
 from typing import IO
 
@@ -27,49 +27,36 @@ def _demo(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
-def _lines(stream: IO[bytes]) -> Iterator[tuple[int, bytes]]:
-    for number, line in enumerate(stream, start=1):
-        if line.strip():
-            yield number, line
-
-
 def _assess(args: argparse.Namespace) -> int:
-    import orjson
-
+    from service.batch import Progress, answer, assess_lines, numbered_lines
     from service.config import Settings
-    from service.fhir.outcome import LocatedError, error, operation_outcome
     from service.fhir.render import PressureUnit
     from service.runtime import Runtime
 
-    overrides = {"rules_dir": args.rules} if args.rules else {}
-    runtime = Runtime.load(Settings(**overrides))
-    unit: PressureUnit | None = "kPa" if args.kpa else None
-    out = sys.stdout.buffer
+    overrides: dict[str, object] = {"strict_fhir": args.strict}
+    if args.rules:
+        overrides["rules_dir"] = args.rules
+    settings = Settings(**overrides)  # type: ignore[arg-type]
+    unit: PressureUnit | None = args.units
     path: str = args.path
     ndjson = args.ndjson or path.endswith((".ndjson", ".jsonl"))
     stream: IO[bytes] = sys.stdin.buffer if path == "-" else Path(path).open("rb")  # noqa: SIM115
+    out = sys.stdout.buffer
     rejected = False
-
-    def one(raw: bytes, where: str) -> bytes:
-        nonlocal rejected
-        try:
-            data = orjson.loads(raw)
-        except orjson.JSONDecodeError as exc:
-            rejected = True
-            problem = error("structure", f"not JSON: {exc.msg}", where)
-            return orjson.dumps(operation_outcome([problem]))
-        try:
-            return orjson.dumps(runtime.assess_bundle(data, pressure_unit=unit))
-        except LocatedError as exc:
-            rejected = True
-            return orjson.dumps(exc.operation_outcome())
-
     with stream:
         if ndjson:
-            for number, line in _lines(stream):
-                out.write(one(line, f"line {number}") + b"\n")
+            progress = Progress()
+            lines = numbered_lines(stream)
+            for text, bad in assess_lines(
+                lines, settings=settings, unit=unit, workers=args.workers
+            ):
+                out.write(text + b"\n")
+                rejected |= bad
+                progress.step()
+            progress.close()
         else:
-            out.write(one(stream.read(), "Bundle") + b"\n")
+            text, rejected = answer(Runtime.load(settings), stream.read(), "Bundle", unit)
+            out.write(text + b"\n")
     out.flush()
     return EXIT_REJECTED if rejected else EXIT_OK
 
@@ -91,7 +78,15 @@ def build_parser() -> argparse.ArgumentParser:
     assess.add_argument("path", help="a Bundle JSON file, an NDJSON file, or - for stdin")
     assess.add_argument("--ndjson", action="store_true", help="read stdin as NDJSON")
     assess.add_argument("--rules", type=Path, help="rule directory (default: the shipped set)")
-    assess.add_argument("--kpa", action="store_true", help="report pressures in kPa")
+    assess.add_argument(
+        "--units", choices=("mm[Hg]", "kPa"), help="pressure unit of the result (default: setting)"
+    )
+    assess.add_argument(
+        "--strict", action="store_true", help="validate the whole input as FHIR R4B first"
+    )
+    assess.add_argument(
+        "--workers", type=int, default=1, metavar="N", help="processes for NDJSON input"
+    )
     assess.set_defaults(handler=_assess)
     return parser
 

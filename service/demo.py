@@ -14,26 +14,31 @@ from service.assess.summary import summary_text
 from service.fhir.extract import read_bundle
 from service.runtime import Runtime
 
-DEMO_FILE = "altitude-visitor.bundle.json"
+SCENARIOS = (
+    ("altitude-visitor", "a 68-year-old visitor at 2,500 m on room air"),
+    ("post-operative-drowsiness", "a drowsy 34-year-old after an operation, at sea level"),
+    ("ventilated-two-fio2", "a ventilated 57-year-old with gases on FiO2 0.5 and 1.0"),
+)
 
 
-def demo_bundle_path() -> Path:
-    """The demo Bundle: bundled in the wheel, or in ``fixtures/demo`` beside the package."""
+def demo_dir() -> Path:
+    """The demo Bundles: bundled in the wheel, or ``fixtures/demo`` beside the package."""
     package = Path(__file__).resolve().parent
-    bundled = package / "_bundled" / "demo" / DEMO_FILE
-    return bundled if bundled.is_file() else package.parent / "fixtures" / "demo" / DEMO_FILE
+    bundled = package / "_bundled" / "demo"
+    return bundled if bundled.is_dir() else package.parent / "fixtures" / "demo"
 
 
 def run_demo(*, as_json: bool = False) -> str:
-    """The demo's output: a readable summary, or the result Bundle as JSON."""
+    """The demo's output: a readable summary per scenario, or the result Bundles as NDJSON."""
     runtime = Runtime.load()
-    data = orjson.loads(demo_bundle_path().read_bytes())
-    if as_json:
-        result = runtime.assess_bundle(data)
-        return orjson.dumps(result, option=orjson.OPT_INDENT_2).decode() + "\n"
-    assessment = runtime.assess_intake(read_bundle(data, concept_map=runtime.concept_map))
-    header = (
-        "oxyrule demo: an invented 68-year-old at 2,500 m on room air "
-        f"({demo_bundle_path().name})\n\n"
-    )
-    return header + summary_text(assessment)
+    parts: list[str] = []
+    for number, (name, label) in enumerate(SCENARIOS, start=1):
+        data = orjson.loads((demo_dir() / f"{name}.bundle.json").read_bytes())
+        if as_json:
+            parts.append(orjson.dumps(runtime.assess_bundle(data)).decode() + "\n")
+            continue
+        assessment = runtime.assess_intake(read_bundle(data, concept_map=runtime.concept_map))
+        rule = "=" * 100
+        parts.append(f"{rule}\nScenario {number} (invented): {label}\n{rule}\n")
+        parts.append(summary_text(assessment) + "\n")
+    return "".join(parts)

@@ -13,6 +13,7 @@ from datetime import UTC, datetime, timedelta
 
 from service.config import Settings
 from service.engine import Evaluation, Grade, RuleSet, evaluate
+from service.engine.results import RuleResult
 from service.engine.verdict import MechanismAssessment
 from service.intake.model import Intake, Quantity, Specimen
 
@@ -60,6 +61,35 @@ def _checked_facts(
     return kept, findings
 
 
+_SYMBOL = {"lt": "<", "le": "≤", "gt": ">", "ge": "≥", "eq": "=", "is": "is", "in": "in"}
+
+
+def _number(value: object) -> str:
+    return f"{value:.4g}" if isinstance(value, float) else str(value).lower()
+
+
+def trace_lines(result: RuleResult) -> tuple[str, ...]:
+    """One line per condition of a rule: ``id@version: fact value op threshold → state``."""
+    lines = []
+    for leaf in result.trace:
+        unit = f" {leaf.unit}" if leaf.unit not in (None, "1") else ""
+        seen = "missing" if leaf.missing else f"{_number(leaf.value)}{unit}"
+        if leaf.operator.value == "present":
+            test = f"present is {_number(leaf.threshold)}"
+        else:
+            named = f" ({', '.join(leaf.parameters)})" if leaf.parameters else ""
+            symbol = _SYMBOL.get(leaf.operator.value, leaf.operator.value)
+            test = f"{symbol} {_threshold(leaf.threshold)}{unit}{named}"
+        lines.append(f"{result.ref}: {leaf.fact} {seen} {test} → {leaf.state.value}")
+    return tuple(lines)
+
+
+def _threshold(threshold: object) -> str:
+    if isinstance(threshold, tuple | list):
+        return "–".join(_number(t) for t in threshold)
+    return _number(threshold)
+
+
 def _mechanism(item: MechanismAssessment, evaluation: Evaluation) -> MechanismVerdict:
     if item.grade is Grade.NOT_ASSESSABLE:
         missing = _missing_for(item, evaluation)
@@ -76,6 +106,7 @@ def _mechanism(item: MechanismAssessment, evaluation: Evaluation) -> MechanismVe
         rationale=" ".join(item.rationales),
         rules=item.rules,
         discriminator=" ".join(discriminators) or None,
+        trace=tuple(line for result in item.deciding for line in trace_lines(result)),
     )
 
 

@@ -45,6 +45,7 @@ class MechanismVerdict:
     rationale: str
     rules: tuple[str, ...]
     discriminator: str | None = None
+    trace: tuple[str, ...] = ()  # each condition of the deciding rules, with its value
 
 
 @dataclass(frozen=True, slots=True)

@@ -109,6 +109,7 @@ def _mechanism_parameter(m: MechanismVerdict) -> Json:
     part += [{"name": "rule", "valueString": rule} for rule in m.rules]
     if m.discriminator:
         part.append({"name": "discriminator", "valueString": m.discriminator})
+    part += [{"name": "trace", "valueString": line} for line in m.trace]
     return {"name": "mechanism", "part": part}
 
 
