@@ -1,27 +1,122 @@
-"""The command line's built-in demo (README quick start, first command)."""
+"""The command line: the demo (README quick start) and ``assess`` with its exit codes
+(contract §1: 0 assessed, 2 rejected with its OperationOutcome printed, 1 internal error)."""
 
 from __future__ import annotations
 
+import json
 import subprocess
 import sys
+from pathlib import Path
+from typing import Any
 
 import pytest
 
 from service.cli import main
 
+ROOT = Path(__file__).resolve().parents[1]
+DEMO = ROOT / "fixtures" / "demo" / "altitude-visitor.bundle.json"
 
-def test_demo_prints_the_physiology_and_the_caution(capsys: pytest.CaptureFixture[str]) -> None:
+
+def run(*args: str, stdin: bytes = b"") -> subprocess.CompletedProcess[bytes]:
+    return subprocess.run(
+        [sys.executable, "-m", "service.cli", *args], input=stdin, capture_output=True, check=False
+    )
+
+
+def observation(value: Any, unit: str = "mm[Hg]", **extra: Any) -> dict[str, Any]:
+    obs: dict[str, Any] = {
+        "resourceType": "Observation",
+        "status": "final",
+        "code": {"coding": [{"system": "http://loinc.org", "code": "2703-7"}]},
+        "effectiveDateTime": "2026-11-20T10:00:00Z",
+        "valueQuantity": {"value": value, "system": "http://unitsofmeasure.org", "code": unit},
+    }
+    obs.update(extra)
+    return obs
+
+
+def bundle(*resources: dict[str, Any]) -> bytes:
+    entries = [{"resource": r} for r in resources]
+    return json.dumps({"resourceType": "Bundle", "type": "collection", "entry": entries}).encode()
+
+
+def test_demo_prints_each_scenario_and_the_caution(capsys: pytest.CaptureFixture[str]) -> None:
     assert main(["demo"]) == 0
     out = capsys.readouterr().out
+    assert out.count("Scenario ") == 3
     assert "alveolar PO2" in out
     assert "not a diagnosis" in out
 
 
-def test_console_script_runs_as_a_module() -> None:
-    done = subprocess.run(
-        [sys.executable, "-m", "service.cli", "--version"],
-        capture_output=True,
-        text=True,
-        check=True,
-    )
-    assert done.stdout.startswith("oxyrule ")
+def test_assess_prints_a_result_bundle_and_exits_0() -> None:
+    done = run("assess", str(DEMO))
+    assert done.returncode == 0, done.stderr
+    result = json.loads(done.stdout)
+    assert result["resourceType"] == "Bundle"
+    assert result["entry"][0]["resource"]["resourceType"] == "GuidanceResponse"
+
+
+def test_assess_reports_pressures_in_kpa_on_request() -> None:
+    done = run("assess", "--units", "kPa", str(DEMO))
+    params = json.loads(done.stdout)["entry"][1]["resource"]["parameter"]
+    pressure = next(p for p in params if p["name"] == "barometric-pressure")
+    assert pressure["valueQuantity"]["code"] == "kPa"
+
+
+@pytest.mark.parametrize(
+    ("body", "expression"),
+    [
+        (b"this is not json", "Bundle"),
+        (json.dumps({"resourceType": "Patient"}).encode(), "Bundle"),
+        (bundle(observation(80, "psi")), "Bundle.entry[0].resource.valueQuantity.code"),
+        (bundle(observation("eighty")), "Bundle.entry[0].resource.valueQuantity.value"),
+        (
+            bundle(observation(80, effectiveDateTime="yesterday")),
+            "Bundle.entry[0].resource.effectiveDateTime",
+        ),
+    ],
+    ids=["not-json", "not-a-bundle", "unknown-unit", "string-for-number", "bad-date"],
+)
+def test_assess_rejects_bad_input_with_a_located_outcome_and_exit_2(
+    body: bytes, expression: str
+) -> None:
+    done = run("assess", "-", stdin=body)
+    assert done.returncode == 2
+    assert b"Traceback" not in done.stderr
+    outcome = json.loads(done.stdout)
+    assert outcome["resourceType"] == "OperationOutcome"
+    assert expression in [e for i in outcome["issue"] for e in i.get("expression", [])]
+
+
+def test_an_impossible_fio2_is_reported_and_not_used() -> None:
+    fio2 = observation(4.0, "1")
+    fio2["code"] = {"coding": [{"system": "http://loinc.org", "code": "71835-3"}]}
+    done = run("assess", "-", stdin=bundle(observation(80), fio2))
+    # FiO2 4.0 is impossible: reported as value-out-of-range (an error finding), not used.
+    result = json.loads(done.stdout)
+    params = result["entry"][1]["resource"]["parameter"]
+    codes = [p["part"][0]["valueCode"] for p in params if p["name"] == "finding"]
+    assert "value-out-of-range" in codes
+    assert not any(p["name"] == "fio2" for p in params)
+    pattern = next(p["valueCode"] for p in params if p["name"] == "pattern")
+    assert pattern == "not-classifiable"
+
+
+def test_ndjson_answers_every_line_in_order_and_names_broken_lines(tmp_path: Path) -> None:
+    good = json.dumps(json.loads(DEMO.read_bytes()))
+    source = tmp_path / "many.ndjson"
+    source.write_text("\n".join([good, "{broken", good]) + "\n")
+    for workers in ("1", "2"):
+        done = run("assess", "--workers", workers, str(source))
+        lines = [json.loads(x) for x in done.stdout.splitlines()]
+        assert [x["resourceType"] for x in lines] == ["Bundle", "OperationOutcome", "Bundle"]
+        assert "line 2" in lines[1]["issue"][0]["diagnostics"]
+        assert done.returncode == 2
+
+
+def test_a_broken_rule_directory_exits_1_with_a_message(tmp_path: Path) -> None:
+    (tmp_path / "ruleset.yaml").write_text("id: [broken\n")
+    done = run("assess", "--rules", str(tmp_path), str(DEMO))
+    assert done.returncode == 1
+    assert b"ruleset.yaml" in done.stderr
+    assert b"Traceback" not in done.stderr

@@ -9,10 +9,13 @@ response to oxygen.
 from __future__ import annotations
 
 import uuid
+from dataclasses import replace
 from datetime import UTC, datetime, timedelta
+from functools import lru_cache
 
 from service.config import Settings
-from service.engine import Evaluation, Grade, RuleSet, evaluate
+from service.engine import Evaluation, FactError, Grade, RuleSet, evaluate
+from service.engine.leaves import Leaf
 from service.engine.results import RuleResult
 from service.engine.verdict import MechanismAssessment
 from service.intake.model import Intake, Quantity, Specimen
@@ -36,58 +39,66 @@ def _specimen_flags(pairing: Pairing) -> dict[str, FactValue]:
     return {"specimen_unknown": unknown, "specimen_not_arterial": not_arterial}
 
 
-def _checked_facts(
+def _evaluate(
     facts: dict[str, FactValue], ruleset: RuleSet, gas: GasFacts
-) -> tuple[dict[str, FactValue], list[Finding]]:
-    """Keep the facts the catalogue accepts; report (never pass on) any it refuses."""
-    kept: dict[str, FactValue] = {}
-    findings: list[Finding] = []
-    for name, value in facts.items():
-        spec = ruleset.catalogue.get(name)
-        problem = None if spec is None else spec.problem(value)
-        if spec is None:
-            continue  # a fact the site's catalogue does not know: nothing can test it
-        if problem is not None:
-            findings.append(
-                Finding(
-                    "value-out-of-range",
-                    "warning",
-                    f"{name} was not used: {problem}",
-                    subject=gas.gas.anchor.source if gas.gas.anchor else None,
-                )
-            )
-            continue
-        kept[name] = value
-    return kept, findings
+) -> tuple[Evaluation, list[Finding]]:
+    """Evaluate; facts the catalogue refuses are dropped and reported, never passed on."""
+    known = {name: value for name, value in facts.items() if name in ruleset.catalogue}
+    try:
+        return evaluate(ruleset, known), []
+    except FactError as error:
+        refused = {problem.fact: problem.message for problem in error.problems}
+    subject = gas.gas.anchor.source if gas.gas.anchor else None
+    findings = [
+        Finding("value-out-of-range", "warning", f"{name} was not used: {why}", subject=subject)
+        for name, why in refused.items()
+    ]
+    kept = {name: value for name, value in known.items() if name not in refused}
+    return evaluate(ruleset, kept), findings
 
 
 _SYMBOL = {"lt": "<", "le": "≤", "gt": ">", "ge": "≥", "eq": "=", "is": "is", "in": "in"}
+_STATE = {True: "true", False: "false", None: "unknown"}
 
 
 def _number(value: object) -> str:
     return f"{value:.4g}" if isinstance(value, float) else str(value).lower()
 
 
+@lru_cache(maxsize=4096)
+def _leaf_text(leaf: Leaf) -> tuple[str, str]:
+    """The fixed parts of a leaf's trace line: (unit shown after the value, the test)."""
+    unit = f" {leaf.unit}" if leaf.unit not in (None, "1") else ""
+    if leaf.operator.value == "present":
+        return unit, f"present is {_number(leaf.threshold)}"
+    threshold = leaf.threshold
+    shown = (
+        "–".join(_number(t) for t in threshold)
+        if isinstance(threshold, tuple | list)
+        else _number(threshold)
+    )
+    named = f" ({', '.join(leaf.parameters)})" if leaf.parameters else ""
+    symbol = _SYMBOL.get(leaf.operator.value, leaf.operator.value)
+    return unit, f"{symbol} {shown}{unit}{named}"
+
+
 def trace_lines(result: RuleResult) -> tuple[str, ...]:
-    """One line per condition of a rule: ``id@version: fact value op threshold → state``."""
+    """One line per condition of a rule: ``id@version: fact value op threshold → state``.
+
+    Built from the evaluation's state vector; the fixed text of each leaf is cached, since
+    traces are part of every result.
+    """
+    context = result.context
+    facts, states, leaves = context.facts, context.states, context.leaves
+    ref = result.ref
     lines = []
-    for leaf in result.trace:
-        unit = f" {leaf.unit}" if leaf.unit not in (None, "1") else ""
-        seen = "missing" if leaf.missing else f"{_number(leaf.value)}{unit}"
-        if leaf.operator.value == "present":
-            test = f"present is {_number(leaf.threshold)}"
-        else:
-            named = f" ({', '.join(leaf.parameters)})" if leaf.parameters else ""
-            symbol = _SYMBOL.get(leaf.operator.value, leaf.operator.value)
-            test = f"{symbol} {_threshold(leaf.threshold)}{unit}{named}"
-        lines.append(f"{result.ref}: {leaf.fact} {seen} {test} → {leaf.state.value}")
+    for index in result.rule.condition.leaves:
+        leaf = leaves[index]
+        unit, test = _leaf_text(leaf)
+        value = facts.get(leaf.fact)
+        seen = "missing" if value is None else f"{_number(value)}{unit}"
+        lines.append(f"{ref}: {leaf.fact} {seen} {test} → {_STATE[states[index]]}")
     return tuple(lines)
-
-
-def _threshold(threshold: object) -> str:
-    if isinstance(threshold, tuple | list):
-        return "–".join(_number(t) for t in threshold)
-    return _number(threshold)
 
 
 def _mechanism(item: MechanismAssessment, evaluation: Evaluation) -> MechanismVerdict:
@@ -107,6 +118,18 @@ def _mechanism(item: MechanismAssessment, evaluation: Evaluation) -> MechanismVe
         rules=item.rules,
         discriminator=" ".join(discriminators) or None,
         trace=tuple(line for result in item.deciding for line in trace_lines(result)),
+    )
+
+
+def _demote(m: MechanismVerdict, errors: list[str]) -> MechanismVerdict:
+    if m.grade != "likely":
+        return m
+    reason = f"Demoted from likely to possible: the data are not trusted ({', '.join(errors)})."
+    return replace(
+        m,
+        grade="possible",
+        rationale=f"{m.rationale} {reason}",
+        discriminator=DEMOTED_DISCRIMINATOR,
     )
 
 
@@ -147,8 +170,7 @@ def assess(
     index = gases[0]
     compared = add_serial_facts(index, gases[1:])
     raw = {**index.facts, **_specimen_flags(pairing)}
-    facts, findings = _checked_facts(raw, ruleset, index)
-    evaluation = evaluate(ruleset, facts)
+    evaluation, findings = _evaluate(raw, ruleset, index)
     verdict = evaluation.verdict
     intake_findings = [
         Finding(i.code, i.severity.value, i.message, expression=i.expression) for i in intake.issues
@@ -164,15 +186,25 @@ def assess(
     order = {"error": 0, "warning": 1, "information": 2}
     all_findings.sort(key=lambda f: order[f.severity])
     requested = [r.fact for r in verdict.data_requested]
+    pattern = verdict.pattern.value
+    mechanisms = [_mechanism(item, evaluation) for item in verdict.mechanisms]
+    outside_errors = sorted(
+        {f.code for f in findings + physiology + intake_findings if f.severity == "error"}
+    )
+    if outside_errors and pattern != "not-classifiable":
+        # The engine judged the facts it was given; values refused before it (impossible
+        # input) still make the data untrustworthy, so no grade may stay likely.
+        pattern = "not-classifiable"
+        mechanisms = [_demote(m, outside_errors) for m in mechanisms]
     return Assessment(
         decision_id=decision_id or str(uuid.uuid4()),
         timestamp=now,
         ruleset_identity=ruleset.identity,
         ruleset_hash=ruleset.content_hash,
         patient=intake.patient,
-        pattern=verdict.pattern.value,
+        pattern=pattern,
         hypoxaemia=verdict.hypoxaemia.value,
-        mechanisms=[_mechanism(item, evaluation) for item in verdict.mechanisms],
+        mechanisms=mechanisms,
         findings=all_findings,
         index=index,
         gases=[
@@ -181,6 +213,6 @@ def assess(
             if g.gas.anchor is not None and g.gas.anchor.quantity is Quantity.ARTERIAL_PO2
         ],
         data_requested=requested,
-        status=_status(verdict.pattern.value, requested),
+        status=_status(pattern, requested),
         evaluation=evaluation,
     )

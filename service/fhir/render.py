@@ -288,15 +288,16 @@ def render_bundle(
             resources.append(_observation(name, d, a, limit, pressure_unit))
             derived_ids.append(name)
     resources.append(_mechanism_observation(a, derived_ids))
-    # Entry URLs derive from the decision id, so a result is reproducible apart from it.
-    namespace = uuid.UUID(a.decision_id)
+    # Entry URLs derive from the decision id (its last 12 hex digits replaced by the entry's
+    # number), so a result is reproducible apart from it and needs no hashing per entry.
+    prefix = str(uuid.UUID(a.decision_id))[:24]
     return {
         "resourceType": "Bundle",
         "type": "collection",
         "identifier": {"system": "urn:ietf:rfc:3986", "value": f"urn:uuid:{a.decision_id}"},
         "timestamp": a.timestamp.isoformat(),
         "entry": [
-            {"fullUrl": f"urn:uuid:{uuid.uuid5(namespace, r['id'])}", "resource": r}
-            for r in resources
+            {"fullUrl": f"urn:uuid:{prefix}{number:012x}", "resource": r}
+            for number, r in enumerate(resources, start=1)
         ],
     }

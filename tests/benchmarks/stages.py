@@ -1,0 +1,93 @@
+"""Stage benchmark of the FHIR adapter and the engine (a separate command, not a test).
+
+    python -m tests.benchmarks.stages [--rounds N] [--repeats N]
+
+Prints, measured in the same run on the demo Bundle: the median time of ``orjson.loads`` (the
+floor), of ``read_bundle`` on the parsed Bundle, and of ``evaluate`` (including ``decide``) on
+the facts the assess path hands the engine for that Bundle, each as a ratio to the floor.
+Each figure is the median of ``--repeats`` interleaved runs of ``--rounds`` batches of 10.
+"""
+
+from __future__ import annotations
+
+import argparse
+import statistics
+import time
+from collections.abc import Callable, Mapping
+from pathlib import Path
+
+import orjson
+
+import service.assess.assess as assess_module
+from service.engine import Evaluation, RuleSet, evaluate
+from service.engine.facts import FactValue
+from service.fhir.extract import read_bundle
+from service.runtime import Runtime
+
+BUNDLE = Path(__file__).resolve().parents[2] / "fixtures" / "demo" / "altitude-visitor.bundle.json"
+
+
+def median_us(action: Callable[[], object], rounds: int) -> float:
+    """Median wall time of ``action`` in microseconds (batches of 10 to beat timer noise)."""
+    for _ in range(max(rounds // 10, 5)):
+        action()
+    samples = []
+    for _ in range(rounds):
+        start = time.perf_counter()
+        for _ in range(10):
+            action()
+        samples.append((time.perf_counter() - start) / 10 * 1e6)
+    return statistics.median(samples)
+
+
+def engine_facts(runtime: Runtime, data: object) -> dict[str, FactValue]:
+    """The facts the assess path gives ``evaluate`` for ``data`` (captured, not rebuilt)."""
+    captured: list[Mapping[str, FactValue]] = []
+    original = assess_module.evaluate
+
+    def capture(ruleset: RuleSet, facts: Mapping[str, FactValue]) -> Evaluation:
+        captured.append(dict(facts))
+        return original(ruleset, facts)
+
+    assess_module.evaluate = capture
+    try:
+        runtime.assess_bundle(data)
+    finally:
+        assess_module.evaluate = original
+    return dict(captured[0])
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--rounds", type=int, default=300, help="batches of 10 per run")
+    parser.add_argument("--repeats", type=int, default=5, help="interleaved runs per stage")
+    args = parser.parse_args()
+    raw = orjson.dumps(orjson.loads(BUNDLE.read_bytes()))
+    runtime = Runtime.load()
+    data = orjson.loads(raw)
+    facts = engine_facts(runtime, data)
+    ruleset = runtime.ruleset
+    concept_map = runtime.concept_map
+
+    stages: dict[str, Callable[[], object]] = {
+        "orjson.loads (floor)": lambda: orjson.loads(raw),
+        "read_bundle": lambda: read_bundle(data, concept_map=concept_map),
+        "evaluate (with decide)": lambda: evaluate(ruleset, facts),
+    }
+    runs: dict[str, list[float]] = {name: [] for name in stages}
+    for _ in range(args.repeats):
+        for name, action in stages.items():
+            runs[name].append(median_us(action, args.rounds))
+    medians = {name: statistics.median(values) for name, values in runs.items()}
+    floor = medians["orjson.loads (floor)"]
+    print(
+        f"input: {BUNDLE.name}, {len(raw)} bytes, {raw.count(b'resourceType')} resources; "
+        f"{len(facts)} facts, {len(ruleset.evaluated)} rules, {len(ruleset.leaves)} leaves"
+    )
+    for name, value in medians.items():
+        spread = f"{min(runs[name]):.1f}-{max(runs[name]):.1f}"
+        print(f"{name:<24} {value:8.1f} µs  {value / floor:5.1f} ×   (runs {spread} µs)")
+
+
+if __name__ == "__main__":
+    main()
