@@ -61,6 +61,95 @@ def _assess(args: argparse.Namespace) -> int:
     return EXIT_REJECTED if rejected else EXIT_OK
 
 
+def _rules_dir(args: argparse.Namespace) -> Path:
+    from service.config import default_rules_dir
+
+    return Path(args.rules) if getattr(args, "rules", None) else default_rules_dir()
+
+
+def _test(args: argparse.Namespace) -> int:
+    from service.config import Settings
+    from service.runtime import Runtime
+    from service.workbench.expectations import find_cases, mismatch_table
+    from service.workbench.runner import run_cases, summary_line
+
+    runtime = Runtime.load(Settings(rules_dir=_rules_dir(args)))
+    paths = [Path(p) for p in args.fixtures] or [Path("fixtures")]
+    results = run_cases(find_cases(paths), runtime)
+    out = sys.stdout
+    for r in results:
+        if r.passed:
+            continue
+        out.write(f"\nFAILED {r.case.name}  ({r.case.expected_path})\n")
+        if r.status == "gap-closed":
+            out.write(f"  known gap now passes: remove `known_gap` ({r.case.outcome.known_gap})\n")
+        elif r.error is not None:
+            out.write(f"  input rejected: {r.error}\n")
+        else:
+            out.write("  " + mismatch_table(r.mismatches).replace("\n", "\n  ") + "\n")
+            if r.assessment is not None:
+                from service.workbench.expectations import deciding_rules
+
+                out.write(f"  decided by: {', '.join(deciding_rules(r.assessment))}\n")
+    if args.junit:
+        from service.workbench.junit import junit_xml
+
+        Path(args.junit).write_bytes(junit_xml(results))
+    if args.html:
+        from service.workbench.report import html_report
+
+        Path(args.html).write_text(html_report(results, runtime), encoding="utf-8")
+    out.write(summary_line(results) + "\n")
+    return EXIT_OK if all(r.passed for r in results) else 1
+
+
+def _lint(args: argparse.Namespace) -> int:
+    from service.workbench.lint import lint
+
+    directory = Path(args.directory) if args.directory else _rules_dir(args)
+    if args.update_lock:
+        from service.config import Settings
+        from service.runtime import Runtime
+        from service.workbench.lock import write_lock
+
+        path = write_lock(directory, Runtime.load(Settings(rules_dir=directory)).ruleset)
+        sys.stdout.write(f"wrote {path}\n")
+    fixtures = [Path(p) for p in args.fixtures] if args.fixtures else [Path("fixtures")]
+    messages = lint(directory, fixtures=fixtures)
+    for message in messages:
+        sys.stdout.write(f"{message}\n")
+    errors = sum(m.severity == "error" for m in messages)
+    warnings = len(messages) - errors
+    sys.stdout.write(f"{directory}: {errors} errors, {warnings} warnings\n")
+    return 1 if errors else EXIT_OK
+
+
+def _explain(args: argparse.Namespace) -> int:
+    import orjson
+
+    from service.config import Settings
+    from service.fhir.extract import read_bundle
+    from service.fhir.outcome import LocatedError
+    from service.runtime import Runtime
+    from service.workbench.explain import explain_json, explain_text
+
+    runtime = Runtime.load(Settings(rules_dir=_rules_dir(args)))
+    raw = sys.stdin.buffer.read() if args.path == "-" else Path(args.path).read_bytes()
+    try:
+        intake = read_bundle(orjson.loads(raw), concept_map=runtime.concept_map)
+    except (orjson.JSONDecodeError, LocatedError) as exc:
+        sys.stdout.write(f"input rejected: {exc}\n")
+        return EXIT_REJECTED
+    assessment = runtime.assess_intake(intake)
+    if args.format == "json":
+        sys.stdout.buffer.write(
+            orjson.dumps(explain_json(intake, assessment), option=orjson.OPT_INDENT_2) + b"\n"
+        )
+    else:
+        sys.stdout.write(explain_text(intake, assessment))
+    return EXIT_OK
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="oxyrule",
@@ -88,6 +177,26 @@ def build_parser() -> argparse.ArgumentParser:
         "--workers", type=int, default=1, metavar="N", help="processes for NDJSON input"
     )
     assess.set_defaults(handler=_assess)
+    test = commands.add_parser("test", help="run expected-outcome fixtures against the rules")
+    test.add_argument("fixtures", nargs="*", help="fixture directories or *.expected.yaml files")
+    test.add_argument("--rules", type=Path, help="rule directory (default: the shipped set)")
+    test.add_argument("--junit", metavar="FILE", help="also write JUnit XML for CI")
+    test.add_argument("--html", metavar="FILE", help="also write a self-contained HTML report")
+    test.set_defaults(handler=_test)
+    lint_cmd = commands.add_parser("lint", help="check a rule directory without a patient")
+    lint_cmd.add_argument("directory", nargs="?", help="rule directory (default: shipped set)")
+    lint_cmd.add_argument(
+        "--fixtures", nargs="*", help="fixture directories for coverage (default: fixtures)"
+    )
+    lint_cmd.add_argument(
+        "--update-lock", action="store_true", help="record versions and hashes in ruleset.lock"
+    )
+    lint_cmd.set_defaults(handler=_lint)
+    explain = commands.add_parser("explain", help="explain the assessment of one Bundle")
+    explain.add_argument("path", help="a Bundle JSON file, or - for stdin")
+    explain.add_argument("--rules", type=Path, help="rule directory (default: the shipped set)")
+    explain.add_argument("--format", choices=("text", "json"), default="text")
+    explain.set_defaults(handler=_explain)
     return parser
 
 

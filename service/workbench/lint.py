@@ -1,0 +1,165 @@
+"""``oxyrule lint``: everything that can be checked about a rule set without a patient.
+
+Schema and cross-checks come from the engine's loader (file, rule, field and a fix for each);
+on top of them: the lock file, conditions that can never be true or never false, parameters
+and blocks nobody uses, the local-code ConceptMap, and fixture coverage — every active rule
+must fire in some fixture and stay silent in another.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterable
+from dataclasses import dataclass
+from pathlib import Path
+
+from service.config import Settings
+from service.engine import RuleSet, RuleSetError, RuleStatus, Truth
+from service.fhir.outcome import LocatedError
+from service.runtime import Runtime, load_concept_map
+
+from .expectations import FixtureError, find_cases
+from .lock import compare, current_entries, read_lock
+from .runner import run_cases
+from .satisfiability import reachability
+
+
+@dataclass(frozen=True, slots=True)
+class LintMessage:
+    """One finding of lint: where, what, and how to fix it."""
+
+    severity: str  # error | warning
+    file: str
+    rule: str
+    field: str
+    message: str
+    fix: str
+
+    def __str__(self) -> str:
+        where = self.file + (f" rule {self.rule}" if self.rule else "")
+        where += f" field {self.field}" if self.field else ""
+        return f"{self.severity}: {where}: {self.message} (fix: {self.fix})"
+
+
+def lint(directory: Path, *, fixtures: Iterable[Path] = ()) -> list[LintMessage]:
+    """Every problem found in the rule set at ``directory`` (empty when clean)."""
+    try:
+        runtime = Runtime.load(Settings(rules_dir=directory))
+    except RuleSetError as error:
+        return [
+            LintMessage("error", p.file, p.rule_id or "", p.field, p.message, p.hint)
+            for p in error.problems
+        ]
+    except LocatedError as error:
+        return [
+            LintMessage("error", "concept-map.json", "", p.expression, p.diagnostics, "fix the map")
+            for p in error.problems
+        ]
+    ruleset = runtime.ruleset
+    messages = _lock(directory, ruleset) + _reachability(ruleset) + _unused(ruleset)
+    fixture_dirs = [f for f in fixtures if f.exists()]
+    if fixture_dirs:
+        messages += _coverage(ruleset, runtime, fixture_dirs)
+    return messages
+
+
+def _lock(directory: Path, ruleset: RuleSet) -> list[LintMessage]:
+    recorded = read_lock(directory)
+    if recorded is None:
+        return [
+            LintMessage(
+                "error", "ruleset.lock", "", "", "no lock file", "run `oxyrule lint --update-lock`"
+            )
+        ]
+    current = current_entries(directory, ruleset)
+    return [
+        LintMessage("error", p.file, p.name, "version", p.message, p.fix)
+        for p in compare(recorded, current)
+    ]
+
+
+def _reachability(ruleset: RuleSet) -> list[LintMessage]:
+    messages = []
+    for rule in ruleset.rules:
+        found = reachability(ruleset, rule)
+        if found is None:
+            continue
+        can_true, can_false = found
+        if not can_true:
+            messages.append(
+                LintMessage(
+                    "error",
+                    rule.file,
+                    rule.id,
+                    "when",
+                    "the condition can never be true (contradictory or unreachable)",
+                    "check thresholds that exclude each other under `all`",
+                )
+            )
+        elif not can_false:
+            messages.append(
+                LintMessage(
+                    "warning",
+                    rule.file,
+                    rule.id,
+                    "when",
+                    "the condition is true whenever its facts are known (it decides nothing)",
+                    "add the condition that should distinguish the cases",
+                )
+            )
+    return messages
+
+
+def _unused(ruleset: RuleSet) -> list[LintMessage]:
+    used = {p for leaf in ruleset.leaves for p in leaf.parameters}
+    return [
+        LintMessage(
+            "warning",
+            "ruleset.yaml",
+            "",
+            f"parameters.{name}",
+            "parameter is not used by any condition",
+            "use it in a condition or remove it",
+        )
+        for name in ruleset.parameters
+        if name not in used
+    ]
+
+
+def _coverage(ruleset: RuleSet, runtime: Runtime, fixtures: list[Path]) -> list[LintMessage]:
+    try:
+        cases = find_cases(fixtures)
+    except FixtureError as error:
+        return [LintMessage("error", str(fixtures[0]), "", "", str(error), "fix the fixture file")]
+    fires: dict[str, int] = {}
+    silent: dict[str, int] = {}
+    for result in run_cases(cases, runtime):
+        evaluation = result.assessment.evaluation if result.assessment else None
+        for r in getattr(evaluation, "results", ()):
+            bucket = fires if r.state is Truth.TRUE else silent
+            bucket[r.rule.id] = bucket.get(r.rule.id, 0) + 1
+    messages = []
+    for rule in ruleset.rules:
+        if rule.status is not RuleStatus.ACTIVE:
+            continue
+        for counts, what in ((fires, "fires"), (silent, "stays silent")):
+            if not counts.get(rule.id):
+                messages.append(
+                    LintMessage(
+                        "error",
+                        rule.file,
+                        rule.id,
+                        "",
+                        f"no fixture in which the rule {what}",
+                        f"add a fixture case in which {rule.id} {what}",
+                    )
+                )
+    return messages
+
+
+def concept_map_problems(directory: Path) -> list[str]:
+    """Problems of the local-code ConceptMap alone (for tests and the CLI)."""
+    try:
+        load_concept_map(directory)
+    except LocatedError as error:
+        return [p.diagnostics for p in error.problems]
+    return []
