@@ -207,8 +207,9 @@ def main(argv: Sequence[str] | None = None) -> int:
         result: int = args.handler(args)
     except Exception as exc:  # the last line of defence: say what failed, exit 1
         from service.engine import RuleSetError
+        from service.exceptions import ServiceError
 
-        if isinstance(exc, RuleSetError | OSError):
+        if isinstance(exc, RuleSetError | ServiceError | OSError):
             sys.stderr.write(f"oxyrule: {exc}\n")
             return EXIT_INTERNAL
         raise

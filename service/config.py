@@ -43,6 +43,9 @@ class Settings(BaseSettings):
     assumed_av_difference_ml_dl: float = Field(5.0, ge=0.5, le=15.0)
     respiratory_quotient: float = Field(0.8, ge=0.6, le=1.2)
     strict_fhir: bool = False
+    site_file: Path | None = Field(
+        None, description="a site override file (YAML, see service/site.py); None for none"
+    )
 
 
 @lru_cache(maxsize=1)

@@ -23,6 +23,7 @@ from service.fhir.extract import read_bundle
 from service.fhir.outcome import BundleError
 from service.fhir.render import PressureUnit, render_bundle
 from service.intake.model import Intake
+from service.site import apply, read_site_file, settings_hash
 
 CONCEPT_MAP_FILE = "concept-map.json"
 # What a not-classifiable result asks for when no rule named anything: a trusted arterial gas.
@@ -37,6 +38,10 @@ def load_concept_map(rules_dir: Path) -> LocalCodeMap | None:
     return LocalCodeMap.from_concept_map(orjson.loads(path.read_bytes()), source=str(path))
 
 
+def _bytes(path: Path) -> bytes:
+    return path.read_bytes() if path.is_file() else b""
+
+
 @dataclass(frozen=True, slots=True)
 class Runtime:
     """Settings, rule set and code map of one running service."""
@@ -44,13 +49,32 @@ class Runtime:
     settings: Settings
     ruleset: RuleSet
     concept_map: LocalCodeMap | None = None
+    settings_hash: str = ""
+    site: str | None = None
 
     @classmethod
     def load(cls, settings: Settings | None = None) -> Runtime:
-        """Load and check everything once; a broken rule set raises ``RuleSetError``."""
+        """Load and check everything once.
+
+        Raises:
+            RuleSetError: a broken rule set or a bad parameter override.
+            SiteFileError: a site file that cannot be used.
+            LocatedError: a local-code ConceptMap that cannot be used.
+        """
         settings = settings or Settings()
-        ruleset = load_ruleset(settings.rules_dir)
-        return cls(settings, ruleset, load_concept_map(settings.rules_dir))
+        parameters: dict[str, float] = {}
+        site_bytes, site = b"", None
+        if settings.site_file is not None:
+            overrides, site_bytes = read_site_file(settings.site_file)
+            settings, parameters, site = (
+                apply(settings, overrides),
+                overrides.parameters,
+                overrides.site,
+            )
+        ruleset = load_ruleset(settings.rules_dir, overrides=parameters)
+        concept_map = load_concept_map(settings.rules_dir)
+        digest = settings_hash(settings, site_bytes, _bytes(settings.rules_dir / CONCEPT_MAP_FILE))
+        return cls(settings, ruleset, concept_map, digest, site)
 
     def assess_intake(
         self, intake: Intake, *, now: datetime | None = None, decision_id: str | None = None
@@ -78,6 +102,7 @@ class Runtime:
             assessment,
             data_requirements=codes,
             pressure_unit=pressure_unit or self.settings.pressure_unit,
+            settings_hash=self.settings_hash,
         )
 
     def assess_bundle(

@@ -143,11 +143,14 @@ def _gas_parameter(gas: GasFacts, index: bool, pressure_unit: PressureUnit) -> J
     return {"name": "gas", "part": part}
 
 
-def _parameters(a: Assessment, pressure_unit: PressureUnit) -> Json:
+def _parameters(a: Assessment, pressure_unit: PressureUnit, settings_hash: str) -> Json:
     params: list[Json] = [
         {"name": "ruleset", "valueString": a.ruleset_identity},
-        {"name": "pattern", "valueCode": a.pattern},
+        {"name": "ruleset-hash", "valueString": a.ruleset_hash},
     ]
+    if settings_hash:
+        params.append({"name": "settings-hash", "valueString": settings_hash})
+    params.append({"name": "pattern", "valueCode": a.pattern})
     params += [_mechanism_parameter(m) for m in a.mechanisms]
     params += [_finding_parameter(f) for f in a.findings]
     params += [_gas_parameter(g.facts, g.index, pressure_unit) for g in a.gases]
@@ -262,8 +265,10 @@ def render_bundle(
     *,
     data_requirements: Iterable[tuple[str, str]] = (),
     pressure_unit: PressureUnit = "mm[Hg]",
+    settings_hash: str = "",
 ) -> Json:
-    """The result Bundle for ``a``. ``data_requirements`` are (system, code) pairs."""
+    """The result Bundle for ``a``. ``data_requirements`` are (system, code) pairs;
+    ``settings_hash`` names the settings the result was computed with."""
     guidance: Json = {
         "resourceType": "GuidanceResponse",
         "id": "guidance",
@@ -279,7 +284,11 @@ def render_bundle(
     requirements = _data_requirements(data_requirements)
     if requirements:
         guidance["dataRequirement"] = requirements
-    resources: list[Json] = [guidance, _parameters(a, pressure_unit), _operation_outcome(a)]
+    resources: list[Json] = [
+        guidance,
+        _parameters(a, pressure_unit, settings_hash),
+        _operation_outcome(a),
+    ]
     derived = a.index.derived
     derived_ids: list[str] = []
     for name in OBSERVATION_CODES:

@@ -1,0 +1,81 @@
+"""Site configuration without forking the rules: one YAML override file.
+
+A site tunes rule thresholds by parameter name and sets its physiology choices here; the file
+is validated when the service starts (unknown keys, out-of-range values and unknown parameter
+names stop it), and its content enters the settings hash that every result carries. Example::
+
+    site: invented-district-hospital      # a label, shown in results
+    parameters:                           # rule parameters by name (ruleset.yaml), in their unit
+      hypercapnia_pco2: 48
+    hufner_ml_per_g: 1.36
+    assumed_av_difference_ml_dl: 3.5
+    pairing_window_minutes: 20
+    pressure_unit: kPa
+    site_altitude_m: 1600
+    assume_room_air: false
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+from pathlib import Path
+from typing import Literal
+
+import yaml
+from pydantic import BaseModel, ConfigDict, Field, ValidationError
+
+from service.config import Settings
+from service.exceptions import ServiceError
+
+
+class SiteFileError(ServiceError):
+    """A site override file that cannot be used; the message names the file and the field."""
+
+
+class SiteOverrides(BaseModel):
+    """The keys a site file may set; each is optional."""
+
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+    site: str = Field(min_length=1)
+    parameters: dict[str, float] = Field(default_factory=dict)
+    hufner_ml_per_g: float | None = Field(None, ge=1.30, le=1.40)
+    assumed_av_difference_ml_dl: float | None = Field(None, ge=0.5, le=15.0)
+    pairing_window_minutes: float | None = Field(None, gt=0, le=24 * 60)
+    pressure_unit: Literal["mm[Hg]", "kPa"] | None = None
+    site_altitude_m: float | None = Field(None, ge=-500, le=9000)
+    assume_room_air: bool | None = None
+
+
+def read_site_file(path: Path) -> tuple[SiteOverrides, bytes]:
+    """The validated overrides and the file's bytes (for the settings hash)."""
+    try:
+        raw = path.read_bytes()
+        overrides = SiteOverrides.model_validate(yaml.safe_load(raw))
+    except OSError as exc:
+        raise SiteFileError(f"{path}: cannot read the site file ({exc.strerror})") from None
+    except yaml.YAMLError as exc:
+        raise SiteFileError(f"{path}: not valid YAML: {exc}") from None
+    except ValidationError as exc:
+        details = "; ".join(
+            f"{'.'.join(str(p) for p in e['loc']) or '(file)'}: {e['msg']}" for e in exc.errors()
+        )
+        raise SiteFileError(f"{path}: {details}") from None
+    return overrides, raw
+
+
+def apply(settings: Settings, overrides: SiteOverrides) -> Settings:
+    """Settings with the site's choices applied (the rule parameters go to the rule set)."""
+    updates = overrides.model_dump(exclude={"site", "parameters"}, exclude_none=True)
+    return Settings(**{**settings.model_dump(), **updates})
+
+
+def settings_hash(settings: Settings, *extra: bytes) -> str:
+    """sha256 over the settings that change results, plus extra bytes (site file, code map)."""
+    chosen = settings.model_dump(mode="json", exclude={"rules_dir", "site_file", "strict_fhir"})
+    digest = hashlib.sha256(json.dumps(chosen, sort_keys=True).encode())
+    for chunk in extra:
+        digest.update(len(chunk).to_bytes(8, "big"))
+        digest.update(chunk)
+    return digest.hexdigest()

@@ -1,0 +1,116 @@
+"""Site configuration: one override file tunes thresholds and physiology choices, is validated
+at start, and changes the settings hash every result carries."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import orjson
+import pytest
+
+from service.config import Settings
+from service.engine import RuleSetError
+from service.runtime import Runtime
+from service.site import SiteFileError
+
+ROOT = Path(__file__).resolve().parents[1]
+# Invented demo case: PaCO2 65 mmHg, pure hypoventilation with the default threshold 45.
+CASE = ROOT / "fixtures" / "demo" / "post-operative-drowsiness.bundle.json"
+
+
+def _result(site: Path | None) -> dict[str, object]:
+    runtime = Runtime.load(Settings(site_file=site))
+    return runtime.assess_bundle(orjson.loads(CASE.read_bytes()))
+
+
+def _params(result: dict[str, object]) -> dict[str, object]:
+    entries = result["entry"]
+    assert isinstance(entries, list)
+    return {p["name"]: p for p in entries[1]["resource"]["parameter"]}
+
+
+def test_a_site_threshold_changes_the_verdict_and_the_identity(tmp_path: Path) -> None:
+    site = tmp_path / "site.yaml"
+    site.write_text("site: invented-hospital\nparameters:\n  hypercapnia_pco2: 55\n")
+    default, tuned = _params(_result(None)), _params(_result(site))
+    assert tuned["ruleset-hash"] != default["ruleset-hash"]
+    assert tuned["settings-hash"] != default["settings-hash"]
+    # The threshold moved from 45 to 55; PaCO2 65 still exceeds it, so the grade stands,
+    # and the rationale quotes the site's threshold.
+    mechanism = next(
+        m
+        for m in _result(site)["entry"][1]["resource"]["parameter"]  # type: ignore[index]
+        if m["name"] == "mechanism" and m["part"][0]["valueCode"] == "hypoventilation"
+    )
+    assert "55 mmHg" in mechanism["part"][2]["valueString"]
+
+
+def test_site_physiology_choices_apply(tmp_path: Path) -> None:
+    site = tmp_path / "site.yaml"
+    site.write_text("site: invented-hospital\npressure_unit: kPa\nhufner_ml_per_g: 1.39\n")
+    runtime = Runtime.load(Settings(site_file=site))
+    assert runtime.settings.pressure_unit == "kPa"
+    assert runtime.settings.hufner_ml_per_g == 1.39
+    assert runtime.site == "invented-hospital"
+    params = _params(runtime.assess_bundle(orjson.loads(CASE.read_bytes())))
+    assert params["alveolar-po2"]["valueQuantity"]["code"] == "kPa"  # type: ignore[index]
+
+
+@pytest.mark.parametrize(
+    ("text", "named"),
+    [
+        ("site: x\nhufner_ml_per_g: 2.0\n", "hufner_ml_per_g"),
+        ("site: x\nfavourite_colour: blue\n", "favourite_colour"),
+        ("parameters: {}\n", "site"),
+        ("site: x\nparameters: [1, 2]\n", "parameters"),
+    ],
+)
+def test_a_bad_site_file_stops_start_up_naming_the_field(
+    tmp_path: Path, text: str, named: str
+) -> None:
+    site = tmp_path / "site.yaml"
+    site.write_text(text)
+    with pytest.raises(SiteFileError, match=named):
+        Runtime.load(Settings(site_file=site))
+
+
+def test_an_unknown_or_out_of_range_parameter_stops_start_up(tmp_path: Path) -> None:
+    site = tmp_path / "site.yaml"
+    site.write_text("site: x\nparameters:\n  hypercapnia_pco2: 90\n  no_such_threshold: 1\n")
+    with pytest.raises(RuleSetError) as caught:
+        Runtime.load(Settings(site_file=site))
+    text = str(caught.value)
+    assert "hypercapnia_pco2" in text
+    assert "no_such_threshold" in text
+
+
+def test_a_local_code_concept_map_in_the_rule_directory_is_used(tmp_path: Path) -> None:
+    import shutil
+
+    rules = tmp_path / "rules"
+    shutil.copytree(ROOT / "rules", rules)
+    concept_map = {
+        "resourceType": "ConceptMap",
+        "status": "active",
+        "group": [
+            {
+                "source": "urn:invented-lab:codes",
+                "target": "http://loinc.org",
+                "element": [
+                    {"code": "PO2A", "target": [{"code": "2703-7", "equivalence": "equivalent"}]}
+                ],
+            }
+        ],
+    }
+    (rules / "concept-map.json").write_bytes(orjson.dumps(concept_map))
+    bundle = orjson.loads(CASE.read_bytes())
+    for entry in bundle["entry"]:
+        coding = entry["resource"].get("code", {}).get("coding", [{}])[0]
+        if coding.get("code") == "2703-7":
+            coding.update({"system": "urn:invented-lab:codes", "code": "PO2A"})
+    local = Runtime.load(Settings(rules_dir=rules))
+    params = _params(local.assess_bundle(bundle))
+    assert params["pattern"]["valueCode"] == "single"
+    plain = _params(Runtime.load().assess_bundle(bundle))
+    assert plain["pattern"]["valueCode"] != "single"  # without the map PaO2 is unknown
+    assert params["settings-hash"] != plain["settings-hash"]
