@@ -4,6 +4,7 @@ at start, and changes the settings hash every result carries."""
 from __future__ import annotations
 
 from pathlib import Path
+from typing import Any
 
 import orjson
 import pytest
@@ -18,12 +19,12 @@ ROOT = Path(__file__).resolve().parents[1]
 CASE = ROOT / "fixtures" / "demo" / "post-operative-drowsiness.bundle.json"
 
 
-def _result(site: Path | None) -> dict[str, object]:
+def _result(site: Path | None) -> dict[str, Any]:
     runtime = Runtime.load(Settings(site_file=site))
     return runtime.assess_bundle(orjson.loads(CASE.read_bytes()))
 
 
-def _params(result: dict[str, object]) -> dict[str, object]:
+def _params(result: dict[str, Any]) -> dict[str, Any]:
     entries = result["entry"]
     assert isinstance(entries, list)
     return {p["name"]: p for p in entries[1]["resource"]["parameter"]}
@@ -39,7 +40,7 @@ def test_a_site_threshold_changes_the_verdict_and_the_identity(tmp_path: Path) -
     # and the rationale quotes the site's threshold.
     mechanism = next(
         m
-        for m in _result(site)["entry"][1]["resource"]["parameter"]  # type: ignore[index]
+        for m in _result(site)["entry"][1]["resource"]["parameter"]
         if m["name"] == "mechanism" and m["part"][0]["valueCode"] == "hypoventilation"
     )
     assert "55 mmHg" in mechanism["part"][2]["valueString"]
@@ -53,7 +54,7 @@ def test_site_physiology_choices_apply(tmp_path: Path) -> None:
     assert runtime.settings.hufner_ml_per_g == 1.39
     assert runtime.site == "invented-hospital"
     params = _params(runtime.assess_bundle(orjson.loads(CASE.read_bytes())))
-    assert params["alveolar-po2"]["valueQuantity"]["code"] == "kPa"  # type: ignore[index]
+    assert params["alveolar-po2"]["valueQuantity"]["code"] == "kPa"
 
 
 @pytest.mark.parametrize(
