@@ -142,6 +142,18 @@ def _missing_for(item: MechanismAssessment, evaluation: Evaluation) -> list[str]
     return list(missing)
 
 
+def _merge(rule_findings: list[Finding], intake_findings: list[Finding]) -> list[Finding]:
+    """Rule findings, with the location of an intake finding of the same code folded in;
+    intake findings no rule restates are kept as they are."""
+    located = {f.code: f.expression for f in intake_findings if f.expression}
+    merged = [
+        replace(f, expression=located[f.code]) if f.code in located and not f.expression else f
+        for f in rule_findings
+    ]
+    stated = {f.code for f in rule_findings}
+    return merged + [f for f in intake_findings if f.code not in stated]
+
+
 def _status(pattern: str, requested: list[str]) -> str:
     if pattern == "not-classifiable":
         return "data-required"
@@ -181,7 +193,7 @@ def assess(
     physiology = [
         Finding("value-out-of-range", "warning", problem) for g in gases for problem in g.problems
     ]
-    all_findings = rule_findings + findings + physiology + intake_findings
+    all_findings = _merge(rule_findings, intake_findings) + findings + physiology
     # Errors first, then warnings, then information; stable within each.
     order = {"error": 0, "warning": 1, "information": 2}
     all_findings.sort(key=lambda f: order[f.severity])
