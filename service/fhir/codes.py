@@ -157,13 +157,16 @@ IEEE_PULSE_OXIMETRY = "150456"  # MDC_PULS_OXIM_SAT_O2, USC example
 SPO2_LOINC = "59408-5"
 
 
+# The code systems the service reads directly, each with its table (one lookup per coding).
+CONCEPTS_BY_SYSTEM: MappingProxyType[str, MappingProxyType[str, Concept]] = MappingProxyType(
+    {LOINC: LOINC_CONCEPTS, INPUT_CODES: INPUT_CONCEPTS}
+)
+
+
 def concept_for(system: str, code: str) -> Concept | None:
     """The Concept of a coding the service reads directly (LOINC or the project input codes)."""
-    if system == LOINC:
-        return LOINC_CONCEPTS.get(code)
-    if system == INPUT_CODES:
-        return INPUT_CONCEPTS.get(code)
-    return None
+    table = CONCEPTS_BY_SYSTEM.get(system)
+    return None if table is None else table.get(code)
 
 
 # --- Oxygen device (LOINC 107117-4 valueCodeableConcept) -------------------------------------

@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import re
 from dataclasses import dataclass
-from datetime import UTC, date, datetime, timedelta, timezone
+from datetime import UTC, date, datetime
 
 from service.fhir.shape import Collector, JsonObject, member_object
 from service.fhir.shape import member_str as text
@@ -36,16 +36,6 @@ class When:
     precise: bool
 
 
-def _zone(text: str) -> timezone:
-    if text == "Z":
-        return UTC
-    sign = -1 if text[0] == "-" else 1
-    hours, minutes = int(text[1:3]), int(text[4:6])
-    if hours > 14 or minutes > 59:
-        raise ValueError("time-zone offset out of range")
-    return timezone(sign * timedelta(hours=hours, minutes=minutes))
-
-
 def parse_date_time(text: str, *, instant: bool = False) -> When:
     """Parse a FHIR dateTime (or, with ``instant``, a FHIR instant).
 
@@ -55,30 +45,30 @@ def parse_date_time(text: str, *, instant: bool = False) -> When:
     Raises:
         ValueError: not a FHIR dateTime/instant, or not a real calendar time.
     """
+    value, precise = _date_time(text, instant)
+    return When(value, precise)
+
+
+def _date_time(text: str, instant: bool) -> tuple[datetime, bool]:
+    """``parse_date_time`` as a plain pair (the reader calls it once per Observation)."""
     match = _DATE_TIME.fullmatch(text)
     if match is None:
         raise ValueError(
             "not a FHIR dateTime: expected YYYY, YYYY-MM, YYYY-MM-DD or "
             "YYYY-MM-DDThh:mm:ss[.fff] with a zone (Z or +hh:mm)"
         )
-    parts = match.groupdict()
-    if instant and parts["hour"] is None:
-        raise ValueError("a FHIR instant needs a time and a zone")
-    year, month, day = int(parts["year"]), int(parts["month"] or 1), int(parts["day"] or 1)
-    if parts["hour"] is None:
-        return When(datetime(year, month, day, tzinfo=UTC), precise=False)
-    fraction = (parts["fraction"] or "").ljust(6, "0")[:6]
-    value = datetime(
-        year,
-        month,
-        day,
-        int(parts["hour"]),
-        int(parts["minute"]),
-        int(parts["second"]),
-        int(fraction),
-        tzinfo=_zone(parts["zone"]),
-    )
-    return When(value, precise=True)
+    year, month, day, hour, zone = match.group("year", "month", "day", "hour", "zone")
+    if hour is None:
+        if instant:
+            raise ValueError("a FHIR instant needs a time and a zone")
+        return datetime(int(year), int(month or 1), int(day or 1), tzinfo=UTC), False
+    if zone != "Z" and (zone[1:3] > "14" or zone[4:6] > "59"):
+        raise ValueError("time-zone offset out of range")
+    # The pattern above has fixed the language (4-digit year, seconds required, 1-9 fraction
+    # digits, a zone); within it ``fromisoformat`` reads the same fields as the groups would
+    # give, truncates the fraction to microseconds likewise, and refuses the same impossible
+    # values (hour 24, second 60, 30 February) with the same messages as ``datetime()``.
+    return datetime.fromisoformat(text), True
 
 
 def parse_date(text: str) -> tuple[date, bool]:
@@ -129,15 +119,28 @@ def effective_time(resource: JsonObject, at: str, out: Collector) -> datetime | 
 
 def _parse_time(value: str, at: str, out: Collector, *, instant: bool = False) -> datetime | None:
     try:
-        when = parse_date_time(value, instant=instant)
+        when, precise = _date_time(value, instant)
     except ValueError as exc:
         out.problem("value", str(exc), at)
         return None
-    if not when.precise:
+    if not precise:
         out.issue(
             "time-imprecise",
             Severity.WARNING,
             "a date without a time: taken as 00:00 UTC of that day; pairing by time is unreliable",
             at,
         )
-    return when.value
+    return when
+
+
+def precise_time(text: str) -> datetime | None:
+    """The time of a FHIR dateTime that has a time and a zone, else None.
+
+    For the reader's plain path: None covers a partial date and a bad value alike, and the
+    caller then reads the element with ``effective_time``, which reports either.
+    """
+    try:
+        value, precise = _date_time(text, False)
+    except ValueError:
+        return None
+    return value if precise else None

@@ -45,20 +45,14 @@ _READ = frozenset({"Patient", "Observation", "Location", "Specimen"})
 _REQUEST_WITHOUT_RESOURCE = frozenset({"GET", "HEAD", "DELETE"})
 
 
-@dataclass(frozen=True, slots=True)
+@dataclass(slots=True)
 class _Entry:
     index: int
     resource: JsonObject
     kind: str
     full_url: str | None
-
-    @property
-    def at(self) -> str:
-        return f"Bundle.entry[{self.index}].resource"
-
-    @property
-    def reference(self) -> str:
-        return resource_reference(self.resource, self.full_url)
+    reference: str  # resource_reference(resource, full_url)
+    at: str  # Bundle.entry[index].resource
 
 
 def read_bundle(data: object, *, concept_map: LocalCodeMap | None = None) -> Intake:
@@ -119,34 +113,81 @@ def _entries(bundle: JsonObject, index: BundleIndex, out: Collector) -> list[_En
     items = member_list(bundle, "entry", "Bundle", out) or []
     found: list[_Entry] = []
     for i, item in enumerate(items):
-        at = f"Bundle.entry[{i}]"
-        entry = as_object(item, at, out)
+        entry = _plain_entry(i, item, index)
         if entry is None:
-            continue
-        full_url = text(entry, "fullUrl", at, out)
-        if "resource" not in entry and _request_only(entry):
-            message = "a request without a resource: nothing to read"
-            out.issue("resource-ignored", Severity.INFORMATION, message, at)
-            continue
-        res = member_object(entry, "resource", at, out, required=True)
-        if res is None:
-            continue
-        resource, res_at = res
-        kind = text(resource, "resourceType", res_at, out, required=True)
-        if kind is None:
-            continue
-        if kind in _READ:
-            rid = text(resource, "id", res_at, out)
-            if rid is not None and not FHIR_ID.fullmatch(rid):
-                out.problem("value", "not a FHIR id (1-64 of A-Z a-z 0-9 - .)", f"{res_at}.id")
-            index.add(i, resource, full_url)
-        found.append(_Entry(i, resource, kind, full_url))
+            entry = _entry(i, item, index, out)
+        if entry is not None:
+            found.append(entry)
     return found
+
+
+def _plain_entry(i: int, item: object, index: BundleIndex) -> _Entry | None:
+    """A well-formed entry with a resource, indexed; None (nothing recorded) for ``_entry``."""
+    if type(item) is not dict:
+        return None
+    resource = item.get("resource")
+    if type(resource) is not dict:
+        return None
+    full_url = item.get("fullUrl")
+    if full_url is None:
+        if "fullUrl" in item:
+            return None
+    elif type(full_url) is not str or not full_url.strip():
+        return None
+    kind = resource.get("resourceType")
+    if type(kind) is not str:
+        return None
+    at = f"Bundle.entry[{i}].resource"
+    if kind not in _READ:
+        if not kind.strip():
+            return None
+        return _Entry(i, resource, kind, full_url, resource_reference(resource, full_url), at)
+    rid = resource.get("id")
+    if rid is None:
+        if "id" in resource:
+            return None
+        reference = full_url or ""
+    elif type(rid) is str and FHIR_ID.fullmatch(rid):
+        reference = f"{kind}/{rid}"
+    else:
+        return None
+    index.add(i, resource, full_url)
+    return _Entry(i, resource, kind, full_url, reference, at)
+
+
+def _entry(i: int, item: object, index: BundleIndex, out: Collector) -> _Entry | None:
+    """Any entry, every problem located; None when there is no resource to read."""
+    at = f"Bundle.entry[{i}]"
+    entry = as_object(item, at, out)
+    if entry is None:
+        return None
+    full_url = text(entry, "fullUrl", at, out)
+    if "resource" not in entry and _request_only(entry):
+        message = "a request without a resource: nothing to read"
+        out.issue("resource-ignored", Severity.INFORMATION, message, at)
+        return None
+    res = member_object(entry, "resource", at, out, required=True)
+    if res is None:
+        return None
+    resource, res_at = res
+    kind = text(resource, "resourceType", res_at, out, required=True)
+    if kind is None:
+        return None
+    if kind in _READ:
+        rid = text(resource, "id", res_at, out)
+        if rid is not None and not FHIR_ID.fullmatch(rid):
+            out.problem("value", "not a FHIR id (1-64 of A-Z a-z 0-9 - .)", f"{res_at}.id")
+        index.add(i, resource, full_url)
+    reference = resource_reference(resource, full_url)
+    return _Entry(i, resource, kind, full_url, reference, res_at)
 
 
 def _request_only(entry: JsonObject) -> bool:
     request = entry.get("request")
     return isinstance(request, dict) and request.get("method") in _REQUEST_WITHOUT_RESOURCE
+
+
+_NOT_READ = object()  # a subject reference that says nothing about the patient
 
 
 class _Subjects:
@@ -156,9 +197,10 @@ class _Subjects:
         self.index, self.out = index, out
         self.first: str | None = None  # the first subject reference seen, for Intake.patient
         self._key: object = None
-        self._patient_entry: int | None = None
+        # Subject reference -> what it points at; a Bundle repeats one reference many times.
+        self._keys: dict[str, object] = {}
 
-    def _agree(self, key: object, at: str) -> None:
+    def _agree(self, key: object, entry: _Entry, path: str) -> None:
         if self._key is None:
             self._key = key
         elif key != self._key:
@@ -166,35 +208,57 @@ class _Subjects:
                 "invalid",
                 "this resource is about another patient than the rest of the Bundle; "
                 "send one patient's data per Bundle",
-                at,
+                entry.at + path,
             )
 
     def patient(self, entry: _Entry) -> None:
         reference = entry.reference
         if not reference:
             return  # neither id nor fullUrl: nothing can point at it, nothing to compare
-        self._agree(("entry", self.index.resolve(reference)), entry.at)
+        self._agree(("entry", self.index.resolve(reference)), entry, "")
 
     def observation(self, entry: _Entry) -> None:
+        reference = self.plain_reference(entry.resource)
+        if reference is None:
+            reference = self._reference(entry)
+            if reference is None:
+                return
+        key = self._keys.get(reference)
+        if key is None:
+            key = self._keys[reference] = self._key_of(reference)
+        if key is _NOT_READ:
+            return
+        if self.first is None:
+            self.first = reference
+        self._agree(key, entry, ".subject.reference")
+
+    @staticmethod
+    def plain_reference(resource: JsonObject) -> str | None:
+        """``subject.reference`` when it is a usable string; None to look with ``_reference``."""
+        subject = resource.get("subject")
+        if type(subject) is not dict:
+            return None
+        reference = subject.get("reference")
+        return reference if type(reference) is str and reference.strip() else None
+
+    def _reference(self, entry: _Entry) -> str | None:
+        """``subject.reference`` of an Observation, its shape checked and located."""
         found = member_object(entry.resource, "subject", entry.at, self.out)
         if found is None:
-            return
-        reference = text(found[0], "reference", found[1], self.out)
-        if reference is None:
-            return
+            return None
+        return text(found[0], "reference", found[1], self.out)
+
+    def _key_of(self, reference: str) -> object:
+        """The patient a subject reference names, or ``_NOT_READ`` for another subject."""
         target = self.index.resolve(reference)
         if target is not None:
             if self.index.resources[target].get("resourceType") != "Patient":
-                return  # a Group, Device or Location subject says nothing about the patient
-            key: object = ("entry", target)
-        else:
-            typed = type_and_id(reference)
-            if typed is not None and not typed.startswith("Patient/"):
-                return
-            key = ("reference", typed or reference)
-        if self.first is None:
-            self.first = reference
-        self._agree(key, f"{found[1]}.reference")
+                return _NOT_READ  # a Group, Device or Location subject says nothing about it
+            return ("entry", target)
+        typed = type_and_id(reference)
+        if typed is not None and not typed.startswith("Patient/"):
+            return _NOT_READ
+        return ("reference", typed or reference)
 
 
 def _patient(

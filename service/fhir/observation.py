@@ -14,13 +14,14 @@ because the sender cannot say whether the value stands. Any other status refuses
 
 from __future__ import annotations
 
+import sys
 from dataclasses import dataclass, field
 from datetime import datetime
 
 from service.fhir import codes
 from service.fhir.codes import Concept
 from service.fhir.concept_map import LocalCodeMap
-from service.fhir.dates import effective_time
+from service.fhir.dates import effective_time, precise_time
 from service.fhir.references import BundleIndex
 from service.fhir.shape import (
     Collector,
@@ -32,21 +33,102 @@ from service.fhir.shape import (
 )
 from service.fhir.shape import member_str as text
 from service.fhir.specimens import observation_specimen
-from service.fhir.values import Reading, read_device, read_quantity
+from service.fhir.values import Reading, Settled, plain_value, read_device, read_quantity
 from service.intake.model import Measurement, Quantity, Severity, Source, Specimen
+
+# The elements a plain Observation may have: everything the reader ignores, plus the ones the
+# plain path reads itself. Anything else (component, another value[x] or effective[x],
+# dataAbsentReason, an unknown or misspelt element) is left to the thorough reader.
+_PLAIN_ELEMENTS = frozenset(
+    {
+        "resourceType", "id", "meta", "implicitRules", "language", "text", "contained",
+        "extension", "modifierExtension", "identifier", "basedOn", "partOf", "status",
+        "category", "code", "subject", "focus", "encounter", "effectiveDateTime", "issued",
+        "performer", "valueQuantity", "interpretation", "note", "bodySite", "method",
+        "specimen", "device", "referenceRange", "hasMember", "derivedFrom",
+    }
+)  # fmt: skip
+_PLAIN_QUANTITY = frozenset({"value", "unit", "system", "code"})
+_LARGEST = sys.float_info.max
 
 
 @dataclass(slots=True)
 class ObservationReader:
-    """Reads Observations of one Bundle; shares the Bundle index and the issue collector."""
+    """Reads Observations of one Bundle; shares the Bundle index and the issue collector.
+
+    Each Observation is first offered to a plain path that checks the usual shape with cheap
+    type tests and builds no FHIRPath; anything it is not sure of, it declines before it has
+    recorded anything, and the thorough reader reads the Observation from the start and says
+    where the trouble is. Both give the same measurements and issues
+    (``tests/fhir/test_plain_path.py`` compares them).
+    """
 
     out: Collector
     index: BundleIndex
     concept_map: LocalCodeMap | None = None
     _specimens: dict[str, tuple[Specimen, bool]] = field(default_factory=dict)
+    _times: dict[str, datetime] = field(default_factory=dict)
 
     def read(self, resource: JsonObject, at: str, reference: str) -> list[Measurement]:
         """The measurements of the Observation at ``at`` (``Bundle.entry[i].resource``)."""
+        found = self.plain(resource, at, reference)
+        return self.thorough(resource, at, reference) if found is None else found
+
+    def plain(self, resource: JsonObject, at: str, reference: str) -> list[Measurement] | None:
+        """The measurement of a plain Observation, or None (nothing recorded) to read it
+        thoroughly.
+
+        Plain: a used status, codings that all have a system and a code, a known code, one
+        ``effectiveDateTime`` with a time and a zone, and one ``valueQuantity`` with a finite
+        value and a UCUM code the quantity takes, possible once converted; no component.
+        """
+        if not resource.keys() <= _PLAIN_ELEMENTS:
+            return None
+        status = resource.get("status")
+        if type(status) is not str or status not in codes.OBSERVATION_STATUS_USED:
+            return None
+        codings = _plain_codings(resource.get("code"))
+        profiles = _plain_profiles(resource)
+        if codings is None or profiles is None:
+            return None
+        concept = identify(codings, profiles, self.concept_map)
+        if concept is None or concept.quantity is Quantity.OXYGEN_DEVICE:
+            return None  # unknown (reported) or coded (valueCodeableConcept)
+        time = self._plain_time(resource.get("effectiveDateTime"))
+        settled = _plain_quantity(resource.get("valueQuantity"), concept)
+        if time is None or settled is None:
+            return None
+        # Accepted: from here on the reader records what the thorough reader would.
+        value, sent_value, sent_unit, converted = settled
+        if converted is not None:
+            severity, message = converted
+            self.out.issue("unit-converted", severity, message, f"{at}.valueQuantity")
+        quantity: Quantity = concept.quantity
+        specimen = concept.specimen
+        if concept.by_specimen is not None:
+            specimen, known = self._specimen(resource, at)
+            if known:
+                quantity = concept.by_specimen.get(specimen, quantity)
+        source = Source(reference, at)
+        return [
+            Measurement(
+                quantity, value, time, source, specimen, sent_value, sent_unit, concept.fio2_source
+            )
+        ]
+
+    def _plain_time(self, sent: object) -> datetime | None:
+        """An ``effectiveDateTime`` with a time and a zone (parsed once per Bundle), or None."""
+        if type(sent) is not str:
+            return None
+        time = self._times.get(sent)
+        if time is None:
+            time = precise_time(sent)
+            if time is not None:
+                self._times[sent] = time
+        return time
+
+    def thorough(self, resource: JsonObject, at: str, reference: str) -> list[Measurement]:
+        """The measurements of any Observation, every problem and issue located."""
         out = self.out
         if not self._status_allows_use(resource, at):
             return []
@@ -107,21 +189,7 @@ class ObservationReader:
     def _identify(
         self, codings: list[tuple[str, str]], profiles: list[str] | None = None
     ) -> Concept | None:
-        """The first known coding wins; local codes only when no coding is known directly."""
-        concept = next(
-            (c for c in (codes.concept_for(s, k) for s, k in codings) if c is not None), None
-        )
-        if concept is None and self.concept_map is not None:
-            mapped = (self.concept_map.loinc_for(s, k) for s, k in codings)
-            loinc = next((m for m in mapped if m is not None), None)
-            concept = None if loinc is None else codes.LOINC_CONCEPTS[loinc]
-        if (
-            concept is not None
-            and concept.quantity is Quantity.ARTERIAL_SO2
-            and _says_pulse_oximetry(codings, profiles or [])
-        ):
-            concept = codes.LOINC_CONCEPTS[codes.SPO2_LOINC]
-        return concept
+        return identify(codings, profiles or [], self.concept_map)
 
     def _component(
         self,
@@ -191,6 +259,94 @@ class ObservationReader:
                 )
             self._specimens[at] = (finding.specimen, known)
         return self._specimens[at]
+
+
+_DIRECT = codes.CONCEPTS_BY_SYSTEM
+_SPO2 = codes.LOINC_CONCEPTS[codes.SPO2_LOINC]
+
+
+def identify(
+    codings: list[tuple[str, str]], profiles: list[str], concept_map: LocalCodeMap | None
+) -> Concept | None:
+    """The first known coding wins; local codes only when no coding is known directly."""
+    concept = None
+    for system, code in codings:
+        table = _DIRECT.get(system)
+        if table is not None:
+            concept = table.get(code)
+            if concept is not None:
+                break
+    if concept is None and concept_map is not None:
+        mapped = (concept_map.loinc_for(s, k) for s, k in codings)
+        loinc = next((m for m in mapped if m is not None), None)
+        concept = None if loinc is None else codes.LOINC_CONCEPTS[loinc]
+    if (
+        concept is not None
+        and concept.quantity is Quantity.ARTERIAL_SO2
+        and _says_pulse_oximetry(codings, profiles)
+    ):
+        concept = _SPO2
+    return concept
+
+
+def _plain_codings(code: object) -> list[tuple[str, str]] | None:
+    """The (system, code) pairs of a CodeableConcept whose codings all have both, else None."""
+    if type(code) is not dict:
+        return None
+    items = code.get("coding")
+    if type(items) is not list:
+        return None
+    pairs: list[tuple[str, str]] = []
+    for coding in items:
+        if type(coding) is not dict:
+            return None
+        system, value = coding.get("system"), coding.get("code")
+        if type(system) is not str or type(value) is not str:
+            return None
+        if not system.strip() or not value.strip():
+            return None
+        pairs.append((system, value))
+    return pairs
+
+
+def _plain_profiles(resource: JsonObject) -> list[str] | None:
+    """``meta.profile`` when ``meta`` and its profiles are of the right JSON type, else None."""
+    meta = resource.get("meta")
+    if type(meta) is not dict:
+        return [] if meta is None and "meta" not in resource else None
+    listed = meta.get("profile")
+    if type(listed) is list and all(type(item) is str for item in listed):
+        return listed
+    return [] if listed is None and "profile" not in meta else None
+
+
+def _plain_quantity(q: object, concept: Concept) -> Settled | None:
+    """A ``valueQuantity`` with a finite value and a UCUM code, read for ``concept``, or None."""
+    if type(q) is not dict or not q.keys() <= _PLAIN_QUANTITY:
+        return None
+    value, unit = q.get("value"), q.get("code")
+    if type(value) is float:
+        if not -_LARGEST <= value <= _LARGEST:  # also false for NaN
+            return None
+    elif type(value) is int:
+        try:
+            value = float(value)
+        except OverflowError:
+            return None
+    else:
+        return None  # absent, null, a bool, a string: the thorough reader says which
+    if type(unit) is not str or not unit.strip():
+        return None
+    system = q.get("system")
+    if system != codes.UCUM and (system is not None or "system" in q):
+        return None
+    text_unit = q.get("unit")
+    if text_unit is not None:
+        if type(text_unit) is not str or not text_unit.strip():
+            return None
+    elif "unit" in q:
+        return None
+    return plain_value(value, unit, concept)
 
 
 def _codings(code_obj: JsonObject, at: str, out: Collector) -> list[tuple[str, str]]:

@@ -21,36 +21,63 @@ _TYPE_ID = re.compile(r"(?:^|/)([A-Z][A-Za-z]+)/([A-Za-z0-9\-.]{1,64})(?:/_histo
 
 def type_and_id(reference: str) -> str | None:
     """``Type/id`` of a relative or absolute RESTful reference, or None (urn:uuid, '#x')."""
+    if "/" not in reference:
+        return None  # the pattern needs one: urn:uuid:..., urn:oid:..., #contained
     match = _TYPE_ID.search(reference)
     return None if match is None else f"{match.group(1)}/{match.group(2)}"
 
 
 @dataclass(slots=True)
 class BundleIndex:
-    """The resources of a Bundle by ``fullUrl`` and by ``Type/id``."""
+    """The resources of a Bundle by ``fullUrl`` and by ``Type/id``.
+
+    Entries are added in Bundle order; when several entries answer to one ``Type/id`` (by
+    their own type and id, or by the ``Type/id`` at the end of their ``fullUrl``), the first
+    wins. The keys taken from fullUrls are worked out only when a lookup needs them: a
+    reference to the first entry (the Patient, usually) never parses the fullUrls.
+    """
 
     resources: dict[int, JsonObject] = field(default_factory=dict)
     _by_full_url: dict[str, int] = field(default_factory=dict)
-    _by_type_id: dict[str, int] = field(default_factory=dict)
+    _by_own_type_id: dict[str, int] = field(default_factory=dict)
+    _full_urls: list[tuple[int, str]] = field(default_factory=list)
+    _by_full_url_type_id: dict[str, int] = field(default_factory=dict)
+    _parsed: int = 0  # how many of ``_full_urls`` have been parsed into the dict above
 
     def add(self, entry: int, resource: JsonObject, full_url: str | None) -> None:
         """Index the resource of ``Bundle.entry[entry]``; the first of duplicates wins."""
         self.resources[entry] = resource
         if full_url is not None:
             self._by_full_url.setdefault(full_url, entry)
-            key = type_and_id(full_url)
-            if key is not None:
-                self._by_type_id.setdefault(key, entry)
+            self._full_urls.append((entry, full_url))
         kind, rid = resource.get("resourceType"), resource.get("id")
         if isinstance(kind, str) and isinstance(rid, str):
-            self._by_type_id.setdefault(f"{kind}/{rid}", entry)
+            self._by_own_type_id.setdefault(f"{kind}/{rid}", entry)
 
     def resolve(self, reference: str) -> int | None:
         """The entry index a reference points at, or None when it is not in the Bundle."""
         if reference in self._by_full_url:
             return self._by_full_url[reference]
         key = type_and_id(reference)
-        return None if key is None else self._by_type_id.get(key)
+        if key is None:
+            return None
+        own = self._by_own_type_id.get(key)
+        self._parse_full_urls(before=own)
+        by_url = self._by_full_url_type_id.get(key)
+        if by_url is not None and (own is None or by_url < own):
+            return by_url
+        return own
+
+    def _parse_full_urls(self, *, before: int | None) -> None:
+        """Parse the fullUrls of the entries before ``before`` (None: all of them)."""
+        urls, parsed = self._full_urls, self._parsed
+        while parsed < len(urls) and (before is None or urls[parsed][0] < before):
+            entry, full_url = urls[parsed]
+            key = type_and_id(full_url)
+            if key is not None:
+                self._by_full_url_type_id.setdefault(key, entry)
+            parsed += 1
+        self._parsed = parsed
 
 
 def resource_reference(resource: JsonObject, full_url: str | None) -> str:

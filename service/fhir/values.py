@@ -51,26 +51,36 @@ def _unit(
     return None
 
 
+def _canonical(value: float, unit: str, concept: Concept) -> tuple[float, bool]:
+    """(value in the canonical unit, whether the sender's unit was reinterpreted).
+
+    Raises:
+        UnitError: the quantity cannot take ``unit``.
+        ImpossibleValueError: an FiO2 outside its limits once read as a fraction.
+    """
+    quantity = concept.quantity
+    if quantity is Quantity.FIO2:
+        fio2 = normalise_fio2(value, unit)
+        return fio2.fraction, fio2.reinterpreted
+    if concept.dimension is None:
+        canonical = QUANTITY_UNITS[quantity]
+        if unit != canonical:
+            raise UnitError(unit, quantity.value, (canonical,))
+        return value, False
+    return to_canonical(value, unit, concept.dimension), False
+
+
 def _convert(
     value: float, unit: str, at: str, unit_at: str, concept: Concept, out: Collector
 ) -> tuple[float, bool] | None:
     """(canonical value, whether the unit was reinterpreted), or None if unusable."""
-    quantity = concept.quantity
     try:
-        if quantity is Quantity.FIO2:
-            fio2 = normalise_fio2(value, unit)
-            return fio2.fraction, fio2.reinterpreted
-        if concept.dimension is None:
-            canonical = QUANTITY_UNITS[quantity]
-            if unit != canonical:
-                raise UnitError(unit, quantity.value, (canonical,))
-            return value, False
-        return to_canonical(value, unit, concept.dimension), False
+        return _canonical(value, unit, concept)
     except UnitError as exc:
         accepted = ", ".join(exc.accepted)
         out.problem(
             "value",
-            f"unit '{unit}' cannot be used for {quantity.value}; accepted: {accepted}",
+            f"unit '{unit}' cannot be used for {concept.quantity.value}; accepted: {accepted}",
             unit_at,
         )
     except ImpossibleValueError:
@@ -83,6 +93,46 @@ def _convert(
             f"{at}.value",
         )
     return None
+
+
+# A usable value: (canonical value, sent value, sent unit, unit-converted issue or None). The
+# sent value and unit are None when the value was sent in the canonical unit.
+Settled = tuple[float, float | None, str | None, tuple[Severity, str] | None]
+
+
+def _settle(
+    value: float, unit: str, canonical: float, reinterpreted: bool, quantity: Quantity
+) -> Settled:
+    """What a possible value becomes, and whether its conversion is worth reporting."""
+    canonical_unit = QUANTITY_UNITS[quantity]
+    if unit == canonical_unit and not reinterpreted:
+        return canonical, None, None, None
+    if unit == "%" and canonical_unit == "1" and not reinterpreted:
+        # Percentages are held as fractions inside the service: a representation, not a
+        # conversion of the sender's unit worth reporting on every saturation.
+        return canonical, value, unit, None
+    if reinterpreted:
+        severity = Severity.WARNING
+        how = f"read as {'a percentage' if unit == '1' else 'a fraction'} despite unit '{unit}'"
+    else:
+        severity = Severity.INFORMATION
+        how = f"converted from '{unit}' to '{canonical_unit}'"
+    return canonical, value, unit, (severity, f"{quantity.value} {how}")
+
+
+def plain_value(value: float, unit: str, concept: Concept) -> Settled | None:
+    """The reading of a finite ``value`` in ``unit``, or None when it cannot be used as it is.
+
+    For the reader's plain path: None (a unit the quantity cannot take, an impossible value)
+    sends the Observation to ``read_quantity``, which reports why.
+    """
+    try:
+        canonical, reinterpreted = _canonical(value, unit, concept)
+    except (UnitError, ImpossibleValueError):
+        return None
+    if out_of_range(concept.quantity, canonical) is not None:
+        return None
+    return _settle(value, unit, canonical, reinterpreted, concept.quantity)
 
 
 def read_quantity(q: JsonObject, at: str, concept: Concept, out: Collector) -> Reading | None:
@@ -121,21 +171,12 @@ def read_quantity(q: JsonObject, at: str, concept: Concept, out: Collector) -> R
             f"{at}.value",
         )
         return None
-    canonical_unit = QUANTITY_UNITS[quantity]
-    if unit == canonical_unit and not reinterpreted:
-        return Reading(canonical)
-    if unit == "%" and canonical_unit == "1" and not reinterpreted:
-        # Percentages are held as fractions inside the service: a representation, not a
-        # conversion of the sender's unit worth reporting on every saturation.
-        return Reading(canonical, sent_value=value, sent_unit=unit)
-    if reinterpreted:
-        severity = Severity.WARNING
-        how = f"read as {'a percentage' if unit == '1' else 'a fraction'} despite unit '{unit}'"
-    else:
-        severity = Severity.INFORMATION
-        how = f"converted from '{unit}' to '{canonical_unit}'"
-    out.issue("unit-converted", severity, f"{quantity.value} {how}", at)
-    return Reading(canonical, sent_value=value, sent_unit=unit)
+    canonical, sent_value, sent_unit, issue = _settle(
+        value, unit, canonical, reinterpreted, quantity
+    )
+    if issue is not None:
+        out.issue("unit-converted", issue[0], issue[1], at)
+    return Reading(canonical, sent_value=sent_value, sent_unit=sent_unit)
 
 
 def read_device(cc: JsonObject, at: str, out: Collector) -> Reading | None:
