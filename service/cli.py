@@ -27,6 +27,13 @@ def _demo(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+def _serve(args: argparse.Namespace) -> int:
+    # The web framework is imported here and nowhere else on the command-line path.
+    from service.api.server import serve
+
+    return serve(host=args.host, port=args.port, workers=args.workers, rules=args.rules)
+
+
 def _assess(args: argparse.Namespace) -> int:
     from service.batch import Progress, answer, assess_lines, numbered_lines
     from service.config import Settings
@@ -161,6 +168,16 @@ def build_parser() -> argparse.ArgumentParser:
     demo = commands.add_parser("demo", help="assess a built-in invented scenario and explain it")
     demo.add_argument("--json", action="store_true", help="print the result Bundle instead")
     demo.set_defaults(handler=_demo)
+    serve = commands.add_parser(
+        "serve", help="run the HTTP service (settings from OXYRULE_* environment variables)"
+    )
+    serve.add_argument("--host", help="address to bind (default: OXYRULE_HOST or 127.0.0.1)")
+    serve.add_argument("--port", type=int, help="port (default: OXYRULE_PORT or 8080)")
+    serve.add_argument(
+        "--workers", type=int, metavar="N", help="server processes (default: OXYRULE_WORKERS or 1)"
+    )
+    serve.add_argument("--rules", type=Path, help="rule directory (default: OXYRULE_RULES_DIR)")
+    serve.set_defaults(handler=_serve)
     assess = commands.add_parser(
         "assess", help="assess a FHIR Bundle (JSON), or NDJSON of Bundles; '-' reads stdin"
     )

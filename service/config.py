@@ -12,7 +12,7 @@ from functools import lru_cache
 from pathlib import Path
 from typing import Literal
 
-from pydantic import Field
+from pydantic import Field, model_validator
 from pydantic_settings import BaseSettings, SettingsConfigDict
 
 from service.physiology.atmosphere import AltitudeModel
@@ -46,6 +46,73 @@ class Settings(BaseSettings):
     site_file: Path | None = Field(
         None, description="a site override file (YAML, see service/site.py); None for none"
     )
+
+
+# Asymmetric signatures only: `none` and the HMAC family are never accepted for bearer JWTs.
+JwtAlgorithm = Literal["RS256", "RS384", "ES256", "ES384"]
+JWT_ALGORITHMS: tuple[JwtAlgorithm, ...] = ("RS256", "RS384", "ES256", "ES384")
+
+
+class ServerSettings(BaseSettings):
+    """How ``oxyrule serve`` listens, limits and authenticates (same ``OXYRULE_`` prefix).
+
+    Kept apart from ``Settings`` because none of these changes a result: they are not part of
+    the settings hash a result carries.
+    """
+
+    model_config = SettingsConfigDict(env_prefix="OXYRULE_", extra="forbid", frozen=True)
+
+    host: str = Field("127.0.0.1", min_length=1, description="address the server binds")
+    port: int = Field(8080, ge=1, le=65535)
+    workers: int = Field(1, ge=1, le=64, description="server processes (metrics are per process)")
+    max_body_bytes: int = Field(
+        5 * 1024 * 1024, ge=1024, le=512 * 1024 * 1024, description="largest Bundle or NDJSON line"
+    )
+    max_concurrent_requests: int = Field(
+        64, ge=1, le=10_000, description="assessments in flight per process before 429"
+    )
+    log_level: Literal["debug", "info", "warning", "error"] = "info"
+    cors_origins: list[str] = Field(
+        default_factory=list, description="JSON list of allowed origins; empty: CORS off"
+    )
+    # Bearer authentication of the assess operation: off unless keys or a JWKS are set.
+    api_key_hashes: list[str] = Field(
+        default_factory=list,
+        description='JSON list of "sha256:<64 hex>" digests of the accepted static API keys',
+    )
+    jwt_jwks: str | None = Field(None, description="inline JWKS (JSON) that signs bearer JWTs")
+    jwt_jwks_file: Path | None = Field(None, description="a file holding that JWKS instead")
+    jwt_issuer: str | None = None
+    jwt_audience: str | None = None
+    jwt_algorithms: list[JwtAlgorithm] = Field(
+        default_factory=lambda: list(JWT_ALGORITHMS), min_length=1
+    )
+    jwt_leeway_seconds: int = Field(30, ge=0, le=300)
+    jwt_required_scope: str | None = Field(None, description="a scope every JWT must carry")
+
+    @model_validator(mode="after")
+    def _check_authentication(self) -> ServerSettings:
+        for digest in self.api_key_hashes:
+            hex_part = digest.removeprefix("sha256:")
+            if not digest.startswith("sha256:") or len(hex_part) != 64 or not _is_hex(hex_part):
+                raise ValueError(
+                    'OXYRULE_API_KEY_HASHES: each entry must be "sha256:" + 64 hex digits'
+                )
+        if self.jwt_jwks is not None and self.jwt_jwks_file is not None:
+            raise ValueError(
+                "OXYRULE_JWT_JWKS and OXYRULE_JWT_JWKS_FILE: set one of them, not both"
+            )
+        if (self.jwt_jwks is not None or self.jwt_jwks_file is not None) and not (
+            self.jwt_issuer and self.jwt_audience
+        ):
+            raise ValueError(
+                "OXYRULE_JWT_ISSUER and OXYRULE_JWT_AUDIENCE are required when a JWKS is set"
+            )
+        return self
+
+
+def _is_hex(text: str) -> bool:
+    return all(c in "0123456789abcdefABCDEF" for c in text)
 
 
 @lru_cache(maxsize=1)

@@ -1,0 +1,121 @@
+"""The FastAPI application, built by ``create_app``; nothing happens at import.
+
+``create_app(settings)`` loads the rule set (once: a broken one raises ``RuleSetError`` here,
+before any request), builds the credentials checker and the conformance resources, and wires
+the routes, the request middleware and the FHIR error handlers. Every non-2xx answer is an
+OperationOutcome (``service.api.errors``).
+"""
+
+from __future__ import annotations
+
+from collections.abc import AsyncIterator
+from contextlib import asynccontextmanager
+
+from fastapi import FastAPI, Request, Response
+from fastapi.exceptions import RequestValidationError
+from fastapi.middleware.cors import CORSMiddleware
+from starlette.exceptions import HTTPException
+
+from service import __version__
+from service.api.auth import Authenticator
+from service.api.capability import capability_statement, operation_definition
+from service.api.errors import ApiError, outcome_response, status_outcome
+from service.api.middleware import RequestMiddleware
+from service.api.routes import assess, conformance, health
+from service.api.state import ServiceState
+from service.assess.result import CAUTION
+from service.config import ServerSettings, Settings
+from service.runtime import Runtime
+
+DESCRIPTION = (
+    "Grades the likely mechanism of hypoxaemia (low inspired oxygen, hypoventilation, "
+    "diffusion limitation, V/Q mismatch, shunt) from FHIR Bundles of blood-gas Observations. "
+    "Errors are FHIR OperationOutcomes. " + CAUTION
+)
+
+
+async def _api_error(_request: Request, exc: Exception) -> Response:
+    assert isinstance(exc, ApiError)
+    return exc.response()
+
+
+async def _http_error(_request: Request, exc: Exception) -> Response:
+    assert isinstance(exc, HTTPException)
+    headers = dict(exc.headers or {})
+    return outcome_response(exc.status_code, status_outcome(exc.status_code), headers)
+
+
+async def _validation_error(_request: Request, exc: Exception) -> Response:
+    assert isinstance(exc, RequestValidationError)
+    issues = []
+    for error in exc.errors():
+        where, *path = (str(part) for part in error.get("loc", ()))
+        name = ".".join(path) or where
+        prefix = "http." if where in ("query", "header", "path") else ""
+        issues.append(
+            {
+                "severity": "error",
+                "code": "invalid",
+                "diagnostics": f"{name}: {error.get('msg', 'invalid')}",
+                "expression": [prefix + name],
+            }
+        )
+    return outcome_response(400, {"resourceType": "OperationOutcome", "issue": issues})
+
+
+def create_app(
+    settings: Settings | None = None,
+    server: ServerSettings | None = None,
+    *,
+    runtime: Runtime | None = None,
+) -> FastAPI:
+    """The service app. Loads the rule set unless a loaded ``runtime`` is given.
+
+    Raises:
+        RuleSetError, SiteFileError, LocatedError: the rule set (or site file, code map) is
+            broken: the service must not start.
+        AuthConfigError: the authentication settings cannot be used.
+    """
+    server = server or ServerSettings()
+    runtime = runtime or Runtime.load(settings or Settings())
+    auth = Authenticator.from_settings(server)
+    service = ServiceState(runtime=runtime, server=server, auth=auth)
+    service.conformance = {
+        "CapabilityStatement": capability_statement(runtime, auth.methods),
+        "OperationDefinition": operation_definition(),
+    }
+    ruleset = runtime.ruleset
+    service.metrics.ruleset.set(
+        1, (("id", ruleset.id), ("version", ruleset.version), ("hash", ruleset.content_hash))
+    )
+
+    @asynccontextmanager
+    async def lifespan(_app: FastAPI) -> AsyncIterator[None]:
+        yield
+        service.draining = True
+
+    app = FastAPI(
+        title="oxyrule",
+        version=__version__,
+        description=DESCRIPTION,
+        lifespan=lifespan,
+        docs_url="/docs",
+        redoc_url=None,
+    )
+    app.state.service = service
+    app.include_router(assess.router)
+    app.include_router(conformance.router)
+    app.include_router(health.router)
+    app.add_exception_handler(ApiError, _api_error)
+    app.add_exception_handler(HTTPException, _http_error)
+    app.add_exception_handler(RequestValidationError, _validation_error)
+    if server.cors_origins:
+        app.add_middleware(
+            CORSMiddleware,
+            allow_origins=server.cors_origins,
+            allow_methods=["GET", "POST"],
+            allow_headers=["Authorization", "Content-Type", "Accept"],
+            expose_headers=["X-Correlation-ID"],
+        )
+    app.add_middleware(RequestMiddleware, service=service)
+    return app

@@ -1,0 +1,130 @@
+"""Media types: what a request body is, and which media type its answer is sent as.
+
+A body is a single Bundle (``application/fhir+json`` or ``application/json``) or NDJSON of
+Bundles (``application/fhir+ndjson`` or ``application/ndjson``). A ``fhirVersion`` parameter is
+tolerated when it names R4 or R4B (4.0 / 4.3), a ``charset`` when it is UTF-8. The answer has
+the same kind as the body; FHIR's ``_format`` parameter (or else ``Accept``) picks its media type
+within that kind. Anything else is refused with 415 (the body) or 406 (the answer).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from enum import Enum
+
+from service.api.errors import ApiError
+
+FHIR_JSON = "application/fhir+json"
+JSON = "application/json"
+FHIR_NDJSON = "application/fhir+ndjson"
+NDJSON = "application/ndjson"
+
+
+class BodyKind(Enum):
+    """One Bundle, or one Bundle per line."""
+
+    BUNDLE = "bundle"
+    NDJSON = "ndjson"
+
+
+# Media types of each kind, the preferred one first; `_format` short names map onto them.
+TYPES: dict[BodyKind, tuple[str, ...]] = {
+    BodyKind.BUNDLE: (FHIR_JSON, JSON),
+    BodyKind.NDJSON: (FHIR_NDJSON, NDJSON),
+}
+SHORT_NAMES = {"json": FHIR_JSON, "ndjson": FHIR_NDJSON}
+FHIR_VERSIONS = ("4.0", "4.3")  # R4 and R4B; a patch level (4.0.1, 4.3.0) is accepted too
+ACCEPTED_TYPES = ", ".join(TYPES[BodyKind.BUNDLE] + TYPES[BodyKind.NDJSON])
+
+
+@dataclass(frozen=True, slots=True)
+class MediaType:
+    """A parsed media type: ``type/subtype`` in lower case and its parameters."""
+
+    essence: str
+    parameters: dict[str, str]
+
+    @classmethod
+    def parse(cls, text: str) -> MediaType:
+        essence, *params = (part.strip() for part in text.split(";"))
+        parsed: dict[str, str] = {}
+        for param in params:
+            name, _, value = param.partition("=")
+            if name:
+                parsed[name.strip().lower()] = value.strip().strip('"')
+        return cls(essence.lower(), parsed)
+
+
+def body_kind(content_type: str | None) -> BodyKind:
+    """The kind of a request body from its ``Content-Type``.
+
+    Raises:
+        ApiError: 415 for a missing or unsupported media type, charset or FHIR version.
+    """
+    where = "http.Content-Type"
+    if not content_type:
+        raise ApiError.issue(
+            415, "not-supported", f"Content-Type is required: one of {ACCEPTED_TYPES}", where
+        )
+    media = MediaType.parse(content_type)
+    kind = next((k for k, types in TYPES.items() if media.essence in types), None)
+    if kind is None:
+        raise ApiError.issue(
+            415,
+            "not-supported",
+            f"unsupported media type {media.essence!r}; send one of {ACCEPTED_TYPES}",
+            where,
+        )
+    charset = media.parameters.get("charset", "utf-8").lower()
+    if charset not in ("utf-8", "utf8"):
+        raise ApiError.issue(415, "not-supported", "the body must be UTF-8 encoded", where)
+    version = media.parameters.get("fhirversion")
+    if version is not None and not _is_supported_version(version):
+        raise ApiError.issue(
+            415,
+            "not-supported",
+            f"fhirVersion {version!r} is not supported; this service reads R4 (4.0) and R4B (4.3)",
+            where,
+        )
+    return kind
+
+
+def _is_supported_version(version: str) -> bool:
+    return any(version == v or version.startswith(v + ".") for v in FHIR_VERSIONS)
+
+
+def answer_type(kind: BodyKind, format_param: str | None, accept: str | None) -> str:
+    """The media type of the answer to a body of ``kind``.
+
+    Raises:
+        ApiError: 406 when ``_format`` or ``Accept`` allows no media type of that kind.
+    """
+    offered = TYPES[kind]
+    if format_param is not None:
+        media = MediaType.parse(format_param.replace(" ", "+"))  # '+' arrives as ' ' in a URL
+        chosen = SHORT_NAMES.get(media.essence, media.essence)
+        if chosen not in offered:
+            raise ApiError.issue(
+                406,
+                "not-supported",
+                f"_format {format_param!r} is not offered for this request; use one of "
+                + ", ".join(offered),
+                "http._format",
+            )
+        return chosen
+    if not accept:
+        return offered[0]
+    for item in accept.split(","):
+        media = MediaType.parse(item)
+        if media.parameters.get("q", "1").strip() in ("0", "0.0", "0.00", "0.000"):
+            continue
+        if media.essence in offered:
+            return media.essence
+        if media.essence in ("*/*", "application/*"):
+            return offered[0]
+    raise ApiError.issue(
+        406,
+        "not-supported",
+        "Accept allows none of the media types offered for this request: " + ", ".join(offered),
+        "http.Accept",
+    )

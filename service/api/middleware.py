@@ -1,0 +1,142 @@
+"""The outermost layer of every HTTP request: correlation id, limits, metrics, log, last resort.
+
+A pure ASGI middleware (no per-request task or body buffering), so that a streamed NDJSON
+answer is timed and counted whole. For each request it
+
+* gives a fresh correlation id (``X-Correlation-ID`` on the answer, in the log line and in a
+  500's diagnostics); a caller's own id is not reused, as it might carry an identifier;
+* refuses an assessment with 429 when ``max_concurrent_requests`` are already in flight in
+  this process (health and metadata routes are never limited, so probes still answer);
+* turns any exception that escaped the app into a 500 OperationOutcome without a traceback,
+  logged with the correlation id, the exception type and its frames, never its text;
+* writes one JSON log line and updates the request metrics.
+"""
+
+from __future__ import annotations
+
+import logging
+import time
+import traceback
+import uuid
+from typing import Any
+
+from starlette.datastructures import MutableHeaders
+from starlette.types import ASGIApp, Message, Receive, Scope, Send
+
+from service.api.errors import outcome, outcome_response
+from service.api.logs import REQUEST_LOGGER
+from service.api.state import RequestRecord, ServiceState
+
+log = logging.getLogger(REQUEST_LOGGER)
+
+ASSESS_PATH = "/fhir/$assess-hypoxaemia"
+ROUTES = frozenset(
+    {
+        ASSESS_PATH,
+        "/fhir/metadata",
+        "/fhir/OperationDefinition/assess-hypoxaemia",
+        "/healthz",
+        "/readyz",
+        "/metrics",
+        "/docs",
+        "/openapi.json",
+    }
+)
+
+
+def route_label(path: str) -> str:
+    """The route for logs and metrics: a known path, or ``other`` (bounded label values)."""
+    return path if path in ROUTES else "other"
+
+
+def frames(exc: BaseException) -> list[str]:
+    """Where an exception passed, as ``file:line function``, without its message or locals."""
+    return [
+        f"{frame.filename.rsplit('/', 2)[-1]}:{frame.lineno} {frame.name}"
+        for frame in traceback.extract_tb(exc.__traceback__)[-8:]
+    ]
+
+
+class RequestMiddleware:
+    """See the module docstring."""
+
+    def __init__(self, app: ASGIApp, service: ServiceState) -> None:
+        self.app = app
+        self.service = service
+
+    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
+        if scope["type"] != "http":
+            await self.app(scope, receive, send)
+            return
+        started = time.perf_counter()
+        record = RequestRecord(uuid.uuid4().hex, scope["method"], route_label(scope["path"]))
+        scope.setdefault("state", {})["record"] = record
+        answered = False
+
+        async def send_with_id(message: Message) -> None:
+            nonlocal answered
+            if message["type"] == "http.response.start":
+                answered = True
+                record.status = message["status"]
+                MutableHeaders(scope=message).append("X-Correlation-ID", record.correlation_id)
+            await send(message)
+
+        service = self.service
+        limited = record.route == ASSESS_PATH
+        try:
+            if limited and service.in_flight >= service.server.max_concurrent_requests:
+                body = outcome(
+                    "throttled",
+                    f"more than {service.server.max_concurrent_requests} assessments in "
+                    "progress; retry shortly (setting OXYRULE_MAX_CONCURRENT_REQUESTS)",
+                )
+                response = outcome_response(429, body, {"Retry-After": "1"})
+                await response(scope, receive, send_with_id)
+                return
+            if limited:
+                service.in_flight += 1
+                service.metrics.in_flight.set(service.in_flight)
+            try:
+                await self.app(scope, receive, send_with_id)
+            finally:
+                if limited:
+                    service.in_flight -= 1
+                    service.metrics.in_flight.set(service.in_flight)
+        except Exception as exc:  # the last resort: no 500 leaves with a traceback
+            log.error(
+                "internal error",
+                extra={
+                    "correlation_id": record.correlation_id,
+                    "route": record.route,
+                    "error_type": type(exc).__name__,
+                    "frames": frames(exc),
+                },
+            )
+            if answered:  # a streamed answer broke off: nothing more can be sent
+                record.status = record.status or 500
+            else:
+                body = outcome(
+                    "exception",
+                    "internal error; nothing about the input was stored. Quote correlation id "
+                    f"{record.correlation_id} when reporting it.",
+                )
+                await outcome_response(500, body)(scope, receive, send_with_id)
+        finally:
+            seconds = time.perf_counter() - started
+            service.metrics.request(record.route, record.method, record.status, seconds)
+            _log_request(record, seconds)
+
+
+def _log_request(record: RequestRecord, seconds: float) -> None:
+    extra: dict[str, Any] = {
+        "correlation_id": record.correlation_id,
+        "method": record.method,
+        "route": record.route,
+        "status": record.status,
+        "duration_ms": round(seconds * 1000, 3),
+        "pattern": record.pattern,
+        "lines": record.lines,
+        "rejected": record.rejected,
+        "bytes_in": record.bytes_in,
+    }
+    log.info("request", extra=extra)

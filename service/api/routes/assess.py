@@ -1,0 +1,137 @@
+"""``POST /fhir/$assess-hypoxaemia``: a Bundle in, the result Bundle out (or NDJSON of each)."""
+
+from __future__ import annotations
+
+from typing import Any
+
+import orjson
+from fastapi import APIRouter, Request, Response
+
+from service.api.body import Line, ndjson_lines, read_bounded
+from service.api.deps import CallerDep, FormatDep, RecordDep, ServiceDep, UnitsDep
+from service.api.errors import ApiError, outcome
+from service.api.media import BodyKind, answer_type, body_kind
+from service.api.middleware import ASSESS_PATH
+from service.api.ndjson import NdjsonAnswer
+from service.api.state import RequestRecord, ServiceState
+from service.api.tally import Tally, tally
+from service.fhir.outcome import BundleError, NotABundleError
+from service.fhir.render import PressureUnit
+
+router = APIRouter(tags=["assessment"])
+
+NO_STORE = {"Cache-Control": "no-store"}
+
+
+def _schema(description: str) -> dict[str, Any]:
+    return {"description": description, "content": {"application/fhir+json": {}}}
+
+
+REQUEST_BODY: dict[str, Any] = {
+    "requestBody": {
+        "required": True,
+        "description": "One FHIR R4/R4B Bundle, or NDJSON with one Bundle per line.",
+        "content": {
+            "application/fhir+json": {"schema": {"type": "object"}},
+            "application/json": {"schema": {"type": "object"}},
+            "application/fhir+ndjson": {"schema": {"type": "string"}},
+            "application/ndjson": {"schema": {"type": "string"}},
+        },
+    }
+}
+RESPONSES: dict[int | str, dict[str, Any]] = {
+    200: {
+        "description": "The result Bundle (NDJSON: one result or OperationOutcome per line)",
+        "content": {"application/fhir+json": {}, "application/fhir+ndjson": {}},
+    },
+    400: _schema("Not JSON, not a Bundle, or a bad parameter (OperationOutcome)"),
+    401: _schema("Authentication required or failed (OperationOutcome)"),
+    406: _schema("No acceptable answer format (OperationOutcome)"),
+    413: _schema("Body over the size limit (OperationOutcome)"),
+    415: _schema("Unsupported Content-Type (OperationOutcome)"),
+    422: _schema("A Bundle that cannot be assessed, each problem located (OperationOutcome)"),
+    429: _schema("Too many assessments in progress; retry (OperationOutcome)"),
+}
+
+
+def _count(service: ServiceState, record: RequestRecord, result: Tally) -> None:
+    if result.pattern is not None:
+        service.metrics.verdict(result.pattern, result.findings)
+    elif result.rejected_code is not None:
+        service.metrics.rejection(result.rejected_code)
+
+
+@router.post(ASSESS_PATH, responses=RESPONSES, openapi_extra=REQUEST_BODY)
+async def assess_hypoxaemia(
+    request: Request,
+    service: ServiceDep,
+    record: RecordDep,
+    _caller: CallerDep,
+    units: UnitsDep,
+    format_: FormatDep = None,
+) -> Response:
+    """Assess the likely mechanism of hypoxaemia of one Bundle (or of each NDJSON line).
+
+    Send the Bundle as the body (`application/fhir+json`). The answer is the result Bundle:
+    GuidanceResponse, Parameters with the verdict, OperationOutcome with findings and the
+    clinical caution, derived Observations. With `application/fhir+ndjson` each line is one
+    Bundle and the answer streams one line per input line, in order; a line that cannot be
+    assessed is answered by an OperationOutcome naming it. Decision support for qualified
+    clinicians, not a diagnosis.
+    """
+    kind = body_kind(request.headers.get("content-type"))
+    media_type = answer_type(kind, format_, request.headers.get("accept"))
+    if kind is BodyKind.NDJSON:
+        return await _ndjson(request, service, record, units, media_type)
+    raw = await read_bounded(request, service.server.max_body_bytes)
+    record.bytes_in = len(raw)
+    try:
+        data = orjson.loads(raw)
+    except orjson.JSONDecodeError as exc:
+        service.metrics.rejection("structure")
+        raise ApiError.issue(
+            400, "structure", f"the body is not JSON ({exc.msg})", "Bundle"
+        ) from exc
+    try:
+        result = service.runtime.assess_bundle(data, pressure_unit=units)
+    except BundleError as exc:
+        status = 400 if isinstance(exc, NotABundleError) else 422
+        service.metrics.rejection(exc.problems[0].code)
+        raise ApiError(status, exc.operation_outcome()) from exc
+    summary = tally(result)
+    record.pattern = summary.pattern
+    _count(service, record, summary)
+    return Response(orjson.dumps(result), media_type=media_type, headers=NO_STORE)
+
+
+async def _ndjson(
+    request: Request,
+    service: ServiceState,
+    record: RequestRecord,
+    units: PressureUnit | None,
+    media_type: str,
+) -> Response:
+    limit = service.server.max_body_bytes
+    lines = ndjson_lines(request.stream(), limit)
+    first: Line | None = await anext(lines, None)
+    if first is None:
+        raise ApiError(400, outcome("required", "the NDJSON body has no lines", "Bundle"))
+    record.lines, record.rejected = 0, 0
+
+    def on_line(result: Tally) -> None:
+        record.lines = (record.lines or 0) + 1
+        if result.pattern is None:
+            record.rejected = (record.rejected or 0) + 1
+        _count(service, record, result)
+
+    return NdjsonAnswer(
+        first,
+        lines,
+        runtime=service.runtime,
+        unit=units,
+        media_type=media_type,
+        limit=limit,
+        correlation_id=record.correlation_id,
+        on_line=on_line,
+        headers=NO_STORE,
+    )

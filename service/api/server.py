@@ -1,0 +1,158 @@
+"""``oxyrule serve``: check the settings, load the rule set once, then run uvicorn.
+
+Start-up refuses, with one clear line on stderr and exit status 1 (never a traceback):
+an unknown ``OXYRULE_*`` variable (a typo would otherwise be ignored), a setting out of its
+range, a broken rule set, site file or code map, and unusable authentication settings.
+With one worker the app built here is served as it is; with more, each worker process builds
+its own from the environment (``app_from_environment``), after this process checked it once.
+"""
+
+from __future__ import annotations
+
+import logging
+import logging.config
+import os
+import sys
+from collections.abc import Mapping
+from pathlib import Path
+from typing import Any
+
+import uvicorn
+from fastapi import FastAPI
+from pydantic import ValidationError
+from pydantic_settings import SettingsError
+
+from service.api.app import create_app
+from service.api.auth import AuthConfigError
+from service.api.logs import SERVER_LOGGER, log_config
+from service.config import ServerSettings, Settings
+from service.engine import RuleSetError
+from service.exceptions import ServiceError
+
+PREFIX = "OXYRULE_"
+EXIT_OK, EXIT_FAILED = 0, 1
+
+
+class StartupError(Exception):
+    """The service cannot start; the message says why and names the setting."""
+
+
+def known_variables() -> set[str]:
+    return {
+        PREFIX + name.upper() for name in (*Settings.model_fields, *ServerSettings.model_fields)
+    }
+
+
+def check_environment(environ: Mapping[str, str]) -> None:
+    """Refuse ``OXYRULE_*`` variables that name no setting."""
+    unknown = sorted(
+        k for k in environ if k.upper().startswith(PREFIX) and k.upper() not in known_variables()
+    )
+    if unknown:
+        raise StartupError(
+            f"unknown setting {', '.join(unknown)}; known: {', '.join(sorted(known_variables()))}"
+        )
+
+
+def _describe(exc: ValidationError, flags: Mapping[str, str]) -> str:
+    lines = []
+    for error in exc.errors(include_url=False, include_input=False):
+        loc = [str(part) for part in error["loc"]]
+        name = loc[0] if loc else ""
+        where = flags.get(name) or (PREFIX + name.upper() if name else "settings")
+        detail = error["msg"].removeprefix("Value error, ")
+        lines.append(f"bad setting {where}: {detail}" if name else detail)
+    return "; ".join(lines)
+
+
+def load_settings(
+    overrides: Mapping[str, Any], flags: Mapping[str, str]
+) -> tuple[Settings, ServerSettings]:
+    """Both settings objects from the environment and the command line's ``overrides``."""
+    check_environment(os.environ)
+    mine = {k: v for k, v in overrides.items() if v is not None}
+    settings_keys = set(Settings.model_fields)
+    try:
+        settings = Settings(**{k: v for k, v in mine.items() if k in settings_keys})
+        server = ServerSettings(**{k: v for k, v in mine.items() if k not in settings_keys})
+    except ValidationError as exc:
+        raise StartupError(_describe(exc, flags)) from None
+    except SettingsError as exc:  # a JSON-valued variable that is not JSON
+        field = str(exc).split('"')[1] if '"' in str(exc) else ""
+        name = PREFIX + field.upper() if field else "an OXYRULE_ variable"
+        raise StartupError(
+            f'bad setting {name}: not valid JSON (a list is written ["a", "b"])'
+        ) from None
+    return settings, server
+
+
+def build(settings: Settings, server: ServerSettings) -> FastAPI:
+    """The app, or a ``StartupError`` naming what is broken."""
+    try:
+        return create_app(settings, server)
+    except RuleSetError as exc:
+        raise StartupError(f"the rule set cannot be loaded: {exc}") from None
+    except (ServiceError, AuthConfigError) as exc:
+        raise StartupError(str(exc)) from None
+    except OSError as exc:
+        raise StartupError(f"cannot read {exc.filename or 'a file'}: {exc.strerror}") from None
+
+
+def app_from_environment() -> FastAPI:
+    """The app of one worker process (uvicorn factory), from ``OXYRULE_*`` alone."""
+    settings, server = load_settings({}, {})
+    logging.config.dictConfig(log_config(server.log_level))
+    return build(settings, server)
+
+
+def serve(
+    *,
+    host: str | None = None,
+    port: int | None = None,
+    workers: int | None = None,
+    rules: Path | None = None,
+) -> int:
+    """Run the service until stopped; the process exit status."""
+    overrides = {"host": host, "port": port, "workers": workers, "rules_dir": rules}
+    names = {"host": "--host", "port": "--port", "workers": "--workers", "rules_dir": "--rules"}
+    flags = {k: flag for k, flag in names.items() if overrides[k] is not None}
+    try:
+        settings, server = load_settings(overrides, flags)
+        logging.config.dictConfig(log_config(server.log_level))
+        app = build(settings, server)
+    except StartupError as exc:
+        sys.stderr.write(f"oxyrule: cannot start: {exc}\n")
+        return EXIT_FAILED
+    service = app.state.service
+    ruleset = service.runtime.ruleset
+    logging.getLogger(SERVER_LOGGER).info(
+        "starting",
+        extra={
+            "host": server.host,
+            "port": server.port,
+            "workers": server.workers,
+            "ruleset": f"{ruleset.id}|{ruleset.version}",
+            "auth": ",".join(service.auth.methods) or "off",
+        },
+    )
+    common: dict[str, Any] = {
+        "host": server.host,
+        "port": server.port,
+        "log_config": log_config(server.log_level),
+        "access_log": False,
+        "server_header": False,
+        "timeout_graceful_shutdown": 10,
+    }
+    if server.workers == 1:
+        uvicorn.run(app, **common)
+    else:
+        # Worker processes read the environment: hand them the command line's choices.
+        if rules is not None:
+            os.environ[PREFIX + "RULES_DIR"] = str(rules)
+        uvicorn.run(
+            "service.api.server:app_from_environment",
+            factory=True,
+            workers=server.workers,
+            **common,
+        )
+    return EXIT_OK

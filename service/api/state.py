@@ -1,0 +1,38 @@
+"""What one app holds for its whole life, and what one request records for its log line."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any
+
+from service.api.auth import Authenticator
+from service.api.metrics import Metrics
+from service.config import ServerSettings
+from service.runtime import Runtime
+
+
+@dataclass(slots=True)
+class ServiceState:
+    """The loaded runtime, the limits, the credentials checker and the metrics of one app."""
+
+    runtime: Runtime
+    server: ServerSettings
+    auth: Authenticator
+    metrics: Metrics = field(default_factory=Metrics)
+    conformance: dict[str, dict[str, Any]] = field(default_factory=dict)
+    in_flight: int = 0
+    draining: bool = False  # set at shutdown: /readyz answers 503 so traffic moves away
+
+
+@dataclass(slots=True)
+class RequestRecord:
+    """What the request log line and the metrics say about one request (no patient data)."""
+
+    correlation_id: str
+    method: str
+    route: str
+    status: int = 0
+    pattern: str | None = None
+    lines: int | None = None
+    rejected: int | None = None
+    bytes_in: int | None = None

@@ -1,0 +1,56 @@
+"""What a result says, in counts: its verdict pattern and its finding codes.
+
+Read from the contract's Parameters resource (contract §3), never from anything else in the
+result, so what reaches the metrics and the request log is a code from a closed set.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from dataclasses import dataclass
+from typing import Any
+
+import orjson
+
+
+@dataclass(frozen=True, slots=True)
+class Tally:
+    """The pattern of one result (None for an OperationOutcome) and its finding codes."""
+
+    pattern: str | None
+    findings: tuple[str, ...] = ()
+    rejected_code: str | None = None  # the first issue code of a refusal
+
+
+def _parameters(result: Mapping[str, Any]) -> list[Any]:
+    for entry in result.get("entry") or ():
+        resource = entry.get("resource") if isinstance(entry, Mapping) else None
+        if isinstance(resource, Mapping) and resource.get("resourceType") == "Parameters":
+            parameters = resource.get("parameter")
+            return parameters if isinstance(parameters, list) else []
+    return []
+
+
+def tally(result: Mapping[str, Any]) -> Tally:
+    """The tally of a result Bundle or of a refusing OperationOutcome."""
+    if result.get("resourceType") == "OperationOutcome":
+        issues = result.get("issue") or [{}]
+        return Tally(None, rejected_code=str(issues[0].get("code", "invalid")))
+    pattern: str | None = None
+    findings: list[str] = []
+    for parameter in _parameters(result):
+        name = parameter.get("name")
+        if name == "pattern":
+            pattern = parameter.get("valueCode")
+        elif name == "finding":
+            findings.extend(
+                part["valueCode"]
+                for part in parameter.get("part", ())
+                if part.get("name") == "code" and "valueCode" in part
+            )
+    return Tally(pattern, tuple(findings))
+
+
+def tally_json(text: bytes) -> Tally:
+    """The tally of a serialised result (an NDJSON output line)."""
+    return tally(orjson.loads(text))

@@ -1,0 +1,216 @@
+"""Bearer authentication over real HTTP: static API keys and JWTs checked against a JWKS."""
+
+from __future__ import annotations
+
+import hashlib
+import hmac
+import json
+import time
+from collections.abc import Callable
+from pathlib import Path
+from typing import Any
+
+import httpx
+import jwt
+import pytest
+from cryptography.hazmat.primitives import serialization
+from cryptography.hazmat.primitives.asymmetric import ec, rsa
+from jwt.algorithms import ECAlgorithm, RSAAlgorithm
+
+from service.api.auth import AuthConfigError, Authenticator
+from service.config import ServerSettings
+from tests.api.conftest import ALTITUDE, ASSESS, FHIR_JSON, issue
+
+Serve = Callable[..., httpx.Client]
+ISSUER, AUDIENCE = "https://auth.hospital.test", "https://oxyrule.hospital.test/fhir"
+API_KEY = "engine-key-7f3a9c2e51d04b8a"
+
+RSA_KEY = rsa.generate_private_key(public_exponent=65537, key_size=2048)
+EC_KEY = ec.generate_private_key(ec.SECP384R1())
+OTHER_RSA_KEY = rsa.generate_private_key(public_exponent=65537, key_size=2048)
+
+
+def public_jwks() -> dict[str, Any]:
+    rsa_jwk = json.loads(RSAAlgorithm.to_jwk(RSA_KEY.public_key()))
+    ec_jwk = json.loads(ECAlgorithm.to_jwk(EC_KEY.public_key()))
+    return {"keys": [rsa_jwk | {"kid": "rsa-1", "use": "sig"}, ec_jwk | {"kid": "ec-1"}]}
+
+
+def digest(key: str) -> str:
+    return "sha256:" + hashlib.sha256(key.encode()).hexdigest()
+
+
+def token(key: Any = RSA_KEY, alg: str = "RS384", kid: str | None = "rsa-1", **claims: Any) -> str:
+    now = int(time.time())
+    body = {"iss": ISSUER, "aud": AUDIENCE, "sub": "engine-7", "exp": now + 300, "iat": now}
+    body.update(claims)
+    headers = {"kid": kid} if kid else {}
+    return jwt.encode({k: v for k, v in body.items() if v is not None}, key, alg, headers)
+
+
+def jwt_settings(**extra: Any) -> dict[str, Any]:
+    return {
+        "jwt_jwks": json.dumps(public_jwks()),
+        "jwt_issuer": ISSUER,
+        "jwt_audience": AUDIENCE,
+        "api_key_hashes": [digest(API_KEY)],
+    } | extra
+
+
+def post(client: httpx.Client, authorization: str | None) -> httpx.Response:
+    headers = FHIR_JSON | ({"Authorization": authorization} if authorization else {})
+    return client.post(ASSESS, content=ALTITUDE.read_bytes(), headers=headers)
+
+
+@pytest.fixture
+def secured(serve: Serve) -> httpx.Client:
+    return serve(**jwt_settings())
+
+
+def refused(response: httpx.Response, code: str, status: int = 401) -> str:
+    assert response.status_code == status, response.text
+    assert response.headers["www-authenticate"].startswith('Bearer realm="oxyrule"')
+    found = issue(response.json())
+    assert found["code"] == code
+    assert found["expression"] == ["http.Authorization"]
+    diagnostics: str = found["diagnostics"]
+    return diagnostics
+
+
+def test_the_operation_is_open_when_no_credentials_are_configured(live: httpx.Client) -> None:
+    assert post(live, None).status_code == 200
+
+
+def test_a_configured_api_key_is_accepted_and_others_refused(secured: httpx.Client) -> None:
+    assert post(secured, f"Bearer {API_KEY}").status_code == 200
+    refused(post(secured, None), "login")
+    diagnostics = refused(post(secured, "Bearer engine-key-wrong"), "security")
+    assert "engine-key-wrong" not in diagnostics
+    refused(post(secured, f"Basic {API_KEY}"), "login")
+    refused(post(secured, "Bearer"), "login")
+
+
+@pytest.mark.parametrize(
+    ("key", "alg", "kid"),
+    [
+        (RSA_KEY, "RS256", "rsa-1"),
+        (RSA_KEY, "RS384", "rsa-1"),
+        (EC_KEY, "ES384", "ec-1"),
+        (EC_KEY, "ES384", None),
+    ],
+)
+def test_a_jwt_signed_by_a_jwks_key_is_accepted(
+    secured: httpx.Client, key: Any, alg: str, kid: str | None
+) -> None:
+    assert post(secured, f"Bearer {token(key, alg, kid)}").status_code == 200
+
+
+@pytest.mark.parametrize(
+    ("make", "code", "words"),
+    [
+        (lambda: token(exp=int(time.time()) - 3600), "expired", "expired"),
+        (lambda: token(aud="https://elsewhere.test"), "security", "Audience"),
+        (lambda: token(iss="https://rogue.test"), "security", "issuer"),
+        (lambda: token(exp=None), "security", "exp"),
+        (lambda: token(OTHER_RSA_KEY), "security", "Signature"),
+        (lambda: token(kid="unknown"), "security", "no key"),
+        (lambda: token(alg="none", key=None), "security", "'none'"),
+        (lambda: token(b"k" * 32, "HS256"), "security", "'HS256'"),
+        (lambda: "not.a.jwt", "security", "neither"),
+    ],
+    ids=[
+        "expired",
+        "audience",
+        "issuer",
+        "no-exp",
+        "bad-signature",
+        "unknown-kid",
+        "alg-none",
+        "hs256",
+        "garbage",
+    ],
+)
+def test_a_bad_jwt_is_refused_with_the_reason(
+    secured: httpx.Client, make: Callable[[], str], code: str, words: str
+) -> None:
+    assert words in refused(post(secured, f"Bearer {make()}"), code)
+
+
+def handmade(header: dict[str, Any], signature: bytes, secret: bytes | None = None) -> str:
+    """A JWT built by hand (PyJWT refuses to sign some of the forgeries tested here)."""
+    now = int(time.time())
+    claims = {"iss": ISSUER, "aud": AUDIENCE, "exp": now + 60}
+    signing_input = (
+        jwt.utils.base64url_encode(json.dumps(header).encode())
+        + b"."
+        + jwt.utils.base64url_encode(json.dumps(claims).encode())
+    )
+    if secret is not None:
+        signature = hmac.new(secret, signing_input, hashlib.sha256).digest()
+    return (signing_input + b"." + jwt.utils.base64url_encode(signature)).decode()
+
+
+def test_an_hmac_token_keyed_with_the_public_key_is_refused(secured: httpx.Client) -> None:
+    # The classic confusion attack: HS256 with the RSA public key (PEM) as the shared secret.
+    pem = RSA_KEY.public_key().public_bytes(
+        serialization.Encoding.PEM, serialization.PublicFormat.SubjectPublicKeyInfo
+    )
+    forged = handmade({"alg": "HS256", "kid": "rsa-1"}, b"", secret=pem)
+    assert "'HS256'" in refused(post(secured, f"Bearer {forged}"), "security")
+
+
+def test_an_ec_token_whose_curve_does_not_fit_the_algorithm_is_refused(
+    secured: httpx.Client,
+) -> None:
+    forged = handmade({"alg": "ES256", "kid": "ec-1"}, b"\x01" * 64)  # the key is P-384
+    assert "no key" in refused(post(secured, f"Bearer {forged}"), "security")
+
+
+def test_a_required_scope_is_enforced_with_403(serve: Serve) -> None:
+    client = serve(**jwt_settings(jwt_required_scope="system/Observation.rs"))
+    assert post(client, f"Bearer {token(scope='system/Observation.rs launch')}").status_code == 200
+    diagnostics = refused(post(client, f"Bearer {token(scope='user/Patient.r')}"), "forbidden", 403)
+    assert "system/Observation.rs" in diagnostics
+    assert post(client, f"Bearer {API_KEY}").status_code == 200  # keys carry no scopes
+
+
+def test_health_metadata_and_metrics_stay_open(secured: httpx.Client) -> None:
+    for path in ("/healthz", "/readyz", "/metrics", "/fhir/metadata", "/openapi.json"):
+        assert secured.get(path).status_code == 200, path
+
+
+def test_a_jwks_file_is_read(tmp_path: Path, serve: Serve) -> None:
+    path = tmp_path / "jwks.json"
+    path.write_text(json.dumps(public_jwks()))
+    settings = jwt_settings(jwt_jwks=None, jwt_jwks_file=path)
+    client = serve(**settings)
+    assert post(client, f"Bearer {token()}").status_code == 200
+
+
+@pytest.mark.parametrize(
+    ("settings", "words"),
+    [
+        ({"jwt_jwks": "{not json"}, "OXYRULE_JWT_JWKS: the JWKS is not JSON"),
+        ({"jwt_jwks": '{"keys": []}'}, "non-empty 'keys'"),
+        ({"jwt_jwks": '{"keys": [{"kty": "oct", "k": "c2VjcmV0"}]}'}, "private or symmetric"),
+        ({"jwt_jwks": '{"keys": [{"kty": "RSA", "n": "x"}]}'}, "not a usable key"),
+        ({"jwt_jwks": None, "jwt_jwks_file": Path("/nonexistent/jwks.json")}, "cannot read"),
+    ],
+)
+def test_unusable_jwks_settings_stop_the_app(settings: dict[str, Any], words: str) -> None:
+    with pytest.raises(AuthConfigError, match=words):
+        Authenticator.from_settings(ServerSettings(**jwt_settings(**settings)))
+
+
+@pytest.mark.parametrize(
+    ("settings", "words"),
+    [
+        ({"api_key_hashes": ["plain-key"]}, "OXYRULE_API_KEY_HASHES"),
+        ({"jwt_jwks": "{}"}, "OXYRULE_JWT_ISSUER and OXYRULE_JWT_AUDIENCE"),
+        ({"jwt_algorithms": ["HS256"]}, "jwt_algorithms"),
+        ({"jwt_algorithms": ["none"]}, "jwt_algorithms"),
+    ],
+)
+def test_bad_authentication_settings_are_refused(settings: dict[str, Any], words: str) -> None:
+    with pytest.raises(ValueError, match=words):
+        ServerSettings(**settings)
