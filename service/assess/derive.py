@@ -347,12 +347,26 @@ class _Builder:
         if pao2 is None or hb is None:
             return
         sao2_m = _value(self.gas.get(Quantity.ARTERIAL_SO2))
-        sao2 = sao2_m if sao2_m is not None else saturation.saturation_from_po2(po2_mmhg=pao2)
+        functional = sao2_m if sao2_m is not None else saturation.saturation_from_po2(po2_mmhg=pao2)
         saturation_note = "measured SaO2" if sao2_m is not None else "SaO2 from PaO2 (Severinghaus)"
+        cohb = _value(self.gas.get(Quantity.CARBOXYHAEMOGLOBIN)) or 0.0
+        methb = _value(self.gas.get(Quantity.METHAEMOGLOBIN)) or 0.0
+        if cohb or methb:
+            saturation_note += ", times (1 − COHb − MetHb)"
+
+        def carried(functional_saturation: float) -> float:
+            return oxygen_content.fractional_saturation(
+                functional_saturation=functional_saturation,
+                carboxyhaemoglobin=cohb,
+                methaemoglobin=methb,
+            )
+
         inputs = (
             self.source(Quantity.HAEMOGLOBIN)
             + self.source(Quantity.ARTERIAL_SO2)
             + self.source(Quantity.ARTERIAL_PO2)
+            + self.source(Quantity.CARBOXYHAEMOGLOBIN)
+            + self.source(Quantity.METHAEMOGLOBIN)
         )
         hufner = s.hufner_ml_per_g
         arterial = self.derive(
@@ -362,17 +376,22 @@ class _Builder:
             f"CaO2 = {hufner:g} × Hb × SaO2 + 0.003 × PaO2 ({saturation_note})",
             inputs,
             lambda: oxygen_content.oxygen_content_ml_dl(
-                haemoglobin_g_dl=hb, saturation=sao2, po2_mmhg=pao2, hufner_ml_per_g=hufner
+                haemoglobin_g_dl=hb,
+                saturation=carried(functional),
+                po2_mmhg=pao2,
+                hufner_ml_per_g=hufner,
             ),
         )
         alveolar = self.out.number("alveolar_po2")
         if arterial is None or alveolar is None or alveolar <= pao2:
             return
-        capillary = oxygen_content.end_capillary_content_ml_dl(
+        capillary_saturation = oxygen_content.end_capillary_saturation(
+            alveolar_po2_mmhg=alveolar, arterial_po2_mmhg=pao2, arterial_saturation=sao2_m
+        )
+        capillary = oxygen_content.oxygen_content_ml_dl(
             haemoglobin_g_dl=hb,
-            alveolar_po2_mmhg=alveolar,
-            arterial_po2_mmhg=pao2,
-            arterial_saturation=sao2_m,
+            saturation=carried(capillary_saturation),
+            po2_mmhg=alveolar,
             hufner_ml_per_g=hufner,
         )
         venous_so2 = _value(self.gas.get(Quantity.MIXED_VENOUS_SO2))
@@ -380,7 +399,7 @@ class _Builder:
         if venous_so2 is not None:
             venous_content: float | None = oxygen_content.oxygen_content_ml_dl(
                 haemoglobin_g_dl=hb,
-                saturation=venous_so2,
+                saturation=carried(venous_so2),
                 po2_mmhg=venous_po2 if venous_po2 is not None else 40.0,
                 hufner_ml_per_g=hufner,
             )

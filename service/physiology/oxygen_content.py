@@ -45,6 +45,32 @@ def oxygen_content_ml_dl(
     return hufner_ml_per_g * haemoglobin_g_dl * saturation + solubility_ml_dl_per_mmhg * po2_mmhg
 
 
+def fractional_saturation(
+    *,
+    functional_saturation: float,
+    carboxyhaemoglobin: float = 0.0,
+    methaemoglobin: float = 0.0,
+) -> float:
+    """Fraction of *total* haemoglobin carrying O2 (FO2Hb) from the functional saturation.
+
+        FO2Hb = sO2 × (1 − FCOHb − FMetHb)
+
+    sO2 = O2Hb / (O2Hb + HHb) is what the dissociation curve and pulse oximetry give (and what
+    LOINC 2708-6 names); the content equation needs O2Hb / total Hb, so carboxy- and
+    methaemoglobin must come off. Definitions: co-oximetry fractions (standards.md §1.2 note;
+    common practice). All arguments are fractions.
+
+    Raises:
+        ImpossibleValueError: a fraction outside 0–1, or COHb + MetHb above 1.
+    """
+    require_possible("functional_saturation", functional_saturation, *FRACTION, "1")
+    require_possible("carboxyhaemoglobin", carboxyhaemoglobin, *FRACTION, "1")
+    require_possible("methaemoglobin", methaemoglobin, *FRACTION, "1")
+    available = 1.0 - carboxyhaemoglobin - methaemoglobin
+    require_possible("1 - carboxyhaemoglobin - methaemoglobin", available, *FRACTION, "1")
+    return functional_saturation * available
+
+
 def end_capillary_saturation(
     *, alveolar_po2_mmhg: float, arterial_po2_mmhg: float, arterial_saturation: float | None
 ) -> float:

@@ -195,3 +195,16 @@ def test_content_rejects_impossible_haemoglobin_and_hufner_factor() -> None:
         oxygen_content_ml_dl(
             haemoglobin_g_dl=15.0, saturation=0.97, po2_mmhg=90.0, hufner_ml_per_g=2.0
         )
+
+
+def test_fractional_saturation_takes_dyshaemoglobins_off_the_functional_value() -> None:
+    # Co-oximetry definitions (common practice): FO2Hb = sO2 × (1 − FCOHb − FMetHb).
+    # sO2 0.975 with COHb 18 % leaves 0.975 × 0.82 = 0.7995 of total Hb carrying O2 [calc].
+    from service.physiology.oxygen_content import fractional_saturation
+
+    assert fractional_saturation(
+        functional_saturation=0.975, carboxyhaemoglobin=0.18
+    ) == pytest.approx(0.7995)
+    assert fractional_saturation(functional_saturation=0.9) == 0.9
+    with pytest.raises(ImpossibleValueError):
+        fractional_saturation(functional_saturation=0.9, carboxyhaemoglobin=0.7, methaemoglobin=0.5)
