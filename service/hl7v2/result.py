@@ -1,0 +1,165 @@
+"""The assessment as an ORU^R01 result message, for systems that file results from v2 only.
+
+Layout (one order group, filled by us as the filler):
+
+* ``MSH`` sender/receiver swapped, ``ORU^R01^ORU_R01``; the original ``PID`` (re-encoded in
+  the standard encoding characters) so the receiver can file the result;
+* ``OBR`` with OBR-2 the placer order number of the message assessed, OBR-3 the decision id,
+  OBR-4 our service code, OBR-7 the time of the index gas, OBR-25 ``F``; an order-level ``NTE``
+  with the clinical caution;
+* one NM ``OBX`` per derived value of the index gas, in the contract's order, coded with LOINC
+  where a term exists (A-a gradient 19991-9, P/F 50984-4, a/A 78354-8; standards.md §1.8) and
+  with our own code system otherwise; the A-a gradient with its age limit (OBX-7) and flag
+  (OBX-8 H or N); the equation in OBX-17;
+* one coded ``OBX`` for the pattern, one per mechanism (sub-id 1.n) with its grade, an ``NTE``
+  with the rationale and one with the discriminator; one coded ``OBX`` per finding
+  (sub-id 2.n) with an ``NTE`` giving severity and message.
+
+Numbers and units are those of the FHIR result (``render.quantity``): pressures in mm[Hg]
+unless kPa is asked for. Pure: the clock and the control id may be given.
+"""
+
+from __future__ import annotations
+
+from datetime import UTC, datetime
+
+from service.assess.derive import Derived
+from service.assess.result import CAUTION, Assessment
+from service.fhir.render import OBSERVATION_CODES, QUANTITY_ORDER, PressureUnit, quantity
+from service.hl7v2 import er7, tables
+from service.hl7v2.ack import reply_header
+from service.hl7v2.header import version_tuple
+from service.hl7v2.message import V2Message
+from service.hl7v2.times import format_dtm
+
+LOINC_V2 = "LN"
+SERVICE_CODE = ("hypoxaemia-mechanism-assessment", "Hypoxaemia mechanism assessment")
+
+DISPLAYS: dict[str, str] = {
+    "barometric-pressure": "Barometric pressure used",
+    "water-vapour-pressure": "Water vapour pressure at body temperature",
+    "fio2": "Inspired oxygen fraction used",
+    "inspired-po2": "Inspired oxygen partial pressure",
+    "alveolar-po2": "Alveolar oxygen partial pressure (alveolar gas equation)",
+    "aa-gradient": OBSERVATION_CODES["aa-gradient"][1],
+    "aa-gradient-upper-limit": "A-a gradient upper limit for age",
+    "a-a-ratio": OBSERVATION_CODES["a-a-ratio"][1],
+    "pf-ratio": OBSERVATION_CODES["pf-ratio"][1],
+    "sf-ratio": "Oxygen saturation by pulse oximetry / inspired oxygen fraction",
+    "arterial-o2-content": "Arterial oxygen content",
+    "shunt-fraction": "Shunt fraction (venous admixture) estimate",
+    "imputed-pao2": "Arterial PO2 imputed from SpO2",
+    "expected-hco3": "Expected bicarbonate for the PaCO2",
+}
+MECHANISMS = {
+    "low-inspired-oxygen": "Low inspired oxygen",
+    "hypoventilation": "Hypoventilation",
+    "diffusion-limitation": "Diffusion limitation",
+    "vq-mismatch": "Ventilation-perfusion mismatch",
+    "shunt": "Shunt",
+}
+PATTERNS = {
+    "no-hypoxaemia": "No hypoxaemia",
+    "single": "Single mechanism",
+    "mixed": "Mixed mechanisms",
+    "indeterminate": "Indeterminate",
+    "not-classifiable": "Not classifiable",
+}
+
+
+class _Writer:
+    """Numbers the OBX and NTE segments as they are added."""
+
+    def __init__(self, coded: str, when: str) -> None:
+        self.coded, self.when = coded, when
+        self.segments: list[str] = []
+        self.obx_count = 0
+        self.nte_count = 0
+
+    def obx(self, value_type: str, code: str, value: str, sub_id: str = "", **more: str) -> None:
+        self.obx_count += 1
+        self.nte_count = 0
+        fields = [str(self.obx_count), value_type, code, sub_id, value]
+        fields += [more.get("unit", ""), more.get("range", ""), more.get("flag", "")]
+        fields += ["", "", "F", "", "", self.when, "", "", more.get("method", "")]
+        self.segments.append(er7.segment("OBX", *fields))
+
+    def note(self, text: str) -> None:
+        self.nte_count += 1
+        self.segments.append(er7.segment("NTE", str(self.nte_count), "L", er7.escape(text)))
+
+    def coded_obx(self, code: str, value: str, sub_id: str = "") -> None:
+        self.obx(self.coded, code, value, sub_id)
+
+
+def _derived(w: _Writer, name: str, d: Derived, a: Assessment, unit: PressureUnit) -> None:
+    shown = quantity(name, d.value, d.unit, unit)
+    loinc = OBSERVATION_CODES.get(name, (None, ""))[0]
+    code = (
+        er7.components(loinc, DISPLAYS[name], LOINC_V2)
+        if loinc
+        else er7.components(name, DISPLAYS[name], tables.DERIVED_SYSTEM)
+    )
+    more = {
+        "unit": er7.components(shown["code"], shown["unit"], "UCUM"),
+        "method": er7.components("", d.method),
+    }
+    limit = a.index.derived.get("aa-gradient-upper-limit")
+    if name == "aa-gradient" and limit is not None:
+        bound = quantity("aa-gradient-upper-limit", limit.value, limit.unit, unit)
+        more["range"] = er7.escape(f"<={er7.number(bound['value'])}")
+        more["flag"] = "H" if d.value > limit.value else "N"
+    w.obx("NM", code, er7.number(shown["value"]), **more)
+
+
+def oru_result(
+    message: V2Message,
+    assessment: Assessment,
+    *,
+    pressure_unit: PressureUnit = "mm[Hg]",
+    now: datetime | None = None,
+    control_id: str | None = None,
+) -> str:
+    """The ORU^R01 carrying ``assessment`` of ``message`` back to its sender."""
+    a = assessment
+    now = now or datetime.now(UTC)
+    msh, version = reply_header(message, ("ORU", "R01", "ORU_R01"), now=now, control_id=control_id)
+    coded = "CWE" if version_tuple(version) >= (2, 5) else "CE"
+    index_time = a.index.gas.time
+    when = format_dtm(index_time) if index_time is not None else ""
+    segments = [msh]
+    pids = message.all("PID")
+    if pids:
+        segments.append(pids[0].reencoded())
+    obrs = message.all("OBR")
+    placer = er7.components(*obrs[0].components(2)) if obrs else ""
+    service = er7.components(*SERVICE_CODE, tables.DERIVED_SYSTEM)
+    obr = ["1", placer, er7.components(a.decision_id, tables.APPLICATION), service]
+    obr += ["", "", when] + [""] * 14 + [format_dtm(now), "", "", "F"]
+    segments.append(er7.segment("OBR", *obr))
+    segments.append(er7.segment("NTE", "1", "L", er7.escape(CAUTION)))
+    w = _Writer(coded, when)
+    for name in QUANTITY_ORDER:
+        if (d := a.index.derived.get(name)) is not None:
+            _derived(w, name, d, a, pressure_unit)
+    assessment_code = er7.components(
+        "hypoxaemia-mechanism-assessment", "Likely mechanism of hypoxaemia", tables.DERIVED_SYSTEM
+    )
+    pattern = er7.components(a.pattern, PATTERNS.get(a.pattern, a.pattern), tables.PATTERN_SYSTEM)
+    w.coded_obx(assessment_code, pattern, "1")
+    if a.data_requested:
+        w.note("More data would settle it: " + ", ".join(a.data_requested))
+    for n, m in enumerate(a.mechanisms, start=1):
+        mechanism = er7.components(m.code, MECHANISMS.get(m.code, m.code), tables.MECHANISM_SYSTEM)
+        grade = er7.components(m.grade, m.grade.capitalize(), tables.GRADE_SYSTEM)
+        w.coded_obx(mechanism, grade, f"1.{n}")
+        w.note(m.rationale)
+        if m.discriminator:
+            w.note("Would settle it: " + m.discriminator)
+    finding_code = er7.components(
+        "finding", "Data-quality or context finding", tables.DERIVED_SYSTEM
+    )
+    for n, f in enumerate(a.findings, start=1):
+        w.coded_obx(finding_code, er7.components(f.code, "", tables.FINDING_SYSTEM), f"2.{n}")
+        w.note(f"{f.severity}: {f.message}")
+    return er7.message(segments + w.segments)
