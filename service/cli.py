@@ -62,10 +62,35 @@ def _assess(args: argparse.Namespace) -> int:
                 progress.step()
             progress.close()
         else:
-            text, rejected = answer(Runtime.load(settings), stream.read(), "Bundle", unit)
+            from service.hl7v2.handle import answer_v2
+
+            raw, runtime = stream.read(), Runtime.load(settings)
+            # An HL7 v2 message (MSH first, or MLLP-framed) is told from a Bundle by content.
+            text, rejected = answer_v2(runtime, raw, unit) or answer(runtime, raw, "Bundle", unit)
             out.write(text + b"\n")
     out.flush()
     return EXIT_REJECTED if rejected else EXIT_OK
+
+
+def _mllp(args: argparse.Namespace) -> int:
+    import logging
+
+    from service.config import Settings
+    from service.hl7v2.mllp import run_mllp
+    from service.runtime import Runtime
+
+    runtime = Runtime.load(Settings(rules_dir=args.rules) if args.rules else Settings())
+    logging.basicConfig(
+        level=logging.INFO, format="%(asctime)s %(levelname)s %(name)s: %(message)s"
+    )
+    run_mllp(
+        runtime,
+        args.host,
+        args.port,
+        max_frame_bytes=args.max_frame_bytes,
+        idle_timeout_s=args.idle_timeout,
+    )
+    return EXIT_OK
 
 
 def _rules_dir(args: argparse.Namespace) -> Path:
@@ -179,9 +204,12 @@ def build_parser() -> argparse.ArgumentParser:
     serve.add_argument("--rules", type=Path, help="rule directory (default: OXYRULE_RULES_DIR)")
     serve.set_defaults(handler=_serve)
     assess = commands.add_parser(
-        "assess", help="assess a FHIR Bundle (JSON), or NDJSON of Bundles; '-' reads stdin"
+        "assess",
+        help="assess a FHIR Bundle (JSON), NDJSON of Bundles or an HL7 v2 ORU^R01; '-' is stdin",
     )
-    assess.add_argument("path", help="a Bundle JSON file, an NDJSON file, or - for stdin")
+    assess.add_argument(
+        "path", help="a Bundle JSON file, an NDJSON file, an HL7 v2 message, or - for stdin"
+    )
     assess.add_argument("--ndjson", action="store_true", help="read stdin as NDJSON")
     assess.add_argument("--rules", type=Path, help="rule directory (default: the shipped set)")
     assess.add_argument(
@@ -194,6 +222,19 @@ def build_parser() -> argparse.ArgumentParser:
         "--workers", type=int, default=1, metavar="N", help="processes for NDJSON input"
     )
     assess.set_defaults(handler=_assess)
+    mllp = commands.add_parser(
+        "mllp", help="listen for HL7 v2 ORU^R01 over MLLP (TCP) and answer each with an ACK"
+    )
+    mllp.add_argument("--port", type=int, required=True, help="TCP port (2575 is HL7's)")
+    mllp.add_argument("--host", default="127.0.0.1", help="address to bind (default: 127.0.0.1)")
+    mllp.add_argument("--rules", type=Path, help="rule directory (default: the shipped set)")
+    mllp.add_argument(
+        "--max-frame-bytes", type=int, default=1024 * 1024, metavar="N", help="largest message"
+    )
+    mllp.add_argument(
+        "--idle-timeout", type=float, default=300.0, metavar="S", help="close idle connections"
+    )
+    mllp.set_defaults(handler=_mllp)
     test = commands.add_parser("test", help="run expected-outcome fixtures against the rules")
     test.add_argument("fixtures", nargs="*", help="fixture directories or *.expected.yaml files")
     test.add_argument("--rules", type=Path, help="rule directory (default: the shipped set)")
