@@ -1,0 +1,364 @@
+"""A self-contained HTML report of a fixture run (``oxyrule test --html FILE``).
+
+One offline file: inline CSS, charts as inline SVG, no scripts, no external fonts or links to
+fetch. Every text is escaped. The same results give the same bytes: no clock, no decision ids.
+Patient identifiers are never shown (no reference, no birth date); ages appear as numbers.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterable
+from html import escape
+
+from service import __version__
+from service.assess.result import CAUTION, Assessment, Finding, MechanismVerdict
+from service.physiology.constants import WATER_VAPOUR_TEXTBOOK_MMHG
+from service.runtime import Runtime
+
+from .cascade import Cascade, CascadeInput, build_cascade, cascade_svg, signed
+from .expectations import Mismatch
+from .runner import CaseResult, summary_line
+
+MECHANISM_NAMES = {
+    "low-inspired-oxygen": "Low inspired oxygen",
+    "hypoventilation": "Hypoventilation",
+    "diffusion-limitation": "Diffusion limitation",
+    "vq-mismatch": "V/Q mismatch",
+    "shunt": "Shunt",
+}
+STATUS_WORDS = {
+    "passed": ("✓", "passed"),
+    "failed": ("✗", "FAILED"),
+    "known-gap": ("◐", "known gap (expected failure)"),
+    "gap-closed": ("!", "gap closed: the known gap now passes"),
+}
+UNIT_DISPLAY = {"mm[Hg]": "mmHg", "1": "", "Cel": "°C"}
+
+CSS = """
+:root { --ink: #1f2a33; --muted: #5a6670; --rule: #d5dadf; --paper: #fbfaf7;
+  --pass: #2f6b3a; --fail: #9b1c2c; --gap: #7a5a12; }
+* { box-sizing: border-box; }
+body { margin: 0; background: var(--paper); color: var(--ink);
+  font: 15px/1.45 system-ui, -apple-system, "Segoe UI", Roboto, "DejaVu Sans", sans-serif; }
+header, main, footer { max-width: 1080px; margin: 0 auto; padding: 0 1.2rem; }
+header { padding-top: 1.2rem; }
+h1 { font-size: 1.5rem; margin: 0 0 .4rem; }
+h2 { font-size: 1.2rem; margin: 0 0 .4rem; }
+h3 { font-size: 1rem; margin: 1.1rem 0 .35rem; }
+.caution { border: 2px solid var(--ink); background: #fff; padding: .55rem .8rem;
+  margin: .6rem 0 1rem; }
+dl.meta { display: grid; grid-template-columns: max-content 1fr; gap: .15rem 1rem; margin: 0; }
+dl.meta dt { color: var(--muted); }
+dl.meta dd { margin: 0; }
+code, .hash { font-family: ui-monospace, "DejaVu Sans Mono", monospace; font-size: .88em; }
+.hash { overflow-wrap: anywhere; }
+code.rule { white-space: nowrap; }
+table { border-collapse: collapse; width: 100%; margin: .3rem 0 .6rem; background: #fff; }
+caption { text-align: left; color: var(--muted); font-size: .9rem; padding: .2rem 0; }
+th, td { border: 1px solid var(--rule); padding: .3rem .5rem; text-align: left;
+  vertical-align: top; }
+th { background: #eef1f3; font-weight: 600; }
+td.num { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
+section.case { background: #fff; border: 1px solid var(--rule); border-left-width: 6px;
+  padding: .9rem 1rem; margin: 1.2rem 0; }
+section.case.st-passed { border-left-color: var(--pass); }
+section.case.st-failed { border-left-color: var(--fail); border-left-style: double;
+  border-left-width: 8px; }
+section.case.st-known-gap, section.case.st-gap-closed { border-left-color: var(--gap);
+  border-left-style: dashed; }
+.status { font-weight: 700; }
+.status.st-failed { color: var(--fail); }
+.status.st-passed { color: var(--pass); }
+.status.st-known-gap, .status.st-gap-closed { color: var(--gap); }
+.grade { font-weight: 700; white-space: nowrap; }
+.grade-likely { text-decoration: underline; }
+.muted { color: var(--muted); }
+details summary { cursor: pointer; color: var(--muted); }
+details ul { margin: .2rem 0; padding-left: 1.2rem; font-size: .9em; }
+figure { margin: .4rem 0; }
+figure svg { display: block; width: 100%; max-width: 820px; height: auto; }
+figcaption { font-size: .9rem; color: var(--muted); max-width: 820px; }
+figcaption ul { margin: .2rem 0; padding-left: 1.2rem; }
+footer { color: var(--muted); font-size: .85rem; padding-bottom: 2rem; }
+a { color: #1d4f78; }
+"""
+
+
+def _e(text: object) -> str:
+    return escape(str(text))
+
+
+def _unit(unit: str) -> str:
+    return UNIT_DISPLAY.get(unit, unit)
+
+
+def _number(value: float, unit: str) -> str:
+    if unit == "1":
+        return f"{value:.2f}" if abs(value) < 10 else f"{value:.0f}"
+    if unit in ("mm[Hg]", "%", "mL/dL", "mmol/L", "Cel"):
+        return f"{value:.1f}"
+    return f"{value:.4g}"
+
+
+def _mmhg(value: float | None) -> str:
+    return "—" if value is None else f"{value:.1f}"
+
+
+def _signed(value: float | None) -> str:
+    return "—" if value is None else signed(value)
+
+
+def _table(
+    caption: str, headers: Iterable[str], rows: Iterable[Iterable[str]], *, numeric: set[int]
+) -> str:
+    """A table; cells are already-escaped HTML. ``numeric`` columns are right-aligned."""
+    head = "".join(f'<th scope="col">{_e(h)}</th>' for h in headers)
+    body = []
+    for row in rows:
+        cells = [
+            f'<td class="num">{cell}</td>' if i in numeric else f"<td>{cell}</td>"
+            for i, cell in enumerate(row)
+        ]
+        body.append("<tr>" + "".join(cells) + "</tr>")
+    return (
+        f"<table><caption>{_e(caption)}</caption><thead><tr>{head}</tr></thead>"
+        f"<tbody>{''.join(body)}</tbody></table>"
+    )
+
+
+def _status(result: CaseResult) -> str:
+    mark, word = STATUS_WORDS.get(result.status, ("", result.status))
+    return (
+        f'<span class="status st-{_e(result.status)}">'
+        f'<span aria-hidden="true">{mark} </span>{_e(word)}</span>'
+    )
+
+
+def _likely(a: Assessment | None) -> str:
+    if a is None:
+        return '<span class="muted">no assessment</span>'
+    names = [MECHANISM_NAMES.get(m.code, m.code) for m in a.mechanisms if m.grade == "likely"]
+    return _e(", ".join(names)) if names else '<span class="muted">none graded likely</span>'
+
+
+def _summary(results: list[CaseResult]) -> str:
+    rows = []
+    for i, r in enumerate(results, 1):
+        a = r.assessment
+        rows.append(
+            [
+                f'<a href="#case-{i}">{_e(r.case.name)}</a>',
+                _status(r),
+                _e(a.pattern) if a else '<span class="muted">input rejected</span>',
+                _likely(a),
+                str(len(a.findings)) if a else "—",
+            ]
+        )
+    headers = ["Case", "Status", "Pattern", "Likely mechanisms", "Findings"]
+    caption = "Every case of the run, in name order."
+    return _table(caption, headers, rows, numeric={4})
+
+
+def _mismatches(rows: list[Mismatch]) -> str:
+    body = [[_e(m.what), _e(m.expected), _e(m.got), _e(_unit(m.unit))] for m in rows]
+    caption = "What the expectation file asked for and what the assessment gave."
+    return "<h3>Mismatches</h3>" + _table(
+        caption, ["What", "Expected", "Got", "Unit"], body, numeric=set()
+    )
+
+
+def _mechanism_row(m: MechanismVerdict) -> list[str]:
+    rationale = _e(m.rationale)
+    if m.trace:
+        items = "".join(f"<li>{_e(t)}</li>" for t in m.trace)
+        rationale += (
+            f"<details><summary>Conditions evaluated ({len(m.trace)})</summary>"
+            f"<ul>{items}</ul></details>"
+        )
+    return [
+        _e(MECHANISM_NAMES.get(m.code, m.code)),
+        f'<span class="grade grade-{_e(m.grade)}">{_e(m.grade)}</span>',
+        rationale,
+        "<br>".join(f'<code class="rule">{_e(rule)}</code>' for rule in m.rules) or "—",
+        _e(m.discriminator) if m.discriminator else '<span class="muted">—</span>',
+    ]
+
+
+def _verdict(a: Assessment) -> str:
+    meta = (
+        '<dl class="meta">'
+        f"<dt>Pattern</dt><dd>{_e(a.pattern)}</dd>"
+        f"<dt>Hypoxaemia</dt><dd>{_e(a.hypoxaemia)}</dd>"
+        f"<dt>Result status</dt><dd>{_e(a.status)}</dd>"
+    )
+    if a.data_requested:
+        asked = ", ".join(f"<code>{_e(f)}</code>" for f in a.data_requested)
+        meta += f"<dt>Data that would help</dt><dd>{asked}</dd>"
+    meta += "</dl>"
+    headers = ["Mechanism", "Grade", "Rationale", "Deciding rules", "What would settle it"]
+    table = _table(
+        "The five mechanisms, each graded in words (likely, possible, unlikely, not-assessable).",
+        headers,
+        (_mechanism_row(m) for m in a.mechanisms),
+        numeric=set(),
+    )
+    return "<h3>Verdict</h3>" + meta + table
+
+
+def _findings(findings: list[Finding]) -> str:
+    if not findings:
+        return '<h3>Findings</h3><p class="muted">No findings.</p>'
+    rows = [
+        [
+            _e(f.severity),
+            f"<code>{_e(f.code)}</code>",
+            _e(f.message),
+            f'<code class="rule">{_e(f.rule)}</code>' if f.rule else "—",
+        ]
+        for f in findings
+    ]
+    caption = "Data-quality and context findings, with the rule that raised each."
+    return "<h3>Findings</h3>" + _table(
+        caption, ["Severity", "Code", "Message", "Rule"], rows, numeric=set()
+    )
+
+
+def _numbers(a: Assessment) -> str:
+    derived = a.index.derived
+    if not derived:
+        return '<h3>Key numbers</h3><p class="muted">No derived values.</p>'
+    rows = [
+        [f"<code>{_e(name)}</code>", _e(_number(d.value, d.unit)), _e(_unit(d.unit)), _e(d.method)]
+        for name, d in derived.items()
+    ]
+    caption = "Derived values of the index gas, in canonical units, with how each was computed."
+    return "<h3>Key numbers</h3>" + _table(
+        caption, ["Value", "Result", "Unit", "Method"], rows, numeric={1}
+    )
+
+
+def cascade_input(a: Assessment, runtime: Runtime) -> CascadeInput:
+    """The numbers of the index gas the cascade chart needs."""
+    g = a.index
+    ph2o = g.derived.get("water-vapour-pressure")
+    return CascadeInput(
+        fio2=g.number("fio2"),
+        barometric_mmhg=g.number("barometric_pressure"),
+        water_vapour_mmhg=WATER_VAPOUR_TEXTBOOK_MMHG if ph2o is None else ph2o.value,
+        respiratory_quotient=runtime.settings.respiratory_quotient,
+        age_years=g.number("age"),
+        inspired_po2=g.number("inspired_po2"),
+        alveolar_po2=g.number("alveolar_po2"),
+        arterial_po2=g.number("arterial_po2"),
+        arterial_pco2=g.number("arterial_pco2"),
+        mixed_venous_po2=g.number("mixed_venous_po2"),
+        sea_level_inspired_po2=g.number("sea_level_inspired_po2"),
+    )
+
+
+def _cascade_table(cascade: Cascade) -> str:
+    rows = []
+    previous: float | None = None
+    for s in cascade.stages:
+        d = s.difference
+        # Mixed venous is after the tissues took their share: not a gas-exchange step.
+        gas_exchange = s.key != "mixed-venous"
+        step = d - previous if d is not None and previous is not None and gas_exchange else None
+        rows.append(
+            [
+                _e(f"{s.label} ({s.symbol})"),
+                _mmhg(s.patient),
+                _mmhg(s.normal),
+                _signed(d),
+                _signed(step),
+            ]
+        )
+        previous = d if d is not None else previous
+    headers = ["Stage", "Patient (mmHg)", "Normal (mmHg)", "Patient − normal", "Change at step"]
+    caption = (
+        "The chart's numbers. 'Change at step' is how much the gap changed (negative: oxygen "
+        "lost at that step) since the previous stage with both values; mixed venous PO2 follows "
+        "tissue extraction, not gas exchange, so it has none."
+    )
+    return _table(caption, headers, rows, numeric={1, 2, 3, 4})
+
+
+def _cascade(a: Assessment, runtime: Runtime, index: int, name: str) -> str:
+    cascade = build_cascade(cascade_input(a, runtime))
+    notes = "".join(f"<li>{_e(n)}</li>" for n in cascade.notes)
+    others = len(a.gases) - 1
+    if others > 0:
+        plural = "gas is" if others == 1 else "gases are"
+        notes += (
+            f"<li>The index (latest) gas is drawn; {others} earlier arterial {plural} not.</li>"
+        )
+    if not cascade.drawable:
+        return f'<h3>Oxygen cascade</h3><p class="muted">No PO2 to draw.</p><ul>{notes}</ul>'
+    caption = (
+        f"<figcaption>Oxygen cascade of the index gas (solid line, circles) against the normal "
+        f"cascade (dashed line, squares) for {_e(cascade.conditions)}. Bold signed numbers: "
+        f"patient − normal PO2 at that stage, in mmHg.<ul>{notes}</ul></figcaption>"
+    )
+    svg = cascade_svg(cascade, title=f"Oxygen cascade: {name}", chart_id=f"cascade-{index}")
+    return f"<h3>Oxygen cascade</h3><figure>{svg}{caption}</figure>" + _cascade_table(cascade)
+
+
+def _case(result: CaseResult, runtime: Runtime, index: int) -> str:
+    case = result.case
+    parts = [
+        f'<section class="case st-{_e(result.status)}" id="case-{index}" '
+        f'aria-labelledby="case-{index}-h">',
+        f'<h2 id="case-{index}-h">{_e(case.name)}</h2>',
+        f"<p>Status: {_status(result)}</p>",
+        f"<p>{_e(case.outcome.description)}</p>",
+    ]
+    if case.outcome.known_gap:
+        parts.append(f"<p><strong>Known gap:</strong> {_e(case.outcome.known_gap)}</p>")
+    if result.status == "gap-closed":
+        parts.append(
+            "<p><strong>The known gap now passes:</strong> remove <code>known_gap</code>.</p>"
+        )
+    if result.error is not None:
+        parts.append(f"<p><strong>Input rejected:</strong> {_e(result.error)}</p>")
+    if result.mismatches:
+        parts.append(_mismatches(result.mismatches))
+    a = result.assessment
+    if a is not None:
+        parts += [
+            _verdict(a),
+            _findings(a.findings),
+            _numbers(a),
+            _cascade(a, runtime, index, case.name),
+        ]
+    parts.append("</section>")
+    return "\n".join(parts)
+
+
+def html_report(results: list[CaseResult], runtime: Runtime) -> str:
+    """The report of one fixture run as one HTML document."""
+    ruleset = runtime.ruleset
+    title = f"oxyrule fixture run: {ruleset.identity}"
+    header = (
+        "<header>"
+        f"<h1>{_e(title)}</h1>"
+        f'<p class="caution" role="note"><strong>Caution.</strong> {_e(CAUTION)}</p>'
+        '<dl class="meta">'
+        f"<dt>Rule set</dt><dd>{_e(ruleset.identity)} — {_e(ruleset.title)}</dd>"
+        f'<dt>Content hash</dt><dd class="hash">sha256 {_e(ruleset.content_hash)}</dd>'
+        f"<dt>Service</dt><dd>oxyrule {_e(__version__)}</dd>"
+        f"<dt>Cases</dt><dd>{len(results)}</dd>"
+        f"<dt>Run</dt><dd><strong>{_e(summary_line(results))}</strong></dd>"
+        "</dl></header>"
+    )
+    summary = (
+        '<section aria-labelledby="summary-h"><h2 id="summary-h">Summary</h2>'
+        f"{_summary(results)}</section>"
+    )
+    cases = "\n".join(_case(r, runtime, i) for i, r in enumerate(results, 1))
+    footer = f"<footer><p>{_e(CAUTION)}</p></footer>"
+    return (
+        '<!DOCTYPE html>\n<html lang="en">\n<head>\n<meta charset="utf-8">\n'
+        '<meta name="viewport" content="width=device-width, initial-scale=1">\n'
+        f"<title>{_e(title)}</title>\n<style>{CSS}</style>\n</head>\n<body>\n"
+        f"{header}\n<main>\n{summary}\n{cases}\n</main>\n{footer}\n</body>\n</html>\n"
+    )

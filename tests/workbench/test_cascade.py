@@ -1,0 +1,207 @@
+"""The oxygen cascade: the normal line's numbers, the missing stages, and the SVG itself."""
+
+from __future__ import annotations
+
+import xml.etree.ElementTree as ET
+
+import pytest
+
+from service.physiology.gas_exchange import aa_gradient_upper_limit_mmhg, alveolar_po2_mmhg
+from service.workbench.cascade import (
+    NORMAL_MIXED_VENOUS_PO2_MMHG,
+    Cascade,
+    CascadeInput,
+    build_cascade,
+    cascade_svg,
+    describe,
+    normal_cascade,
+    signed,
+)
+
+SVG = "{http://www.w3.org/2000/svg}"
+
+
+@pytest.mark.parametrize(
+    ("fio2", "pio2", "pao2"),
+    [
+        # physiology.md §1 worked values [CALC]: PB 760, PaCO2 40, R 0.8, PH2O 47 →
+        # FiO2 0.21: PIO2 149.7, PAO2 (full form) 101.8; 0.40: 285.2, 239.2; 1.00: 713.0, 673.0.
+        (0.21, 149.7, 101.8),
+        (0.40, 285.2, 239.2),
+        (1.00, 713.0, 673.0),
+    ],
+)
+def test_normal_line_matches_the_alveolar_gas_equation_worked_values(
+    fio2: float, pio2: float, pao2: float
+) -> None:
+    normal = normal_cascade(
+        fio2=fio2, barometric_mmhg=760.0, age_years=None, water_vapour_mmhg=47.0
+    )
+    assert normal.inspired == pytest.approx(pio2, abs=0.05)
+    assert normal.alveolar == pytest.approx(pao2, abs=0.05)
+
+
+def test_normal_arterial_is_normal_alveolar_minus_the_age_limit() -> None:
+    normal = normal_cascade(
+        fio2=0.21, barometric_mmhg=760.0, age_years=68.0, water_vapour_mmhg=47.0
+    )
+    # Age 68: max(2.5 + 0.21 × 68, 68/4 + 4) = max(16.78, 21.0) = 21.0 mmHg.
+    assert normal.aa_limit == pytest.approx(21.0)
+    assert normal.arterial == pytest.approx(101.8 - 21.0, abs=0.05)
+    assert normal.mixed_venous == NORMAL_MIXED_VENOUS_PO2_MMHG == 40.0
+
+
+def test_normal_line_breathes_the_same_gas_at_altitude() -> None:
+    # Same PB and FiO2 as the patient: at 570 mmHg the normal inspired PO2 is low too.
+    normal = normal_cascade(
+        fio2=0.21, barometric_mmhg=570.0, age_years=30.0, water_vapour_mmhg=47.0
+    )
+    assert normal.inspired == pytest.approx(0.21 * (570.0 - 47.0))
+    assert normal.alveolar == pytest.approx(
+        alveolar_po2_mmhg(fio2=0.21, paco2_mmhg=40.0, barometric_mmhg=570.0)
+    )
+    limit = aa_gradient_upper_limit_mmhg(age_years=30.0)
+    assert normal.alveolar is not None
+    assert normal.arterial == pytest.approx(normal.alveolar - limit)
+
+
+def test_no_age_no_normal_arterial_and_it_says_why() -> None:
+    normal = normal_cascade(fio2=0.21, barometric_mmhg=760.0, age_years=None)
+    assert normal.arterial is None
+    assert "age not known" in normal.missing["arterial"]
+
+
+def test_no_fio2_no_normal_line() -> None:
+    normal = normal_cascade(fio2=None, barometric_mmhg=760.0, age_years=50.0)
+    assert (normal.inspired, normal.alveolar, normal.arterial) == (None, None, None)
+    assert normal.missing["inspired"] == "FiO2 not known"
+
+
+def _room_air(**overrides: float | None) -> CascadeInput:
+    values: dict[str, float | None] = {
+        "fio2": 0.21,
+        "barometric_mmhg": 760.0,
+        "age_years": 40.0,
+        "inspired_po2": 149.7,
+        "alveolar_po2": 76.7,
+        "arterial_po2": 60.0,
+        "arterial_pco2": 60.0,
+    }
+    values.update(overrides)
+    return CascadeInput(water_vapour_mmhg=47.0, **values)  # type: ignore[arg-type]
+
+
+def test_gap_is_patient_minus_normal_at_each_stage() -> None:
+    cascade = build_cascade(_room_air())
+    inspired, alveolar, arterial = cascade.stages
+    assert inspired.difference == pytest.approx(0.0, abs=0.05)  # same gas by construction
+    assert alveolar.difference == pytest.approx(76.7 - 101.8, abs=0.05)
+    assert arterial.difference == pytest.approx(60.0 - (101.8 - 14.0), abs=0.05)
+
+
+def test_missing_paco2_leaves_no_alveolar_point_and_a_note_says_why() -> None:
+    cascade = build_cascade(_room_air(alveolar_po2=None, arterial_pco2=None))
+    alveolar = cascade.stages[1]
+    assert alveolar.patient is None
+    assert alveolar.normal is not None  # the normal line does not need the patient's PaCO2
+    assert any("no PaCO2" in note for note in cascade.notes)
+    svg = cascade_svg(cascade, title="t", chart_id="c")
+    assert "no PaCO2" in svg
+
+
+def test_mixed_venous_stage_only_when_measured() -> None:
+    without = build_cascade(_room_air())
+    assert [s.key for s in without.stages] == ["inspired", "alveolar", "arterial"]
+    assert any("Mixed-venous PO2 not measured" in note for note in without.notes)
+    with_venous = build_cascade(_room_air(mixed_venous_po2=31.0))
+    venous = with_venous.stages[-1]
+    assert venous.key == "mixed-venous"
+    assert venous.normal == 40.0
+    assert venous.difference == pytest.approx(-9.0)
+
+
+def test_caption_warns_that_the_room_air_limit_understates_the_gap_on_oxygen() -> None:
+    on_air = build_cascade(_room_air())
+    on_oxygen = build_cascade(_room_air(fio2=0.5, inspired_po2=356.5, alveolar_po2=300.0))
+    assert not any("understates" in note for note in on_air.notes)
+    assert any("understates the normal gap" in note for note in on_oxygen.notes)
+
+
+def test_sea_level_reference_only_when_the_inspired_po2_is_low() -> None:
+    assert build_cascade(_room_air(sea_level_inspired_po2=149.7)).sea_level_inspired_po2 is None
+    altitude = _room_air(barometric_mmhg=570.0, inspired_po2=109.8, sea_level_inspired_po2=149.7)
+    assert build_cascade(altitude).sea_level_inspired_po2 == 149.7
+
+
+def _parse(svg: str) -> ET.Element:
+    return ET.fromstring(svg)
+
+
+def test_svg_is_well_formed_and_labelled() -> None:
+    svg = cascade_svg(build_cascade(_room_air()), title="Case <a> & b", chart_id="chart-1")
+    assert svg.startswith("<svg")  # no XML prolog or doctype: it goes inline in HTML
+    root = _parse(svg)
+    assert root.tag == f"{SVG}svg"
+    assert root.get("role") == "img"
+    assert root.get("aria-labelledby") == "chart-1-title chart-1-desc"
+    title = root.find(f"{SVG}title")
+    desc = root.find(f"{SVG}desc")
+    assert title is not None and title.text == "Case <a> & b"
+    assert desc is not None and desc.text is not None
+    assert "Arterial PO2: patient 60.0, normal 87.8" in desc.text
+
+
+def test_svg_ids_are_prefixed_unique_and_every_reference_resolves() -> None:
+    svg = cascade_svg(build_cascade(_room_air(mixed_venous_po2=31.0)), title="t", chart_id="k9")
+    root = _parse(svg)
+    ids = [e.get("id") for e in root.iter() if e.get("id")]
+    assert len(ids) == len(set(ids))
+    assert all(i is not None and i.startswith("k9-") for i in ids)
+    xlink = "{http://www.w3.org/1999/xlink}href"
+    refs = [e.get(xlink) or e.get("href") for e in root.iter()]
+    assert all(ref[1:] in ids for ref in refs if ref)
+
+
+def test_svg_is_deterministic() -> None:
+    cascade = build_cascade(_room_air(mixed_venous_po2=31.0))
+    first = cascade_svg(cascade, title="t", chart_id="c")
+    assert cascade_svg(cascade, title="t", chart_id="c") == first
+
+
+def test_svg_states_the_numbers_as_text() -> None:
+    svg = cascade_svg(build_cascade(_room_air()), title="t", chart_id="c")
+    texts = "".join(_parse(svg).itertext())
+    for number in ("149.7", "101.8", "76.7", "60.0", "87.8", "−25.1", "−27.8"):
+        assert number in texts
+
+
+def test_nothing_to_draw_without_any_number() -> None:
+    empty = Cascade(stages=(), notes=(), conditions="")
+    assert not empty.drawable
+    nothing = build_cascade(
+        CascadeInput(fio2=None, barometric_mmhg=None, age_years=None, arterial_po2=None)
+    )
+    assert not nothing.drawable
+    assert "not available" in describe(nothing)
+
+
+def test_signed_uses_a_true_minus_and_no_signed_zero() -> None:
+    assert signed(-3.44) == "−3.4"
+    assert signed(2.0) == "+2.0"
+    assert signed(-0.01) == "0.0"
+    assert signed(0.04) == "0.0"
+
+
+def test_no_normal_line_where_paco2_40_would_leave_no_alveolar_oxygen() -> None:
+    # PB 272 mmHg (about 8,400 m), room air: 0.21 × (272 − 47) − 40 × 1.2 < 0.
+    normal = normal_cascade(
+        fio2=0.21, barometric_mmhg=272.0, age_years=36.0, water_vapour_mmhg=47.0
+    )
+    assert normal.inspired == pytest.approx(47.25)
+    assert normal.alveolar is None and normal.arterial is None
+    assert "no alveolar oxygen is left" in normal.missing["alveolar"]
+    cascade = build_cascade(
+        _room_air(barometric_mmhg=272.0, inspired_po2=47.25, alveolar_po2=31.3, arterial_po2=24.6)
+    )
+    assert any("no alveolar oxygen is left" in note for note in cascade.notes)
+    assert all(s.normal is None or s.normal > 0 for s in cascade.stages)
