@@ -13,12 +13,12 @@ from contextlib import asynccontextmanager
 
 from fastapi import FastAPI, Request, Response
 from fastapi.exceptions import RequestValidationError
-from fastapi.middleware.cors import CORSMiddleware
 from starlette.exceptions import HTTPException
 
 from service import __version__
 from service.api.auth import Authenticator
 from service.api.capability import capability_statement, operation_definition
+from service.api.cors import FhirCorsMiddleware
 from service.api.errors import ApiError, outcome_response, status_outcome
 from service.api.middleware import RequestMiddleware
 from service.api.routes import assess, conformance, health
@@ -111,7 +111,7 @@ def create_app(
     app.add_exception_handler(RequestValidationError, _validation_error)
     if server.cors_origins:
         app.add_middleware(
-            CORSMiddleware,
+            FhirCorsMiddleware,
             allow_origins=server.cors_origins,
             allow_methods=["GET", "POST"],
             allow_headers=["Authorization", "Content-Type", "Accept"],
