@@ -42,7 +42,7 @@ _E = ErrorCode
 def read_oru(message: V2Message, *, concept_map: LocalCodeMap | None = None) -> Intake:
     """Read an ORU^R01 into measurements in canonical units, with the issues met.
 
-    The header (type, version, processing id) is checked by the caller (``header.check``).
+    The header (type, version, processing id) is checked by the caller (``header.unsupported``).
 
     Raises:
         MessageInError: content the sender must fix; every problem is located.

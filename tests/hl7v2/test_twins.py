@@ -74,3 +74,36 @@ def test_altitude_visitor_is_low_inspired_oxygen_on_both_paths(runtime: Runtime)
     for a in (from_fhir, from_v2):
         assert {m.code: m.grade for m in a.mechanisms}["low-inspired-oxygen"] == "likely"
         assert a.index.barometric_source == "altitude-model"
+
+
+def test_a_kpa_feed_is_graded_as_the_mmhg_feed(runtime: Runtime) -> None:
+    # standards.md §2: "many non-US labs send kPa"; UCUM 1 kPa = 7.500638 mm[Hg].
+    text = fixture("post-operative-drowsiness.hl7")
+    for mmhg in ("62", "65", "762"):
+        kpa = f"{float(mmhg) / 7.500638:.4f}"
+        text = text.replace(f"||{mmhg}|mm[Hg]^mmHg^UCUM|", f"||{kpa}|kPa^kPa^UCUM|")
+    assert "mm[Hg]^mmHg" not in text
+    in_kpa = runtime.assess_intake(read_oru(parse_message(text)), now=NOW)
+    _, in_mmhg = _both("post-operative-drowsiness", runtime)
+    assert {m.code: m.grade for m in in_kpa.mechanisms} == {
+        m.code: m.grade for m in in_mmhg.mechanisms
+    }
+    assert in_kpa.pattern == in_mmhg.pattern == "single"
+    assert in_kpa.index.derived["aa-gradient"].value == pytest.approx(
+        in_mmhg.index.derived["aa-gradient"].value, abs=0.01
+    )
+
+
+def test_serial_gases_in_two_order_groups_are_assessed_as_serial_gases(runtime: Runtime) -> None:
+    # Two OBR groups, an hour apart, the later one on more oxygen: two gases, latest first.
+    first = fixture("post-operative-drowsiness.hl7").replace("\n", "\r")
+    later = (
+        "OBR|3|ORD-0003|LAB-0003|24336-0^Gas panel - Arterial blood^LN|||20261121150500+0000\r"
+        "OBX|1|NM|2703-7^^LN||95|mm[Hg]^^UCUM|||||F\r"
+        "OBX|2|NM|2019-8^^LN||60|mm[Hg]^^UCUM|||||F\r"
+        "OBX|3|NM|3150-0^^LN||28|%^^UCUM|||||F\r"
+    )
+    a = runtime.assess_intake(read_oru(parse_message(first + later)), now=NOW)
+    assert len(a.gases) == 2
+    assert a.gases[0].index and a.gases[0].facts.facts["arterial_po2"] == 95.0
+    assert a.gases[1].facts.facts["arterial_po2"] == 62.0
