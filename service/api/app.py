@@ -10,6 +10,7 @@ from __future__ import annotations
 
 from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
+from typing import Any
 
 from fastapi import FastAPI, Request, Response
 from fastapi.exceptions import RequestValidationError
@@ -63,6 +64,24 @@ async def _validation_error(_request: Request, exc: Exception) -> Response:
     return outcome_response(400, {"resourceType": "OperationOutcome", "issue": issues})
 
 
+def _openapi(app: FastAPI) -> dict[str, Any]:
+    """FastAPI's schema, plus the bearer scheme the assess route names (it takes no deps)."""
+    if app.openapi_schema is None:
+        from fastapi.openapi.utils import get_openapi
+
+        schema = get_openapi(
+            title=app.title, version=app.version, description=app.description, routes=app.routes
+        )
+        schemes = schema.setdefault("components", {}).setdefault("securitySchemes", {})
+        schemes["bearer"] = {
+            "type": "http",
+            "scheme": "bearer",
+            "description": "A static API key or a JWT, when the service is configured for them",
+        }
+        app.openapi_schema = schema
+    return app.openapi_schema
+
+
 def create_app(
     settings: Settings | None = None,
     server: ServerSettings | None = None,
@@ -103,6 +122,7 @@ def create_app(
         redoc_url=None,
     )
     app.state.service = service
+    app.openapi = lambda: _openapi(app)  # type: ignore[method-assign]
     app.include_router(assess.router)
     app.include_router(conformance.router)
     app.include_router(health.router)

@@ -8,7 +8,14 @@ import orjson
 from fastapi import APIRouter, Request, Response
 
 from service.api.body import Line, ndjson_lines, read_bounded
-from service.api.deps import CallerDep, FormatDep, RecordDep, ServiceDep, UnitsDep
+from service.api.deps import (
+    FORMAT_DOC,
+    UNITS_DOC,
+    caller_of,
+    pressure_unit,
+    record_of,
+    service_of,
+)
 from service.api.errors import ApiError, outcome
 from service.api.media import BodyKind, answer_type, body_kind
 from service.api.middleware import ASSESS_PATH
@@ -27,7 +34,24 @@ def _schema(description: str) -> dict[str, Any]:
     return {"description": description, "content": {"application/fhir+json": {}}}
 
 
-REQUEST_BODY: dict[str, Any] = {
+OPENAPI: dict[str, Any] = {
+    "parameters": [
+        {
+            "name": "units",
+            "in": "query",
+            "required": False,
+            "description": UNITS_DOC,
+            "schema": {"type": "string", "enum": ["mm[Hg]", "kPa"]},
+        },
+        {
+            "name": "_format",
+            "in": "query",
+            "required": False,
+            "description": FORMAT_DOC,
+            "schema": {"type": "string"},
+        },
+    ],
+    "security": [{}, {"bearer": []}],
     "requestBody": {
         "required": True,
         "description": "One FHIR R4/R4B Bundle, or NDJSON with one Bundle per line.",
@@ -37,7 +61,7 @@ REQUEST_BODY: dict[str, Any] = {
             "application/fhir+ndjson": {"schema": {"type": "string"}},
             "application/ndjson": {"schema": {"type": "string"}},
         },
-    }
+    },
 }
 RESPONSES: dict[int | str, dict[str, Any]] = {
     200: {
@@ -61,15 +85,8 @@ def _count(service: ServiceState, record: RequestRecord, result: Tally) -> None:
         service.metrics.rejection(result.rejected_code)
 
 
-@router.post(ASSESS_PATH, responses=RESPONSES, openapi_extra=REQUEST_BODY)
-async def assess_hypoxaemia(
-    request: Request,
-    service: ServiceDep,
-    record: RecordDep,
-    _caller: CallerDep,
-    units: UnitsDep,
-    format_: FormatDep = None,
-) -> Response:
+@router.post(ASSESS_PATH, responses=RESPONSES, openapi_extra=OPENAPI)
+async def assess_hypoxaemia(request: Request) -> Response:
     """Assess the likely mechanism of hypoxaemia of one Bundle (or of each NDJSON line).
 
     Send the Bundle as the body (`application/fhir+json`). The answer is the result Bundle:
@@ -79,8 +96,13 @@ async def assess_hypoxaemia(
     assessed is answered by an OperationOutcome naming it. Decision support for qualified
     clinicians, not a diagnosis.
     """
+    service, record = service_of(request), record_of(request)
+    caller_of(request)  # 401/403 before anything is read
+    units = pressure_unit(request.query_params.get("units"))
     kind = body_kind(request.headers.get("content-type"))
-    media_type = answer_type(kind, format_, request.headers.get("accept"))
+    media_type = answer_type(
+        kind, request.query_params.get("_format"), request.headers.get("accept")
+    )
     if kind is BodyKind.NDJSON:
         return await _ndjson(request, service, record, units, media_type)
     raw = await read_bounded(request, service.server.max_body_bytes)
