@@ -3,9 +3,14 @@
 from __future__ import annotations
 
 import re
+from collections.abc import Callable
+
+import httpx
 
 from service.api.metrics import Metrics
 from tests.api.conftest import ALTITUDE, ASSESS, FHIR_JSON, AppFactory, TestClient
+
+Serve = Callable[..., httpx.Client]
 
 
 def test_healthz_and_readyz_answer_when_the_rule_set_is_loaded(client: TestClient) -> None:
@@ -15,14 +20,15 @@ def test_healthz_and_readyz_answer_when_the_rule_set_is_loaded(client: TestClien
     assert ready.json()["ruleset"].startswith("oxyrule-default|")
 
 
-def test_readyz_answers_503_while_shutting_down(make_app: AppFactory) -> None:
+def test_readyz_answers_503_while_shutting_down(make_app: AppFactory, serve: Serve) -> None:
     app = make_app()
-    with TestClient(app) as client:
-        app.state.service.draining = True
-        response = client.get("/readyz")
-        assert response.status_code == 503
-        assert response.json()["issue"][0]["code"] == "transient"
-        assert client.get("/healthz").status_code == 200
+    client = serve(app)
+    app.state.service.draining = True
+    response = client.get("/readyz")
+    assert response.status_code == 503
+    assert response.headers["content-type"] == "application/fhir+json"
+    assert response.json()["issue"][0]["code"] == "transient"
+    assert client.get("/healthz").status_code == 200
 
 
 def test_metrics_count_requests_verdicts_and_findings(client: TestClient) -> None:

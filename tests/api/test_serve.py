@@ -176,3 +176,28 @@ def test_importing_the_cli_does_not_import_the_web_framework() -> None:
         [sys.executable, "-c", code], capture_output=True, text=True, check=True, cwd=ROOT
     )
     assert done.stdout.strip() == "[]"
+
+
+def test_serve_starts_several_workers_from_the_environment() -> None:
+    port = free_port()
+    process = subprocess.Popen(
+        [sys.executable, "-m", "service.cli", "serve", "--workers", "2"],
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.PIPE,
+        env=environment(OXYRULE_PORT=str(port), OXYRULE_LOG_LEVEL="warning"),
+        cwd=ROOT,
+    )
+    try:
+        wait_ready(port, process, seconds=30)
+        request = urllib.request.Request(
+            f"http://127.0.0.1:{port}/fhir/$assess-hypoxaemia",
+            ALTITUDE.read_bytes(),
+            {"Content-Type": "application/fhir+json"},
+        )
+        for _ in range(4):
+            with urllib.request.urlopen(request, timeout=10) as answer:
+                assert answer.status == 200
+    finally:
+        process.terminate()
+        _, stderr = process.communicate(timeout=20)
+    assert b"Traceback" not in stderr
