@@ -6,6 +6,7 @@ checks the facts handed in, so a value in the wrong unit or of the wrong kind ca
 slip silently past a threshold.
 """
 
+import math
 from collections.abc import Iterable, Iterator, Mapping
 
 from service.engine.default_facts import DEFAULT_FACT_SPECS
@@ -25,7 +26,7 @@ __all__ = [
 class FactCatalogue(Mapping[str, FactSpec]):
     """An immutable mapping of fact name to `FactSpec`."""
 
-    __slots__ = ("_order", "_specs")
+    __slots__ = ("_booleans", "_codes", "_order", "_ranges", "_specs")
 
     def __init__(self, specs: Iterable[FactSpec]) -> None:
         table: dict[str, FactSpec] = {}
@@ -39,6 +40,19 @@ class FactCatalogue(Mapping[str, FactSpec]):
                 raise ValueError(f"fact {spec.name} lists unknown inputs: {', '.join(unknown)}")
         self._specs = table
         self._order = {name: position for position, name in enumerate(table)}
+        # What `check` lets through without asking the spec: a number inside finite bounds,
+        # a bool for a boolean fact, an allowed code. Anything else gets the spec's answer.
+        self._ranges = {
+            spec.name: (spec.minimum, spec.maximum)
+            for spec in table.values()
+            if spec.kind is FactKind.QUANTITY
+            and spec.minimum is not None
+            and spec.maximum is not None
+            and math.isfinite(spec.minimum)
+            and math.isfinite(spec.maximum)
+        }
+        self._booleans = frozenset(n for n, s in table.items() if s.kind is FactKind.BOOLEAN)
+        self._codes = {n: s.allowed for n, s in table.items() if s.kind is FactKind.CODE}
 
     def __getitem__(self, name: str) -> FactSpec:
         return self._specs[name]
@@ -62,6 +76,24 @@ class FactCatalogue(Mapping[str, FactSpec]):
         Absent facts are fine (they are *missing*); `None` is rejected rather than read as
         missing so that the caller's intent stays explicit: leave the name out instead.
         """
+        ranges, booleans, codes = self._ranges, self._booleans, self._codes
+        for name, value in facts.items():
+            kind = type(value)
+            if kind is float or kind is int:
+                bounds = ranges.get(name)
+                if bounds is not None and bounds[0] <= value <= bounds[1]:  # type: ignore[operator]
+                    continue
+            elif kind is bool:
+                if name in booleans:
+                    continue
+            elif kind is str:
+                allowed = codes.get(name)
+                if allowed is not None and value in allowed:
+                    continue
+            self._raise_problems(facts)
+
+    def _raise_problems(self, facts: Mapping[str, object]) -> None:
+        """Raise `FactError` with every problem (the checks of `FactSpec.problem`)."""
         problems: list[FactProblem] = []
         specs = self._specs
         for name, value in facts.items():
