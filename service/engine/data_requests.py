@@ -16,17 +16,28 @@ from dataclasses import dataclass
 
 from service.engine.catalogue import FactCatalogue
 from service.engine.facts import FactValue
+from service.engine.slots import slot_setters
 
 __all__ = ["DataRequest", "DataRequests"]
 
 
-@dataclass(frozen=True, slots=True)
+@dataclass(frozen=True, slots=True, init=False)
 class DataRequest:
     """A fact that would help, who asked for it, and which derived facts it feeds."""
 
     fact: str
     requested_by: tuple[str, ...]
     needed_for: tuple[str, ...] = ()
+
+    def __init__(
+        self, fact: str, requested_by: tuple[str, ...], needed_for: tuple[str, ...] = ()
+    ) -> None:
+        _SLOTS[0](self, fact)
+        _SLOTS[1](self, requested_by)
+        _SLOTS[2](self, needed_for)
+
+
+_SLOTS = slot_setters(DataRequest, "fact", "requested_by", "needed_for")
 
 
 class DataRequests:
@@ -47,7 +58,10 @@ class DataRequests:
         """
         if fact in self._facts:
             if even_if_known:
-                self._asked.setdefault(fact, (set(), set()))[0].add(rule)
+                entry = self._asked.get(fact)
+                if entry is None:
+                    entry = self._asked[fact] = (set(), set())
+                entry[0].add(rule)
             return
         spec = self._catalogue[fact]
         missing_inputs = [name for name in spec.inputs if name not in self._facts]
@@ -56,17 +70,26 @@ class DataRequests:
                 self.ask(name, rule, wanted=wanted or fact)
             return
         # All inputs known (or none declared): the fact itself is what is missing.
-        requested_by, needed_for = self._asked.setdefault(fact, (set(), set()))
+        requested_by, needed_for = self._entry(fact)
         requested_by.add(rule)
         if wanted is not None:
             needed_for.add(wanted)
 
+    def _entry(self, fact: str) -> tuple[set[str], set[str]]:
+        entry = self._asked.get(fact)
+        if entry is None:
+            entry = self._asked[fact] = (set(), set())
+        return entry
+
     def collected(self) -> tuple[DataRequest, ...]:
         """The requests so far, in catalogue order."""
-        position = self._catalogue.position
+        asked = self._asked
         return tuple(
-            DataRequest(fact, tuple(sorted(by)), tuple(sorted(needed)))
-            for fact, (by, needed) in sorted(
-                self._asked.items(), key=lambda item: position(item[0])
-            )
+            [
+                DataRequest(fact, tuple(sorted(by)), tuple(sorted(needed)) if needed else ())
+                for fact, (by, needed) in ((fact, asked[fact]) for fact in self._order(asked))
+            ]
         )
+
+    def _order(self, asked: Mapping[str, object]) -> list[str]:
+        return sorted(asked, key=self._catalogue.position) if len(asked) > 1 else list(asked)

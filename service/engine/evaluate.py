@@ -5,21 +5,56 @@ Facts that break the catalogue (unknown name, wrong kind, out of range, NaN) rai
 `FactError` before anything is evaluated. The steps are: check the facts, run every
 distinct leaf test once into the state vector, read each rule's truth from the vector,
 then build the verdict from the active rules. Rationales and traces are built when read
-(see `results`), so evaluation itself formats no text.
+(see `results`), and so is each rule's `RuleResult`: the verdict asks only for the rules
+it cites or asks about, `Evaluation.results` makes the rest when it is first read.
 """
 
-from collections.abc import Mapping
-from dataclasses import dataclass
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
 
 from service.engine.facts import FactValue
 from service.engine.logic import Truth, TruthValue
 from service.engine.results import EvaluationContext, RuleResult
-from service.engine.ruleset import RuleSet
-from service.engine.verdict import Verdict, decide
+from service.engine.ruleset import Rule, RuleSet
+from service.engine.verdict import Verdict, decide_states
 
 __all__ = ["Evaluation", "evaluate"]
 
 _TRUTH: dict[TruthValue, Truth] = {True: Truth.TRUE, False: Truth.FALSE, None: Truth.UNKNOWN}
+
+
+class _Results:
+    """The results of one evaluation, each made once, when first asked for."""
+
+    __slots__ = ("_all", "_context", "_made", "_rules", "_states")
+
+    def __init__(
+        self, rules: Sequence[Rule], states: Sequence[TruthValue], context: EvaluationContext
+    ) -> None:
+        self._rules, self._states, self._context = rules, states, context
+        self._made: list[RuleResult | None] = [None] * len(rules)
+        self._all: tuple[RuleResult, ...] | None = None
+
+    def __call__(self, position: int) -> RuleResult:
+        made = self._made[position]
+        if made is None:
+            made = RuleResult(self._rules[position], _TRUTH[self._states[position]], self._context)
+            self._made[position] = made
+        return made
+
+    def all(self) -> tuple[RuleResult, ...]:
+        if self._all is None:
+            self._all = tuple([self(position) for position in range(len(self._made))])
+        return self._all
+
+    def __eq__(self, other: object) -> bool:
+        return isinstance(other, _Results) and self.all() == other.all()
+
+    def __hash__(self) -> int:
+        return hash(self.all())
+
+    def __repr__(self) -> str:
+        return repr(self.all())
 
 
 @dataclass(frozen=True, slots=True)
@@ -30,9 +65,13 @@ class Evaluation:
     """`id|version` of the rule set used."""
     content_hash: str
     """The rule set's content hash, so a result can be tied to exact files and overrides."""
-    results: tuple[RuleResult, ...]
-    """One result per active or testing rule, in rule-file order."""
     verdict: Verdict
+    _results: _Results = field(repr=False)
+
+    @property
+    def results(self) -> tuple[RuleResult, ...]:
+        """One result per active or testing rule, in rule-file order."""
+        return self._results.all()
 
     def result(self, rule_id: str) -> RuleResult:
         """The result of the rule with this id (KeyError if it was not evaluated)."""
@@ -53,17 +92,9 @@ def evaluate(ruleset: RuleSet, facts: Mapping[str, FactValue]) -> Evaluation:
     # A private copy: results render text later and must not see the caller's edits.
     known = dict(facts)
     states = tuple([test(known) for test in ruleset.leaf_tests])
-    context = EvaluationContext(known, states, ruleset.leaves)
-    truth = _TRUTH
-    results = tuple(
-        [
-            RuleResult(rule, truth[rule.condition.truth(states)], context)
-            for rule in ruleset.evaluated
-        ]
+    rule_states = [truth(states) for truth in ruleset.rule_truths]
+    results = _Results(
+        ruleset.evaluated, rule_states, EvaluationContext(known, states, ruleset.leaves)
     )
-    return Evaluation(
-        ruleset=ruleset.identity,
-        content_hash=ruleset.content_hash,
-        results=results,
-        verdict=decide(results, known, ruleset.catalogue),
-    )
+    verdict = decide_states(ruleset.verdict_plan, rule_states, results, known, ruleset.catalogue)
+    return Evaluation(ruleset.identity, ruleset.content_hash, verdict, results)

@@ -4,12 +4,13 @@ Nothing here is parsed or checked again at evaluation time: conditions are closu
 rationales are parsed templates, parameters already include site overrides.
 """
 
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 
 from service.engine.catalogue import FactCatalogue
-from service.engine.compiled import CompiledCondition
+from service.engine.compiled import CompiledCondition, StateVector
 from service.engine.leaves import FactTest, Leaf
+from service.engine.logic import TruthValue
 from service.engine.parameters import Parameter
 from service.engine.rationale import Template
 from service.engine.vocabulary import (
@@ -30,6 +31,7 @@ __all__ = [
     "RetiredRule",
     "Rule",
     "RuleSet",
+    "VerdictPlan",
 ]
 
 
@@ -106,6 +108,46 @@ class RetiredRule:
 
 
 @dataclass(frozen=True, slots=True)
+class VerdictPlan:
+    """Which rules can shape the verdict, by what they assert: positions in a rule sequence.
+
+    Worked out once per rule set (and per call of `decide` on loose results), so that the
+    verdict reads only the states of the rules that matter. Testing (shadow) rules are left
+    out: they never shape the verdict.
+    """
+
+    mechanisms: tuple[tuple[Mechanism, tuple[tuple[int, MechanismOutcome], ...]], ...]
+    """Every mechanism in `Mechanism` order, with its grading rules in rule order."""
+    findings: tuple[tuple[int, FindingOutcome], ...]
+    hypoxaemia: tuple[tuple[int, HypoxaemiaOutcome, str], ...]
+    """Rules that state hypoxaemia present or absent, each with its `ref`."""
+
+    @classmethod
+    def of(cls, rules: Sequence[Rule]) -> "VerdictPlan":
+        """The plan of `rules` (positions index this sequence)."""
+        grading: dict[Mechanism, list[tuple[int, MechanismOutcome]]] = {
+            mechanism: [] for mechanism in Mechanism
+        }
+        findings: list[tuple[int, FindingOutcome]] = []
+        hypoxaemia: list[tuple[int, HypoxaemiaOutcome, str]] = []
+        for position, rule in enumerate(rules):
+            if rule.shadow:
+                continue
+            outcome = rule.outcome
+            if isinstance(outcome, MechanismOutcome):
+                grading[outcome.mechanism].append((position, outcome))
+            elif isinstance(outcome, FindingOutcome):
+                findings.append((position, outcome))
+            else:
+                hypoxaemia.append((position, outcome, rule.ref))
+        return cls(
+            tuple((mechanism, tuple(found)) for mechanism, found in grading.items()),
+            tuple(findings),
+            tuple(hypoxaemia),
+        )
+
+
+@dataclass(frozen=True, slots=True)
 class RuleSet:
     """A rule set loaded from one directory, with site overrides applied."""
 
@@ -127,6 +169,12 @@ class RuleSet:
     """Active and testing rules: the ones `evaluate` runs."""
     leaf_tests: tuple[FactTest, ...] = field(init=False, repr=False, compare=False)
     """The leaves' test closures, kept as a plain tuple for the evaluation loop."""
+    rule_truths: tuple[Callable[[StateVector], TruthValue], ...] = field(
+        init=False, repr=False, compare=False
+    )
+    """The condition of each evaluated rule, in the order of `evaluated`."""
+    verdict_plan: VerdictPlan = field(init=False, repr=False, compare=False)
+    """What each evaluated rule can contribute to the verdict."""
 
     def __post_init__(self) -> None:
         evaluated = tuple(
@@ -134,6 +182,8 @@ class RuleSet:
         )
         object.__setattr__(self, "evaluated", evaluated)
         object.__setattr__(self, "leaf_tests", tuple(leaf.test for leaf in self.leaves))
+        object.__setattr__(self, "rule_truths", tuple(rule.condition.truth for rule in evaluated))
+        object.__setattr__(self, "verdict_plan", VerdictPlan.of(evaluated))
 
     @property
     def identity(self) -> str:

@@ -17,19 +17,16 @@ Only active rules count; `testing` rules are shadow-evaluated and reported only.
   missing inputs, so the request names something that can be measured or recorded.
 """
 
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 
 from service.engine.catalogue import FactCatalogue
 from service.engine.data_requests import DataRequest, DataRequests
 from service.engine.facts import FactValue
-from service.engine.logic import Truth
+from service.engine.logic import Truth, TruthValue
 from service.engine.results import RuleResult
-from service.engine.ruleset import (
-    Discriminator,
-    FindingOutcome,
-    MechanismOutcome,
-)
+from service.engine.ruleset import Discriminator, MechanismOutcome, VerdictPlan
+from service.engine.slots import slot_setters
 from service.engine.vocabulary import (
     FindingCode,
     Grade,
@@ -46,6 +43,7 @@ __all__ = [
     "MechanismAssessment",
     "Verdict",
     "decide",
+    "decide_states",
 ]
 
 OXYGENATION_FACTS = ("arterial_po2", "spo2")
@@ -54,11 +52,13 @@ OXYGENATION_FACTS = ("arterial_po2", "spo2")
 _SEVERITY_ORDER = {Severity.ERROR: 0, Severity.WARNING: 1, Severity.INFORMATION: 2}
 # Enum member and class iteration are slow on Python 3.11; the hot path uses these.
 _MECHANISMS = tuple(Mechanism)
-_TRUE, _FALSE, _UNKNOWN = Truth.TRUE, Truth.FALSE, Truth.UNKNOWN
+_TRUTH_VALUE: dict[Truth, TruthValue] = {Truth.TRUE: True, Truth.FALSE: False, Truth.UNKNOWN: None}
 _LIKELY, _POSSIBLE, _NOT_ASSESSABLE = Grade.LIKELY, Grade.POSSIBLE, Grade.NOT_ASSESSABLE
+_PRESENT, _ABSENT = HypoxaemiaStatus.PRESENT, HypoxaemiaStatus.ABSENT
+_ERROR = Severity.ERROR
 
 
-@dataclass(frozen=True, slots=True)
+@dataclass(frozen=True, slots=True, init=False)
 class MechanismAssessment:
     """The grade of one mechanism and the results of the rules that decided it."""
 
@@ -70,6 +70,20 @@ class MechanismAssessment:
     """Rules that also fired for this mechanism at a higher (losing) priority."""
     demoted_because: str | None = None
     """Why a `likely` grade was lowered to `possible`, if it was."""
+
+    def __init__(
+        self,
+        mechanism: Mechanism,
+        grade: Grade,
+        deciding: tuple[RuleResult, ...] = (),
+        losing: tuple[RuleResult, ...] = (),
+        demoted_because: str | None = None,
+    ) -> None:
+        _ASSESSMENT_SLOTS[0](self, mechanism)
+        _ASSESSMENT_SLOTS[1](self, grade)
+        _ASSESSMENT_SLOTS[2](self, deciding)
+        _ASSESSMENT_SLOTS[3](self, losing)
+        _ASSESSMENT_SLOTS[4](self, demoted_because)
 
     @property
     def rules(self) -> tuple[str, ...]:
@@ -104,13 +118,18 @@ class MechanismAssessment:
         return tuple(dict.fromkeys(item for item in found if item is not None))
 
 
-@dataclass(frozen=True, slots=True)
+@dataclass(frozen=True, slots=True, init=False)
 class FindingResult:
     """A finding raised by a fired rule."""
 
     code: FindingCode
     severity: Severity
     result: RuleResult
+
+    def __init__(self, code: FindingCode, severity: Severity, result: RuleResult) -> None:
+        _FINDING_SLOTS[0](self, code)
+        _FINDING_SLOTS[1](self, severity)
+        _FINDING_SLOTS[2](self, result)
 
     @property
     def rule(self) -> str:
@@ -123,7 +142,7 @@ class FindingResult:
         return self.result.rationale
 
 
-@dataclass(frozen=True, slots=True)
+@dataclass(frozen=True, slots=True, init=False)
 class Verdict:
     """The engine's answer for one set of facts."""
 
@@ -138,6 +157,24 @@ class Verdict:
     data_requested: tuple[DataRequest, ...]
     """In catalogue order."""
 
+    def __init__(
+        self,
+        pattern: Pattern,
+        pattern_reason: str,
+        hypoxaemia: HypoxaemiaStatus,
+        hypoxaemia_rules: tuple[str, ...],
+        mechanisms: tuple[MechanismAssessment, ...],
+        findings: tuple[FindingResult, ...],
+        data_requested: tuple[DataRequest, ...],
+    ) -> None:
+        _VERDICT_SLOTS[0](self, pattern)
+        _VERDICT_SLOTS[1](self, pattern_reason)
+        _VERDICT_SLOTS[2](self, hypoxaemia)
+        _VERDICT_SLOTS[3](self, hypoxaemia_rules)
+        _VERDICT_SLOTS[4](self, mechanisms)
+        _VERDICT_SLOTS[5](self, findings)
+        _VERDICT_SLOTS[6](self, data_requested)
+
     def assessment(self, mechanism: Mechanism) -> MechanismAssessment:
         """The assessment of one mechanism."""
         return next(item for item in self.mechanisms if item.mechanism is mechanism)
@@ -147,20 +184,48 @@ class Verdict:
         return self.assessment(mechanism).grade
 
 
+_ASSESSMENT_SLOTS = slot_setters(
+    MechanismAssessment, "mechanism", "grade", "deciding", "losing", "demoted_because"
+)
+_FINDING_SLOTS = slot_setters(FindingResult, "code", "severity", "result")
+_VERDICT_SLOTS = slot_setters(
+    Verdict,
+    "pattern",
+    "pattern_reason",
+    "hypoxaemia",
+    "hypoxaemia_rules",
+    "mechanisms",
+    "findings",
+    "data_requested",
+)
+
+
 def _assess(
     mechanism: Mechanism,
-    fired: Sequence[tuple[RuleResult, MechanismOutcome]],
+    fired: Sequence[tuple[int, MechanismOutcome]],
+    result_of: Callable[[int], RuleResult],
     demotion: str | None,
 ) -> MechanismAssessment:
-    if not fired:
-        return MechanismAssessment(mechanism, _NOT_ASSESSABLE)
-    best = min(outcome.priority for _, outcome in fired)
-    deciding = tuple(result for result, outcome in fired if outcome.priority == best)
-    losing = tuple(result for result, outcome in fired if outcome.priority != best)
-    grade = next(outcome.grade for _, outcome in fired if outcome.priority == best)
+    """The grade of a mechanism some rules fired for (`fired` in rule order, not empty)."""
+    deciding: tuple[RuleResult, ...]
+    losing: tuple[RuleResult, ...]
+    if len(fired) == 1:  # the usual case
+        position, outcome = fired[0]
+        grade, deciding, losing = outcome.grade, (result_of(position),), ()
+    else:
+        best = min([outcome.priority for _, outcome in fired])
+        grade = next(outcome.grade for _, outcome in fired if outcome.priority == best)
+        deciding = tuple([result_of(p) for p, outcome in fired if outcome.priority == best])
+        losing = tuple([result_of(p) for p, outcome in fired if outcome.priority != best])
     if demotion is not None and grade is _LIKELY:
         return MechanismAssessment(mechanism, _POSSIBLE, deciding, losing, demotion)
     return MechanismAssessment(mechanism, grade, deciding, losing)
+
+
+# Not assessable carries nothing of an evaluation: one immutable answer per mechanism.
+_UNASSESSED = {
+    mechanism: MechanismAssessment(mechanism, _NOT_ASSESSABLE) for mechanism in _MECHANISMS
+}
 
 
 def _pattern(
@@ -172,7 +237,7 @@ def _pattern(
         return Pattern.NOT_CLASSIFIABLE, demotion
     if hypoxaemia is HypoxaemiaStatus.ABSENT:
         return Pattern.NO_HYPOXAEMIA, "hypoxaemia is absent"
-    likely = [item.mechanism.value for item in mechanisms if item.grade is Grade.LIKELY]
+    likely = [item.mechanism.value for item in mechanisms if item.grade is _LIKELY]
     if len(likely) == 1:
         return Pattern.SINGLE, f"one mechanism is likely: {likely[0]}"
     if likely:
@@ -180,42 +245,16 @@ def _pattern(
     return Pattern.INDETERMINATE, "no mechanism is likely"
 
 
-@dataclass
-class _Fired:
-    """Active results sorted by what they assert."""
-
-    mechanisms: dict[Mechanism, list[tuple[RuleResult, MechanismOutcome]]]
-    undecided: dict[Mechanism, list[RuleResult]]
-    findings: list[FindingResult]
-    hypoxaemia: dict[HypoxaemiaStatus, list[str]]
-
-
-def _sort(results: Sequence[RuleResult]) -> _Fired:
-    fired = _Fired({m: [] for m in _MECHANISMS}, {m: [] for m in _MECHANISMS}, [], {})
-    for result in results:
-        state = result.state
-        if state is _FALSE or result.rule.shadow:
-            continue
-        outcome = result.rule.outcome
-        if isinstance(outcome, MechanismOutcome):
-            if state is _TRUE:
-                fired.mechanisms[outcome.mechanism].append((result, outcome))
-            else:
-                fired.undecided[outcome.mechanism].append(result)
-        elif state is _UNKNOWN:
-            continue
-        elif isinstance(outcome, FindingOutcome):
-            fired.findings.append(FindingResult(outcome.code, outcome.severity, result))
-        else:
-            fired.hypoxaemia.setdefault(outcome.status, []).append(result.ref)
-    fired.findings.sort(key=lambda item: (_SEVERITY_ORDER[item.severity], item.code, item.rule))
-    return fired
+def _finding_order(item: FindingResult) -> tuple[int, str, str]:
+    return _SEVERITY_ORDER[item.severity], item.code, item.result.rule.ref
 
 
 def _demotion(findings: Sequence[FindingResult], facts: Mapping[str, FactValue]) -> str | None:
     """Why the gas is not classifiable, or None when it is."""
+    errors = sorted({item.code.value for item in findings if item.severity is _ERROR})
+    if not errors and any(name in facts for name in OXYGENATION_FACTS):
+        return None  # the usual case
     reasons: list[str] = []
-    errors = sorted({item.code.value for item in findings if item.severity is Severity.ERROR})
     if errors:
         reasons.append("error finding fired: " + ", ".join(errors))
     if not any(name in facts for name in OXYGENATION_FACTS):
@@ -223,41 +262,80 @@ def _demotion(findings: Sequence[FindingResult], facts: Mapping[str, FactValue])
     return "; ".join(reasons) if reasons else None
 
 
-def _request_for(assessment: MechanismAssessment, fired: _Fired, requests: DataRequests) -> None:
-    mechanism = assessment.mechanism
-    if assessment.grade is _NOT_ASSESSABLE:
-        for result in fired.undecided[mechanism]:
+def _ask_undecided(
+    grading: Sequence[tuple[int, MechanismOutcome]],
+    states: Sequence[TruthValue],
+    result_of: Callable[[int], RuleResult],
+    requests: DataRequests,
+) -> None:
+    """A mechanism no rule fired for: the missing facts that keep its rules unknown."""
+    for position, _ in grading:
+        if states[position] is None:
+            result = result_of(position)
             for fact in result.undecided:
                 requests.ask(fact, result.ref)
-    elif assessment.grade is _POSSIBLE:
-        for result in assessment.deciding:
-            discriminator = result.rule.discriminator
-            if discriminator is not None:
-                for fact in discriminator.requests:
-                    requests.ask(fact, result.ref, even_if_known=True)
+
+
+def _ask_discriminators(assessment: MechanismAssessment, requests: DataRequests) -> None:
+    """A `possible` grade: what its deciding rules say would settle it, known or not."""
+    for result in assessment.deciding:
+        rule = result.rule
+        if rule.discriminator is not None:
+            for fact in rule.discriminator.requests:
+                requests.ask(fact, rule.ref, even_if_known=True)
 
 
 def decide(
     results: Sequence[RuleResult], facts: Mapping[str, FactValue], catalogue: FactCatalogue
 ) -> Verdict:
     """Build the verdict from rule results; shadow (testing) results are skipped."""
-    fired = _sort(results)
-    said = fired.hypoxaemia
-    hypoxaemia = next(
-        (
-            status
-            for status in (HypoxaemiaStatus.PRESENT, HypoxaemiaStatus.ABSENT)
-            if status in said
-        ),
-        HypoxaemiaStatus.UNKNOWN,
-    )
-    demotion = _demotion(fired.findings, facts)
+    rules = [result.rule for result in results]
+    states = [_TRUTH_VALUE[result.state] for result in results]
+    return decide_states(VerdictPlan.of(rules), states, results.__getitem__, facts, catalogue)
+
+
+def decide_states(
+    plan: VerdictPlan,
+    states: Sequence[TruthValue],
+    result_of: Callable[[int], RuleResult],
+    facts: Mapping[str, FactValue],
+    catalogue: FactCatalogue,
+) -> Verdict:
+    """`decide` from the rules' states (True, False, None) as `evaluate` has them.
+
+    `plan` positions index `states`; `result_of(position)` gives that rule's result, and is
+    asked only for the rules the verdict cites or asks about.
+    """
+    findings = [
+        FindingResult(found.code, found.severity, result_of(position))
+        for position, found in plan.findings
+        if states[position] is True
+    ]
+    if len(findings) > 1:
+        findings.sort(key=_finding_order)
+    said: dict[HypoxaemiaStatus, list[str]] = {}
+    for position, stated, ref in plan.hypoxaemia:
+        if states[position] is True:
+            said.setdefault(stated.status, []).append(ref)
+    if _PRESENT in said:
+        hypoxaemia = _PRESENT
+    elif _ABSENT in said:
+        hypoxaemia = _ABSENT
+    else:
+        hypoxaemia = HypoxaemiaStatus.UNKNOWN
+    demotion = _demotion(findings, facts)
     requests = DataRequests(facts, catalogue)
     mechanisms: list[MechanismAssessment] = []
-    for mechanism in _MECHANISMS:
-        assessment = _assess(mechanism, fired.mechanisms[mechanism], demotion)
+    for mechanism, grading in plan.mechanisms:
+        fired = [(position, graded) for position, graded in grading if states[position] is True]
+        if not fired:
+            mechanisms.append(_UNASSESSED[mechanism])
+            _ask_undecided(grading, states, result_of, requests)
+            continue
+        assessment = _assess(mechanism, fired, result_of, demotion)
         mechanisms.append(assessment)
-        _request_for(assessment, fired, requests)
+        if assessment.grade is _POSSIBLE:
+            _ask_discriminators(assessment, requests)
     pattern, reason = _pattern(demotion, hypoxaemia, mechanisms)
     return Verdict(
         pattern=pattern,
@@ -265,6 +343,6 @@ def decide(
         hypoxaemia=hypoxaemia,
         hypoxaemia_rules=tuple(said.get(hypoxaemia, ())),
         mechanisms=tuple(mechanisms),
-        findings=tuple(fired.findings),
+        findings=tuple(findings),
         data_requested=requests.collected(),
     )
