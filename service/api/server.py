@@ -12,6 +12,7 @@ from __future__ import annotations
 import logging
 import logging.config
 import os
+import re
 import sys
 from collections.abc import Mapping
 from pathlib import Path
@@ -43,10 +44,17 @@ def known_variables() -> set[str]:
     }
 
 
+# What Kubernetes injects for a Service named "oxyrule" (service links), not settings.
+SERVICE_LINK = re.compile(rf"{PREFIX}(SERVICE_(HOST|PORT)(_\w+)?|PORT_\d+_(TCP|UDP|SCTP)\w*)")
+
+
 def check_environment(environ: Mapping[str, str]) -> None:
-    """Refuse ``OXYRULE_*`` variables that name no setting."""
+    """Refuse ``OXYRULE_*`` variables that name no setting (a typo would be ignored)."""
+    known = known_variables()
     unknown = sorted(
-        k for k in environ if k.upper().startswith(PREFIX) and k.upper() not in known_variables()
+        k
+        for k in environ
+        if k.upper().startswith(PREFIX) and k.upper() not in known and not SERVICE_LINK.fullmatch(k)
     )
     if unknown:
         raise StartupError(

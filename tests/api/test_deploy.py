@@ -86,6 +86,8 @@ def test_pods_run_unprivileged_with_a_read_only_root() -> None:
     assert pod["securityContext"]["runAsNonRoot"] is True
     assert pod["securityContext"]["runAsUser"] != 0
     assert pod["automountServiceAccountToken"] is False
+    # A Service named oxyrule would otherwise inject OXYRULE_PORT=tcp://... into the pod.
+    assert pod["enableServiceLinks"] is False
     security = container()["securityContext"]
     assert security["readOnlyRootFilesystem"] is True
     assert security["allowPrivilegeEscalation"] is False

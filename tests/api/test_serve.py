@@ -201,3 +201,18 @@ def test_serve_starts_several_workers_from_the_environment() -> None:
         process.terminate()
         _, stderr = process.communicate(timeout=20)
     assert b"Traceback" not in stderr
+
+
+def test_kubernetes_service_links_are_not_taken_for_unknown_settings() -> None:
+    from service.api.server import StartupError, check_environment
+
+    check_environment(
+        {
+            "OXYRULE_SERVICE_HOST": "10.0.0.7",
+            "OXYRULE_SERVICE_PORT_HTTP": "80",
+            "OXYRULE_PORT_80_TCP_ADDR": "10.0.0.7",
+            "OXYRULE_RULES_DIR": "/etc/oxyrule/rules",
+        }
+    )
+    with pytest.raises(StartupError, match="OXYRULE_RULE_DIR"):
+        check_environment({"OXYRULE_RULE_DIR": "/etc/oxyrule/rules"})
