@@ -70,6 +70,11 @@ class FactCatalogue(Mapping[str, FactSpec]):
         """Where `name` stands in catalogue order (for stable, readable listings)."""
         return self._order[name]
 
+    @property
+    def positions(self) -> Mapping[str, int]:
+        """`position` of every fact, as a mapping (a sort key without a call per item)."""
+        return self._order
+
     def check(self, facts: Mapping[str, object]) -> None:
         """Raise `FactError` listing every fact that is unknown or breaks its spec.
 

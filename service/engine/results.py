@@ -19,13 +19,23 @@ from service.engine.slots import slot_setters
 __all__ = ["EvaluationContext", "LeafTrace", "RuleResult"]
 
 
-@dataclass(frozen=True, slots=True)
+@dataclass(frozen=True, slots=True, init=False)
 class EvaluationContext:
     """What every result of one evaluation shares."""
 
     facts: Mapping[str, FactValue]
     states: Sequence[TruthValue]
     leaves: Sequence[Leaf]
+
+    def __init__(
+        self, facts: Mapping[str, FactValue], states: Sequence[TruthValue], leaves: Sequence[Leaf]
+    ) -> None:
+        _CONTEXT_SLOTS[0](self, facts)
+        _CONTEXT_SLOTS[1](self, states)
+        _CONTEXT_SLOTS[2](self, leaves)
+
+
+_CONTEXT_SLOTS = slot_setters(EvaluationContext, "facts", "states", "leaves")
 
 
 @dataclass(frozen=True, slots=True)

@@ -16,12 +16,13 @@ from service.engine import (
     load_ruleset,
 )
 from service.engine.facts import FactValue
+from service.engine.results import EvaluationContext
 from service.engine.verdict import decide
 
 SAMPLE = Path(__file__).parent / "data" / "sample"
 RULES = Path(__file__).resolve().parents[2] / "rules"
 # Classes whose __init__ sets the slots itself (service/engine/slots.py).
-QUICK = [RuleResult, MechanismAssessment, FindingResult, Verdict, DataRequest]
+QUICK = [EvaluationContext, RuleResult, MechanismAssessment, FindingResult, Verdict, DataRequest]
 
 
 @pytest.mark.parametrize("cls", QUICK, ids=lambda cls: cls.__name__)
