@@ -16,6 +16,12 @@ Two kinds of trouble, kept apart:
   reading goes on. An impossible value (``value-out-of-range``, severity error) is dropped, not
   the whole Bundle: the rest is still assessed, and the error finding tells the rules that the
   data cannot be fully trusted (clinical-logic.md §2).
+
+Each entry, Observation and subject reference is first offered to a plain path that checks the
+usual shape with ``type()`` tests and builds no FHIRPath; what it is not sure of it declines
+before recording anything, and the thorough reader reads that part from the start and locates
+every problem. The two agree on every input (``tests/fhir/test_plain_path.py``); the plain path
+is there for speed only (``python -m tests.benchmarks.stages``).
 """
 
 from __future__ import annotations
