@@ -30,7 +30,7 @@ router = APIRouter(tags=["assessment"])
 NO_STORE = {"Cache-Control": "no-store"}
 
 
-def _schema(description: str) -> dict[str, Any]:
+def _outcome_doc(description: str) -> dict[str, Any]:
     return {"description": description, "content": {"application/fhir+json": {}}}
 
 
@@ -68,17 +68,17 @@ RESPONSES: dict[int | str, dict[str, Any]] = {
         "description": "The result Bundle (NDJSON: one result or OperationOutcome per line)",
         "content": {"application/fhir+json": {}, "application/fhir+ndjson": {}},
     },
-    400: _schema("Not JSON, not a Bundle, or a bad parameter (OperationOutcome)"),
-    401: _schema("Authentication required or failed (OperationOutcome)"),
-    406: _schema("No acceptable answer format (OperationOutcome)"),
-    413: _schema("Body over the size limit (OperationOutcome)"),
-    415: _schema("Unsupported Content-Type (OperationOutcome)"),
-    422: _schema("A Bundle that cannot be assessed, each problem located (OperationOutcome)"),
-    429: _schema("Too many assessments in progress; retry (OperationOutcome)"),
+    400: _outcome_doc("Not JSON, not a Bundle, or a bad parameter (OperationOutcome)"),
+    401: _outcome_doc("Authentication required or failed (OperationOutcome)"),
+    406: _outcome_doc("No acceptable answer format (OperationOutcome)"),
+    413: _outcome_doc("Body over the size limit (OperationOutcome)"),
+    415: _outcome_doc("Unsupported Content-Type (OperationOutcome)"),
+    422: _outcome_doc("A Bundle that cannot be assessed, each problem located (OperationOutcome)"),
+    429: _outcome_doc("Too many assessments in progress; retry (OperationOutcome)"),
 }
 
 
-def _count(service: ServiceState, record: RequestRecord, result: Tally) -> None:
+def _count(service: ServiceState, result: Tally) -> None:
     if result.pattern is not None:
         service.metrics.verdict(result.pattern, result.findings)
     elif result.rejected_code is not None:
@@ -122,7 +122,7 @@ async def assess_hypoxaemia(request: Request) -> Response:
         raise ApiError(status, exc.operation_outcome()) from exc
     summary = tally(result)
     record.pattern = summary.pattern
-    _count(service, record, summary)
+    _count(service, summary)
     return Response(orjson.dumps(result), media_type=media_type, headers=NO_STORE)
 
 
@@ -144,7 +144,7 @@ async def _ndjson(
         record.lines = (record.lines or 0) + 1
         if result.pattern is None:
             record.rejected = (record.rejected or 0) + 1
-        _count(service, record, result)
+        _count(service, result)
 
     return NdjsonAnswer(
         first,
