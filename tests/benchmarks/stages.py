@@ -12,49 +12,26 @@ from __future__ import annotations
 
 import argparse
 import statistics
-import time
-from collections.abc import Callable, Mapping
+from collections.abc import Callable
 from pathlib import Path
 
 import orjson
 
-import service.assess.assess as assess_module
-from service.engine import Evaluation, RuleSet, evaluate
+from service.engine import evaluate
 from service.engine.facts import FactValue
 from service.fhir.extract import read_bundle
 from service.runtime import Runtime
+from tests.benchmarks.assess import median_us
 
 BUNDLE = Path(__file__).resolve().parents[2] / "fixtures" / "demo" / "altitude-visitor.bundle.json"
 
 
-def median_us(action: Callable[[], object], rounds: int) -> float:
-    """Median wall time of ``action`` in microseconds (batches of 10 to beat timer noise)."""
-    for _ in range(max(rounds // 10, 5)):
-        action()
-    samples = []
-    for _ in range(rounds):
-        start = time.perf_counter()
-        for _ in range(10):
-            action()
-        samples.append((time.perf_counter() - start) / 10 * 1e6)
-    return statistics.median(samples)
-
-
 def engine_facts(runtime: Runtime, data: object) -> dict[str, FactValue]:
-    """The facts the assess path gives ``evaluate`` for ``data`` (captured, not rebuilt)."""
-    captured: list[Mapping[str, FactValue]] = []
-    original = assess_module.evaluate
-
-    def capture(ruleset: RuleSet, facts: Mapping[str, FactValue]) -> Evaluation:
-        captured.append(dict(facts))
-        return original(ruleset, facts)
-
-    assess_module.evaluate = capture
-    try:
-        runtime.assess_bundle(data)
-    finally:
-        assess_module.evaluate = original
-    return dict(captured[0])
+    """The facts the assess path hands ``evaluate`` for ``data``: the index gas's facts,
+    which the engine accepted (they are in its catalogue)."""
+    assessment = runtime.assess_intake(read_bundle(data))
+    catalogue = runtime.ruleset.catalogue
+    return {k: v for k, v in assessment.index.facts.items() if k in catalogue}
 
 
 def main() -> None:
