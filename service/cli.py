@@ -31,7 +31,13 @@ def _serve(args: argparse.Namespace) -> int:
     # The web framework is imported here and nowhere else on the command-line path.
     from service.api.server import serve
 
-    return serve(host=args.host, port=args.port, workers=args.workers, rules=args.rules)
+    return serve(
+        host=args.host,
+        port=args.port,
+        workers=args.workers,
+        rules=args.rules,
+        mllp_port=args.mllp_port,
+    )
 
 
 def _assess(args: argparse.Namespace) -> int:
@@ -202,6 +208,12 @@ def build_parser() -> argparse.ArgumentParser:
         "--workers", type=int, metavar="N", help="server processes (default: OXYRULE_WORKERS or 1)"
     )
     serve.add_argument("--rules", type=Path, help="rule directory (default: OXYRULE_RULES_DIR)")
+    serve.add_argument(
+        "--mllp-port",
+        type=int,
+        metavar="N",
+        help="also accept HL7 v2 over MLLP on this port (default: OXYRULE_MLLP_PORT, off)",
+    )
     serve.set_defaults(handler=_serve)
     assess = commands.add_parser(
         "assess",

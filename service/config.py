@@ -89,6 +89,21 @@ class ServerSettings(BaseSettings):
     )
     jwt_leeway_seconds: int = Field(30, ge=0, le=300)
     jwt_required_scope: str | None = Field(None, description="a scope every JWT must carry")
+    # HL7 v2 over MLLP beside HTTP (off unless a port is set; one worker process only).
+    mllp_port: int | None = Field(None, ge=1, le=65535, description="MLLP listener port")
+    mllp_max_frame_bytes: int = Field(1024 * 1024, ge=1024, le=64 * 1024 * 1024)
+    mllp_idle_timeout_s: float = Field(300.0, gt=0, le=86_400)
+
+    @model_validator(mode="after")
+    def _check_mllp(self) -> ServerSettings:
+        if self.mllp_port is not None and self.workers > 1:
+            raise ValueError(
+                "OXYRULE_MLLP_PORT needs OXYRULE_WORKERS=1 (each worker would bind the port); "
+                "run `oxyrule mllp` as its own process to scale HTTP workers"
+            )
+        if self.mllp_port is not None and self.mllp_port == self.port:
+            raise ValueError("OXYRULE_MLLP_PORT must differ from OXYRULE_PORT")
+        return self
 
     @model_validator(mode="after")
     def _check_authentication(self) -> ServerSettings:

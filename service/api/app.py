@@ -22,7 +22,7 @@ from service.api.capability import capability_statement, operation_definition
 from service.api.cors import FhirCorsMiddleware
 from service.api.errors import ApiError, outcome_response, status_outcome
 from service.api.middleware import RequestMiddleware
-from service.api.routes import assess, conformance, health
+from service.api.routes import assess, conformance, health, hl7v2
 from service.api.state import ServiceState
 from service.assess.result import CAUTION
 from service.config import ServerSettings, Settings
@@ -110,8 +110,24 @@ def create_app(
 
     @asynccontextmanager
     async def lifespan(_app: FastAPI) -> AsyncIterator[None]:
-        yield
-        service.draining = True
+        listener = None
+        if server.mllp_port is not None:
+            from service.hl7v2.mllp import start_mllp
+
+            listener = await start_mllp(
+                runtime,
+                server.host,
+                server.mllp_port,
+                max_frame_bytes=server.mllp_max_frame_bytes,
+                idle_timeout_s=server.mllp_idle_timeout_s,
+            )
+        try:
+            yield
+        finally:
+            service.draining = True
+            if listener is not None:
+                listener.close()
+                await listener.wait_closed()
 
     app = FastAPI(
         title="oxyrule",
@@ -125,6 +141,7 @@ def create_app(
     app.openapi = lambda: _openapi(app)  # type: ignore[method-assign]
     app.include_router(assess.router)
     app.include_router(conformance.router)
+    app.include_router(hl7v2.router)
     app.include_router(health.router)
     app.add_exception_handler(ApiError, _api_error)
     app.add_exception_handler(HTTPException, _http_error)

@@ -32,6 +32,7 @@ FIELDS = (
     "port",
     "workers",
     "auth",
+    "mllp_port",
     "setting",
 )
 

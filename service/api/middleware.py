@@ -30,9 +30,12 @@ from service.api.state import RequestRecord, ServiceState
 log = logging.getLogger(REQUEST_LOGGER)
 
 ASSESS_PATH = "/fhir/$assess-hypoxaemia"
+V2_PATH = "/hl7v2"
+LIMITED = frozenset({ASSESS_PATH, V2_PATH})  # the routes that assess: counted in flight
 ROUTES = frozenset(
     {
         ASSESS_PATH,
+        V2_PATH,
         "/fhir/metadata",
         "/fhir/OperationDefinition/assess-hypoxaemia",
         "/healthz",
@@ -82,7 +85,7 @@ class RequestMiddleware:
             await send(message)
 
         service = self.service
-        limited = record.route == ASSESS_PATH
+        limited = record.route in LIMITED
         try:
             if limited and service.in_flight >= service.server.max_concurrent_requests:
                 body = outcome(

@@ -119,10 +119,23 @@ def serve(
     port: int | None = None,
     workers: int | None = None,
     rules: Path | None = None,
+    mllp_port: int | None = None,
 ) -> int:
     """Run the service until stopped; the process exit status."""
-    overrides = {"host": host, "port": port, "workers": workers, "rules_dir": rules}
-    names = {"host": "--host", "port": "--port", "workers": "--workers", "rules_dir": "--rules"}
+    overrides = {
+        "host": host,
+        "port": port,
+        "workers": workers,
+        "rules_dir": rules,
+        "mllp_port": mllp_port,
+    }
+    names = {
+        "host": "--host",
+        "port": "--port",
+        "workers": "--workers",
+        "rules_dir": "--rules",
+        "mllp_port": "--mllp-port",
+    }
     flags = {k: flag for k, flag in names.items() if overrides[k] is not None}
     try:
         settings, server = load_settings(overrides, flags)
@@ -141,6 +154,7 @@ def serve(
             "workers": server.workers,
             "ruleset": f"{ruleset.id}|{ruleset.version}",
             "auth": ",".join(service.auth.methods) or "off",
+            "mllp_port": server.mllp_port,
         },
     )
     common: dict[str, Any] = {

@@ -1,0 +1,69 @@
+"""``POST /hl7v2``: an HL7 v2 ORU^R01 (ER7 text) in, an ACK out — or the FHIR result Bundle
+(``Accept: application/fhir+json``), or an ORU^R01 carrying the result (``?reply=result``)."""
+
+from __future__ import annotations
+
+from fastapi import APIRouter, Request, Response
+
+from service.api.body import read_bounded
+from service.api.deps import caller_of, pressure_unit, record_of, service_of
+from service.api.errors import ApiError, outcome
+from service.hl7v2.handle import Reply, handle_v2
+
+router = APIRouter(tags=["hl7v2"])
+
+V2_MEDIA_TYPES = ("x-application/hl7-v2+er7", "application/hl7-v2", "text/plain")
+NO_STORE = {"Cache-Control": "no-store"}
+
+RESPONSES: dict[int | str, dict[str, object]] = {
+    200: {"description": "ACK with MSA-1 AA (or the FHIR result / ORU^R01 result on request)"},
+    400: {"description": "ACK with MSA-1 AR: unsupported type, version or processing id"},
+    401: {"description": "Authentication required or failed (OperationOutcome)"},
+    413: {"description": "Body over the size limit (OperationOutcome)"},
+    415: {"description": "Not an HL7 v2 media type (OperationOutcome)"},
+    422: {"description": "ACK with MSA-1 AE and ERR segments naming segment, field and reason"},
+}
+
+
+def _media_type(content_type: str | None) -> str:
+    base = (content_type or "").split(";", 1)[0].strip().lower()
+    if base not in V2_MEDIA_TYPES:
+        raise ApiError(
+            415,
+            outcome(
+                "not-supported",
+                f"send the message as one of {', '.join(V2_MEDIA_TYPES)}",
+                "http.Content-Type",
+            ),
+        )
+    return base
+
+
+def _reply(request: Request) -> Reply:
+    if request.query_params.get("reply") == "result":
+        return "result"
+    accept = request.headers.get("accept", "")
+    return "fhir" if "application/fhir+json" in accept else "ack"
+
+
+@router.post("/hl7v2", responses=RESPONSES)
+async def assess_v2(request: Request) -> Response:
+    """Assess an HL7 v2 ORU^R01 result message and acknowledge it.
+
+    AA only once the message was fully assessed; AE (with ERR segments naming segment, field
+    and reason) when it parsed but could not be assessed; AR for an unsupported message type,
+    version or processing id. MSA-2 echoes MSH-10. Decision support for qualified clinicians,
+    not a diagnosis.
+    """
+    service, record = service_of(request), record_of(request)
+    caller_of(request)
+    base = _media_type(request.headers.get("content-type"))
+    units = pressure_unit(request.query_params.get("units"))
+    raw = await read_bounded(request, service.server.max_body_bytes)
+    record.bytes_in = len(raw)
+    text = raw.decode("utf-8", errors="replace")
+    answer = handle_v2(text, service.runtime, reply=_reply(request), pressure_unit=units)
+    media_type = answer.media_type
+    if media_type.startswith("application/hl7-v2"):
+        media_type = f"{base}; charset=utf-8"
+    return Response(answer.body, status_code=answer.status, media_type=media_type, headers=NO_STORE)
