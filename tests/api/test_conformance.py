@@ -71,7 +71,9 @@ def test_openapi_documents_every_route_with_its_docstring(client: TestClient) ->
         "/healthz",
         "/readyz",
         "/metrics",
+        "/hl7v2",
     }
+    assert "not a diagnosis" in paths["/hl7v2"]["post"]["description"]
     operation = paths["/fhir/$assess-hypoxaemia"]["post"]
     assert "not a diagnosis" in operation["description"]
     assert "application/fhir+ndjson" in operation["requestBody"]["content"]
