@@ -13,6 +13,7 @@ from dataclasses import dataclass, field
 from types import MappingProxyType
 
 from service.intake.model import Fio2Source, Quantity, Specimen
+from service.physiology.oxygen_delivery import OxygenDevice
 from service.physiology.units import Dimension
 
 # --- Code system and profile URLs -----------------------------------------------------------
@@ -171,17 +172,7 @@ def concept_for(system: str, code: str) -> Concept | None:
 
 # --- Oxygen device (LOINC 107117-4 valueCodeableConcept) -------------------------------------
 
-OXYGEN_DEVICES = frozenset(
-    {
-        "nasal-cannula",
-        "simple-mask",
-        "venturi-mask",
-        "non-rebreather-mask",
-        "high-flow-nasal",
-        "ventilator",
-        "none-room-air",
-    }
-)
+OXYGEN_DEVICES = frozenset(device.value for device in OxygenDevice)
 
 # SNOMED CT physical-object concepts -> our device codes. Only codes that several independent
 # public code tables and HL7 IG ConceptMaps name the same way (secondary evidence, as "2ry" in

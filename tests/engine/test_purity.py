@@ -6,6 +6,8 @@ from pathlib import Path
 
 import pytest
 
+from tests.test_import_direction import imported_modules
+
 ENGINE = Path(__file__).resolve().parents[2] / "service" / "engine"
 MODULES = sorted(ENGINE.glob("*.py"))
 THIRD_PARTY = {"pydantic", "pydantic_core", "yaml"}
@@ -15,14 +17,7 @@ IO_CALLS = {"open", "read_bytes", "read_text", "write_bytes", "write_text", "rgl
 
 
 def _imports(path: Path) -> set[str]:
-    tree = ast.parse(path.read_text(encoding="utf-8"))
-    names: set[str] = set()
-    for node in ast.walk(tree):
-        if isinstance(node, ast.Import):
-            names.update(alias.name for alias in node.names)
-        elif isinstance(node, ast.ImportFrom) and node.module and node.level == 0:
-            names.add(node.module)
-    return names
+    return imported_modules(path)
 
 
 def _calls(path: Path) -> set[str]:
