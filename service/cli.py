@@ -196,7 +196,9 @@ def build_parser() -> argparse.ArgumentParser:
     )
     parser.add_argument("--version", action="version", version=f"oxyrule {__version__}")
     commands = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
-    demo = commands.add_parser("demo", help="assess the built-in invented scenarios and summarise each")
+    demo = commands.add_parser(
+        "demo", help="assess the built-in invented scenarios and summarise each"
+    )
     demo.add_argument("--json", action="store_true", help="print the result Bundle instead")
     demo.set_defaults(handler=_demo)
     serve = commands.add_parser(
