@@ -6,7 +6,8 @@ worker thread (the event loop keeps serving other connections meanwhile) and ans
 order, with an ACK only once the message has been processed. A frame that cannot be used
 (larger than ``max_frame_bytes``, or cut short by a new start block) is answered AR naming the
 reason, and the connection goes on. A connection idle for ``idle_timeout_s`` is closed, and so
-is one whose client stops reading our answers for as long. Nothing a client sends can stop
+is one whose client stops reading our answers for as long (reset, its unread answers dropped,
+so that it holds neither a task nor a buffer). Nothing a client sends can stop
 the listener or touch another connection: every failure ends at most its own connection.
 
 MLLP has no security of its own: run it on a private network, a VPN or behind a TLS tunnel.
@@ -19,6 +20,7 @@ import asyncio
 import contextlib
 import functools
 import logging
+from collections.abc import Callable
 
 from service.hl7v2.errors import ErrorCode, V2Error
 from service.hl7v2.framing import BrokenFrame, Frame, FrameDecoder
@@ -31,7 +33,41 @@ DEFAULT_MAX_FRAME_BYTES = 1024 * 1024  # a blood-gas ORU^R01 is a few kB
 DEFAULT_IDLE_TIMEOUT_S = 300.0
 READ_SIZE = 64 * 1024
 
+# The runtime to answer with, or a function giving the current one (read per message, so a
+# rule-set reload by the HTTP app reaches MLLP connections too, and a message in progress
+# keeps the runtime it started with).
+RuntimeSource = Runtime | Callable[[], Runtime]
+
+
+def _current(source: RuntimeSource) -> Callable[[], Runtime]:
+    if isinstance(source, Runtime):
+        return lambda: source
+    return source
+
+
 log = logging.getLogger("oxyrule.hl7v2.mllp")
+
+
+def hl7_library_loggers() -> list[logging.Logger]:
+    """The loggers of python-hl7, which log the text of a field they cannot un-escape."""
+    import hl7.containers  # type: ignore[import-untyped]
+    import hl7.util  # type: ignore[import-untyped]
+
+    return [hl7.util.logger, hl7.containers.logger]
+
+
+def mute_hl7_library_logs() -> None:
+    """Silence python-hl7's own logging.
+
+    On a bad escape sequence it logs the whole field at WARNING or ERROR ("Error decoding
+    value [..], field [1961\\Q07\\23]"): a birth date, a result value, an identifier. Its
+    loggers are named after its source files, and with no handler configured Python prints
+    such records on stderr. The adapter reports the problem itself, located and without the
+    text, so nothing is lost. Found by ``tests/fuzz/hl7v2.py``.
+    """
+    for logger in hl7_library_loggers():
+        logger.disabled = True
+        logger.propagate = False
 
 
 def frame(body: bytes) -> bytes:
@@ -57,7 +93,7 @@ class _Connection:
         self,
         reader: asyncio.StreamReader,
         writer: asyncio.StreamWriter,
-        runtime: Runtime,
+        runtime: Callable[[], Runtime],
         max_frame_bytes: int,
         idle_timeout_s: float,
     ) -> None:
@@ -75,11 +111,25 @@ class _Connection:
         except Exception as exc:  # one connection's trouble never reaches the listener
             log.error("MLLP connection from %s failed: %s", self.peer, type(exc).__name__)
         finally:
-            self.writer.close()
-            with contextlib.suppress(Exception):
-                await self.writer.wait_closed()
+            await self._close()
         if self.decoder.discarded:
             log.warning("%s: %d bytes outside any frame dropped", self.peer, self.decoder.discarded)
+
+    async def _close(self) -> None:
+        """Close, and give up on answers the peer does not take.
+
+        A plain close sends what is still buffered first, and waits for it: for a peer that
+        has stopped reading, for ever (the connection and its buffer would stay). After the
+        idle timeout the connection is aborted instead (a reset; the unread answers dropped).
+        """
+        self.writer.close()
+        try:
+            await asyncio.wait_for(self.writer.wait_closed(), self.idle_timeout_s)
+        except TimeoutError:
+            log.info("MLLP connection from %s not reading its answers: reset", self.peer)
+            self.writer.transport.abort()
+        except Exception:  # closing a connection that already failed: nothing more to do
+            self.writer.transport.abort()
 
     async def _serve(self) -> None:
         while True:
@@ -99,7 +149,7 @@ class _Connection:
 
     async def _answer(self, event: Frame | BrokenFrame) -> None:
         if isinstance(event, Frame):
-            handle = functools.partial(handle_v2, _text(event.payload), self.runtime)
+            handle = functools.partial(handle_v2, _text(event.payload), self.runtime())
             response = await asyncio.get_running_loop().run_in_executor(None, handle)
             body, code = response.body, response.ack_code
         else:
@@ -111,7 +161,7 @@ class _Connection:
 
 
 async def start_mllp(
-    runtime: Runtime,
+    runtime: RuntimeSource,
     host: str,
     port: int,
     *,
@@ -121,13 +171,17 @@ async def start_mllp(
     """Start listening (port 0: any free port) and return the server, already serving.
 
     For running beside another asyncio server (e.g. in the HTTP app's lifespan); close it
-    with ``server.close()`` and ``await server.wait_closed()``.
+    with ``server.close()`` and ``await server.wait_closed()``. ``runtime`` may be a function
+    that gives the current runtime (see ``RuntimeSource``).
     """
     if idle_timeout_s <= 0:
         raise ValueError("idle_timeout_s must be positive")
+    mute_hl7_library_logs()
+
+    current = _current(runtime)
 
     async def connected(reader: asyncio.StreamReader, writer: asyncio.StreamWriter) -> None:
-        await _Connection(reader, writer, runtime, max_frame_bytes, idle_timeout_s).run()
+        await _Connection(reader, writer, current, max_frame_bytes, idle_timeout_s).run()
 
     FrameDecoder(max_frame_bytes)  # checks the limit before binding
     return await asyncio.start_server(connected, host, port)
