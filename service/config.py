@@ -68,6 +68,12 @@ class ServerSettings(BaseSettings):
     max_body_bytes: int = Field(
         5 * 1024 * 1024, ge=1024, le=512 * 1024 * 1024, description="largest Bundle or NDJSON line"
     )
+    body_timeout_s: float = Field(
+        30.0,
+        gt=0,
+        le=3600,
+        description="seconds to receive a whole body (an NDJSON body: each line); then 408",
+    )
     max_concurrent_requests: int = Field(
         64, ge=1, le=10_000, description="assessments in flight per process before 429"
     )

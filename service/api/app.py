@@ -18,14 +18,15 @@ from starlette.exceptions import HTTPException
 
 from service import __version__
 from service.api.auth import Authenticator
-from service.api.capability import capability_statement, operation_definition
 from service.api.cors import FhirCorsMiddleware
 from service.api.errors import ApiError, outcome_response, status_outcome
-from service.api.middleware import RequestMiddleware
+from service.api.middleware import CredentialsMiddleware, RequestMiddleware
+from service.api.reload import handle_sighup, install_runtime, stop_handling_sighup
 from service.api.routes import assess, conformance, health, hl7v2
 from service.api.state import ServiceState
 from service.assess.result import CAUTION
 from service.config import ServerSettings, Settings
+from service.hl7v2.mllp import mute_hl7_library_logs
 from service.runtime import Runtime
 
 DESCRIPTION = (
@@ -96,17 +97,12 @@ def create_app(
         AuthConfigError: the authentication settings cannot be used.
     """
     server = server or ServerSettings()
-    runtime = runtime or Runtime.load(settings or Settings())
+    settings = settings or (runtime.settings if runtime is not None else Settings())
+    runtime = runtime or Runtime.load(settings)
     auth = Authenticator.from_settings(server)
-    service = ServiceState(runtime=runtime, server=server, auth=auth)
-    service.conformance = {
-        "CapabilityStatement": capability_statement(runtime, auth.methods),
-        "OperationDefinition": operation_definition(),
-    }
-    ruleset = runtime.ruleset
-    service.metrics.ruleset.set(
-        1, (("id", ruleset.id), ("version", ruleset.version), ("hash", ruleset.content_hash))
-    )
+    service = ServiceState(runtime=runtime, server=server, auth=auth, settings=settings)
+    install_runtime(service, runtime)
+    mute_hl7_library_logs()  # python-hl7 would log the fields it cannot read: patient data
 
     @asynccontextmanager
     async def lifespan(_app: FastAPI) -> AsyncIterator[None]:
@@ -115,16 +111,19 @@ def create_app(
             from service.hl7v2.mllp import start_mllp
 
             listener = await start_mllp(
-                runtime,
+                lambda: service.runtime,  # a reload reaches the MLLP listener too
                 server.host,
                 server.mllp_port,
                 max_frame_bytes=server.mllp_max_frame_bytes,
                 idle_timeout_s=server.mllp_idle_timeout_s,
             )
+        reloads = handle_sighup(service)
         try:
             yield
         finally:
             service.draining = True
+            if reloads:
+                stop_handling_sighup()
             if listener is not None:
                 listener.close()
                 await listener.wait_closed()
@@ -136,6 +135,7 @@ def create_app(
         lifespan=lifespan,
         docs_url="/docs",
         redoc_url=None,
+        swagger_ui_oauth2_redirect_url=None,  # no OAuth flow in the docs page: one route fewer
     )
     app.state.service = service
     app.openapi = lambda: _openapi(app)  # type: ignore[method-assign]
@@ -146,6 +146,8 @@ def create_app(
     app.add_exception_handler(ApiError, _api_error)
     app.add_exception_handler(HTTPException, _http_error)
     app.add_exception_handler(RequestValidationError, _validation_error)
+    if auth.enabled:
+        app.add_middleware(CredentialsMiddleware, service=service)
     if server.cors_origins:
         app.add_middleware(
             FhirCorsMiddleware,

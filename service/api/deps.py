@@ -34,7 +34,10 @@ def record_of(request: Request) -> RequestRecord:
 
 
 def caller_of(request: Request) -> Caller:
-    """The authenticated caller, or a 401/403 ``ApiError``."""
+    """The authenticated caller (checked once, by the middleware), or a 401/403 ``ApiError``."""
+    caller = request.scope.get("state", {}).get("caller")
+    if isinstance(caller, Caller):
+        return caller
     return service_of(request).auth.check(request.headers.get("authorization"))
 
 

@@ -34,6 +34,7 @@ HttpIssueType = Literal[
     "forbidden",
     "exception",
     "transient",
+    "timeout",
 ]
 
 
@@ -103,6 +104,7 @@ STATUS_ISSUE: dict[int, tuple[HttpIssueType, str]] = {
     404: ("not-found", "no such endpoint; the operation is POST /fhir/$assess-hypoxaemia"),
     405: ("not-supported", "this method is not supported on this endpoint"),
     406: ("not-supported", "no acceptable response format"),
+    408: ("timeout", "the request did not arrive in time"),
     413: ("too-long", "the request is too large"),
     415: ("not-supported", "unsupported media type"),
     429: ("throttled", "too many requests in progress; retry shortly"),

@@ -34,6 +34,8 @@ FIELDS = (
     "auth",
     "mllp_port",
     "setting",
+    "problem",
+    "previous",
 )
 
 REQUEST_LOGGER = "oxyrule.http"
@@ -62,7 +64,8 @@ def log_config(level: str) -> dict[str, Any]:
     """A ``logging.config.dictConfig`` for the app and uvicorn: JSON lines on stderr.
 
     Uvicorn's access log is off (the app writes its own line per request); its error log keeps
-    its fixed messages, formatted as JSON.
+    its fixed messages, formatted as JSON. python-hl7's loggers are silenced: they quote the
+    fields they cannot read, which hold patient data.
     """
     handler = {"class": "logging.StreamHandler", "formatter": "json", "stream": "ext://sys.stderr"}
     loggers = {
@@ -70,6 +73,11 @@ def log_config(level: str) -> dict[str, Any]:
         for name in ("oxyrule", "uvicorn", "uvicorn.error")
     }
     loggers["uvicorn.access"] = {"handlers": [], "level": "WARNING", "propagate": False}
+    # python-hl7 logs the text of fields it cannot un-escape (patient data): never written.
+    from service.hl7v2.mllp import hl7_library_loggers
+
+    for logger in hl7_library_loggers():
+        loggers[logger.name] = {"handlers": [], "level": "CRITICAL", "propagate": False}
     return {
         "version": 1,
         "disable_existing_loggers": False,

@@ -7,9 +7,19 @@ answer is timed and counted whole. For each request it
   500's diagnostics); a caller's own id is not reused, as it might carry an identifier;
 * refuses an assessment with 429 when ``max_concurrent_requests`` are already in flight in
   this process (health and metadata routes are never limited, so probes still answer);
+* records a client that went away before its body arrived (``ClientDisconnect``) as status
+  499, the convention of common proxies, without an error: that is the client's doing;
 * turns any exception that escaped the app into a 500 OperationOutcome without a traceback,
   logged with the correlation id, the exception type and its frames, never its text;
 * writes one JSON log line and updates the request metrics.
+
+``CredentialsMiddleware``, inside it and inside CORS (so that a refusal still carries the CORS
+headers a browser needs to read it), checks the caller's credentials when authentication is
+configured, on every path but the public ones (``PUBLIC``: liveness, readiness and the
+CapabilityStatement, which FHIR and SMART clients read to learn how to authenticate) and CORS
+preflights (browsers send no credentials with those). A refusal is a 401/403 OperationOutcome
+before any routing, so an unauthenticated caller learns nothing of the routes, the docs or the
+metrics.
 """
 
 from __future__ import annotations
@@ -21,9 +31,10 @@ import uuid
 from typing import Any
 
 from starlette.datastructures import MutableHeaders
+from starlette.requests import ClientDisconnect
 from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
-from service.api.errors import outcome, outcome_response
+from service.api.errors import ApiError, outcome, outcome_response
 from service.api.logs import REQUEST_LOGGER
 from service.api.state import RequestRecord, ServiceState
 
@@ -32,6 +43,9 @@ log = logging.getLogger(REQUEST_LOGGER)
 ASSESS_PATH = "/fhir/$assess-hypoxaemia"
 V2_PATH = "/hl7v2"
 LIMITED = frozenset({ASSESS_PATH, V2_PATH})  # the routes that assess: counted in flight
+# Open without credentials even when authentication is configured.
+PUBLIC = frozenset({"/healthz", "/readyz", "/fhir/metadata"})
+CLIENT_CLOSED = 499  # the client closed the connection before the answer (proxies' convention)
 ROUTES = frozenset(
     {
         ASSESS_PATH,
@@ -50,6 +64,22 @@ ROUTES = frozenset(
 def route_label(path: str) -> str:
     """The route for logs and metrics: a known path, or ``other`` (bounded label values)."""
     return path if path in ROUTES else "other"
+
+
+def _header(scope: Scope, name: bytes) -> str | None:
+    for key, value in scope["headers"]:
+        if key == name:
+            text: str = value.decode("latin-1")
+            return text
+    return None
+
+
+def needs_credentials(scope: Scope) -> bool:
+    """Whether this request must carry credentials (when authentication is configured)."""
+    if scope["path"] in PUBLIC:
+        return False
+    preflight = scope["method"] == "OPTIONS" and _header(scope, b"access-control-request-method")
+    return not preflight
 
 
 def frames(exc: BaseException) -> list[str]:
@@ -105,6 +135,8 @@ class RequestMiddleware:
                 if limited:
                     service.in_flight -= 1
                     service.metrics.in_flight.set(service.in_flight)
+        except ClientDisconnect:
+            record.status = record.status or CLIENT_CLOSED  # nobody is left to answer
         except Exception as exc:  # the last resort: no 500 leaves with a traceback
             log.error(
                 "internal error",
@@ -128,6 +160,24 @@ class RequestMiddleware:
             seconds = time.perf_counter() - started
             service.metrics.request(record.route, record.method, record.status, seconds)
             _log_request(record, seconds)
+
+
+class CredentialsMiddleware:
+    """See the module docstring; added only when authentication is configured."""
+
+    def __init__(self, app: ASGIApp, service: ServiceState) -> None:
+        self.app = app
+        self.auth = service.auth
+
+    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
+        if scope["type"] == "http" and needs_credentials(scope):
+            try:
+                caller = self.auth.check(_header(scope, b"authorization"))
+            except ApiError as refusal:
+                await refusal.response()(scope, receive, send)
+                return
+            scope.setdefault("state", {})["caller"] = caller
+        await self.app(scope, receive, send)
 
 
 def _log_request(record: RequestRecord, seconds: float) -> None:

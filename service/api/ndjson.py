@@ -4,7 +4,9 @@ The answer is an ASGI response that reads the request's remaining lines itself, 
 output stream together and memory stays bounded whatever the body's length. Each line gets one
 output line: a result Bundle, or an OperationOutcome naming the line (``service.batch.answer``,
 the same as the CLI). A line over the size limit is answered with a ``too-long`` issue; a line
-that breaks the service unexpectedly with an ``exception`` issue and the correlation id.
+that breaks the service unexpectedly with an ``exception`` issue and the correlation id. When
+the rest of the body stops arriving (``OXYRULE_BODY_TIMEOUT_S`` for one line), the answer ends
+with a ``timeout`` OperationOutcome line instead of hanging.
 """
 
 from __future__ import annotations
@@ -20,7 +22,7 @@ from starlette.responses import Response
 from starlette.types import Receive, Scope, Send
 
 from service.api.body import Line
-from service.api.errors import outcome
+from service.api.errors import ApiError, outcome
 from service.api.logs import REQUEST_LOGGER
 from service.api.middleware import frames
 from service.api.tally import Tally, tally_json
@@ -98,4 +100,9 @@ class NdjsonAnswer(Response):
                 await asyncio.sleep(0)  # let other requests run between lines of a long stream
         except ClientDisconnect:
             return  # the caller left: nobody to answer
+        except ApiError as refusal:  # the rest of the body came too slowly: say so, and stop
+            self.on_line(Tally(None, rejected_code="timeout"))
+            body = orjson.dumps(refusal.body) + b"\n"
+            await send({"type": "http.response.body", "body": body, "more_body": False})
+            return
         await send({"type": "http.response.body", "body": b"", "more_body": False})

@@ -14,8 +14,10 @@ import logging.config
 import os
 import re
 import sys
+import time
 from collections.abc import Mapping
 from pathlib import Path
+from types import FrameType
 from typing import Any
 
 import uvicorn
@@ -26,12 +28,54 @@ from pydantic_settings import SettingsError
 from service.api.app import create_app
 from service.api.auth import AuthConfigError
 from service.api.logs import SERVER_LOGGER, log_config
+from service.api.state import ServiceState
 from service.config import ServerSettings, Settings
 from service.engine import RuleSetError
 from service.exceptions import ServiceError
 
 PREFIX = "OXYRULE_"
 EXIT_OK, EXIT_FAILED = 0, 1
+
+
+# After SIGTERM the server keeps answering, with /readyz at 503, for this long before it stops
+# accepting connections; then requests in flight get up to GRACEFUL_SECONDS to finish. The
+# Deployment's preStop hook already waits 5 s before the signal, so this window is short.
+DRAIN_SECONDS = 1.0
+GRACEFUL_SECONDS = 10
+
+
+class DrainingServer(uvicorn.Server):
+    """Uvicorn's server, stopping in order on SIGTERM (or SIGINT) and exiting 0.
+
+    Uvicorn on its own closes its listening socket at once, so a readiness probe cannot see the
+    process go unready, and re-raises the signal once it has stopped, so the process dies by it
+    (status 143). Here the first signal only sets the app draining (``/readyz`` answers 503
+    while every other route still answers) and ends the main loop ``drain_seconds`` later;
+    uvicorn then stops accepting, waits for requests in flight (``timeout_graceful_shutdown``)
+    and runs the app's shutdown, and ``serve`` returns 0. A second signal stops at once (as
+    uvicorn does) and a third forces it.
+    """
+
+    def __init__(self, config: uvicorn.Config, service: ServiceState, drain_seconds: float):
+        super().__init__(config)
+        self.service = service
+        self.drain_seconds = drain_seconds
+        self.drain_until: float | None = None
+
+    def handle_exit(self, sig: int, frame: FrameType | None) -> None:
+        if self.drain_until is None:
+            self.service.draining = True
+            self.drain_until = time.monotonic() + self.drain_seconds
+            logging.getLogger(SERVER_LOGGER).info("stopping: draining")
+            return
+        if self.should_exit:
+            self.force_exit = True
+        self.should_exit = True
+
+    async def on_tick(self, counter: int) -> bool:
+        if self.drain_until is not None and time.monotonic() >= self.drain_until:
+            self.should_exit = True
+        return await super().on_tick(counter)
 
 
 class StartupError(Exception):
@@ -163,10 +207,13 @@ def serve(
         "log_config": log_config(server.log_level),
         "access_log": False,
         "server_header": False,
-        "timeout_graceful_shutdown": 10,
+        "timeout_graceful_shutdown": GRACEFUL_SECONDS,
     }
     if server.workers == 1:
-        uvicorn.run(app, **common)
+        runner = DrainingServer(uvicorn.Config(app, **common), service, DRAIN_SECONDS)
+        runner.run()
+        if not runner.started:  # uvicorn logged why (the port is taken, say)
+            return EXIT_FAILED
     else:
         # Worker processes read the environment: hand them the command line's choices.
         if rules is not None:

@@ -19,7 +19,7 @@ from jwt.algorithms import ECAlgorithm, RSAAlgorithm
 
 from service.api.auth import AuthConfigError, Authenticator
 from service.config import ServerSettings
-from tests.api.conftest import ALTITUDE, ASSESS, FHIR_JSON, issue
+from tests.api.conftest import ALTITUDE, ASSESS, FHIR_JSON, ROOT, AppFactory, issue
 
 Serve = Callable[..., httpx.Client]
 ISSUER, AUDIENCE = "https://auth.hospital.test", "https://oxyrule.hospital.test/fhir"
@@ -46,6 +46,21 @@ def token(key: Any = RSA_KEY, alg: str = "RS384", kid: str | None = "rsa-1", **c
     body.update(claims)
     headers = {"kid": kid} if kid else {}
     return jwt.encode({k: v for k, v in body.items() if v is not None}, key, alg, headers)
+
+
+def tampered(signed: str) -> str:
+    """The token with its claims changed after signing (a longer expiry), signature kept."""
+    header, claims, signature = signed.split(".")
+    body = json.loads(jwt.utils.base64url_decode(claims))
+    body["exp"] += 86400
+    forged = jwt.utils.base64url_encode(json.dumps(body).encode()).decode()
+    return f"{header}.{forged}.{signature}"
+
+
+def test_a_token_just_expired_within_the_leeway_is_accepted(secured: httpx.Client) -> None:
+    # The default leeway (OXYRULE_JWT_LEEWAY_SECONDS, 30 s) absorbs clock skew, no more.
+    assert post(secured, f"Bearer {token(exp=int(time.time()) - 5)}").status_code == 200
+    refused(post(secured, f"Bearer {token(exp=int(time.time()) - 60)}"), "expired")
 
 
 def jwt_settings(**extra: Any) -> dict[str, Any]:
@@ -117,6 +132,11 @@ def test_a_jwt_signed_by_a_jwks_key_is_accepted(
         (lambda: token(alg="none", key=None), "security", "'none'"),
         (lambda: token(b"k" * 32, "HS256"), "security", "'HS256'"),
         (lambda: "not.a.jwt", "security", "neither"),
+        (lambda: token(nbf=int(time.time()) + 3600), "security", "not yet valid"),
+        (lambda: token(iss=None), "security", "iss"),
+        (lambda: token(aud=None), "security", "aud"),
+        (lambda: tampered(token()), "security", "Signature"),
+        (lambda: handmade({"alg": "RS256", "kid": "ec-1"}, b"\x01" * 256), "security", "no key"),
     ],
     ids=[
         "expired",
@@ -128,6 +148,11 @@ def test_a_jwt_signed_by_a_jwks_key_is_accepted(
         "alg-none",
         "hs256",
         "garbage",
+        "not-before-in-future",
+        "no-issuer",
+        "no-audience",
+        "payload-changed-after-signing",
+        "rsa-alg-with-an-ec-key-id",
     ],
 )
 def test_a_bad_jwt_is_refused_with_the_reason(
@@ -174,9 +199,90 @@ def test_a_required_scope_is_enforced_with_403(serve: Serve) -> None:
     assert post(client, f"Bearer {API_KEY}").status_code == 200  # keys carry no scopes
 
 
-def test_health_metadata_and_metrics_stay_open(secured: httpx.Client) -> None:
-    for path in ("/healthz", "/readyz", "/metrics", "/fhir/metadata", "/openapi.json"):
-        assert secured.get(path).status_code == 200, path
+V2_MESSAGE = (ROOT / "fixtures" / "hl7v2" / "post-operative-drowsiness.hl7").read_bytes()
+# Every route of the app: (method, path, body headers, body, whether it needs credentials).
+# Only liveness, readiness and the CapabilityStatement are public: FHIR and SMART clients read
+# the CapabilityStatement to learn how to authenticate before they hold a token.
+ROUTES: list[tuple[str, str, dict[str, str], bytes, bool]] = [
+    ("GET", "/healthz", {}, b"", False),
+    ("GET", "/readyz", {}, b"", False),
+    ("GET", "/fhir/metadata", {}, b"", False),
+    ("GET", "/fhir/OperationDefinition/assess-hypoxaemia", {}, b"", True),
+    ("GET", "/metrics", {}, b"", True),
+    ("GET", "/docs", {}, b"", True),
+    ("GET", "/openapi.json", {}, b"", True),
+    ("POST", ASSESS, FHIR_JSON, ALTITUDE.read_bytes(), True),
+    ("POST", "/hl7v2", {"Content-Type": "x-application/hl7-v2+er7"}, V2_MESSAGE, True),
+]
+
+
+def test_the_route_table_of_this_test_covers_every_route_of_the_app(make_app: AppFactory) -> None:
+    app = make_app()
+    documented = {
+        (method.upper(), path)
+        for path, operations in app.openapi()["paths"].items()
+        for method in operations
+    }
+    undocumented = {  # the docs page and the OpenAPI document itself
+        (method, getattr(route, "path", ""))
+        for route in app.routes
+        for method in set(getattr(route, "methods", None) or ()) - {"HEAD"}
+    }
+    served = documented | undocumented
+    assert served == {(method, path) for method, path, *_ in ROUTES}
+
+
+@pytest.mark.parametrize(
+    ("method", "path", "headers", "body", "closed"),
+    ROUTES,
+    ids=[f"{method} {path}" for method, path, *_ in ROUTES],
+)
+def test_each_route_needs_credentials_unless_public(
+    secured: httpx.Client,
+    method: str,
+    path: str,
+    headers: dict[str, str],
+    body: bytes,
+    closed: bool,
+) -> None:
+    def call(authorization: str | None) -> httpx.Response:
+        extra = {"Authorization": authorization} if authorization else {}
+        return secured.request(method, path, content=body or None, headers=headers | extra)
+
+    for credentials in (f"Bearer {API_KEY}", f"Bearer {token()}"):
+        assert call(credentials).status_code == 200, (path, credentials[:12])
+    if closed:
+        refused(call(None), "login")
+        refused(call("Bearer engine-key-wrong"), "security")
+        refused(call(f"Bearer {token(exp=int(time.time()) - 3600)}"), "expired")
+    else:
+        assert call(None).status_code == 200
+        assert call("Bearer engine-key-wrong").status_code == 200  # not even looked at
+
+
+def test_an_unknown_path_is_refused_before_routing(secured: httpx.Client) -> None:
+    refused(secured.get("/fhir/Patient/1"), "login")  # a 404 would tell what exists
+    assert (
+        secured.get("/fhir/Patient/1", headers={"Authorization": f"Bearer {API_KEY}"}).status_code
+        == 404
+    )
+
+
+def test_a_refusal_carries_cors_headers_and_a_preflight_needs_no_token(serve: Serve) -> None:
+    origin = "https://viewer.hospital.test"
+    client = serve(**jwt_settings(cors_origins=[origin]))
+    preflight = client.options(
+        ASSESS,
+        headers={
+            "Origin": origin,
+            "Access-Control-Request-Method": "POST",
+            "Access-Control-Request-Headers": "Authorization, Content-Type",
+        },
+    )
+    assert preflight.status_code == 200
+    answer = client.post(ASSESS, content=b"{}", headers=FHIR_JSON | {"Origin": origin})
+    refused(answer, "login")
+    assert answer.headers["access-control-allow-origin"] == origin  # a browser can read why
 
 
 def test_a_jwks_file_is_read(tmp_path: Path, serve: Serve) -> None:

@@ -71,6 +71,7 @@ RESPONSES: dict[int | str, dict[str, Any]] = {
     400: _outcome_doc("Not JSON, not a Bundle, or a bad parameter (OperationOutcome)"),
     401: _outcome_doc("Authentication required or failed (OperationOutcome)"),
     406: _outcome_doc("No acceptable answer format (OperationOutcome)"),
+    408: _outcome_doc("The body did not arrive within OXYRULE_BODY_TIMEOUT_S (OperationOutcome)"),
     413: _outcome_doc("Body over the size limit (OperationOutcome)"),
     415: _outcome_doc("Unsupported Content-Type (OperationOutcome)"),
     422: _outcome_doc("A Bundle that cannot be assessed, each problem located (OperationOutcome)"),
@@ -105,7 +106,7 @@ async def assess_hypoxaemia(request: Request) -> Response:
     )
     if kind is BodyKind.NDJSON:
         return await _ndjson(request, service, record, units, media_type)
-    raw = await read_bounded(request, service.server.max_body_bytes)
+    raw = await read_bounded(request, service.server.max_body_bytes, service.server.body_timeout_s)
     record.bytes_in = len(raw)
     try:
         data = orjson.loads(raw)
@@ -134,7 +135,7 @@ async def _ndjson(
     media_type: str,
 ) -> Response:
     limit = service.server.max_body_bytes
-    lines = ndjson_lines(request.stream(), limit)
+    lines = ndjson_lines(request.stream(), limit, service.server.body_timeout_s)
     first: Line | None = await anext(lines, None)
     if first is None:
         raise ApiError(400, outcome("required", "the NDJSON body has no lines", "Bundle"))

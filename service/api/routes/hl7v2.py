@@ -59,7 +59,7 @@ async def assess_v2(request: Request) -> Response:
     caller_of(request)
     base = _media_type(request.headers.get("content-type"))
     units = pressure_unit(request.query_params.get("units"))
-    raw = await read_bounded(request, service.server.max_body_bytes)
+    raw = await read_bounded(request, service.server.max_body_bytes, service.server.body_timeout_s)
     record.bytes_in = len(raw)
     text = raw.decode("utf-8", errors="replace")
     answer = handle_v2(text, service.runtime, reply=_reply(request), pressure_unit=units)
