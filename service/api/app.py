@@ -21,6 +21,7 @@ from service.api.auth import Authenticator
 from service.api.cors import FhirCorsMiddleware
 from service.api.errors import ApiError, outcome_response, status_outcome
 from service.api.middleware import CredentialsMiddleware, RequestMiddleware
+from service.api.openapi import complete
 from service.api.reload import handle_sighup, install_runtime, stop_handling_sighup
 from service.api.routes import assess, conformance, health, hl7v2
 from service.api.state import ServiceState
@@ -66,12 +67,18 @@ async def _validation_error(_request: Request, exc: Exception) -> Response:
 
 
 def _openapi(app: FastAPI) -> dict[str, Any]:
-    """FastAPI's schema, plus the bearer scheme the assess route names (it takes no deps)."""
+    """FastAPI's schema, made true to the answers (``service.api.openapi``), with the bearer
+    scheme every protected route names."""
     if app.openapi_schema is None:
         from fastapi.openapi.utils import get_openapi
 
-        schema = get_openapi(
-            title=app.title, version=app.version, description=app.description, routes=app.routes
+        schema = complete(
+            get_openapi(
+                title=app.title,
+                version=app.version,
+                description=app.description,
+                routes=app.routes,
+            )
         )
         schemes = schema.setdefault("components", {}).setdefault("securitySchemes", {})
         schemes["bearer"] = {

@@ -1,0 +1,220 @@
+"""The OpenAPI document, made to say what the service really answers.
+
+FastAPI documents each route from its signature: JSON answers, a 422 ``HTTPValidationError``
+for bad parameters, and nothing for what the middleware adds. This service answers otherwise,
+so ``complete`` rewrites the generated document:
+
+* every error is an OperationOutcome (``application/fhir+json``), a bad parameter a 400;
+* every route but the public ones can answer 401/403 (authentication, when configured);
+* the assessing routes can answer 429 (too many in flight), 408 (body too slow) and 413;
+* each answer names its real media types (FHIR JSON and its ``_format`` alternatives, NDJSON,
+  HL7 v2 ER7, Prometheus text) and a small schema of its body;
+* ``POST /hl7v2``, which reads its body itself, gets its request body and parameters.
+
+``tests/api/test_openapi_fuzz.py`` holds the service to this document with schemathesis.
+"""
+
+from __future__ import annotations
+
+import copy
+from typing import Any
+
+from service.api.media import FHIR_JSON, FHIR_NDJSON, JSON, NDJSON
+from service.api.middleware import ASSESS_PATH, LIMITED, PUBLIC, V2_PATH
+from service.api.routes.health import PROMETHEUS_TEXT
+from service.api.routes.hl7v2 import V2_MEDIA_TYPES
+
+Schema = dict[str, Any]
+
+
+def _resource(resource_type: str) -> Schema:
+    return {
+        "type": "object",
+        "required": ["resourceType"],
+        "properties": {"resourceType": {"const": resource_type}},
+    }
+
+
+OUTCOME: Schema = {
+    "type": "object",
+    "required": ["resourceType", "issue"],
+    "properties": {
+        "resourceType": {"const": "OperationOutcome"},
+        "issue": {
+            "type": "array",
+            "minItems": 1,
+            "items": {"type": "object", "required": ["severity", "code"]},
+        },
+    },
+}
+TEXT: Schema = {"type": "string"}
+
+
+def _outcome(description: str) -> Schema:
+    return {"description": description, "content": {FHIR_JSON: {"schema": OUTCOME}}}
+
+
+def _fhir(description: str, body: Schema) -> Schema:
+    """A FHIR resource in FHIR JSON or plain JSON (``_format`` or ``Accept`` picks)."""
+    return {"description": description, "content": {FHIR_JSON: {"schema": body}, JSON: {}}}
+
+
+# A small invented Bundle: the example a client (or schemathesis) may send.
+EXAMPLE_BUNDLE: Schema = {
+    "resourceType": "Bundle",
+    "type": "collection",
+    "entry": [
+        {
+            "resource": {
+                "resourceType": "Observation",
+                "status": "final",
+                "code": {"coding": [{"system": "http://loinc.org", "code": code}]},
+                "effectiveDateTime": "2026-11-20T10:00:00Z",
+                "valueQuantity": {
+                    "value": value,
+                    "unit": unit,
+                    "system": "http://unitsofmeasure.org",
+                    "code": unit,
+                },
+            }
+        }
+        for code, value, unit in (
+            ("2703-7", 58, "mm[Hg]"),
+            ("2019-8", 41, "mm[Hg]"),
+            ("3150-0", 21, "%"),
+        )
+    ],
+}
+EXAMPLE_V2 = (
+    "MSH|^~\\&|INVENTED-LAB|INVENTED-SITE|OXYRULE|INVENTED-SITE|20261120074500+0000||"
+    "ORU^R01^ORU_R01|EXAMPLE-0001|T|2.5.1\r"
+    "PID|1||EXAMPLE-0001^^^INVENTED^MR||INVENTED^PATIENT||19580314|F\r"
+    "OBR|1|ORD-1|LAB-1|24336-0^Gas panel - Arterial blood^LN|||20261120074000+0000\r"
+    "OBX|1|NM|2703-7^^LN||58|mm[Hg]^mmHg^UCUM|||||F|||20261120074000+0000\r"
+    "OBX|2|NM|2019-8^^LN||41|mm[Hg]^mmHg^UCUM|||||F|||20261120074000+0000\r"
+    "OBX|3|NM|3150-0^^LN||21|%^percent^UCUM|||||F|||20261120074000+0000\r"
+)
+
+V2_ANSWER: Schema = {media: {"schema": TEXT} for media in V2_MEDIA_TYPES} | {
+    FHIR_JSON: {"schema": {"type": "object", "required": ["resourceType"]}}
+}
+
+# Per route and method: the answers it documents (replacing FastAPI's), beyond the shared ones.
+ANSWERS: dict[tuple[str, str], dict[str, Schema]] = {
+    ("get", "/healthz"): {
+        "200": {
+            "description": "The process is up",
+            "content": {JSON: {"schema": {"type": "object", "required": ["status"]}}},
+        },
+    },
+    ("get", "/readyz"): {
+        "200": {
+            "description": "The rule set is loaded; its id|version",
+            "content": {JSON: {"schema": {"type": "object", "required": ["status", "ruleset"]}}},
+        },
+        "503": _outcome("Shutting down (OperationOutcome)"),
+    },
+    ("get", "/metrics"): {
+        "200": {
+            "description": "Prometheus text exposition format 0.0.4 (counts only)",
+            "content": {PROMETHEUS_TEXT.split(";")[0]: {"schema": TEXT}},
+        },
+    },
+    ("get", "/fhir/metadata"): {
+        "200": _fhir("The CapabilityStatement", _resource("CapabilityStatement")),
+        "400": _outcome("A bad parameter (OperationOutcome)"),
+        "406": _outcome("No acceptable answer format (OperationOutcome)"),
+    },
+    ("get", "/fhir/OperationDefinition/assess-hypoxaemia"): {
+        "200": _fhir("The OperationDefinition", _resource("OperationDefinition")),
+        "400": _outcome("A bad parameter (OperationOutcome)"),
+        "406": _outcome("No acceptable answer format (OperationOutcome)"),
+    },
+    ("post", ASSESS_PATH): {
+        "200": {
+            "description": "The result Bundle; for NDJSON, one result or OperationOutcome a line",
+            "content": {
+                FHIR_JSON: {"schema": _resource("Bundle")},
+                JSON: {"schema": _resource("Bundle")},
+                FHIR_NDJSON: {"schema": TEXT},
+                NDJSON: {"schema": TEXT},
+            },
+        },
+    },
+    ("post", V2_PATH): {
+        "200": {
+            "description": "ACK with MSA-1 AA (or the FHIR result / ORU^R01 result on request)",
+            "content": V2_ANSWER,
+        },
+        "400": {
+            "description": "ACK with MSA-1 AR (or an OperationOutcome): unsupported type, "
+            "version or processing id, not a message; or a bad parameter",
+            "content": V2_ANSWER,
+        },
+        "415": _outcome("Not an HL7 v2 media type (OperationOutcome)"),
+        "422": {
+            "description": "ACK with MSA-1 AE and ERR segments naming segment, field and reason "
+            "(or an OperationOutcome)",
+            "content": V2_ANSWER,
+        },
+    },
+}
+
+V2_REQUEST: Schema = {
+    "parameters": [
+        {
+            "name": "reply",
+            "in": "query",
+            "required": False,
+            "description": "result: answer with an ORU^R01 carrying the result instead of an ACK",
+            "schema": {"type": "string"},
+        },
+        {
+            "name": "units",
+            "in": "query",
+            "required": False,
+            "description": "pressure unit of the result: mm[Hg] (default) or kPa",
+            "schema": {"type": "string", "enum": ["mm[Hg]", "kPa"]},
+        },
+    ],
+    "requestBody": {
+        "required": True,
+        "description": "One HL7 v2 ORU^R01 message, ER7 encoded (segments separated by CR)",
+        "content": {media: {"schema": TEXT, "example": EXAMPLE_V2} for media in V2_MEDIA_TYPES},
+    },
+}
+
+
+def _body_limits(operation: Schema) -> None:
+    responses = operation["responses"]
+    responses.setdefault("408", _outcome("The body did not arrive in time (OperationOutcome)"))
+    responses.setdefault("413", _outcome("Body over the size limit (OperationOutcome)"))
+    responses.setdefault("429", _outcome("Too many assessments in progress (OperationOutcome)"))
+
+
+def complete(generated: Schema) -> Schema:
+    """The document FastAPI generated, corrected as the module docstring says."""
+    schema = copy.deepcopy(generated)
+    for path, operations in schema.get("paths", {}).items():
+        for method, operation in operations.items():
+            responses = operation.setdefault("responses", {})
+            if "HTTPValidationError" in str(responses.get("422")):
+                del responses["422"]  # FastAPI's validation error: this service answers 400
+            responses.update(copy.deepcopy(ANSWERS.get((method, path), {})))
+            if (method, path) == ("post", V2_PATH):
+                operation.update(copy.deepcopy(V2_REQUEST))
+            if path in LIMITED:
+                _body_limits(operation)
+            if (method, path) == ("post", ASSESS_PATH):
+                for media in (FHIR_JSON, JSON):
+                    operation["requestBody"]["content"][media]["example"] = EXAMPLE_BUNDLE
+            if path not in PUBLIC:
+                operation["security"] = [{}, {"bearer": []}]
+                responses.setdefault("401", _outcome("Authentication required or failed"))
+                responses.setdefault("403", _outcome("The token lacks the required scope"))
+    components = schema.setdefault("components", {})
+    for name in ("HTTPValidationError", "ValidationError"):
+        components.get("schemas", {}).pop(name, None)
+    if not components.get("schemas"):
+        components.pop("schemas", None)
+    return schema
