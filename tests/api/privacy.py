@@ -5,7 +5,7 @@ from __future__ import annotations
 import json
 from typing import Any
 
-from tests.api.conftest import ALTITUDE
+from tests.api.conftest import ALTITUDE, ROOT
 
 NAME = ("Zephyrine", "Quillborne")
 IDENTIFIER = "MRN-58301977"
@@ -50,3 +50,28 @@ def marked_bodies() -> list[tuple[str, bytes]]:
 def leaks(text: str) -> list[str]:
     """The secrets that appear in ``text``."""
     return [secret for secret in SECRETS if secret in text]
+
+
+V2_BIRTH_DATE = BIRTH_DATE.replace("-", "")  # as HL7 v2 writes it
+V2_ESCAPED_BIRTH_DATE = "1961\\Q07\\23"  # an escape sequence python-hl7 cannot read
+V2_SECRETS = (V2_BIRTH_DATE, V2_ESCAPED_BIRTH_DATE)
+
+
+def marked_v2_messages() -> list[bytes]:
+    """HL7 v2 messages of the same invented patient: one assessed, one refused AE, and one
+    whose birth date and value carry escape sequences python-hl7 cannot read (it would log
+    the whole field: tests/fuzz/hl7v2.py found that)."""
+    base = (ROOT / "fixtures" / "hl7v2" / "altitude-visitor.hl7").read_text()
+    base = base.replace("\n", "\r").replace("DEMO-0002", IDENTIFIER)
+    base = base.replace("INVENTED^PATIENT", f"{NAME[1].upper()}^{NAME[0].upper()}")
+    base = base.replace("||19580314|", f"||{V2_BIRTH_DATE}|")
+    good = base.replace("||48|", f"||{VALUES[0]}|")
+    refused = base.replace("||48|", f"||{VALUES[0]} high|")
+    escaped = base.replace("||48|", f"||{VALUES[0]}\\Zq\\|")
+    escaped = escaped.replace(f"||{V2_BIRTH_DATE}|", f"||{V2_ESCAPED_BIRTH_DATE}|")
+    return [m.encode() for m in (good, refused, escaped)]
+
+
+def v2_leaks(text: str) -> list[str]:
+    """The secrets, in their HL7 v2 forms too, that appear in ``text``."""
+    return leaks(text) + [s for s in (*V2_SECRETS, NAME[1].upper()) if s in text]

@@ -16,7 +16,7 @@ from pathlib import Path
 import pytest
 
 from tests.api.conftest import ALTITUDE, ROOT
-from tests.api.privacy import leaks, marked_bodies
+from tests.api.privacy import leaks, marked_bodies, marked_v2_messages, v2_leaks
 
 
 def free_port() -> int:
@@ -98,11 +98,23 @@ def test_the_real_server_assesses_a_fixture_and_logs_no_patient_data(
             urllib.request.urlopen(request, timeout=10).close()
         except urllib.error.HTTPError as refused:
             assert refused.code == 422
+    for message in marked_v2_messages():  # python-hl7 would log fields it cannot read
+        request = urllib.request.Request(
+            f"http://127.0.0.1:{port}/hl7v2",
+            message,
+            {"Content-Type": "application/hl7-v2"},
+            method="POST",
+        )
+        try:
+            urllib.request.urlopen(request, timeout=10).close()
+        except urllib.error.HTTPError as refused:
+            assert refused.code in (400, 422)
     time.sleep(0.2)
     text = log.read_text()
     lines = [json.loads(line) for line in text.splitlines()]  # every line is JSON
     assert sum(line["message"] == "request" for line in lines) >= 4
     assert leaks(text) == []
+    assert v2_leaks(text) == []
     assert "Traceback" not in text
 
 
