@@ -12,9 +12,10 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from types import MappingProxyType
 
-from service.intake.model import Fio2Source, Quantity, Specimen
+from service.exceptions import UnitError
+from service.intake.model import QUANTITY_UNITS, Fio2Source, Quantity, Specimen
 from service.physiology.oxygen_delivery import OxygenDevice
-from service.physiology.units import Dimension
+from service.physiology.units import Dimension, normalise_fio2, to_canonical
 
 # --- Code system and profile URLs -----------------------------------------------------------
 
@@ -55,6 +56,27 @@ class Concept:
     specimen: Specimen | None = None
     fio2_source: Fio2Source | None = None
     by_specimen: MappingProxyType[Specimen, Quantity] | None = field(default=None)
+
+    def to_canonical(self, value: float, unit: str) -> tuple[float, bool]:
+        """(value in the quantity's canonical unit, whether the sender's unit was reinterpreted).
+
+        FiO2 goes through ``normalise_fio2`` (a fraction sent as % and the reverse); a quantity
+        with no ``Dimension`` takes only its canonical unit. Shared by the FHIR and HL7 v2
+        adapters so the two read values alike.
+
+        Raises:
+            UnitError: the quantity cannot take ``unit``.
+            ImpossibleValueError: an FiO2 outside its limits once read as a fraction.
+        """
+        if self.quantity is Quantity.FIO2:
+            fio2 = normalise_fio2(value, unit)
+            return fio2.fraction, fio2.reinterpreted
+        if self.dimension is None:
+            canonical = QUANTITY_UNITS[self.quantity]
+            if unit != canonical:
+                raise UnitError(unit, self.quantity.value, (canonical,))
+            return value, False
+        return to_canonical(value, unit, self.dimension), False
 
 
 def _blood(quantity: Quantity, dimension: Dimension, specimen: Specimen) -> Concept:

@@ -19,7 +19,7 @@ from service.fhir.plausibility import out_of_range
 from service.fhir.shape import Collector, JsonObject, member_list, member_number, objects
 from service.fhir.shape import member_str as text
 from service.intake.model import QUANTITY_UNITS, Quantity, Severity
-from service.physiology.units import FIO2_LIMITS, Dimension, normalise_fio2, to_canonical
+from service.physiology.units import FIO2_LIMITS, Dimension
 
 
 @dataclass(frozen=True, slots=True)
@@ -51,31 +51,12 @@ def _unit(
     return None
 
 
-def _canonical(value: float, unit: str, concept: Concept) -> tuple[float, bool]:
-    """(value in the canonical unit, whether the sender's unit was reinterpreted).
-
-    Raises:
-        UnitError: the quantity cannot take ``unit``.
-        ImpossibleValueError: an FiO2 outside its limits once read as a fraction.
-    """
-    quantity = concept.quantity
-    if quantity is Quantity.FIO2:
-        fio2 = normalise_fio2(value, unit)
-        return fio2.fraction, fio2.reinterpreted
-    if concept.dimension is None:
-        canonical = QUANTITY_UNITS[quantity]
-        if unit != canonical:
-            raise UnitError(unit, quantity.value, (canonical,))
-        return value, False
-    return to_canonical(value, unit, concept.dimension), False
-
-
 def _convert(
     value: float, unit: str, at: str, unit_at: str, concept: Concept, out: Collector
 ) -> tuple[float, bool] | None:
     """(canonical value, whether the unit was reinterpreted), or None if unusable."""
     try:
-        return _canonical(value, unit, concept)
+        return concept.to_canonical(value, unit)
     except UnitError as exc:
         accepted = ", ".join(exc.accepted)
         out.problem(
@@ -127,7 +108,7 @@ def plain_value(value: float, unit: str, concept: Concept) -> Settled | None:
     sends the Observation to ``read_quantity``, which reports why.
     """
     try:
-        canonical, reinterpreted = _canonical(value, unit, concept)
+        canonical, reinterpreted = concept.to_canonical(value, unit)
     except (UnitError, ImpossibleValueError):
         return None
     if out_of_range(concept.quantity, canonical) is not None:

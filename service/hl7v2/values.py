@@ -27,7 +27,7 @@ from service.hl7v2.errors import ErrorCode
 from service.hl7v2.message import Segment
 from service.hl7v2.notes import Notes
 from service.intake.model import QUANTITY_UNITS, Quantity, Severity
-from service.physiology.units import FIO2_LIMITS, Dimension, normalise_fio2, to_canonical
+from service.physiology.units import FIO2_LIMITS, Dimension
 
 _NM = re.compile(r"[+-]?(?:\d+\.?\d*|\.\d+)", re.ASCII)
 _E = ErrorCode
@@ -130,15 +130,7 @@ def _convert(
 ) -> tuple[float, bool] | None:
     quantity = concept.quantity
     try:
-        if quantity is Quantity.FIO2:
-            fio2 = normalise_fio2(value, unit)
-            return fio2.fraction, fio2.reinterpreted
-        if concept.dimension is None:
-            canonical = QUANTITY_UNITS[quantity]
-            if unit != canonical:
-                raise UnitError(unit, quantity.value, (canonical,))
-            return value, False
-        return to_canonical(value, unit, concept.dimension), False
+        return concept.to_canonical(value, unit)
     except UnitError as exc:
         accepted = ", ".join(exc.accepted)
         reason = f"unit '{unit}' cannot be used for {quantity.value}; accepted (UCUM): {accepted}"
