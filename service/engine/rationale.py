@@ -3,8 +3,8 @@
 A template is parsed once at load time. Parameter placeholders become literal text then,
 because a parameter's value (including a site override) is fixed for the life of the
 rule set; fact placeholders stay slots filled at evaluation time with the value, rounded
-to the fact's display precision, and a readable unit. A missing fact is shown as
-`(arterial_pco2 missing)` rather than hiding the gap.
+to the fact's display precision, and a readable unit. A missing fact is shown as "not known"
+rather than hiding the gap (the trace names which fact it was).
 
 Only bare names are allowed: no attribute access, indexing, format specs or conversions,
 so a template can never reach into anything but the facts.
@@ -62,6 +62,11 @@ def _format_parameter(parameter: Parameter) -> str:
     return _with_unit(f"{parameter.value:g}", parameter.unit)
 
 
+# What a rationale shows for a fact that was not sent or could not be derived. The trace and
+# `explain` name the missing fact itself; a sentence for clinicians stays readable.
+NOT_KNOWN = "not known"
+
+
 @dataclass(frozen=True, slots=True)
 class Template:
     """A parsed rationale: literal text interleaved with fact slots."""
@@ -82,7 +87,7 @@ class Template:
                 out.append(part)
                 continue
             value = facts.get(part.name)
-            out.append(f"({part.name} missing)" if value is None else format_value(part, value))
+            out.append(NOT_KNOWN if value is None else format_value(part, value))
         return "".join(out)
 
 

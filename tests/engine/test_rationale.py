@@ -51,7 +51,7 @@ def test_template_fills_facts_of_every_kind() -> None:
 
 def test_template_shows_a_missing_fact_by_name() -> None:
     template, _ = compile_template("SpO2 {spo2}.", DEFAULT_CATALOGUE, {})
-    assert template.render({}) == "SpO2 (spo2 missing)."
+    assert template.render({}) == "SpO2 not known."
 
 
 def test_template_writes_parameters_as_written_with_their_unit() -> None:

@@ -195,7 +195,7 @@ def test_findings_are_listed_errors_first() -> None:
         Severity.WARNING,
         Severity.INFORMATION,
     ]
-    assert verdict.findings[0].rationale == "PaCO2 is (arterial_pco2 missing)."
+    assert verdict.findings[0].rationale == "PaCO2 is not known."
 
 
 def test_a_testing_rule_is_reported_but_never_changes_the_verdict() -> None:
