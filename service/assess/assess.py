@@ -9,9 +9,9 @@ response to oxygen.
 from __future__ import annotations
 
 import uuid
+from collections.abc import Sequence
 from dataclasses import replace
 from datetime import UTC, datetime, timedelta
-from functools import lru_cache
 
 from service.config import Settings
 from service.engine import Evaluation, FactError, Grade, RuleSet, evaluate
@@ -65,7 +65,6 @@ def _number(value: object) -> str:
     return f"{value:.4g}" if isinstance(value, float) else str(value).lower()
 
 
-@lru_cache(maxsize=4096)
 def _leaf_text(leaf: Leaf) -> tuple[str, str]:
     """The fixed parts of a leaf's trace line: (unit shown after the value, the test)."""
     unit = f" {leaf.unit}" if leaf.unit not in (None, "1") else ""
@@ -82,6 +81,20 @@ def _leaf_text(leaf: Leaf) -> tuple[str, str]:
     return unit, f"{symbol} {shown}{unit}{named}"
 
 
+# The fixed text of every leaf of a rule set, built once per rule set (keyed by its leaves
+# tuple, which is kept alive here so the id cannot be reused while cached).
+_LEAF_TEXTS: dict[int, tuple[Sequence[Leaf], list[tuple[str, str]]]] = {}
+
+
+def _leaf_texts(leaves: Sequence[Leaf]) -> list[tuple[str, str]]:
+    found = _LEAF_TEXTS.get(id(leaves))
+    if found is None or found[0] is not leaves:
+        if len(_LEAF_TEXTS) > 8:  # a few rule sets per process at most (reloads)
+            _LEAF_TEXTS.clear()
+        found = _LEAF_TEXTS[id(leaves)] = (leaves, [_leaf_text(leaf) for leaf in leaves])
+    return found[1]
+
+
 def trace_lines(result: RuleResult) -> tuple[str, ...]:
     """One line per condition of a rule: ``id@version: fact value op threshold → state``.
 
@@ -91,10 +104,11 @@ def trace_lines(result: RuleResult) -> tuple[str, ...]:
     context = result.context
     facts, states, leaves = context.facts, context.states, context.leaves
     ref = result.ref
+    texts = _leaf_texts(leaves)
     lines = []
     for index in result.rule.condition.leaves:
         leaf = leaves[index]
-        unit, test = _leaf_text(leaf)
+        unit, test = texts[index]
         value = facts.get(leaf.fact)
         seen = "missing" if value is None else f"{_number(value)}{unit}"
         lines.append(f"{ref}: {leaf.fact} {seen} {test} → {_STATE[states[index]]}")

@@ -124,26 +124,41 @@ def _finding_parameter(f: Finding) -> Json:
     return {"name": "finding", "part": part}
 
 
-def _quantities(derived: dict[str, Derived], pressure_unit: PressureUnit) -> list[Json]:
-    return [
-        {"name": name, "valueQuantity": quantity(name, d.value, d.unit, pressure_unit)}
-        for name in QUANTITY_ORDER
-        if (d := derived.get(name)) is not None
-    ]
+class _Quantities:
+    """Each derived value's Quantity, built once per render (the index gas's values appear both
+    at the top level and in its ``gas`` parameter)."""
+
+    def __init__(self, pressure_unit: PressureUnit) -> None:
+        self.pressure_unit = pressure_unit
+        self.built: dict[tuple[str, int], Json] = {}
+
+    def of(self, name: str, d: Derived) -> Json:
+        key = (name, id(d))
+        found = self.built.get(key)
+        if found is None:
+            found = self.built[key] = quantity(name, d.value, d.unit, self.pressure_unit)
+        return found
+
+    def listed(self, derived: dict[str, Derived]) -> list[Json]:
+        return [
+            {"name": name, "valueQuantity": self.of(name, d)}
+            for name in QUANTITY_ORDER
+            if (d := derived.get(name)) is not None
+        ]
 
 
-def _gas_parameter(gas: GasFacts, index: bool, pressure_unit: PressureUnit) -> Json:
+def _gas_parameter(gas: GasFacts, index: bool, quantities: _Quantities) -> Json:
     part: list[Json] = []
     if gas.gas.anchor is not None:
         part.append(
             {"name": "observation", "valueReference": _ref(gas.gas.anchor.source.reference)}
         )
     part.append({"name": "index", "valueBoolean": index})
-    part += _quantities(gas.derived, pressure_unit)
+    part += quantities.listed(gas.derived)
     return {"name": "gas", "part": part}
 
 
-def _parameters(a: Assessment, pressure_unit: PressureUnit, settings_hash: str) -> Json:
+def _parameters(a: Assessment, quantities: _Quantities, settings_hash: str) -> Json:
     params: list[Json] = [
         {"name": "ruleset", "valueString": a.ruleset_identity},
         {"name": "ruleset-hash", "valueString": a.ruleset_hash},
@@ -153,9 +168,9 @@ def _parameters(a: Assessment, pressure_unit: PressureUnit, settings_hash: str) 
     params.append({"name": "pattern", "valueCode": a.pattern})
     params += [_mechanism_parameter(m) for m in a.mechanisms]
     params += [_finding_parameter(f) for f in a.findings]
-    params += [_gas_parameter(g.facts, g.index, pressure_unit) for g in a.gases]
+    params += [_gas_parameter(g.facts, g.index, quantities) for g in a.gases]
     index = a.index
-    params += _quantities(index.derived, pressure_unit)
+    params += quantities.listed(index.derived)
     if index.barometric_source:
         params.append({"name": "barometric-pressure-source", "valueCode": index.barometric_source})
     if index.fio2_source:
@@ -197,13 +212,23 @@ def _subject(a: Assessment) -> Json | None:
     return None
 
 
-def _effective(a: Assessment) -> str | None:
+def _about(a: Assessment) -> Json:
+    """The subject and effective time every derived Observation shares."""
+    about: Json = {}
+    if (subject := _subject(a)) is not None:
+        about["subject"] = subject
     time = a.index.gas.time
-    return time.isoformat() if time is not None else None
+    if time is not None:
+        about["effectiveDateTime"] = time.isoformat()
+    return about
 
 
 def _observation(
-    name: str, d: Derived, a: Assessment, aa_limit: Derived | None, pressure_unit: PressureUnit
+    name: str,
+    d: Derived,
+    about: Json,
+    aa_limit: Derived | None,
+    quantities: _Quantities,
 ) -> Json:
     loinc, display = OBSERVATION_CODES[name]
     code = _coding(LOINC, loinc, display) if loinc else _coding(DERIVED_SYSTEM, name, display)
@@ -213,17 +238,14 @@ def _observation(
         "status": "final",
         "category": [{"coding": [_coding(CATEGORY, "laboratory")]}],
         "code": {"coding": [code], "text": display},
-        "valueQuantity": quantity(name, d.value, d.unit, pressure_unit),
+        "valueQuantity": quantities.of(name, d),
         "method": {"text": d.method},
+        **about,
     }
-    if (subject := _subject(a)) is not None:
-        obs["subject"] = subject
-    if (effective := _effective(a)) is not None:
-        obs["effectiveDateTime"] = effective
     if name == "aa-gradient" and aa_limit is not None:
         raised = d.value > aa_limit.value
         obs["interpretation"] = [{"coding": [_coding(INTERPRETATION, "H" if raised else "N")]}]
-        limit = quantity("aa-gradient-upper-limit", aa_limit.value, aa_limit.unit, pressure_unit)
+        limit = quantities.of("aa-gradient-upper-limit", aa_limit)
         obs["referenceRange"] = [{"high": limit, "text": "room-air limit for age"}]
     refs = list(dict.fromkeys(s.reference for s in d.inputs))
     if refs:
@@ -231,7 +253,7 @@ def _observation(
     return obs
 
 
-def _mechanism_observation(a: Assessment, derived_ids: list[str]) -> Json:
+def _mechanism_observation(a: Assessment, about: Json, derived_ids: list[str]) -> Json:
     obs: Json = {
         "resourceType": "Observation",
         "id": "mechanism-assessment",
@@ -250,11 +272,8 @@ def _mechanism_observation(a: Assessment, derived_ids: list[str]) -> Json:
             }
             for m in a.mechanisms
         ],
+        **about,
     }
-    if (subject := _subject(a)) is not None:
-        obs["subject"] = subject
-    if (effective := _effective(a)) is not None:
-        obs["effectiveDateTime"] = effective
     if derived_ids:
         obs["derivedFrom"] = [_ref(f"Observation/{i}") for i in derived_ids]
     return obs
@@ -284,19 +303,21 @@ def render_bundle(
     requirements = _data_requirements(data_requirements)
     if requirements:
         guidance["dataRequirement"] = requirements
+    quantities = _Quantities(pressure_unit)
     resources: list[Json] = [
         guidance,
-        _parameters(a, pressure_unit, settings_hash),
+        _parameters(a, quantities, settings_hash),
         _operation_outcome(a),
     ]
     derived = a.index.derived
+    about = _about(a)
+    limit = derived.get("aa-gradient-upper-limit")
     derived_ids: list[str] = []
     for name in OBSERVATION_CODES:
         if (d := derived.get(name)) is not None:
-            limit = derived.get("aa-gradient-upper-limit")
-            resources.append(_observation(name, d, a, limit, pressure_unit))
+            resources.append(_observation(name, d, about, limit, quantities))
             derived_ids.append(name)
-    resources.append(_mechanism_observation(a, derived_ids))
+    resources.append(_mechanism_observation(a, about, derived_ids))
     # Entry URLs derive from the decision id (its last 12 hex digits replaced by the entry's
     # number), so a result is reproducible apart from it and needs no hashing per entry.
     prefix = str(uuid.UUID(a.decision_id))[:24]
