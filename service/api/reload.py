@@ -16,6 +16,7 @@ uvicorn's supervisor answers ``SIGHUP`` by restarting the worker processes inste
 from __future__ import annotations
 
 import asyncio
+import gc
 import logging
 import signal
 import threading
@@ -69,6 +70,10 @@ async def reload_runtime(service: ServiceState) -> bool:
             return False
         previous = identity(service.runtime)
         install_runtime(service, runtime)
+        if gc.get_freeze_count():  # start-up froze the old set (server.settle_memory)
+            gc.unfreeze()  # so that what only the old set held can be collected,
+            gc.collect()  # once (one pause, per reload),
+            gc.freeze()  # and the new set kept out of later collections
         log.info(
             "rule set reloaded",
             extra={"ruleset": identity(runtime), "previous": previous},
