@@ -19,9 +19,18 @@ from dataclasses import dataclass
 from typing import Any
 
 import hl7  # type: ignore[import-untyped]
+import hl7.containers  # type: ignore[import-untyped]
+import hl7.util  # type: ignore[import-untyped]
 
 from service.hl7v2.er7 import escape
 from service.hl7v2.errors import ErrorCode, Location, MessageRejected, V2Error
+
+# python-hl7 logs the whole text of a field it cannot un-escape (a birth date, a value, an
+# identifier). Silenced wherever the library is used — the CLI and tests as well as the
+# servers; the adapter reports the problem itself, located and without the text.
+for _library_logger in (hl7.util.logger, hl7.containers.logger):
+    _library_logger.disabled = True
+    _library_logger.propagate = False
 
 START_BLOCK, END_BLOCK, CARRIAGE_RETURN = b"\x0b", b"\x1c", b"\r"
 STANDARD_ENCODING = "^~\\&"  # component, repetition, escape, sub-component
