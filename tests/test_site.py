@@ -115,3 +115,22 @@ def test_a_local_code_concept_map_in_the_rule_directory_is_used(tmp_path: Path) 
     plain = _params(Runtime.load().assess_bundle(bundle))
     assert plain["pattern"]["valueCode"] != "single"  # without the map PaO2 is unknown
     assert params["settings-hash"] != plain["settings-hash"]
+
+
+def test_a_site_threshold_changes_the_verdict_and_the_result_names_the_override() -> None:
+    # Invented fixture: 2,240 m, PaCO2 52 mmHg: low inspired oxygen plus hypoventilation
+    # (pattern mixed). A site that calls hypercapnia only above 55 mmHg gets a single
+    # mechanism, and the result's rule-set and settings hashes change with the override.
+    case = ROOT / "fixtures" / "cases" / "mechanism" / "altitude-hypoventilation-mixed.bundle.json"
+    data = orjson.loads(case.read_bytes())
+    default = _params(Runtime.load().assess_bundle(data))
+    import tempfile
+
+    with tempfile.TemporaryDirectory() as folder:
+        site = Path(folder) / "site.yaml"
+        site.write_text("site: invented-hospital\nparameters:\n  hypercapnia_pco2: 55\n")
+        tuned = _params(Runtime.load(Settings(site_file=site)).assess_bundle(data))
+    assert default["pattern"]["valueCode"] == "mixed"
+    assert tuned["pattern"]["valueCode"] == "single"
+    assert tuned["ruleset-hash"]["valueString"] != default["ruleset-hash"]["valueString"]
+    assert tuned["settings-hash"]["valueString"] != default["settings-hash"]["valueString"]
