@@ -27,7 +27,6 @@ from service.api.routes import assess, conformance, health, hl7v2
 from service.api.state import ServiceState
 from service.assess.result import CAUTION
 from service.config import ServerSettings, Settings
-from service.hl7v2.mllp import mute_hl7_library_logs
 from service.runtime import Runtime
 
 DESCRIPTION = (
@@ -109,7 +108,6 @@ def create_app(
     auth = Authenticator.from_settings(server)
     service = ServiceState(runtime=runtime, server=server, auth=auth, settings=settings)
     install_runtime(service, runtime)
-    mute_hl7_library_logs()  # python-hl7 would log the fields it cannot read: patient data
 
     @asynccontextmanager
     async def lifespan(_app: FastAPI) -> AsyncIterator[None]:

@@ -74,7 +74,7 @@ def log_config(level: str) -> dict[str, Any]:
     }
     loggers["uvicorn.access"] = {"handlers": [], "level": "WARNING", "propagate": False}
     # python-hl7 logs the text of fields it cannot un-escape (patient data): never written.
-    from service.hl7v2.mllp import hl7_library_loggers
+    from service.hl7v2.message import hl7_library_loggers
 
     for logger in hl7_library_loggers():
         loggers[logger.name] = {"handlers": [], "level": "CRITICAL", "propagate": False}

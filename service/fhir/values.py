@@ -81,10 +81,13 @@ def _convert(
 Settled = tuple[float, float | None, str | None, tuple[Severity, str] | None]
 
 
-def _settle(
+def settle(
     value: float, unit: str, canonical: float, reinterpreted: bool, quantity: Quantity
 ) -> Settled:
-    """What a possible value becomes, and whether its conversion is worth reporting."""
+    """What a possible value becomes, and whether its conversion is worth reporting.
+
+    Shared by the FHIR and HL7 v2 readers, so both report unit conversions alike.
+    """
     canonical_unit = QUANTITY_UNITS[quantity]
     if unit == canonical_unit and not reinterpreted:
         return canonical, None, None, None
@@ -113,7 +116,7 @@ def plain_value(value: float, unit: str, concept: Concept) -> Settled | None:
         return None
     if out_of_range(concept.quantity, canonical) is not None:
         return None
-    return _settle(value, unit, canonical, reinterpreted, concept.quantity)
+    return settle(value, unit, canonical, reinterpreted, concept.quantity)
 
 
 def read_quantity(q: JsonObject, at: str, concept: Concept, out: Collector) -> Reading | None:
@@ -152,7 +155,7 @@ def read_quantity(q: JsonObject, at: str, concept: Concept, out: Collector) -> R
             f"{at}.value",
         )
         return None
-    canonical, sent_value, sent_unit, issue = _settle(
+    canonical, sent_value, sent_unit, issue = settle(
         value, unit, canonical, reinterpreted, quantity
     )
     if issue is not None:

@@ -13,6 +13,7 @@ is how ERR-2 (ERL.2) locates a segment.
 
 from __future__ import annotations
 
+import logging
 import re
 from collections.abc import Iterator
 from dataclasses import dataclass
@@ -25,10 +26,18 @@ import hl7.util  # type: ignore[import-untyped]
 from service.hl7v2.er7 import escape
 from service.hl7v2.errors import ErrorCode, Location, MessageRejected, V2Error
 
-# python-hl7 logs the whole text of a field it cannot un-escape (a birth date, a value, an
-# identifier). Silenced wherever the library is used — the CLI and tests as well as the
-# servers; the adapter reports the problem itself, located and without the text.
-for _library_logger in (hl7.util.logger, hl7.containers.logger):
+
+def hl7_library_loggers() -> list[logging.Logger]:
+    """The loggers of python-hl7, which log the text of a field they cannot un-escape."""
+    return [hl7.util.logger, hl7.containers.logger]
+
+
+# python-hl7 logs the whole text of a field it cannot un-escape ("Error decoding value [..],
+# field [1961\\Q07\\23]": a birth date, a value, an identifier), and with no handler Python
+# prints it on stderr. Silenced here, at import, wherever the library is used (CLI, servers,
+# tests); the adapter reports the problem itself, located and without the text. Found by
+# tests/fuzz/hl7v2.py. (`service.api.logs` keeps them silent when a log config is applied.)
+for _library_logger in hl7_library_loggers():
     _library_logger.disabled = True
     _library_logger.propagate = False
 

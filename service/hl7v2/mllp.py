@@ -48,28 +48,6 @@ def _current(source: RuntimeSource) -> Callable[[], Runtime]:
 log = logging.getLogger("oxyrule.hl7v2.mllp")
 
 
-def hl7_library_loggers() -> list[logging.Logger]:
-    """The loggers of python-hl7, which log the text of a field they cannot un-escape."""
-    import hl7.containers  # type: ignore[import-untyped]
-    import hl7.util  # type: ignore[import-untyped]
-
-    return [hl7.util.logger, hl7.containers.logger]
-
-
-def mute_hl7_library_logs() -> None:
-    """Silence python-hl7's own logging.
-
-    On a bad escape sequence it logs the whole field at WARNING or ERROR ("Error decoding
-    value [..], field [1961\\Q07\\23]"): a birth date, a result value, an identifier. Its
-    loggers are named after its source files, and with no handler configured Python prints
-    such records on stderr. The adapter reports the problem itself, located and without the
-    text, so nothing is lost. Found by ``tests/fuzz/hl7v2.py``.
-    """
-    for logger in hl7_library_loggers():
-        logger.disabled = True
-        logger.propagate = False
-
-
 def frame(body: bytes) -> bytes:
     """``body`` in an MLLP frame."""
     return START_BLOCK + body + END_BLOCK + b"\r"
@@ -176,7 +154,6 @@ async def start_mllp(
     """
     if idle_timeout_s <= 0:
         raise ValueError("idle_timeout_s must be positive")
-    mute_hl7_library_logs()
 
     current = _current(runtime)
 

@@ -16,30 +16,21 @@ from __future__ import annotations
 
 import math
 import re
-from dataclasses import dataclass
 
 from service.exceptions import ImpossibleValueError, UnitError
 from service.fhir import codes
 from service.fhir.codes import Concept
 from service.fhir.plausibility import out_of_range
+from service.fhir.values import Reading, settle
 from service.hl7v2 import tables
 from service.hl7v2.errors import ErrorCode
 from service.hl7v2.message import Segment
 from service.hl7v2.notes import Notes
-from service.intake.model import QUANTITY_UNITS, Quantity, Severity
+from service.intake.model import Quantity, Severity
 from service.physiology.units import FIO2_LIMITS, Dimension
 
 _NM = re.compile(r"[+-]?(?:\d+\.?\d*|\.\d+)", re.ASCII)
 _E = ErrorCode
-
-
-@dataclass(frozen=True, slots=True)
-class Reading:
-    """A value in its quantity's canonical unit; ``sent_*`` are set when it was converted."""
-
-    value: float | str
-    sent_value: float | None = None
-    sent_unit: str | None = None
 
 
 def has_value(obx: Segment) -> bool:
@@ -162,20 +153,13 @@ def _quantity(obx: Segment, value: float, concept: Concept, notes: Notes) -> Rea
         message = f"{quantity.value} is impossible: {reason}{hint}; the value is not used"
         notes.issue("value-out-of-range", Severity.ERROR, message, obx.at(5))
         return None
-    canonical_unit = QUANTITY_UNITS[quantity]
-    if unit == canonical_unit and not reinterpreted:
-        return Reading(canonical)
-    if unit == "%" and canonical_unit == "1" and not reinterpreted:
-        # Percentages are held as fractions: a representation, not a conversion worth a notice.
-        return Reading(canonical, sent_value=value, sent_unit=unit)
-    if reinterpreted:
-        severity = Severity.WARNING
-        how = f"read as {'a percentage' if unit == '1' else 'a fraction'} despite unit '{unit}'"
-    else:
-        severity = Severity.INFORMATION
-        how = f"converted from '{unit}' to '{canonical_unit}'"
-    notes.issue("unit-converted", severity, f"{quantity.value} {how}", obx.at(6))
-    return Reading(canonical, sent_value=value, sent_unit=unit)
+    canonical, sent_value, sent_unit, report = settle(
+        value, unit, canonical, reinterpreted, quantity
+    )
+    if report is not None:
+        severity, message = report
+        notes.issue("unit-converted", severity, message, obx.at(6))
+    return Reading(canonical, sent_value=sent_value, sent_unit=sent_unit)
 
 
 def _device(obx: Segment, notes: Notes) -> Reading | None:
