@@ -96,8 +96,6 @@ class Runtime:
         if assessment.status == "data-required" and not facts:
             facts = list(REPEAT_GAS)
         codes = list(dict.fromkeys(c for f in facts if (c := code_for_fact(f)) is not None))
-        if not codes and assessment.status == "data-requested":
-            assessment.status = "success"
         return render_bundle(
             assessment,
             data_requirements=codes,

@@ -288,19 +288,21 @@ def render_bundle(
 ) -> Json:
     """The result Bundle for ``a``. ``data_requirements`` are (system, code) pairs;
     ``settings_hash`` names the settings the result was computed with."""
+    requirements = _data_requirements(data_requirements)
+    # More data was asked for only if some of it can be named as a FHIR data requirement.
+    status = "success" if a.status == "data-requested" and not requirements else a.status
     guidance: Json = {
         "resourceType": "GuidanceResponse",
         "id": "guidance",
         "identifier": [{"system": "urn:ietf:rfc:3986", "value": f"urn:uuid:{a.decision_id}"}],
         "moduleUri": f"urn:oxyrule:ruleset:{a.ruleset_identity}#sha256:{a.ruleset_hash}",
-        "status": a.status,
+        "status": status,
         "occurrenceDateTime": a.timestamp.isoformat(),
         "outputParameters": _ref("Parameters/result"),
         "evaluationMessage": [_ref("OperationOutcome/messages")],
     }
     if (subject := _subject(a)) is not None:
         guidance["subject"] = subject
-    requirements = _data_requirements(data_requirements)
     if requirements:
         guidance["dataRequirement"] = requirements
     quantities = _Quantities(pressure_unit)
