@@ -16,6 +16,8 @@ from typing import Any
 
 import orjson
 
+from tests.fuzz.libfuzzer import fuzzer_args
+
 HERE = Path(__file__).resolve().parent
 
 
@@ -44,15 +46,7 @@ def main() -> None:
     def one_input(data: bytes) -> None:
         check(runtime, LocatedError, data)
 
-    args = list(sys.argv)
-    if not any(not a.startswith("-") for a in args[1:]):
-        # New inputs go to the first directory: a scratch corpus, not the committed seeds.
-        work = Path(".fuzz-corpus") / "fhir"
-        work.mkdir(parents=True, exist_ok=True)
-        args += [str(work), str(HERE / "corpus" / "fhir")]
-    if not any(a.startswith("-max_total_time") for a in args):
-        args.append("-max_total_time=300")
-    atheris.Setup(args, one_input)
+    atheris.Setup(fuzzer_args(sys.argv, "fhir", HERE / "corpus" / "fhir"), one_input)
     atheris.Fuzz()
 
 

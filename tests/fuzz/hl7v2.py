@@ -23,6 +23,8 @@ from typing import Any
 
 import orjson
 
+from tests.fuzz.libfuzzer import fuzzer_args
+
 HERE = Path(__file__).resolve().parent
 SEEDS = HERE / "corpus" / "hl7v2"
 REPLIES = ("ack", "fhir", "result")
@@ -138,15 +140,7 @@ def main() -> None:
     def one_input(data: bytes) -> None:
         check(runtime, modules, data)
 
-    args = list(sys.argv)
-    if not any(not a.startswith("-") for a in args[1:]):
-        # New inputs go to the first directory: a scratch corpus, not the committed seeds.
-        work = Path(".fuzz-corpus") / "hl7v2"
-        work.mkdir(parents=True, exist_ok=True)
-        args += [str(work), str(SEEDS)]
-    if not any(a.startswith("-max_total_time") for a in args):
-        args.append("-max_total_time=300")
-    atheris.Setup(args, one_input)
+    atheris.Setup(fuzzer_args(sys.argv, "hl7v2", SEEDS), one_input)
     atheris.Fuzz()
 
 
