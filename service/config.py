@@ -15,6 +15,7 @@ from typing import Literal
 from pydantic import Field, model_validator
 from pydantic_settings import BaseSettings, SettingsConfigDict
 
+from service.physiology import constants as c
 from service.physiology.atmosphere import AltitudeModel
 
 
@@ -39,9 +40,9 @@ class Settings(BaseSettings):
     site_altitude_m: float | None = Field(None, ge=-500, le=9000)
     altitude_model: AltitudeModel = AltitudeModel.WEST_1996
     assume_room_air: bool = False
-    hufner_ml_per_g: float = Field(1.34, ge=1.30, le=1.40)
-    assumed_av_difference_ml_dl: float = Field(5.0, ge=0.5, le=15.0)
-    respiratory_quotient: float = Field(0.8, ge=0.6, le=1.2)
+    hufner_ml_per_g: float = Field(c.HUFNER_CONVENTIONAL_ML_PER_G, ge=1.30, le=1.40)
+    assumed_av_difference_ml_dl: float = Field(c.ASSUMED_AV_DIFFERENCE_ML_DL, ge=0.5, le=15.0)
+    respiratory_quotient: float = Field(c.DEFAULT_RESPIRATORY_QUOTIENT, ge=0.6, le=1.2)
     strict_fhir: bool = False
     site_file: Path | None = Field(
         None, description="a site override file (YAML, see service/site.py); None for none"

@@ -194,7 +194,7 @@ def assess(
         for g in pairing.gases
     ]
     index = gases[0]
-    compared = add_serial_facts(index, gases[1:])
+    add_serial_facts(index, gases[1:])
     raw = {**index.facts, **_specimen_flags(pairing)}
     evaluation, findings = _evaluate(raw, ruleset, index)
     verdict = evaluation.verdict
@@ -234,7 +234,7 @@ def assess(
         findings=all_findings,
         index=index,
         gases=[
-            GasResult(facts=g, index=i == 0, compared_with=compared if i == 0 else None)
+            GasResult(facts=g, index=i == 0)
             for i, g in enumerate(gases)
             if g.gas.anchor is not None and g.gas.anchor.quantity is Quantity.ARTERIAL_PO2
         ],

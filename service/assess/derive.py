@@ -10,7 +10,7 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import dataclass, field
-from datetime import date, datetime
+from datetime import date
 
 from service.config import Settings
 from service.exceptions import PhysiologyError
@@ -547,13 +547,3 @@ def add_serial_facts(index: GasFacts, earlier: list[GasFacts]) -> GasFacts | Non
         facts["shunt_fraction_at_higher_fio2"] = high
         facts["shunt_fraction_change"] = high - low
     return other
-
-
-def latest_first(gases: list[GasFacts]) -> list[GasFacts]:
-    """Gases ordered latest first (untimed last)."""
-
-    def key(g: GasFacts) -> float:
-        t: datetime | None = g.gas.time
-        return t.timestamp() if t is not None else float("-inf")
-
-    return sorted(gases, key=key, reverse=True)

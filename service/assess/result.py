@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from datetime import datetime
 
 from service.intake.model import Patient, Source
@@ -54,7 +54,6 @@ class GasResult:
 
     facts: GasFacts
     index: bool
-    compared_with: GasFacts | None = None
 
 
 @dataclass(slots=True)
@@ -75,4 +74,3 @@ class Assessment:
     data_requested: list[str]  # fact names that would settle open questions
     status: str  # success | data-requested | data-required
     evaluation: object = None  # the engine's full evaluation (trace), for explain
-    notes: list[str] = field(default_factory=list)

@@ -25,7 +25,7 @@ class AltitudeModel(StrEnum):
 # Lowest dry land (Dead Sea shore, about -430 m) to just above the highest summit (8849 m).
 WEST_1996_RANGE_M = (-500.0, 9000.0)
 # The ISA troposphere (geopotential 0–11 km), extended slightly below sea level as ISO 2533 is.
-ISA_RANGE_M = (-500.0, 11_000.0)
+ISA_RANGE_M = (-500.0, c.ISA_TROPOPAUSE_GEOPOTENTIAL_M)
 
 
 def geopotential_altitude_m(*, geometric_altitude_m: float) -> float:

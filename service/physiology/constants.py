@@ -42,7 +42,6 @@ NORMAL_BODY_TEMPERATURE_CEL = 37.0
 HUFNER_CONVENTIONAL_ML_PER_G = 1.34  # common practice; 1.39 theoretical, 1.368 measured
 O2_SOLUBILITY_ML_DL_PER_MMHG = 0.003  # dissolved O2, mL/dL per mmHg at 37 °C (common practice)
 ASSUMED_AV_DIFFERENCE_ML_DL = 5.0  # normal resting a-v content difference (common practice)
-ASSUMED_AV_DIFFERENCE_CRITICAL_ML_DL = 3.5  # "estimated shunt" equations in the critically ill
 # Above this arterial PO2 the blood is on the flat part of the curve: a measured SaO2 below
 # full saturation there reflects dyshaemoglobin or measurement, not shunt.
 FLAT_CURVE_PO2_MMHG = 150.0

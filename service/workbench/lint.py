@@ -15,7 +15,7 @@ from pathlib import Path
 from service.config import Settings
 from service.engine import RuleSet, RuleSetError, RuleStatus, Truth
 from service.fhir.outcome import LocatedError
-from service.runtime import Runtime, load_concept_map
+from service.runtime import Runtime
 
 from .expectations import FixtureError, find_cases
 from .lock import compare, current_entries, read_lock
@@ -154,12 +154,3 @@ def _coverage(ruleset: RuleSet, runtime: Runtime, fixtures: list[Path]) -> list[
                     )
                 )
     return messages
-
-
-def concept_map_problems(directory: Path) -> list[str]:
-    """Problems of the local-code ConceptMap alone (for tests and the CLI)."""
-    try:
-        load_concept_map(directory)
-    except LocatedError as error:
-        return [p.diagnostics for p in error.problems]
-    return []
