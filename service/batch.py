@@ -17,9 +17,9 @@ from typing import IO
 
 import orjson
 
+from service.assess.presentation import PressureUnit
 from service.config import Settings
 from service.fhir.outcome import LocatedError, error, operation_outcome
-from service.fhir.render import PressureUnit
 from service.runtime import Runtime
 
 # One worker process's runtime, set by the pool initialiser.

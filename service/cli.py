@@ -41,9 +41,9 @@ def _serve(args: argparse.Namespace) -> int:
 
 
 def _assess(args: argparse.Namespace) -> int:
+    from service.assess.presentation import PressureUnit
     from service.batch import Progress, answer, assess_lines, numbered_lines
     from service.config import Settings
-    from service.fhir.render import PressureUnit
     from service.runtime import Runtime
 
     overrides: dict[str, object] = {"strict_fhir": args.strict}

@@ -1,17 +1,40 @@
 """The service's error family, in one place.
 
-Every error a caller can see descends from ``ServiceError``::
+Most errors a caller can see descend from ``ServiceError``; a few stand outside it on purpose.
+Every error class of the service is drawn here with its real bases (module in the right
+column); ``tests/test_exceptions.py`` checks the drawing against the classes::
 
-    ServiceError
-    ├── PhysiologyError (ValueError)        a computation was asked something it cannot answer
-    │   ├── ImpossibleValueError            the input cannot be true of a person or of physics
-    │   │                                   (a negative pressure, FiO2 above 1, a body at 60 °C)
-    │   └── OutsideModelRangeError          the input is real but outside where the equation holds
-    │                                       (SpO2 above 96 % for PaO2 imputation, altitude 12 km)
-    └── UnitError (ValueError)              a unit the service does not convert, or the wrong kind
+    ServiceError (Exception)                  service.exceptions
+    ├── PhysiologyError (ValueError)          service.exceptions
+    │   ├── ImpossibleValueError              service.exceptions
+    │   └── OutsideModelRangeError            service.exceptions
+    ├── UnitError (ValueError)                service.exceptions
+    ├── LocatedError                          service.fhir.outcome
+    │   ├── BundleError                       service.fhir.outcome
+    │   │   └── NotABundleError               service.fhir.outcome
+    │   ├── ConceptMapError                   service.fhir.outcome
+    │   └── InvalidResourceError              service.fhir.models
+    ├── SiteFileError                         service.site
+    └── V2MessageError                        service.hl7v2.errors
+        ├── MessageRejected                   service.hl7v2.errors
+        └── MessageInError                    service.hl7v2.errors
 
-The physiology package raises only these; adapters (FHIR, HL7 v2, HTTP) catch them and turn
-them into located OperationOutcome issues. Messages say what was wrong and why, never more.
+    Outside the family:
+    RuleSetError (Exception)                  service.engine.errors
+    FactError (ValueError)                    service.engine.errors
+    ApiError (Exception)                      service.api.errors
+    AuthConfigError (ValueError)              service.api.auth
+    StartupError (Exception)                  service.api.server
+    FixtureError (ValueError)                 service.workbench.expectations
+
+The engine's errors stand outside because the engine imports nothing of the service (it is
+usable on its own); ``ApiError`` is an HTTP refusal carried to the exception handler, not a
+fault; ``AuthConfigError``, ``StartupError`` and ``FixtureError`` are start-up and tooling
+errors reported to an operator.
+
+The physiology package raises only ``PhysiologyError`` and ``UnitError``; adapters (FHIR,
+HL7 v2, HTTP) catch them and turn them into located OperationOutcome issues. Messages say
+what was wrong and why, never more.
 """
 
 from __future__ import annotations

@@ -14,16 +14,18 @@ from typing import Any
 import orjson
 
 from service.assess.assess import assess
+from service.assess.presentation import PressureUnit
 from service.assess.result import Assessment
 from service.config import Settings
 from service.engine import RuleSet, load_ruleset
-from service.fhir.codes import code_for_fact
-from service.fhir.concept_map import LocalCodeMap
+from service.fhir.concept_map import read_concept_map
 from service.fhir.extract import read_bundle
 from service.fhir.outcome import BundleError
-from service.fhir.render import PressureUnit, render_bundle
+from service.fhir.render import render_bundle
 from service.intake.model import Intake
 from service.site import apply, read_site_file, settings_hash
+from service.terminology.codes import code_for_fact
+from service.terminology.local_codes import LocalCodeMap
 
 CONCEPT_MAP_FILE = "concept-map.json"
 # What a not-classifiable result asks for when no rule named anything: a trusted arterial gas.
@@ -35,7 +37,7 @@ def load_concept_map(rules_dir: Path) -> LocalCodeMap | None:
     path = rules_dir / CONCEPT_MAP_FILE
     if not path.is_file():
         return None
-    return LocalCodeMap.from_concept_map(orjson.loads(path.read_bytes()), source=str(path))
+    return read_concept_map(orjson.loads(path.read_bytes()), source=str(path))
 
 
 def _bytes(path: Path) -> bytes:

@@ -11,9 +11,9 @@ from pathlib import Path
 import orjson
 import pytest
 
+from service.assess.presentation import PressureUnit
 from service.fhir.extract import read_bundle
 from service.fhir.models import validate_resource
-from service.fhir.render import PressureUnit
 from service.runtime import Runtime
 from service.workbench.expectations import (
     Case,

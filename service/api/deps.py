@@ -16,7 +16,7 @@ from fastapi import Depends, Query, Request
 from service.api.auth import Caller
 from service.api.errors import ApiError
 from service.api.state import RequestRecord, ServiceState
-from service.fhir.render import PressureUnit
+from service.assess.presentation import PressureUnit
 
 UNITS: dict[str, PressureUnit] = {"mm[Hg]": "mm[Hg]", "kPa": "kPa"}
 

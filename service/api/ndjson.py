@@ -26,8 +26,8 @@ from service.api.errors import ApiError, outcome
 from service.api.logs import REQUEST_LOGGER
 from service.api.middleware import frames
 from service.api.tally import Tally, tally_json
+from service.assess.presentation import PressureUnit
 from service.batch import answer
-from service.fhir.render import PressureUnit
 from service.runtime import Runtime
 
 log = logging.getLogger(REQUEST_LOGGER)

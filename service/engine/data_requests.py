@@ -16,28 +16,17 @@ from dataclasses import dataclass
 
 from service.engine.catalogue import FactCatalogue
 from service.engine.facts import FactValue
-from service.engine.slots import slot_setters
 
 __all__ = ["DataRequest", "DataRequests"]
 
 
-@dataclass(frozen=True, slots=True, init=False)
+@dataclass(frozen=True, slots=True)
 class DataRequest:
     """A fact that would help, who asked for it, and which derived facts it feeds."""
 
     fact: str
     requested_by: tuple[str, ...]
     needed_for: tuple[str, ...] = ()
-
-    def __init__(
-        self, fact: str, requested_by: tuple[str, ...], needed_for: tuple[str, ...] = ()
-    ) -> None:
-        _SLOTS[0](self, fact)
-        _SLOTS[1](self, requested_by)
-        _SLOTS[2](self, needed_for)
-
-
-_SLOTS = slot_setters(DataRequest, "fact", "requested_by", "needed_for")
 
 
 class DataRequests:

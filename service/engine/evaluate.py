@@ -16,7 +16,6 @@ from service.engine.facts import FactValue
 from service.engine.logic import Truth, TruthValue
 from service.engine.results import EvaluationContext, RuleResult
 from service.engine.ruleset import Rule, RuleSet
-from service.engine.slots import slot_setters
 from service.engine.verdict import Verdict, decide_states
 
 __all__ = ["Evaluation", "evaluate"]
@@ -58,7 +57,7 @@ class _Results:
         return repr(self.all())
 
 
-@dataclass(frozen=True, slots=True, init=False)
+@dataclass(frozen=True, slots=True)
 class Evaluation:
     """Everything one evaluation produced."""
 
@@ -68,14 +67,6 @@ class Evaluation:
     """The rule set's content hash, so a result can be tied to exact files and overrides."""
     verdict: Verdict
     _results: _Results = field(repr=False)
-
-    def __init__(
-        self, ruleset: str, content_hash: str, verdict: Verdict, results: _Results
-    ) -> None:
-        _EVALUATION_SLOTS[0](self, ruleset)
-        _EVALUATION_SLOTS[1](self, content_hash)
-        _EVALUATION_SLOTS[2](self, verdict)
-        _EVALUATION_SLOTS[3](self, results)
 
     @property
     def results(self) -> tuple[RuleResult, ...]:
@@ -93,9 +84,6 @@ class Evaluation:
     def shadow_results(self) -> tuple[RuleResult, ...]:
         """Results of `testing` rules, which never affect the verdict."""
         return tuple(result for result in self.results if result.shadow)
-
-
-_EVALUATION_SLOTS = slot_setters(Evaluation, "ruleset", "content_hash", "verdict", "_results")
 
 
 def evaluate(ruleset: RuleSet, facts: Mapping[str, FactValue]) -> Evaluation:

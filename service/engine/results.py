@@ -14,28 +14,17 @@ from service.engine.facts import FactValue
 from service.engine.leaves import Leaf, Threshold
 from service.engine.logic import Operator, Truth, TruthValue, truth_of
 from service.engine.ruleset import Outcome, Rule
-from service.engine.slots import slot_setters
 
 __all__ = ["EvaluationContext", "LeafTrace", "RuleResult"]
 
 
-@dataclass(frozen=True, slots=True, init=False)
+@dataclass(frozen=True, slots=True)
 class EvaluationContext:
     """What every result of one evaluation shares."""
 
     facts: Mapping[str, FactValue]
     states: Sequence[TruthValue]
     leaves: Sequence[Leaf]
-
-    def __init__(
-        self, facts: Mapping[str, FactValue], states: Sequence[TruthValue], leaves: Sequence[Leaf]
-    ) -> None:
-        _CONTEXT_SLOTS[0](self, facts)
-        _CONTEXT_SLOTS[1](self, states)
-        _CONTEXT_SLOTS[2](self, leaves)
-
-
-_CONTEXT_SLOTS = slot_setters(EvaluationContext, "facts", "states", "leaves")
 
 
 @dataclass(frozen=True, slots=True)
@@ -55,18 +44,13 @@ class LeafTrace:
     """The fact's name when it was missing (a leaf other than `present` is then unknown)."""
 
 
-@dataclass(frozen=True, slots=True, init=False)
+@dataclass(frozen=True, slots=True)
 class RuleResult:
     """The outcome of one rule in one evaluation."""
 
     rule: Rule
     state: Truth
     context: EvaluationContext = field(repr=False, compare=False)
-
-    def __init__(self, rule: Rule, state: Truth, context: EvaluationContext) -> None:
-        _RESULT_SLOTS[0](self, rule)
-        _RESULT_SLOTS[1](self, state)
-        _RESULT_SLOTS[2](self, context)
 
     @property
     def ref(self) -> str:
@@ -130,6 +114,3 @@ class RuleResult:
         leaves = self.context.leaves
         written = (index for index in self.rule.condition.leaves if index in indices)
         return tuple(dict.fromkeys(leaves[index].fact for index in written))
-
-
-_RESULT_SLOTS = slot_setters(RuleResult, "rule", "state", "context")

@@ -26,7 +26,6 @@ from service.engine.facts import FactValue
 from service.engine.logic import Truth, TruthValue
 from service.engine.results import RuleResult
 from service.engine.ruleset import Discriminator, MechanismOutcome, VerdictPlan
-from service.engine.slots import slot_setters
 from service.engine.vocabulary import (
     FindingCode,
     Grade,
@@ -58,7 +57,7 @@ _PRESENT, _ABSENT = HypoxaemiaStatus.PRESENT, HypoxaemiaStatus.ABSENT
 _ERROR = Severity.ERROR
 
 
-@dataclass(frozen=True, slots=True, init=False)
+@dataclass(frozen=True, slots=True)
 class MechanismAssessment:
     """The grade of one mechanism and the results of the rules that decided it."""
 
@@ -70,20 +69,6 @@ class MechanismAssessment:
     """Rules that also fired for this mechanism at a higher (losing) priority."""
     demoted_because: str | None = None
     """Why a `likely` grade was lowered to `possible`, if it was."""
-
-    def __init__(
-        self,
-        mechanism: Mechanism,
-        grade: Grade,
-        deciding: tuple[RuleResult, ...] = (),
-        losing: tuple[RuleResult, ...] = (),
-        demoted_because: str | None = None,
-    ) -> None:
-        _ASSESSMENT_SLOTS[0](self, mechanism)
-        _ASSESSMENT_SLOTS[1](self, grade)
-        _ASSESSMENT_SLOTS[2](self, deciding)
-        _ASSESSMENT_SLOTS[3](self, losing)
-        _ASSESSMENT_SLOTS[4](self, demoted_because)
 
     @property
     def rules(self) -> tuple[str, ...]:
@@ -118,18 +103,13 @@ class MechanismAssessment:
         return tuple(dict.fromkeys(item for item in found if item is not None))
 
 
-@dataclass(frozen=True, slots=True, init=False)
+@dataclass(frozen=True, slots=True)
 class FindingResult:
     """A finding raised by a fired rule."""
 
     code: FindingCode
     severity: Severity
     result: RuleResult
-
-    def __init__(self, code: FindingCode, severity: Severity, result: RuleResult) -> None:
-        _FINDING_SLOTS[0](self, code)
-        _FINDING_SLOTS[1](self, severity)
-        _FINDING_SLOTS[2](self, result)
 
     @property
     def rule(self) -> str:
@@ -142,7 +122,7 @@ class FindingResult:
         return self.result.rationale
 
 
-@dataclass(frozen=True, slots=True, init=False)
+@dataclass(frozen=True, slots=True)
 class Verdict:
     """The engine's answer for one set of facts."""
 
@@ -157,24 +137,6 @@ class Verdict:
     data_requested: tuple[DataRequest, ...]
     """In catalogue order."""
 
-    def __init__(
-        self,
-        pattern: Pattern,
-        pattern_reason: str,
-        hypoxaemia: HypoxaemiaStatus,
-        hypoxaemia_rules: tuple[str, ...],
-        mechanisms: tuple[MechanismAssessment, ...],
-        findings: tuple[FindingResult, ...],
-        data_requested: tuple[DataRequest, ...],
-    ) -> None:
-        _VERDICT_SLOTS[0](self, pattern)
-        _VERDICT_SLOTS[1](self, pattern_reason)
-        _VERDICT_SLOTS[2](self, hypoxaemia)
-        _VERDICT_SLOTS[3](self, hypoxaemia_rules)
-        _VERDICT_SLOTS[4](self, mechanisms)
-        _VERDICT_SLOTS[5](self, findings)
-        _VERDICT_SLOTS[6](self, data_requested)
-
     def assessment(self, mechanism: Mechanism) -> MechanismAssessment:
         """The assessment of one mechanism."""
         return next(item for item in self.mechanisms if item.mechanism is mechanism)
@@ -182,22 +144,6 @@ class Verdict:
     def grade(self, mechanism: Mechanism) -> Grade:
         """The grade of one mechanism."""
         return self.assessment(mechanism).grade
-
-
-_ASSESSMENT_SLOTS = slot_setters(
-    MechanismAssessment, "mechanism", "grade", "deciding", "losing", "demoted_because"
-)
-_FINDING_SLOTS = slot_setters(FindingResult, "code", "severity", "result")
-_VERDICT_SLOTS = slot_setters(
-    Verdict,
-    "pattern",
-    "pattern_reason",
-    "hypoxaemia",
-    "hypoxaemia_rules",
-    "mechanisms",
-    "findings",
-    "data_requested",
-)
 
 
 def _assess(

@@ -1,4 +1,4 @@
-"""Local laboratory codes mapped to LOINC by a FHIR ConceptMap (contract.md §2).
+"""Local laboratory codes mapped to LOINC by a FHIR ConceptMap.
 
 A site whose analyser sends its own codes puts an R4 ``ConceptMap`` in the rule directory; it is
 loaded once at start-up, checked completely, and refused with every problem located
@@ -15,14 +15,14 @@ not read is an error: the map's author meant it to be read.
 
 from __future__ import annotations
 
-from collections.abc import Mapping
-from dataclasses import dataclass, field, replace
+from dataclasses import replace
 from types import MappingProxyType
 
-from service.fhir import codes
 from service.fhir.outcome import ConceptMapError
 from service.fhir.shape import Collector, JsonObject, member_list, objects
 from service.fhir.shape import member_str as text
+from service.terminology import codes
+from service.terminology.local_codes import LocalCodeMap
 
 USED_EQUIVALENCES = frozenset({"equivalent", "equal"})
 R4_EQUIVALENCES = frozenset(
@@ -41,39 +41,28 @@ R4_EQUIVALENCES = frozenset(
 )
 
 
-@dataclass(frozen=True, slots=True)
-class LocalCodeMap:
-    """(system, local code) → LOINC code, read from a ConceptMap."""
+def read_concept_map(data: object, *, source: str = "ConceptMap") -> LocalCodeMap:
+    """Read an R4 ConceptMap (parsed JSON) into a ``LocalCodeMap``. ``source`` names the file
+    in messages.
 
-    mappings: Mapping[tuple[str, str], str] = field(default_factory=dict)
-    skipped: int = 0  # targets not used because their equivalence is not equivalent/equal
-
-    def loinc_for(self, system: str, code: str) -> str | None:
-        """The LOINC code a local coding maps to, or None."""
-        return self.mappings.get((system, code))
-
-    @classmethod
-    def from_concept_map(cls, data: object, *, source: str = "ConceptMap") -> LocalCodeMap:
-        """Read an R4 ConceptMap (parsed JSON). ``source`` names the file in messages.
-
-        Raises:
-            ConceptMapError: the ConceptMap is malformed or maps to a code the service does not
-                read; every problem is listed with its FHIRPath.
-        """
-        out = Collector()
-        mappings: dict[tuple[str, str], str] = {}
-        skipped = 0
-        if not isinstance(data, dict) or data.get("resourceType") != "ConceptMap":
-            out.problem("structure", "expected a ConceptMap resource", "ConceptMap")
-        else:
-            groups = member_list(data, "group", "ConceptMap", out, required=True) or []
-            for group, at in objects(groups, "ConceptMap.group", out):
-                skipped += _read_group(group, at, mappings, out)
-        if out.problems:
-            # Name the file in every message: the loader reports them at start-up.
-            named = [replace(p, diagnostics=f"{source}: {p.diagnostics}") for p in out.problems]
-            raise ConceptMapError(named)
-        return cls(MappingProxyType(mappings), skipped)
+    Raises:
+        ConceptMapError: the ConceptMap is malformed or maps to a code the service does not
+            read; every problem is listed with its FHIRPath.
+    """
+    out = Collector()
+    mappings: dict[tuple[str, str], str] = {}
+    skipped = 0
+    if not isinstance(data, dict) or data.get("resourceType") != "ConceptMap":
+        out.problem("structure", "expected a ConceptMap resource", "ConceptMap")
+    else:
+        groups = member_list(data, "group", "ConceptMap", out, required=True) or []
+        for group, at in objects(groups, "ConceptMap.group", out):
+            skipped += _read_group(group, at, mappings, out)
+    if out.problems:
+        # Name the file in every message: the loader reports them at start-up.
+        named = [replace(p, diagnostics=f"{source}: {p.diagnostics}") for p in out.problems]
+        raise ConceptMapError(named)
+    return LocalCodeMap(MappingProxyType(mappings), skipped)
 
 
 def _read_group(

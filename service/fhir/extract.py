@@ -29,11 +29,9 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 from service.fhir import codes
-from service.fhir.concept_map import LocalCodeMap
 from service.fhir.dates import parse_date
 from service.fhir.observation import ObservationReader
 from service.fhir.outcome import NotABundleError, error
-from service.fhir.plausibility import out_of_range
 from service.fhir.references import FHIR_ID, BundleIndex, resource_reference, type_and_id
 from service.fhir.shape import (
     Collector,
@@ -46,6 +44,8 @@ from service.fhir.shape import (
 )
 from service.fhir.shape import member_str as text
 from service.intake.model import Intake, Measurement, Patient, Quantity, Severity, Source
+from service.intake.plausibility import out_of_range
+from service.terminology.local_codes import LocalCodeMap
 
 _READ = frozenset({"Patient", "Observation", "Location", "Specimen"})
 _REQUEST_WITHOUT_RESOURCE = frozenset({"GET", "HEAD", "DELETE"})

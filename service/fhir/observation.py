@@ -18,9 +18,7 @@ import sys
 from dataclasses import dataclass, field
 from datetime import datetime
 
-from service.fhir import codes
-from service.fhir.codes import Concept
-from service.fhir.concept_map import LocalCodeMap
+from service.fhir import codes as fhir_codes
 from service.fhir.dates import effective_time, precise_time
 from service.fhir.references import BundleIndex
 from service.fhir.shape import (
@@ -33,8 +31,12 @@ from service.fhir.shape import (
 )
 from service.fhir.shape import member_str as text
 from service.fhir.specimens import observation_specimen
-from service.fhir.values import Reading, Settled, plain_value, read_device, read_quantity
+from service.fhir.values import plain_value, read_device, read_quantity
 from service.intake.model import Measurement, Quantity, Severity, Source, Specimen
+from service.intake.reading import Reading, Settled
+from service.terminology import codes
+from service.terminology.codes import Concept
+from service.terminology.local_codes import LocalCodeMap
 
 # The elements a plain Observation may have: everything the reader ignores, plus the ones the
 # plain path reads itself. Anything else (component, another value[x] or effective[x],
@@ -85,7 +87,7 @@ class ObservationReader:
         if not resource.keys() <= _PLAIN_ELEMENTS:
             return None
         status = resource.get("status")
-        if type(status) is not str or status not in codes.OBSERVATION_STATUS_USED:
+        if type(status) is not str or status not in fhir_codes.OBSERVATION_STATUS_USED:
             return None
         codings = _plain_codings(resource.get("code"))
         profiles = _plain_profiles(resource)
@@ -176,10 +178,10 @@ class ObservationReader:
         status = text(resource, "status", at, self.out, required=True)
         if status is None:
             return False
-        if status not in codes.OBSERVATION_STATUSES:
+        if status not in fhir_codes.OBSERVATION_STATUSES:
             self.out.problem("code-invalid", "not an R4 Observation status", f"{at}.status")
             return False
-        if status in codes.OBSERVATION_STATUS_IGNORED:
+        if status in fhir_codes.OBSERVATION_STATUS_IGNORED:
             severity = Severity.WARNING if status == "unknown" else Severity.INFORMATION
             message = f"status '{status}': the Observation is not used"
             self.out.issue("observation-ignored", severity, message, f"{at}.status")
@@ -368,7 +370,7 @@ def _says_pulse_oximetry(codings: list[tuple[str, str]], profiles: list[str]) ->
             return True
         if system == codes.IEEE_11073 and code == codes.IEEE_PULSE_OXIMETRY:
             return True
-    return any(p.split("|", 1)[0] == codes.US_CORE_PULSE_OXIMETRY for p in profiles)
+    return any(p.split("|", 1)[0] == fhir_codes.US_CORE_PULSE_OXIMETRY for p in profiles)
 
 
 def _value_keys(holder: JsonObject) -> list[str]:

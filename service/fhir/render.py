@@ -11,16 +11,16 @@ from __future__ import annotations
 
 import uuid
 from collections.abc import Iterable
-from typing import Any, Literal
+from typing import Any
 
 from service.assess.derive import Derived, GasFacts
+from service.assess.presentation import QUANTITY_ORDER, PressureUnit, quantity
 from service.assess.result import CAUTION, Assessment, Finding, MechanismVerdict
-from service.physiology.units import kpa_from_mmhg
+from service.terminology.codes import DERIVED_OBSERVATION_CODES as OBSERVATION_CODES
 
 Json = dict[str, Any]
-PressureUnit = Literal["mm[Hg]", "kPa"]
 
-UCUM = "http://unitsofmeasure.org"
+
 LOINC = "http://loinc.org"
 BASE = "https://oxyrule.org/fhir/CodeSystem/"
 FINDING_SYSTEM = BASE + "finding"
@@ -31,62 +31,7 @@ DERIVED_SYSTEM = BASE + "derived"
 INTERPRETATION = "http://terminology.hl7.org/CodeSystem/v3-ObservationInterpretation"
 CATEGORY = "http://terminology.hl7.org/CodeSystem/observation-category"
 
-# Derived quantities in the order the contract lists them, with display decimals.
-QUANTITY_ORDER = (
-    "barometric-pressure",
-    "water-vapour-pressure",
-    "fio2",
-    "inspired-po2",
-    "alveolar-po2",
-    "aa-gradient",
-    "aa-gradient-upper-limit",
-    "a-a-ratio",
-    "pf-ratio",
-    "sf-ratio",
-    "arterial-o2-content",
-    "shunt-fraction",
-    "imputed-pao2",
-    "expected-hco3",
-)
-DECIMALS = {"fio2": 2, "a-a-ratio": 2, "pf-ratio": 0, "sf-ratio": 0}
-PRESSURES = {
-    "barometric-pressure",
-    "water-vapour-pressure",
-    "inspired-po2",
-    "alveolar-po2",
-    "aa-gradient",
-    "aa-gradient-upper-limit",
-    "pf-ratio",
-    "imputed-pao2",
-}
-# Derived values filed as Observations: (LOINC code or None for our own code, display).
-OBSERVATION_CODES: dict[str, tuple[str | None, str]] = {
-    "alveolar-po2": (None, "Alveolar oxygen partial pressure (alveolar gas equation)"),
-    "aa-gradient": (
-        "19991-9",
-        "Oxygen.alveolar - arterial [Partial pressure difference] Respiratory system",
-    ),
-    "pf-ratio": ("50984-4", "Horowitz index in Arterial blood"),
-    "sf-ratio": (None, "Oxygen saturation by pulse oximetry / inspired oxygen fraction"),
-    "a-a-ratio": ("78354-8", "Arterial-alveolar oxygen Partial pressure ratio"),
-    "shunt-fraction": (None, "Shunt fraction (venous admixture) estimate"),
-}
 ISSUE_CODE = {"error": "business-rule", "warning": "business-rule", "information": "informational"}
-
-
-def quantity(name: str, value: float, unit: str, pressure_unit: PressureUnit) -> Json:
-    """A UCUM Quantity, converting pressures to kPa when asked, rounded for display."""
-    decimals = DECIMALS.get(name, 1)
-    if unit == "mm[Hg]" and pressure_unit == "kPa":
-        value, unit = kpa_from_mmhg(value), "kPa"
-        decimals = 2 if name != "pf-ratio" else 1
-    rounded = round(value, decimals)
-    return {
-        "value": rounded if decimals else float(int(rounded)),
-        "unit": unit,
-        "system": UCUM,
-        "code": unit,
-    }
 
 
 def _ref(reference: str) -> Json:

@@ -11,11 +11,11 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-from service.fhir import codes
 from service.fhir.references import BundleIndex
 from service.fhir.shape import Collector, JsonObject, member_list, member_object, objects
 from service.fhir.shape import member_str as text
 from service.intake.model import Specimen
+from service.terminology import codes
 
 
 @dataclass(frozen=True, slots=True)

@@ -10,25 +10,16 @@ delivery method (LOINC 107117-4).
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-
 from service.exceptions import ImpossibleValueError, UnitError
-from service.fhir import codes
-from service.fhir.codes import Concept
-from service.fhir.plausibility import out_of_range
+from service.fhir import codes as fhir_codes
 from service.fhir.shape import Collector, JsonObject, member_list, member_number, objects
 from service.fhir.shape import member_str as text
-from service.intake.model import QUANTITY_UNITS, Quantity, Severity
+from service.intake.model import Severity
+from service.intake.plausibility import out_of_range
+from service.intake.reading import Reading, Settled, settle
 from service.physiology.units import FIO2_LIMITS, Dimension
-
-
-@dataclass(frozen=True, slots=True)
-class Reading:
-    """A value in its quantity's canonical unit; ``sent_*`` are set when it was converted."""
-
-    value: float | str
-    sent_value: float | None = None
-    sent_unit: str | None = None
+from service.terminology import codes
+from service.terminology.codes import Concept
 
 
 def _unit(
@@ -76,34 +67,6 @@ def _convert(
     return None
 
 
-# A usable value: (canonical value, sent value, sent unit, unit-converted issue or None). The
-# sent value and unit are None when the value was sent in the canonical unit.
-Settled = tuple[float, float | None, str | None, tuple[Severity, str] | None]
-
-
-def settle(
-    value: float, unit: str, canonical: float, reinterpreted: bool, quantity: Quantity
-) -> Settled:
-    """What a possible value becomes, and whether its conversion is worth reporting.
-
-    Shared by the FHIR and HL7 v2 readers, so both report unit conversions alike.
-    """
-    canonical_unit = QUANTITY_UNITS[quantity]
-    if unit == canonical_unit and not reinterpreted:
-        return canonical, None, None, None
-    if unit == "%" and canonical_unit == "1" and not reinterpreted:
-        # Percentages are held as fractions inside the service: a representation, not a
-        # conversion of the sender's unit worth reporting on every saturation.
-        return canonical, value, unit, None
-    if reinterpreted:
-        severity = Severity.WARNING
-        how = f"read as {'a percentage' if unit == '1' else 'a fraction'} despite unit '{unit}'"
-    else:
-        severity = Severity.INFORMATION
-        how = f"converted from '{unit}' to '{canonical_unit}'"
-    return canonical, value, unit, (severity, f"{quantity.value} {how}")
-
-
 def plain_value(value: float, unit: str, concept: Concept) -> Settled | None:
     """The reading of a finite ``value`` in ``unit``, or None when it cannot be used as it is.
 
@@ -128,7 +91,7 @@ def read_quantity(q: JsonObject, at: str, concept: Concept, out: Collector) -> R
     if value is None or unit_found is None:
         return None
     if comparator is not None:
-        if comparator not in codes.QUANTITY_COMPARATORS:
+        if comparator not in fhir_codes.QUANTITY_COMPARATORS:
             out.problem("code-invalid", "not a FHIR quantity comparator", f"{at}.comparator")
         else:
             out.issue(

@@ -29,8 +29,8 @@ from typing import Literal
 
 import orjson
 
+from service.assess.presentation import PressureUnit
 from service.assess.result import Assessment
-from service.fhir.render import PressureUnit
 from service.hl7v2.ack import AckCode, ack
 from service.hl7v2.errors import (
     ErrorCode,

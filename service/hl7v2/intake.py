@@ -25,7 +25,6 @@ message whose parts cannot all be used gives ``IntakeIssue``s and is assessed.
 
 from __future__ import annotations
 
-from service.fhir.concept_map import LocalCodeMap
 from service.hl7v2 import tables
 from service.hl7v2.errors import ErrorCode, Location, MessageInError
 from service.hl7v2.message import SEGMENT_ID, Segment, V2Message
@@ -35,6 +34,7 @@ from service.hl7v2.patient import read_patient
 from service.hl7v2.specimen import order_specimen
 from service.hl7v2.times import zone_of
 from service.intake.model import Intake, IntakeIssue, Severity
+from service.terminology.local_codes import LocalCodeMap
 
 _E = ErrorCode
 

@@ -13,9 +13,6 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from datetime import datetime, tzinfo
 
-from service.fhir import codes
-from service.fhir.codes import Concept
-from service.fhir.concept_map import LocalCodeMap
 from service.hl7v2 import tables
 from service.hl7v2.errors import ErrorCode, Location
 from service.hl7v2.message import Segment
@@ -24,6 +21,9 @@ from service.hl7v2.specimen import OrderSpecimen
 from service.hl7v2.times import V2Time, parse_dtm
 from service.hl7v2.values import has_value, read_value
 from service.intake.model import IntakeIssue, Measurement, Quantity, Severity, Source, Specimen
+from service.terminology import codes
+from service.terminology.codes import Concept
+from service.terminology.local_codes import LocalCodeMap
 
 _E = ErrorCode
 

@@ -24,13 +24,14 @@ from __future__ import annotations
 from datetime import UTC, datetime
 
 from service.assess.derive import Derived
+from service.assess.presentation import QUANTITY_ORDER, PressureUnit, quantity
 from service.assess.result import CAUTION, Assessment
-from service.fhir.render import OBSERVATION_CODES, QUANTITY_ORDER, PressureUnit, quantity
 from service.hl7v2 import er7, tables
 from service.hl7v2.ack import reply_header
 from service.hl7v2.header import version_tuple
 from service.hl7v2.message import V2Message
 from service.hl7v2.times import format_dtm
+from service.terminology.codes import DERIVED_OBSERVATION_CODES as OBSERVATION_CODES
 
 LOINC_V2 = "LN"
 SERVICE_CODE = ("hypoxaemia-mechanism-assessment", "Hypoxaemia mechanism assessment")

@@ -12,11 +12,11 @@ from __future__ import annotations
 from collections.abc import Sequence
 from dataclasses import dataclass
 
-from service.fhir import codes
 from service.hl7v2 import tables
 from service.hl7v2.errors import Location
 from service.hl7v2.message import Segment
 from service.intake.model import Specimen
+from service.terminology import codes
 
 
 @dataclass(frozen=True, slots=True)

@@ -1,7 +1,7 @@
 """The HL7 v2 tables and coding-system ids this package reads and writes, in one place.
 
 Each table cites where its codes come from (standards.md §5; HL7 tables by number). The FHIR
-side of every mapping is the one code table of the service (``service.fhir.codes``): a v2
+side of every mapping is the one code table of the service (``service.terminology.codes``): a v2
 coding is turned into a (FHIR system, code) pair here and looked up there, so the two adapters
 cannot disagree on what a code means.
 """
@@ -10,8 +10,8 @@ from __future__ import annotations
 
 from types import MappingProxyType
 
-from service.fhir import codes
 from service.intake.model import Specimen
+from service.terminology import codes
 
 # --- Coding systems (HL7 table 0396 -> FHIR system URI) ---------------------------------------
 # V2-to-FHIR maps CWE.3 (name of coding system) through table 0396 to Coding.system. "LN" is

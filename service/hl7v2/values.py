@@ -18,16 +18,16 @@ import math
 import re
 
 from service.exceptions import ImpossibleValueError, UnitError
-from service.fhir import codes
-from service.fhir.codes import Concept
-from service.fhir.plausibility import out_of_range
-from service.fhir.values import Reading, settle
 from service.hl7v2 import tables
 from service.hl7v2.errors import ErrorCode
 from service.hl7v2.message import Segment
 from service.hl7v2.notes import Notes
 from service.intake.model import Quantity, Severity
+from service.intake.plausibility import out_of_range
+from service.intake.reading import Reading, settle
 from service.physiology.units import FIO2_LIMITS, Dimension
+from service.terminology import codes
+from service.terminology.codes import Concept
 
 _NM = re.compile(r"[+-]?(?:\d+\.?\d*|\.\d+)", re.ASCII)
 _E = ErrorCode

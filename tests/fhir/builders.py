@@ -7,11 +7,12 @@ import json
 from pathlib import Path
 from typing import Any
 
-from service.fhir import codes
+from service.fhir import codes as fhir_codes
+from service.terminology import codes
 
 ROOT = Path(__file__).resolve().parents[2]
 FIXTURES = ROOT / "fixtures" / "intake"
-HTEST = {"system": codes.TEST_DATA_TAG_SYSTEM, "code": codes.TEST_DATA_TAG_CODE}
+HTEST = {"system": fhir_codes.TEST_DATA_TAG_SYSTEM, "code": fhir_codes.TEST_DATA_TAG_CODE}
 WHEN = "2026-01-05T10:00:00+01:00"
 
 Json = dict[str, Any]

@@ -4,10 +4,10 @@ from __future__ import annotations
 
 import pytest
 
-from service.fhir import codes
 from service.fhir.extract import read_bundle
 from service.intake.model import QUANTITY_UNITS, Fio2Source, Quantity, Specimen
 from service.physiology.units import Dimension
+from service.terminology import codes
 
 from .builders import bundle, observation
 

@@ -7,7 +7,7 @@ from typing import Any
 
 import pytest
 
-from service.fhir.concept_map import LocalCodeMap
+from service.fhir.concept_map import read_concept_map
 from service.fhir.models import validate_resource
 from service.fhir.outcome import ConceptMapError
 
@@ -22,7 +22,7 @@ def test_fixture_concept_map_is_valid_r4b() -> None:
 
 
 def test_equivalent_and_equal_are_used_others_skipped() -> None:
-    local = LocalCodeMap.from_concept_map(fixture("local-codes.conceptmap.json"))
+    local = read_concept_map(fixture("local-codes.conceptmap.json"))
     assert local.loinc_for(LAB, "PO2-A") == "2703-7"  # equivalence: equivalent
     assert local.loinc_for(LAB, "PCO2-A") == "2019-8"  # equivalence: equal
     assert local.loinc_for(LAB, "PO2-ANY") is None  # equivalence: wider
@@ -35,7 +35,7 @@ def test_r5_relationship_equivalent_is_used() -> None:
     target = data["group"][0]["element"][0]["target"][0]
     del target["equivalence"]
     target["relationship"] = "equivalent"
-    assert LocalCodeMap.from_concept_map(data).loinc_for(LAB, "PO2-A") == "2703-7"
+    assert read_concept_map(data).loinc_for(LAB, "PO2-A") == "2703-7"
 
 
 def edit(path: str, value: object) -> Callable[[Json], None]:
@@ -74,7 +74,7 @@ def test_malformed_concept_map_names_the_element(
     data = fixture("local-codes.conceptmap.json")
     change(data)
     with pytest.raises(ConceptMapError) as caught:
-        LocalCodeMap.from_concept_map(data, source="rules/local-codes.json")
+        read_concept_map(data, source="rules/local-codes.json")
     [problem] = caught.value.problems
     assert problem.expression == expression
     assert problem.diagnostics.startswith("rules/local-codes.json")
@@ -83,5 +83,5 @@ def test_malformed_concept_map_names_the_element(
 @pytest.mark.parametrize("data", [None, [], "ConceptMap", {"resourceType": "ValueSet"}])
 def test_not_a_concept_map_is_refused(data: object) -> None:
     with pytest.raises(ConceptMapError) as caught:
-        LocalCodeMap.from_concept_map(data)
+        read_concept_map(data)
     assert caught.value.problems[0].expression == "ConceptMap"

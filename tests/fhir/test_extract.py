@@ -10,8 +10,8 @@ from typing import Any
 
 import pytest
 
-from service.fhir import codes
-from service.fhir.concept_map import LocalCodeMap
+from service.fhir import codes as fhir_codes
+from service.fhir.concept_map import read_concept_map
 from service.fhir.extract import read_bundle
 from service.fhir.outcome import BundleError
 from service.intake.model import (
@@ -24,6 +24,7 @@ from service.intake.model import (
     Specimen,
 )
 from service.physiology.constants import KPA_PER_MMHG
+from service.terminology import codes
 
 from .builders import (
     ROOT,
@@ -211,7 +212,7 @@ def test_2708_6_beside_a_pulse_oximetry_code_is_spo2(codings: list[tuple[str, st
 
 
 @pytest.mark.parametrize(
-    "profile", [codes.US_CORE_PULSE_OXIMETRY, codes.US_CORE_PULSE_OXIMETRY + "|6.1.0"]
+    "profile", [fhir_codes.US_CORE_PULSE_OXIMETRY, fhir_codes.US_CORE_PULSE_OXIMETRY + "|6.1.0"]
 )
 def test_2708_6_in_a_us_core_pulse_oximetry_profile_is_spo2(profile: str) -> None:
     obs = observation("2708-6", 93, "%")
@@ -387,7 +388,7 @@ def test_unknown_code_is_ignored_and_named() -> None:
 
 
 def test_data_absent_reason_is_ignored_with_a_reason() -> None:
-    dar = {"coding": [{"system": codes.DATA_ABSENT_REASON, "code": "error"}]}
+    dar = {"coding": [{"system": fhir_codes.DATA_ABSENT_REASON, "code": "error"}]}
     intake = read_bundle(bundle(observation("2703-7", dataAbsentReason=dar)))
     assert intake.measurements == []
     [issue] = issues(intake, "observation-ignored")
@@ -432,7 +433,7 @@ def test_unmapped_oxygen_device_is_ignored_and_named() -> None:
 
 
 def test_local_code_is_read_through_the_concept_map() -> None:
-    local = LocalCodeMap.from_concept_map(fixture("local-codes.conceptmap.json"))
+    local = read_concept_map(fixture("local-codes.conceptmap.json"))
     obs = observation("PO2-A", 9.0, "kPa", system="https://example.org/lab/analyser-codes")
     assert read_bundle(bundle(obs)).measurements == []  # unknown without the map
     m = only(read_bundle(bundle(obs), concept_map=local))

@@ -8,7 +8,7 @@ from typing import Any
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from service.fhir.concept_map import LocalCodeMap
+from service.fhir.concept_map import read_concept_map
 from service.fhir.extract import read_bundle
 from service.fhir.outcome import BundleError
 from service.intake.model import Intake
@@ -63,7 +63,7 @@ def outcome_of(data: object) -> Intake | BundleError:
         return exc
 
 
-LOCAL = LocalCodeMap.from_concept_map(fixture("local-codes.conceptmap.json"))
+LOCAL = read_concept_map(fixture("local-codes.conceptmap.json"))
 
 
 @FUZZ

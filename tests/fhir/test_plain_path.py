@@ -22,19 +22,21 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from service.fhir import codes, extract
-from service.fhir.concept_map import LocalCodeMap
+from service.fhir import codes as fhir_codes
+from service.fhir import extract
+from service.fhir.concept_map import read_concept_map
 from service.fhir.dates import parse_date_time
 from service.fhir.extract import read_bundle
 from service.fhir.observation import ObservationReader
 from service.fhir.outcome import BundleError
 from service.fhir.references import BundleIndex, type_and_id
+from service.terminology import codes
 
 from .builders import ROOT, Json, bundle, fixture, fixture_names, observation, patient, quantity
 from .test_extract_fuzz import JSON, _paths
 
 FUZZ = settings(max_examples=400, deadline=None, suppress_health_check=[HealthCheck.too_slow])
-LOCAL = LocalCodeMap.from_concept_map(fixture("local-codes.conceptmap.json"))
+LOCAL = read_concept_map(fixture("local-codes.conceptmap.json"))
 DEMO = ROOT / "fixtures" / "demo"
 
 
@@ -131,7 +133,7 @@ EDITS: list[tuple[list[Any], object]] = [
     ([*R, "code"], {"coding": [{"system": codes.LOINC, "code": "3150-0"}]}),
     ([*R, "code"], {"coding": [{"system": codes.LOINC, "code": "107117-4"}]}),
     ([*R, "code"], {"coding": [{"system": codes.LOINC, "code": "19911-7"}]}),
-    ([*R, "meta"], {"profile": [codes.US_CORE_PULSE_OXIMETRY]}),
+    ([*R, "meta"], {"profile": [fhir_codes.US_CORE_PULSE_OXIMETRY]}),
     ([*R, "meta"], {"profile": "x"}),
     ([*R, "meta"], {"profile": None}),
     ([*R, "meta"], None),

@@ -11,11 +11,11 @@ from datetime import UTC, date, datetime, timedelta, timezone
 
 import pytest
 
-from service.fhir.concept_map import LocalCodeMap
 from service.hl7v2.errors import ErrorCode, MessageInError
 from service.hl7v2.intake import read_oru
 from service.hl7v2.message import parse_message
 from service.intake.model import Intake, Measurement, Quantity, Severity, Specimen
+from service.terminology.local_codes import LocalCodeMap
 
 from .builders import KPA, PERCENT, WHEN, gas, message, msh, obr, obx, pid, spm
 

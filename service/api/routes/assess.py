@@ -22,8 +22,8 @@ from service.api.middleware import ASSESS_PATH
 from service.api.ndjson import NdjsonAnswer
 from service.api.state import RequestRecord, ServiceState
 from service.api.tally import Tally, tally
+from service.assess.presentation import PressureUnit
 from service.fhir.outcome import BundleError, NotABundleError
-from service.fhir.render import PressureUnit
 
 router = APIRouter(tags=["assessment"])
 

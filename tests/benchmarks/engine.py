@@ -1,4 +1,4 @@
-"""Timing of `evaluate`, run as a command: `python -m service.engine.bench`.
+"""Timing of `evaluate`, run as a command: `python -m tests.benchmarks.engine`.
 
 Absolute times depend on the machine, so the figure to watch is the ratio against a
 baseline measured in the same run: evaluating an empty rule set (manifest only) over the

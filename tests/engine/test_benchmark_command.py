@@ -3,8 +3,8 @@
 import pytest
 
 from service.engine import evaluate
-from service.engine.bench import BENCH_FACTS, generated_documents, main
 from service.engine.loader import build_ruleset
+from tests.benchmarks.engine import BENCH_FACTS, generated_documents, main
 
 
 def test_generated_bench_rule_set_loads_forty_rules_and_evaluates() -> None:

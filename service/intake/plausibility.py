@@ -5,8 +5,9 @@ abnormal results: each is wide on purpose. A value outside its range is reported
 ``value-out-of-range`` (error) and not used. Limits shared with the physiology core come from
 ``service.physiology.bounds``; the rest are set here, each with its reason.
 
-This table serves every adapter (FHIR, HL7 v2) and belongs beside the intake model; it lives
-here until that package takes it.
+This table serves every adapter (FHIR, HL7 v2), and it is the one range table of the service:
+the rule catalogue takes the accepted range of each measured fact from it
+(``service.assess.catalogue``), so a value accepted here is never refused there.
 """
 
 from __future__ import annotations

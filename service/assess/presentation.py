@@ -1,0 +1,51 @@
+"""How derived values are shown, whatever the output (FHIR, HL7 v2, text): their order, their
+display precision, and the pressure unit a site or a request chose.
+
+Values stay in canonical units inside the service; this is the one place where a pressure is
+converted for display.
+"""
+
+from __future__ import annotations
+
+from typing import Any, Literal
+
+from service.physiology.units import kpa_from_mmhg
+from service.terminology.codes import UCUM
+
+PressureUnit = Literal["mm[Hg]", "kPa"]
+Json = dict[str, Any]
+
+
+# Derived quantities in the order the contract lists them, with display decimals.
+QUANTITY_ORDER = (
+    "barometric-pressure",
+    "water-vapour-pressure",
+    "fio2",
+    "inspired-po2",
+    "alveolar-po2",
+    "aa-gradient",
+    "aa-gradient-upper-limit",
+    "a-a-ratio",
+    "pf-ratio",
+    "sf-ratio",
+    "arterial-o2-content",
+    "shunt-fraction",
+    "imputed-pao2",
+    "expected-hco3",
+)
+DECIMALS = {"fio2": 2, "a-a-ratio": 2, "pf-ratio": 0, "sf-ratio": 0}
+
+
+def quantity(name: str, value: float, unit: str, pressure_unit: PressureUnit) -> Json:
+    """A UCUM Quantity, converting pressures to kPa when asked, rounded for display."""
+    decimals = DECIMALS.get(name, 1)
+    if unit == "mm[Hg]" and pressure_unit == "kPa":
+        value, unit = kpa_from_mmhg(value), "kPa"
+        decimals = 2 if name != "pf-ratio" else 1
+    rounded = round(value, decimals)
+    return {
+        "value": rounded if decimals else float(int(rounded)),
+        "unit": unit,
+        "system": UCUM,
+        "code": unit,
+    }
