@@ -17,6 +17,11 @@ from pydantic_settings import BaseSettings, SettingsConfigDict
 
 from service.physiology import constants as c
 from service.physiology.atmosphere import AltitudeModel
+from service.physiology.bounds import ALTITUDE_M, RESPIRATORY_QUOTIENT
+from service.physiology.oxygen_content import AV_DIFFERENCE_RANGE_ML_DL, HUFNER_RANGE_ML_PER_G
+
+# The longest pairing window a site may set (minutes); the shortest is any positive time.
+MAX_PAIRING_WINDOW_MINUTES = 24 * 60
 
 
 def default_rules_dir() -> Path:
@@ -32,17 +37,25 @@ class Settings(BaseSettings):
     model_config = SettingsConfigDict(env_prefix="OXYRULE_", extra="forbid", frozen=True)
 
     rules_dir: Path = Field(default_factory=default_rules_dir)
-    pairing_window_minutes: float = Field(30.0, gt=0, le=24 * 60)
+    pairing_window_minutes: float = Field(30.0, gt=0, le=MAX_PAIRING_WINDOW_MINUTES)
     same_sample_minutes: float = Field(
         5.0, gt=0, le=60, description="values of one gas drawn within this many minutes"
     )
     pressure_unit: Literal["mm[Hg]", "kPa"] = "mm[Hg]"
-    site_altitude_m: float | None = Field(None, ge=-500, le=9000)
+    site_altitude_m: float | None = Field(None, ge=ALTITUDE_M[0], le=ALTITUDE_M[1])
     altitude_model: AltitudeModel = AltitudeModel.WEST_1996
     assume_room_air: bool = False
-    hufner_ml_per_g: float = Field(c.HUFNER_CONVENTIONAL_ML_PER_G, ge=1.30, le=1.40)
-    assumed_av_difference_ml_dl: float = Field(c.ASSUMED_AV_DIFFERENCE_ML_DL, ge=0.5, le=15.0)
-    respiratory_quotient: float = Field(c.DEFAULT_RESPIRATORY_QUOTIENT, ge=0.6, le=1.2)
+    hufner_ml_per_g: float = Field(
+        c.HUFNER_CONVENTIONAL_ML_PER_G, ge=HUFNER_RANGE_ML_PER_G[0], le=HUFNER_RANGE_ML_PER_G[1]
+    )
+    assumed_av_difference_ml_dl: float = Field(
+        c.ASSUMED_AV_DIFFERENCE_ML_DL,
+        ge=AV_DIFFERENCE_RANGE_ML_DL[0],
+        le=AV_DIFFERENCE_RANGE_ML_DL[1],
+    )
+    respiratory_quotient: float = Field(
+        c.DEFAULT_RESPIRATORY_QUOTIENT, ge=RESPIRATORY_QUOTIENT[0], le=RESPIRATORY_QUOTIENT[1]
+    )
     strict_fhir: bool = False
     site_file: Path | None = Field(
         None, description="a site override file (YAML, see service/site.py); None for none"

@@ -14,6 +14,7 @@ from typing import Any
 import orjson
 
 from service.assess.assess import assess
+from service.assess.catalogue import DEFAULT_CATALOGUE
 from service.assess.presentation import PressureUnit
 from service.assess.result import Assessment
 from service.config import Settings
@@ -28,8 +29,6 @@ from service.terminology.codes import code_for_fact
 from service.terminology.local_codes import LocalCodeMap
 
 CONCEPT_MAP_FILE = "concept-map.json"
-# What a not-classifiable result asks for when no rule named anything: a trusted arterial gas.
-REPEAT_GAS = ("arterial_po2", "arterial_pco2", "fio2")
 
 
 def load_concept_map(rules_dir: Path) -> LocalCodeMap | None:
@@ -73,7 +72,9 @@ class Runtime:
                 overrides.parameters,
                 overrides.site,
             )
-        ruleset = load_ruleset(settings.rules_dir, overrides=parameters)
+        ruleset = load_ruleset(
+            settings.rules_dir, catalogue=DEFAULT_CATALOGUE, overrides=parameters
+        )
         concept_map = load_concept_map(settings.rules_dir)
         digest = settings_hash(settings, site_bytes, _bytes(settings.rules_dir / CONCEPT_MAP_FILE))
         return cls(settings, ruleset, concept_map, digest, site)
@@ -94,10 +95,11 @@ class Runtime:
         self, assessment: Assessment, *, pressure_unit: PressureUnit | None = None
     ) -> dict[str, Any]:
         """The contract's result Bundle for an assessment."""
-        facts = list(assessment.data_requested)
-        if assessment.status == "data-required" and not facts:
-            facts = list(REPEAT_GAS)
-        codes = list(dict.fromkeys(c for f in facts if (c := code_for_fact(f)) is not None))
+        codes = list(
+            dict.fromkeys(
+                c for f in assessment.data_requested if (c := code_for_fact(f)) is not None
+            )
+        )
         return render_bundle(
             assessment,
             data_requirements=codes,

@@ -25,8 +25,10 @@ from typing import Literal
 import yaml
 from pydantic import BaseModel, ConfigDict, Field, ValidationError
 
-from service.config import Settings
+from service.config import MAX_PAIRING_WINDOW_MINUTES, Settings
 from service.exceptions import ServiceError
+from service.physiology.bounds import ALTITUDE_M
+from service.physiology.oxygen_content import AV_DIFFERENCE_RANGE_ML_DL, HUFNER_RANGE_ML_PER_G
 
 
 class SiteFileError(ServiceError):
@@ -40,11 +42,15 @@ class SiteOverrides(BaseModel):
 
     site: str = Field(min_length=1)
     parameters: dict[str, float] = Field(default_factory=dict)
-    hufner_ml_per_g: float | None = Field(None, ge=1.30, le=1.40)
-    assumed_av_difference_ml_dl: float | None = Field(None, ge=0.5, le=15.0)
-    pairing_window_minutes: float | None = Field(None, gt=0, le=24 * 60)
+    hufner_ml_per_g: float | None = Field(
+        None, ge=HUFNER_RANGE_ML_PER_G[0], le=HUFNER_RANGE_ML_PER_G[1]
+    )
+    assumed_av_difference_ml_dl: float | None = Field(
+        None, ge=AV_DIFFERENCE_RANGE_ML_DL[0], le=AV_DIFFERENCE_RANGE_ML_DL[1]
+    )
+    pairing_window_minutes: float | None = Field(None, gt=0, le=MAX_PAIRING_WINDOW_MINUTES)
     pressure_unit: Literal["mm[Hg]", "kPa"] | None = None
-    site_altitude_m: float | None = Field(None, ge=-500, le=9000)
+    site_altitude_m: float | None = Field(None, ge=ALTITUDE_M[0], le=ALTITUDE_M[1])
     assume_room_air: bool | None = None
 
 

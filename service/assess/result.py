@@ -4,7 +4,9 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from datetime import datetime
+from enum import StrEnum
 
+from service.engine import Evaluation, Grade, HypoxaemiaStatus, Mechanism, Pattern, Severity
 from service.intake.model import Patient, Source
 
 from .derive import GasFacts
@@ -15,21 +17,21 @@ CAUTION = (
     "protocols, applicable codes and licensed practice."
 )
 
-MECHANISMS = (
-    "low-inspired-oxygen",
-    "hypoventilation",
-    "diffusion-limitation",
-    "vq-mismatch",
-    "shunt",
-)
+
+class ResultStatus(StrEnum):
+    """How complete the answer is (``GuidanceResponse.status``)."""
+
+    SUCCESS = "success"
+    DATA_REQUESTED = "data-requested"  # graded, and named data would settle open questions
+    DATA_REQUIRED = "data-required"  # not classifiable until trusted data are sent
 
 
 @dataclass(frozen=True, slots=True)
 class Finding:
     """A data-quality or context finding: a contract finding code with its severity."""
 
-    code: str
-    severity: str  # error | warning | information
+    code: str  # a finding code of the contract (rules and intake share the code system)
+    severity: Severity
     message: str
     subject: Source | None = None
     expression: str | None = None  # where in the input, for intake findings
@@ -40,8 +42,8 @@ class Finding:
 class MechanismVerdict:
     """One of the five mechanisms, graded, with the numbers and the rules behind the grade."""
 
-    code: str
-    grade: str  # likely | possible | unlikely | not-assessable
+    code: Mechanism
+    grade: Grade
     rationale: str
     rules: tuple[str, ...]
     discriminator: str | None = None
@@ -65,12 +67,12 @@ class Assessment:
     ruleset_identity: str  # "id|version"
     ruleset_hash: str
     patient: Patient | None
-    pattern: str
-    hypoxaemia: str  # present | absent | unknown
+    pattern: Pattern
+    hypoxaemia: HypoxaemiaStatus
     mechanisms: list[MechanismVerdict]
     findings: list[Finding]
     index: GasFacts  # the index gas (or, with no gas, the latest oximetry) and its context
     gases: list[GasResult]  # one per arterial gas, index first
     data_requested: list[str]  # fact names that would settle open questions
-    status: str  # success | data-requested | data-required
-    evaluation: object = None  # the engine's full evaluation (trace), for explain
+    status: ResultStatus
+    evaluation: Evaluation  # the engine's full evaluation (every rule's trace), for explain

@@ -5,14 +5,13 @@ The engine knows nothing of FHIR or HTTP. It loads a rule-set directory once
 every rule's three-valued result with a trace, plus a verdict: a grade per mechanism of
 hypoxaemia, findings, the hypoxaemia status, the overall pattern and the data that would
 settle what is still open. The rule-file format is described in README.md next to this
-file; `catalogue_markdown(DEFAULT_CATALOGUE)` documents the facts.
+file; `catalogue_markdown(catalogue)` documents the facts of a catalogue.
 
 Lifecycle decision: `testing` rules are shadow-evaluated. Their results appear in
 `Evaluation.results` with `shadow=True` and never change the verdict.
 """
 
 from service.engine.catalogue import (
-    DEFAULT_CATALOGUE,
     FactCatalogue,
     FactKind,
     FactOrigin,
@@ -50,7 +49,6 @@ from service.engine.vocabulary import (
 )
 
 __all__ = [
-    "DEFAULT_CATALOGUE",
     "DataRequest",
     "Discriminator",
     "Evaluation",

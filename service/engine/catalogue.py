@@ -1,20 +1,19 @@
 """The fact catalogue: every name a rule may test, with its kind, unit and range.
 
-A rule set is loaded against one catalogue; references to names outside it, unit
-mismatches and unknown codes are load errors. At evaluation time the same catalogue
-checks the facts handed in, so a value in the wrong unit or of the wrong kind cannot
-slip silently past a threshold.
+A rule set is loaded against one catalogue (the default rule set's is assembled outside the
+engine, in ``service.assess.catalogue``, from the tables that own each fact); references to
+names outside it, unit mismatches and unknown codes are load errors. At evaluation time the
+same catalogue checks the facts handed in, so a value in the wrong unit or of the wrong kind
+cannot slip silently past a threshold.
 """
 
 import math
 from collections.abc import Iterable, Iterator, Mapping
 
-from service.engine.default_facts import DEFAULT_FACT_SPECS
 from service.engine.errors import FactError, FactProblem
 from service.engine.facts import FactKind, FactOrigin, FactSpec
 
 __all__ = [
-    "DEFAULT_CATALOGUE",
     "FactCatalogue",
     "FactKind",
     "FactOrigin",
@@ -114,10 +113,6 @@ class FactCatalogue(Mapping[str, FactSpec]):
                 problems.append(FactProblem(name, message))
         if problems:
             raise FactError(problems)
-
-
-DEFAULT_CATALOGUE = FactCatalogue(DEFAULT_FACT_SPECS)
-"""The catalogue the default rule set and the intake agree on."""
 
 
 def _range(spec: FactSpec) -> str:

@@ -43,14 +43,14 @@ class DataRequests:
         """Record that `rule` would like `fact` (or, if it is derived, its missing inputs).
 
         A known fact is skipped unless `even_if_known` (a discriminator asking for a new
-        value of it).
+        value of it). An empty `rule` asks on behalf of the verdict itself (a gas that is
+        not classifiable asks for a trusted one).
         """
         if fact in self._facts:
             if even_if_known:
-                entry = self._asked.get(fact)
-                if entry is None:
-                    entry = self._asked[fact] = (set(), set())
-                entry[0].add(rule)
+                requested_by, _ = self._entry(fact)
+                if rule:
+                    requested_by.add(rule)
             return
         spec = self._catalogue[fact]
         missing_inputs = [name for name in spec.inputs if name not in self._facts]
@@ -60,7 +60,8 @@ class DataRequests:
             return
         # All inputs known (or none declared): the fact itself is what is missing.
         requested_by, needed_for = self._entry(fact)
-        requested_by.add(rule)
+        if rule:
+            requested_by.add(rule)
         if wanted is not None:
             needed_for.add(wanted)
 
@@ -69,6 +70,11 @@ class DataRequests:
         if entry is None:
             entry = self._asked[fact] = (set(), set())
         return entry
+
+    @property
+    def empty(self) -> bool:
+        """Whether nothing has been asked for yet."""
+        return not self._asked
 
     def collected(self) -> tuple[DataRequest, ...]:
         """The requests so far, in catalogue order."""

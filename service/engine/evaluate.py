@@ -86,8 +86,14 @@ class Evaluation:
         return tuple(result for result in self.results if result.shadow)
 
 
-def evaluate(ruleset: RuleSet, facts: Mapping[str, FactValue]) -> Evaluation:
-    """Evaluate every active and testing rule of `ruleset` over `facts`."""
+def evaluate(
+    ruleset: RuleSet, facts: Mapping[str, FactValue], *, input_errors: Sequence[str] = ()
+) -> Evaluation:
+    """Evaluate every active and testing rule of `ruleset` over `facts`.
+
+    `input_errors` are the codes of error findings met before the rules (values the input
+    reader refused): like a fired error finding, they make the verdict not classifiable.
+    """
     ruleset.catalogue.check(facts)
     # A private copy: results render text later and must not see the caller's edits.
     known = dict(facts)
@@ -96,5 +102,7 @@ def evaluate(ruleset: RuleSet, facts: Mapping[str, FactValue]) -> Evaluation:
     results = _Results(
         ruleset.evaluated, rule_states, EvaluationContext(known, states, ruleset.leaves)
     )
-    verdict = decide_states(ruleset.verdict_plan, rule_states, results, known, ruleset.catalogue)
+    verdict = decide_states(
+        ruleset.verdict_plan, rule_states, results, known, ruleset.catalogue, input_errors
+    )
     return Evaluation(ruleset.identity, ruleset.content_hash, verdict, results)

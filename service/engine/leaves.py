@@ -12,7 +12,7 @@ from typing import Any
 
 from service.engine.logic import Operator, TruthValue
 
-__all__ = ["FactTest", "Leaf", "Threshold", "leaf_test"]
+__all__ = ["FactTest", "Leaf", "Threshold", "leaf_test", "shown_value"]
 
 FactTest = Callable[[Mapping[str, Any]], TruthValue]
 Threshold = float | tuple[float, float] | bool | tuple[str, ...]
@@ -30,6 +30,41 @@ class Leaf:
     """Parameter names the threshold came from (two for a between with two parameters)."""
     unit: str | None
     test: FactTest = field(compare=False, repr=False)
+    shown_unit: str = field(init=False, compare=False, repr=False)
+    """The unit as a trace line shows it after a value (empty for none and for "1")."""
+    shown_test: str = field(init=False, compare=False, repr=False)
+    """The test as a trace line shows it: ``≤ 45 mm[Hg] (hypercapnia_pco2)``."""
+
+    def __post_init__(self) -> None:
+        # Traces are part of every result: the fixed text of a leaf is built once, here.
+        unit = f" {self.unit}" if self.unit not in (None, "1") else ""
+        object.__setattr__(self, "shown_unit", unit)
+        if self.operator is Operator.PRESENT:
+            test = f"present is {shown_value(self.threshold)}"
+        else:
+            threshold = self.threshold
+            shown = (
+                "–".join(shown_value(t) for t in threshold)
+                if isinstance(threshold, tuple)
+                else shown_value(threshold)
+            )
+            named = f" ({', '.join(self.parameters)})" if self.parameters else ""
+            test = f"{_SYMBOL.get(self.operator, self.operator.value)} {shown}{unit}{named}"
+        object.__setattr__(self, "shown_test", test)
+
+
+_SYMBOL = {
+    Operator.LT: "<",
+    Operator.LE: "≤",
+    Operator.GT: ">",
+    Operator.GE: "≥",
+    Operator.EQ: "=",
+}
+
+
+def shown_value(value: object) -> str:
+    """A value as traces show it: four significant digits for numbers, lower-case otherwise."""
+    return f"{value:.4g}" if isinstance(value, float) else str(value).lower()
 
 
 def _comparison_test(name: str, operator: Operator, threshold: Threshold) -> FactTest:

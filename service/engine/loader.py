@@ -15,7 +15,7 @@ import json
 from collections.abc import Mapping
 from pathlib import Path
 
-from service.engine.catalogue import DEFAULT_CATALOGUE, FactCatalogue
+from service.engine.catalogue import FactCatalogue
 from service.engine.conditions import ConditionCompiler, Location
 from service.engine.documents import parse_yaml, validate_document
 from service.engine.errors import RuleProblem, RuleSetError
@@ -82,7 +82,7 @@ def content_hash(documents: Mapping[str, bytes], overrides: Mapping[str, float])
 def load_ruleset(
     directory: Path,
     *,
-    catalogue: FactCatalogue = DEFAULT_CATALOGUE,
+    catalogue: FactCatalogue,
     overrides: Mapping[str, float] | None = None,
 ) -> RuleSet:
     """Load, check and compile the rule set in `directory`; raise `RuleSetError` if broken."""
@@ -107,7 +107,7 @@ def load_ruleset(
 def build_ruleset(
     documents: Mapping[str, bytes],
     *,
-    catalogue: FactCatalogue = DEFAULT_CATALOGUE,
+    catalogue: FactCatalogue,
     overrides: Mapping[str, float] | None = None,
     source: str = "<memory>",
 ) -> RuleSet:

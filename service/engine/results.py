@@ -11,7 +11,7 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 
 from service.engine.facts import FactValue
-from service.engine.leaves import Leaf, Threshold
+from service.engine.leaves import Leaf, Threshold, shown_value
 from service.engine.logic import Operator, Truth, TruthValue, truth_of
 from service.engine.ruleset import Outcome, Rule
 
@@ -93,6 +93,20 @@ class RuleResult:
                 )
             )
         return tuple(traces)
+
+    @property
+    def trace_lines(self) -> tuple[str, ...]:
+        """One line per condition: ``id@version: fact value op threshold → state``."""
+        facts, states, leaves = self.context.facts, self.context.states, self.context.leaves
+        ref = self.rule.ref
+        lines = []
+        for index in self.rule.condition.leaves:
+            leaf = leaves[index]
+            value = facts.get(leaf.fact)
+            seen = "missing" if value is None else f"{shown_value(value)}{leaf.shown_unit}"
+            state = truth_of(states[index]).value
+            lines.append(f"{ref}: {leaf.fact} {seen} {leaf.shown_test} → {state}")
+        return tuple(lines)
 
     @property
     def missing(self) -> tuple[str, ...]:

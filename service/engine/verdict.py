@@ -37,6 +37,8 @@ from service.engine.vocabulary import (
 
 __all__ = [
     "OXYGENATION_FACTS",
+    "REPEAT_SAMPLE",
+    "SEVERITY_RANK",
     "DataRequest",
     "FindingResult",
     "MechanismAssessment",
@@ -47,8 +49,21 @@ __all__ = [
 
 OXYGENATION_FACTS = ("arterial_po2", "spo2")
 """Without at least one of these, nothing about oxygenation can be classified."""
+REPEAT_SAMPLE_FACTS = ("arterial_po2", "arterial_pco2", "fio2")
+"""What a not-classifiable verdict asks for when no rule asked for anything: a trusted gas."""
+REPEAT_SAMPLE = Discriminator(
+    "Correct the data problem named in the findings (repeat the sample if needed); the grade "
+    "can then be judged on trusted data.",
+    REPEAT_SAMPLE_FACTS,
+)
+"""What would settle a grade demoted because the data are not trusted."""
 
-_SEVERITY_ORDER = {Severity.ERROR: 0, Severity.WARNING: 1, Severity.INFORMATION: 2}
+SEVERITY_RANK: Mapping[Severity, int] = {
+    Severity.ERROR: 0,
+    Severity.WARNING: 1,
+    Severity.INFORMATION: 2,
+}
+"""The order findings are listed in: errors first, then warnings, then information."""
 # Enum member and class iteration are slow on Python 3.11; the hot path uses these.
 _MECHANISMS = tuple(Mechanism)
 _TRUTH_VALUE: dict[Truth, TruthValue] = {Truth.TRUE: True, Truth.FALSE: False, Truth.UNKNOWN: None}
@@ -69,6 +84,8 @@ class MechanismAssessment:
     """Rules that also fired for this mechanism at a higher (losing) priority."""
     demoted_because: str | None = None
     """Why a `likely` grade was lowered to `possible`, if it was."""
+    undecided: tuple[str, ...] = ()
+    """When not assessable: the missing facts that kept this mechanism's rules unknown."""
 
     @property
     def rules(self) -> tuple[str, ...]:
@@ -87,7 +104,12 @@ class MechanismAssessment:
 
     @property
     def rationales(self) -> tuple[str, ...]:
-        """The deciding rules' rationales, plus a sentence on any demotion."""
+        """The deciding rules' rationales, plus a sentence on any demotion; for a mechanism
+        no rule decided, what was missing."""
+        if self.grade is _NOT_ASSESSABLE:
+            if self.undecided:
+                return ("Not assessable: missing " + ", ".join(self.undecided),)
+            return ("Not assessable: no rule applied to these data",)
         texts = [result.rationale for result in self.deciding]
         if self.demoted_because is not None:
             texts.append(
@@ -98,7 +120,10 @@ class MechanismAssessment:
 
     @property
     def discriminators(self) -> tuple[Discriminator, ...]:
-        """What would settle the grade, from the deciding rules."""
+        """What would settle the grade: the deciding rules' discriminators, or for a grade
+        demoted on untrusted data, trusted data (``REPEAT_SAMPLE``)."""
+        if self.demoted_because is not None:
+            return (REPEAT_SAMPLE,)
         found = (result.rule.discriminator for result in self.deciding)
         return tuple(dict.fromkeys(item for item in found if item is not None))
 
@@ -192,34 +217,47 @@ def _pattern(
 
 
 def _finding_order(item: FindingResult) -> tuple[int, str, str]:
-    return _SEVERITY_ORDER[item.severity], item.code, item.result.rule.ref
+    return SEVERITY_RANK[item.severity], item.code, item.result.rule.ref
 
 
-def _demotion(findings: Sequence[FindingResult], facts: Mapping[str, FactValue]) -> str | None:
+def _demotion(
+    findings: Sequence[FindingResult],
+    facts: Mapping[str, FactValue],
+    input_errors: Sequence[str],
+) -> str | None:
     """Why the gas is not classifiable, or None when it is."""
     errors = sorted({item.code.value for item in findings if item.severity is _ERROR})
-    if not errors and any(name in facts for name in OXYGENATION_FACTS):
+    if not errors and not input_errors and any(name in facts for name in OXYGENATION_FACTS):
         return None  # the usual case
     reasons: list[str] = []
     if errors:
         reasons.append("error finding fired: " + ", ".join(errors))
+    if input_errors:
+        reasons.append("error in the input: " + ", ".join(sorted(set(input_errors))))
     if not any(name in facts for name in OXYGENATION_FACTS):
         reasons.append("neither " + " nor ".join(OXYGENATION_FACTS) + " is known")
     return "; ".join(reasons) if reasons else None
 
 
-def _ask_undecided(
+def _unassessed(
+    mechanism: Mechanism,
     grading: Sequence[tuple[int, MechanismOutcome]],
     states: Sequence[TruthValue],
     result_of: Callable[[int], RuleResult],
     requests: DataRequests,
-) -> None:
-    """A mechanism no rule fired for: the missing facts that keep its rules unknown."""
+) -> MechanismAssessment:
+    """A mechanism no rule fired for, with the missing facts that keep its rules unknown
+    (each asked for)."""
+    undecided: dict[str, None] = {}
     for position, _ in grading:
         if states[position] is None:
             result = result_of(position)
             for fact in result.undecided:
+                undecided[fact] = None
                 requests.ask(fact, result.ref)
+    if not undecided:
+        return _UNASSESSED[mechanism]
+    return MechanismAssessment(mechanism, _NOT_ASSESSABLE, undecided=tuple(undecided))
 
 
 def _ask_discriminators(assessment: MechanismAssessment, requests: DataRequests) -> None:
@@ -232,12 +270,17 @@ def _ask_discriminators(assessment: MechanismAssessment, requests: DataRequests)
 
 
 def decide(
-    results: Sequence[RuleResult], facts: Mapping[str, FactValue], catalogue: FactCatalogue
+    results: Sequence[RuleResult],
+    facts: Mapping[str, FactValue],
+    catalogue: FactCatalogue,
+    input_errors: Sequence[str] = (),
 ) -> Verdict:
     """Build the verdict from rule results; shadow (testing) results are skipped."""
     rules = [result.rule for result in results]
     states = [_TRUTH_VALUE[result.state] for result in results]
-    return decide_states(VerdictPlan.of(rules), states, results.__getitem__, facts, catalogue)
+    return decide_states(
+        VerdictPlan.of(rules), states, results.__getitem__, facts, catalogue, input_errors
+    )
 
 
 def decide_states(
@@ -246,11 +289,14 @@ def decide_states(
     result_of: Callable[[int], RuleResult],
     facts: Mapping[str, FactValue],
     catalogue: FactCatalogue,
+    input_errors: Sequence[str] = (),
 ) -> Verdict:
     """`decide` from the rules' states (True, False, None) as `evaluate` has them.
 
     `plan` positions index `states`; `result_of(position)` gives that rule's result, and is
-    asked only for the rules the verdict cites or asks about.
+    asked only for the rules the verdict cites or asks about. `input_errors` are the codes of
+    error findings met before the rules (values the input reader refused): they make the
+    gas not classifiable, as an error finding of a rule does.
     """
     findings = [
         FindingResult(found.code, found.severity, result_of(position))
@@ -269,20 +315,22 @@ def decide_states(
         hypoxaemia = _ABSENT
     else:
         hypoxaemia = HypoxaemiaStatus.UNKNOWN
-    demotion = _demotion(findings, facts)
+    demotion = _demotion(findings, facts, input_errors)
     requests = DataRequests(facts, catalogue)
     mechanisms: list[MechanismAssessment] = []
     for mechanism, grading in plan.mechanisms:
         fired = [(position, graded) for position, graded in grading if states[position] is True]
         if not fired:
-            mechanisms.append(_UNASSESSED[mechanism])
-            _ask_undecided(grading, states, result_of, requests)
+            mechanisms.append(_unassessed(mechanism, grading, states, result_of, requests))
             continue
         assessment = _assess(mechanism, fired, result_of, demotion)
         mechanisms.append(assessment)
         if assessment.grade is _POSSIBLE:
             _ask_discriminators(assessment, requests)
     pattern, reason = _pattern(demotion, hypoxaemia, mechanisms)
+    if pattern is Pattern.NOT_CLASSIFIABLE and requests.empty:
+        for fact in REPEAT_SAMPLE.requests:
+            requests.ask(fact, "", even_if_known=True)  # asked by the verdict itself
     return Verdict(
         pattern=pattern,
         pattern_reason=reason,

@@ -34,7 +34,8 @@ def _by_suffix(
 
 POSSIBLE_RANGE: MappingProxyType[Quantity, tuple[float, float]] = MappingProxyType(
     {
-        **_by_suffix(("_po2", "_pco2"), _PRESSURE),
+        **_by_suffix(("_po2",), _PRESSURE),
+        **_by_suffix(("_pco2",), bounds.CARBON_DIOXIDE_MMHG),
         **_by_suffix(("_ph",), bounds.PH),
         **_by_suffix(("so2",), _SATURATION),
         Quantity.SPO2: _SATURATION,
@@ -52,7 +53,7 @@ POSSIBLE_RANGE: MappingProxyType[Quantity, tuple[float, float]] = MappingProxyTy
         Quantity.CARBOXYHAEMOGLOBIN: _FRACTION,
         Quantity.METHAEMOGLOBIN: _FRACTION,
         Quantity.BAROMETRIC_PRESSURE: bounds.PRESSURE_BAROMETRIC_MMHG,
-        Quantity.ALTITUDE: (-500.0, 9000.0),  # m; below the Dead Sea shore to above Everest
+        Quantity.ALTITUDE: bounds.ALTITUDE_M,
         Quantity.DLCO: (0.0, 100.0),  # mL/min/mm[Hg]; adult normal is ~25-35
         Quantity.DLCO_PERCENT_PREDICTED: (0.05, 3.0),  # fraction; below 5 % is a unit slip
     }

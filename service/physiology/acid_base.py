@@ -85,7 +85,7 @@ class Chronicity(StrEnum):
 # HCO3 change per mmHg of PaCO2 change from 40 (Narins RG, Emmett M, Medicine 1980;59:161;
 # Berend K, de Vries APJ, Gans ROB, N Engl J Med 2014;371:1434): acidosis +0.1 acute,
 # +0.35 chronic (range 0.3–0.4); alkalosis −0.2 acute, −0.4 to −0.5 chronic (0.45 used).
-_HCO3_PER_MMHG = {
+HCO3_PER_MMHG = {
     (Chronicity.ACUTE, True): 0.1,
     (Chronicity.CHRONIC, True): 0.35,
     (Chronicity.ACUTE, False): 0.2,
@@ -103,5 +103,5 @@ def expected_hco3_mmol_l(*, paco2_mmhg: float, chronicity: Chronicity) -> float:
     """
     require_possible("paco2_mmhg", paco2_mmhg, 1.0, 250.0, "mm[Hg]")
     delta = paco2_mmhg - c.NORMAL_PACO2_MMHG
-    slope = _HCO3_PER_MMHG[(chronicity, delta > 0)]
+    slope = HCO3_PER_MMHG[(chronicity, delta > 0)]
     return c.NORMAL_HCO3_MMOL_L + slope * delta

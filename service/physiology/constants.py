@@ -34,6 +34,13 @@ WEST_1996_C_PER_KM2 = 0.00149
 
 # --- Gas exchange ---------------------------------------------------------------------------
 ROOM_AIR_FIO2 = 0.21  # clinical convention; dry air is 0.2095 (ISO 2533 composition)
+# An FiO2 counts as supplemental oxygen when it exceeds room air by more than half a percentage
+# point: FiO2 is charted in whole percent, so 21 % is air and 22 % is oxygen (common practice).
+ROOM_AIR_FIO2_TOLERANCE = 0.005
+# From this FiO2 the shunt equation measures true shunt rather than venous admixture (low-V/Q
+# units are then fully oxygenated); 0.99 rather than 1.0 allows for charting as 99 %
+# (Benatar, Hewlett & Nunn, Br J Anaesth 1973;45:711: the admixture at FiO2 1.0 is true shunt).
+TRUE_SHUNT_MIN_FIO2 = 0.99
 DEFAULT_RESPIRATORY_QUOTIENT = 0.8  # textbook convention (West, Respiratory Physiology)
 WATER_VAPOUR_TEXTBOOK_MMHG = 47.0  # West, Respiratory Physiology: PH2O at 37 °C
 NORMAL_BODY_TEMPERATURE_CEL = 37.0
@@ -42,6 +49,9 @@ NORMAL_BODY_TEMPERATURE_CEL = 37.0
 HUFNER_CONVENTIONAL_ML_PER_G = 1.34  # common practice; 1.39 theoretical, 1.368 measured
 O2_SOLUBILITY_ML_DL_PER_MMHG = 0.003  # dissolved O2, mL/dL per mmHg at 37 °C (common practice)
 ASSUMED_AV_DIFFERENCE_ML_DL = 5.0  # normal resting a-v content difference (common practice)
+# Mixed-venous PO2 taken when a mixed-venous saturation comes without its PO2: its dissolved
+# oxygen is 0.12 mL/dL, so the choice barely matters (normal resting value, common practice).
+NORMAL_MIXED_VENOUS_PO2_MMHG = 40.0
 # Above this arterial PO2 the blood is on the flat part of the curve: a measured SaO2 below
 # full saturation there reflects dyshaemoglobin or measurement, not shunt.
 FLAT_CURVE_PO2_MMHG = 150.0

@@ -104,6 +104,14 @@ def aa_gradient_mmhg(*, alveolar_po2_mmhg: float, arterial_po2_mmhg: float) -> f
     return alveolar_po2_mmhg - arterial_po2_mmhg
 
 
+# Mellemgaard K, Acta Physiol Scand 1966;67:10: mean room-air A-a = 2.5 + 0.21 × age (mmHg).
+MELLEMGAARD_INTERCEPT_MMHG = 2.5
+MELLEMGAARD_SLOPE_MMHG_PER_YEAR = 0.21
+# The bedside rule age / 4 + 4 (common practice).
+AGE_RULE_DIVISOR_YEARS = 4.0
+AGE_RULE_OFFSET_MMHG = 4.0
+
+
 def aa_gradient_mean_for_age_mmhg(*, age_years: float) -> float:
     """Mean room-air A-a gradient for age (mm[Hg]): 2.5 + 0.21 × age.
 
@@ -111,7 +119,7 @@ def aa_gradient_mean_for_age_mmhg(*, age_years: float) -> float:
     normal man", Acta Physiol Scand 1966;67:10–20. A regression mean, not an upper limit.
     """
     require_possible("age_years", age_years, *AGE_YEARS, "a")
-    return 2.5 + 0.21 * age_years
+    return MELLEMGAARD_INTERCEPT_MMHG + MELLEMGAARD_SLOPE_MMHG_PER_YEAR * age_years
 
 
 def aa_gradient_age_rule_mmhg(*, age_years: float) -> float:
@@ -120,7 +128,7 @@ def aa_gradient_age_rule_mmhg(*, age_years: float) -> float:
     Common practice (widely taught; no primary source known).
     """
     require_possible("age_years", age_years, *AGE_YEARS, "a")
-    return age_years / 4.0 + 4.0
+    return age_years / AGE_RULE_DIVISOR_YEARS + AGE_RULE_OFFSET_MMHG
 
 
 def aa_gradient_upper_limit_mmhg(*, age_years: float) -> float:

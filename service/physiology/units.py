@@ -42,6 +42,20 @@ def percent_from_fraction(fraction: float) -> float:
     return fraction * 100.0
 
 
+def to_fact_unit(value: float, fact_unit: str) -> float:
+    """A canonical value in the unit the rule catalogue presents it in.
+
+    The catalogue presents fractions (saturations, haemoglobin fractions, admixture) as
+    percentages, unit ``%``; every other fact keeps its canonical unit.
+    """
+    return percent_from_fraction(value) if fact_unit == "%" else value
+
+
+def from_fact_unit(value: float, fact_unit: str) -> float:
+    """The canonical value of a fact presented in ``fact_unit`` (the reverse of the above)."""
+    return fraction_from_percent(value) if fact_unit == "%" else value
+
+
 def g_dl_from_g_l(g_l: float) -> float:
     """Mass concentration in g/dL from g/L."""
     return g_l / 10.0

@@ -9,13 +9,19 @@ A fixture is ``NAME.bundle.json`` (a FHIR Bundle) with ``NAME.expected.yaml`` be
       status: data-requested          # GuidanceResponse.status
       hypoxaemia: present             # present | absent | unknown
       mechanisms: {hypoventilation: likely, shunt: unlikely}
-      findings: [hypoxaemia-moderate] # finding codes that must be present
-      absent_findings: [pb-assumed-sea-level]
+      findings: [hypoxaemia-moderate] # finding codes that must be present, and the only ones:
+      allowed_findings: [unit-converted]  # codes that may be present too (checked: no others)
+      absent_findings: [pb-assumed-sea-level]  # codes that must not be present
       rules_fire: [hypoventilation-likely]    # rule ids whose condition must be true
       rules_silent: [shunt-likely]            # rule ids whose condition must not be true
       derived:                        # canonical units (mm[Hg], 1, %, mL/dL, mmol/L)
         alveolar-po2: {value: 83.8, unit: "mm[Hg]", tolerance: 0.5}
     known_gap: null                   # or a reason: the case is then a strict expected failure
+
+``findings`` is closed-world: a finding the result raises that is neither listed there nor in
+``allowed_findings`` is a mismatch, so a rule change that adds an unexpected warning fails the
+case (a case that lists no findings expects none). ``allowed_findings`` is for a finding a
+case tolerates without asserting it; ``absent_findings`` names codes that must not appear.
 
 Checking compares an ``Assessment`` against the expectation and returns the mismatches as rows
 (what, expected, got, unit) for a short table, never a JSON diff.
@@ -30,13 +36,8 @@ from typing import Literal
 import yaml
 from pydantic import BaseModel, ConfigDict, Field, ValidationError
 
-from service.assess.result import Assessment
-from service.engine import Truth
-
-Grade = Literal["likely", "possible", "unlikely", "not-assessable"]
-MechanismCode = Literal[
-    "low-inspired-oxygen", "hypoventilation", "diffusion-limitation", "vq-mismatch", "shunt"
-]
+from service.assess.result import Assessment, ResultStatus
+from service.engine import Grade, HypoxaemiaStatus, Mechanism, Pattern, Truth
 
 
 class _Strict(BaseModel):
@@ -54,13 +55,13 @@ class ExpectedQuantity(_Strict):
 class Expectation(_Strict):
     """The checks of one case; every key is optional."""
 
-    pattern: (
-        Literal["no-hypoxaemia", "single", "mixed", "indeterminate", "not-classifiable"] | None
-    ) = None
-    status: Literal["success", "data-requested", "data-required", "failure"] | None = None
-    hypoxaemia: Literal["present", "absent", "unknown"] | None = None
-    mechanisms: dict[MechanismCode, Grade] = Field(default_factory=dict)
+    pattern: Pattern | None = None
+    status: ResultStatus | Literal["failure"] | None = None
+    hypoxaemia: HypoxaemiaStatus | None = None
+    mechanisms: dict[Mechanism, Grade] = Field(default_factory=dict)
     findings: list[str] = Field(default_factory=list)
+    """Every finding code the result must raise; with ``allowed_findings``, all it may raise."""
+    allowed_findings: list[str] = Field(default_factory=list)
     absent_findings: list[str] = Field(default_factory=list)
     rules_fire: list[str] = Field(default_factory=list)
     rules_silent: list[str] = Field(default_factory=list)
@@ -159,7 +160,7 @@ def _check_verdict(expectation: Expectation, a: Assessment) -> list[Mismatch]:
     ):
         if want is not None and want != got:
             rows.append(Mismatch(what, want, got))
-    grades = {m.code: m.grade for m in a.mechanisms}
+    grades: dict[Mechanism, str] = {m.code: m.grade for m in a.mechanisms}
     for code, grade in expectation.mechanisms.items():
         if grades.get(code) != grade:
             rows.append(Mismatch(f"mechanism {code}", grade, grades.get(code, "absent")))
@@ -168,11 +169,16 @@ def _check_verdict(expectation: Expectation, a: Assessment) -> list[Mismatch]:
 
 def _check_findings(expectation: Expectation, a: Assessment) -> list[Mismatch]:
     codes = {f.code for f in a.findings}
-    missing = [c for c in expectation.findings if c not in codes]
     unwanted = [c for c in expectation.absent_findings if c in codes]
-    return [Mismatch(f"finding {c}", "present", "absent") for c in missing] + [
-        Mismatch(f"finding {c}", "absent", "present") for c in unwanted
-    ]
+    rows = [Mismatch(f"finding {c}", "absent", "present") for c in unwanted]
+    missing = [c for c in expectation.findings if c not in codes]
+    expected = set(expectation.findings) | set(expectation.allowed_findings)
+    unexpected = sorted(codes - expected - set(unwanted))
+    return (
+        [Mismatch(f"finding {c}", "present", "absent") for c in missing]
+        + rows
+        + [Mismatch(f"finding {c}", "not expected", "present") for c in unexpected]
+    )
 
 
 def _check_rules(expectation: Expectation, a: Assessment) -> list[Mismatch]:
@@ -206,9 +212,7 @@ def _check_derived(expectation: Expectation, a: Assessment) -> list[Mismatch]:
 
 
 def _rule_states(a: Assessment) -> dict[str, str]:
-    evaluation = a.evaluation
-    results = getattr(evaluation, "results", ())
-    return {r.rule.id: r.state.value for r in results}
+    return {r.rule.id: r.state.value for r in a.evaluation.results}
 
 
 def deciding_rules(a: Assessment) -> list[str]:

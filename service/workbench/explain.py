@@ -9,7 +9,6 @@ from __future__ import annotations
 
 from typing import Any
 
-from service.assess.assess import trace_lines
 from service.assess.result import CAUTION, Assessment
 from service.engine import Evaluation, Truth
 from service.intake.model import Intake, Measurement
@@ -38,7 +37,7 @@ def _rules(evaluation: Evaluation) -> list[dict[str, Any]]:
             "title": r.rule.title,
             "state": r.state.value,
             "shadow": r.shadow,
-            "conditions": list(trace_lines(r)),
+            "conditions": list(r.trace_lines),
             "missing": list(r.undecided) if r.state is Truth.UNKNOWN else [],
             "rationale": r.rationale if r.state is Truth.TRUE else None,
         }
@@ -49,7 +48,6 @@ def _rules(evaluation: Evaluation) -> list[dict[str, Any]]:
 def explain_json(intake: Intake, a: Assessment) -> dict[str, Any]:
     """The explanation as plain data (for tools)."""
     evaluation = a.evaluation
-    assert isinstance(evaluation, Evaluation)
     return {
         "ruleset": a.ruleset_identity,
         "ruleset_hash": a.ruleset_hash,

@@ -12,6 +12,7 @@ from typing import Any
 import pytest
 import yaml
 
+from service.assess.catalogue import DEFAULT_CATALOGUE
 from service.engine import load_ruleset
 from tests.api.conftest import ROOT
 
@@ -122,7 +123,10 @@ def test_the_generated_rules_configmap_is_mounted_where_the_service_reads_rules(
     # What the pod would see: the files, flat, in one directory. It must load as the same set.
     for key, body in configmap["data"].items():
         (tmp_path / key).write_text(body)
-    flat, original = load_ruleset(tmp_path), load_ruleset(ROOT / "rules")
+    flat, original = (
+        load_ruleset(tmp_path, catalogue=DEFAULT_CATALOGUE),
+        load_ruleset(ROOT / "rules", catalogue=DEFAULT_CATALOGUE),
+    )
     assert (flat.id, flat.version, len(flat.rules)) == (
         original.id,
         original.version,

@@ -6,8 +6,9 @@ from datetime import date, timedelta
 
 import pytest
 
-from service.assess.derive import GasFacts, add_serial_facts, age_years, derive_gas_facts
+from service.assess.derive import GasFacts, age_years, derive_gas_facts
 from service.assess.pairing import pair_gases
+from service.assess.serial import add_serial_facts
 from service.config import Settings
 from service.intake.model import Fio2Source, Intake
 from service.intake.model import Quantity as Q

@@ -17,6 +17,7 @@ from typing import Any
 
 import yaml
 
+from service.assess.catalogue import DEFAULT_CATALOGUE
 from service.engine.evaluate import evaluate
 from service.engine.facts import FactValue
 from service.engine.loader import build_ruleset, load_ruleset
@@ -153,10 +154,12 @@ def main(argv: Sequence[str] | None = None) -> int:
     parser.add_argument("--iterations", type=int, default=2000)
     options = parser.parse_args(argv)
     if options.rules is not None:
-        ruleset = load_ruleset(options.rules)
+        ruleset = load_ruleset(options.rules, catalogue=DEFAULT_CATALOGUE)
     else:
-        ruleset = build_ruleset(generated_documents())
-    empty = build_ruleset({"ruleset.yaml": yaml.safe_dump(_MANIFEST).encode()})
+        ruleset = build_ruleset(generated_documents(), catalogue=DEFAULT_CATALOGUE)
+    empty = build_ruleset(
+        {"ruleset.yaml": yaml.safe_dump(_MANIFEST).encode()}, catalogue=DEFAULT_CATALOGUE
+    )
     facts = {name: value for name, value in BENCH_FACTS.items() if name in ruleset.catalogue}
     baseline = time_call(lambda: evaluate(empty, facts), options.iterations)
     measured = time_call(lambda: evaluate(ruleset, facts), options.iterations)

@@ -7,6 +7,7 @@ from typing import Any
 import pytest
 import yaml
 
+from service.assess.catalogue import DEFAULT_CATALOGUE
 from service.engine import RuleProblem, RuleSet, RuleSetError, build_ruleset
 
 MMHG = "mm[Hg]"
@@ -100,7 +101,10 @@ def build(
 ) -> RuleSet:
     """Build a rule set from dicts."""
     return build_ruleset(
-        documents(manifest_data, rules, folders=folders), overrides=overrides, source="test"
+        documents(manifest_data, rules, folders=folders),
+        catalogue=DEFAULT_CATALOGUE,
+        overrides=overrides,
+        source="test",
     )
 
 
@@ -116,7 +120,7 @@ def problems(
     files = documents(manifest_data, rules, folders=folders)
     files.update(raw or {})
     with pytest.raises(RuleSetError) as caught:
-        build_ruleset(files, overrides=overrides, source="test")
+        build_ruleset(files, catalogue=DEFAULT_CATALOGUE, overrides=overrides, source="test")
     return caught.value.problems
 
 

@@ -2,13 +2,14 @@
 
 import pytest
 
+from service.assess.catalogue import DEFAULT_CATALOGUE
 from service.engine import evaluate
 from service.engine.loader import build_ruleset
 from tests.benchmarks.engine import BENCH_FACTS, generated_documents, main
 
 
 def test_generated_bench_rule_set_loads_forty_rules_and_evaluates() -> None:
-    ruleset = build_ruleset(generated_documents())
+    ruleset = build_ruleset(generated_documents(), catalogue=DEFAULT_CATALOGUE)
     assert len(ruleset.evaluated) == 40
     assert len(evaluate(ruleset, BENCH_FACTS).results) == 40
 

@@ -1,6 +1,6 @@
 """Data requests name facts someone can supply, never ones already known."""
 
-from service.engine import DEFAULT_CATALOGUE
+from service.assess.catalogue import DEFAULT_CATALOGUE
 from service.engine.data_requests import DataRequest, DataRequests
 
 
@@ -19,8 +19,10 @@ def test_a_missing_measured_fact_is_requested_by_every_rule_that_asked() -> None
 
 
 def test_a_missing_derived_fact_becomes_its_missing_inputs_recursively() -> None:
-    # aa_gradient needs alveolar_po2 (needs fio2, barometric_pressure, arterial_pco2).
-    requests = DataRequests({"arterial_po2": 60.0, "barometric_pressure": 700.0}, DEFAULT_CATALOGUE)
+    # aa_gradient needs alveolar_po2 (needs fio2, barometric_pressure, arterial_pco2 and the
+    # water vapour pressure, which every gas has).
+    known = {"arterial_po2": 60.0, "barometric_pressure": 700.0, "water_vapour_pressure": 47.1}
+    requests = DataRequests(known, DEFAULT_CATALOGUE)
     requests.ask("aa_gradient", "r@1")
     assert requests.collected() == (
         DataRequest("arterial_pco2", ("r@1",), ("aa_gradient",)),

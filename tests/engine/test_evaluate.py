@@ -4,6 +4,7 @@ from pathlib import Path
 
 import pytest
 
+from service.assess.catalogue import DEFAULT_CATALOGUE
 from service.engine import (
     FactError,
     FindingOutcome,
@@ -21,14 +22,14 @@ SAMPLE = Path(__file__).parent / "data" / "sample"
 
 
 def test_evaluation_carries_rule_set_identity_and_hash() -> None:
-    ruleset = load_ruleset(SAMPLE)
+    ruleset = load_ruleset(SAMPLE, catalogue=DEFAULT_CATALOGUE)
     evaluation = evaluate(ruleset, {})
     assert evaluation.ruleset == "engine-test-sample|1.4.0"
     assert evaluation.content_hash == ruleset.content_hash
 
 
 def test_every_active_and_testing_rule_gets_a_result_and_drafts_do_not() -> None:
-    evaluation = evaluate(load_ruleset(SAMPLE), {"arterial_po2": 70.0})
+    evaluation = evaluate(load_ruleset(SAMPLE, catalogue=DEFAULT_CATALOGUE), {"arterial_po2": 70.0})
     ids = {result.rule.id for result in evaluation.results}
     assert "diffusion-exertional" in ids
     assert "shunt-draft" not in ids
@@ -39,7 +40,7 @@ def test_every_active_and_testing_rule_gets_a_result_and_drafts_do_not() -> None
 
 
 def test_result_names_the_rule_as_id_at_version() -> None:
-    evaluation = evaluate(load_ruleset(SAMPLE), {})
+    evaluation = evaluate(load_ruleset(SAMPLE, catalogue=DEFAULT_CATALOGUE), {})
     assert evaluation.result("hypoventilation-alone").ref == "hypoventilation-alone@2.1.0"
 
 
@@ -101,7 +102,7 @@ def test_evaluate_rejects_bad_facts_before_evaluating_anything() -> None:
 
 
 def test_evaluating_twice_gives_equal_results() -> None:
-    ruleset = load_ruleset(SAMPLE)
+    ruleset = load_ruleset(SAMPLE, catalogue=DEFAULT_CATALOGUE)
     facts = {"arterial_po2": 55.0, "arterial_pco2": 58.0, "aa_gradient_excess": -3.0}
     first, second = evaluate(ruleset, facts), evaluate(ruleset, facts)
     assert [r.state for r in first.results] == [r.state for r in second.results]

@@ -5,6 +5,7 @@ from typing import Any
 
 import pytest
 
+from service.assess.catalogue import DEFAULT_CATALOGUE
 from service.engine import RuleSetError, RuleStatus, build_ruleset, content_hash, load_ruleset
 
 from .builders import (
@@ -39,7 +40,7 @@ def _located(problem: Any, file: str, rule_id: str | None, field: str) -> None:
 
 
 def test_loader_loads_the_sample_rule_set() -> None:
-    ruleset = load_ruleset(SAMPLE)
+    ruleset = load_ruleset(SAMPLE, catalogue=DEFAULT_CATALOGUE)
     assert ruleset.identity == "engine-test-sample|1.4.0"
     assert {rule.id for rule in ruleset.retired} == {"hypoventilation-old"}
     statuses = {rule.id: rule.status for rule in ruleset.rules}
@@ -51,14 +52,14 @@ def test_loader_loads_the_sample_rule_set() -> None:
 
 def test_loader_compiles_a_retired_rule_never_even_if_its_fact_is_gone() -> None:
     # The sample's retired rule names a fact no longer in the catalogue, and still loads.
-    ruleset = load_ruleset(SAMPLE)
+    ruleset = load_ruleset(SAMPLE, catalogue=DEFAULT_CATALOGUE)
     with pytest.raises(KeyError):
         ruleset.rule("hypoventilation-old")
 
 
 def test_loader_rejects_a_path_that_is_not_a_directory(tmp_path: Path) -> None:
     with pytest.raises(RuleSetError) as caught:
-        load_ruleset(tmp_path / "absent")
+        load_ruleset(tmp_path / "absent", catalogue=DEFAULT_CATALOGUE)
     assert "not a directory" in str(caught.value)
 
 
@@ -66,7 +67,7 @@ def test_loader_rejects_a_rule_set_without_manifest() -> None:
     files = documents(rules=[rule()])
     del files["ruleset.yaml"]
     with pytest.raises(RuleSetError) as caught:
-        build_ruleset(files)
+        build_ruleset(files, catalogue=DEFAULT_CATALOGUE)
     [problem] = caught.value.problems
     _located(problem, "ruleset.yaml", None, "")
     assert "no manifest" in problem.message
@@ -97,7 +98,7 @@ def test_loader_rejects_an_id_that_differs_from_the_file_name() -> None:
     files = documents(rules=[rule("right-name")])
     files["wrong-name.yaml"] = files.pop("right-name.yaml")
     with pytest.raises(RuleSetError) as caught:
-        build_ruleset(files)
+        build_ruleset(files, catalogue=DEFAULT_CATALOGUE)
     [problem] = caught.value.problems
     _located(problem, "wrong-name.yaml", "right-name", "id")
     assert "rename the file to right-name.yaml" in problem.hint
@@ -107,7 +108,7 @@ def test_loader_rejects_duplicate_id() -> None:
     files = documents(rules=[rule("twin")], folders={"twin": "a"})
     files["b/twin.yaml"] = files["a/twin.yaml"]
     with pytest.raises(RuleSetError) as caught:
-        build_ruleset(files)
+        build_ruleset(files, catalogue=DEFAULT_CATALOGUE)
     [problem] = caught.value.problems
     _located(problem, "b/twin.yaml", "twin", "id")
     assert "also used by a/twin.yaml" in problem.message
@@ -127,7 +128,7 @@ def test_loader_refuses_yml_files_instead_of_skipping_them(tmp_path: Path) -> No
     files = documents(rules=[rule("a")])
     files["b.yml"] = files["a.yaml"]
     with pytest.raises(RuleSetError) as caught:
-        load_ruleset(write_tree(tmp_path, files))
+        load_ruleset(write_tree(tmp_path, files), catalogue=DEFAULT_CATALOGUE)
     [problem] = caught.value.problems
     _located(problem, "b.yml", None, "")
 
@@ -137,7 +138,7 @@ def test_loader_ignores_hidden_and_non_yaml_files(tmp_path: Path) -> None:
     files["README.md"] = b"# notes"
     files[".editor/a.yaml"] = b"not: [valid"
     files[".#a.yaml"] = b"not: [valid"
-    ruleset = load_ruleset(write_tree(tmp_path, files))
+    ruleset = load_ruleset(write_tree(tmp_path, files), catalogue=DEFAULT_CATALOGUE)
     assert [rule.id for rule in ruleset.rules] == ["a"]
 
 
@@ -322,7 +323,11 @@ def test_loader_collects_all_problems_from_all_files_into_one_error() -> None:
 
 def test_rule_set_error_text_names_file_rule_field_and_fix() -> None:
     with pytest.raises(RuleSetError) as caught:
-        build_ruleset(documents(rules=[rule("r", when=leaf("spo2", "lt", 90))]), source="site-x")
+        build_ruleset(
+            documents(rules=[rule("r", when=leaf("spo2", "lt", 90))]),
+            catalogue=DEFAULT_CATALOGUE,
+            source="site-x",
+        )
     text = str(caught.value)
     assert text.startswith("rule set site-x has 1 problem:")
     assert (
@@ -359,14 +364,18 @@ def test_loader_rejects_an_override_that_is_unknown_or_out_of_range(
 
 
 def _hash(files: dict[str, bytes], overrides: dict[str, float] | None = None) -> str:
-    return build_ruleset(files, overrides=overrides).content_hash
+    return build_ruleset(files, catalogue=DEFAULT_CATALOGUE, overrides=overrides).content_hash
 
 
 def test_content_hash_is_the_same_for_the_same_content(tmp_path: Path) -> None:
     files = documents(rules=[rule("a"), rule("b")], folders={"b": "sub"})
     reordered = dict(reversed(list(files.items())))
-    first = load_ruleset(write_tree(tmp_path / "one", files)).content_hash
-    second = load_ruleset(write_tree(tmp_path / "two", reordered)).content_hash
+    first = load_ruleset(
+        write_tree(tmp_path / "one", files), catalogue=DEFAULT_CATALOGUE
+    ).content_hash
+    second = load_ruleset(
+        write_tree(tmp_path / "two", reordered), catalogue=DEFAULT_CATALOGUE
+    ).content_hash
     assert first == second == _hash(files)
     assert len(first) == 64
 
@@ -396,9 +405,16 @@ def test_content_hash_covers_retired_rules() -> None:
 
 def test_content_hash_ignores_files_the_loader_does_not_read(tmp_path: Path) -> None:
     files = documents(rules=[rule("a")])
-    bare = load_ruleset(write_tree(tmp_path / "bare", files)).content_hash
+    bare = load_ruleset(
+        write_tree(tmp_path / "bare", files), catalogue=DEFAULT_CATALOGUE
+    ).content_hash
     files["README.md"] = b"notes"
-    assert load_ruleset(write_tree(tmp_path / "noted", files)).content_hash == bare
+    assert (
+        load_ruleset(
+            write_tree(tmp_path / "noted", files), catalogue=DEFAULT_CATALOGUE
+        ).content_hash
+        == bare
+    )
 
 
 def test_content_hash_includes_overrides_canonically() -> None:

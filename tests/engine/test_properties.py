@@ -10,7 +10,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from pydantic import TypeAdapter
 
-from service.engine import DEFAULT_CATALOGUE
+from service.assess.catalogue import DEFAULT_CATALOGUE
 from service.engine.conditions import ConditionCompiler, Location
 from service.engine.facts import FactValue
 from service.engine.logic import TruthValue

@@ -2,7 +2,8 @@
 
 import pytest
 
-from service.engine import DEFAULT_CATALOGUE, evaluate
+from service.assess.catalogue import DEFAULT_CATALOGUE
+from service.engine import evaluate
 from service.engine.facts import FactValue
 from service.engine.parameters import Parameter
 from service.engine.rationale import compile_template, format_quantity

@@ -263,6 +263,7 @@ def test_data_requested_turns_a_missing_derived_fact_into_its_missing_inputs() -
         "arterial_po2": 60.0,
         "arterial_pco2": 40.0,
         "barometric_pressure": 760.0,
+        "water_vapour_pressure": 47.1,
         "aa_gradient_upper_limit": 20.0,
     }
     verdict = _verdict(rules, facts)

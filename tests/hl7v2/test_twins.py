@@ -18,6 +18,7 @@ import orjson
 import pytest
 
 from service.assess.result import Assessment
+from service.engine import Mechanism
 from service.fhir.extract import read_bundle
 from service.hl7v2.handle import handle_v2
 from service.hl7v2.intake import read_oru
@@ -61,7 +62,7 @@ def test_hypoventilation_picture_is_aa_and_graded_likely_on_both_paths(runtime: 
     from_fhir, from_v2 = _both("post-operative-drowsiness", runtime)
     for a in (from_fhir, from_v2):
         assert a.pattern == "single"
-        assert {m.code: m.grade for m in a.mechanisms}["hypoventilation"] == "likely"
+        assert {m.code: m.grade for m in a.mechanisms}[Mechanism.HYPOVENTILATION] == "likely"
     reply = hl7.parse(handle_v2(fixture("post-operative-drowsiness.hl7"), runtime).body.decode())
     assert (
         str(reply.segment("MSA"))
@@ -72,7 +73,7 @@ def test_hypoventilation_picture_is_aa_and_graded_likely_on_both_paths(runtime: 
 def test_altitude_visitor_is_low_inspired_oxygen_on_both_paths(runtime: Runtime) -> None:
     from_fhir, from_v2 = _both("altitude-visitor", runtime)
     for a in (from_fhir, from_v2):
-        assert {m.code: m.grade for m in a.mechanisms}["low-inspired-oxygen"] == "likely"
+        assert {m.code: m.grade for m in a.mechanisms}[Mechanism.LOW_INSPIRED_OXYGEN] == "likely"
         assert a.index.barometric_source == "altitude-model"
 
 

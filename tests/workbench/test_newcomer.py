@@ -90,6 +90,8 @@ def _write_case(folder: Path) -> None:
         "expect:\n"
         f"  rules_fire: [{RULE_ID}]\n"
         "  mechanisms: {hypoventilation: possible}\n"
+        "  findings: [paco2-missing, hypoxaemia-moderate]\n"
+        "  allowed_findings: [pb-assumed-sea-level]\n"
     )
 
 

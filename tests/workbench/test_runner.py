@@ -31,10 +31,34 @@ def _case_copy(tmp_path: Path, expect: str, known_gap: str | None = None) -> Pat
     tmp_path.mkdir(parents=True, exist_ok=True)
     (tmp_path / "case.bundle.json").write_bytes(bundle.read_bytes())
     gap = f"known_gap: {known_gap}\n" if known_gap else ""
+    # The demo case's own findings: expectations are closed-world.
+    findings = "  findings: [acute-respiratory-acidosis, hypoxaemia-mild]\n"
     (tmp_path / "case.expected.yaml").write_text(
-        f"description: invented copy of a demo case\nexpect:\n{expect}\n{gap}"
+        f"description: invented copy of a demo case\nexpect:\n{findings}{expect}\n{gap}"
     )
     return tmp_path
+
+
+def test_an_unexpected_finding_fails_unless_it_is_allowed(tmp_path: Path, runtime: Runtime) -> None:
+    # Closed world: the demo raises hypoxaemia-mild too; listing only one finding fails.
+    bundle = DEMO / "post-operative-drowsiness.bundle.json"
+    (tmp_path / "case.bundle.json").write_bytes(bundle.read_bytes())
+    expected = tmp_path / "case.expected.yaml"
+    head = "description: invented copy\nexpect:\n  findings: [acute-respiratory-acidosis]\n"
+    expected.write_text(head)
+    (result,) = run_cases(find_cases([tmp_path]), runtime)
+    assert [(m.what, m.expected, m.got) for m in result.mismatches] == [
+        ("finding hypoxaemia-mild", "not expected", "present")
+    ]
+    expected.write_text(head + "  allowed_findings: [hypoxaemia-mild]\n")
+    (allowed,) = run_cases(find_cases([tmp_path]), runtime)
+    assert allowed.held
+    expected.write_text("description: invented copy\nexpect:\n  pattern: single\n")
+    (silent,) = run_cases(find_cases([tmp_path]), runtime)
+    assert {m.what for m in silent.mismatches} == {
+        "finding acute-respiratory-acidosis",
+        "finding hypoxaemia-mild",
+    }
 
 
 def test_a_wrong_expectation_fails_with_a_table(tmp_path: Path, runtime: Runtime) -> None:

@@ -1,0 +1,113 @@
+"""Derived facts of acid-base: expected compensation for the PaCO2 and the Henderson check."""
+
+from __future__ import annotations
+
+from service.physiology import acid_base as ab
+from service.physiology import constants as c
+
+from .derivation import Computed, DerivedTable
+
+table = DerivedTable()
+# _COMPLETE_GAS: the HCO3 is compared with the compensation expected for the PaCO2 only on a
+# gas whose pH is known too. The comparison judges an acid-base state, and the rules read its
+# direction from the pH; a gas whose pH is missing or was refused gets no chronicity finding.
+MMOL_L = "mmol/L"
+_BICARBONATE = (0.0, 80.0)
+_BICARBONATE_DIFFERENCE = (-80.0, 80.0)
+
+
+@table.quantity(
+    "expected_hco3_acute",
+    MMOL_L,
+    _BICARBONATE,
+    1,
+    "Expected HCO3 for an acute CO2 change",
+    result="expected-hco3",
+)
+def expected_hco3_acute(*, arterial_pco2: float) -> Computed:
+    acute = ab.HCO3_PER_MMHG
+    rise, fall = acute[(ab.Chronicity.ACUTE, True)], acute[(ab.Chronicity.ACUTE, False)]
+    return Computed(
+        ab.expected_hco3_mmol_l(paco2_mmhg=arterial_pco2, chronicity=ab.Chronicity.ACUTE),
+        f"expected HCO3 for an acute respiratory change: {c.NORMAL_HCO3_MMOL_L:g} + {rise:g} per "
+        f"mmHg PaCO2 above {c.NORMAL_PACO2_MMHG:g} ({fall:g} per mmHg below)",
+    )
+
+
+@table.quantity(
+    "expected_hco3_chronic", MMOL_L, _BICARBONATE, 1, "Expected HCO3, chronic CO2 change"
+)
+def expected_hco3_chronic(*, arterial_pco2: float) -> float:
+    return ab.expected_hco3_mmol_l(paco2_mmhg=arterial_pco2, chronicity=ab.Chronicity.CHRONIC)
+
+
+@table.quantity(
+    "hco3_above_expected_acute",
+    MMOL_L,
+    _BICARBONATE_DIFFERENCE,
+    1,
+    "Reported HCO3 minus the expected HCO3 for an acute CO2 change",
+)
+def hco3_above_expected_acute(
+    *, arterial_ph: float, arterial_hco3: float, expected_hco3_acute: float
+) -> float:
+    del arterial_ph  # needed, not used: see _COMPLETE_GAS
+    return arterial_hco3 - expected_hco3_acute
+
+
+@table.quantity(
+    "hco3_above_expected_chronic",
+    MMOL_L,
+    _BICARBONATE_DIFFERENCE,
+    1,
+    "Reported HCO3 minus the expected HCO3 for a chronic CO2 change",
+)
+def hco3_above_expected_chronic(
+    *, arterial_ph: float, arterial_hco3: float, expected_hco3_chronic: float
+) -> float:
+    del arterial_ph  # needed, not used: see _COMPLETE_GAS
+    return arterial_hco3 - expected_hco3_chronic
+
+
+@table.quantity(
+    "hco3_henderson_difference",
+    MMOL_L,
+    _BICARBONATE_DIFFERENCE,
+    1,
+    "Reported HCO3 minus HCO3 computed from pH and PaCO2",
+)
+def hco3_henderson_difference(
+    *, arterial_ph: float, arterial_pco2: float, arterial_hco3: float
+) -> float:
+    return ab.henderson_check(
+        ph=arterial_ph, paco2_mmhg=arterial_pco2, hco3_mmol_l=arterial_hco3
+    ).hco3_difference_mmol_l
+
+
+@table.quantity(
+    "ph_henderson_difference",
+    "[pH]",
+    (-2.0, 2.0),
+    2,
+    "Measured pH minus pH computed from PaCO2 and HCO3",
+)
+def ph_henderson_difference(
+    *, arterial_ph: float, arterial_pco2: float, arterial_hco3: float
+) -> float:
+    return ab.henderson_check(
+        ph=arterial_ph, paco2_mmhg=arterial_pco2, hco3_mmol_l=arterial_hco3
+    ).ph_difference
+
+
+@table.quantity(
+    "ph_henderson_gap",
+    "[pH]",
+    (0.0, 2.0),
+    2,
+    "Size of ph_henderson_difference, whatever its sign",
+)
+def ph_henderson_gap(*, ph_henderson_difference: float) -> float:
+    return abs(ph_henderson_difference)
+
+
+FACTS = tuple(table.facts)
