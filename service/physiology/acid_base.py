@@ -105,3 +105,45 @@ def expected_hco3_mmol_l(*, paco2_mmhg: float, chronicity: Chronicity) -> float:
     delta = paco2_mmhg - c.NORMAL_PACO2_MMHG
     slope = HCO3_PER_MMHG[(chronicity, delta > 0)]
     return c.NORMAL_HCO3_MMOL_L + slope * delta
+
+
+@dataclass(frozen=True, slots=True)
+class ExpectedRange:
+    """An expected value with its published tolerance (same unit)."""
+
+    expected: float
+    tolerance: float
+
+    @property
+    def low(self) -> float:
+        return self.expected - self.tolerance
+
+    @property
+    def high(self) -> float:
+        return self.expected + self.tolerance
+
+
+def expected_paco2_metabolic_acidosis_mmhg(*, hco3_mmol_l: float) -> ExpectedRange:
+    """PaCO2 (mm[Hg]) of full respiratory compensation for a metabolic acidosis: Winters' formula.
+
+        PaCO2 = 1.5 × HCO3 + 8 ± 2
+
+    Source: Albert MS, Dell RB, Winters RW, "Quantitative displacement of acid-base equilibrium
+    in metabolic acidosis", Ann Intern Med 1967;66:312; restated by Berend K, de Vries APJ,
+    Gans ROB, N Engl J Med 2014;371:1434. A PaCO2 above the range is a respiratory acidosis
+    on top (ventilation failing to compensate); below it, a respiratory alkalosis.
+    """
+    require_possible("hco3_mmol_l", hco3_mmol_l, *BICARBONATE_MMOL_L, "mmol/L")
+    return ExpectedRange(1.5 * hco3_mmol_l + 8.0, 2.0)
+
+
+def expected_paco2_metabolic_alkalosis_mmhg(*, hco3_mmol_l: float) -> ExpectedRange:
+    """PaCO2 (mm[Hg]) of respiratory compensation for a metabolic alkalosis.
+
+        PaCO2 = 40 + 0.7 × (HCO3 − 24) ± 2
+
+    Source: Berend K, de Vries APJ, Gans ROB, N Engl J Med 2014;371:1434 (compensation table);
+    the rise in PaCO2 from hypoventilation can reach about 55 mmHg.
+    """
+    require_possible("hco3_mmol_l", hco3_mmol_l, *BICARBONATE_MMOL_L, "mmol/L")
+    return ExpectedRange(c.NORMAL_PACO2_MMHG + 0.7 * (hco3_mmol_l - c.NORMAL_HCO3_MMOL_L), 2.0)

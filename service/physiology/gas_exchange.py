@@ -225,3 +225,44 @@ def sf_from_pf(*, pf_ratio_mmhg: float) -> float:
 def pf_from_sf(*, sf_ratio: float) -> float:
     """The P/F equivalent of an S/F (Rice 2007, inverted): P/F = (S/F − 64) / 0.84, mm[Hg]."""
     return (sf_ratio - RICE_INTERCEPT) / RICE_SLOPE
+
+
+def lowest_fio2_for_pao2(
+    *,
+    arterial_po2_mmhg: float,
+    paco2_mmhg: float,
+    barometric_mmhg: float,
+    water_vapour_mmhg: float,
+    respiratory_quotient: float = c.DEFAULT_RESPIRATORY_QUOTIENT,
+    tolerance_mmhg: float = 0.0,
+) -> float:
+    """The least FiO2 at which the alveolar PO2 reaches PaO2 − tolerance (full equation).
+
+    Solving PAO2 = FiO2 (PB − PH2O − PaCO2 + PaCO2/R) − PaCO2/R for FiO2. An arterial PO2 above
+    the alveolar PO2 is impossible, so the data themselves say the FiO2 was at least this
+    (which bounds an unknown or estimated FiO2 from below).
+    """
+    require_possible("paco2_mmhg", paco2_mmhg, *PARTIAL_PRESSURE_MMHG, "mm[Hg]")
+    require_possible("respiratory_quotient", respiratory_quotient, *RESPIRATORY_QUOTIENT, "1")
+    slope = barometric_mmhg - water_vapour_mmhg + paco2_mmhg * (1.0 / respiratory_quotient - 1.0)
+    return (arterial_po2_mmhg - tolerance_mmhg + paco2_mmhg / respiratory_quotient) / slope
+
+
+def lowest_barometric_for_pao2(
+    *,
+    arterial_po2_mmhg: float,
+    paco2_mmhg: float,
+    fio2: float,
+    water_vapour_mmhg: float,
+    respiratory_quotient: float = c.DEFAULT_RESPIRATORY_QUOTIENT,
+    tolerance_mmhg: float = 0.0,
+) -> float:
+    """The least barometric pressure at which the alveolar PO2 reaches PaO2 − tolerance.
+
+    Solving the full alveolar gas equation for PB: PB = (PaO2 − tol + PaCO2 k) / FiO2 + PH2O,
+    k = FiO2 + (1 − FiO2)/R. Bounds an assumed (unknown) pressure from below.
+    """
+    _check_fio2(fio2)
+    require_possible("paco2_mmhg", paco2_mmhg, *PARTIAL_PRESSURE_MMHG, "mm[Hg]")
+    k = fio2 + (1.0 - fio2) / respiratory_quotient
+    return (arterial_po2_mmhg - tolerance_mmhg + paco2_mmhg * k) / fio2 + water_vapour_mmhg

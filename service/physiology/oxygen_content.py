@@ -189,3 +189,26 @@ def compare_shunt_at_two_fio2(
         raise ImpossibleValueError("fio2_b", fio2_b, "the two gases must differ in FiO2")
     (low_f, low_s), (high_f, high_s) = sorted(((fio2_a, shunt_a), (fio2_b, shunt_b)))
     return ShuntComparison(low_f, high_f, low_s, high_s)
+
+
+def shunt_fraction_dissolved_bound(*, aa_gradient_mmhg: float, av_difference_ml_dl: float) -> float:
+    """A lower bound of the shunt fraction on (near) pure oxygen that needs no haemoglobin.
+
+    When end-capillary blood is fully saturated (alveolar PO2 of several hundred mmHg), the
+    end-capillary minus arterial content is at least the dissolved-oxygen difference,
+    0.003 × (PAO2 − PaO2): the haemoglobin term can only add to it (arterial saturation ≤ 1).
+    Qs/Qt = x / (x + avd) rises with x, so
+
+        Qs/Qt ≥ 0.003 × A-a / (0.003 × A-a + avd)
+
+    The same expression, with Hb fully saturated on both sides, is the source of the bedside
+    rule "about 5 % shunt per 100 mmHg of A-a on 100 % oxygen" (common practice). The bound
+    holds for the a-v difference given; a larger true a-v difference gives a smaller shunt.
+    Source: the Berggren shunt equation with the content equation (``shunt_fraction``).
+    """
+    require_possible("aa_gradient_mmhg", aa_gradient_mmhg, *PARTIAL_PRESSURE_MMHG, "mm[Hg]")
+    require_possible(
+        "av_difference_ml_dl", av_difference_ml_dl, *AV_DIFFERENCE_RANGE_ML_DL, "mL/dL"
+    )
+    dissolved = c.O2_SOLUBILITY_ML_DL_PER_MMHG * aa_gradient_mmhg
+    return dissolved / (dissolved + av_difference_ml_dl)

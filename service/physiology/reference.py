@@ -1,0 +1,250 @@
+"""What a healthy adult's blood gas should be: the reference the verdicts are measured against.
+
+Three references, each from published data on healthy subjects:
+
+* **PaO2 for age** at sea level on room air — Cerveri I et al., "Reference values of arterial
+  oxygen tension in the middle-aged and elderly", Am J Respir Crit Care Med 1995;152:934–941:
+  40–74 years, PaO2 = 143.6 − 0.39 × age − 0.56 × BMI − 0.57 × PaCO2 (SEE 7.48 mmHg);
+  75 years and over, no dependence on age, BMI or PaCO2: mean 83.4 mmHg, 5th centile 68.4.
+  The lower limit is the 5th centile (mean − 1.645 SEE below 75). Below 40 years the
+  regression is extrapolated (said so in the method text); below 18 the age-18 value is used.
+* **The a/A ratio** (PaO2 / PAO2) that this PaO2 implies at the sea-level room-air alveolar
+  PO2. The a/A ratio changes little with FiO2 (Gilbert R, Keighley JF, Am Rev Respir Dis
+  1974;110:142, from memory for volume and page), so the same ratio gives the normal — and the
+  upper limit of the A-a gradient — at any FiO2, barometric pressure and PaCO2: A-a limit =
+  PAO2 × (1 − a/A lower limit). At sea level on room air with PaCO2 40 it is exactly the
+  room-air A-a limit for age. The normal A-a gradient indeed widens with FiO2 (48 (31–60)
+  mmHg in young and 93 (60–108) mmHg in middle-aged men on 100 % oxygen, against 4 and 23 on
+  air: "Gas exchange in two male age groups…", Upsala J Med Sci) and narrows at altitude
+  (Grocott MPW et al., N Engl J Med 2009;360:140: A-a 5.4 mmHg at 8,400 m).
+* **PaCO2 for the altitude**, for residents and for newly arrived visitors (see
+  ``expected_paco2``).
+
+Everything is in mm[Hg]; FiO2 and ratios are fractions.
+"""
+
+from __future__ import annotations
+
+import itertools
+from dataclasses import dataclass
+from enum import StrEnum
+
+from service.physiology import constants as c
+from service.physiology.atmosphere import barometric_pressure_west_mmhg
+from service.physiology.bounds import AGE_YEARS, PRESSURE_BAROMETRIC_MMHG, require_possible
+from service.physiology.gas_exchange import alveolar_po2_mmhg
+from service.physiology.water_vapour import water_vapour_pressure_mmhg
+
+# --- PaO2 for age: Cerveri et al. 1995 --------------------------------------------------------
+CERVERI_INTERCEPT_MMHG = 143.6
+CERVERI_PER_YEAR_MMHG = 0.39
+CERVERI_PER_BMI_MMHG = 0.56
+CERVERI_PER_PACO2 = 0.57
+CERVERI_SEE_MMHG = 7.48
+CERVERI_ELDERLY_FROM_YEARS = 75.0
+CERVERI_ELDERLY_MEAN_MMHG = 83.4
+CERVERI_ELDERLY_FIFTH_CENTILE_MMHG = 68.4
+CERVERI_STUDIED_FROM_YEARS = 40.0
+ADULT_REFERENCE_FROM_YEARS = 18.0
+# One-sided 5th centile of a normal distribution (the lower limit of normal).
+LOWER_LIMIT_Z = 1.645
+# The reference person: BMI 25 kg/m² (the boundary of the normal range, WHO) and PaCO2
+# 40 mmHg (the centre of the 35–45 mmHg reference range, common practice).
+REFERENCE_BMI_KG_M2 = 25.0
+REFERENCE_PACO2_MMHG = c.NORMAL_PACO2_MMHG
+
+
+def _reference_age(age_years: float) -> float:
+    require_possible("age_years", age_years, *AGE_YEARS, "a")
+    return max(age_years, ADULT_REFERENCE_FROM_YEARS)
+
+
+def expected_pao2_mmhg(*, age_years: float, bmi_kg_m2: float = REFERENCE_BMI_KG_M2) -> float:
+    """Mean PaO2 of healthy adults of this age, at sea level on room air, PaCO2 40 (mm[Hg]).
+
+    Cerveri et al. 1995 (module docstring): 143.6 − 0.39 age − 0.56 BMI − 0.57 × 40 below
+    75 years; 83.4 mmHg from 75 on.
+    """
+    age = _reference_age(age_years)
+    if age >= CERVERI_ELDERLY_FROM_YEARS:
+        return CERVERI_ELDERLY_MEAN_MMHG
+    return (
+        CERVERI_INTERCEPT_MMHG
+        - CERVERI_PER_YEAR_MMHG * age
+        - CERVERI_PER_BMI_MMHG * bmi_kg_m2
+        - CERVERI_PER_PACO2 * REFERENCE_PACO2_MMHG
+    )
+
+
+def pao2_lower_limit_mmhg(*, age_years: float, bmi_kg_m2: float = REFERENCE_BMI_KG_M2) -> float:
+    """Lower limit of normal PaO2 for age (5th centile), sea level, room air (mm[Hg]).
+
+    Below 75 years the regression mean minus 1.645 × SEE (7.48 mmHg); from 75 the published
+    5th centile, 68.4 mmHg (Cerveri et al. 1995).
+    """
+    age = _reference_age(age_years)
+    if age >= CERVERI_ELDERLY_FROM_YEARS:
+        return CERVERI_ELDERLY_FIFTH_CENTILE_MMHG
+    mean = expected_pao2_mmhg(age_years=age, bmi_kg_m2=bmi_kg_m2)
+    return mean - LOWER_LIMIT_Z * CERVERI_SEE_MMHG
+
+
+def reference_method(age_years: float) -> str:
+    """How the PaO2 reference was obtained for this age, in words (for method texts)."""
+    if age_years < ADULT_REFERENCE_FROM_YEARS:
+        return "Cerveri 1995 adult reference, age 18 used"
+    if age_years < CERVERI_STUDIED_FROM_YEARS:
+        return "Cerveri 1995 regression, extrapolated below 40 years"
+    if age_years < CERVERI_ELDERLY_FROM_YEARS:
+        return "Cerveri 1995 regression (40–74 years)"
+    return "Cerveri 1995, 75 years and over"
+
+
+def reference_alveolar_po2_mmhg(
+    *, respiratory_quotient: float = c.DEFAULT_RESPIRATORY_QUOTIENT
+) -> float:
+    """Alveolar PO2 of the reference person: sea level (760 mmHg), room air, PaCO2 40, 37 °C.
+
+    Full alveolar gas equation with PH2O at 37 °C (IAPWS-IF97): about 101.8 mmHg.
+    """
+    return alveolar_po2_mmhg(
+        fio2=c.ROOM_AIR_FIO2,
+        paco2_mmhg=REFERENCE_PACO2_MMHG,
+        barometric_mmhg=c.SEA_LEVEL_PRESSURE_MMHG,
+        water_vapour_mmhg=water_vapour_pressure_mmhg(temperature_cel=c.NORMAL_BODY_TEMPERATURE_CEL),
+        respiratory_quotient=respiratory_quotient,
+    )
+
+
+def expected_a_a_ratio(
+    *, age_years: float, respiratory_quotient: float = c.DEFAULT_RESPIRATORY_QUOTIENT
+) -> float:
+    """The a/A ratio of a healthy person of this age: expected PaO2 / reference PAO2."""
+    return expected_pao2_mmhg(age_years=age_years) / reference_alveolar_po2_mmhg(
+        respiratory_quotient=respiratory_quotient
+    )
+
+
+def a_a_ratio_lower_limit(
+    *, age_years: float, respiratory_quotient: float = c.DEFAULT_RESPIRATORY_QUOTIENT
+) -> float:
+    """Lower limit of the a/A ratio for age: PaO2 lower limit / reference PAO2.
+
+    Below it, gas exchange is abnormal at any FiO2 (the a/A ratio's stability across FiO2:
+    Gilbert & Keighley 1974).
+    """
+    return pao2_lower_limit_mmhg(age_years=age_years) / reference_alveolar_po2_mmhg(
+        respiratory_quotient=respiratory_quotient
+    )
+
+
+def aa_gradient_for_ratio_mmhg(*, alveolar_po2_mmhg: float, a_a_ratio: float) -> float:
+    """The A-a gradient that an a/A ratio means at this alveolar PO2: PAO2 × (1 − a/A)."""
+    return alveolar_po2_mmhg * (1.0 - a_a_ratio)
+
+
+def projected_pao2_mmhg(*, a_a_ratio: float, alveolar_po2_mmhg: float) -> float:
+    """PaO2 expected at another alveolar PO2 (e.g. on room air) if the a/A ratio holds.
+
+    The a/A ratio's published use: predicting the PaO2 after a change of FiO2 (Gilbert &
+    Keighley 1974). An estimate: true shunt makes the ratio fall as FiO2 rises.
+    """
+    return a_a_ratio * max(alveolar_po2_mmhg, 0.0)
+
+
+# --- PaCO2 for the altitude ------------------------------------------------------------------
+
+
+class Residence(StrEnum):
+    """Whether the patient lives at the altitude of the gas or has just arrived there."""
+
+    RESIDENT = "resident"
+    VISITOR = "visitor"
+
+
+@dataclass(frozen=True, slots=True)
+class PaCO2Anchor:
+    """A published PaCO2 of healthy people at one altitude: mean and upper limit (mm[Hg])."""
+
+    altitude_m: float
+    mean_mmhg: float
+    upper_limit_mmhg: float
+    source: str
+
+    @property
+    def barometric_mmhg(self) -> float:
+        return barometric_pressure_west_mmhg(altitude_m=self.altitude_m)
+
+
+SEA_LEVEL_PACO2 = PaCO2Anchor(
+    0.0, 40.0, 45.0, "reference range 35–45 mmHg (common practice; BTS: type 2 failure > 6 kPa)"
+)
+# Healthy long-term residents. Upper limits are the published 97.5th centile, or mean +
+# 1.645 SD where only mean ± SD is published.
+RESIDENT_PACO2: tuple[PaCO2Anchor, ...] = (
+    SEA_LEVEL_PACO2,
+    PaCO2Anchor(
+        2240.0,
+        30.2,
+        30.2 + LOWER_LIMIT_Z * 3.4,
+        "Cid-Juárez S et al., Rev Invest Clin 2023 (Mexico City, 217 healthy adults: 30.2 ± 3.4)",
+    ),
+    PaCO2Anchor(
+        2800.0,
+        32.0,
+        36.1,
+        "Moina Veloz AP et al., Univ Med Pinareña 2023 (Quito, 264 healthy adults: men 32.5, "
+        "women 31.5 mmHg; 97.5th centile 36.1 in men)",
+    ),
+    # Residents' PaCO2 stays near 30–33 mmHg up to the highest towns (Cusco, 3,350 m: 30.6 mmHg,
+    # Pereira-Victorio CJ et al., Rev Peru Med Exp Salud Publica 2014;31:473); held level.
+    PaCO2Anchor(4500.0, 32.0, 36.1, "held level above 2,800 m (Pereira-Victorio 2014: 30.6)"),
+)
+# Newly arrived visitors: ventilation rises little until the alveolar PO2 falls to about
+# 60 mmHg, near 3,000 m (Rahn H, Otis AB, Am J Physiol 1949;157:445, acute-exposure line; from
+# memory), then PaCO2 falls towards the acclimatised climbers' 13.3 mmHg (range 10.3–15.7) at
+# 8,400 m (Grocott et al. 2009).
+VISITOR_PACO2: tuple[PaCO2Anchor, ...] = (
+    SEA_LEVEL_PACO2,
+    PaCO2Anchor(3000.0, 40.0, 45.0, "Rahn & Otis 1949: little hyperventilation below ~3,000 m"),
+    PaCO2Anchor(8400.0, 13.3, 15.7, "Grocott MPW et al., N Engl J Med 2009;360:140"),
+)
+
+
+@dataclass(frozen=True, slots=True)
+class ExpectedPaCO2:
+    """PaCO2 of healthy people at this barometric pressure (mm[Hg]) and where it comes from."""
+
+    mean_mmhg: float
+    upper_limit_mmhg: float
+    method: str
+
+
+def _interpolate(anchors: tuple[PaCO2Anchor, ...], barometric_mmhg: float) -> ExpectedPaCO2:
+    # Anchors run from high to low pressure (sea level first); outside them, the end value.
+    points = [(a.barometric_mmhg, a) for a in anchors]
+    if barometric_mmhg >= points[0][0]:
+        first = points[0][1]
+        return ExpectedPaCO2(first.mean_mmhg, first.upper_limit_mmhg, first.source)
+    for (high_pb, high), (low_pb, low) in itertools.pairwise(points):
+        if barometric_mmhg >= low_pb:
+            t = (high_pb - barometric_mmhg) / (high_pb - low_pb)
+            return ExpectedPaCO2(
+                high.mean_mmhg + t * (low.mean_mmhg - high.mean_mmhg),
+                high.upper_limit_mmhg + t * (low.upper_limit_mmhg - high.upper_limit_mmhg),
+                f"interpolated between {high.source} and {low.source}",
+            )
+    last = points[-1][1]
+    return ExpectedPaCO2(last.mean_mmhg, last.upper_limit_mmhg, last.source)
+
+
+def expected_paco2(*, barometric_mmhg: float, residence: Residence) -> ExpectedPaCO2:
+    """PaCO2 of healthy people breathing air at this pressure, by residence.
+
+    Linear in barometric pressure between published anchors (``RESIDENT_PACO2``,
+    ``VISITOR_PACO2``); the anchors' altitudes are turned into pressures by West 1996. At or
+    above sea-level pressure: mean 40, upper limit 45 mmHg.
+    """
+    require_possible("barometric_mmhg", barometric_mmhg, *PRESSURE_BAROMETRIC_MMHG, "mm[Hg]")
+    anchors = RESIDENT_PACO2 if residence is Residence.RESIDENT else VISITOR_PACO2
+    return _interpolate(anchors, barometric_mmhg)

@@ -1,0 +1,144 @@
+"""The fall of PaO2 below the healthy reference, split into inspired, ventilation, gas exchange."""
+
+from __future__ import annotations
+
+import pytest
+from hypothesis import given
+from hypothesis import strategies as st
+
+from service.physiology import reference as r
+from service.physiology.deficit import alveolar_bracket, partition_pao2_deficit
+from service.physiology.gas_exchange import alveolar_po2_mmhg
+
+SEA_LEVEL = 760.0
+
+
+def _normal_pao2(age: float, fio2: float, pb: float, paco2: float) -> float:
+    """PaO2 of a healthy lung: the age's a/A ratio at this alveolar PO2 [calc]."""
+    alveolar = alveolar_po2_mmhg(
+        fio2=fio2, paco2_mmhg=paco2, barometric_mmhg=pb, water_vapour_mmhg=47.12
+    )
+    return alveolar * r.expected_a_a_ratio(age_years=age)
+
+
+def test_the_reference_person_has_no_deficit() -> None:
+    pao2 = r.expected_pao2_mmhg(age_years=40.0)
+    d = partition_pao2_deficit(
+        arterial_po2_mmhg=pao2,
+        age_years=40.0,
+        fio2=0.21,
+        barometric_mmhg=SEA_LEVEL,
+        expected_paco2_mmhg=40.0,
+        paco2_mmhg=40.0,
+    )
+    for part in (d.fall, d.inspired, d.ventilation, d.gas_exchange, d.unattributed):
+        assert part == pytest.approx(0.0, abs=0.05)
+    assert d.gross < 0.05
+
+
+def test_pure_hypoventilation_is_all_ventilation() -> None:
+    # Alveolar gas equation (West): PaCO2 70 on air lowers PAO2 by 30 × (0.21 + 0.79/0.8) =
+    # 35.9 mmHg; with the a/A ratio held, PaO2 falls by 35.9 × a/A [calc].
+    age = 34.0
+    pao2 = _normal_pao2(age, 0.21, SEA_LEVEL, 70.0)
+    d = partition_pao2_deficit(
+        arterial_po2_mmhg=pao2,
+        age_years=age,
+        fio2=0.21,
+        barometric_mmhg=SEA_LEVEL,
+        expected_paco2_mmhg=40.0,
+        paco2_mmhg=70.0,
+    )
+    expected = 30.0 * alveolar_bracket(fio2=0.21, respiratory_quotient=0.8)
+    assert d.ventilation == pytest.approx(expected * r.expected_a_a_ratio(age_years=age), abs=0.01)
+    assert d.gas_exchange == pytest.approx(0.0, abs=0.01)
+    assert d.inspired == pytest.approx(0.0, abs=0.01)
+    assert d.share(d.ventilation) == pytest.approx(1.0, abs=1e-3)
+
+
+def test_altitude_with_a_healthy_lung_is_all_inspired() -> None:
+    # A resident at 2,240 m (PB 587.6, West 1996) with the expected PaCO2 there (30.2, Cid-Juárez
+    # 2023) and a normal a/A: the whole fall is the setting's.
+    pao2 = _normal_pao2(50.0, 0.21, 587.6, 30.2)
+    d = partition_pao2_deficit(
+        arterial_po2_mmhg=pao2,
+        age_years=50.0,
+        fio2=0.21,
+        barometric_mmhg=587.6,
+        expected_paco2_mmhg=30.2,
+        paco2_mmhg=30.2,
+    )
+    assert d.fall > 15.0
+    assert d.inspired == pytest.approx(d.fall, abs=0.01)
+    assert d.ventilation == pytest.approx(0.0, abs=0.01)
+    assert d.gas_exchange == pytest.approx(0.0, abs=0.01)
+
+
+def test_oxygen_gives_a_credit_and_hides_a_defect() -> None:
+    # On FiO2 0.6 a PaO2 of 90 is "normal" but the a/A ratio is far below the limit: the
+    # inspired part is a large credit and the gas-exchange part large and positive [calc].
+    d = partition_pao2_deficit(
+        arterial_po2_mmhg=90.0,
+        age_years=60.0,
+        fio2=0.6,
+        barometric_mmhg=SEA_LEVEL,
+        expected_paco2_mmhg=40.0,
+        paco2_mmhg=40.0,
+    )
+    assert d.fall < 0.0
+    assert d.inspired < -200.0
+    assert d.gas_exchange is not None and d.gas_exchange > 200.0
+    assert d.share(d.gas_exchange) == pytest.approx(1.0)
+
+
+def test_without_paco2_the_rest_is_unattributed() -> None:
+    d = partition_pao2_deficit(
+        arterial_po2_mmhg=55.0,
+        age_years=60.0,
+        fio2=0.21,
+        barometric_mmhg=SEA_LEVEL,
+        expected_paco2_mmhg=40.0,
+        paco2_mmhg=None,
+    )
+    assert d.ventilation is None and d.gas_exchange is None
+    assert d.inspired == pytest.approx(0.0, abs=0.01)
+    assert d.unattributed == pytest.approx(d.fall)
+
+
+@given(
+    pao2=st.floats(20.0, 600.0),
+    age=st.floats(18.0, 100.0),
+    fio2=st.floats(0.15, 1.0),
+    pb=st.floats(300.0, 800.0),
+    paco2=st.floats(15.0, 120.0),
+    expected_paco2=st.floats(13.0, 45.0),
+    temperature_ph2o=st.floats(35.0, 60.0),
+)
+def test_the_parts_always_add_up_to_the_fall(
+    pao2: float,
+    age: float,
+    fio2: float,
+    pb: float,
+    paco2: float,
+    expected_paco2: float,
+    temperature_ph2o: float,
+) -> None:
+    alveolar = alveolar_po2_mmhg(
+        fio2=fio2, paco2_mmhg=paco2, barometric_mmhg=pb, water_vapour_mmhg=temperature_ph2o
+    )
+    if alveolar <= 0.0:
+        return
+    d = partition_pao2_deficit(
+        arterial_po2_mmhg=pao2,
+        age_years=age,
+        fio2=fio2,
+        barometric_mmhg=pb,
+        expected_paco2_mmhg=expected_paco2,
+        paco2_mmhg=paco2,
+        water_vapour_mmhg=temperature_ph2o,
+    )
+    assert d.ventilation is not None and d.gas_exchange is not None
+    assert d.inspired + d.ventilation + d.gas_exchange == pytest.approx(d.fall, abs=1e-6)
+    # The gas-exchange part is the A-a gradient above the normal at this PAO2 [calc].
+    normal = alveolar * (1.0 - r.expected_a_a_ratio(age_years=age))
+    assert d.gas_exchange == pytest.approx(alveolar - pao2 - normal, abs=1e-6)
