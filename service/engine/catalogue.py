@@ -25,7 +25,7 @@ __all__ = [
 class FactCatalogue(Mapping[str, FactSpec]):
     """An immutable mapping of fact name to `FactSpec`."""
 
-    __slots__ = ("_booleans", "_codes", "_order", "_ranges", "_specs")
+    __slots__ = ("_booleans", "_codes", "_decimals", "_order", "_ranges", "_specs")
 
     def __init__(self, specs: Iterable[FactSpec]) -> None:
         table: dict[str, FactSpec] = {}
@@ -50,6 +50,9 @@ class FactCatalogue(Mapping[str, FactSpec]):
             and math.isfinite(spec.minimum)
             and math.isfinite(spec.maximum)
         }
+        self._decimals = {
+            n: s.decimals for n, s in table.items() if s.kind is FactKind.QUANTITY
+        }
         self._booleans = frozenset(n for n, s in table.items() if s.kind is FactKind.BOOLEAN)
         self._codes = {n: s.allowed for n, s in table.items() if s.kind is FactKind.CODE}
 
@@ -73,6 +76,21 @@ class FactCatalogue(Mapping[str, FactSpec]):
     def positions(self) -> Mapping[str, int]:
         """`position` of every fact, as a mapping (a sort key without a call per item)."""
         return self._order
+
+    def as_stated(self, facts: Mapping[str, object]) -> dict[str, object]:
+        """The facts with every number rounded to its stated precision (``decimals``).
+
+        Rules compare a value as it is stated, never its binary noise: 6.0 kPa is 45.004 mmHg
+        after conversion and must not cross a "> 45 mmHg" line; a fall from 0.94 to 0.90 is
+        3.9999 points and must meet a "≥ 4 points" one. Rationales show the same rounding.
+        """
+        decimals = self._decimals
+        return {
+            name: round(value, decimals[name])
+            if type(value) is float and name in decimals
+            else value
+            for name, value in facts.items()
+        }
 
     def check(self, facts: Mapping[str, object]) -> None:
         """Raise `FactError` listing every fact that is unknown or breaks its spec.

@@ -102,7 +102,7 @@ _HINTS: dict[str, str] = {
     "condition_shape": "write a mapping with one of all, any, not, ref or fact",
     "threshold": "write a number or {{param: parameter_name}}",
     "leaf_operator": "keep exactly one of lt, le, gt, ge, eq, between, present, is, in",
-    "outcome_shape": "keep exactly one of mechanism, finding, hypoxaemia",
+    "outcome_shape": "keep exactly one of mechanism, finding, hypoxaemia, gas_exchange",
     "outcome_priority": "give an integer priority with a mechanism outcome and with nothing else",
     "semver": 'write the version as MAJOR.MINOR.PATCH in quotes, e.g. "1.2.0"',
     "kebab_id": "use lower-case words joined by hyphens, e.g. shunt-on-high-fio2",

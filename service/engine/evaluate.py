@@ -95,8 +95,9 @@ def evaluate(
     reader refused): like a fired error finding, they make the verdict not classifiable.
     """
     ruleset.catalogue.check(facts)
-    # A private copy: results render text later and must not see the caller's edits.
-    known = dict(facts)
+    # A private copy (results render text later and must not see the caller's edits), with
+    # every number at its stated precision: rules compare values as stated.
+    known: dict[str, FactValue] = ruleset.catalogue.as_stated(facts)  # type: ignore[assignment]
     states = tuple([test(known) for test in ruleset.leaf_tests])
     rule_states = [truth(states) for truth in ruleset.rule_truths]
     results = _Results(

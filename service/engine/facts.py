@@ -43,7 +43,8 @@ class FactSpec:
 
     `minimum`/`maximum` bound what the engine accepts (physically possible values, not a
     reference interval); they are None for booleans and codes. `allowed` lists the codes
-    of a code fact. `decimals` is the display precision in rationales. `inputs` names,
+    of a code fact. `decimals` is the precision a value is stated at: rules compare it, and
+    rationales show it, rounded to that many decimals. `inputs` names,
     for a derived fact, the facts without which it cannot be computed; the verdict uses
     them to ask for the measurement that is really missing rather than for a derived
     number nobody can supply directly.

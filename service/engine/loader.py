@@ -25,6 +25,7 @@ from service.engine.rule_checks import discriminator_problems, priority_problems
 from service.engine.ruleset import (
     Discriminator,
     FindingOutcome,
+    GasExchangeOutcome,
     HypoxaemiaOutcome,
     MechanismOutcome,
     Outcome,
@@ -33,7 +34,7 @@ from service.engine.ruleset import (
     RuleSet,
 )
 from service.engine.schema import ManifestModel, OutcomeModel, RuleModel
-from service.engine.vocabulary import Grade, HypoxaemiaStatus, RuleStatus
+from service.engine.vocabulary import GasExchangeStatus, Grade, HypoxaemiaStatus, RuleStatus
 
 __all__ = ["build_ruleset", "content_hash", "load_ruleset", "read_directory"]
 
@@ -121,6 +122,8 @@ def _outcome(model: OutcomeModel) -> Outcome:
         return MechanismOutcome(model.mechanism.code, Grade(model.mechanism.grade), model.priority)
     if model.finding is not None:
         return FindingOutcome(model.finding.code, model.finding.severity)
+    if model.gas_exchange is not None:
+        return GasExchangeOutcome(GasExchangeStatus(model.gas_exchange))
     assert model.hypoxaemia is not None  # the schema requires exactly one kind
     return HypoxaemiaOutcome(HypoxaemiaStatus(model.hypoxaemia))
 

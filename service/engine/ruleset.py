@@ -15,6 +15,7 @@ from service.engine.parameters import Parameter
 from service.engine.rationale import Template
 from service.engine.vocabulary import (
     FindingCode,
+    GasExchangeStatus,
     Grade,
     HypoxaemiaStatus,
     Mechanism,
@@ -25,6 +26,7 @@ from service.engine.vocabulary import (
 __all__ = [
     "Discriminator",
     "FindingOutcome",
+    "GasExchangeOutcome",
     "HypoxaemiaOutcome",
     "MechanismOutcome",
     "Outcome",
@@ -59,7 +61,14 @@ class HypoxaemiaOutcome:
     status: HypoxaemiaStatus
 
 
-Outcome = MechanismOutcome | FindingOutcome | HypoxaemiaOutcome
+@dataclass(frozen=True, slots=True)
+class GasExchangeOutcome:
+    """The rule states whether gas exchange is abnormal (a defect) or normal for age."""
+
+    status: GasExchangeStatus
+
+
+Outcome = MechanismOutcome | FindingOutcome | HypoxaemiaOutcome | GasExchangeOutcome
 
 
 @dataclass(frozen=True, slots=True)
@@ -121,6 +130,8 @@ class VerdictPlan:
     findings: tuple[tuple[int, FindingOutcome], ...]
     hypoxaemia: tuple[tuple[int, HypoxaemiaOutcome, str], ...]
     """Rules that state hypoxaemia present or absent, each with its `ref`."""
+    gas_exchange: tuple[tuple[int, GasExchangeOutcome, str], ...] = ()
+    """Rules that state gas exchange abnormal or normal, each with its `ref`."""
 
     @classmethod
     def of(cls, rules: Sequence[Rule]) -> "VerdictPlan":
@@ -130,6 +141,7 @@ class VerdictPlan:
         }
         findings: list[tuple[int, FindingOutcome]] = []
         hypoxaemia: list[tuple[int, HypoxaemiaOutcome, str]] = []
+        gas_exchange: list[tuple[int, GasExchangeOutcome, str]] = []
         for position, rule in enumerate(rules):
             if rule.shadow:
                 continue
@@ -138,12 +150,15 @@ class VerdictPlan:
                 grading[outcome.mechanism].append((position, outcome))
             elif isinstance(outcome, FindingOutcome):
                 findings.append((position, outcome))
+            elif isinstance(outcome, GasExchangeOutcome):
+                gas_exchange.append((position, outcome, rule.ref))
             else:
                 hypoxaemia.append((position, outcome, rule.ref))
         return cls(
             tuple((mechanism, tuple(found)) for mechanism, found in grading.items()),
             tuple(findings),
             tuple(hypoxaemia),
+            tuple(gas_exchange),
         )
 
 

@@ -260,7 +260,7 @@ class MechanismModel(_Strict):
     """`mechanism: {code, grade}`."""
 
     code: Mechanism
-    grade: Literal["likely", "possible", "unlikely"]
+    grade: Literal["likely", "possible", "unlikely", "not-assessable"]
 
 
 class FindingModel(_Strict):
@@ -271,19 +271,22 @@ class FindingModel(_Strict):
 
 
 class OutcomeModel(_Strict):
-    """Exactly one of `mechanism` (with `priority`), `finding` or `hypoxaemia`."""
+    """Exactly one of `mechanism` (with `priority`), `finding`, `hypoxaemia` or
+    `gas_exchange`."""
 
     mechanism: MechanismModel | None = None
     priority: StrictInt | None = None
     finding: FindingModel | None = None
     hypoxaemia: Literal["present", "absent"] | None = None
+    gas_exchange: Literal["defect", "normal"] | None = None
 
     @model_validator(mode="after")
     def _one_kind(self) -> "OutcomeModel":
-        kinds = [self.mechanism, self.finding, self.hypoxaemia]
+        kinds = [self.mechanism, self.finding, self.hypoxaemia, self.gas_exchange]
         if sum(kind is not None for kind in kinds) != 1:
             raise PydanticCustomError(
-                "outcome_shape", "an outcome needs exactly one of mechanism, finding, hypoxaemia"
+                "outcome_shape",
+                "an outcome needs exactly one of mechanism, finding, hypoxaemia, gas_exchange",
             )
         if (self.mechanism is None) != (self.priority is None):
             raise PydanticCustomError(

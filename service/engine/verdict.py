@@ -4,13 +4,18 @@ Only active rules count; `testing` rules are shadow-evaluated and reported only.
 
 * Each mechanism takes the grade of the fired rule with the lowest priority. Rules that
   tie at that priority agree on the grade (the loader guarantees it) and are listed
-  together. A mechanism no rule fired for is `not-assessable`.
+  together. A rule may itself grade `not-assessable` (saying why in its rationale); a
+  mechanism no rule fired for is `not-assessable` too, naming the missing facts.
 * Hypoxaemia is `present` if a fired rule says so, else `absent` if one says that, else
-  `unknown`. Present wins a conflict because wrongly reassuring is the worse error.
+  `unknown`. Present wins a conflict because wrongly reassuring is the worse error. Gas
+  exchange is decided the same way: `defect` wins over `normal`.
 * The pattern is `not-classifiable` when an error finding fired or neither
   `arterial_po2` nor `spo2` is known; then no grade may stay `likely`: it is demoted to
   `possible` and its rationale says why. Otherwise `no-hypoxaemia` when hypoxaemia is
-  absent, `single` with one likely mechanism, `mixed` with more, else `indeterminate`.
+  absent and nothing is likely; `single` when one mechanism is likely and it explains the
+  gas exchange too (it is a gas-exchange mechanism, or gas exchange is normal); `mixed`
+  when two or more are likely, or one beside a gas-exchange defect (or a gas exchange that
+  could not be judged) whose type is still open; else `indeterminate`.
 * Data requested joins the discriminator requests of `possible` grades (known or not:
   they ask for a new value) and, for each `not-assessable` mechanism, the missing facts
   that keep its unknown rules undecided. A missing derived fact is replaced by its
@@ -18,7 +23,7 @@ Only active rules count; `testing` rules are shadow-evaluated and reported only.
 """
 
 from collections.abc import Callable, Mapping, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 from service.engine.catalogue import FactCatalogue
 from service.engine.data_requests import DataRequest, DataRequests
@@ -28,6 +33,7 @@ from service.engine.results import RuleResult
 from service.engine.ruleset import Discriminator, MechanismOutcome, VerdictPlan
 from service.engine.vocabulary import (
     FindingCode,
+    GasExchangeStatus,
     Grade,
     HypoxaemiaStatus,
     Mechanism,
@@ -36,6 +42,7 @@ from service.engine.vocabulary import (
 )
 
 __all__ = [
+    "GAS_EXCHANGE_MECHANISMS",
     "OXYGENATION_FACTS",
     "REPEAT_SAMPLE",
     "SEVERITY_RANK",
@@ -69,6 +76,11 @@ _MECHANISMS = tuple(Mechanism)
 _TRUTH_VALUE: dict[Truth, TruthValue] = {Truth.TRUE: True, Truth.FALSE: False, Truth.UNKNOWN: None}
 _LIKELY, _POSSIBLE, _NOT_ASSESSABLE = Grade.LIKELY, Grade.POSSIBLE, Grade.NOT_ASSESSABLE
 _PRESENT, _ABSENT = HypoxaemiaStatus.PRESENT, HypoxaemiaStatus.ABSENT
+_DEFECT, _NORMAL = GasExchangeStatus.DEFECT, GasExchangeStatus.NORMAL
+GAS_EXCHANGE_MECHANISMS = frozenset(
+    {Mechanism.VQ_MISMATCH, Mechanism.SHUNT, Mechanism.DIFFUSION_LIMITATION}
+)
+"""Mechanisms that themselves explain a gas-exchange defect (a raised A-a gradient)."""
 _ERROR = Severity.ERROR
 
 
@@ -86,6 +98,11 @@ class MechanismAssessment:
     """Why a `likely` grade was lowered to `possible`, if it was."""
     undecided: tuple[str, ...] = ()
     """When not assessable: the missing facts that kept this mechanism's rules unknown."""
+    uncertain_because: str | None = None
+    """When the grade differs across the range of an uncertain input (see `scenarios`): the
+    sentence saying so; the grade is then `possible`."""
+    settled_by: tuple[Discriminator, ...] = ()
+    """What would settle an uncertainty named in `uncertain_because`."""
 
     @property
     def rules(self) -> tuple[str, ...]:
@@ -106,7 +123,9 @@ class MechanismAssessment:
     def rationales(self) -> tuple[str, ...]:
         """The deciding rules' rationales, plus a sentence on any demotion; for a mechanism
         no rule decided, what was missing."""
-        if self.grade is _NOT_ASSESSABLE:
+        if self.uncertain_because is not None:
+            return (self.uncertain_because,)
+        if self.grade is _NOT_ASSESSABLE and not self.deciding:
             if self.undecided:
                 return ("Not assessable: missing " + ", ".join(self.undecided),)
             return ("Not assessable: no rule applied to these data",)
@@ -124,6 +143,8 @@ class MechanismAssessment:
         demoted on untrusted data, trusted data (``REPEAT_SAMPLE``)."""
         if self.demoted_because is not None:
             return (REPEAT_SAMPLE,)
+        if self.uncertain_because is not None:
+            return self.settled_by
         found = (result.rule.discriminator for result in self.deciding)
         return tuple(dict.fromkeys(item for item in found if item is not None))
 
@@ -161,6 +182,8 @@ class Verdict:
     """Fired findings, errors first."""
     data_requested: tuple[DataRequest, ...]
     """In catalogue order."""
+    gas_exchange: GasExchangeStatus = GasExchangeStatus.UNKNOWN
+    gas_exchange_rules: tuple[str, ...] = ()
 
     def assessment(self, mechanism: Mechanism) -> MechanismAssessment:
         """The assessment of one mechanism."""
@@ -193,6 +216,17 @@ def _assess(
     return MechanismAssessment(mechanism, grade, deciding, losing)
 
 
+def _stated(
+    rules: Sequence[tuple[int, object, str]], states: Sequence[TruthValue]
+) -> dict[object, list[str]]:
+    """What fired rules of one kind (hypoxaemia, gas exchange) state, with their refs."""
+    said: dict[object, list[str]] = {}
+    for position, stated, ref in rules:
+        if states[position] is True:
+            said.setdefault(stated.status, []).append(ref)  # type: ignore[attr-defined]
+    return said
+
+
 # Not assessable carries nothing of an evaluation: one immutable answer per mechanism.
 _UNASSESSED = {
     mechanism: MechanismAssessment(mechanism, _NOT_ASSESSABLE) for mechanism in _MECHANISMS
@@ -202,18 +236,33 @@ _UNASSESSED = {
 def _pattern(
     demotion: str | None,
     hypoxaemia: HypoxaemiaStatus,
+    gas_exchange: GasExchangeStatus,
     mechanisms: Sequence[MechanismAssessment],
 ) -> tuple[Pattern, str]:
     if demotion is not None:
         return Pattern.NOT_CLASSIFIABLE, demotion
-    if hypoxaemia is HypoxaemiaStatus.ABSENT:
-        return Pattern.NO_HYPOXAEMIA, "hypoxaemia is absent"
-    likely = [item.mechanism.value for item in mechanisms if item.grade is _LIKELY]
-    if len(likely) == 1:
-        return Pattern.SINGLE, f"one mechanism is likely: {likely[0]}"
-    if likely:
-        return Pattern.MIXED, f"{len(likely)} mechanisms are likely: {', '.join(likely)}"
-    return Pattern.INDETERMINATE, "no mechanism is likely"
+    likely = [item.mechanism for item in mechanisms if item.grade is _LIKELY]
+    if not likely:
+        if hypoxaemia is _ABSENT:
+            return Pattern.NO_HYPOXAEMIA, "hypoxaemia is absent"
+        return Pattern.INDETERMINATE, "no mechanism is likely"
+    names = ", ".join(m.value for m in likely)
+    if len(likely) > 1:
+        return Pattern.MIXED, f"{len(likely)} mechanisms are likely: {names}"
+    if likely[0] in GAS_EXCHANGE_MECHANISMS or gas_exchange is _NORMAL:
+        return Pattern.SINGLE, f"one mechanism is likely: {names}"
+    open_types = [
+        item.mechanism.value
+        for item in mechanisms
+        if item.mechanism in GAS_EXCHANGE_MECHANISMS and item.grade is _POSSIBLE
+    ]
+    which = f" ({' or '.join(open_types)} possible)" if open_types else ""
+    if gas_exchange is _DEFECT:
+        return Pattern.MIXED, f"{names} is likely beside a gas-exchange defect of open type{which}"
+    return (
+        Pattern.MIXED,
+        f"{names} is likely; gas exchange could not be judged, so a second cause is open{which}",
+    )
 
 
 def _finding_order(item: FindingResult) -> tuple[int, str, str]:
@@ -305,16 +354,20 @@ def decide_states(
     ]
     if len(findings) > 1:
         findings.sort(key=_finding_order)
-    said: dict[HypoxaemiaStatus, list[str]] = {}
-    for position, stated, ref in plan.hypoxaemia:
-        if states[position] is True:
-            said.setdefault(stated.status, []).append(ref)
+    said = _stated(plan.hypoxaemia, states)
     if _PRESENT in said:
         hypoxaemia = _PRESENT
     elif _ABSENT in said:
         hypoxaemia = _ABSENT
     else:
         hypoxaemia = HypoxaemiaStatus.UNKNOWN
+    exchange_said = _stated(plan.gas_exchange, states)
+    if _DEFECT in exchange_said:
+        gas_exchange = _DEFECT
+    elif _NORMAL in exchange_said:
+        gas_exchange = _NORMAL
+    else:
+        gas_exchange = GasExchangeStatus.UNKNOWN
     demotion = _demotion(findings, facts, input_errors)
     requests = DataRequests(facts, catalogue)
     mechanisms: list[MechanismAssessment] = []
@@ -324,10 +377,14 @@ def decide_states(
             mechanisms.append(_unassessed(mechanism, grading, states, result_of, requests))
             continue
         assessment = _assess(mechanism, fired, result_of, demotion)
+        if assessment.grade is _NOT_ASSESSABLE:
+            # A rule said why the data cannot speak; still ask for what would let them.
+            missing = _unassessed(mechanism, grading, states, result_of, requests)
+            assessment = replace(assessment, undecided=missing.undecided)
         mechanisms.append(assessment)
         if assessment.grade is _POSSIBLE:
             _ask_discriminators(assessment, requests)
-    pattern, reason = _pattern(demotion, hypoxaemia, mechanisms)
+    pattern, reason = _pattern(demotion, hypoxaemia, gas_exchange, mechanisms)
     if pattern is Pattern.NOT_CLASSIFIABLE and requests.empty:
         for fact in REPEAT_SAMPLE.requests:
             requests.ask(fact, "", even_if_known=True)  # asked by the verdict itself
@@ -339,4 +396,6 @@ def decide_states(
         mechanisms=tuple(mechanisms),
         findings=tuple(findings),
         data_requested=requests.collected(),
+        gas_exchange=gas_exchange,
+        gas_exchange_rules=tuple(exchange_said.get(gas_exchange, ())),
     )

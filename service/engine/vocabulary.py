@@ -10,6 +10,7 @@ from enum import StrEnum
 
 __all__ = [
     "FindingCode",
+    "GasExchangeStatus",
     "Grade",
     "HypoxaemiaStatus",
     "Mechanism",
@@ -32,8 +33,9 @@ class Mechanism(StrEnum):
 class Grade(StrEnum):
     """How strongly the data support one mechanism.
 
-    Rules may only emit `likely`, `possible` and `unlikely`; `not-assessable` is what the
-    verdict reports when no rule about the mechanism fired.
+    A rule may emit any of them; `not-assessable` from a rule says why the data cannot speak
+    (its rationale). A mechanism no rule decided is also `not-assessable`, naming what was
+    missing.
     """
 
     LIKELY = "likely"
@@ -68,6 +70,14 @@ class HypoxaemiaStatus(StrEnum):
     UNKNOWN = "unknown"
 
 
+class GasExchangeStatus(StrEnum):
+    """Whether gas exchange is abnormal for age; rules may assert `defect` or `normal` only."""
+
+    DEFECT = "defect"
+    NORMAL = "normal"
+    UNKNOWN = "unknown"
+
+
 class RuleStatus(StrEnum):
     """Lifecycle of a rule file: draft → testing → active → retired.
 
@@ -96,6 +106,9 @@ class FindingCode(StrEnum):
     OCCULT_HYPOXAEMIA = "occult-hypoxaemia"
     DYSHAEMOGLOBIN = "dyshaemoglobin"
     ACID_BASE_INCONSISTENT = "acid-base-inconsistent"
+    ACID_BASE_IMPOSSIBLE = "acid-base-impossible"
+    PROBABLE_UNIT_SLIP = "probable-unit-slip"
+    FIO2_ESTIMATE_RAISED_BY_PAO2 = "fio2-estimate-raised-by-pao2"
     FIO2_MISSING = "fio2-missing"
     FIO2_ESTIMATED_FROM_FLOW = "fio2-estimated-from-flow"
     FIO2_TIME_MISMATCH = "fio2-time-mismatch"
@@ -111,6 +124,14 @@ class FindingCode(StrEnum):
     HYPOXAEMIA_MODERATE = "hypoxaemia-moderate"
     HYPOXAEMIA_SEVERE = "hypoxaemia-severe"
     GAS_EXCHANGE_DEFECT_ON_OXYGEN = "gas-exchange-defect-on-oxygen"
+    OXYGEN_MASKS_GAS_EXCHANGE_DEFECT = "oxygen-masks-gas-exchange-defect"
+    OXYGEN_MASKS_HYPERCAPNIA = "oxygen-masks-hypercapnia"
+    HYPERCAPNIA = "hypercapnia"
+    SPO2_ABOVE_TARGET_BAND = "spo2-above-target-band"
+    SPO2_BELOW_TARGET_BAND = "spo2-below-target-band"
+    EXERTIONAL_DESATURATION = "exertional-desaturation"
+    METABOLIC_ALKALOSIS_COMPENSATION = "metabolic-alkalosis-compensation"
+    RESPIRATORY_COMPENSATION_INADEQUATE = "respiratory-compensation-inadequate"
     NORMAL_FOR_ALTITUDE = "normal-for-altitude"
     LOW_MIXED_VENOUS_OXYGEN = "low-mixed-venous-oxygen"
     ACUTE_RESPIRATORY_ACIDOSIS = "acute-respiratory-acidosis"

@@ -5,17 +5,18 @@ at 37 °C: expected PaO2 = reference PAO2 − expected A-a gradient for age (``r
 The patient's PaO2 = PAO2 − A-a. Subtracting, the fall from the expected PaO2 splits exactly
 into three parts, each in mm[Hg] of PaO2:
 
-* **inspired** — what the setting does to a healthy lung: the inspired PO2 (altitude, FiO2,
-  body temperature), the PaCO2 expected there (residents of high places breathe more), and the
-  widening of the normal A-a gradient that comes with a higher alveolar PO2:
+* **inspired** — what the setting does to a healthy lung: the inspired PO2 (altitude, FiO2),
+  the PaCO2 expected there (residents of high places breathe more), and the change of the
+  normal A-a gradient with the alveolar PO2 (``reference.normal_aa_gradient``):
 
-      (PIO2_ref − PIO2) + (PaCO2_expected × k − 40 × k_ref) + (A-a_normal − A-a_normal,ref)
+      (PIO2_ref − PIO2) + (PaCO2_expected × k − 40 × k_ref) + (A-a_normal(PAO2_setting) − A-a_normal,ref)
 
   Negative on supplemental oxygen: an oxygen credit.
 * **ventilation** — PaCO2 above (or, negative, below) the value expected for the setting,
-  through the alveolar gas equation: (PaCO2 − PaCO2_expected) × k.
-* **gas exchange** — the A-a gradient above the normal for age at this FiO2 and PAO2:
-  A-a − A-a_normal, where A-a_normal = PAO2 × (1 − expected a/A for age).
+  through the alveolar gas equation, (PaCO2 − PaCO2_expected) × k, with the change of the
+  normal A-a gradient that the lower alveolar PO2 brings.
+* **gas exchange** — the A-a gradient above the normal for age at this alveolar PO2:
+  A-a − A-a_normal(PAO2).
 
 with k = FiO2 + (1 − FiO2)/R, the bracket of the full alveolar gas equation (West,
 Respiratory Physiology; Riley–Fenn form). By construction inspired + ventilation + gas
@@ -100,15 +101,20 @@ def partition_pao2_deficit(
     ph2o = ph2o_37 if water_vapour_mmhg is None else water_vapour_mmhg
     expected = reference.expected_pao2_mmhg(age_years=age_years)
     ref_alveolar = reference.reference_alveolar_po2_mmhg(respiratory_quotient=r)
-    normal_ratio = expected / ref_alveolar
     ref_pio2 = inspired_po2_mmhg(
         fio2=c.ROOM_AIR_FIO2, barometric_mmhg=c.SEA_LEVEL_PRESSURE_MMHG, water_vapour_mmhg=ph2o_37
     )
     pio2 = inspired_po2_mmhg(fio2=fio2, barometric_mmhg=barometric_mmhg, water_vapour_mmhg=ph2o)
     k = alveolar_bracket(fio2=fio2, respiratory_quotient=r)
     k_ref = alveolar_bracket(fio2=c.ROOM_AIR_FIO2, respiratory_quotient=r)
+
+    def normal(alveolar: float) -> float:
+        return reference.normal_aa_gradient(
+            age_years=age_years, alveolar_po2_mmhg=alveolar, respiratory_quotient=r
+        ).expected
+
     # The alveolar PO2 this person would have at the PaCO2 expected here, and the normal A-a
-    # gradient that goes with it (the a/A ratio for age).
+    # gradient that goes with it.
     setting_alveolar = alveolar_po2_mmhg(
         fio2=fio2,
         paco2_mmhg=expected_paco2_mmhg,
@@ -116,7 +122,7 @@ def partition_pao2_deficit(
         water_vapour_mmhg=ph2o,
         respiratory_quotient=r,
     )
-    setting_normal_aa = max(setting_alveolar, 0.0) * (1.0 - normal_ratio)
+    setting_normal_aa = normal(setting_alveolar)
     inspired = (
         (ref_pio2 - pio2)
         + (expected_paco2_mmhg * k - reference.REFERENCE_PACO2_MMHG * k_ref)
@@ -139,10 +145,9 @@ def partition_pao2_deficit(
         water_vapour_mmhg=ph2o,
         respiratory_quotient=r,
     )
-    normal_aa = max(alveolar, 0.0) * (1.0 - normal_ratio)
+    normal_aa = normal(alveolar)
     # A PaCO2 away from the expected value moves the alveolar PO2 by ΔPaCO2 × k, and the
-    # normal A-a gradient with it (the a/A ratio holds): ventilation takes both, so that the
-    # three parts add up exactly (= ΔPaCO2 × k × expected a/A).
+    # normal A-a gradient with it: ventilation takes both, so that the parts add up exactly.
     ventilation = (paco2_mmhg - expected_paco2_mmhg) * k + (normal_aa - setting_normal_aa)
     gas_exchange = (alveolar - arterial_po2_mmhg) - normal_aa
     return DeficitPartition(

@@ -8,17 +8,22 @@ Three references, each from published data on healthy subjects:
   75 years and over, no dependence on age, BMI or PaCO2: mean 83.4 mmHg, 5th centile 68.4.
   The lower limit is the 5th centile (mean − 1.645 SEE below 75). Below 40 years the
   regression is extrapolated (said so in the method text); below 18 the age-18 value is used.
-* **The a/A ratio** (PaO2 / PAO2) that this PaO2 implies at the sea-level room-air alveolar
-  PO2. The a/A ratio changes little with FiO2 (Gilbert R, Keighley JF, Am Rev Respir Dis
-  1974;110:142, from memory for volume and page), so the same ratio gives the normal — and the
-  upper limit of the A-a gradient — at any FiO2, barometric pressure and PaCO2: A-a limit =
-  PAO2 × (1 − a/A lower limit). At sea level on room air with PaCO2 40 it is exactly the
-  room-air A-a limit for age. The normal A-a gradient indeed widens with FiO2 (48 (31–60)
-  mmHg in young and 93 (60–108) mmHg in middle-aged men on 100 % oxygen, against 4 and 23 on
-  air: "Gas exchange in two male age groups…", Upsala J Med Sci) and narrows at altitude
-  (Grocott MPW et al., N Engl J Med 2009;360:140: A-a 5.4 mmHg at 8,400 m).
+* **The normal A-a gradient at any alveolar PO2.** On room air at sea level it is the
+  reference alveolar PO2 (101.8 mmHg) minus the PaO2 reference: expected and upper limit for
+  age. At a lower alveolar PO2 (altitude, hypoventilation) the gradient narrows in proportion
+  — the a/A ratio holds (healthy subjects in controlled hypoxia, J Lab Clin Med
+  1984;104:685; Grocott MPW et al., N Engl J Med 2009;360:140: A-a 5.4 mmHg at 8,400 m). On
+  supplemental oxygen it widens, because a small true shunt then shows through the dissolved
+  oxygen: it rises with the alveolar PO2 up to about 174 mmHg and stays there (12 healthy men
+  at six alveolar PO2s from air to pure oxygen, Scand J Clin Lab Invest abstract; authors not
+  retrieved), at 48 (31–60) mmHg in young and 93 (60–108) mmHg in middle-aged men on 100 %
+  oxygen ("Gas exchange in two male age groups in relation to inspiratory oxygen fraction…",
+  Upsala J Med Sci). Between 101.8 and 174 mmHg the normal is interpolated linearly; the
+  oxygen plateau is a line in age through the two groups (25 and 50 years), held beyond 50.
 * **PaCO2 for the altitude**, for residents and for newly arrived visitors (see
   ``expected_paco2``).
+
+An a/A ratio is also reported: its lower limit at this alveolar PO2 is 1 − upper limit / PAO2.
 
 Everything is in mm[Hg]; FiO2 and ratios are fractions.
 """
@@ -116,38 +121,66 @@ def reference_alveolar_po2_mmhg(
     )
 
 
-def expected_a_a_ratio(
-    *, age_years: float, respiratory_quotient: float = c.DEFAULT_RESPIRATORY_QUOTIENT
-) -> float:
-    """The a/A ratio of a healthy person of this age: expected PaO2 / reference PAO2."""
-    return expected_pao2_mmhg(age_years=age_years) / reference_alveolar_po2_mmhg(
-        respiratory_quotient=respiratory_quotient
-    )
+# Normal A-a gradient on supplemental oxygen (the plateau): Upsala J Med Sci, two male age
+# groups on 100 % oxygen, mean (range): 48 (31–60) mmHg at mean age 25, 93 (60–108) at 50.
+OXYGEN_PLATEAU_AGES = (25.0, 50.0)
+OXYGEN_PLATEAU_MEAN_MMHG = (48.0, 93.0)
+OXYGEN_PLATEAU_UPPER_MMHG = (60.0, 108.0)
+# The gradient reaches its plateau at an alveolar PO2 of about 174 mmHg (12 healthy men).
+OXYGEN_PLATEAU_FROM_ALVEOLAR_MMHG = 174.0
 
 
-def a_a_ratio_lower_limit(
-    *, age_years: float, respiratory_quotient: float = c.DEFAULT_RESPIRATORY_QUOTIENT
-) -> float:
-    """Lower limit of the a/A ratio for age: PaO2 lower limit / reference PAO2.
+@dataclass(frozen=True, slots=True)
+class NormalGradient:
+    """The A-a gradient of a healthy person of this age at this alveolar PO2 (mm[Hg])."""
 
-    Below it, gas exchange is abnormal at any FiO2 (the a/A ratio's stability across FiO2:
-    Gilbert & Keighley 1974).
+    expected: float
+    upper_limit: float
+
+
+def _plateau(age_years: float, values: tuple[float, float]) -> float:
+    # A line through the two groups, not extrapolated past the older one (held from 50).
+    (young_age, old_age), (young, old) = OXYGEN_PLATEAU_AGES, values
+    age = min(_reference_age(age_years), old_age)
+    return young + (old - young) * (age - young_age) / (old_age - young_age)
+
+
+def normal_aa_gradient(
+    *,
+    age_years: float,
+    alveolar_po2_mmhg: float,
+    respiratory_quotient: float = c.DEFAULT_RESPIRATORY_QUOTIENT,
+) -> NormalGradient:
+    """The normal A-a gradient, expected and upper limit, for age at this alveolar PO2.
+
+    At or below the reference alveolar PO2 (sea level, air, PaCO2 40): the room-air values
+    scaled by PAO2 / PAO2_ref (the a/A ratio holds). At or above 174 mmHg: the oxygen plateau.
+    In between, linear in PAO2. See the module docstring for the sources.
     """
-    return pao2_lower_limit_mmhg(age_years=age_years) / reference_alveolar_po2_mmhg(
-        respiratory_quotient=respiratory_quotient
+    reference_pao2 = reference_alveolar_po2_mmhg(respiratory_quotient=respiratory_quotient)
+    air_expected = reference_pao2 - expected_pao2_mmhg(age_years=age_years)
+    air_upper = reference_pao2 - pao2_lower_limit_mmhg(age_years=age_years)
+    alveolar = max(alveolar_po2_mmhg, 0.0)
+    if alveolar <= reference_pao2:
+        scale = alveolar / reference_pao2
+        return NormalGradient(air_expected * scale, air_upper * scale)
+    oxygen_expected = _plateau(age_years, OXYGEN_PLATEAU_MEAN_MMHG)
+    oxygen_upper = _plateau(age_years, OXYGEN_PLATEAU_UPPER_MMHG)
+    t = min(
+        (alveolar - reference_pao2) / (OXYGEN_PLATEAU_FROM_ALVEOLAR_MMHG - reference_pao2), 1.0
     )
-
-
-def aa_gradient_for_ratio_mmhg(*, alveolar_po2_mmhg: float, a_a_ratio: float) -> float:
-    """The A-a gradient that an a/A ratio means at this alveolar PO2: PAO2 × (1 − a/A)."""
-    return alveolar_po2_mmhg * (1.0 - a_a_ratio)
+    return NormalGradient(
+        air_expected + t * (oxygen_expected - air_expected),
+        air_upper + t * (oxygen_upper - air_upper),
+    )
 
 
 def projected_pao2_mmhg(*, a_a_ratio: float, alveolar_po2_mmhg: float) -> float:
     """PaO2 expected at another alveolar PO2 (e.g. on room air) if the a/A ratio holds.
 
-    The a/A ratio's published use: predicting the PaO2 after a change of FiO2 (Gilbert &
-    Keighley 1974). An estimate: true shunt makes the ratio fall as FiO2 rises.
+    The a/A ratio's published use: predicting the PaO2 after a change of FiO2 (Gilbert R,
+    Keighley JF, Am Rev Respir Dis 1974, from memory). An estimate: true shunt makes the ratio
+    fall as FiO2 rises.
     """
     return a_a_ratio * max(alveolar_po2_mmhg, 0.0)
 
@@ -189,16 +222,11 @@ RESIDENT_PACO2: tuple[PaCO2Anchor, ...] = (
         30.2 + LOWER_LIMIT_Z * 3.4,
         "Cid-Juárez S et al., Rev Invest Clin 2023 (Mexico City, 217 healthy adults: 30.2 ± 3.4)",
     ),
-    PaCO2Anchor(
-        2800.0,
-        32.0,
-        36.1,
-        "Moina Veloz AP et al., Univ Med Pinareña 2023 (Quito, 264 healthy adults: men 32.5, "
-        "women 31.5 mmHg; 97.5th centile 36.1 in men)",
-    ),
-    # Residents' PaCO2 stays near 30–33 mmHg up to the highest towns (Cusco, 3,350 m: 30.6 mmHg,
-    # Pereira-Victorio CJ et al., Rev Peru Med Exp Salud Publica 2014;31:473); held level.
-    PaCO2Anchor(4500.0, 32.0, 36.1, "held level above 2,800 m (Pereira-Victorio 2014: 30.6)"),
+    # Residents higher up run about the same: Quito (2,800 m) men 32.5, women 31.5, 97.5th
+    # centile 36.1 mmHg (Moina Veloz AP et al., Univ Med Pinareña 2023); Cusco (3,350 m) 30.6
+    # (Pereira-Victorio CJ et al., Rev Peru Med Exp Salud Publica 2014;31:473).
+    PaCO2Anchor(3350.0, 30.6, 36.1, "Pereira-Victorio 2014 (Cusco) and Moina Veloz 2023 (Quito)"),
+    PaCO2Anchor(4500.0, 30.6, 36.1, "held level to the highest towns"),
 )
 # Newly arrived visitors: ventilation rises little until the alveolar PO2 falls to about
 # 60 mmHg, near 3,000 m (Rahn H, Otis AB, Am J Physiol 1949;157:445, acute-exposure line; from
