@@ -72,6 +72,7 @@ MIN_END_CAPILLARY_PO2_MMHG = 5.0
 
 _NEWTON_TOLERANCE = 1e-12  # relative to the content: PaO2 within 1e-8 mmHg
 _NEWTON_MAX_STEPS = 60
+_FLAT_SATURATION = 0.97  # above it, Newton runs on PO2 rather than on saturation
 
 
 @dataclass(frozen=True, slots=True)
@@ -244,18 +245,23 @@ def _po2_from_content(
 ) -> float:
     """The PO2 in (0, upper] at which k Hb S(PO2) + 0.003 PO2 = content.
 
-    Newton's method on the saturation u rather than on PO2: f(u) = k Hb u + 0.003 PO2(u) −
-    content is nearly linear where the curve is steep and convex where it is flat (PO2(u), the
-    curve's inverse, rises ever faster towards u = 1), so started to the right of the root —
-    at min(content / k Hb, S(upper)), since dissolved oxygen is never negative — the iterates
-    fall monotonically onto it. On PO2 itself Newton crawls along the flat part of the curve
-    (the slope there drops a hundredfold); here 2 to 4 steps reach 1e-12 of the content.
+    Newton's method, on whichever variable makes the equation nearly straight. Where the
+    saturation to find is below 0.97 (the steep part of the curve) it runs on the saturation
+    u: f(u) = k Hb u + 0.003 PO2(u) − content is nearly linear there and convex towards u = 1,
+    so started to the right of the root — at content / k Hb, since dissolved oxygen is never
+    negative — the iterates fall monotonically onto it. On the flat part it runs on PO2
+    itself, where f is nearly linear in PO2 (dissolved oxygen dominates its slope) and
+    concave, so the iterates approach monotonically after at most one step past the root.
+    (Newton on PO2 alone crawls on the steep-to-flat shoulder, where its slope drops a
+    hundredfold; on u alone it crawls on the flat part.) Two to four steps reach 1e-12 of the
+    content.
     """
     if kh * s_upper + alpha * upper - content <= 0.0:
         return upper
-    u = min(content / kh, s_upper)
-    if u >= 1.0:
-        u = s_upper
+    guess = content / kh
+    if guess >= _FLAT_SATURATION and s_upper >= _FLAT_SATURATION:
+        return _po2_from_content_flat(content, kh, alpha, scale, upper)
+    u = min(guess, s_upper)
     low = 0.0
     p_std = standard_po2(u) if u > 0.0 else 0.0
     for _ in range(_NEWTON_MAX_STEPS):
@@ -275,6 +281,33 @@ def _po2_from_content(
         u = nxt
         p_std = standard_po2(u)
     return p_std / scale
+
+
+def _po2_from_content_flat(
+    content: float, kh: float, alpha: float, scale: float, upper: float
+) -> float:
+    """Newton on PO2 from ``upper`` (where the content is not below the target), bracketed."""
+    low, high = 0.0, upper
+    p = upper
+    for _ in range(_NEWTON_MAX_STEPS):
+        x_std = scale * p
+        x = x_std * (x_std * x_std + 150.0)
+        d = x + 23400.0
+        f = kh * x / d + alpha * p - content
+        if abs(f) <= _NEWTON_TOLERANCE * content:
+            return p
+        if f > 0.0:
+            high = p
+        else:
+            low = p
+        slope = kh * scale * 23400.0 * (3.0 * x_std * x_std + 150.0) / (d * d) + alpha
+        nxt = p - f / slope
+        if not low < nxt < high:
+            nxt = 0.5 * (low + high)
+        if nxt == p:
+            return p
+        p = nxt
+    return p
 
 
 def predict_arterial_oxygen(

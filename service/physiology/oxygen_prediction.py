@@ -93,7 +93,7 @@ class OxygenPrediction:
 def predict_oxygen_response(
     *,
     response: OxygenResponse,
-    fio2_step: float = 0.02,
+    fio2_step: float = 0.05,
     bands: Sequence[TargetBand] = (TargetBand.STANDARD, TargetBand.HYPERCAPNIC_RISK),
 ) -> OxygenPrediction | None:
     """Predicted saturation and PaO2 from FiO2 0.21 to 1.0 (every ``fio2_step``, both ends

@@ -54,6 +54,7 @@ from enum import StrEnum
 from typing import NamedTuple
 
 from service.physiology import constants as c
+from service.physiology.bounds import require_possible
 from service.physiology.goodness_of_fit import chi_square_survival
 from service.physiology.oxygen_affinity import (
     OxygenAffinity,
@@ -136,8 +137,9 @@ class Estimate:
 @dataclass(frozen=True, slots=True)
 class PointFit:
     """How one point sits against a fitted curve, in the point's own unit (fraction for
-    saturations, mm[Hg] for PaO2). ``used`` is False for a point left out of the fit
-    (``note`` says why); ``standardised_residual`` is residual / expected error."""
+    saturations, mm[Hg] for PaO2): ``residual`` is observed − predicted, ``expected_error``
+    the SD it was weighted by (measurement and FiO2 uncertainty), ``standardised_residual``
+    their ratio. ``used`` is False for a point left out of the fit (``note`` says why)."""
 
     point: TitrationPoint
     used: bool
@@ -280,7 +282,13 @@ def fit_oxygen_response(
     Returns the two-parameter fit when the points identify it (else None, with the reason in
     ``refusal``), the effective shunt whenever at least one point is informative, and the
     points left out. Only the preferred fit carries sensitivities to the assumed values.
+
+    Raises:
+        ImpossibleValueError: an SpO2 limit or a measurement SD outside its possible range.
     """
+    require_possible("spo2_informative_max", spo2_informative_max, 0.5, 1.0, "1")
+    require_possible("spo2_sd", spo2_sd, 0.001, 0.2, "1")
+    require_possible("sao2_sd", sao2_sd, 0.001, 0.2, "1")
     ordered = sorted(points, key=lambda p: p.time)
     used: list[_Observation] = []
     left_out: list[tuple[_Observation, str]] = []
@@ -548,6 +556,8 @@ class _ContentSpace:
 
     def _edge(self, threshold: float, start: float, limit: float) -> float:
         """The end of the region from ``start`` towards ``limit`` (``limit`` if reached)."""
+        if start == limit:
+            return limit
         inner = start
         step = _RANGE_FIRST_STEP_MMHG
         direction = 1.0 if limit >= start else -1.0

@@ -248,3 +248,40 @@ def test_parameters_without_a_living_steady_state_are_outside_the_model() -> Non
         predict_arterial_oxygen(shunt_fraction=0.0, vq_drop_mmhg=100.0, fio2=0.21, paco2_mmhg=40)
     with pytest.raises(OutsideModelRangeError, match="mixed venous"):
         predict_arterial_oxygen(shunt_fraction=0.9, vq_drop_mmhg=0.0, fio2=0.3, paco2_mmhg=40.0)
+
+
+def test_the_right_shift_sets_the_inspired_po2_needed_for_a_saturation() -> None:
+    # Quine D et al., Arch Dis Child Fetal Neonatal Ed 2006;91:F409: the right shift predicted
+    # the PIO2 needed for any SpO2 in 86–94 % (R² > 0.9), shunt mattering little there. In the
+    # model, for shunts up to the normal 8 % (Smith & Jones 2001), the PIO2 for SaO2 90 % is
+    # the shift plus the curve's PO2 at 90 % (58.66 mmHg, 7.82 kPa) plus less than 1 kPa [calc].
+    def fio2_for_90(shunt: float, drop: float) -> float:
+        low, high = 0.10, 1.0
+        for _ in range(50):
+            middle = (low + high) / 2
+            try:
+                saturation = predict_arterial_oxygen(
+                    shunt_fraction=shunt, vq_drop_mmhg=drop, fio2=middle, paco2_mmhg=40.0
+                ).arterial_saturation
+            except OutsideModelRangeError:
+                saturation = 0.0
+            low, high = (low, middle) if saturation >= 0.90 else (middle, high)
+        return high
+
+    shifts, needed = [], []
+    for drop in (0.0, 30.0, 60.0, 90.0, 120.0):
+        for shunt in (0.0, 0.04, 0.08):
+            fio2 = fio2_for_90(shunt, drop)
+            p = predict_arterial_oxygen(
+                shunt_fraction=shunt, vq_drop_mmhg=drop, fio2=fio2, paco2_mmhg=40.0
+            )
+            excess = kpa_from_mmhg(p.inspired_po2_mmhg - p.right_shift_mmhg - 58.66)
+            assert -0.01 <= excess < 1.0
+            shifts.append(p.right_shift_mmhg)
+            needed.append(p.inspired_po2_mmhg)
+    n = len(shifts)
+    mx, my = sum(shifts) / n, sum(needed) / n
+    sxy = sum((x - mx) * (y - my) for x, y in zip(shifts, needed, strict=True))
+    sxx = sum((x - mx) ** 2 for x in shifts)
+    syy = sum((y - my) ** 2 for y in needed)
+    assert sxy * sxy / (sxx * syy) > 0.99

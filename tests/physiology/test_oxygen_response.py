@@ -428,3 +428,12 @@ def test_the_model_itself_round_trips_through_the_fit() -> None:
             paco2_mmhg=40.0,
         ).arterial_po2_mmhg
         assert point_fit.predicted == pytest.approx(expected, rel=1e-9)
+
+
+def test_impossible_fit_settings_are_refused() -> None:
+    from service.exceptions import ImpossibleValueError
+
+    with pytest.raises(ImpossibleValueError, match="spo2_sd"):
+        fit_oxygen_response(points=[], spo2_sd=0.0)
+    with pytest.raises(ImpossibleValueError, match="spo2_informative_max"):
+        fit_oxygen_response(points=[], spo2_informative_max=97.0)
