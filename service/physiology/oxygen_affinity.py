@@ -17,9 +17,10 @@ coefficient) and eq. 3 (the temperature coefficient), applied at the P50:
 Eq. 4 is integrated exactly over the pH change (it has a closed form); eq. 3 is applied with its
 coefficient at the P50 reached (it varies by less than 0.1 % between PO2 15 and 45 mmHg). The
 two coefficients vary along the curve; one P50 for the whole curve is the usual simplification.
-Without a measured pH, a PaCO2 gives a pH by assuming an acute respiratory change from normal
-(Henderson, with the acute HCO3 compensation of Narins & Emmett 1980); with neither, the curve
-is the standard one. 2,3-DPG and foetal haemoglobin are not modelled: pass a measured P50.
+Without a measured pH, a PaCO2 can give a pH by assuming an acute respiratory change from
+normal (Henderson, with the acute HCO3 compensation of Narins & Emmett 1980); with neither, the
+curve is the standard one. 2,3-DPG and foetal haemoglobin are not modelled: pass the blood's
+standardised P50 (pH 7.40, 37 °C), from which the shifts start, or a P50 measured in vivo.
 """
 
 from __future__ import annotations
@@ -44,10 +45,15 @@ _BOHR_REFERENCE_MMHG = 26.6  # eq. 4 reference PO2
 @dataclass(frozen=True, slots=True)
 class OxygenAffinity:
     """A dissociation curve: the standard curve scaled to ``p50_mmhg``; ``method`` says how the
-    P50 was obtained (for the result's explanation)."""
+    P50 was obtained (for the result's explanation). ``standard_p50_mmhg`` is the blood's P50
+    at pH 7.40 and 37 °C, from which the pH and temperature shifts start (26.86 for adult
+    blood; lower, for example, for foetal haemoglobin); ``in_vivo`` marks a P50 measured at the
+    patient's own conditions, which no shift may move."""
 
     p50_mmhg: float
     method: str
+    standard_p50_mmhg: float = STANDARD_P50_MMHG
+    in_vivo: bool = False
 
     @property
     def scale(self) -> float:
@@ -124,23 +130,32 @@ def oxygen_affinity(
     paco2_mmhg: float | None = None,
     temperature_cel: float | None = None,
     measured_p50_mmhg: float | None = None,
+    standard_p50_mmhg: float = STANDARD_P50_MMHG,
 ) -> OxygenAffinity:
     """The dissociation curve for a patient's blood, from what is known of it.
 
-    A measured P50 wins. Otherwise the standard P50 is moved by eq. 4 for the pH (measured, or
-    implied by PaCO2 for an acute respiratory change) and by eq. 3 for the body temperature.
-    The ``method`` string names what was used.
+    A P50 measured at the patient's own pH and temperature (``measured_p50_mmhg``) wins.
+    Otherwise ``standard_p50_mmhg`` (the P50 at pH 7.40 and 37 °C: 26.86 for adult blood, or a
+    laboratory's standardised P50) is moved by eq. 4 for the pH (measured, or implied by PaCO2
+    for an acute respiratory change) and by eq. 3 for the body temperature. The ``method``
+    string names what was used.
 
     Raises:
-        ImpossibleValueError: pH, PaCO2, temperature or P50 outside their possible ranges.
+        ImpossibleValueError: pH, PaCO2, temperature or a P50 outside their possible ranges.
     """
     if measured_p50_mmhg is not None:
         require_possible("measured_p50_mmhg", measured_p50_mmhg, *P50_LIMITS_MMHG, "mm[Hg]")
-        return OxygenAffinity(measured_p50_mmhg, "measured P50")
+        return OxygenAffinity(measured_p50_mmhg, "measured P50", measured_p50_mmhg, in_vivo=True)
+    require_possible("standard_p50_mmhg", standard_p50_mmhg, *P50_LIMITS_MMHG, "mm[Hg]")
+    base = "" if standard_p50_mmhg == STANDARD_P50_MMHG else f" from P50 {standard_p50_mmhg:.1f}"
     if ph is None and paco2_mmhg is None and temperature_cel is None:
-        return STANDARD_AFFINITY
+        if not base:
+            return STANDARD_AFFINITY
+        return OxygenAffinity(
+            standard_p50_mmhg, f"standard P50 {standard_p50_mmhg:.1f} given", standard_p50_mmhg
+        )
     parts: list[str] = []
-    p50 = STANDARD_P50_MMHG
+    p50 = standard_p50_mmhg
     if ph is not None:
         require_possible("ph", ph, *PH, "[pH]")
         parts.append(f"pH {ph:.2f} (eq. 4)")
@@ -165,5 +180,5 @@ def oxygen_affinity(
         coefficient = temperature_coefficient_per_cel(po2_mmhg=p50)
         p50 *= math.exp(coefficient * (temperature_cel - c.NORMAL_BODY_TEMPERATURE_CEL))
         parts.append(f"{temperature_cel:.1f} °C (eq. 3)")
-    method = "Severinghaus 1979 eqs. 3-4 at the P50: " + ", ".join(parts)
-    return OxygenAffinity(p50, method)
+    method = f"Severinghaus 1979 eqs. 3-4 at the P50{base}: " + ", ".join(parts)
+    return OxygenAffinity(p50, method, standard_p50_mmhg)

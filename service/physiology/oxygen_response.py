@@ -378,10 +378,18 @@ def _paco2_of(point: TitrationPoint | None, conditions: ExchangeConditions) -> t
 
 
 def _affinity_of(point: TitrationPoint | None, conditions: ExchangeConditions) -> OxygenAffinity:
-    if point is None or (point.ph is None and point.temperature_cel is None):
-        return conditions.affinity
+    """The point's own curve: the conditions' P50 at pH 7.40 and 37 °C moved by the point's
+    pH and temperature; the conditions' curve as it is for a point without them, or when the
+    conditions carry a P50 measured in vivo. A PaCO2 without a pH does not move the curve
+    here: the pH it implies depends on how long the PaCO2 has been high, and the patients
+    titrated with care (those at risk of hypercapnia) are often compensated."""
+    base = conditions.affinity
+    if point is None or base.in_vivo or (point.ph is None and point.temperature_cel is None):
+        return base
     return oxygen_affinity(
-        ph=point.ph, paco2_mmhg=point.paco2_mmhg, temperature_cel=point.temperature_cel
+        ph=point.ph,
+        temperature_cel=point.temperature_cel,
+        standard_p50_mmhg=base.standard_p50_mmhg,
     )
 
 

@@ -48,21 +48,10 @@ def test_the_inverse_keeps_its_digits_near_full_saturation(saturation: float) ->
     assert x / (x + 23400.0) == pytest.approx(saturation, abs=1e-13)
 
 
-def _p50_by_integrating_eq_4(delta_ph: float, steps: int = 2000) -> float:
-    """Severinghaus 1979 eq. 4, d ln PO2 / d pH = (PO2/26.6)^0.184 − 2.2, integrated by RK4."""
-    u = math.log(STANDARD_P50_MMHG)
-    h = delta_ph / steps
-
-    def f(v: float) -> float:
-        return math.pow(math.exp(v) / 26.6, 0.184) - 2.2
-
-    for _ in range(steps):
-        k1 = f(u)
-        k2 = f(u + h * k1 / 2)
-        k3 = f(u + h * k2 / 2)
-        k4 = f(u + h * k3)
-        u += h * (k1 + 2 * k2 + 2 * k3 + k4) / 6
-    return math.exp(u)
+def _p50_by_integrating_eq_4(delta_ph: float) -> float:
+    """Severinghaus 1979 eq. 4, d ln PO2 / d pH = (PO2/26.6)^0.184 − 2.2, integrated by RK4
+    from the standard P50."""
+    return _p50_by_integrating_eq_4_from(STANDARD_P50_MMHG, delta_ph)
 
 
 @pytest.mark.parametrize("ph", [6.9, 7.1, 7.25, 7.55, 7.7])
@@ -137,3 +126,35 @@ def test_impossible_blood_is_refused() -> None:
         oxygen_affinity(temperature_cel=60.0)
     with pytest.raises(ImpossibleValueError, match="measured_p50_mmhg"):
         oxygen_affinity(measured_p50_mmhg=3.0)
+
+
+def test_shifts_start_from_the_bloods_own_standard_p50() -> None:
+    # A laboratory's standardised P50 (pH 7.40, 37 °C) is the base the pH and temperature
+    # shifts start from; a P50 measured in vivo is final.
+    foetal = oxygen_affinity(standard_p50_mmhg=19.0)
+    assert foetal.p50_mmhg == 19.0 and foetal.standard_p50_mmhg == 19.0
+    assert oxygen_affinity(ph=7.30, standard_p50_mmhg=19.0).p50_mmhg == pytest.approx(
+        _p50_by_integrating_eq_4_from(19.0, -0.10), rel=1e-9
+    )
+    measured = oxygen_affinity(measured_p50_mmhg=31.0)
+    assert measured.in_vivo and not STANDARD_AFFINITY.in_vivo
+    with pytest.raises(ImpossibleValueError, match="standard_p50_mmhg"):
+        oxygen_affinity(standard_p50_mmhg=80.0)
+
+
+def _p50_by_integrating_eq_4_from(p50: float, delta_ph: float) -> float:
+    """Eq. 4 integrated by RK4 from ``p50``."""
+    u = math.log(p50)
+    steps = 2000
+    h = delta_ph / steps
+
+    def f(v: float) -> float:
+        return math.pow(math.exp(v) / 26.6, 0.184) - 2.2
+
+    for _ in range(steps):
+        k1 = f(u)
+        k2 = f(u + h * k1 / 2)
+        k3 = f(u + h * k2 / 2)
+        k4 = f(u + h * k3)
+        u += h * (k1 + 2 * k2 + 2 * k3 + k4) / 6
+    return math.exp(u)

@@ -201,7 +201,7 @@ def test_one_gas_gives_the_classic_shunt_equation_as_the_effective_shunt() -> No
     # One PaO2 on FiO2 0.5: the one-parameter model must return exactly the venous admixture
     # of the Berggren shunt equation with the same assumptions (Hb 14, avd 5, ScO2 from the
     # curve at PAO2), computed by oxygen_content.
-    point = TitrationPoint(START, inspired(0.5), pao2_mmhg=95.0, paco2_mmhg=38.0)
+    point = TitrationPoint(START, inspired(0.5), pao2_mmhg=95.0, paco2_mmhg=38.0, ph=7.40)
     response = fit_oxygen_response(points=[point])
     assert response.two_parameter is None and response.refusal is not None
     assert "one informative point" in response.refusal
@@ -437,3 +437,28 @@ def test_impossible_fit_settings_are_refused() -> None:
         fit_oxygen_response(points=[], spo2_sd=0.0)
     with pytest.raises(ImpossibleValueError, match="spo2_informative_max"):
         fit_oxygen_response(points=[], spo2_informative_max=97.0)
+
+
+def test_a_points_curve_moves_with_its_ph_from_the_bloods_own_standard_p50() -> None:
+    # Foetal-type blood (P50 19 mmHg at pH 7.40, 37 °C) titrated at pH 7.25: each point's curve
+    # is that P50 moved by Severinghaus eq. 4, so data generated that way fit back exactly. A
+    # PaCO2 alone does not move the curve (its pH depends on chronicity).
+    from service.physiology.oxygen_affinity import oxygen_affinity
+
+    base = exchange_conditions(affinity=oxygen_affinity(standard_p50_mmhg=19.0))
+    acid = exchange_conditions(affinity=oxygen_affinity(ph=7.25, standard_p50_mmhg=19.0))
+    assert 19.0 < acid.affinity.p50_mmhg < 26.86
+    points = [
+        replace(p, ph=7.25)
+        for p in generated_points(
+            shunt=0.2, vq_drop_mmhg=30.0, fio2s=(0.25, 0.3, 0.4, 0.6), conditions=acid
+        )
+    ]
+    fitted_shunt, fitted_drop = _two(fit_oxygen_response(points=points, conditions=base))
+    assert fitted_shunt == pytest.approx(0.2, abs=1e-4)
+    assert fitted_drop == pytest.approx(30.0, abs=0.05)
+    hypercapnic = generated_points(
+        shunt=0.2, vq_drop_mmhg=30.0, fio2s=(0.25, 0.3, 0.4, 0.6), paco2_mmhg=65.0
+    )
+    fitted_shunt, _ = _two(fit_oxygen_response(points=hypercapnic))
+    assert fitted_shunt == pytest.approx(0.2, abs=1e-4)
