@@ -13,6 +13,7 @@ from service.physiology.oxygen_content import (
     shunt_fraction,
 )
 from service.physiology.saturation import saturation_from_po2
+from tests.physiology.iso_shunt import ISO_SHUNT_TABLE, pao2_on_iso_shunt_line
 
 
 @pytest.mark.parametrize(("hufner", "content"), [(1.34, 19.90), (1.39, 20.63)])
@@ -102,51 +103,13 @@ def test_shunt_in_a_healthy_adult_breathing_pure_oxygen() -> None:
     assert 2.8 <= shunt * 100 <= 5.2
 
 
-def _pao2_on_iso_shunt_line(*, shunt: float, fio2: float) -> float:
-    """The PaO2 at which the shunt equation returns ``shunt``: bisection on PaO2 with
-    Hb 14, avd 5, PaCO2 40, PB 760 (physiology.md §8 iso-shunt assumptions)."""
-    alveolar = alveolar_po2_mmhg(fio2=fio2, paco2_mmhg=40.0)
-
-    def computed_shunt(pao2: float) -> float:
-        capillary = end_capillary_content_ml_dl(
-            haemoglobin_g_dl=14.0, alveolar_po2_mmhg=alveolar, arterial_po2_mmhg=pao2
-        )
-        arterial = oxygen_content_ml_dl(
-            haemoglobin_g_dl=14.0, saturation=saturation_from_po2(po2_mmhg=pao2), po2_mmhg=pao2
-        )
-        return shunt_fraction(
-            end_capillary_content_ml_dl=capillary,
-            arterial_content_ml_dl=arterial,
-            av_difference_ml_dl=5.0,
-        )
-
-    low, high = 1.0, alveolar
-    for _ in range(100):
-        middle = (low + high) / 2
-        if computed_shunt(middle) > shunt:
-            low = middle
-        else:
-            high = middle
-    return (low + high) / 2
-
-
-@pytest.mark.parametrize(
-    ("shunt", "fio2", "pao2"),
-    # Iso-shunt diagram (Benatar, Hewlett & Nunn, Br J Anaesth 1973;45:711, from memory),
-    # regenerated in physiology.md §8 [CALC] with Hb 14, avd 5, PaCO2 40, PB 760.
-    [
-        (0.05, 0.21, 87.0),
-        (0.10, 0.50, 158.0),
-        (0.20, 0.60, 101.0),
-        (0.20, 1.00, 264.0),
-        (0.30, 1.00, 100.0),
-        (0.50, 1.00, 48.0),
-    ],
-)
+@pytest.mark.parametrize(("shunt", "fio2", "pao2"), ISO_SHUNT_TABLE)
 def test_shunt_equation_reproduces_the_iso_shunt_table(
     shunt: float, fio2: float, pao2: float
 ) -> None:
-    assert _pao2_on_iso_shunt_line(shunt=shunt, fio2=fio2) == pytest.approx(pao2, abs=1.5)
+    # Iso-shunt diagram (Benatar, Hewlett & Nunn, Br J Anaesth 1973;45:711), regenerated [calc]:
+    # see tests/physiology/iso_shunt.py for the assumptions.
+    assert pao2_on_iso_shunt_line(shunt=shunt, fio2=fio2) == pytest.approx(pao2, abs=1.5)
 
 
 def test_true_shunt_stays_constant_across_two_fio2() -> None:

@@ -1,0 +1,262 @@
+"""What a fitted lung should do on other FiO2s: predicted saturation and PaO2, and the FiO2
+estimated to reach a target SpO2 band — as a model estimate, with its range and its caution.
+
+Target bands: 94–98 % for most acutely ill adults, 88–92 % for those at risk of hypercapnic
+respiratory failure (O'Driscoll BR et al., BTS guideline for oxygen use in adults in healthcare
+and emergency settings, Thorax 2017;72 Suppl 1:ii1–ii90). Which band applies is the caller's
+(the clinician's) choice.
+
+Ranges are 95 %, from the fitted parameters' covariance carried through the model's slopes
+(the delta method); they say how well the points pin the curve down, not how far a single
+oximeter reading may fall from it. Predictions hold the latest point's PaCO2 and blood P50;
+oxygen can raise PaCO2 in patients at risk of hypercapnia (O'Driscoll 2017), which the model
+does not foresee.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass
+from enum import StrEnum
+
+from service.physiology.bounds import require_possible
+from service.physiology.oxygen_exchange import ExchangeState, alveolar_terms, exchange_state
+from service.physiology.oxygen_response import Z_95, FitModel, ModelFit, OxygenResponse
+from service.physiology.units import FIO2_LIMITS
+
+CAUTION = (
+    "Model estimate from the fitted oxygen-response curve: it does not replace titration to "
+    "the measured SpO2. Decision support for qualified clinicians, not a diagnosis; it defers "
+    "to clinical judgement, local protocols and licensed practice."
+)
+ROOM_AIR_FIO2 = 0.21
+_FIO2_TOLERANCE = 0.001  # FiO2 for a target is found to within this
+
+
+class TargetBand(StrEnum):
+    """SpO2 target bands of the BTS guideline (O'Driscoll et al. 2017)."""
+
+    STANDARD = "94-98"  # most acutely ill patients
+    HYPERCAPNIC_RISK = "88-92"  # at risk of hypercapnic respiratory failure
+
+
+TARGET_BAND_LIMITS: dict[TargetBand, tuple[float, float]] = {
+    TargetBand.STANDARD: (0.94, 0.98),
+    TargetBand.HYPERCAPNIC_RISK: (0.88, 0.92),
+}
+
+
+@dataclass(frozen=True, slots=True)
+class PredictedOxygenation:
+    """The model's arterial oxygen on one FiO2, each with its 95 % range."""
+
+    fio2: float
+    saturation: float
+    saturation_low: float
+    saturation_high: float
+    pao2_mmhg: float
+    pao2_low_mmhg: float
+    pao2_high_mmhg: float
+
+
+@dataclass(frozen=True, slots=True)
+class Fio2ForTarget:
+    """The lowest FiO2 at which the predicted saturation reaches a band's lower edge, with
+    its range (``fio2_low`` from the optimistic edge of the saturation range, ``fio2_high``
+    from the pessimistic one; None where FiO2 1.0 is not enough), and the FiO2 above which
+    the predicted saturation passes the band's upper edge (None if it never does)."""
+
+    band: TargetBand
+    target_low: float
+    target_high: float
+    fio2: float | None
+    fio2_low: float | None
+    fio2_high: float | None
+    fio2_ceiling: float | None
+    note: str
+
+
+@dataclass(frozen=True, slots=True)
+class OxygenPrediction:
+    """Predictions for one fitted patient, with the caution that travels with them."""
+
+    model: FitModel
+    model_label: str
+    curve: tuple[PredictedOxygenation, ...]
+    targets: tuple[Fio2ForTarget, ...]
+    paco2_mmhg: float
+    paco2_assumed: bool
+    caution: str = CAUTION
+
+
+def predict_oxygen_response(
+    *,
+    response: OxygenResponse,
+    fio2_step: float = 0.05,
+    bands: Sequence[TargetBand] = (TargetBand.STANDARD, TargetBand.HYPERCAPNIC_RISK),
+) -> OxygenPrediction | None:
+    """Predicted saturation and PaO2 from FiO2 0.21 to 1.0 (every ``fio2_step``, both ends
+    included) for the preferred fit of ``response``, and the FiO2 for each target band.
+    None when nothing was fitted.
+
+    Raises:
+        ImpossibleValueError: ``fio2_step`` outside 0.001–0.79.
+    """
+    require_possible("fio2_step", fio2_step, 0.001, 0.79, "1")
+    fit = response.preferred
+    if fit is None:
+        return None
+    model = _FittedCurve(fit, response)
+    count = math.ceil(round((FIO2_LIMITS[1] - ROOM_AIR_FIO2) / fio2_step, 9))
+    fio2s = [ROOM_AIR_FIO2 + i * fio2_step for i in range(count)] + [FIO2_LIMITS[1]]
+    grid = [(f, values) for f in fio2s if (values := model.values(f)) is not None]
+    curve = tuple(PredictedOxygenation(f, *values) for f, values in grid)
+    return OxygenPrediction(
+        model=fit.model,
+        model_label=fit.label,
+        curve=curve,
+        targets=tuple(_fio2_for_target(model, grid, band) for band in bands),
+        paco2_mmhg=response.prediction_paco2_mmhg,
+        paco2_assumed=response.prediction_paco2_assumed,
+    )
+
+
+_Values = tuple[float, float, float, float, float, float]  # the fields of PredictedOxygenation
+_CENTRAL, _LOWER, _UPPER = 0, 1, 2  # saturation, its lower and upper edges, in _Values
+
+
+class _FittedCurve:
+    """The fitted model as a function of FiO2, with its delta-method range."""
+
+    def __init__(self, fit: ModelFit, response: OxygenResponse) -> None:
+        self.fit = fit
+        self.conditions = response.conditions
+        self.paco2 = response.prediction_paco2_mmhg
+        self.scale = response.prediction_affinity.scale
+
+    def state(self, fio2: float) -> ExchangeState | None:
+        alveolar, _, _ = alveolar_terms(fio2, self.paco2, self.conditions)
+        return exchange_state(
+            alveolar,
+            self.fit.vq_drop_mmhg.value,
+            self.fit.shunt_odds,
+            self.conditions.carrying_capacity_ml_dl,
+            self.conditions.av_difference_ml_dl,
+            self.scale,
+        )
+
+    def values(self, fio2: float) -> _Values | None:
+        """(SaO2, its 95 % low, high, PaO2, its low, high) at ``fio2``; None where the model
+        has no steady state."""
+        state = self.state(fio2)
+        if state is None:
+            return None
+        sd_pao2 = self._pao2_sd(state)
+        sd_sat = state.saturation_slope * sd_pao2
+        sat, pao2 = state.arterial_saturation, state.arterial_po2_mmhg
+        return (
+            sat,
+            max(0.0, sat - Z_95 * sd_sat),
+            min(1.0, sat + Z_95 * sd_sat),
+            pao2,
+            max(0.0, pao2 - Z_95 * sd_pao2),
+            pao2 + Z_95 * sd_pao2,
+        )
+
+    def _pao2_sd(self, state: ExchangeState) -> float:
+        """SD of PaO2 from the parameters' covariance: gᵀ Σ g with g = dPaO2/d(odds, ΔPO2)."""
+        var_o, cov, var_d = self.fit.covariance
+        g_o = -self.conditions.av_difference_ml_dl / state.content_slope_arterial
+        g_d = -state.content_slope_capillary / state.content_slope_arterial
+        variance = g_o * g_o * var_o + 2.0 * g_o * g_d * cov + g_d * g_d * var_d
+        return math.sqrt(variance) if math.isfinite(variance) and variance > 0.0 else 0.0
+
+    def saturation(self, fio2: float, which: int) -> float:
+        """One of the saturation values at ``fio2`` (0 where there is no steady state)."""
+        values = self.values(fio2)
+        return 0.0 if values is None else values[which]
+
+
+def _lowest_fio2_reaching(
+    curve: _FittedCurve, grid: list[tuple[float, _Values]], target: float, which: int
+) -> float | None:
+    """The lowest FiO2 in 0.21–1.0 whose predicted saturation (``which``) reaches ``target``:
+    bracketed on the grid, refined by false position (Illinois variant) and rounded up to the
+    next 0.001. None if FiO2 1.0 does not reach it."""
+    previous: tuple[float, float] | None = None
+    for fio2, values in grid:
+        if values[which] >= target:
+            if previous is None:
+                return fio2
+            return _up_to_tolerance(_refine(curve, previous, (fio2, values[which]), target, which))
+        previous = (fio2, values[which])
+    return None
+
+
+def _up_to_tolerance(fio2: float) -> float:
+    """Round up to the next 0.001, so that the FiO2 given still reaches the target."""
+    return min(FIO2_LIMITS[1], math.ceil(round(fio2 / _FIO2_TOLERANCE, 6)) * _FIO2_TOLERANCE)
+
+
+def _refine(
+    curve: _FittedCurve,
+    below: tuple[float, float],
+    above: tuple[float, float],
+    target: float,
+    which: int,
+) -> float:
+    (f_lo, s_lo), (f_hi, s_hi) = below, above
+    g_lo, g_hi = s_lo - target, s_hi - target
+    side = 0
+    for _ in range(30):
+        if f_hi - f_lo <= _FIO2_TOLERANCE / 2.0:
+            break
+        f_new = (f_lo * g_hi - f_hi * g_lo) / (g_hi - g_lo)
+        if not f_lo < f_new < f_hi:
+            f_new = (f_lo + f_hi) / 2.0
+        g_new = curve.saturation(f_new, which) - target
+        if g_new >= 0.0:
+            f_hi, g_hi = f_new, g_new
+            if side == -1:
+                g_lo /= 2.0
+            side = -1
+        else:
+            f_lo, g_lo = f_new, g_new
+            if side == 1:
+                g_hi /= 2.0
+            side = 1
+        if abs(g_new) < 1e-7:
+            return f_new if g_new >= 0.0 else f_hi
+    return f_hi
+
+
+def _fio2_for_target(
+    curve: _FittedCurve, grid: list[tuple[float, _Values]], band: TargetBand
+) -> Fio2ForTarget:
+    target_low, target_high = TARGET_BAND_LIMITS[band]
+    central = _lowest_fio2_reaching(curve, grid, target_low, _CENTRAL)
+    optimistic = _lowest_fio2_reaching(curve, grid, target_low, _UPPER)
+    pessimistic = _lowest_fio2_reaching(curve, grid, target_low, _LOWER)
+    ceiling = _lowest_fio2_reaching(curve, grid, math.nextafter(target_high, 1.0), _CENTRAL)
+    if central is None:
+        note = (
+            f"the model predicts SpO2 below {target_low:.0%} even on FiO2 1.0: oxygen alone "
+            "is not expected to reach the band (a shunt of this size)"
+        )
+    elif central == ROOM_AIR_FIO2:
+        note = f"the model predicts SpO2 of at least {target_low:.0%} on room air"
+    else:
+        note = f"the model predicts SpO2 {target_low:.0%} at FiO2 {central:.2f}"
+    if ceiling is not None and (central is None or ceiling <= central + _FIO2_TOLERANCE):
+        note += f"; it passes {target_high:.0%} already at FiO2 {ceiling:.2f}"
+    return Fio2ForTarget(
+        band=band,
+        target_low=target_low,
+        target_high=target_high,
+        fio2=central,
+        fio2_low=optimistic,
+        fio2_high=pessimistic,
+        fio2_ceiling=ceiling,
+        note=note,
+    )

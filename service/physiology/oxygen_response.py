@@ -1,0 +1,930 @@
+"""Fitting a patient's shunt and V/Q term to titration points (the inverse of the model).
+
+Given two or more points (SpO2, SaO2 or PaO2, each on a known FiO2), find the shunt and the
+V/Q term ΔPO2 of ``oxygen_exchange`` that best explain them, by weighted least squares in the
+units measured, as Sapsford & Jones (Eur J Anaesthesiol 1995;12:375), Kjærgaard et al.
+(Intensive Care Med 2003;29:727) and Karbing et al. (Crit Care 2007;11:R118) fit the same
+two parameters. Also fit the one-parameter "effective shunt" model (ΔPO2 held at 0; Karbing
+2007), which is what remains when the points cannot tell the two apart.
+
+Weights. Each residual is divided by its expected error: the measurement's own (SpO2 0.02,
+SaO2 0.01, PaO2 √(2² + (5 % of PaO2)²) mmHg — our defaults, see below) combined with the
+error the point's FiO2 uncertainty causes through the model's slope (the "effective
+variance" treatment of an uncertain abscissa, Orear J, Am J Phys 1982;50:912). An SpO2 above
+97 % is left out: there the curve is flat, a point says only "saturation is full", and
+oximeter error is as large as the signal (SpO2 ≤ 97 % is the validity limit of S/F, Rice TW
+et al., Chest 2007;132:410; Matthay MA et al., Am J Respir Crit Care Med 2024;209:37). Left-out
+points are still checked against the fitted curve and reported.
+
+Solver. A projected Levenberg–Marquardt on (shunt odds = shunt / (1 − shunt), ΔPO2) with the
+analytic Jacobian (the model's slopes by implicit differentiation of the content balance),
+started from the best of a grid over ΔPO2 on which the shunt odds have a closed form (the mass
+balance is linear in them). Written by hand, not with scipy: scipy is not a runtime dependency
+(tens of MB and a fifth of a second of import for one call), and
+``scipy.optimize.least_squares`` spends more per call on its own set-up than this whole fit
+costs for two to ten points (``python -m tests.benchmarks.oxygen_response`` measures both);
+the tests check that this solver reaches scipy's minimum.
+
+Confidence ranges, 95 %. Two-parameter fit: profile-likelihood ranges (Venzon DJ & Moolgavkar
+SH, Appl Stat 1988;37:87), the values of each parameter for which the best χ² over the other
+stays within 3.84 of the minimum — computed in content space, where the odds enter linearly
+(``_ContentSpace``). Unlike ranges from the linearised covariance they widen where the model
+bends, which it does most for oximetry on the shoulder of the curve: in simulated titrations
+(tests) the linearised ranges covered the true values far less often than stated. Effective
+shunt: ± 1.96 linearised standard errors (the model is nearly linear in its one parameter).
+Both are scaled up by χ²/ν when the fit is worse than the stated errors predict.
+
+Identifiability. The two-parameter fit is refused — and only the effective shunt reported,
+labelled so — when fewer than two points are informative, when they do not span at least 0.03
+of FiO2, when the information matrix is singular or the fit does not converge, or when the
+95 % range of the shunt is wider than 0.20 or that of ΔPO2 wider than 75 mmHg (10 kPa). The
+widths are our method settings: a range of 20 points of shunt cannot tell a normal shunt
+(below 8 %, Smith HL & Jones JG, Arch Dis Child Fetal Neonatal Ed 2001;85:F127) from an
+ARDS-sized one, and 10 kPa is the distance from the normal right shift (6 kPa) to the mean in
+bronchopulmonary dysplasia (16.5 kPa; Quine D et al., Arch Dis Child Fetal Neonatal Ed
+2006;91:F409).
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass, replace
+from enum import StrEnum
+from typing import NamedTuple
+
+from service.physiology import constants as c
+from service.physiology.bounds import require_possible
+from service.physiology.goodness_of_fit import chi_square_survival
+from service.physiology.oxygen_affinity import (
+    OxygenAffinity,
+    oxygen_affinity,
+    standard_po2,
+    standard_saturation,
+    standard_saturation_slope,
+)
+from service.physiology.oxygen_exchange import (
+    AV_DIFFERENCE_SENSITIVITY_ML_DL,
+    HAEMOGLOBIN_SENSITIVITY_G_DL,
+    MIN_END_CAPILLARY_PO2_MMHG,
+    PACO2_SENSITIVITY_MMHG,
+    SHUNT_LIMITS,
+    STANDARD_CONDITIONS,
+    VQ_DROP_LIMITS_MMHG,
+    ExchangeConditions,
+    ExchangeState,
+    alveolar_terms,
+    exchange_state,
+    shunt_from_odds,
+)
+from service.physiology.titration import DroppedPoint, MeasuredKind, TitrationPoint
+
+# Above this SpO2 a point is left out of the fit (see the module docstring).
+SPO2_INFORMATIVE_MAX = 0.97
+# Expected measurement errors (1 SD), our defaults: oximeters claim 2–3 % Arms and ISO
+# 80601-2-61 allows 4 %; a co-oximeter's SaO2 is within about 1 %, the Severinghaus curve
+# itself within 0.55 %; a PaO2 varies by a few percent between samples (common practice).
+SPO2_SD = 0.02
+SAO2_SD = 0.01
+PAO2_SD_FLOOR_MMHG = 2.0
+PAO2_SD_RELATIVE = 0.05
+# Identifiability settings (module docstring).
+MIN_FIO2_STEP = 0.03
+MAX_SHUNT_RANGE_WIDTH = 0.20
+MAX_VQ_DROP_RANGE_WIDTH_MMHG = 75.0
+MIN_RECIPROCAL_CONDITION = 1e-10
+# A range given for an FiO2 is read as its 95 % interval.
+Z_95 = 1.959964
+
+_MAX_ITERATIONS = 60
+_START_DROPS_MMHG = (0.0, 5.0, 10.0, 20.0, 35.0, 50.0, 75.0, 100.0, 150.0, 200.0, 300.0, 450.0)
+# The profile ranges: first step outwards from the estimate, bisections of each end, ΔPO2
+# slices searched for the odds range (see _ContentSpace.ranges).
+_RANGE_FIRST_STEP_MMHG = 5.0
+_EDGE_STEPS = 6
+_RANGE_SLICES = 8
+# Δχ² of a 95 % profile-likelihood range for one parameter: the χ²(1) upper 5 % point.
+DELTA_CHI_SQUARE_95 = 3.841459
+_MAX_SHUNT_ODDS = SHUNT_LIMITS[1] / (1.0 - SHUNT_LIMITS[1])
+
+
+class FitModel(StrEnum):
+    """Which model a fit used."""
+
+    SHUNT_AND_VQ = "shunt-and-vq"  # both parameters fitted
+    EFFECTIVE_SHUNT = "effective-shunt"  # ΔPO2 held at 0: shunt and V/Q not separated
+
+
+@dataclass(frozen=True, slots=True)
+class Estimate:
+    """A fitted value with its 95 % range and standard error; ``fixed`` when the model held
+    it (ΔPO2 = 0 in the effective-shunt model) rather than fitting it; ``profile`` when the
+    range is a profile-likelihood range (the two-parameter fit) rather than ± 1.96 SE."""
+
+    value: float
+    low: float
+    high: float
+    standard_error: float  # linearised, from (JᵀJ)⁻¹
+    fixed: bool = False
+    profile: bool = False  # low/high from the profile likelihood, not the linearised SE
+
+    @property
+    def width(self) -> float:
+        """high − low."""
+        return self.high - self.low
+
+
+@dataclass(frozen=True, slots=True)
+class PointFit:
+    """How one point sits against a fitted curve, in the point's own unit (fraction for
+    saturations, mm[Hg] for PaO2): ``residual`` is observed − predicted, ``expected_error``
+    the SD it was weighted by (measurement and FiO2 uncertainty), ``standardised_residual``
+    their ratio. ``used`` is False for a point left out of the fit (``note`` says why)."""
+
+    point: TitrationPoint
+    used: bool
+    predicted: float
+    residual: float
+    expected_error: float
+    standardised_residual: float
+    paco2_mmhg: float
+    paco2_assumed: bool
+    note: str = ""
+
+
+@dataclass(frozen=True, slots=True)
+class Sensitivity:
+    """How the fitted parameters move when an assumed value is moved across its plausible
+    range (``method``: "exact" or "linearised at the fit")."""
+
+    assumption: str
+    assumed_value: float
+    low_value: float
+    high_value: float
+    shunt_at_low: float
+    shunt_at_high: float
+    vq_drop_at_low_mmhg: float
+    vq_drop_at_high_mmhg: float
+    method: str
+
+
+@dataclass(frozen=True, slots=True)
+class ModelFit:
+    """One fitted model. ``covariance`` is that of (shunt odds, ΔPO2), for prediction ranges."""
+
+    model: FitModel
+    shunt: Estimate
+    vq_drop_mmhg: Estimate
+    shunt_odds: float
+    covariance: tuple[float, float, float]  # var(odds), cov(odds, ΔPO2), var(ΔPO2)
+    chi_square: float
+    degrees_of_freedom: int
+    fit_probability: float | None  # None without spare degrees of freedom
+    converged: bool
+    iterations: int
+    points: tuple[PointFit, ...]
+    sensitivities: tuple[Sensitivity, ...]
+
+    @property
+    def label(self) -> str:
+        """A plain label that says what was fitted."""
+        if self.model is FitModel.EFFECTIVE_SHUNT:
+            return "effective shunt (one parameter: shunt and V/Q mismatch not separated)"
+        return "shunt and V/Q term (two parameters)"
+
+    @property
+    def correlation(self) -> float:
+        """Correlation of the shunt-odds and ΔPO2 estimates (0 when ΔPO2 is held)."""
+        var_o, cov, var_d = self.covariance
+        if var_o <= 0.0 or var_d <= 0.0:
+            return 0.0
+        return cov / math.sqrt(var_o * var_d)
+
+
+@dataclass(frozen=True, slots=True)
+class OxygenResponse:
+    """Everything the fit found: both models, why the two-parameter one may be refused, the
+    points left out, and the conditions and blood state used for predictions."""
+
+    conditions: ExchangeConditions
+    two_parameter: ModelFit | None
+    effective_shunt: ModelFit | None
+    refusal: str | None  # why ``two_parameter`` is None (None when it is reported)
+    excluded: tuple[DroppedPoint, ...]
+    points_used: int
+    fio2_span: float
+    vq_term_p_value: float | None  # does adding ΔPO2 improve the fit (χ²(1) likelihood ratio)
+    prediction_paco2_mmhg: float  # PaCO2 of the latest point (own, borrowed or assumed)
+    prediction_paco2_assumed: bool
+    prediction_affinity: OxygenAffinity
+
+    @property
+    def preferred(self) -> ModelFit | None:
+        """The two-parameter fit when it is identified, else the effective shunt."""
+        return self.two_parameter if self.two_parameter is not None else self.effective_shunt
+
+
+@dataclass(frozen=True, slots=True)
+class _Observation:
+    """One point, prepared for the inner loop: what does not depend on the parameters."""
+
+    point: TitrationPoint
+    is_pressure: bool
+    observed: float
+    measurement_sd: float
+    fio2_sd: float
+    paco2_mmhg: float
+    paco2_assumed: bool
+    scale: float
+    alveolar_po2_mmhg: float
+    alveolar_slope_fio2: float
+    bracket: float
+
+
+class _Evaluation(NamedTuple):
+    """The model at every used point for one (odds, ΔPO2): standardised residuals, their
+    Jacobian columns, χ², the expected errors and the states."""
+
+    residuals: list[float]
+    d_odds: list[float]
+    d_drop: list[float]
+    chi_square: float
+    sds: list[float]
+    states: list[ExchangeState]
+
+
+@dataclass(frozen=True, slots=True)
+class _Solution:
+    odds: float
+    drop: float
+    evaluation: _Evaluation | None
+    covariance: tuple[float, float, float]
+    converged: bool
+    iterations: int
+    # 95 % profile ranges ((odds low, high), (ΔPO2 low, high)) of the two-parameter fit.
+    ranges: tuple[tuple[float, float], tuple[float, float]] | None
+
+    @property
+    def chi_square(self) -> float:
+        return math.inf if self.evaluation is None else self.evaluation.chi_square
+
+
+def fit_oxygen_response(
+    *,
+    points: Sequence[TitrationPoint],
+    conditions: ExchangeConditions = STANDARD_CONDITIONS,
+    spo2_informative_max: float = SPO2_INFORMATIVE_MAX,
+    spo2_sd: float = SPO2_SD,
+    sao2_sd: float = SAO2_SD,
+) -> OxygenResponse:
+    """Fit both models to ``points`` (any order; see ``titration.select_titration_points``).
+
+    Returns the two-parameter fit when the points identify it (else None, with the reason in
+    ``refusal``), the effective shunt whenever at least one point is informative, and the
+    points left out. Only the preferred fit carries sensitivities to the assumed values.
+
+    Raises:
+        ImpossibleValueError: an SpO2 limit or a measurement SD outside its possible range.
+    """
+    require_possible("spo2_informative_max", spo2_informative_max, 0.5, 1.0, "1")
+    require_possible("spo2_sd", spo2_sd, 0.001, 0.2, "1")
+    require_possible("sao2_sd", sao2_sd, 0.001, 0.2, "1")
+    ordered = sorted(points, key=lambda p: p.time)
+    used: list[_Observation] = []
+    left_out: list[tuple[_Observation, str]] = []
+    for point in ordered:
+        obs = _observation(point, conditions, spo2_sd, sao2_sd)
+        if point.spo2 is not None and point.spo2 > spo2_informative_max:
+            left_out.append((obs, f"SpO2 above {spo2_informative_max:.0%}: flat part of the curve"))
+        else:
+            used.append(obs)
+    latest = ordered[-1] if ordered else None
+    paco2, paco2_assumed = _paco2_of(latest, conditions)
+    fio2s = [o.point.inspired.fio2 for o in used]
+
+    def response(
+        two: ModelFit | None, one: ModelFit | None, refusal: str | None, p: float | None
+    ) -> OxygenResponse:
+        return OxygenResponse(
+            conditions=conditions,
+            two_parameter=two,
+            effective_shunt=one,
+            refusal=refusal,
+            excluded=tuple(DroppedPoint(o.point, reason) for o, reason in left_out),
+            points_used=len(used),
+            fio2_span=max(fio2s) - min(fio2s) if fio2s else 0.0,
+            vq_term_p_value=p,
+            prediction_paco2_mmhg=paco2,
+            prediction_paco2_assumed=paco2_assumed,
+            prediction_affinity=_affinity_of(latest, conditions),
+        )
+
+    if not used:
+        reason = (
+            f"every SpO2 is above {spo2_informative_max:.0%}: they show a full saturation, "
+            "not how much shunt or V/Q mismatch it hides"
+            if ordered
+            else "no points"
+        )
+        return response(None, None, reason, None)
+    one_solution = _solve(used, conditions, fit_drop=False)
+    one = _model_fit(used, left_out, conditions, one_solution, fit_drop=False)
+    refusal = _refusal_before_fit(used)
+    two: ModelFit | None = None
+    two_solution: _Solution | None = None
+    if refusal is None:
+        two_solution = _solve(used, conditions, fit_drop=True)
+        two = _model_fit(used, left_out, conditions, two_solution, fit_drop=True)
+        refusal = _refusal_after_fit(two)
+    if refusal is not None or two is None or two_solution is None:
+        one = replace(one, sensitivities=_sensitivities(used, one_solution, conditions, False))
+        return response(None, one, refusal, None)
+    two = replace(two, sensitivities=_sensitivities(used, two_solution, conditions, True))
+    improvement = max(0.0, one.chi_square - two.chi_square)
+    p_value = chi_square_survival(chi_square=improvement, degrees_of_freedom=1)
+    return response(two, one, None, p_value)
+
+
+def _observation(
+    point: TitrationPoint, conditions: ExchangeConditions, spo2_sd: float, sao2_sd: float
+) -> _Observation:
+    paco2, assumed = _paco2_of(point, conditions)
+    if point.pao2_mmhg is not None:
+        observed = point.pao2_mmhg
+        sd = math.hypot(PAO2_SD_FLOOR_MMHG, PAO2_SD_RELATIVE * observed)
+    else:
+        observed = point.value
+        sd = spo2_sd if point.kind is MeasuredKind.SPO2 else sao2_sd
+    alveolar, slope_fio2, bracket = alveolar_terms(point.inspired.fio2, paco2, conditions)
+    return _Observation(
+        point=point,
+        is_pressure=point.pao2_mmhg is not None,
+        observed=observed,
+        measurement_sd=sd,
+        fio2_sd=point.inspired.half_range / Z_95,
+        paco2_mmhg=paco2,
+        paco2_assumed=assumed,
+        scale=_affinity_of(point, conditions).scale,
+        alveolar_po2_mmhg=alveolar,
+        alveolar_slope_fio2=slope_fio2,
+        bracket=bracket,
+    )
+
+
+def _paco2_of(point: TitrationPoint | None, conditions: ExchangeConditions) -> tuple[float, bool]:
+    if point is None or point.paco2_mmhg is None:
+        return conditions.assumed_paco2_mmhg, True
+    return point.paco2_mmhg, False
+
+
+def _affinity_of(point: TitrationPoint | None, conditions: ExchangeConditions) -> OxygenAffinity:
+    """The point's own curve: the conditions' P50 at pH 7.40 and 37 °C moved by the point's
+    pH and temperature; the conditions' curve as it is for a point without them, or when the
+    conditions carry a P50 measured in vivo. A PaCO2 without a pH does not move the curve
+    here: the pH it implies depends on how long the PaCO2 has been high, and the patients
+    titrated with care (those at risk of hypercapnia) are often compensated."""
+    base = conditions.affinity
+    if point is None or base.in_vivo or (point.ph is None and point.temperature_cel is None):
+        return base
+    return oxygen_affinity(
+        ph=point.ph,
+        temperature_cel=point.temperature_cel,
+        standard_p50_mmhg=base.standard_p50_mmhg,
+    )
+
+
+# --- the model at the points ------------------------------------------------------------------
+
+
+def _evaluate(
+    used: list[_Observation], odds: float, drop: float, conditions: ExchangeConditions
+) -> _Evaluation | None:
+    """The model at every used point; None where it has no steady state at some point.
+
+    Jacobian by implicit differentiation of CaO2(PaO2) = Cc'O2 − odds × avd:
+        dPaO2/d odds = −avd / C'(PaO2);  dPaO2/dΔPO2 = −C'(Pc'O2) / C'(PaO2);
+        dPaO2/dFiO2 = C'(Pc'O2) dPAO2/dFiO2 / C'(PaO2);  dSaO2 = S'(PaO2) dPaO2.
+    Each residual is divided by √(measurement SD² + (dy/dFiO2 × FiO2 SD)²).
+    """
+    kh = conditions.carrying_capacity_ml_dl
+    avd = conditions.av_difference_ml_dl
+    residuals: list[float] = []
+    d_odds: list[float] = []
+    d_drop: list[float] = []
+    sds: list[float] = []
+    states: list[ExchangeState] = []
+    chi2 = 0.0
+    for obs in used:
+        state = exchange_state(obs.alveolar_po2_mmhg, drop, odds, kh, avd, obs.scale)
+        if state is None:
+            return None
+        to_observed = 1.0 if obs.is_pressure else state.saturation_slope
+        per_pao2 = to_observed / state.content_slope_arterial
+        if obs.fio2_sd > 0.0:
+            dy_dfio2 = per_pao2 * state.content_slope_capillary * obs.alveolar_slope_fio2
+            sd = math.hypot(obs.measurement_sd, dy_dfio2 * obs.fio2_sd)
+        else:
+            sd = obs.measurement_sd
+        predicted = state.arterial_po2_mmhg if obs.is_pressure else state.arterial_saturation
+        r = (predicted - obs.observed) / sd
+        residuals.append(r)
+        chi2 += r * r
+        d_odds.append(-avd * per_pao2 / sd)
+        d_drop.append(-state.content_slope_capillary * per_pao2 / sd)
+        sds.append(sd)
+        states.append(state)
+    return _Evaluation(residuals, d_odds, d_drop, chi2, sds, states)
+
+
+# --- the solver -------------------------------------------------------------------------------
+
+
+class _ContentSpace:
+    """The least-squares objective carried into arterial oxygen content, where the shunt odds
+    enter linearly: CaO2 = Cc'O2(ΔPO2) − odds × avd.
+
+    Each observation becomes an observed content (SpO2/SaO2 → k Hb S + 0.003 PO2(S); PaO2 →
+    its content) with its error carried into content by the slope (the delta method; for a
+    saturation the map is linear but for the small dissolved term, so the two objectives agree
+    closely). For a fixed ΔPO2 the weighted χ² is then an exact parabola in the odds,
+
+        χ²(odds) = χ²_u + A (odds − odds_u)²,   A = avd² Σw,  odds_u = Σ w g / (avd Σw),
+
+    with g = Cc'O2 − CaO2_observed: so the profile over ΔPO2 and the whole joint confidence
+    region cost one pass over the points per ΔPO2. This gives the solver its start and the
+    two-parameter fit its profile-likelihood ranges (Venzon DJ & Moolgavkar SH, Appl Stat
+    1988;37:87), which, unlike the linearised ones, widen where the model bends.
+    """
+
+    def __init__(self, used: list[_Observation], conditions: ExchangeConditions) -> None:
+        self.kh = conditions.carrying_capacity_ml_dl
+        self.avd = conditions.av_difference_ml_dl
+        alpha = c.O2_SOLUBILITY_ML_DL_PER_MMHG
+        self.rows: list[tuple[float, float, float, float, float]] = []
+        for obs in used:
+            if obs.is_pressure:
+                p = obs.observed
+                s = standard_saturation(obs.scale * p)
+                slope = self.kh * obs.scale * standard_saturation_slope(obs.scale * p) + alpha
+                sd_content = slope * obs.measurement_sd
+            else:
+                s = min(max(obs.observed, 0.01), 0.999)
+                p = standard_po2(s) / obs.scale
+                ds_dp = obs.scale * standard_saturation_slope(obs.scale * p)
+                sd_content = (self.kh + alpha / ds_dp) * obs.measurement_sd
+            self.rows.append(
+                (
+                    obs.alveolar_po2_mmhg,
+                    obs.scale,
+                    self.kh * s + alpha * p,
+                    sd_content * sd_content,
+                    obs.alveolar_slope_fio2 * obs.fio2_sd,
+                )
+            )
+
+    def at(self, drop: float) -> tuple[float, float, float, float] | None:
+        """(odds_u, χ²_u, A, the largest odds with a steady state) at ``drop``; None where
+        some point has no steady state even without a shunt."""
+        kh, alpha, avd = self.kh, c.O2_SOLUBILITY_ML_DL_PER_MMHG, self.avd
+        sw = swg = swgg = 0.0
+        odds_max = _MAX_SHUNT_ODDS
+        for alveolar, scale, content, variance, alveolar_sd in self.rows:
+            cap = alveolar - drop
+            if cap < MIN_END_CAPILLARY_PO2_MMHG:
+                return None
+            # Severinghaus eq. 1 and its slope, inlined: this loop runs some 40 times a fit.
+            p_std = scale * cap
+            x = p_std * (p_std * p_std + 150.0)
+            d = x + 23400.0
+            c_cap = kh * x / d + alpha * cap
+            if c_cap <= avd:
+                return None
+            odds_max = min(odds_max, (c_cap - avd) / avd)
+            if alveolar_sd > 0.0:
+                slope = kh * scale * 23400.0 * (3.0 * p_std * p_std + 150.0) / (d * d) + alpha
+                variance = variance + (slope * alveolar_sd) ** 2
+            w = 1.0 / variance
+            g = c_cap - content
+            sw += w
+            swg += w * g
+            swgg += w * g * g
+        odds_u = swg / (avd * sw)
+        return odds_u, max(0.0, swgg - swg * swg / sw), avd * avd * sw, odds_max
+
+    def profile(self, drop: float) -> tuple[float, float] | None:
+        """(min over the odds of χ², the minimising odds) at ``drop``, odds within limits."""
+        values = self.at(drop)
+        if values is None:
+            return None
+        odds_u, chi2_u, curvature, odds_max = values
+        odds = min(max(odds_u, 0.0), odds_max)
+        return chi2_u + curvature * (odds - odds_u) ** 2, odds
+
+    def best(self, drops: Sequence[float], max_drop: float) -> tuple[float, float]:
+        """(odds, ΔPO2) at the lowest profile χ² over the grid ``drops`` up to ``max_drop``."""
+        best = (math.inf, 0.0, 0.0)
+        for drop in drops:
+            if drop > max_drop:
+                break
+            values = self.profile(drop)
+            if values is not None and values[0] < best[0]:
+                best = (values[0], values[1], drop)
+        return best[1], best[2]
+
+    def ranges(
+        self, threshold: float, max_drop: float, estimate: tuple[float, float]
+    ) -> tuple[tuple[float, float], tuple[float, float]]:
+        """95 % profile ranges ((odds low, high), (ΔPO2 low, high)): where the least χ² over
+        the other parameter stays at or below ``threshold``.
+
+        From the least-squares ``estimate`` (odds, ΔPO2) the ΔPO2 range is bracketed by steps
+        that double from 5 mmHg, each end then bisected to within 1/64 of its bracket; the
+        odds range is the hull of the parabola slices at evenly spaced ΔPO2 in the range.
+        Both ranges hold the estimate.
+        """
+        odds_est, drop_est = estimate
+        drop_low = self._edge(threshold, drop_est, 0.0)
+        drop_high = self._edge(threshold, drop_est, max_drop)
+        odds_low, odds_high = odds_est, odds_est
+        for i in range(_RANGE_SLICES + 1):
+            values = self.at(drop_low + (drop_high - drop_low) * i / _RANGE_SLICES)
+            if values is None:
+                continue
+            odds_u, chi2_u, curvature, odds_max = values
+            if chi2_u > threshold:
+                continue
+            half = math.sqrt((threshold - chi2_u) / curvature)
+            odds_low = min(odds_low, max(0.0, odds_u - half))
+            odds_high = max(odds_high, min(odds_max, odds_u + half))
+        return (odds_low, odds_high), (drop_low, drop_high)
+
+    def _inside(self, drop: float, threshold: float) -> bool:
+        values = self.profile(drop)
+        return values is not None and values[0] <= threshold
+
+    def _edge(self, threshold: float, start: float, limit: float) -> float:
+        """The end of the region from ``start`` towards ``limit`` (``limit`` if reached)."""
+        if start == limit:
+            return limit
+        inner = start
+        step = _RANGE_FIRST_STEP_MMHG
+        direction = 1.0 if limit >= start else -1.0
+        while True:
+            trial = start + direction * step
+            if direction * (trial - limit) >= 0.0:
+                if self._inside(limit, threshold):
+                    return limit
+                outer = limit
+                break
+            if not self._inside(trial, threshold):
+                outer = trial
+                break
+            inner = trial
+            step *= 2.0
+        for _ in range(_EDGE_STEPS):
+            middle = (inner + outer) / 2.0
+            if self._inside(middle, threshold):
+                inner = middle
+            else:
+                outer = middle
+        return inner
+
+
+def _max_drop(used: list[_Observation], conditions: ExchangeConditions) -> float:
+    """The largest ΔPO2 that leaves every point a steady state with no shunt: an end-capillary
+    PO2 above the model's floor whose content still exceeds the a-v difference."""
+    needed_saturation = min(
+        0.999, conditions.av_difference_ml_dl / conditions.carrying_capacity_ml_dl
+    )
+    room = min(
+        o.alveolar_po2_mmhg
+        - max(MIN_END_CAPILLARY_PO2_MMHG, standard_po2(needed_saturation) / o.scale)
+        for o in used
+    )
+    return max(0.0, min(VQ_DROP_LIMITS_MMHG[1], room - 1.0))
+
+
+def _solve(
+    used: list[_Observation], conditions: ExchangeConditions, *, fit_drop: bool
+) -> _Solution:
+    """Projected Levenberg–Marquardt on (odds, ΔPO2) within their limits.
+
+    A parameter at a limit whose gradient points outwards is held there for the step (an
+    active set); a step that raises χ² or leaves the model's steady state is refused and the
+    damping raised. Converged when the projected gradient vanishes, χ² stops falling (1e-9
+    relative) or the step is below 1e-6 in the odds and 1e-4 mmHg in ΔPO2 — far finer than
+    any confidence range.
+    """
+    max_drop = _max_drop(used, conditions) if fit_drop else 0.0
+    space = _ContentSpace(used, conditions)
+    odds, drop = space.best(_START_DROPS_MMHG if fit_drop else (0.0,), max_drop)
+    current = _evaluate(used, odds, drop, conditions)
+    while current is None and odds > 1e-9:  # pull a start with no steady state back in
+        odds *= 0.5
+        current = _evaluate(used, odds, drop, conditions)
+    if current is None:
+        return _Solution(odds, drop, None, (math.inf, 0.0, math.inf), False, 0, None)
+    lows = (0.0, 0.0)
+    highs = (_MAX_SHUNT_ODDS, max_drop)
+    damping = 1e-3
+    converged = False
+    iterations = 0
+    while iterations < _MAX_ITERATIONS:
+        iterations += 1
+        r, j_odds, j_drop, chi2 = current.residuals, current.d_odds, current.d_drop, current[3]
+        g = (_dot(j_odds, r), _dot(j_drop, r) if fit_drop else 0.0)
+        h = (_dot(j_odds, j_odds), _dot(j_odds, j_drop), _dot(j_drop, j_drop))
+        params = (odds, drop)
+        free = [
+            k
+            for k in ((0, 1) if fit_drop else (0,))
+            if not (params[k] <= lows[k] and g[k] > 0.0)
+            and not (params[k] >= highs[k] and g[k] < 0.0)
+        ]
+        if not free or max(abs(g[k]) for k in free) < 1e-10 * (1.0 + chi2):
+            converged = True
+            break
+        step = _damped_step(free, g, h, damping)
+        trial_odds = min(max(odds + step[0], lows[0]), highs[0])
+        trial_drop = min(max(drop + step[1], lows[1]), highs[1])
+        trial = _evaluate(used, trial_odds, trial_drop, conditions)
+        if trial is not None and trial.chi_square <= chi2:
+            small = abs(trial_odds - odds) <= 1e-6 * (1.0 + odds) and abs(
+                trial_drop - drop
+            ) <= 1e-4 * (1.0 + drop)
+            flat = chi2 - trial.chi_square <= 1e-9 * (1.0 + chi2)
+            odds, drop, current = trial_odds, trial_drop, trial
+            damping = max(damping / 3.0, 1e-12)
+            if small or flat:
+                converged = True
+                break
+        else:
+            damping *= 4.0
+            if damping > 1e12:
+                break
+    covariance = _covariance(current.d_odds, current.d_drop if fit_drop else None)
+    ranges = None
+    if fit_drop:
+        dof = len(used) - 2
+        inflation = max(1.0, current.chi_square / dof) if dof > 0 else 1.0
+        at_estimate = space.profile(drop)
+        floor = at_estimate[0] if at_estimate is not None else current.chi_square
+        ranges = space.ranges(floor + DELTA_CHI_SQUARE_95 * inflation, max_drop, (odds, drop))
+    return _Solution(odds, drop, current, covariance, converged, iterations, ranges)
+
+
+def _damped_step(
+    free: list[int], g: tuple[float, float], h: tuple[float, float, float], damping: float
+) -> tuple[float, float]:
+    """Solve (H + λ diag H) δ = −g over the free parameters (one or two)."""
+    if len(free) == 1:
+        k = free[0]
+        delta = -g[k] / ((h[0] if k == 0 else h[2]) * (1.0 + damping) + 1e-300)
+        return (delta, 0.0) if k == 0 else (0.0, delta)
+    a = h[0] * (1.0 + damping) + 1e-300
+    d = h[2] * (1.0 + damping) + 1e-300
+    b = h[1]
+    det = a * d - b * b
+    if det <= 0.0:
+        return (-g[0] / a, -g[1] / d)
+    return ((-g[0] * d + g[1] * b) / det, (-g[1] * a + g[0] * b) / det)
+
+
+def _covariance(j_odds: list[float], j_drop: list[float] | None) -> tuple[float, float, float]:
+    """(JᵀJ)⁻¹ as (var odds, cov, var ΔPO2); infinite variances when JᵀJ is singular
+    (reciprocal condition number below 1e-10)."""
+    a = _dot(j_odds, j_odds)
+    if j_drop is None:
+        return (1.0 / a if a > 0.0 else math.inf), 0.0, 0.0
+    b = _dot(j_odds, j_drop)
+    d = _dot(j_drop, j_drop)
+    det = a * d - b * b
+    half_trace = (a + d) / 2.0
+    root = math.sqrt(max(half_trace * half_trace - det, 0.0))
+    largest, smallest = half_trace + root, half_trace - root
+    if largest <= 0.0 or det <= 0.0 or smallest / largest < MIN_RECIPROCAL_CONDITION:
+        return math.inf, 0.0, math.inf
+    return d / det, -b / det, a / det
+
+
+def _dot(x: list[float], y: list[float]) -> float:
+    return sum(a * b for a, b in zip(x, y, strict=True))
+
+
+# --- from a solution to a fit -----------------------------------------------------------------
+
+
+def _model_fit(
+    used: list[_Observation],
+    left_out: list[tuple[_Observation, str]],
+    conditions: ExchangeConditions,
+    solution: _Solution,
+    *,
+    fit_drop: bool,
+) -> ModelFit:
+    dof = len(used) - (2 if fit_drop else 1)
+    chi2 = solution.chi_square
+    inflation = max(1.0, chi2 / dof) if dof > 0 and math.isfinite(chi2) else 1.0
+    var_o, cov, var_d = (v * inflation for v in solution.covariance)
+    shunt = _shunt_estimate(solution.odds, var_o)
+    if solution.ranges is not None and math.isfinite(var_o) and math.isfinite(var_d):
+        (odds_low, odds_high), (drop_low, drop_high) = solution.ranges
+        se_d = math.sqrt(var_d)
+        shunt = replace(
+            shunt, low=shunt_from_odds(odds_low), high=shunt_from_odds(odds_high), profile=True
+        )
+        drop = Estimate(solution.drop, drop_low, drop_high, se_d, profile=True)
+        # Widen the covariance, which the prediction ranges use, to the profile ranges where
+        # those are wider than the linearised ones (keeping the correlation).
+        widen_o = max(1.0, (odds_high - odds_low) / (2.0 * Z_95 * math.sqrt(var_o) + 1e-300))
+        widen_d = max(1.0, (drop_high - drop_low) / (2.0 * Z_95 * se_d + 1e-300))
+        var_o, cov, var_d = var_o * widen_o**2, cov * widen_o * widen_d, var_d * widen_d**2
+    elif fit_drop:
+        se_d = math.sqrt(var_d) if math.isfinite(var_d) else math.inf
+        drop = Estimate(
+            solution.drop,
+            max(VQ_DROP_LIMITS_MMHG[0], solution.drop - Z_95 * se_d),
+            min(VQ_DROP_LIMITS_MMHG[1], solution.drop + Z_95 * se_d),
+            se_d,
+        )
+    else:
+        drop = Estimate(0.0, 0.0, 0.0, 0.0, fixed=True)
+    evaluation = solution.evaluation
+    fits: list[PointFit] = []
+    if evaluation is not None:
+        for obs, state, sd in zip(used, evaluation.states, evaluation.sds, strict=True):
+            fits.append(_point_fit(obs, state, sd, used=True, note=""))
+    for obs, reason in left_out:
+        single = _evaluate([obs], solution.odds, solution.drop, conditions)
+        if single is None:
+            continue
+        fits.append(_point_fit(obs, single.states[0], single.sds[0], used=False, note=reason))
+    return ModelFit(
+        model=FitModel.SHUNT_AND_VQ if fit_drop else FitModel.EFFECTIVE_SHUNT,
+        shunt=shunt,
+        vq_drop_mmhg=drop,
+        shunt_odds=solution.odds,
+        covariance=(var_o, cov, var_d),
+        chi_square=chi2,
+        degrees_of_freedom=dof,
+        fit_probability=(
+            chi_square_survival(chi_square=chi2, degrees_of_freedom=dof)
+            if dof > 0 and math.isfinite(chi2)
+            else None
+        ),
+        converged=solution.converged and evaluation is not None,
+        iterations=solution.iterations,
+        points=tuple(sorted(fits, key=lambda f: f.point.time)),
+        sensitivities=(),
+    )
+
+
+def _shunt_estimate(odds: float, var_odds: float) -> Estimate:
+    """The shunt and its range, computed on the odds scale (where the model is linear in the
+    parameter) and mapped back, so the range stays inside 0–0.95."""
+    se_odds = math.sqrt(var_odds) if math.isfinite(var_odds) else math.inf
+    low = shunt_from_odds(max(0.0, odds - Z_95 * se_odds))
+    high_odds = odds + Z_95 * se_odds
+    high = shunt_from_odds(high_odds) if math.isfinite(high_odds) else SHUNT_LIMITS[1]
+    se = se_odds / (1.0 + odds) ** 2
+    return Estimate(shunt_from_odds(odds), low, min(high, SHUNT_LIMITS[1]), se)
+
+
+def _point_fit(
+    obs: _Observation, state: ExchangeState, sd: float, *, used: bool, note: str
+) -> PointFit:
+    predicted = state.arterial_po2_mmhg if obs.is_pressure else state.arterial_saturation
+    residual = obs.observed - predicted
+    return PointFit(
+        point=obs.point,
+        used=used,
+        predicted=predicted,
+        residual=residual,
+        expected_error=sd,
+        standardised_residual=residual / sd,
+        paco2_mmhg=obs.paco2_mmhg,
+        paco2_assumed=obs.paco2_assumed,
+        note=note,
+    )
+
+
+def _refusal_before_fit(used: list[_Observation]) -> str | None:
+    if len(used) < 2:
+        return "only one informative point: two parameters need at least two FiO2 levels"
+    fio2s = [o.point.inspired.fio2 for o in used]
+    if max(fio2s) - min(fio2s) < MIN_FIO2_STEP:
+        return (
+            f"all informative points lie within {MIN_FIO2_STEP:g} of one FiO2 "
+            f"({min(fio2s):.2f}–{max(fio2s):.2f}): the response to oxygen is not seen"
+        )
+    return None
+
+
+def _refusal_after_fit(fit: ModelFit) -> str | None:
+    if not fit.converged:
+        return "the two-parameter fit did not converge"
+    if not (
+        math.isfinite(fit.shunt.standard_error) and math.isfinite(fit.vq_drop_mmhg.standard_error)
+    ):
+        return "the points cannot separate shunt from V/Q mismatch (their effects coincide)"
+    if fit.shunt.width > MAX_SHUNT_RANGE_WIDTH:
+        return (
+            f"the shunt is not identified: its 95 % range would span "
+            f"{fit.shunt.low:.0%}–{fit.shunt.high:.0%} (limit {MAX_SHUNT_RANGE_WIDTH:.0%} wide)"
+        )
+    if fit.vq_drop_mmhg.width > MAX_VQ_DROP_RANGE_WIDTH_MMHG:
+        return (
+            f"the V/Q term is not identified: its 95 % range would span "
+            f"{fit.vq_drop_mmhg.low:.0f}–{fit.vq_drop_mmhg.high:.0f} mmHg "
+            f"(limit {MAX_VQ_DROP_RANGE_WIDTH_MMHG:.0f} mmHg wide)"
+        )
+    return None
+
+
+# --- sensitivity to assumptions ---------------------------------------------------------------
+
+
+def _sensitivities(
+    used: list[_Observation], solution: _Solution, conditions: ExchangeConditions, fit_drop: bool
+) -> tuple[Sensitivity, ...]:
+    """How the fit depends on each assumed value.
+
+    The a-v difference enters the model only as odds × avd, so a fit with another avd has
+    exactly odds × avd / avd' and the same ΔPO2. Haemoglobin and an assumed PaCO2 are
+    linearised at the fit: Δparams = −(JᵀJ)⁻¹ Jᵀ (∂r/∂assumption) × Δassumption, with
+        dPaO2/dHb = k (Sc'O2 − SaO2) / C'(PaO2);  dPaO2/dPaCO2 = −bracket C'(Pc'O2) / C'(PaO2).
+    """
+    evaluation = solution.evaluation
+    if evaluation is None:
+        return ()
+    out: list[Sensitivity] = []
+    odds, drop = solution.odds, solution.drop
+    avd = conditions.av_difference_ml_dl
+    if not conditions.av_difference_measured:
+        low, high = AV_DIFFERENCE_SENSITIVITY_ML_DL
+        out.append(
+            Sensitivity(
+                "av_difference_ml_dl",
+                avd,
+                low,
+                high,
+                shunt_from_odds(odds * avd / low),
+                shunt_from_odds(odds * avd / high),
+                drop,
+                drop,
+                "exact",
+            )
+        )
+    columns: list[tuple[str, float, float, float, list[float]]] = []
+    rows = list(zip(used, evaluation.states, evaluation.sds, strict=True))
+    if not conditions.haemoglobin_measured:
+        column = [
+            (1.0 if o.is_pressure else s.saturation_slope)
+            * conditions.hufner_ml_per_g
+            * (s.end_capillary_saturation - s.arterial_saturation)
+            / s.content_slope_arterial
+            / sd
+            for o, s, sd in rows
+        ]
+        low, high = HAEMOGLOBIN_SENSITIVITY_G_DL
+        columns.append(("haemoglobin_g_dl", conditions.haemoglobin_g_dl, low, high, column))
+    if any(o.paco2_assumed for o in used):
+        column = [
+            -(1.0 if o.is_pressure else s.saturation_slope)
+            * o.bracket
+            * s.content_slope_capillary
+            / s.content_slope_arterial
+            / sd
+            if o.paco2_assumed
+            else 0.0
+            for o, s, sd in rows
+        ]
+        base = conditions.assumed_paco2_mmhg
+        low, high = base - PACO2_SENSITIVITY_MMHG, base + PACO2_SENSITIVITY_MMHG
+        columns.append(("paco2_mmhg", base, low, high, column))
+    var_o, cov, var_d = solution.covariance
+    if not (math.isfinite(var_o) and math.isfinite(var_d)):
+        return tuple(out)
+    for name, value, low, high, column in columns:
+        g_o = _dot(evaluation.d_odds, column)
+        g_d = _dot(evaluation.d_drop, column) if fit_drop else 0.0
+        d_odds = -(var_o * g_o + cov * g_d)
+        d_drop = -(cov * g_o + var_d * g_d) if fit_drop else 0.0
+        s_low, d_low = _moved(odds, drop, d_odds, d_drop, low - value)
+        s_high, d_high = _moved(odds, drop, d_odds, d_drop, high - value)
+        out.append(
+            Sensitivity(
+                name, value, low, high, s_low, s_high, d_low, d_high, "linearised at the fit"
+            )
+        )
+    return tuple(out)
+
+
+def _moved(
+    odds: float, drop: float, d_odds: float, d_drop: float, delta: float
+) -> tuple[float, float]:
+    """(shunt, ΔPO2) after a linearised move of an assumption by ``delta``, within limits."""
+    return (
+        shunt_from_odds(min(max(odds + d_odds * delta, 0.0), _MAX_SHUNT_ODDS)),
+        max(0.0, drop + d_drop * delta),
+    )
