@@ -17,7 +17,7 @@ from pydantic_settings import BaseSettings, SettingsConfigDict
 
 from service.physiology import constants as c
 from service.physiology.atmosphere import AltitudeModel
-from service.physiology.bounds import ALTITUDE_M, RESPIRATORY_QUOTIENT
+from service.physiology.bounds import AGE_YEARS, ALTITUDE_M, RESPIRATORY_QUOTIENT
 from service.physiology.oxygen_content import AV_DIFFERENCE_RANGE_ML_DL, HUFNER_RANGE_ML_PER_G
 
 # The longest pairing window a site may set (minutes); the shortest is any positive time.
@@ -41,6 +41,39 @@ class Settings(BaseSettings):
     same_sample_minutes: float = Field(
         5.0, gt=0, le=60, description="values of one gas drawn within this many minutes"
     )
+    setting_window_hours: float = Field(
+        4.0,
+        gt=0,
+        le=24,
+        description="how long an oxygen or ventilator setting charted before a gas stays in force",
+    )
+    haemoglobin_window_hours: float = Field(
+        24.0, gt=0, le=7 * 24, description="how far from a gas its Hb may be measured"
+    )
+    dyshaemoglobin_window_hours: float = Field(
+        4.0, gt=0, le=48, description="how far from a gas its COHb and MetHb may be measured"
+    )
+    temperature_window_hours: float = Field(
+        4.0, gt=0, le=48, description="how far from a gas the body temperature may be taken"
+    )
+    lung_function_window_days: float = Field(
+        180.0, gt=0, le=3 * 365, description="how old a DLCO or a walk test may be"
+    )
+    oxygen_response_window_hours: float = Field(
+        12.0, gt=0, le=72, description="gases this close may be compared for the response to O2"
+    )
+    unknown_site_altitude_m: float = Field(
+        4100.0,
+        ge=0,
+        le=ALTITUDE_M[1],
+        description="highest site considered when neither pressure nor altitude is known",
+    )
+    unknown_age_years: tuple[float, float] = Field(
+        (18.0, 100.0), description="the ages considered when the birth date is not known"
+    )
+    av_difference_range_ml_dl: tuple[float, float] = Field(
+        (3.5, 7.0), description="a-v content difference range when none is measured"
+    )
     pressure_unit: Literal["mm[Hg]", "kPa"] = "mm[Hg]"
     site_altitude_m: float | None = Field(None, ge=ALTITUDE_M[0], le=ALTITUDE_M[1])
     altitude_model: AltitudeModel = AltitudeModel.WEST_1996
@@ -60,6 +93,20 @@ class Settings(BaseSettings):
     site_file: Path | None = Field(
         None, description="a site override file (YAML, see service/site.py); None for none"
     )
+
+    @model_validator(mode="after")
+    def _ranges_in_order(self) -> Settings:
+        for name, (low, high), limits in (
+            ("unknown_age_years", self.unknown_age_years, AGE_YEARS),
+            (
+                "av_difference_range_ml_dl",
+                self.av_difference_range_ml_dl,
+                AV_DIFFERENCE_RANGE_ML_DL,
+            ),
+        ):
+            if not limits[0] <= low <= high <= limits[1]:
+                raise ValueError(f"{name}: want low <= high within {limits[0]:g} to {limits[1]:g}")
+        return self
 
 
 # Asymmetric signatures only: `none` and the HMAC family are never accepted for bearer JWTs.

@@ -110,4 +110,56 @@ def ph_henderson_gap(*, ph_henderson_difference: float) -> float:
     return abs(ph_henderson_difference)
 
 
+@table.quantity(
+    "paco2_winters_high",
+    "mm[Hg]",
+    (0.0, 250.0),
+    1,
+    "Top of Winters' range for this HCO3: 1.5 × HCO3 + 8 + 2",
+)
+def paco2_winters_high(*, arterial_hco3: float) -> Computed:
+    return Computed(
+        ab.expected_paco2_metabolic_acidosis_mmhg(hco3_mmol_l=arterial_hco3).high,
+        "Winters' formula, 1.5 × HCO3 + 8 ± 2 (Albert, Dell & Winters 1967), upper end",
+    )
+
+
+@table.quantity(
+    "paco2_above_winters",
+    "mm[Hg]",
+    (-250.0, 250.0),
+    1,
+    "PaCO2 minus the top of Winters' range (positive: ventilation not compensating)",
+)
+def paco2_above_winters(*, arterial_pco2: float, paco2_winters_high: float) -> float:
+    return arterial_pco2 - paco2_winters_high
+
+
+@table.quantity(
+    "paco2_alkalosis_compensation_high",
+    "mm[Hg]",
+    (0.0, 250.0),
+    1,
+    "Top of the PaCO2 that compensates a metabolic alkalosis: 40 + 0.7 (HCO3 − 24) + 2",
+)
+def paco2_alkalosis_compensation_high(*, arterial_hco3: float) -> Computed:
+    return Computed(
+        ab.expected_paco2_metabolic_alkalosis_mmhg(hco3_mmol_l=arterial_hco3).high,
+        "40 + 0.7 × (HCO3 − 24) ± 2 (Berend, de Vries & Gans 2014), upper end",
+    )
+
+
+@table.quantity(
+    "paco2_above_alkalosis_compensation",
+    "mm[Hg]",
+    (-250.0, 250.0),
+    1,
+    "PaCO2 minus the top of the compensation for a metabolic alkalosis",
+)
+def paco2_above_alkalosis_compensation(
+    *, arterial_pco2: float, paco2_alkalosis_compensation_high: float
+) -> float:
+    return arterial_pco2 - paco2_alkalosis_compensation_high
+
+
 FACTS = tuple(table.facts)

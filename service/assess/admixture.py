@@ -59,15 +59,101 @@ def arterial_o2_content(
     )
 
 
+def venous_admixture_fraction(
+    *,
+    haemoglobin: float,
+    arterial_po2: float,
+    alveolar_po2: float,
+    arterial_o2_content: float,
+    hufner_ml_per_g: float,
+    av_difference: float | None,
+    arterial_so2: float | None = None,
+    carboxyhaemoglobin: float | None = None,
+    methaemoglobin: float | None = None,
+    mixed_venous_so2: float | None = None,
+    mixed_venous_po2: float | None = None,
+) -> float | None:
+    """Qs/Qt by the shunt equation (a fraction), with a measured mixed-venous content or the
+    a-v difference given; None when there is no end-capillary to arterial gap."""
+    if alveolar_po2 <= arterial_po2:
+        return None  # no end-capillary to arterial gap: nothing to apportion
+    capillary_saturation = oc.end_capillary_saturation(
+        alveolar_po2_mmhg=alveolar_po2,
+        arterial_po2_mmhg=arterial_po2,
+        arterial_saturation=arterial_so2,
+    )
+    capillary = oc.oxygen_content_ml_dl(
+        haemoglobin_g_dl=haemoglobin,
+        saturation=_carried(capillary_saturation, carboxyhaemoglobin, methaemoglobin),
+        po2_mmhg=alveolar_po2,
+        hufner_ml_per_g=hufner_ml_per_g,
+    )
+    venous_content: float | None = None
+    if mixed_venous_so2 is not None:
+        venous_content = oc.oxygen_content_ml_dl(
+            haemoglobin_g_dl=haemoglobin,
+            saturation=_carried(mixed_venous_so2, carboxyhaemoglobin, methaemoglobin),
+            po2_mmhg=(
+                mixed_venous_po2 if mixed_venous_po2 is not None else c.NORMAL_MIXED_VENOUS_PO2_MMHG
+            ),
+            hufner_ml_per_g=hufner_ml_per_g,
+        )
+        av_difference = None
+    return oc.shunt_fraction(
+        end_capillary_content_ml_dl=capillary,
+        arterial_content_ml_dl=arterial_o2_content,
+        mixed_venous_content_ml_dl=venous_content,
+        av_difference_ml_dl=av_difference,
+    )
+
+
+def _label(fio2: float, venous: bool, difference: float | None) -> str:
+    kind = "shunt (on near-pure oxygen)" if fio2 >= c.TRUE_SHUNT_MIN_FIO2 else "venous admixture"
+    how = (
+        "measured mixed-venous content"
+        if venous
+        else f"assumed a-v content difference {difference:g} mL/dL"
+    )
+    return f"Qs/Qt = (CcO2 − CaO2) / (CcO2 − CvO2), {how}; {kind}"
+
+
+def _admixture(
+    av_difference: float | None,
+    haemoglobin: float,
+    arterial_po2: float,
+    alveolar_po2: float,
+    arterial_o2_content: float,
+    settings: Settings,
+    arterial_so2: float | None,
+    carboxyhaemoglobin: float | None,
+    methaemoglobin: float | None,
+    mixed_venous_so2: float | None,
+    mixed_venous_po2: float | None,
+) -> float | None:
+    return venous_admixture_fraction(
+        haemoglobin=haemoglobin,
+        arterial_po2=arterial_po2,
+        alveolar_po2=alveolar_po2,
+        arterial_o2_content=arterial_o2_content,
+        hufner_ml_per_g=settings.hufner_ml_per_g,
+        av_difference=av_difference,
+        arterial_so2=arterial_so2,
+        carboxyhaemoglobin=carboxyhaemoglobin,
+        methaemoglobin=methaemoglobin,
+        mixed_venous_so2=mixed_venous_so2,
+        mixed_venous_po2=mixed_venous_po2,
+    )
+
+
 @table.quantity(
-    "shunt_fraction",
+    "venous_admixture",
     "%",
     (-100.0, 100.0),
     0,
-    "Estimated right-to-left shunt fraction",
-    result="shunt-fraction",
+    "Venous admixture (shunt plus low-V/Q units) by the shunt equation",
+    result="venous-admixture",
 )
-def shunt_fraction(
+def venous_admixture(
     *,
     haemoglobin: float,
     arterial_po2: float,
@@ -81,45 +167,138 @@ def shunt_fraction(
     mixed_venous_so2: float | None = None,
     mixed_venous_po2: float | None = None,
 ) -> Computed | None:
-    if alveolar_po2 <= arterial_po2:
-        return None  # no end-capillary to arterial gap: nothing to apportion
-    hufner = settings.hufner_ml_per_g
-    capillary_saturation = oc.end_capillary_saturation(
-        alveolar_po2_mmhg=alveolar_po2,
-        arterial_po2_mmhg=arterial_po2,
-        arterial_saturation=arterial_so2,
+    difference = settings.assumed_av_difference_ml_dl
+    value = _admixture(
+        difference,
+        haemoglobin,
+        arterial_po2,
+        alveolar_po2,
+        arterial_o2_content,
+        settings,
+        arterial_so2,
+        carboxyhaemoglobin,
+        methaemoglobin,
+        mixed_venous_so2,
+        mixed_venous_po2,
     )
-    capillary = oc.oxygen_content_ml_dl(
-        haemoglobin_g_dl=haemoglobin,
-        saturation=_carried(capillary_saturation, carboxyhaemoglobin, methaemoglobin),
-        po2_mmhg=alveolar_po2,
-        hufner_ml_per_g=hufner,
-    )
-    venous_content: float | None = None
-    difference: float | None = None
-    if mixed_venous_so2 is not None:
-        venous_content = oc.oxygen_content_ml_dl(
-            haemoglobin_g_dl=haemoglobin,
-            saturation=_carried(mixed_venous_so2, carboxyhaemoglobin, methaemoglobin),
-            po2_mmhg=(
-                mixed_venous_po2 if mixed_venous_po2 is not None else c.NORMAL_MIXED_VENOUS_PO2_MMHG
-            ),
-            hufner_ml_per_g=hufner,
+    if value is None:
+        return None
+    return Computed(value, _label(fio2, mixed_venous_so2 is not None, difference))
+
+
+def _admixture_at_end(end: int) -> object:
+    def compute(
+        *,
+        haemoglobin: float,
+        arterial_po2: float,
+        alveolar_po2: float,
+        arterial_o2_content: float,
+        settings: Settings,
+        arterial_so2: float | None = None,
+        carboxyhaemoglobin: float | None = None,
+        methaemoglobin: float | None = None,
+        mixed_venous_so2: float | None = None,
+        mixed_venous_po2: float | None = None,
+    ) -> float | None:
+        # A larger a-v difference (a low cardiac output) gives a smaller admixture: the least
+        # admixture is at the top of the range, the most at the bottom.
+        difference = settings.av_difference_range_ml_dl[end]
+        return _admixture(
+            difference,
+            haemoglobin,
+            arterial_po2,
+            alveolar_po2,
+            arterial_o2_content,
+            settings,
+            arterial_so2,
+            carboxyhaemoglobin,
+            methaemoglobin,
+            mixed_venous_so2,
+            mixed_venous_po2,
         )
-        venous = "measured mixed-venous content"
-    else:
-        difference = settings.assumed_av_difference_ml_dl
-        venous = f"assumed a-v content difference {difference:g} mL/dL"
-    kind = "true shunt" if fio2 >= c.TRUE_SHUNT_MIN_FIO2 else "venous admixture"
-    return Computed(
-        oc.shunt_fraction(
-            end_capillary_content_ml_dl=capillary,
-            arterial_content_ml_dl=arterial_o2_content,
-            mixed_venous_content_ml_dl=venous_content,
-            av_difference_ml_dl=difference,
-        ),
-        f"Qs/Qt = (CcO2 − CaO2) / (CcO2 − CvO2), {venous}; {kind}",
-    )
+
+    return compute
+
+
+table.quantity(
+    "venous_admixture_least",
+    "%",
+    (-100.0, 100.0),
+    0,
+    "Venous admixture at the largest plausible a-v content difference (unless measured)",
+)(_admixture_at_end(1))  # type: ignore[arg-type]
+table.quantity(
+    "venous_admixture_most",
+    "%",
+    (-100.0, 100.0),
+    0,
+    "Venous admixture at the smallest plausible a-v content difference (unless measured)",
+)(_admixture_at_end(0))  # type: ignore[arg-type]
+
+
+@table.quantity(
+    "shunt_fraction",
+    "%",
+    (-100.0, 100.0),
+    0,
+    "Shunt fraction: the venous admixture on near-pure oxygen",
+    result="shunt-fraction",
+)
+def shunt_fraction(*, venous_admixture: float, fio2: float) -> Computed | None:
+    if fio2 < c.TRUE_SHUNT_MIN_FIO2:
+        return None  # below near-pure oxygen it is venous admixture, not shunt
+    return Computed(venous_admixture, "venous admixture on near-pure oxygen (FiO2 ≥ 0.99)")
+
+
+def _bound_at(end: int | None) -> object:
+    def compute(
+        *,
+        aa_gradient: float,
+        fio2: float,
+        settings: Settings,
+        mixed_venous_so2: float | None = None,
+    ) -> Computed | None:
+        del mixed_venous_so2  # read so that a measured content is not second-guessed below
+        if fio2 < c.DISSOLVED_SHUNT_BOUND_MIN_FIO2 or aa_gradient <= 0.0:
+            return None
+        difference = (
+            settings.assumed_av_difference_ml_dl
+            if end is None
+            else settings.av_difference_range_ml_dl[end]
+        )
+        return Computed(
+            oc.shunt_fraction_dissolved_bound(
+                aa_gradient_mmhg=aa_gradient, av_difference_ml_dl=difference
+            ),
+            "dissolved-oxygen bound on near-pure oxygen: 0.003 × A-a / (0.003 × A-a + avd), "
+            f"avd {difference:g} mL/dL (no Hb needed)",
+        )
+
+    return compute
+
+
+table.quantity(
+    "shunt_dissolved_bound",
+    "%",
+    (0.0, 100.0),
+    0,
+    "Least shunt the A-a gradient means on near-pure oxygen (dissolved O2; no Hb needed)",
+    result="shunt-dissolved-bound",
+)(_bound_at(None))  # type: ignore[arg-type]
+table.quantity(
+    "shunt_dissolved_bound_least",
+    "%",
+    (0.0, 100.0),
+    0,
+    "The dissolved-oxygen shunt bound at the largest plausible a-v content difference",
+)(_bound_at(1))  # type: ignore[arg-type]
+table.quantity(
+    "shunt_dissolved_bound_most",
+    "%",
+    (0.0, 100.0),
+    0,
+    "The dissolved-oxygen shunt bound at the smallest plausible a-v content difference",
+)(_bound_at(0))  # type: ignore[arg-type]
 
 
 FACTS = tuple(table.facts)

@@ -2,9 +2,11 @@
 
 Pure apart from the clock and the decision id, both injectable: pairing, physiology and the
 rule engine, glued together. Every arterial gas gets its derived values; the latest (the
-index gas) is evaluated by the rules, with earlier gases on a different FiO2 supplying the
-response to oxygen. The engine decides everything about the verdict (grades, demotion on
-untrusted data, the order of findings, what is missing, what to ask for); this module only
+index gas) is evaluated by the rules, with the response to oxygen read from every pair of gases
+(``serial``). Inputs known only as a range (an estimated FiO2, an assumed pressure, a missing
+age or residence) are evaluated at the ends of their ranges and only what holds in all of them
+is kept (``uncertainty``, ``service.engine.scenarios``). The engine decides everything about
+the verdict (grades, demotion on untrusted data, the order of findings, what is missing, what to ask for); this module only
 gathers the facts and the findings met before the rules, and maps the verdict to the
 adapter-neutral ``Assessment``.
 """
@@ -17,14 +19,20 @@ from datetime import UTC, datetime, timedelta
 
 from service.config import Settings
 from service.engine import Evaluation, Pattern, RuleSet, Severity, evaluate
-from service.engine.verdict import SEVERITY_RANK, MechanismAssessment
+from service.engine.scenarios import Scenario, combine
+from service.engine.verdict import SEVERITY_RANK, MechanismAssessment, Verdict
 from service.intake.model import Intake, Quantity, Specimen
 
 from .derivation import FactValue
-from .derive import derive_gas_facts
-from .pairing import Pairing, pair_gases
+from .derive import GasFacts, derive_again, derive_gas_facts
+from .pairing import Pairing, Windows, pair_gases
 from .result import Assessment, Finding, GasResult, MechanismVerdict, ResultStatus
-from .serial import add_serial_facts
+from .serial import serial_facts
+from .uncertainty import input_ranges
+
+# The rule-set parameter that says how far a PaO2 may exceed the alveolar PO2 before the data
+# are doubted; the uncertain ranges are narrowed with it (0 when a rule set has none).
+ALVEOLAR_TOLERANCE = "alveolar_excess_tolerance"
 
 VALUE_OUT_OF_RANGE = "value-out-of-range"
 
@@ -62,13 +70,62 @@ def _merge(rule_findings: list[Finding], intake_findings: list[Finding]) -> list
     return merged + [f for f in intake_findings if f.code not in stated]
 
 
-def _status(evaluation: Evaluation) -> ResultStatus:
-    verdict = evaluation.verdict
+def _status(verdict: Verdict) -> ResultStatus:
     if verdict.pattern is Pattern.NOT_CLASSIFIABLE:
         return ResultStatus.DATA_REQUIRED
     if verdict.data_requested:
         return ResultStatus.DATA_REQUESTED
     return ResultStatus.SUCCESS
+
+
+def windows(settings: Settings) -> Windows:
+    """The pairing windows of the site's settings."""
+    return Windows(
+        same_sample=timedelta(minutes=settings.same_sample_minutes),
+        context=timedelta(minutes=settings.pairing_window_minutes),
+        setting=timedelta(hours=settings.setting_window_hours),
+        haemoglobin=timedelta(hours=settings.haemoglobin_window_hours),
+        dyshaemoglobins=timedelta(hours=settings.dyshaemoglobin_window_hours),
+        temperature=timedelta(hours=settings.temperature_window_hours),
+        lung_function=timedelta(days=settings.lung_function_window_days),
+    )
+
+
+def evaluate_gas(
+    index: GasFacts,
+    gases: list[GasFacts],
+    *,
+    ruleset: RuleSet,
+    settings: Settings,
+    extra: dict[str, FactValue],
+    input_errors: list[str],
+) -> tuple[Evaluation, Verdict, dict[str, FactValue]]:
+    """The index gas's evaluation as its inputs were sent, the verdict that holds across the
+    ranges of its uncertain inputs, and the facts the representative evaluation saw."""
+    parameter = ruleset.parameters.get(ALVEOLAR_TOLERANCE)
+    tolerance = parameter.value if parameter is not None else 0.0
+    ranges = input_ranges(index, tolerance_mmhg=tolerance, settings=settings)
+    common = {**serial_facts(gases, settings=settings), **extra}
+    facts = (
+        {**derive_again(index, ranges.representative, settings=settings), **common}
+        if ranges.representative
+        else {**index.facts, **common}
+    )
+    representative = evaluate(ruleset, facts, input_errors=input_errors)
+    if not ranges.scenarios or not ranges.uncertainties:
+        return representative, representative.verdict, facts
+    scenarios = [
+        Scenario(
+            label,
+            evaluate(
+                ruleset,
+                {**derive_again(index, changes, settings=settings), **common},
+                input_errors=input_errors,
+            ),
+        )
+        for label, changes in ranges.scenarios
+    ]
+    return representative, combine(representative, scenarios, ranges.uncertainties), facts
 
 
 def assess(
@@ -81,27 +138,24 @@ def assess(
 ) -> Assessment:
     """Assess one patient's data: every gas's physiology, the index gas's verdict."""
     now = now or datetime.now(UTC)
-    pairing = pair_gases(
-        intake,
-        window=timedelta(minutes=settings.pairing_window_minutes),
-        same_sample=timedelta(minutes=settings.same_sample_minutes),
-    )
+    pairing = pair_gases(intake, windows=windows(settings))
     gases = [
         derive_gas_facts(g, patient=intake.patient, settings=settings, today=now.date())
         for g in pairing.gases
     ]
     index = gases[0]
-    add_serial_facts(index, gases[1:])
     intake_findings = [
         Finding(i.code, Severity(i.severity.value), i.message, expression=i.expression)
         for i in intake.issues
     ]
-    evaluation = evaluate(
-        ruleset,
-        {**index.facts, **_specimen_flags(pairing)},
+    evaluation, verdict, _ = evaluate_gas(
+        index,
+        gases,
+        ruleset=ruleset,
+        settings=settings,
+        extra=_specimen_flags(pairing),
         input_errors=[f.code for f in intake_findings if f.severity is Severity.ERROR],
     )
-    verdict = evaluation.verdict
     rule_findings = [
         Finding(f.code.value, f.severity, f.rationale, rule=f.rule) for f in verdict.findings
     ]
@@ -129,6 +183,6 @@ def assess(
             if g.gas.anchor is not None and g.gas.anchor.quantity is Quantity.ARTERIAL_PO2
         ],
         data_requested=[r.fact for r in verdict.data_requested],
-        status=_status(evaluation),
+        status=_status(verdict),
         evaluation=evaluation,
     )

@@ -19,7 +19,7 @@ from dataclasses import dataclass
 
 from service.engine.catalogue import FactCatalogue
 from service.engine.facts import FactKind, FactOrigin, FactSpec
-from service.intake.model import QUANTITY_UNITS, Quantity
+from service.intake.model import CODED, QUANTITY_UNITS, Quantity
 from service.intake.plausibility import POSSIBLE_RANGE
 from service.physiology.bounds import AGE_YEARS
 from service.physiology.oxygen_delivery import OxygenDevice
@@ -32,6 +32,8 @@ from .serial import SERIAL_FACTS
 __all__ = ["AGE", "DEFAULT_CATALOGUE", "MEASURED", "OXYGEN_DEVICES", "PROVENANCE"]
 
 OXYGEN_DEVICES = frozenset(device.value for device in OxygenDevice)
+ALTITUDE_RESIDENCES = frozenset({"resident", "visitor"})
+_CODES = {Quantity.OXYGEN_DEVICE: OXYGEN_DEVICES, Quantity.ALTITUDE_RESIDENCE: ALTITUDE_RESIDENCES}
 AGE = "age"
 
 
@@ -50,9 +52,9 @@ class Measured:
 
     def spec(self) -> FactSpec:
         canonical = QUANTITY_UNITS[self.quantity]
-        if self.quantity is Quantity.OXYGEN_DEVICE:
+        if self.quantity in CODED:
             return FactSpec(
-                self.name, FactKind.CODE, None, self.description, allowed=OXYGEN_DEVICES
+                self.name, FactKind.CODE, None, self.description, allowed=_CODES[self.quantity]
             )
         if self.unit != canonical and not (self.unit == "%" and canonical == "1"):
             raise ValueError(
@@ -80,8 +82,9 @@ MEASURED: tuple[Measured, ...] = (
     Measured(_Q.ARTERIAL_PCO2, MMHG, 1, "Partial pressure of carbon dioxide, arterial"),
     Measured(_Q.ARTERIAL_PH, "[pH]", 2, "pH of arterial blood"),
     Measured(_Q.ARTERIAL_HCO3, "mmol/L", 1, "Bicarbonate, arterial blood"),
-    Measured(_Q.ARTERIAL_SO2, "%", 0, "Oxygen saturation of arterial haemoglobin"),
-    Measured(_Q.SPO2, "%", 0, "Oxygen saturation by pulse oximetry"),
+    Measured(_Q.ARTERIAL_SO2, "%", 1, "Oxygen saturation of arterial haemoglobin (functional)"),
+    Measured(_Q.ARTERIAL_O2HB, "%", 1, "Fractional oxyhaemoglobin, arterial (O2Hb / total Hb)"),
+    Measured(_Q.SPO2, "%", 1, "Oxygen saturation by pulse oximetry"),
     Measured(_Q.FIO2, "1", 2, "Fraction of inspired oxygen"),
     Measured(_Q.OXYGEN_FLOW, "L/min", 1, "Supplemental oxygen flow rate"),
     Measured(_Q.HAEMOGLOBIN, "g/dL", 1, "Haemoglobin concentration, blood"),
@@ -92,11 +95,15 @@ MEASURED: tuple[Measured, ...] = (
 MEASURED_AFTER_AGE: tuple[Measured, ...] = (
     Measured(_Q.BAROMETRIC_PRESSURE, MMHG, 0, "Ambient barometric pressure"),
     Measured(_Q.ALTITUDE, "m", 0, "Altitude above sea level where the gas was drawn"),
+    Measured(_Q.ALTITUDE_RESIDENCE, "", 0, "Lives at this altitude (resident) or visiting"),
     Measured(_Q.MIXED_VENOUS_PO2, MMHG, 1, "Partial pressure of oxygen, mixed venous"),
     Measured(_Q.MIXED_VENOUS_SO2, "%", 0, "Oxygen saturation, mixed venous blood"),
+    Measured(_Q.DLCO, "mL/min/mm[Hg]", 1, "Diffusing capacity for CO"),
+    Measured(_Q.DLCO_LOWER_LIMIT, "mL/min/mm[Hg]", 1, "Lower limit of normal of the DLCO"),
     Measured(_Q.DLCO_PERCENT_PREDICTED, "%", 0, "Diffusing capacity for CO, % predicted"),
-    Measured(_Q.SPO2_EXERTIONAL_NADIR, "%", 0, "Lowest SpO2 during an exercise test"),
-    Measured(_Q.SPO2_EXERTIONAL_BASELINE, "%", 0, "SpO2 at rest before the exercise test"),
+    Measured(_Q.DLCO_PERCENT_LOWER_LIMIT, "%", 0, "Lower limit of normal of the DLCO, % pred."),
+    Measured(_Q.SPO2_EXERTIONAL_NADIR, "%", 1, "Lowest SpO2 during an exercise test"),
+    Measured(_Q.SPO2_EXERTIONAL_BASELINE, "%", 1, "SpO2 at rest before the exercise test"),
     Measured(_Q.PEEP, "cm[H2O]", 0, "Positive end-expiratory pressure"),
     Measured(_Q.RESPIRATORY_RATE, "/min", 0, "Respiratory rate"),
     Measured(_Q.OXYGEN_DEVICE, "", 0, "Oxygen delivery device in use"),
@@ -110,6 +117,7 @@ def _flag(name: str, description: str) -> FactSpec:
 
 
 PROVENANCE: tuple[FactSpec, ...] = (
+    _flag("fio2_sent", "An FiO2, an oxygen device or a site setting says what was breathed"),
     _flag("fio2_estimated_from_flow", "FiO2 was estimated from device and flow"),
     _flag("fio2_time_mismatch", "FiO2 was recorded too far from the sample time"),
     _flag("barometric_pressure_estimated", "Barometric pressure was estimated from altitude"),
@@ -118,6 +126,18 @@ PROVENANCE: tuple[FactSpec, ...] = (
     _flag("specimen_unknown", "The specimen type of the gas was not stated"),
     _flag("specimen_not_arterial", "The specimen was stated to be other than arterial"),
     _flag("sao2_by_cooximetry", "SaO2 was measured by co-oximetry, not calculated"),
+)
+
+# The least FiO2 the PaO2 allows when a device estimate had to be narrowed (``uncertainty``).
+FIO2_LOWEST_POSSIBLE = FactSpec(
+    "fio2_lowest_possible",
+    FactKind.QUANTITY,
+    "1",
+    "The least FiO2 the PaO2 allows, when it is above the low end of the device's range",
+    0.0,
+    1.0,
+    decimals=2,
+    origin=FactOrigin.PROVENANCE,
 )
 
 MEASURED_SPECS: tuple[FactSpec, ...] = (
@@ -133,6 +153,7 @@ DEFAULT_CATALOGUE = FactCatalogue(
         *(entry.spec for entry in DERIVED_FACTS),
         *SERIAL_FACTS,
         *PROVENANCE,
+        FIO2_LOWEST_POSSIBLE,
     )
 )
 """The catalogue the default rule set and the intake agree on."""

@@ -23,7 +23,7 @@ from .derived import DERIVED_FACTS
 from .pairing import PairedGas
 from .sources import barometric_pressure, inspired_oxygen_fraction
 
-__all__ = ["Derived", "FactValue", "GasFacts", "age_years", "derive_gas_facts"]
+__all__ = ["Derived", "FactValue", "GasFacts", "age_years", "derive_again", "derive_gas_facts"]
 
 
 @dataclass(slots=True)
@@ -39,6 +39,10 @@ class GasFacts:
     fio2_source: str | None = None
     fio2_range: tuple[float, float] | None = None
     problems: list[str] = field(default_factory=list)
+    measured: dict[str, FactValue] = field(default_factory=dict)
+    """The facts before derivation (measured, PB and FiO2 with their flags): what a scenario
+    with other inputs derives from again."""
+    measured_sources: dict[str, tuple[Source, ...]] = field(default_factory=dict)
 
     def number(self, name: str) -> float | None:
         value = self.facts.get(name)
@@ -85,9 +89,23 @@ def derive_gas_facts(
     _measured(out, patient, today)
     barometric_pressure(out, settings)
     inspired_oxygen_fraction(out, settings)
+    out.measured = dict(out.facts)
+    out.measured_sources = dict(out.sources)
     filed, problems = compute_derived(
         DERIVED_FACTS, out.facts, out.sources, DEFAULT_CATALOGUE, settings
     )
     out.derived.update(filed)
     out.problems += problems
     return out
+
+
+def derive_again(
+    gas: GasFacts, changes: dict[str, FactValue], *, settings: Settings
+) -> dict[str, FactValue]:
+    """The facts of ``gas`` derived again with some inputs changed (a scenario): ``changes``
+    are facts in catalogue units (``fio2``, ``barometric_pressure``, ``age``,
+    ``altitude_residence``). Problems met are not reported again."""
+    facts = {**gas.measured, **changes}
+    sources = dict(gas.measured_sources)
+    compute_derived(DERIVED_FACTS, facts, sources, DEFAULT_CATALOGUE, settings)
+    return facts

@@ -1,5 +1,5 @@
 """Derived facts of gas exchange: water vapour, inspired and alveolar PO2, the A-a gradient
-with its age limit, and the oxygenation ratios. Every number comes from
+and the oxygenation ratios (their normal values: ``normals``). Every number comes from
 ``service.physiology``; the method texts are built from the same constants."""
 
 from __future__ import annotations
@@ -23,15 +23,18 @@ _DIFFERENCE = (-PARTIAL_PRESSURE_MMHG[1], PARTIAL_PRESSURE_MMHG[1])
     MMHG,
     (0.0, 100.0),
     1,
-    "Saturated water vapour pressure at body temperature",
+    "Saturated water vapour pressure at 37 Cel",
     result="water-vapour-pressure",
 )
-def water_vapour_pressure(*, body_temperature: float | None = None) -> Computed:
-    at = c.NORMAL_BODY_TEMPERATURE_CEL if body_temperature is None else body_temperature
-    assumed = "" if body_temperature is not None else f" (temperature not sent: {at:g} Cel assumed)"
+def water_vapour_pressure() -> Computed:
+    # One convention for every number: the analyser reports PaO2 and PaCO2 at 37 Cel, and the
+    # reference values (Cerveri 1995) were measured so; the alveolar gas equation takes the
+    # water vapour pressure at the same temperature. Body temperature is not applied.
+    at = c.NORMAL_BODY_TEMPERATURE_CEL
     return Computed(
         water_vapour_pressure_mmhg(temperature_cel=at),
-        f"IAPWS-IF97 saturation pressure at {at:g} Cel{assumed}",
+        f"IAPWS-IF97 saturation pressure at {at:g} Cel, the temperature the analyser reports "
+        "PaO2 and PaCO2 at",
     )
 
 
@@ -88,28 +91,6 @@ def alveolar_po2(
     )
 
 
-@table.quantity("aa_gradient_mean_for_age", MMHG, (0.0, 100.0), 1, "Expected A-a gradient for age")
-def aa_gradient_mean_for_age(*, age: float) -> float:
-    return gx.aa_gradient_mean_for_age_mmhg(age_years=age)
-
-
-@table.quantity(
-    "aa_gradient_upper_limit",
-    MMHG,
-    (0.0, 100.0),
-    1,
-    "Upper limit of A-a gradient for age",
-    result="aa-gradient-upper-limit",
-)
-def aa_gradient_upper_limit(*, age: float) -> Computed:
-    return Computed(
-        gx.aa_gradient_upper_limit_mmhg(age_years=age),
-        f"room-air age limit: max({gx.MELLEMGAARD_INTERCEPT_MMHG:g} + "
-        f"{gx.MELLEMGAARD_SLOPE_MMHG_PER_YEAR:g} × age (Mellemgaard 1966), "
-        f"age/{gx.AGE_RULE_DIVISOR_YEARS:g} + {gx.AGE_RULE_OFFSET_MMHG:g})",
-    )
-
-
 @table.quantity("pf_ratio", MMHG, (0.0, 2000.0), 0, "PaO2 / FiO2", result="pf-ratio")
 def pf_ratio(*, arterial_po2: float, fio2: float) -> Computed:
     return Computed(gx.pf_ratio_mmhg(arterial_po2_mmhg=arterial_po2, fio2=fio2), "PaO2 / FiO2")
@@ -133,17 +114,6 @@ def aa_gradient(*, alveolar_po2: float, arterial_po2: float) -> Computed:
 @table.quantity("arterial_alveolar_excess", MMHG, _DIFFERENCE, 1, "Arterial minus alveolar PO2")
 def arterial_alveolar_excess(*, arterial_po2: float, alveolar_po2: float) -> float:
     return arterial_po2 - alveolar_po2
-
-
-@table.quantity(
-    "aa_gradient_excess",
-    MMHG,
-    (_DIFFERENCE[0] - 100.0, _DIFFERENCE[1]),
-    1,
-    "A-a gradient minus its upper limit",
-)
-def aa_gradient_excess(*, aa_gradient: float, aa_gradient_upper_limit: float) -> float:
-    return aa_gradient - aa_gradient_upper_limit
 
 
 @table.quantity(

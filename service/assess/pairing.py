@@ -1,12 +1,17 @@
 """Pair each arterial gas with the values that describe the same moment.
 
-A gas is anchored on its arterial PO2. Values of the same sample (PaCO2, pH, HCO3, SaO2,
-dyshaemoglobins) are taken within ``same_sample`` of the anchor; context (FiO2, flow, device,
-SpO2, temperature, Hb, PEEP, ambient pressure, mixed-venous values) within the pairing window;
-patient-level values (altitude, DLCO, walk-test oximetry) regardless of time. Among candidates
-the nearest in time wins; a value with no time is used only when no timed value qualifies.
-Values of a kind that exist but fall outside the window are kept as ``out_of_window`` so the
-result can say so.
+A gas is anchored on its arterial PO2. Each kind of value has its own window (``Windows``),
+fitting how fast it changes and how it is usually recorded: values of the same sample (PaCO2,
+pH, HCO3, SaO2) within minutes of the anchor; the moment's context (SpO2, ambient pressure,
+mixed-venous values) within the pairing window; oxygen and ventilator settings (FiO2, flow,
+device, PEEP) as the one in force — the latest charted before the gas within hours, else the
+nearest within the pairing window; haemoglobin within
+hours, carboxy- and methaemoglobin and body temperature within a few hours; lung function
+(DLCO, walk-test oximetry) within months; altitude and residence regardless of time. Among
+candidates the nearest in time wins; a value with no time is used only when no timed value
+qualifies. Values of a kind that exist but fall outside their window are kept as
+``out_of_window`` so the result can say so, and how far from the gas each value was taken is
+kept (``offset``) so the result can show it.
 """
 
 from __future__ import annotations
@@ -24,35 +29,78 @@ SAME_SAMPLE: frozenset[Quantity] = frozenset(
         Quantity.ARTERIAL_HCO3,
         Quantity.ARTERIAL_BASE_EXCESS,
         Quantity.ARTERIAL_SO2,
-        Quantity.CARBOXYHAEMOGLOBIN,
-        Quantity.METHAEMOGLOBIN,
+        Quantity.ARTERIAL_O2HB,
     }
 )
-CONTEXT: frozenset[Quantity] = frozenset(
+SETTINGS: frozenset[Quantity] = frozenset(
     {
         Quantity.FIO2,
         Quantity.OXYGEN_FLOW,
         Quantity.OXYGEN_DEVICE,
-        Quantity.SPO2,
-        Quantity.BODY_TEMPERATURE,
-        Quantity.HAEMOGLOBIN,
         Quantity.PEEP,
         Quantity.MEAN_AIRWAY_PRESSURE,
+    }
+)
+"""Settings stay in force until changed: charted when set, not at each gas."""
+CONTEXT: frozenset[Quantity] = SETTINGS | frozenset(
+    {
+        Quantity.SPO2,
         Quantity.RESPIRATORY_RATE,
         Quantity.BAROMETRIC_PRESSURE,
         Quantity.MIXED_VENOUS_PO2,
         Quantity.MIXED_VENOUS_SO2,
     }
 )
-PATIENT_LEVEL: frozenset[Quantity] = frozenset(
+HAEMOGLOBIN: frozenset[Quantity] = frozenset({Quantity.HAEMOGLOBIN})
+DYSHAEMOGLOBINS: frozenset[Quantity] = frozenset(
+    {Quantity.CARBOXYHAEMOGLOBIN, Quantity.METHAEMOGLOBIN}
+)
+TEMPERATURE: frozenset[Quantity] = frozenset({Quantity.BODY_TEMPERATURE})
+LUNG_FUNCTION: frozenset[Quantity] = frozenset(
     {
-        Quantity.ALTITUDE,
         Quantity.DLCO,
         Quantity.DLCO_PERCENT_PREDICTED,
+        Quantity.DLCO_LOWER_LIMIT,
+        Quantity.DLCO_PERCENT_LOWER_LIMIT,
         Quantity.SPO2_EXERTIONAL_NADIR,
         Quantity.SPO2_EXERTIONAL_BASELINE,
     }
 )
+PATIENT_LEVEL: frozenset[Quantity] = frozenset({Quantity.ALTITUDE, Quantity.ALTITUDE_RESIDENCE})
+
+
+@dataclass(frozen=True, slots=True)
+class Windows:
+    """How far from its gas each kind of value may be taken (None: any time)."""
+
+    same_sample: timedelta
+    context: timedelta
+    setting: timedelta
+    """How long an oxygen or ventilator setting charted before a gas is taken to be in force."""
+    haemoglobin: timedelta
+    dyshaemoglobins: timedelta
+    temperature: timedelta
+    lung_function: timedelta
+
+    def limit(self, quantity: Quantity) -> timedelta | None:
+        """The window of ``quantity``: a time, or None for any time (patient-level values)."""
+        for group, window in (
+            (SAME_SAMPLE, self.same_sample),
+            (CONTEXT, self.context),
+            (HAEMOGLOBIN, self.haemoglobin),
+            (DYSHAEMOGLOBINS, self.dyshaemoglobins),
+            (TEMPERATURE, self.temperature),
+            (LUNG_FUNCTION, self.lung_function),
+        ):
+            if quantity in group:
+                return window
+        return None
+
+
+PAIRED: frozenset[Quantity] = (
+    SAME_SAMPLE | CONTEXT | HAEMOGLOBIN | DYSHAEMOGLOBINS | TEMPERATURE | LUNG_FUNCTION
+) | PATIENT_LEVEL
+"""Every quantity a gas takes from around it (venous and capillary values are not)."""
 # Arterial quantities that must not be used when the sample is not known to be arterial.
 ARTERIAL: frozenset[Quantity] = SAME_SAMPLE | {Quantity.ARTERIAL_PO2}
 NOT_ARTERIAL_PO2: frozenset[Quantity] = frozenset(
@@ -76,6 +124,15 @@ class PairedGas:
 
     def get(self, quantity: Quantity) -> Measurement | None:
         return self.values.get(quantity)
+
+    def offset(self, quantity: Quantity) -> timedelta | None:
+        """How long before (negative: after) the gas the paired value was taken, if both
+        are timed."""
+        m = self.values.get(quantity)
+        anchor = self.time
+        if m is None or m.time is None or anchor is None:
+            return None
+        return anchor - m.time
 
 
 @dataclass(slots=True)
@@ -101,6 +158,21 @@ def _sort_key(m: Measurement) -> tuple[int, float]:
     return (0, 0.0) if m.time is None else (1, m.time.timestamp())
 
 
+def _in_force(
+    candidates: Iterable[Measurement], anchor_time: datetime | None, lookback: timedelta
+) -> Measurement | None:
+    """The setting in force at ``anchor_time``: the latest charted at or before it, within
+    ``lookback``."""
+    if anchor_time is None:
+        return None
+    before = [
+        m
+        for m in candidates
+        if m.time is not None and timedelta(0) <= anchor_time - m.time <= lookback
+    ]
+    return max(before, key=_sort_key) if before else None
+
+
 def _nearest(
     candidates: Iterable[Measurement], anchor_time: datetime | None, limit: timedelta | None
 ) -> tuple[Measurement | None, Measurement | None, bool]:
@@ -120,7 +192,7 @@ def _nearest(
     return None, rejected, False
 
 
-def pair_gases(intake: Intake, *, window: timedelta, same_sample: timedelta) -> Pairing:
+def pair_gases(intake: Intake, *, windows: Windows) -> Pairing:
     """Build the gases of ``intake``: every usable arterial PO2 anchors one, latest first."""
     by_quantity: dict[Quantity, list[Measurement]] = {}
     excluded: list[Measurement] = []
@@ -133,9 +205,9 @@ def pair_gases(intake: Intake, *, window: timedelta, same_sample: timedelta) -> 
     if not anchors:
         spo2 = sorted(by_quantity.get(Quantity.SPO2, []), key=_sort_key, reverse=True)
         anchors = spo2[:1]
-    gases = [_pair_one(a, by_quantity, window, same_sample) for a in anchors]
+    gases = [_pair_one(a, by_quantity, windows) for a in anchors]
     if not gases:
-        gases = [_pair_one(None, by_quantity, window, same_sample)]
+        gases = [_pair_one(None, by_quantity, windows)]
     non_arterial = [m for q in NOT_ARTERIAL_PO2 for m in by_quantity.get(q, [])]
     return Pairing(gases=gases, excluded_specimens=excluded, non_arterial_po2=non_arterial)
 
@@ -143,8 +215,7 @@ def pair_gases(intake: Intake, *, window: timedelta, same_sample: timedelta) -> 
 def _pair_one(
     anchor: Measurement | None,
     by_quantity: dict[Quantity, list[Measurement]],
-    window: timedelta,
-    same_sample: timedelta,
+    windows: Windows,
 ) -> PairedGas:
     gas = PairedGas(anchor=anchor)
     anchor_time = anchor.time if anchor else None
@@ -153,15 +224,15 @@ def _pair_one(
     for quantity, candidates in by_quantity.items():
         if quantity in gas.values or quantity is Quantity.ARTERIAL_PO2:
             continue
-        if quantity in PATIENT_LEVEL:
-            limit: timedelta | None = None
-        elif quantity in SAME_SAMPLE:
-            limit = same_sample
-        elif quantity in CONTEXT:
-            limit = window
-        else:
+        if quantity not in PAIRED:
             continue
+        limit = windows.limit(quantity)
         chosen, rejected, untimed = _nearest(candidates, anchor_time, limit)
+        if quantity in SETTINGS:
+            # The setting in force (charted before the gas) wins over one charted just after.
+            in_force = _in_force(candidates, anchor_time, windows.setting)
+            if in_force is not None:
+                chosen, rejected, untimed = in_force, None, False
         if chosen is not None:
             gas.values[quantity] = chosen
             if untimed and anchor_time is not None:

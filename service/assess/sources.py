@@ -110,6 +110,7 @@ def inspired_oxygen_fraction(out: GasFacts, settings: Settings) -> float | None:
     if fio2 is None and settings.assume_room_air:
         fio2, method = c.ROOM_AIR_FIO2, "room air assumed by site setting"
         out.fio2_source = Fio2Source.SITE_SETTING.value
+    out.facts["fio2_sent"] = fio2 is not None
     out.facts["fio2_estimated_from_flow"] = estimated
     out.facts["fio2_time_mismatch"] = sent is None and Quantity.FIO2 in out.gas.out_of_window
     if fio2 is None:

@@ -50,9 +50,7 @@ class FactCatalogue(Mapping[str, FactSpec]):
             and math.isfinite(spec.minimum)
             and math.isfinite(spec.maximum)
         }
-        self._decimals = {
-            n: s.decimals for n, s in table.items() if s.kind is FactKind.QUANTITY
-        }
+        self._decimals = {n: s.decimals for n, s in table.items() if s.kind is FactKind.QUANTITY}
         self._booleans = frozenset(n for n, s in table.items() if s.kind is FactKind.BOOLEAN)
         self._codes = {n: s.allowed for n, s in table.items() if s.kind is FactKind.CODE}
 

@@ -13,7 +13,16 @@ from operator import itemgetter
 
 from service.engine.logic import TruthValue
 
-__all__ = ["BROKEN", "CompiledCondition", "StateVector", "all_of", "any_of", "leaf_node", "not_of"]
+__all__ = [
+    "BROKEN",
+    "CompiledCondition",
+    "StateVector",
+    "all_of",
+    "any_of",
+    "definitely_of",
+    "leaf_node",
+    "not_of",
+]
 
 StateVector = Sequence[TruthValue]
 
@@ -116,6 +125,16 @@ def not_of(part: CompiledCondition) -> CompiledCondition:
         return None if value is None else not value
 
     return CompiledCondition(truth, part.undecided, part.leaves)
+
+
+def definitely_of(part: CompiledCondition) -> CompiledCondition:
+    """`definitely`: true when the part is true, false when it is false or unknown."""
+    inner = part.truth
+
+    def truth(states: StateVector) -> TruthValue:
+        return inner(states) is True
+
+    return CompiledCondition(truth, _never_decided, part.leaves)
 
 
 def leaf_node(index: int) -> CompiledCondition:

@@ -18,7 +18,15 @@ from collections.abc import Mapping
 from dataclasses import dataclass
 
 from service.engine.catalogue import FactCatalogue
-from service.engine.compiled import BROKEN, CompiledCondition, all_of, any_of, leaf_node, not_of
+from service.engine.compiled import (
+    BROKEN,
+    CompiledCondition,
+    all_of,
+    any_of,
+    definitely_of,
+    leaf_node,
+    not_of,
+)
 from service.engine.errors import RuleProblem
 from service.engine.facts import FactKind, FactSpec
 from service.engine.leaves import Leaf, Threshold, leaf_test
@@ -29,6 +37,7 @@ from service.engine.schema import (
     AnyNode,
     Condition,
     LeafNode,
+    DefinitelyNode,
     NotNode,
     ParameterRef,
     RefNode,
@@ -92,6 +101,8 @@ class ConditionCompiler:
             )
         if isinstance(node, NotNode):
             return not_of(self.compile(node.not_, where.at(".not")))
+        if isinstance(node, DefinitelyNode):
+            return definitely_of(self.compile(node.definitely, where.at(".definitely")))
         if isinstance(node, RefNode):
             return self._reference(node.ref, where.at(".ref"))
         return self._leaf(node, where)

@@ -10,6 +10,7 @@ A condition is one of:
     all: [condition, ...]       true when every part is true
     any: [condition, ...]       true when some part is true
     not: condition              swaps true and false
+    definitely: condition       true when the condition is true, false otherwise (never unknown)
     ref: block_name             a named condition from the manifest's `blocks`
     {fact: ..., <operator>: ..., unit: ...}   a leaf
 
@@ -43,6 +44,7 @@ __all__ = [
     "AllNode",
     "AnyNode",
     "Condition",
+    "DefinitelyNode",
     "DiscriminatorModel",
     "FindingModel",
     "LeafNode",
@@ -183,6 +185,14 @@ class NotNode(_Strict):
     not_: "Condition" = Field(alias="not")
 
 
+class DefinitelyNode(_Strict):
+    """`definitely: condition` — true when the condition is true, else false: for checks whose
+    missing facts mean "no evidence", not "unknown" (a data-trust check that could not be
+    made does not make the data untrusted)."""
+
+    definitely: "Condition"
+
+
 class RefNode(_Strict):
     """`ref: block_name`."""
 
@@ -197,6 +207,7 @@ def _condition_tag(value: Any) -> str | None:
             ("all", "all-of"),
             ("any", "any-of"),
             ("not", "not-of"),
+            ("definitely", "definitely-of"),
             ("ref", "block-ref"),
         ):
             if key in value:
@@ -210,12 +221,13 @@ Condition = Annotated[
     Annotated[AllNode, Tag("all-of")]
     | Annotated[AnyNode, Tag("any-of")]
     | Annotated[NotNode, Tag("not-of")]
+    | Annotated[DefinitelyNode, Tag("definitely-of")]
     | Annotated[RefNode, Tag("block-ref")]
     | Annotated[LeafNode, Tag("leaf")],
     Discriminator(
         _condition_tag,
         custom_error_type="condition_shape",
-        custom_error_message="a condition needs one of all, any, not, ref or fact",
+        custom_error_message="a condition needs one of all, any, not, definitely, ref or fact",
     ),
 ]
 
@@ -223,6 +235,7 @@ _MODEL_TAGS: dict[type[BaseModel], str] = {
     AllNode: "all-of",
     AnyNode: "any-of",
     NotNode: "not-of",
+    DefinitelyNode: "definitely-of",
     RefNode: "block-ref",
     LeafNode: "leaf",
 }
@@ -232,6 +245,7 @@ UNION_TAGS = frozenset({*_MODEL_TAGS.values(), "number", "parameter-ref"})
 AllNode.model_rebuild()
 AnyNode.model_rebuild()
 NotNode.model_rebuild()
+DefinitelyNode.model_rebuild()
 
 
 class ParameterModel(_Strict):

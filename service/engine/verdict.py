@@ -52,6 +52,8 @@ __all__ = [
     "Verdict",
     "decide",
     "decide_states",
+    "finding_order",
+    "pattern_of",
 ]
 
 OXYGENATION_FACTS = ("arterial_po2", "spo2")
@@ -233,12 +235,14 @@ _UNASSESSED = {
 }
 
 
-def _pattern(
+def pattern_of(
     demotion: str | None,
     hypoxaemia: HypoxaemiaStatus,
     gas_exchange: GasExchangeStatus,
     mechanisms: Sequence[MechanismAssessment],
 ) -> tuple[Pattern, str]:
+    """The pattern of a verdict and why (see the module docstring); ``demotion`` is why the
+    gas is not classifiable, or None."""
     if demotion is not None:
         return Pattern.NOT_CLASSIFIABLE, demotion
     likely = [item.mechanism for item in mechanisms if item.grade is _LIKELY]
@@ -265,7 +269,7 @@ def _pattern(
     )
 
 
-def _finding_order(item: FindingResult) -> tuple[int, str, str]:
+def finding_order(item: FindingResult) -> tuple[int, str, str]:
     return SEVERITY_RANK[item.severity], item.code, item.result.rule.ref
 
 
@@ -353,7 +357,7 @@ def decide_states(
         if states[position] is True
     ]
     if len(findings) > 1:
-        findings.sort(key=_finding_order)
+        findings.sort(key=finding_order)
     said = _stated(plan.hypoxaemia, states)
     if _PRESENT in said:
         hypoxaemia = _PRESENT
@@ -384,7 +388,7 @@ def decide_states(
         mechanisms.append(assessment)
         if assessment.grade is _POSSIBLE:
             _ask_discriminators(assessment, requests)
-    pattern, reason = _pattern(demotion, hypoxaemia, gas_exchange, mechanisms)
+    pattern, reason = pattern_of(demotion, hypoxaemia, gas_exchange, mechanisms)
     if pattern is Pattern.NOT_CLASSIFIABLE and requests.empty:
         for fact in REPEAT_SAMPLE.requests:
             requests.ask(fact, "", even_if_known=True)  # asked by the verdict itself

@@ -15,7 +15,7 @@ because the sender cannot say whether the value stands. Any other status refuses
 from __future__ import annotations
 
 import sys
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from datetime import datetime
 
 from service.fhir import codes as fhir_codes
@@ -31,8 +31,8 @@ from service.fhir.shape import (
 )
 from service.fhir.shape import member_str as text
 from service.fhir.specimens import observation_specimen
-from service.fhir.values import plain_value, read_device, read_quantity
-from service.intake.model import Measurement, Quantity, Severity, Source, Specimen
+from service.fhir.values import plain_value, read_coded, read_quantity
+from service.intake.model import CODED, Measurement, Quantity, Severity, Source, Specimen
 from service.intake.reading import Reading, Settled
 from service.terminology import codes
 from service.terminology.codes import Concept
@@ -94,8 +94,10 @@ class ObservationReader:
         if codings is None or profiles is None:
             return None
         concept = identify(codings, profiles, self.concept_map)
-        if concept is None or concept.quantity is Quantity.OXYGEN_DEVICE:
+        if concept is None or concept.quantity in CODED:
             return None  # unknown (reported) or coded (valueCodeableConcept)
+        if concept.lower_limit is not None and "referenceRange" in resource:
+            return None  # the lower limit of normal is read thoroughly
         time = self._plain_time(resource.get("effectiveDateTime"))
         settled = _plain_quantity(resource.get("valueQuantity"), concept)
         if time is None or settled is None:
@@ -246,6 +248,38 @@ class ObservationReader:
                 fio2_source=concept.fio2_source,
             )
         )
+        if concept.lower_limit is not None:
+            self._lower_limit(found, holder, at, concept, time, reference)
+
+    def _lower_limit(
+        self,
+        found: list[Measurement],
+        holder: JsonObject,
+        at: str,
+        concept: Concept,
+        time: datetime | None,
+        reference: str,
+    ) -> None:
+        """The lower limit of normal of a value (``referenceRange[0].low``), as its own quantity."""
+        assert concept.lower_limit is not None
+        ranges = member_list(holder, "referenceRange", at, self.out) or []
+        for item, item_at in objects(ranges, f"{at}.referenceRange", self.out):
+            low = member_object(item, "low", item_at, self.out)
+            if low is not None:
+                limit = replace(concept, quantity=concept.lower_limit, lower_limit=None)
+                reading = read_quantity(low[0], low[1], limit, self.out)
+                if reading is not None:
+                    found.append(
+                        Measurement(
+                            concept.lower_limit,
+                            reading.value,
+                            time,
+                            Source(reference, low[1]),
+                            sent_value=reading.sent_value,
+                            sent_unit=reading.sent_unit,
+                        )
+                    )
+            return  # the first range is the normal range (FHIR: several are alternatives)
 
     def _specimen(self, observation: JsonObject, at: str) -> tuple[Specimen, bool]:
         """The Observation's specimen (resolved once per Observation) and whether it is known."""
@@ -398,9 +432,7 @@ def _value(holder: JsonObject, at: str, concept: Concept, out: Collector) -> Rea
             )
         return None
     key = keys[0]
-    expected = (
-        "valueCodeableConcept" if concept.quantity is Quantity.OXYGEN_DEVICE else "valueQuantity"
-    )
+    expected = "valueCodeableConcept" if concept.quantity in CODED else "valueQuantity"
     if key != expected:
         out.issue(
             "observation-ignored",
@@ -413,5 +445,5 @@ def _value(holder: JsonObject, at: str, concept: Concept, out: Collector) -> Rea
     if found is None:
         return None
     if key == "valueCodeableConcept":
-        return read_device(found[0], found[1], out)
+        return read_coded(found[0], found[1], concept.quantity, out)
     return read_quantity(found[0], found[1], concept, out)

@@ -14,7 +14,7 @@ from service.exceptions import ImpossibleValueError, UnitError
 from service.fhir import codes as fhir_codes
 from service.fhir.shape import Collector, JsonObject, member_list, member_number, objects
 from service.fhir.shape import member_str as text
-from service.intake.model import Severity
+from service.intake.model import Quantity, Severity
 from service.intake.plausibility import out_of_range
 from service.intake.reading import Reading, Settled, settle
 from service.physiology.units import FIO2_LIMITS, Dimension
@@ -126,25 +126,22 @@ def read_quantity(q: JsonObject, at: str, concept: Concept, out: Collector) -> R
     return Reading(canonical, sent_value=sent_value, sent_unit=sent_unit)
 
 
-def read_device(cc: JsonObject, at: str, out: Collector) -> Reading | None:
-    """The oxygen-device code of a ``valueCodeableConcept`` (our CodeSystem or SNOMED CT)."""
+def read_coded(cc: JsonObject, at: str, quantity: Quantity, out: Collector) -> Reading | None:
+    """The value of a coded quantity (oxygen device, residence) from a ``valueCodeableConcept``:
+    the first coding that means something to the service (``codes.coded_value``)."""
     codings = member_list(cc, "coding", at, out) or []
-    sent: list[str] = []
     for coding, coding_at in objects(codings, f"{at}.coding", out):
         system = text(coding, "system", coding_at, out)
         code = text(coding, "code", coding_at, out)
         if system is None or code is None:
             continue
-        if system == codes.OXYGEN_DEVICE_CODES and code in codes.OXYGEN_DEVICES:
-            return Reading(code)
-        if system == codes.SNOMED_CT and code in codes.SNOMED_OXYGEN_DEVICES:
-            return Reading(codes.SNOMED_OXYGEN_DEVICES[code])
-        sent.append(f"{system}|{code}")
-    named = ", ".join(sent) if sent else "no coding"
+        value = codes.coded_value(quantity, system, code)
+        if value is not None:
+            return Reading(value)
     out.issue(
         "observation-ignored",
         Severity.INFORMATION,
-        f"oxygen device not recognised ({named}); use {codes.OXYGEN_DEVICE_CODES}",
+        f"{quantity.value.replace('_', ' ')} not recognised; use {codes.CODE_SYSTEM_OF[quantity]}",
         at,
     )
     return None

@@ -21,6 +21,7 @@ class Quantity(StrEnum):
     ARTERIAL_HCO3 = "arterial_hco3"
     ARTERIAL_BASE_EXCESS = "arterial_base_excess"
     ARTERIAL_SO2 = "arterial_so2"  # by co-oximetry / analyser (2708-6 without 59408-5)
+    ARTERIAL_O2HB = "arterial_o2hb"  # fractional oxyhaemoglobin, O2Hb / total Hb (2714-4)
     SPO2 = "spo2"  # by pulse oximetry
     VENOUS_PO2 = "venous_po2"
     VENOUS_PCO2 = "venous_pco2"
@@ -44,8 +45,11 @@ class Quantity(StrEnum):
     METHAEMOGLOBIN = "methaemoglobin"
     BAROMETRIC_PRESSURE = "barometric_pressure"
     ALTITUDE = "altitude"
+    ALTITUDE_RESIDENCE = "altitude_residence"  # a code: lives at this altitude or visiting
     DLCO = "dlco"
     DLCO_PERCENT_PREDICTED = "dlco_percent_predicted"
+    DLCO_LOWER_LIMIT = "dlco_lower_limit"  # Observation.referenceRange.low of a DLCO
+    DLCO_PERCENT_LOWER_LIMIT = "dlco_percent_lower_limit"  # the same, of a % predicted DLCO
     SPO2_EXERTIONAL_NADIR = "spo2_exertional_nadir"
     SPO2_EXERTIONAL_BASELINE = "spo2_exertional_baseline"
 
@@ -57,6 +61,7 @@ QUANTITY_UNITS: dict[Quantity, str] = {
     **{q: "[pH]" for q in Quantity if q.value.endswith("_ph")},
     **{q: "1" for q in Quantity if q.value.endswith("so2")},
     Quantity.SPO2: "1",
+    Quantity.ARTERIAL_O2HB: "1",
     Quantity.SPO2_EXERTIONAL_NADIR: "1",
     Quantity.SPO2_EXERTIONAL_BASELINE: "1",
     Quantity.ARTERIAL_HCO3: "mmol/L",
@@ -64,6 +69,7 @@ QUANTITY_UNITS: dict[Quantity, str] = {
     Quantity.FIO2: "1",
     Quantity.OXYGEN_FLOW: "L/min",
     Quantity.OXYGEN_DEVICE: "",
+    Quantity.ALTITUDE_RESIDENCE: "",
     Quantity.PEEP: "cm[H2O]",
     Quantity.MEAN_AIRWAY_PRESSURE: "cm[H2O]",
     Quantity.RESPIRATORY_RATE: "/min",
@@ -75,7 +81,13 @@ QUANTITY_UNITS: dict[Quantity, str] = {
     Quantity.ALTITUDE: "m",
     Quantity.DLCO: "mL/min/mm[Hg]",
     Quantity.DLCO_PERCENT_PREDICTED: "1",
+    Quantity.DLCO_LOWER_LIMIT: "mL/min/mm[Hg]",
+    Quantity.DLCO_PERCENT_LOWER_LIMIT: "1",
 }
+
+
+CODED: frozenset[Quantity] = frozenset({Quantity.OXYGEN_DEVICE, Quantity.ALTITUDE_RESIDENCE})
+"""Quantities whose value is a code (read from valueCodeableConcept or a coded OBX-5)."""
 
 
 class Specimen(StrEnum):
@@ -112,7 +124,7 @@ class Measurement:
     """One value, converted to the canonical unit of its quantity.
 
     ``sent_value``/``sent_unit`` keep what the sender wrote when a conversion happened.
-    ``value`` is a str only for coded quantities (``OXYGEN_DEVICE``).
+    ``value`` is a str only for coded quantities (``CODED``).
     """
 
     quantity: Quantity

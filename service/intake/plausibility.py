@@ -39,6 +39,7 @@ POSSIBLE_RANGE: MappingProxyType[Quantity, tuple[float, float]] = MappingProxyTy
         **_by_suffix(("_ph",), bounds.PH),
         **_by_suffix(("so2",), _SATURATION),
         Quantity.SPO2: _SATURATION,
+        Quantity.ARTERIAL_O2HB: _SATURATION,
         Quantity.SPO2_EXERTIONAL_NADIR: _SATURATION,
         Quantity.SPO2_EXERTIONAL_BASELINE: _SATURATION,
         Quantity.ARTERIAL_HCO3: bounds.BICARBONATE_MMOL_L,
@@ -56,6 +57,8 @@ POSSIBLE_RANGE: MappingProxyType[Quantity, tuple[float, float]] = MappingProxyTy
         Quantity.ALTITUDE: bounds.ALTITUDE_M,
         Quantity.DLCO: (0.0, 100.0),  # mL/min/mm[Hg]; adult normal is ~25-35
         Quantity.DLCO_PERCENT_PREDICTED: (0.05, 3.0),  # fraction; below 5 % is a unit slip
+        Quantity.DLCO_LOWER_LIMIT: (0.0, 100.0),  # as DLCO
+        Quantity.DLCO_PERCENT_LOWER_LIMIT: (0.05, 3.0),  # as DLCO % predicted
     }
 )
 

@@ -41,6 +41,9 @@ ROOM_AIR_FIO2_TOLERANCE = 0.005
 # units are then fully oxygenated); 0.99 rather than 1.0 allows for charting as 99 %
 # (Benatar, Hewlett & Nunn, Br J Anaesth 1973;45:711: the admixture at FiO2 1.0 is true shunt).
 TRUE_SHUNT_MIN_FIO2 = 0.99
+# On this FiO2 or more the end-capillary blood is fully saturated (PAO2 above ~600 mmHg), so
+# the dissolved oxygen alone bounds the shunt from below (oxygen_content).
+DISSOLVED_SHUNT_BOUND_MIN_FIO2 = 0.9
 DEFAULT_RESPIRATORY_QUOTIENT = 0.8  # textbook convention (West, Respiratory Physiology)
 WATER_VAPOUR_TEXTBOOK_MMHG = 47.0  # West, Respiratory Physiology: PH2O at 37 °C
 NORMAL_BODY_TEMPERATURE_CEL = 37.0

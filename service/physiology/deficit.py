@@ -9,7 +9,8 @@ into three parts, each in mm[Hg] of PaO2:
   the PaCO2 expected there (residents of high places breathe more), and the change of the
   normal A-a gradient with the alveolar PO2 (``reference.normal_aa_gradient``):
 
-      (PIO2_ref − PIO2) + (PaCO2_expected × k − 40 × k_ref) + (A-a_normal(PAO2_setting) − A-a_normal,ref)
+      (PIO2_ref − PIO2) + (PaCO2_expected × k − 40 × k_ref)
+          + (A-a_normal(PAO2_setting) − A-a_normal,ref)
 
   Negative on supplemental oxygen: an oxygen credit.
 * **ventilation** — PaCO2 above (or, negative, below) the value expected for the setting,

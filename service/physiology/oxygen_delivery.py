@@ -28,6 +28,11 @@ class OxygenDevice(StrEnum):
     NONE_ROOM_AIR = "none-room-air"
 
 
+# Wettstein RB, Shelledy DC, Peters JI, Respir Care 2005;50:604: the smallest between-patient
+# SD of the pharyngeal FiO2 at one flow of a nasal cannula.
+NASAL_CANNULA_SPREAD = 0.04
+
+
 @dataclass(frozen=True, slots=True)
 class Fio2Estimate:
     """An estimated FiO2 (fraction) with the range it may plausibly take, and its basis."""
@@ -72,9 +77,17 @@ def estimate_fio2(*, device: OxygenDevice, flow_l_min: float | None) -> Fio2Esti
     if device is OxygenDevice.NASAL_CANNULA:
         require_in_model("flow_l_min", flow_l_min, 1.0, 6.0, "L/min", "the nasal-cannula estimate")
         estimate = c.ROOM_AIR_FIO2 + 0.04 * flow_l_min
-        low = _interpolate(flow_l_min, 1.0, 6.0, 0.24, 0.45)
-        high = _interpolate(flow_l_min, 1.0, 6.0, 0.26, 0.54)
-        return Fio2Estimate(estimate, min(low, estimate), max(high, estimate), "nasal cannula")
+        # Wettstein 2005 measured 0.24-0.45 (rapid breathing) to 0.26-0.54 (at rest) over 1-6
+        # L/min, with a spread between patients of SD 0.04-0.15 at each flow: the range at a
+        # flow is the two lines widened by the smallest SD reported.
+        low = _interpolate(flow_l_min, 1.0, 6.0, 0.24, 0.45) - NASAL_CANNULA_SPREAD
+        high = _interpolate(flow_l_min, 1.0, 6.0, 0.26, 0.54) + NASAL_CANNULA_SPREAD
+        return Fio2Estimate(
+            estimate,
+            max(min(low, estimate), c.ROOM_AIR_FIO2),
+            max(high, estimate),
+            "nasal cannula",
+        )
     if device is OxygenDevice.SIMPLE_MASK:
         require_in_model("flow_l_min", flow_l_min, 5.0, 10.0, "L/min", "the simple-mask estimate")
         estimate = _interpolate(flow_l_min, 5.0, 10.0, 0.40, 0.60)

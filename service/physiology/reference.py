@@ -8,18 +8,29 @@ Three references, each from published data on healthy subjects:
   75 years and over, no dependence on age, BMI or PaCO2: mean 83.4 mmHg, 5th centile 68.4.
   The lower limit is the 5th centile (mean − 1.645 SEE below 75). Below 40 years the
   regression is extrapolated (said so in the method text); below 18 the age-18 value is used.
-* **The normal A-a gradient at any alveolar PO2.** On room air at sea level it is the
-  reference alveolar PO2 (101.8 mmHg) minus the PaO2 reference: expected and upper limit for
-  age. At a lower alveolar PO2 (altitude, hypoventilation) the gradient narrows in proportion
-  — the a/A ratio holds (healthy subjects in controlled hypoxia, J Lab Clin Med
-  1984;104:685; Grocott MPW et al., N Engl J Med 2009;360:140: A-a 5.4 mmHg at 8,400 m). On
-  supplemental oxygen it widens, because a small true shunt then shows through the dissolved
-  oxygen: it rises with the alveolar PO2 up to about 174 mmHg and stays there (12 healthy men
-  at six alveolar PO2s from air to pure oxygen, Scand J Clin Lab Invest abstract; authors not
-  retrieved), at 48 (31–60) mmHg in young and 93 (60–108) mmHg in middle-aged men on 100 %
-  oxygen ("Gas exchange in two male age groups in relation to inspiratory oxygen fraction…",
-  Upsala J Med Sci). Between 101.8 and 174 mmHg the normal is interpolated linearly; the
-  oxygen plateau is a line in age through the two groups (25 and 50 years), held beyond 50.
+* **The normal A-a gradient at any alveolar PO2**, from a model of the healthy lung of that
+  age. A normal lung has a small true shunt (bronchial and Thebesian veins, a few unventilated
+  units) and a little V/Q inequality (Mellemgaard K, Acta Physiol Scand 1966;67:10: most of
+  the normal gradient is V/Q inequality, which grows with age). Both are fitted, per age, to
+  two published anchors with the two-parameter model of pulmonary oxygen exchange
+  (``oxygen_exchange``: a shunt and a V/Q term, Kjærgaard S et al., Intensive Care Med
+  2003;29:727), at the reference haemoglobin of the iso-shunt diagram (14 g/dL) and a-v
+  difference (5 mL/dL):
+
+  - on room air at sea level, the PaO2 reference for age above (Cerveri 1995);
+  - on 100 % oxygen, the A-a gradient of healthy men: 48 (31–60) mmHg at mean age 25 and
+    93 (60–108) at 50 ("Gas exchange in two male age groups in relation to inspiratory oxygen
+    fraction…", Upsala J Med Sci); a line in age through the two groups, held beyond 50 (not
+    extrapolated past the data).
+
+  The expected gradient comes from the means, the upper limit from the lower limit of PaO2
+  on air and the top of the range on oxygen. The model then gives the normal at any alveolar
+  PO2: it narrows at altitude (healthy subjects in controlled hypoxia, J Lab Clin Med
+  1984;104:685; Grocott MPW et al., N Engl J Med 2009;360:140: A-a 5.4 mmHg at 8,400 m) and
+  widens on oxygen to a plateau once haemoglobin is saturated (12 healthy men at six alveolar
+  PO2s: the gradient rose from 100 to 174 mmHg and then stayed level). Where the two anchors
+  cannot both be met (the young: the oxygen anchor asks for more shunt than the room-air
+  anchor allows), the room-air anchor wins and the V/Q term is zero.
 * **PaCO2 for the altitude**, for residents and for newly arrived visitors (see
   ``expected_paco2``).
 
@@ -33,11 +44,13 @@ from __future__ import annotations
 import itertools
 from dataclasses import dataclass
 from enum import StrEnum
+from functools import lru_cache
 
 from service.physiology import constants as c
 from service.physiology.atmosphere import barometric_pressure_west_mmhg
 from service.physiology.bounds import AGE_YEARS, PRESSURE_BAROMETRIC_MMHG, require_possible
 from service.physiology.gas_exchange import alveolar_po2_mmhg
+from service.physiology.oxygen_exchange import STANDARD_CONDITIONS, exchange_state
 from service.physiology.water_vapour import water_vapour_pressure_mmhg
 
 # --- PaO2 for age: Cerveri et al. 1995 --------------------------------------------------------
@@ -121,13 +134,21 @@ def reference_alveolar_po2_mmhg(
     )
 
 
-# Normal A-a gradient on supplemental oxygen (the plateau): Upsala J Med Sci, two male age
-# groups on 100 % oxygen, mean (range): 48 (31–60) mmHg at mean age 25, 93 (60–108) at 50.
-OXYGEN_PLATEAU_AGES = (25.0, 50.0)
-OXYGEN_PLATEAU_MEAN_MMHG = (48.0, 93.0)
-OXYGEN_PLATEAU_UPPER_MMHG = (60.0, 108.0)
-# The gradient reaches its plateau at an alveolar PO2 of about 174 mmHg (12 healthy men).
-OXYGEN_PLATEAU_FROM_ALVEOLAR_MMHG = 174.0
+# Normal A-a gradient on 100 % oxygen: Upsala J Med Sci, two male age groups, mean (range):
+# 48 (31–60) mmHg at mean age 25, 93 (60–108) at 50.
+OXYGEN_ANCHOR_AGES = (25.0, 50.0)
+OXYGEN_ANCHOR_MEAN_MMHG = (48.0, 93.0)
+OXYGEN_ANCHOR_UPPER_MMHG = (60.0, 108.0)
+_SHUNT_ODDS_MAX = 0.5  # a third of the cardiac output: far beyond any healthy lung
+_BISECTIONS = 60
+
+
+@dataclass(frozen=True, slots=True)
+class HealthyLung:
+    """The shunt (as odds, shunt / (1 − shunt)) and V/Q term (mm[Hg]) of a healthy lung."""
+
+    shunt_odds: float
+    vq_drop_mmhg: float
 
 
 @dataclass(frozen=True, slots=True)
@@ -138,11 +159,78 @@ class NormalGradient:
     upper_limit: float
 
 
-def _plateau(age_years: float, values: tuple[float, float]) -> float:
+def _oxygen_anchor(age_years: float, values: tuple[float, float]) -> float:
     # A line through the two groups, not extrapolated past the older one (held from 50).
-    (young_age, old_age), (young, old) = OXYGEN_PLATEAU_AGES, values
+    (young_age, old_age), (young, old) = OXYGEN_ANCHOR_AGES, values
     age = min(_reference_age(age_years), old_age)
     return young + (old - young) * (age - young_age) / (old_age - young_age)
+
+
+def _arterial(alveolar_po2_mmhg: float, lung: HealthyLung) -> float | None:
+    conditions = STANDARD_CONDITIONS
+    state = exchange_state(
+        alveolar_po2_mmhg,
+        lung.vq_drop_mmhg,
+        lung.shunt_odds,
+        conditions.carrying_capacity_ml_dl,
+        conditions.av_difference_ml_dl,
+        conditions.affinity.scale,
+    )
+    return None if state is None else state.arterial_po2_mmhg
+
+
+def _odds_for(alveolar: float, target_pao2: float, vq_drop: float) -> float:
+    """The shunt odds that bring the arterial PO2 to ``target_pao2`` (bisection: PaO2 falls
+    as the shunt grows); 0 when even no shunt leaves the PaO2 below the target."""
+    low, high = 0.0, _SHUNT_ODDS_MAX
+    for _ in range(_BISECTIONS):
+        middle = 0.5 * (low + high)
+        pao2 = _arterial(alveolar, HealthyLung(middle, vq_drop))
+        if pao2 is not None and pao2 > target_pao2:
+            low = middle
+        else:
+            high = middle
+    return low
+
+
+@lru_cache(maxsize=512)
+def healthy_lung(age_years: int, limit: bool, respiratory_quotient: float) -> HealthyLung:
+    """The healthy lung of this age (``limit``: the one at the lower limit of normal), fitted
+    to the room-air and 100 %-oxygen anchors (module docstring). Cached: ages are whole."""
+    air_alveolar = reference_alveolar_po2_mmhg(respiratory_quotient=respiratory_quotient)
+    oxygen_alveolar = alveolar_po2_mmhg(
+        fio2=1.0,
+        paco2_mmhg=REFERENCE_PACO2_MMHG,
+        water_vapour_mmhg=water_vapour_pressure_mmhg(temperature_cel=c.NORMAL_BODY_TEMPERATURE_CEL),
+        respiratory_quotient=respiratory_quotient,
+    )
+    age = float(age_years)
+    if limit:
+        air_target = pao2_lower_limit_mmhg(age_years=age)
+        oxygen_target = oxygen_alveolar - _oxygen_anchor(age, OXYGEN_ANCHOR_UPPER_MMHG)
+    else:
+        air_target = expected_pao2_mmhg(age_years=age)
+        oxygen_target = oxygen_alveolar - _oxygen_anchor(age, OXYGEN_ANCHOR_MEAN_MMHG)
+
+    def air_excess(vq_drop: float) -> tuple[float, HealthyLung]:
+        lung = HealthyLung(_odds_for(oxygen_alveolar, oxygen_target, vq_drop), vq_drop)
+        pao2 = _arterial(air_alveolar, lung)
+        return (-1.0 if pao2 is None else pao2 - air_target), lung
+
+    excess, lung = air_excess(0.0)
+    if excess <= 0.0:
+        # The oxygen anchor's shunt alone lowers the room-air PaO2 below its reference: the
+        # room-air anchor wins, with no V/Q term.
+        return HealthyLung(_odds_for(air_alveolar, air_target, 0.0), 0.0)
+    low, high = 0.0, air_alveolar - air_target
+    for _ in range(_BISECTIONS):
+        middle = 0.5 * (low + high)
+        excess, _ = air_excess(middle)
+        if excess > 0.0:
+            low = middle
+        else:
+            high = middle
+    return air_excess(low)[1]
 
 
 def normal_aa_gradient(
@@ -153,26 +241,27 @@ def normal_aa_gradient(
 ) -> NormalGradient:
     """The normal A-a gradient, expected and upper limit, for age at this alveolar PO2.
 
-    At or below the reference alveolar PO2 (sea level, air, PaCO2 40): the room-air values
-    scaled by PAO2 / PAO2_ref (the a/A ratio holds). At or above 174 mmHg: the oxygen plateau.
-    In between, linear in PAO2. See the module docstring for the sources.
+    Above the reference alveolar PO2 (sea level, air, PaCO2 40): the gradient of the healthy
+    lung of that age (``healthy_lung``). At or below it: the room-air values scaled by
+    PAO2 / PAO2_ref (the a/A ratio holds). The two meet at the reference.
+
+    Raises:
+        ImpossibleValueError: an impossible age.
     """
     reference_pao2 = reference_alveolar_po2_mmhg(respiratory_quotient=respiratory_quotient)
-    air_expected = reference_pao2 - expected_pao2_mmhg(age_years=age_years)
-    air_upper = reference_pao2 - pao2_lower_limit_mmhg(age_years=age_years)
     alveolar = max(alveolar_po2_mmhg, 0.0)
     if alveolar <= reference_pao2:
         scale = alveolar / reference_pao2
-        return NormalGradient(air_expected * scale, air_upper * scale)
-    oxygen_expected = _plateau(age_years, OXYGEN_PLATEAU_MEAN_MMHG)
-    oxygen_upper = _plateau(age_years, OXYGEN_PLATEAU_UPPER_MMHG)
-    t = min(
-        (alveolar - reference_pao2) / (OXYGEN_PLATEAU_FROM_ALVEOLAR_MMHG - reference_pao2), 1.0
-    )
-    return NormalGradient(
-        air_expected + t * (oxygen_expected - air_expected),
-        air_upper + t * (oxygen_upper - air_upper),
-    )
+        return NormalGradient(
+            (reference_pao2 - expected_pao2_mmhg(age_years=age_years)) * scale,
+            (reference_pao2 - pao2_lower_limit_mmhg(age_years=age_years)) * scale,
+        )
+    age = round(_reference_age(age_years))
+    gradients = []
+    for limit in (False, True):
+        pao2 = _arterial(alveolar, healthy_lung(age, limit, respiratory_quotient))
+        gradients.append(alveolar if pao2 is None else alveolar - pao2)
+    return NormalGradient(gradients[0], gradients[1])
 
 
 def projected_pao2_mmhg(*, a_a_ratio: float, alveolar_po2_mmhg: float) -> float:

@@ -38,6 +38,7 @@ V2_SPECIMEN_TYPE = "http://terminology.hl7.org/CodeSystem/v2-0487"
 
 INPUT_CODES = "https://oxyrule.org/fhir/CodeSystem/input"
 OXYGEN_DEVICE_CODES = "https://oxyrule.org/fhir/CodeSystem/oxygen-device"
+ALTITUDE_RESIDENCE_CODES = "https://oxyrule.org/fhir/CodeSystem/altitude-residence"
 
 
 # --- What a code means ----------------------------------------------------------------------
@@ -47,14 +48,15 @@ OXYGEN_DEVICE_CODES = "https://oxyrule.org/fhir/CodeSystem/oxygen-device"
 class Concept:
     """What one code means to the service.
 
-    ``dimension`` is None for the coded device (no unit) and for quantities that have no
+    ``dimension`` is None for coded quantities (no unit) and for quantities that have no
     ``Dimension`` in ``units.py`` yet (DLCO): those accept only their canonical unit.
     ``specimen`` is what the code implies; None when the value does not come from a blood
     sample (pulse oximetry, FiO2, ...). ``by_specimen`` is set only for the LOINC "Bld" codes
     whose specimen is not in the code: the quantity then follows ``Observation.specimen``, and
     ``quantity`` is the one used when the specimen stays unknown (the measurement then carries
     ``Specimen.UNKNOWN`` and a ``specimen-unknown`` issue, so it is never taken as arterial
-    silently).
+    silently). ``lower_limit`` is the quantity the Observation's ``referenceRange.low`` fills
+    (the lower limit of normal of a DLCO), None when the range is not read.
     """
 
     quantity: Quantity
@@ -62,6 +64,7 @@ class Concept:
     specimen: Specimen | None = None
     fio2_source: Fio2Source | None = None
     by_specimen: MappingProxyType[Specimen, Quantity] | None = field(default=None)
+    lower_limit: Quantity | None = None
 
     def to_canonical(self, value: float, unit: str) -> tuple[float, bool]:
         """(value in the quantity's canonical unit, whether the sender's unit was reinterpreted).
@@ -123,6 +126,10 @@ LOINC_CONCEPTS: MappingProxyType[str, Concept] = MappingProxyType(
         "1925-7": _blood(_Q.ARTERIAL_BASE_EXCESS, Dimension.SUBSTANCE_CONCENTRATION, _S.ARTERIAL),
         # 2708-6 alone is SaO2 by co-oximetry; beside 59408-5 (US Core) it is SpO2
         "2708-6": _blood(_Q.ARTERIAL_SO2, _FR, _S.ARTERIAL),  # USC, FVS, GEC
+        # Fractional oxyhaemoglobin (O2Hb / total Hb) of a co-oximeter; not comparable with SpO2
+        # until divided by 1 − COHb − MetHb. 51733-4 (saturation calculated from the PO2) is
+        # not read: it adds nothing to the PO2.
+        "2714-4": _blood(_Q.ARTERIAL_O2HB, _FR, _S.ARTERIAL),  # 2ry
         # Pulse oximetry Not a blood sample: no specimen.
         "59408-5": Concept(_Q.SPO2, _FR),  # USC, FVS
         "59417-6": Concept(_Q.SPO2, _FR),  # FVS (resting)
@@ -165,7 +172,7 @@ LOINC_CONCEPTS: MappingProxyType[str, Concept] = MappingProxyType(
         "2614-6": Concept(_Q.METHAEMOGLOBIN, _FR),  # MIM, 2ry
         "76268-2": Concept(_Q.BAROMETRIC_PRESSURE, _P),  # LNm (IEEE-derived)
         # DLCO: units.py has no Dimension for mL/min/mm[Hg] yet, so only that unit is read.
-        "19911-7": Concept(_Q.DLCO, None),  # LNC; unit unverified
+        "19911-7": Concept(_Q.DLCO, None, lower_limit=_Q.DLCO_LOWER_LIMIT),  # LNC
     }
 )
 
@@ -174,7 +181,10 @@ LOINC_CONCEPTS: MappingProxyType[str, Concept] = MappingProxyType(
 INPUT_CONCEPTS: MappingProxyType[str, Concept] = MappingProxyType(
     {
         "altitude": Concept(_Q.ALTITUDE, Dimension.LENGTH),
-        "dlco-percent-predicted": Concept(_Q.DLCO_PERCENT_PREDICTED, _FR),
+        "dlco-percent-predicted": Concept(
+            _Q.DLCO_PERCENT_PREDICTED, _FR, lower_limit=_Q.DLCO_PERCENT_LOWER_LIMIT
+        ),
+        "altitude-residence": Concept(_Q.ALTITUDE_RESIDENCE, None),
         "spo2-exertional-nadir": Concept(_Q.SPO2_EXERTIONAL_NADIR, _FR),
         "spo2-exertional-baseline": Concept(_Q.SPO2_EXERTIONAL_BASELINE, _FR),
     }
@@ -198,9 +208,10 @@ def concept_for(system: str, code: str) -> Concept | None:
     return None if table is None else table.get(code)
 
 
-# --- Oxygen device (LOINC 107117-4 valueCodeableConcept) -------------------------------------
+# --- Coded values (valueCodeableConcept, a coded OBX-5) ---------------------------------------
 
 OXYGEN_DEVICES = frozenset(device.value for device in OxygenDevice)
+ALTITUDE_RESIDENCES = frozenset({"resident", "visitor"})
 
 # SNOMED CT physical-object concepts -> our device codes. Only codes that several independent
 # public code tables and HL7 IG ConceptMaps name the same way (secondary evidence, "2ry");
@@ -214,6 +225,25 @@ SNOMED_OXYGEN_DEVICES: MappingProxyType[str, str] = MappingProxyType(
         "428285009": "venturi-mask",  # Venturi mask (physical object)
     }
 )
+
+
+CODE_SYSTEM_OF: MappingProxyType[Quantity, str] = MappingProxyType(
+    {_Q.OXYGEN_DEVICE: OXYGEN_DEVICE_CODES, _Q.ALTITUDE_RESIDENCE: ALTITUDE_RESIDENCE_CODES}
+)
+"""The project CodeSystem of each coded quantity."""
+_CODES_OF: MappingProxyType[Quantity, frozenset[str]] = MappingProxyType(
+    {_Q.OXYGEN_DEVICE: OXYGEN_DEVICES, _Q.ALTITUDE_RESIDENCE: ALTITUDE_RESIDENCES}
+)
+
+
+def coded_value(quantity: Quantity, system: str, code: str) -> str | None:
+    """The value a coding gives a coded quantity (our code), or None when it means nothing to
+    the service: the quantity's project CodeSystem, or for devices a mapped SNOMED CT code."""
+    if system == CODE_SYSTEM_OF[quantity] and code in _CODES_OF[quantity]:
+        return code
+    if quantity is _Q.OXYGEN_DEVICE and system == SNOMED_CT:
+        return SNOMED_OXYGEN_DEVICES.get(code)
+    return None
 
 
 # --- Specimen type (Specimen.type), for the "Bld" codes ---------------------------------------

@@ -1,0 +1,220 @@
+"""Derived facts that compare a gas with a healthy person's: PaO2 for age, the normal A-a
+gradient at this alveolar PO2, PaCO2 for the altitude, and what room air would give.
+
+The references are ``service.physiology.reference``'s (Cerveri 1995; the healthy-lung model
+anchored on room air and 100 % oxygen; resident and visitor PaCO2 by altitude); the method
+texts name them. Residence at altitude is a code fact (``altitude_residence``): where it is
+not known and it matters, the assessment evaluates both (``service.assess.uncertainty``).
+"""
+
+from __future__ import annotations
+
+from service.config import Settings
+from service.physiology import constants as c
+from service.physiology import reference as ref
+from service.physiology.bounds import PARTIAL_PRESSURE_MMHG
+from service.physiology.gas_exchange import alveolar_po2_mmhg
+
+from .derivation import Computed, DerivedTable
+
+table = DerivedTable()
+MMHG = "mm[Hg]"
+_PRESSURE = PARTIAL_PRESSURE_MMHG
+_DIFFERENCE = (-PARTIAL_PRESSURE_MMHG[1], PARTIAL_PRESSURE_MMHG[1])
+# Residents' and visitors' upper limits closer than this (below the 1 mmHg an analyser reports
+# to) make the residence immaterial: near sea level it is not asked.
+SAME_PACO2_MMHG = 1.0
+
+
+@table.quantity(
+    "pao2_expected",
+    MMHG,
+    _PRESSURE,
+    1,
+    "PaO2 expected for age at sea level on room air (healthy reference)",
+    result="pao2-expected",
+)
+def pao2_expected(*, age: float) -> Computed:
+    return Computed(
+        ref.expected_pao2_mmhg(age_years=age),
+        f"{ref.reference_method(age)}, PaCO2 40, BMI {ref.REFERENCE_BMI_KG_M2:g}",
+    )
+
+
+@table.quantity(
+    "pao2_lower_limit",
+    MMHG,
+    _PRESSURE,
+    1,
+    "Lower limit of normal PaO2 for age at sea level on room air (5th centile)",
+    result="pao2-lower-limit",
+)
+def pao2_lower_limit(*, age: float) -> Computed:
+    return Computed(
+        ref.pao2_lower_limit_mmhg(age_years=age),
+        f"{ref.reference_method(age)}: 5th centile",
+    )
+
+
+@table.quantity(
+    "pao2_above_lower_limit",
+    MMHG,
+    _DIFFERENCE,
+    1,
+    "PaO2 minus its lower limit for age (negative: below it)",
+)
+def pao2_above_lower_limit(*, arterial_po2: float, pao2_lower_limit: float) -> float:
+    return arterial_po2 - pao2_lower_limit
+
+
+@table.quantity(
+    "paco2_expected",
+    MMHG,
+    _PRESSURE,
+    1,
+    "PaCO2 of healthy people at this barometric pressure (and residence)",
+)
+def paco2_expected(
+    *, barometric_pressure: float, altitude_residence: str | None = None
+) -> Computed | None:
+    found = _expected_paco2(barometric_pressure, altitude_residence)
+    return None if found is None else Computed(found.mean_mmhg, found.method)
+
+
+@table.quantity(
+    "paco2_upper_limit",
+    MMHG,
+    _PRESSURE,
+    1,
+    "Upper limit of PaCO2 of healthy people at this barometric pressure (and residence)",
+    result="paco2-upper-limit",
+)
+def paco2_upper_limit(
+    *, barometric_pressure: float, altitude_residence: str | None = None
+) -> Computed | None:
+    found = _expected_paco2(barometric_pressure, altitude_residence)
+    return None if found is None else Computed(found.upper_limit_mmhg, found.method)
+
+
+def _expected_paco2(pb: float, residence: str | None) -> ref.ExpectedPaCO2 | None:
+    if residence is not None:
+        return ref.expected_paco2(barometric_mmhg=pb, residence=ref.Residence(residence))
+    resident, visitor = (ref.expected_paco2(barometric_mmhg=pb, residence=r) for r in ref.Residence)
+    if abs(resident.upper_limit_mmhg - visitor.upper_limit_mmhg) >= SAME_PACO2_MMHG:
+        return None  # it depends on the residence: the assessment tries both
+    return resident
+
+
+@table.quantity(
+    "paco2_above_limit",
+    MMHG,
+    _DIFFERENCE,
+    1,
+    "PaCO2 minus the upper limit for the setting (positive: hypercapnia)",
+)
+def paco2_above_limit(*, arterial_pco2: float, paco2_upper_limit: float) -> float:
+    return arterial_pco2 - paco2_upper_limit
+
+
+@table.quantity(
+    "aa_gradient_expected",
+    MMHG,
+    (0.0, _PRESSURE[1]),
+    1,
+    "A-a gradient of a healthy person of this age at this alveolar PO2",
+)
+def aa_gradient_expected(*, age: float, alveolar_po2: float, settings: Settings) -> float:
+    return ref.normal_aa_gradient(
+        age_years=age,
+        alveolar_po2_mmhg=alveolar_po2,
+        respiratory_quotient=settings.respiratory_quotient,
+    ).expected
+
+
+@table.quantity(
+    "aa_gradient_upper_limit",
+    MMHG,
+    (0.0, _PRESSURE[1]),
+    1,
+    "Upper limit of the A-a gradient for age at this alveolar PO2",
+    result="aa-gradient-upper-limit",
+)
+def aa_gradient_upper_limit(*, age: float, alveolar_po2: float, settings: Settings) -> Computed:
+    return Computed(
+        ref.normal_aa_gradient(
+            age_years=age,
+            alveolar_po2_mmhg=alveolar_po2,
+            respiratory_quotient=settings.respiratory_quotient,
+        ).upper_limit,
+        "healthy lung for age (Cerveri 1995 on air; healthy men on 100 % oxygen, Upsala J Med "
+        "Sci) at this alveolar PO2",
+    )
+
+
+@table.quantity(
+    "aa_gradient_excess",
+    MMHG,
+    (_DIFFERENCE[0] - 100.0, _DIFFERENCE[1]),
+    1,
+    "A-a gradient minus its upper limit for age at this alveolar PO2",
+)
+def aa_gradient_excess(*, aa_gradient: float, aa_gradient_upper_limit: float) -> float:
+    return aa_gradient - aa_gradient_upper_limit
+
+
+@table.quantity(
+    "a_a_ratio_lower_limit",
+    "1",
+    (0.0, 1.0),
+    2,
+    "Lower limit of the a/A ratio for age at this alveolar PO2",
+)
+def a_a_ratio_lower_limit(*, alveolar_po2: float, aa_gradient_upper_limit: float) -> float | None:
+    if alveolar_po2 <= 0.0:
+        return None
+    return max(1.0 - aa_gradient_upper_limit / alveolar_po2, 0.0)
+
+
+@table.quantity(
+    "room_air_alveolar_po2",
+    MMHG,
+    _PRESSURE,
+    1,
+    "Alveolar PO2 this PaCO2 would give on room air at this pressure",
+    result="room-air-alveolar-po2",
+)
+def room_air_alveolar_po2(
+    *,
+    barometric_pressure: float,
+    arterial_pco2: float,
+    water_vapour_pressure: float,
+    settings: Settings,
+) -> Computed | None:
+    value = alveolar_po2_mmhg(
+        fio2=c.ROOM_AIR_FIO2,
+        paco2_mmhg=arterial_pco2,
+        barometric_mmhg=barometric_pressure,
+        water_vapour_mmhg=water_vapour_pressure,
+        respiratory_quotient=settings.respiratory_quotient,
+    )
+    if value <= 0.0:
+        return None
+    return Computed(value, "alveolar gas equation on room air (FiO2 0.21), this PB and PaCO2")
+
+
+@table.quantity(
+    "room_air_pao2",
+    MMHG,
+    _PRESSURE,
+    1,
+    "PaO2 expected on room air if the a/A ratio held (oxygen taken away)",
+    result="room-air-pao2",
+)
+def room_air_pao2(*, a_a_ratio: float, room_air_alveolar_po2: float) -> Computed:
+    return Computed(
+        ref.projected_pao2_mmhg(a_a_ratio=a_a_ratio, alveolar_po2_mmhg=room_air_alveolar_po2),
+        "a/A × room-air alveolar PO2 (Gilbert & Keighley 1974)",
+    )
+
+
+FACTS = tuple(table.facts)

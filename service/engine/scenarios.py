@@ -1,0 +1,134 @@
+"""One verdict from several evaluations of the same data under uncertain inputs.
+
+Some inputs are known only as a range: an FiO2 estimated from a device, a barometric pressure
+assumed because neither pressure nor altitude was sent, an age without a birth date, a
+residence at altitude. The caller evaluates the rule set once with the inputs as sent (the
+*representative* evaluation, whose findings and rationales the result shows) and once per
+*scenario* — each combination of the ends of the ranges. A conclusion holds only if it holds
+in every scenario:
+
+* a mechanism whose grade is the same in every scenario keeps it (with the representative's
+  rationale when it agrees, else the first scenario's);
+* a grade that differs becomes `possible`, and its rationale says which input decides it and
+  what would settle it;
+* hypoxaemia and gas exchange are known only when every scenario agrees;
+* a finding is shown when the representative evaluation raised it, or when every scenario did;
+* the pattern is worked out again from the combined grades.
+
+Scenarios whose data raised an error finding are left out when others did not: the data
+themselves refute that end of the range (an arterial PO2 above the alveolar PO2 at an
+assumed FiO2, for example). When every scenario has the error, it stands.
+"""
+
+from collections.abc import Sequence
+from dataclasses import dataclass, replace
+
+from service.engine.data_requests import DataRequest
+from service.engine.evaluate import Evaluation
+from service.engine.ruleset import Discriminator
+from service.engine.verdict import MechanismAssessment, Verdict, finding_order, pattern_of
+from service.engine.vocabulary import (
+    GasExchangeStatus,
+    Grade,
+    HypoxaemiaStatus,
+    Severity,
+)
+
+__all__ = ["Scenario", "Uncertainty", "combine"]
+
+
+@dataclass(frozen=True, slots=True)
+class Uncertainty:
+    """An input known only as a range, said in words, and what would settle it."""
+
+    what: str
+    """E.g. "FiO2 (estimated from the device: 0.26 to 0.40)"."""
+    settle: Discriminator
+
+
+@dataclass(frozen=True, slots=True)
+class Scenario:
+    """One evaluation with the uncertain inputs at one combination of their ends."""
+
+    label: str
+    """E.g. "FiO2 0.26, resident"."""
+    evaluation: Evaluation
+
+
+def _refuted(evaluation: Evaluation) -> bool:
+    return any(f.severity is Severity.ERROR for f in evaluation.verdict.findings)
+
+
+def _agreed(values: Sequence[object], unknown: object) -> object:
+    return values[0] if all(v == values[0] for v in values) else unknown
+
+
+def combine(
+    representative: Evaluation,
+    scenarios: Sequence[Scenario],
+    uncertainties: Sequence[Uncertainty],
+) -> Verdict:
+    """The verdict that holds across ``scenarios`` (see the module docstring)."""
+    verdict = representative.verdict
+    standing = [s for s in scenarios if not _refuted(s.evaluation)] or list(scenarios)
+    if not standing:
+        return verdict
+    if _refuted(representative) and not any(_refuted(s.evaluation) for s in standing):
+        # The inputs as sent are refuted by the data; a possible end of the ranges stands in.
+        verdict = standing[0].evaluation.verdict
+    verdicts = [s.evaluation.verdict for s in standing]
+    settle = tuple(dict.fromkeys(u.settle for u in uncertainties))
+    what = "; ".join(u.what for u in uncertainties)
+    mechanisms: list[MechanismAssessment] = []
+    depends = False
+    for position, shown in enumerate(verdict.mechanisms):
+        found = [v.mechanisms[position] for v in verdicts]
+        grades = [item.grade for item in found]
+        if all(g is grades[0] for g in grades):
+            mechanisms.append(shown if shown.grade is grades[0] else found[0])
+            continue
+        depends = True
+        by_grade = ", ".join(
+            f"{item.grade.value} with {scenario.label}"
+            for scenario, item in zip(standing, found, strict=True)
+        )
+        mechanisms.append(
+            MechanismAssessment(
+                shown.mechanism,
+                Grade.POSSIBLE,
+                uncertain_because=f"Depends on {what}: {by_grade}.",
+                settled_by=settle,
+            )
+        )
+    hypoxaemia = _agreed([v.hypoxaemia for v in verdicts], HypoxaemiaStatus.UNKNOWN)
+    gas_exchange = _agreed([v.gas_exchange for v in verdicts], GasExchangeStatus.UNKNOWN)
+    assert isinstance(hypoxaemia, HypoxaemiaStatus)
+    assert isinstance(gas_exchange, GasExchangeStatus)
+    demotion = verdict.pattern_reason if verdict.pattern.value == "not-classifiable" else None
+    pattern, reason = pattern_of(demotion, hypoxaemia, gas_exchange, mechanisms)
+    shown_codes = {f.code for f in verdict.findings}
+    everywhere = [
+        f
+        for f in verdicts[0].findings
+        if f.code not in shown_codes
+        and all(any(g.code is f.code for g in v.findings) for v in verdicts[1:])
+    ]
+    findings = tuple(sorted((*verdict.findings, *everywhere), key=finding_order))
+    requested = list(verdict.data_requested)
+    if depends:
+        asked = {r.fact for r in requested}
+        for item in settle:
+            for fact in item.requests:
+                if fact not in asked:
+                    requested.append(DataRequest(fact, (), ()))
+                    asked.add(fact)
+    return replace(
+        verdict,
+        pattern=pattern,
+        pattern_reason=reason,
+        hypoxaemia=hypoxaemia,
+        gas_exchange=gas_exchange,
+        mechanisms=tuple(mechanisms),
+        findings=findings,
+        data_requested=tuple(requested),
+    )
