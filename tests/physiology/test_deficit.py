@@ -14,11 +14,15 @@ SEA_LEVEL = 760.0
 
 
 def _normal_pao2(age: float, fio2: float, pb: float, paco2: float) -> float:
-    """PaO2 of a healthy lung: the age's a/A ratio at this alveolar PO2 [calc]."""
+    """PaO2 of a healthy lung of this age at this alveolar PO2 [calc]."""
     alveolar = alveolar_po2_mmhg(
         fio2=fio2, paco2_mmhg=paco2, barometric_mmhg=pb, water_vapour_mmhg=47.12
     )
-    return alveolar * r.expected_a_a_ratio(age_years=age)
+    return alveolar - r.normal_aa_gradient(age_years=age, alveolar_po2_mmhg=alveolar).expected
+
+
+def _air_ratio(age: float) -> float:
+    return r.expected_pao2_mmhg(age_years=age) / r.reference_alveolar_po2_mmhg()
 
 
 def test_the_reference_person_has_no_deficit() -> None:
@@ -50,7 +54,7 @@ def test_pure_hypoventilation_is_all_ventilation() -> None:
         paco2_mmhg=70.0,
     )
     expected = 30.0 * alveolar_bracket(fio2=0.21, respiratory_quotient=0.8)
-    assert d.ventilation == pytest.approx(expected * r.expected_a_a_ratio(age_years=age), abs=0.01)
+    assert d.ventilation == pytest.approx(expected * _air_ratio(age), abs=0.01)
     assert d.gas_exchange == pytest.approx(0.0, abs=0.01)
     assert d.inspired == pytest.approx(0.0, abs=0.01)
     assert d.share(d.ventilation) == pytest.approx(1.0, abs=1e-3)
@@ -140,5 +144,5 @@ def test_the_parts_always_add_up_to_the_fall(
     assert d.ventilation is not None and d.gas_exchange is not None
     assert d.inspired + d.ventilation + d.gas_exchange == pytest.approx(d.fall, abs=1e-6)
     # The gas-exchange part is the A-a gradient above the normal at this PAO2 [calc].
-    normal = alveolar * (1.0 - r.expected_a_a_ratio(age_years=age))
+    normal = r.normal_aa_gradient(age_years=age, alveolar_po2_mmhg=alveolar).expected
     assert d.gas_exchange == pytest.approx(alveolar - pao2 - normal, abs=1e-6)

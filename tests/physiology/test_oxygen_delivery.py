@@ -21,10 +21,12 @@ def test_nasal_cannula_range_spans_the_measured_pharyngeal_fio2(
     flow: float, rapid: float, rest: float
 ) -> None:
     # Wettstein, Shelledy & Peters, Respir Care 2005;50:604 (abstract): mean pharyngeal FiO2
-    # 0.24–0.45 with rapid breathing and 0.26–0.54 at rest over 1–6 L/min.
+    # 0.24–0.45 with rapid breathing and 0.26–0.54 at rest over 1–6 L/min, with a spread
+    # between patients of SD 0.04–0.15: the range is the two lines widened by 0.04, and never
+    # below room air.
     estimate = estimate_fio2(device=OxygenDevice.NASAL_CANNULA, flow_l_min=flow)
-    assert estimate.low == pytest.approx(rapid)
-    assert estimate.high == pytest.approx(rest)
+    assert estimate.low == pytest.approx(max(rapid - 0.04, 0.21))
+    assert estimate.high == pytest.approx(rest + 0.04)
     assert estimate.low <= estimate.fio2 <= estimate.high
 
 

@@ -3,6 +3,8 @@
 from __future__ import annotations
 
 import pytest
+from hypothesis import given
+from hypothesis import strategies as st
 
 from service.exceptions import ImpossibleValueError
 from service.physiology import reference as r
@@ -55,50 +57,106 @@ def test_reference_alveolar_po2_is_the_sea_level_room_air_value() -> None:
     assert r.reference_alveolar_po2_mmhg() == pytest.approx(101.8, abs=0.05)
 
 
+REFERENCE = r.reference_alveolar_po2_mmhg()
+PURE_OXYGEN = alveolar_po2_mmhg(fio2=1.0, paco2_mmhg=40.0, water_vapour_mmhg=47.12)
+
+
 def test_room_air_aa_limit_for_age_is_consistent_with_published_healthy_ranges() -> None:
     # "Gas exchange in two male age groups…", Upsala J Med Sci (abstract): supine on air, A-a
     # 4.3 (−1 to 14) mmHg at mean age 25 and 23.4 (15–33) at 50. The limits for age lie above
     # the group means, and the 50-year limit within the observed range.
-    limit_25 = r.reference_alveolar_po2_mmhg() - r.pao2_lower_limit_mmhg(age_years=25.0)
-    limit_50 = r.reference_alveolar_po2_mmhg() - r.pao2_lower_limit_mmhg(age_years=50.0)
+    limit_25 = r.normal_aa_gradient(age_years=25.0, alveolar_po2_mmhg=REFERENCE).upper_limit
+    limit_50 = r.normal_aa_gradient(age_years=50.0, alveolar_po2_mmhg=REFERENCE).upper_limit
     assert 4.3 < limit_25 < 23.4
     assert 23.4 < limit_50 <= 33.0
 
 
-@pytest.mark.parametrize(
-    ("age", "pao2", "aa_gradient"),
-    [
-        # Same study on 100 % oxygen: the lowest PaO2 was 574 (young; A-a 48, range 31–60) and
-        # 492 mmHg (middle-aged; A-a 93, range 60–108). PAO2 ≈ PaO2 + A-a of the group mean.
-        (25.0, 574.0, 611.0 + 48.0),
-        (50.0, 492.0, 573.0 + 93.0),
-    ],
-)
-def test_the_a_a_ratio_limit_accepts_every_healthy_man_on_pure_oxygen(
-    age: float, pao2: float, aa_gradient: float
+@pytest.mark.parametrize("age", [18.0, 30.0, 45.0, 62.0, 80.0])
+def test_at_the_reference_alveolar_po2_the_normal_is_the_room_air_reference(age: float) -> None:
+    # By construction of the healthy-lung model: it meets the Cerveri 1995 anchor on air.
+    normal = r.normal_aa_gradient(age_years=age, alveolar_po2_mmhg=REFERENCE)
+    expected = REFERENCE - r.expected_pao2_mmhg(age_years=age)
+    assert normal.expected == pytest.approx(expected, abs=0.05)
+    limit = REFERENCE - r.pao2_lower_limit_mmhg(age_years=age)
+    assert normal.upper_limit == pytest.approx(limit, abs=0.05)
+
+
+def test_on_pure_oxygen_the_normal_meets_the_healthy_men_of_50() -> None:
+    # Upsala J Med Sci: on 100 % oxygen, A-a 93 (60–108) mmHg at mean age 50. The limit meets
+    # the top of the range; the expected value stays within it (the room-air anchor limits the
+    # shunt a little, as for the young).
+    normal = r.normal_aa_gradient(age_years=50.0, alveolar_po2_mmhg=PURE_OXYGEN)
+    assert 60.0 <= normal.expected <= 93.0
+    assert normal.upper_limit == pytest.approx(108.0, abs=1.0)
+
+
+def test_young_adults_keep_the_room_air_anchor_over_the_oxygen_one() -> None:
+    # At 25 the published oxygen mean (48 mmHg) needs more shunt than the room-air reference
+    # allows; the room-air anchor wins and the expected gradient on oxygen stays below 48,
+    # while the upper limit reaches the top of the range (60).
+    normal = r.normal_aa_gradient(age_years=25.0, alveolar_po2_mmhg=PURE_OXYGEN)
+    assert normal.expected < 48.0
+    assert normal.upper_limit == pytest.approx(60.0, abs=1.0)
+
+
+@pytest.mark.parametrize(("age", "published_mean"), [(25.0, 30.0), (55.0, 55.0)])
+def test_published_healthy_gradients_on_oxygen_are_within_the_limit(
+    age: float, published_mean: float
 ) -> None:
-    alveolar = aa_gradient  # the third column holds the group's alveolar PO2
-    assert pao2 / alveolar >= r.a_a_ratio_lower_limit(age_years=age) - 0.005
+    # A-a of normal subjects at FiO2 0.4 and above (journal abstract: mean 30 mmHg in young
+    # healthy subjects, 55 in older ones): the limit at FiO2 0.4 must not call them abnormal.
+    alveolar = alveolar_po2_mmhg(fio2=0.4, paco2_mmhg=40.0, water_vapour_mmhg=47.12)
+    limit = r.normal_aa_gradient(age_years=age, alveolar_po2_mmhg=alveolar).upper_limit
+    assert limit > published_mean
 
 
-def test_a_healthy_51_year_old_on_pure_oxygen_has_a_normal_ratio() -> None:
-    # Toffaletti & Zavorsky, Physiol Rep 2026 (abstract): healthy man, 51 y, FiO2 1.0, PB 752,
-    # PaO2 587, PaCO2 38 → PAO2 667 [calc], a/A 0.88.
-    alveolar = alveolar_po2_mmhg(fio2=1.0, paco2_mmhg=38.0, barometric_mmhg=752.0)
-    assert 587.0 / alveolar > r.a_a_ratio_lower_limit(age_years=51.0)
+def test_the_gradient_plateaus_once_haemoglobin_is_saturated() -> None:
+    # 12 healthy men at six alveolar PO2s: the gradient rose from 100 to 174 mmHg and then did
+    # not change significantly up to 526 mmHg.
+    at_110 = r.normal_aa_gradient(age_years=40.0, alveolar_po2_mmhg=110.0).upper_limit
+    at_300 = r.normal_aa_gradient(age_years=40.0, alveolar_po2_mmhg=300.0).upper_limit
+    at_526 = r.normal_aa_gradient(age_years=40.0, alveolar_po2_mmhg=526.0).upper_limit
+    assert abs(at_526 - at_300) < 0.15 * at_526
+    assert at_300 - at_110 > 20.0
+
+
+def test_at_altitude_the_normal_narrows_with_the_alveolar_po2() -> None:
+    # Healthy subjects in controlled hypoxia (J Lab Clin Med 1984;104:685): the A-a gradient
+    # narrows as the alveolar PO2 falls; below the reference the a/A ratio is held [calc].
+    low = r.normal_aa_gradient(age_years=35.0, alveolar_po2_mmhg=31.3)
+    air = r.normal_aa_gradient(age_years=35.0, alveolar_po2_mmhg=REFERENCE)
+    assert low.upper_limit == pytest.approx(air.upper_limit * 31.3 / REFERENCE)
+
+
+@given(age=st.floats(18.0, 100.0), low=st.floats(20.0, 700.0), rise=st.floats(0.5, 300.0))
+def test_more_alveolar_oxygen_never_lowers_the_normal_pao2(
+    age: float, low: float, rise: float
+) -> None:
+    # The healthy lung's lowest normal PaO2 (PAO2 minus the limit) rises with the alveolar
+    # PO2: oxygen never lowers the PaO2 the rules expect of a healthy person.
+    def lowest_normal(alveolar: float) -> float:
+        limit = r.normal_aa_gradient(age_years=age, alveolar_po2_mmhg=alveolar).upper_limit
+        return alveolar - limit
+
+    assert lowest_normal(low + rise) >= lowest_normal(low) - 1e-6
 
 
 def test_a_normal_lung_on_a_28_percent_mask_is_not_called_a_defect() -> None:
-    # A 40-year-old on FiO2 0.28 with the expected a/A for age [calc from Cerveri 1995]: the
-    # A-a gradient (about 16 mmHg) exceeds the room-air limit of the bedside rule (age/4 + 4 =
-    # 14, common practice) but not the FiO2-aware limit PAO2 × (1 − a/A limit).
-    alveolar = alveolar_po2_mmhg(fio2=0.28, paco2_mmhg=40.0)
-    pao2 = alveolar * r.expected_a_a_ratio(age_years=40.0)
-    limit = r.aa_gradient_for_ratio_mmhg(
-        alveolar_po2_mmhg=alveolar, a_a_ratio=r.a_a_ratio_lower_limit(age_years=40.0)
-    )
-    assert alveolar - pao2 > 40.0 / 4 + 4
-    assert alveolar - pao2 < limit
+    # A 40-year-old on FiO2 0.28 with the PaO2 a healthy lung of that age gives [calc]: the
+    # A-a gradient exceeds the room-air bedside rule (age/4 + 4 = 14, common practice) but not
+    # the limit at this alveolar PO2.
+    alveolar = alveolar_po2_mmhg(fio2=0.28, paco2_mmhg=40.0, water_vapour_mmhg=47.12)
+    normal = r.normal_aa_gradient(age_years=40.0, alveolar_po2_mmhg=alveolar)
+    assert normal.expected > 40.0 / 4 + 4
+    assert normal.expected < normal.upper_limit
+
+
+def test_a_healthy_51_year_old_on_pure_oxygen_is_within_the_limit() -> None:
+    # Toffaletti & Zavorsky, Physiol Rep 2026 (abstract): healthy man, 51 y, FiO2 1.0, PB 752,
+    # PaO2 587, PaCO2 38 → PAO2 667 [calc], A-a 80.
+    alveolar = alveolar_po2_mmhg(fio2=1.0, paco2_mmhg=38.0, barometric_mmhg=752.0)
+    limit = r.normal_aa_gradient(age_years=51.0, alveolar_po2_mmhg=alveolar).upper_limit
+    assert alveolar - 587.0 < limit
 
 
 def test_projected_room_air_pao2_keeps_the_ratio() -> None:
@@ -113,9 +171,10 @@ def test_projected_room_air_pao2_keeps_the_ratio() -> None:
         # Cid-Juárez S et al., Rev Invest Clin 2023: Mexico City (2,240 m), 30.2 ± 3.4 mmHg;
         # upper limit mean + 1.645 SD [calc].
         (2240.0, 30.2, 30.2 + 1.645 * 3.4),
-        # Moina Veloz AP et al., Univ Med Pinareña 2023: Quito (2,800 m), men 32.5, women 31.5,
-        # 97.5th centile in men 36.1 mmHg.
-        (2800.0, 32.0, 36.1),
+        # Pereira-Victorio CJ et al., Rev Peru Med Exp Salud Publica 2014: Cusco (3,350 m),
+        # 30.6 mmHg; upper limit the 97.5th centile in Quito (2,800 m), 36.1 mmHg (Moina Veloz
+        # AP et al., Univ Med Pinareña 2023).
+        (3350.0, 30.6, 36.1),
     ],
 )
 def test_resident_paco2_at_published_altitudes(altitude: float, mean: float, upper: float) -> None:
