@@ -5,8 +5,8 @@ rule engine, glued together. Every arterial gas gets its derived values; the lat
 index gas) is evaluated by the rules, with the response to oxygen read from every pair of gases
 (``serial``). Inputs known only as a range (an estimated FiO2, an assumed pressure, a missing
 age or residence) are evaluated at the ends of their ranges and only what holds in all of them
-is kept (``uncertainty``, ``service.engine.scenarios``). The engine decides everything about
-the verdict (grades, demotion on untrusted data, the order of findings, what is missing, what to ask for); this module only
+is kept (``uncertainty``, ``service.engine.scenarios``). The engine decides everything
+about the verdict (grades, demotion on untrusted data, the order of findings, what is missing, what to ask for); this module only
 gathers the facts and the findings met before the rules, and maps the verdict to the
 adapter-neutral ``Assessment``.
 """
@@ -122,10 +122,17 @@ def evaluate_gas(
                 {**derive_again(index, changes, settings=settings), **common},
                 input_errors=input_errors,
             ),
+            only_for,
         )
-        for label, changes in ranges.scenarios
+        for label, changes, only_for in ranges.scenarios
     ]
-    return representative, combine(representative, scenarios, ranges.uncertainties), facts
+    verdict = combine(
+        representative,
+        scenarios,
+        ranges.uncertainties,
+        representative_counts=ranges.representative_counts,
+    )
+    return representative, verdict, facts
 
 
 def assess(

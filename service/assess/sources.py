@@ -8,6 +8,7 @@ provenance flags the data-quality rules read) so the result can say how the numb
 
 from __future__ import annotations
 
+from datetime import timedelta
 from typing import TYPE_CHECKING
 
 from service.config import Settings
@@ -112,7 +113,12 @@ def inspired_oxygen_fraction(out: GasFacts, settings: Settings) -> float | None:
         out.fio2_source = Fio2Source.SITE_SETTING.value
     out.facts["fio2_sent"] = fio2 is not None
     out.facts["fio2_estimated_from_flow"] = estimated
-    out.facts["fio2_time_mismatch"] = sent is None and Quantity.FIO2 in out.gas.out_of_window
+    # A setting charted outside the pairing window is used as the one in force, and said so.
+    offset = out.gas.offset(Quantity.FIO2)
+    late = offset is not None and abs(offset) > timedelta(minutes=settings.pairing_window_minutes)
+    out.facts["fio2_time_mismatch"] = (sent is None and Quantity.FIO2 in out.gas.out_of_window) or (
+        sent is not None and late
+    )
     if fio2 is None:
         return None
     out.set_fact("fio2", fio2, inputs)

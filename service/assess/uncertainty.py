@@ -21,6 +21,7 @@ from service.config import Settings
 from service.engine.facts import FactValue
 from service.engine.ruleset import Discriminator
 from service.engine.scenarios import Uncertainty
+from service.engine.vocabulary import Mechanism
 from service.exceptions import PhysiologyError
 from service.physiology import constants as c
 from service.physiology import reference as ref
@@ -38,6 +39,9 @@ SETTLE_FIO2 = Discriminator(
     "or a ventilator) settles it.",
     ("fio2",),
 )
+# The pressure assumed at sea level is stated (``pb-assumed-sea-level``) and used for every
+# number; what it cannot settle is the share of a low inspired PO2, which stays open.
+PRESSURE_BEARS_ON = frozenset({Mechanism.LOW_INSPIRED_OXYGEN})
 SETTLE_PRESSURE = Discriminator(
     "A measured barometric pressure, or the altitude of the site, settles it.",
     ("barometric_pressure", "altitude"),
@@ -56,6 +60,8 @@ class _Range:
     ends: tuple[FactValue, ...]
     label: str
     uncertainty: Uncertainty
+    nominal: FactValue | None = None
+    """The value the representative evaluation uses (None: the input is missing there)."""
 
     def labelled(self, value: FactValue) -> str:
         if isinstance(value, str):
@@ -69,8 +75,11 @@ class Ranges:
     scenarios (each a set of changed facts with a label), and the uncertainties in words."""
 
     representative: dict[str, FactValue]
-    scenarios: tuple[tuple[str, dict[str, FactValue]], ...]
+    scenarios: tuple[tuple[str, dict[str, FactValue], frozenset[Mechanism] | None], ...]
+    """(label, changed facts, the mechanisms it bears on — None for all)."""
     uncertainties: tuple[Uncertainty, ...]
+    representative_counts: bool
+    """Whether every uncertain input has a value in the representative evaluation."""
 
 
 def _number(gas: GasFacts, name: str) -> float | None:
@@ -133,7 +142,9 @@ def _fio2_range(
             if nominal < lowest:
                 changes["fio2"] = lowest
         what = f"FiO2 (estimated from the device: {low:.2f} to {high:.2f})"
-        return _Range("fio2", (low, high), "FiO2", Uncertainty(what, SETTLE_FIO2)), changes
+        shown = float(changes.get("fio2", nominal))
+        fio2_range = _Range("fio2", (low, high), "FiO2", Uncertainty(what, SETTLE_FIO2), shown)
+        return fio2_range, changes
     if nominal is not None:
         return None, {}
     low, high = c.ROOM_AIR_FIO2, FIO2_LIMITS[1]
@@ -161,9 +172,10 @@ def _pressure_range(gas: GasFacts, tolerance: float, settings: Settings) -> _Ran
     )
     return _Range(
         "barometric_pressure",
-        (low, high),
+        (low,),
         "PB",
-        Uncertainty(what, SETTLE_PRESSURE),
+        Uncertainty(what, SETTLE_PRESSURE, PRESSURE_BEARS_ON),
+        nominal=high,
     )
 
 
@@ -180,8 +192,12 @@ def _residence_range(pressures: tuple[float, ...], gas: GasFacts) -> _Range | No
         return None
     differs = any(
         abs(
-            ref.expected_paco2(barometric_mmhg=pb, residence=ref.Residence.RESIDENT).upper_limit_mmhg
-            - ref.expected_paco2(barometric_mmhg=pb, residence=ref.Residence.VISITOR).upper_limit_mmhg
+            ref.expected_paco2(
+                barometric_mmhg=pb, residence=ref.Residence.RESIDENT
+            ).upper_limit_mmhg
+            - ref.expected_paco2(
+                barometric_mmhg=pb, residence=ref.Residence.VISITOR
+            ).upper_limit_mmhg
         )
         >= SAME_PACO2_MMHG
         for pb in pressures
@@ -197,32 +213,51 @@ def _residence_range(pressures: tuple[float, ...], gas: GasFacts) -> _Range | No
     )
 
 
+def _combinations(ranges: list[_Range]) -> list[tuple[str, dict[str, FactValue]]]:
+    out = []
+    for ends in itertools.product(*(r.ends for r in ranges)):
+        changes = {r.fact: value for r, value in zip(ranges, ends, strict=True)}
+        label = ", ".join(r.labelled(value) for r, value in zip(ranges, ends, strict=True))
+        out.append((label, changes))
+    return out
+
+
 def input_ranges(gas: GasFacts, *, tolerance_mmhg: float, settings: Settings) -> Ranges:
     """The uncertain inputs of ``gas`` and the scenarios at the ends of their ranges.
 
     ``tolerance_mmhg`` is how far a PaO2 may exceed the alveolar PO2 before the data are
-    doubted (the rule set's parameter), used to narrow the ranges.
+    doubted (the rule set's parameter), used to narrow the ranges. The assumed pressure varies
+    only in the scenarios that bear on a low inspired PO2.
     """
-    ranges: list[_Range] = []
+    general: list[_Range] = []
     fio2, representative = _fio2_range(gas, tolerance_mmhg, settings)
     if fio2 is not None:
-        ranges.append(fio2)
-    pressure = _pressure_range(gas, tolerance_mmhg, settings)
-    if pressure is not None:
-        ranges.append(pressure)
+        general.append(fio2)
     age = _age_range(gas, settings)
     if age is not None:
-        ranges.append(age)
+        general.append(age)
     pb = _number(gas, "barometric_pressure")
-    pressures = tuple(float(v) for v in pressure.ends) if pressure else ((pb,) if pb else ())
-    residence = _residence_range(pressures, gas)
+    residence = _residence_range((pb,) if pb is not None else (), gas)
     if residence is not None:
-        ranges.append(residence)
-    scenarios = []
-    for ends in itertools.product(*(r.ends for r in ranges)):
-        changes = {r.fact: value for r, value in zip(ranges, ends, strict=True)}
-        if "fio2_lowest_possible" in representative:
-            changes["fio2_lowest_possible"] = representative["fio2_lowest_possible"]
-        label = ", ".join(r.labelled(value) for r, value in zip(ranges, ends, strict=True))
-        scenarios.append((label, changes))
-    return Ranges(representative, tuple(scenarios), tuple(r.uncertainty for r in ranges))
+        general.append(residence)
+    pressure = _pressure_range(gas, tolerance_mmhg, settings)
+    fixed = (
+        {"fio2_lowest_possible": representative["fio2_lowest_possible"]}
+        if "fio2_lowest_possible" in representative
+        else {}
+    )
+    scenarios: list[tuple[str, dict[str, FactValue], frozenset[Mechanism] | None]] = []
+    if general:
+        scenarios += [(label, {**c, **fixed}, None) for label, c in _combinations(general)]
+    if pressure is not None:
+        # At the assumed pressure's low end the residence may matter even when it did not at
+        # sea level.
+        at_low = residence or _residence_range(tuple(float(v) for v in pressure.ends), gas)
+        with_pressure = [r for r in general if r is not residence]
+        with_pressure += [*([at_low] if at_low is not None else []), pressure]
+        scenarios += [
+            (label, {**c, **fixed}, PRESSURE_BEARS_ON) for label, c in _combinations(with_pressure)
+        ]
+    uncertainties = tuple(r.uncertainty for r in (*general, *([pressure] if pressure else [])))
+    counts = all(r.nominal is not None for r in general)
+    return Ranges(representative, tuple(scenarios), uncertainties, counts)

@@ -31,6 +31,7 @@ from service.engine.vocabulary import (
     GasExchangeStatus,
     Grade,
     HypoxaemiaStatus,
+    Mechanism,
     Severity,
 )
 
@@ -44,6 +45,8 @@ class Uncertainty:
     what: str
     """E.g. "FiO2 (estimated from the device: 0.26 to 0.40)"."""
     settle: Discriminator
+    only_for: frozenset[Mechanism] | None = None
+    """The mechanisms it bears on (None: all)."""
 
 
 @dataclass(frozen=True, slots=True)
@@ -53,6 +56,9 @@ class Scenario:
     label: str
     """E.g. "FiO2 0.26, resident"."""
     evaluation: Evaluation
+    only_for: frozenset[Mechanism] | None = None
+    """When set, the scenario bears only on these mechanisms (an assumption whose other
+    consequences the result states rather than bounds: the pressure assumed at sea level)."""
 
 
 def _refuted(evaluation: Evaluation) -> bool:
@@ -67,8 +73,15 @@ def combine(
     representative: Evaluation,
     scenarios: Sequence[Scenario],
     uncertainties: Sequence[Uncertainty],
+    *,
+    representative_counts: bool = True,
 ) -> Verdict:
-    """The verdict that holds across ``scenarios`` (see the module docstring)."""
+    """The verdict that holds across ``scenarios`` (see the module docstring).
+
+    ``representative_counts``: the representative evaluation is itself a point of the ranges
+    (every uncertain input has a value there, as an estimated FiO2 does) and joins the
+    comparison; it does not when an input is simply missing from it (FiO2 or age not sent).
+    """
     verdict = representative.verdict
     standing = [s for s in scenarios if not _refuted(s.evaluation)] or list(scenarios)
     if not standing:
@@ -76,21 +89,38 @@ def combine(
     if _refuted(representative) and not any(_refuted(s.evaluation) for s in standing):
         # The inputs as sent are refuted by the data; a possible end of the ranges stands in.
         verdict = standing[0].evaluation.verdict
-    verdicts = [s.evaluation.verdict for s in standing]
-    settle = tuple(dict.fromkeys(u.settle for u in uncertainties))
-    what = "; ".join(u.what for u in uncertainties)
+        representative_counts = False
+    shown_point = [Scenario("the values as sent", representative)] if representative_counts else []
+    general = shown_point + [s for s in standing if s.only_for is None]
+    verdicts = [s.evaluation.verdict for s in general] or [verdict]
     mechanisms: list[MechanismAssessment] = []
-    depends = False
+    asked: list[Discriminator] = []
     for position, shown in enumerate(verdict.mechanisms):
-        found = [v.mechanisms[position] for v in verdicts]
+        bearing = shown_point + [
+            s for s in standing if s.only_for is None or shown.mechanism in s.only_for
+        ]
+        if not bearing:
+            mechanisms.append(shown)
+            continue
+        pairs = [(s, s.evaluation.verdict.mechanisms[position]) for s in bearing]
+        # A scenario that cannot assess the mechanism (a value beyond a model's range at the
+        # end of a range) says nothing against the others.
+        graded = [(s, m) for s, m in pairs if m.grade is not Grade.NOT_ASSESSABLE] or pairs
+        bearing = [s for s, _ in graded]
+        found = [m for _, m in graded]
         grades = [item.grade for item in found]
         if all(g is grades[0] for g in grades):
             mechanisms.append(shown if shown.grade is grades[0] else found[0])
             continue
-        depends = True
+        bearing_on = [
+            u for u in uncertainties if u.only_for is None or shown.mechanism in u.only_for
+        ]
+        settle = tuple(dict.fromkeys(u.settle for u in bearing_on))
+        what = "; ".join(u.what for u in bearing_on)
+        asked.extend(settle)
         by_grade = ", ".join(
             f"{item.grade.value} with {scenario.label}"
-            for scenario, item in zip(standing, found, strict=True)
+            for scenario, item in zip(bearing, found, strict=True)
         )
         mechanisms.append(
             MechanismAssessment(
@@ -115,13 +145,12 @@ def combine(
     ]
     findings = tuple(sorted((*verdict.findings, *everywhere), key=finding_order))
     requested = list(verdict.data_requested)
-    if depends:
-        asked = {r.fact for r in requested}
-        for item in settle:
-            for fact in item.requests:
-                if fact not in asked:
-                    requested.append(DataRequest(fact, (), ()))
-                    asked.add(fact)
+    known = {r.fact for r in requested}
+    for item in dict.fromkeys(asked):
+        for fact in item.requests:
+            if fact not in known:
+                requested.append(DataRequest(fact, (), ()))
+                known.add(fact)
     return replace(
         verdict,
         pattern=pattern,

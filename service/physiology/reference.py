@@ -217,7 +217,7 @@ def healthy_lung(age_years: int, limit: bool, respiratory_quotient: float) -> He
         pao2 = _arterial(air_alveolar, lung)
         return (-1.0 if pao2 is None else pao2 - air_target), lung
 
-    excess, lung = air_excess(0.0)
+    excess, _ = air_excess(0.0)
     if excess <= 0.0:
         # The oxygen anchor's shunt alone lowers the room-air PaO2 below its reference: the
         # room-air anchor wins, with no V/Q term.
