@@ -99,9 +99,9 @@ def evaluate_gas(
     settings: Settings,
     extra: dict[str, FactValue],
     input_errors: list[str],
-) -> tuple[Evaluation, Verdict, dict[str, FactValue]]:
+) -> tuple[Evaluation, Verdict, tuple[str, ...]]:
     """The index gas's evaluation as its inputs were sent, the verdict that holds across the
-    ranges of its uncertain inputs, and the facts the representative evaluation saw."""
+    ranges of its uncertain inputs, and those inputs in words."""
     parameter = ruleset.parameters.get(ALVEOLAR_TOLERANCE)
     tolerance = parameter.value if parameter is not None else 0.0
     ranges = input_ranges(index, tolerance_mmhg=tolerance, settings=settings)
@@ -113,7 +113,7 @@ def evaluate_gas(
     )
     representative = evaluate(ruleset, facts, input_errors=input_errors)
     if not ranges.scenarios or not ranges.uncertainties:
-        return representative, representative.verdict, facts
+        return representative, representative.verdict, ()
     scenarios = [
         Scenario(
             label,
@@ -132,7 +132,7 @@ def evaluate_gas(
         ranges.uncertainties,
         representative_counts=ranges.representative_counts,
     )
-    return representative, verdict, facts
+    return representative, verdict, tuple(u.what for u in ranges.uncertainties)
 
 
 def assess(
@@ -155,7 +155,7 @@ def assess(
         Finding(i.code, Severity(i.severity.value), i.message, expression=i.expression)
         for i in intake.issues
     ]
-    evaluation, verdict, _ = evaluate_gas(
+    evaluation, verdict, uncertain = evaluate_gas(
         index,
         gases,
         ruleset=ruleset,
@@ -192,4 +192,6 @@ def assess(
         data_requested=[r.fact for r in verdict.data_requested],
         status=_status(verdict),
         evaluation=evaluation,
+        uncertain_inputs=uncertain,
+        gas_exchange=verdict.gas_exchange,
     )

@@ -6,7 +6,15 @@ from dataclasses import dataclass
 from datetime import datetime
 from enum import StrEnum
 
-from service.engine import Evaluation, Grade, HypoxaemiaStatus, Mechanism, Pattern, Severity
+from service.engine import (
+    Evaluation,
+    GasExchangeStatus,
+    Grade,
+    HypoxaemiaStatus,
+    Mechanism,
+    Pattern,
+    Severity,
+)
 from service.intake.model import Patient, Source
 
 from .derive import GasFacts
@@ -76,3 +84,6 @@ class Assessment:
     data_requested: list[str]  # fact names that would settle open questions
     status: ResultStatus
     evaluation: Evaluation  # the engine's full evaluation (every rule's trace), for explain
+    uncertain_inputs: tuple[str, ...] = ()
+    """Inputs known only as a range and assessed at its ends, in words (empty: none)."""
+    gas_exchange: GasExchangeStatus = GasExchangeStatus.UNKNOWN

@@ -40,6 +40,7 @@ from service.engine.ruleset import (
 from service.engine.verdict import FindingResult, MechanismAssessment, Verdict
 from service.engine.vocabulary import (
     FindingCode,
+    GasExchangeStatus,
     Grade,
     HypoxaemiaStatus,
     Mechanism,
@@ -62,6 +63,7 @@ __all__ = [
     "FindingCode",
     "FindingOutcome",
     "FindingResult",
+    "GasExchangeStatus",
     "Grade",
     "HypoxaemiaOutcome",
     "HypoxaemiaStatus",
