@@ -118,6 +118,7 @@ def _flag(name: str, description: str) -> FactSpec:
 
 PROVENANCE: tuple[FactSpec, ...] = (
     _flag("fio2_sent", "An FiO2, an oxygen device or a site setting says what was breathed"),
+    _flag("fio2_raised_by_pao2", "The PaO2 needs more oxygen than the low end of the estimate"),
     _flag("fio2_estimated_from_flow", "FiO2 was estimated from device and flow"),
     _flag("fio2_time_mismatch", "FiO2 was recorded too far from the sample time"),
     _flag("barometric_pressure_estimated", "Barometric pressure was estimated from altitude"),

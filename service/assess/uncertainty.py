@@ -139,6 +139,7 @@ def _fio2_range(
         if lowest is not None and low < lowest <= high:
             low = lowest
             changes["fio2_lowest_possible"] = lowest
+            changes["fio2_raised_by_pao2"] = True
             if nominal < lowest:
                 changes["fio2"] = lowest
         what = f"FiO2 (estimated from the device: {low:.2f} to {high:.2f})"
@@ -241,11 +242,11 @@ def input_ranges(gas: GasFacts, *, tolerance_mmhg: float, settings: Settings) ->
     if residence is not None:
         general.append(residence)
     pressure = _pressure_range(gas, tolerance_mmhg, settings)
-    fixed = (
-        {"fio2_lowest_possible": representative["fio2_lowest_possible"]}
-        if "fio2_lowest_possible" in representative
-        else {}
-    )
+    fixed = {
+        name: representative[name]
+        for name in ("fio2_lowest_possible", "fio2_raised_by_pao2")
+        if name in representative
+    }
     scenarios: list[tuple[str, dict[str, FactValue], frozenset[Mechanism] | None]] = []
     if general:
         scenarios += [(label, {**c, **fixed}, None) for label, c in _combinations(general)]

@@ -2,7 +2,8 @@
 
 Schema and cross-checks come from the engine's loader (file, rule, field and a fix for each);
 on top of them: the lock file, conditions that can never be true or never false, parameters
-and blocks nobody uses, the local-code ConceptMap, and fixture coverage — every active rule
+and blocks nobody uses, the local-code ConceptMap, totality — every mechanism decided by some
+rule in every generated fact state (``totality``) — and fixture coverage: every active rule
 must fire in some fixture and stay silent in another.
 """
 
@@ -21,6 +22,7 @@ from .expectations import FixtureError, find_cases
 from .lock import compare, current_entries, read_lock
 from .runner import run_cases
 from .satisfiability import reachability
+from .totality import undecided
 
 
 @dataclass(frozen=True, slots=True)
@@ -56,6 +58,7 @@ def lint(directory: Path, *, fixtures: Iterable[Path] = ()) -> list[LintMessage]
         ]
     ruleset = runtime.ruleset
     messages = _lock(directory, ruleset) + _reachability(ruleset) + _unused(ruleset)
+    messages += _totality(ruleset, runtime.settings)
     fixture_dirs = [f for f in fixtures if f.exists()]
     if fixture_dirs:
         messages += _coverage(ruleset, runtime, fixture_dirs)
@@ -106,6 +109,32 @@ def _reachability(ruleset: RuleSet) -> list[LintMessage]:
                     "add the condition that should distinguish the cases",
                 )
             )
+    return messages
+
+
+TOTALITY_STATES = 1000
+"""Generated fact states lint tries (about a second); the property test tries many more."""
+
+
+def _totality(ruleset: RuleSet, settings: Settings) -> list[LintMessage]:
+    messages = []
+    for hole in undecided(ruleset, settings=settings, count=TOTALITY_STATES):
+        shown = ", ".join(
+            f"{name}={value:.4g}" if isinstance(value, float) else f"{name}={value}"
+            for name, value in sorted(hole.facts.items())
+            if not isinstance(value, bool) or value
+        )
+        messages.append(
+            LintMessage(
+                "error",
+                "",
+                "",
+                "",
+                f"no rule decides {hole.mechanism} in a reachable fact state: {shown}",
+                f"grade {hole.mechanism} for that state, or add a not-assessable rule that says "
+                "why the data cannot speak",
+            )
+        )
     return messages
 
 
