@@ -2,13 +2,13 @@
 
 from __future__ import annotations
 
-from datetime import date, timedelta
+from datetime import date
 
 import pytest
 
+from service.assess.assess import windows
 from service.assess.derive import GasFacts, age_years, derive_gas_facts
 from service.assess.pairing import pair_gases
-from service.assess.serial import add_serial_facts
 from service.config import Settings
 from service.intake.model import Fio2Source, Intake
 from service.intake.model import Quantity as Q
@@ -20,11 +20,7 @@ TODAY = date(2026, 11, 20)
 
 def facts_of(data: Intake, **settings: object) -> list[GasFacts]:
     s = Settings(**settings)  # type: ignore[arg-type]
-    pairing = pair_gases(
-        data,
-        window=timedelta(minutes=s.pairing_window_minutes),
-        same_sample=timedelta(minutes=s.same_sample_minutes),
-    )
+    pairing = pair_gases(data, windows=windows(s))
     return [
         derive_gas_facts(g, patient=data.patient, settings=s, today=TODAY) for g in pairing.gases
     ]
@@ -41,10 +37,15 @@ def test_sea_level_room_air_gas_matches_the_worked_alveolar_value() -> None:
     assert gas.facts["barometric_pressure_assumed"] is True
     assert gas.barometric_source == "sea-level-assumed"
     assert gas.fio2_source == "measured"
-    # Age 66 on 2026-11-20 (born 1960-05-01): limit max(2.5 + 0.21 × 66, 66/4 + 4) = 20.5.
+    # Age 66 on 2026-11-20 (born 1960-05-01). On room air at sea level the upper limit is the
+    # alveolar PO2 less the lower limit of PaO2 for age: Cerveri I et al., Am J Respir Crit
+    # Care Med 1995;152:934, 143.6 - 0.39 x age - 0.56 x BMI 25 - 0.57 x PaCO2 40, less
+    # 1.645 x SEE 7.48 (5th centile).
     assert gas.facts["age"] == 66.0
-    assert gas.facts["aa_gradient_upper_limit"] == pytest.approx(20.5)
-    assert gas.facts["aa_gradient_excess"] == pytest.approx(11.8 - 20.5, abs=0.05)
+    lower_limit = 143.6 - 0.39 * 66 - 0.56 * 25 - 0.57 * 40 - 1.645 * 7.48
+    limit = 101.8 - lower_limit
+    assert gas.facts["aa_gradient_upper_limit"] == pytest.approx(limit, abs=0.1)
+    assert gas.facts["aa_gradient_excess"] == pytest.approx(11.8 - limit, abs=0.1)
 
 
 def test_barometric_pressure_precedence() -> None:
@@ -75,8 +76,9 @@ def test_fio2_precedence_and_flags() -> None:
     assert estimate.fio2_source == "device-estimate"
     assert estimate.facts["fio2"] == pytest.approx(0.29)
     assert estimate.facts["fio2_estimated_from_flow"] is True
-    # Wettstein 2005 envelope at 2 L/min: 0.282 (rapid breathing) to 0.316 (rest).
-    assert estimate.fio2_range == pytest.approx((0.282, 0.316))
+    # Wettstein 2005 envelope at 2 L/min: 0.282 (rapid breathing) to 0.316 (rest), widened
+    # by the smallest between-patient SD they report at one flow (0.04).
+    assert estimate.fio2_range == pytest.approx((0.282 - 0.04, 0.316 + 0.04))
     (missing,) = facts_of(intake(*gas))
     assert "fio2" not in missing.facts
     assert "alveolar_po2" not in missing.facts
@@ -97,10 +99,10 @@ def test_shunt_uses_measured_mixed_venous_content_when_present() -> None:
         m(Q.MIXED_VENOUS_PO2, 35.0),
     )
     (gas,) = facts_of(data)
-    assert "measured mixed-venous" in gas.derived["shunt-fraction"].method
-    assert "venous admixture" in gas.derived["shunt-fraction"].method
+    assert "measured mixed-venous" in gas.derived["venous-admixture"].method
+    assert "venous admixture" in gas.derived["venous-admixture"].method
     (assumed,) = facts_of(intake(*data.measurements[:5]))
-    assert "assumed a-v content difference 5" in assumed.derived["shunt-fraction"].method
+    assert "assumed a-v content difference 5" in assumed.derived["venous-admixture"].method
 
 
 def test_spo2_only_gives_sf_ratio_and_an_imputed_pao2() -> None:
@@ -111,29 +113,6 @@ def test_spo2_only_gives_sf_ratio_and_an_imputed_pao2() -> None:
     assert gas.facts["imputed_pao2"] == pytest.approx(70.87, abs=0.01)
     (high,) = facts_of(intake(m(Q.SPO2, 0.98), m(Q.FIO2, 0.21)))
     assert "imputed_pao2" not in high.facts  # Brown 2016: not above 96 %
-
-
-def test_serial_gases_on_two_fio2_give_the_oxygen_response() -> None:
-    data = intake(
-        m(Q.ARTERIAL_PO2, 55.0, -60),
-        m(Q.ARTERIAL_PCO2, 38.0, -60),
-        m(Q.FIO2, 0.3, -60),
-        m(Q.HAEMOGLOBIN, 14.0, -60),
-        m(Q.ARTERIAL_PO2, 60.0, 0),
-        m(Q.ARTERIAL_PCO2, 38.0, 0),
-        m(Q.FIO2, 1.0, 0),
-        m(Q.HAEMOGLOBIN, 14.0, 0),
-    )
-    index, earlier = facts_of(data)
-    compared = add_serial_facts(index, [earlier])
-    assert compared is earlier
-    assert index.facts["fio2_change"] == pytest.approx(0.7)
-    assert index.facts["pao2_change"] == pytest.approx(5.0)
-    assert index.facts["shunt_fraction_at_higher_fio2"] == index.facts["shunt_fraction"]
-    assert index.facts["shunt_fraction_change"] == pytest.approx(
-        index.number("shunt_fraction")  # type: ignore[operator]
-        - earlier.number("shunt_fraction")
-    )
 
 
 def test_age_is_counted_in_whole_years_at_the_time_of_the_gas() -> None:
