@@ -97,6 +97,9 @@ MIN_RECIPROCAL_CONDITION = 1e-10
 Z_95 = 1.959964
 
 _MAX_ITERATIONS = 60
+# Stop when a full Gauss–Newton step would lower χ² by less than this: the estimate is then
+# within 0.001 standard errors of the minimum.
+_DECREMENT_TOLERANCE = 1e-6
 _START_DROPS_MMHG = (0.0, 5.0, 10.0, 20.0, 35.0, 50.0, 75.0, 100.0, 150.0, 200.0, 300.0, 450.0)
 # The profile ranges: first step outwards from the estimate, bisections of each end, ΔPO2
 # slices searched for the odds range (see _ContentSpace.ranges).
@@ -611,9 +614,9 @@ def _solve(
 
     A parameter at a limit whose gradient points outwards is held there for the step (an
     active set); a step that raises χ² or leaves the model's steady state is refused and the
-    damping raised. Converged when the projected gradient vanishes, χ² stops falling (1e-9
-    relative) or the step is below 1e-6 in the odds and 1e-4 mmHg in ΔPO2 — far finer than
-    any confidence range.
+    damping raised. Converged when a full Gauss–Newton step would lower χ² by less than 1e-6
+    (the estimate is within 0.001 standard errors of the minimum), when χ² stops falling (1e-9
+    relative) or when the step is below 1e-6 in the odds and 1e-4 mmHg in ΔPO2.
     """
     max_drop = _max_drop(used, conditions) if fit_drop else 0.0
     space = _ContentSpace(used, conditions)
@@ -641,7 +644,7 @@ def _solve(
             if not (params[k] <= lows[k] and g[k] > 0.0)
             and not (params[k] >= highs[k] and g[k] < 0.0)
         ]
-        if not free or max(abs(g[k]) for k in free) < 1e-10 * (1.0 + chi2):
+        if not free or _decrement(free, g, h) < _DECREMENT_TOLERANCE:
             converged = True
             break
         step = _damped_step(free, g, h, damping)
@@ -671,6 +674,19 @@ def _solve(
         floor = at_estimate[0] if at_estimate is not None else current.chi_square
         ranges = space.ranges(floor + DELTA_CHI_SQUARE_95 * inflation, max_drop, (odds, drop))
     return _Solution(odds, drop, current, covariance, converged, iterations, ranges)
+
+
+def _decrement(free: list[int], g: tuple[float, float], h: tuple[float, float, float]) -> float:
+    """gᵀ H⁻¹ g over the free parameters: the fall in χ² a full Gauss–Newton step would
+    bring, i.e. the squared distance to the minimum in standard errors."""
+    if len(free) == 1:
+        k = free[0]
+        curvature = h[0] if k == 0 else h[2]
+        return g[k] * g[k] / curvature if curvature > 0.0 else math.inf
+    det = h[0] * h[2] - h[1] * h[1]
+    if det <= 0.0:
+        return math.inf
+    return (g[0] * g[0] * h[2] - 2.0 * g[0] * g[1] * h[1] + g[1] * g[1] * h[0]) / det
 
 
 def _damped_step(
