@@ -88,7 +88,7 @@ SPO2_SD = 0.02
 SAO2_SD = 0.01
 PAO2_SD_FLOOR_MMHG = 2.0
 PAO2_SD_RELATIVE = 0.05
-# Identifiability settings (module docstring).
+# Identifiability settings (module docstring); a caller may pass others (IdentifiabilityLimits).
 MIN_FIO2_STEP = 0.03
 MAX_SHUNT_RANGE_WIDTH = 0.20
 MAX_VQ_DROP_RANGE_WIDTH_MMHG = 75.0
@@ -109,6 +109,27 @@ _RANGE_SLICES = 8
 # Δχ² of a 95 % profile-likelihood range for one parameter: the χ²(1) upper 5 % point.
 DELTA_CHI_SQUARE_95 = 3.841459
 _MAX_SHUNT_ODDS = SHUNT_LIMITS[1] / (1.0 - SHUNT_LIMITS[1])
+
+
+@dataclass(frozen=True, slots=True)
+class IdentifiabilityLimits:
+    """When the two-parameter fit counts as identified (module docstring): the least FiO2
+    span of the informative points and the widest 95 % ranges of shunt and ΔPO2. Method
+    settings with sourced defaults, so that a rule set or a site may tighten them."""
+
+    min_fio2_span: float = MIN_FIO2_STEP
+    max_shunt_range_width: float = MAX_SHUNT_RANGE_WIDTH
+    max_vq_drop_range_width_mmhg: float = MAX_VQ_DROP_RANGE_WIDTH_MMHG
+
+    def __post_init__(self) -> None:
+        require_possible("min_fio2_span", self.min_fio2_span, 0.0, 0.9, "1")
+        require_possible("max_shunt_range_width", self.max_shunt_range_width, 0.01, 0.95, "1")
+        require_possible(
+            "max_vq_drop_range_width_mmhg", self.max_vq_drop_range_width_mmhg, 1.0, 700.0, "mm[Hg]"
+        )
+
+
+DEFAULT_LIMITS = IdentifiabilityLimits()
 
 
 class FitModel(StrEnum):
@@ -279,6 +300,7 @@ def fit_oxygen_response(
     spo2_informative_max: float = SPO2_INFORMATIVE_MAX,
     spo2_sd: float = SPO2_SD,
     sao2_sd: float = SAO2_SD,
+    limits: IdentifiabilityLimits = DEFAULT_LIMITS,
 ) -> OxygenResponse:
     """Fit both models to ``points`` (any order; see ``titration.select_titration_points``).
 
@@ -332,13 +354,13 @@ def fit_oxygen_response(
         return response(None, None, reason, None)
     one_solution = _solve(used, conditions, fit_drop=False)
     one = _model_fit(used, left_out, conditions, one_solution, fit_drop=False)
-    refusal = _refusal_before_fit(used)
+    refusal = _refusal_before_fit(used, limits)
     two: ModelFit | None = None
     two_solution: _Solution | None = None
     if refusal is None:
         two_solution = _solve(used, conditions, fit_drop=True)
         two = _model_fit(used, left_out, conditions, two_solution, fit_drop=True)
-        refusal = _refusal_after_fit(two)
+        refusal = _refusal_after_fit(two, limits)
     if refusal is not None or two is None or two_solution is None:
         one = replace(one, sensitivities=_sensitivities(used, one_solution, conditions, False))
         return response(None, one, refusal, None)
@@ -824,35 +846,36 @@ def _point_fit(
     )
 
 
-def _refusal_before_fit(used: list[_Observation]) -> str | None:
+def _refusal_before_fit(used: list[_Observation], limits: IdentifiabilityLimits) -> str | None:
     if len(used) < 2:
         return "only one informative point: two parameters need at least two FiO2 levels"
     fio2s = [o.point.inspired.fio2 for o in used]
-    if max(fio2s) - min(fio2s) < MIN_FIO2_STEP:
+    if max(fio2s) - min(fio2s) < limits.min_fio2_span:
         return (
-            f"all informative points lie within {MIN_FIO2_STEP:g} of one FiO2 "
+            f"all informative points lie within {limits.min_fio2_span:g} of one FiO2 "
             f"({min(fio2s):.2f}–{max(fio2s):.2f}): the response to oxygen is not seen"
         )
     return None
 
 
-def _refusal_after_fit(fit: ModelFit) -> str | None:
+def _refusal_after_fit(fit: ModelFit, limits: IdentifiabilityLimits) -> str | None:
     if not fit.converged:
         return "the two-parameter fit did not converge"
     if not (
         math.isfinite(fit.shunt.standard_error) and math.isfinite(fit.vq_drop_mmhg.standard_error)
     ):
         return "the points cannot separate shunt from V/Q mismatch (their effects coincide)"
-    if fit.shunt.width > MAX_SHUNT_RANGE_WIDTH:
+    if fit.shunt.width > limits.max_shunt_range_width:
         return (
             f"the shunt is not identified: its 95 % range would span "
-            f"{fit.shunt.low:.0%}–{fit.shunt.high:.0%} (limit {MAX_SHUNT_RANGE_WIDTH:.0%} wide)"
+            f"{fit.shunt.low:.0%}–{fit.shunt.high:.0%} "
+            f"(limit {limits.max_shunt_range_width:.0%} wide)"
         )
-    if fit.vq_drop_mmhg.width > MAX_VQ_DROP_RANGE_WIDTH_MMHG:
+    if fit.vq_drop_mmhg.width > limits.max_vq_drop_range_width_mmhg:
         return (
             f"the V/Q term is not identified: its 95 % range would span "
             f"{fit.vq_drop_mmhg.low:.0f}–{fit.vq_drop_mmhg.high:.0f} mmHg "
-            f"(limit {MAX_VQ_DROP_RANGE_WIDTH_MMHG:.0f} mmHg wide)"
+            f"(limit {limits.max_vq_drop_range_width_mmhg:.0f} mmHg wide)"
         )
     return None
 
