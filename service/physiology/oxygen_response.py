@@ -10,29 +10,30 @@ two parameters. Also fit the one-parameter "effective shunt" model (ΔPO2 held a
 Weights. Each residual is divided by its expected error: the measurement's own (SpO2 0.02,
 SaO2 0.01, PaO2 √(2² + (5 % of PaO2)²) mmHg — our defaults, see below) combined with the
 error the point's FiO2 uncertainty causes through the model's slope (the "effective
-variance" treatment of an uncertain abscissa, Orear J, Am J Phys 1982;50:912). An SpO2 above
-97 % is left out: there the curve is flat, a point says only "saturation is full", and
-oximeter error is as large as the signal (SpO2 ≤ 97 % is the validity limit of S/F, Rice TW
-et al., Chest 2007;132:410; Matthay MA et al., Am J Respir Crit Care Med 2024;209:37). Left-out
-points are still checked against the fitted curve and reported.
+variance" treatment of an uncertain abscissa; Orear J, Am J Phys 1982;50:912, from memory).
+An SpO2 above 97 % is left out: there the curve is flat, a point says only "saturation is
+full", and oximeter error is as large as the signal (SpO2 ≤ 97 % is the validity limit of
+S/F, Rice TW et al., Chest 2007;132:410; Matthay MA et al., Am J Respir Crit Care Med
+2024;209:37). Left-out points are still checked against the fitted curve and reported.
 
 Solver. A projected Levenberg–Marquardt on (shunt odds = shunt / (1 − shunt), ΔPO2) with the
 analytic Jacobian (the model's slopes by implicit differentiation of the content balance),
 started from the best of a grid over ΔPO2 on which the shunt odds have a closed form (the mass
 balance is linear in them). Written by hand, not with scipy: scipy is not a runtime dependency
-(tens of MB and a fifth of a second of import for one call), and
-``scipy.optimize.least_squares`` spends more per call on its own set-up than this whole fit
-costs for two to ten points (``python -m tests.benchmarks.oxygen_response`` measures both);
-the tests check that this solver reaches scipy's minimum.
+(tens of MB, and importing ``scipy.optimize`` took 0.7–1.4 s here), and one
+``scipy.optimize.least_squares`` call on the same residuals and Jacobian takes about three
+times as long as this whole fit, ranges included (``python -m tests.benchmarks.oxygen_response``
+measures both); the tests check that this solver reaches scipy's minimum.
 
 Confidence ranges, 95 %. Two-parameter fit: profile-likelihood ranges (Venzon DJ & Moolgavkar
-SH, Appl Stat 1988;37:87), the values of each parameter for which the best χ² over the other
-stays within 3.84 of the minimum — computed in content space, where the odds enter linearly
-(``_ContentSpace``). Unlike ranges from the linearised covariance they widen where the model
-bends, which it does most for oximetry on the shoulder of the curve: in simulated titrations
-(tests) the linearised ranges covered the true values far less often than stated. Effective
-shunt: ± 1.96 linearised standard errors (the model is nearly linear in its one parameter).
-Both are scaled up by χ²/ν when the fit is worse than the stated errors predict.
+SH, Appl Stat 1988;37:87, from memory), the values of each parameter for which the best χ²
+over the other stays within 3.84 of the minimum — computed in content space, where the odds
+enter linearly (``_ContentSpace``). Unlike ranges from the linearised covariance they widen
+where the model bends, which it does most for oximetry on the shoulder of the curve: in
+simulated titrations (tests) the linearised ranges covered the true values far less often than
+stated. Effective shunt: ± 1.96 linearised standard errors (the model is nearly linear in its
+one parameter). Both are scaled up by χ²/ν when the fit is worse than the stated errors
+predict.
 
 Identifiability. The two-parameter fit is refused — and only the effective shunt reported,
 labelled so — when fewer than two points are informative, when they do not span at least 0.03
@@ -82,8 +83,9 @@ from service.physiology.titration import DroppedPoint, MeasuredKind, TitrationPo
 # Above this SpO2 a point is left out of the fit (see the module docstring).
 SPO2_INFORMATIVE_MAX = 0.97
 # Expected measurement errors (1 SD), our defaults: oximeters claim 2–3 % Arms and ISO
-# 80601-2-61 allows 4 %; a co-oximeter's SaO2 is within about 1 %, the Severinghaus curve
-# itself within 0.55 %; a PaO2 varies by a few percent between samples (common practice).
+# 80601-2-61 allows 4 % (from memory); a co-oximeter's SaO2 is within about 1 %, the
+# Severinghaus curve itself within 0.55 %; a PaO2 varies by a few percent between samples
+# (common practice).
 SPO2_SD = 0.02
 SAO2_SD = 0.01
 PAO2_SD_FLOOR_MMHG = 2.0
@@ -422,14 +424,19 @@ def _affinity_of(point: TitrationPoint | None, conditions: ExchangeConditions) -
 
 
 def _evaluate(
-    used: list[_Observation], odds: float, drop: float, conditions: ExchangeConditions
+    used: list[_Observation],
+    odds: float,
+    drop: float,
+    conditions: ExchangeConditions,
+    near: _Evaluation | None = None,
 ) -> _Evaluation | None:
     """The model at every used point; None where it has no steady state at some point.
 
     Jacobian by implicit differentiation of CaO2(PaO2) = Cc'O2 − odds × avd:
         dPaO2/d odds = −avd / C'(PaO2);  dPaO2/dΔPO2 = −C'(Pc'O2) / C'(PaO2);
         dPaO2/dFiO2 = C'(Pc'O2) dPAO2/dFiO2 / C'(PaO2);  dSaO2 = S'(PaO2) dPaO2.
-    Each residual is divided by √(measurement SD² + (dy/dFiO2 × FiO2 SD)²).
+    Each residual is divided by √(measurement SD² + (dy/dFiO2 × FiO2 SD)²). ``near``, an
+    evaluation at nearby parameters, starts each point's PaO2 solve from its answer there.
     """
     kh = conditions.carrying_capacity_ml_dl
     avd = conditions.av_difference_ml_dl
@@ -439,8 +446,10 @@ def _evaluate(
     sds: list[float] = []
     states: list[ExchangeState] = []
     chi2 = 0.0
-    for obs in used:
-        state = exchange_state(obs.alveolar_po2_mmhg, drop, odds, kh, avd, obs.scale)
+    starts = [st.arterial_po2_mmhg for st in near.states] if near is not None else None
+    for i, obs in enumerate(used):
+        start = starts[i] if starts is not None else 0.0
+        state = exchange_state(obs.alveolar_po2_mmhg, drop, odds, kh, avd, obs.scale, start)
         if state is None:
             return None
         to_observed = 1.0 if obs.is_pressure else state.saturation_slope
@@ -672,7 +681,7 @@ def _solve(
         step = _damped_step(free, g, h, damping)
         trial_odds = min(max(odds + step[0], lows[0]), highs[0])
         trial_drop = min(max(drop + step[1], lows[1]), highs[1])
-        trial = _evaluate(used, trial_odds, trial_drop, conditions)
+        trial = _evaluate(used, trial_odds, trial_drop, conditions, current)
         if trial is not None and trial.chi_square <= chi2:
             small = abs(trial_odds - odds) <= 1e-6 * (1.0 + odds) and abs(
                 trial_drop - drop
