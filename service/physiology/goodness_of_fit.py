@@ -2,7 +2,8 @@
 
 Written by hand because the runtime carries no statistics library (scipy is a test-only
 reference, see tests/physiology/test_goodness_of_fit.py) and integer degrees of freedom have
-a closed form (Abramowitz M & Stegun IA, Handbook of Mathematical Functions, 1964, §26.4):
+a closed form (Abramowitz M & Stegun IA, Handbook of Mathematical Functions, 1964, §26.4;
+from memory, and checked against scipy):
 
     even ν:  Q(χ² | ν) = e^(−χ²/2) Σ_{j=0}^{ν/2−1} (χ²/2)^j / j!
     odd ν:   Q(χ² | ν) = erfc(√(χ²/2)) + e^(−χ²/2) Σ_{j=1}^{(ν−1)/2} (χ²/2)^(j−1/2) / Γ(j + 1/2)

@@ -195,11 +195,13 @@ def exchange_state(
     carrying_capacity_ml_dl: float,
     av_difference_ml_dl: float,
     affinity_scale: float,
+    start_po2: float = 0.0,
 ) -> ExchangeState | None:
     """The model from alveolar gas onwards, unchecked and positional (the fit's inner loop).
 
     ``shunt_odds`` is shunt / (1 − shunt), the form in which the shunt enters the mass
-    balance linearly; ``carrying_capacity_ml_dl`` is k × Hb. Returns None where the model has
+    balance linearly; ``carrying_capacity_ml_dl`` is k × Hb; ``start_po2`` a nearby PaO2 to
+    start the solve from (0 for none). Returns None where the model has
     no living steady state: end-capillary PO2 below 5 mmHg, or a mixed venous content at or
     below zero.
     """
@@ -213,7 +215,7 @@ def exchange_state(
     c_art = c_cap - shunt_odds * av_difference_ml_dl
     if c_art <= av_difference_ml_dl:
         return None
-    p_art = _po2_from_content(c_art, kh, alpha, affinity_scale, capillary, s_cap)
+    p_art = _po2_from_content(c_art, kh, alpha, affinity_scale, capillary, s_cap, start_po2)
     slope_s_art = affinity_scale * standard_saturation_slope(affinity_scale * p_art)
     slope_s_cap = affinity_scale * standard_saturation_slope(affinity_scale * capillary)
     return ExchangeState(
@@ -241,7 +243,13 @@ def alveolar_terms(
 
 
 def _po2_from_content(
-    content: float, kh: float, alpha: float, scale: float, upper: float, s_upper: float
+    content: float,
+    kh: float,
+    alpha: float,
+    scale: float,
+    upper: float,
+    s_upper: float,
+    start_po2: float = 0.0,
 ) -> float:
     """The PO2 in (0, upper] at which k Hb S(PO2) + 0.003 PO2 = content.
 
@@ -254,14 +262,18 @@ def _po2_from_content(
     concave, so the iterates approach monotonically after at most one step past the root.
     (Newton on PO2 alone crawls on the steep-to-flat shoulder, where its slope drops a
     hundredfold; on u alone it crawls on the flat part.) Two to four steps reach 1e-12 of the
-    content.
+    content; one or two from ``start_po2``, a nearby answer when there is one (a step left of
+    the root first overshoots it, then the iterates fall monotonically as before).
     """
     if kh * s_upper + alpha * upper - content <= 0.0:
         return upper
-    guess = content / kh
-    if guess >= _FLAT_SATURATION and s_upper >= _FLAT_SATURATION:
-        return _po2_from_content_flat(content, kh, alpha, scale, upper)
-    u = min(guess, s_upper)
+    bound = content / kh
+    if bound >= _FLAT_SATURATION and s_upper >= _FLAT_SATURATION:
+        start = min(start_po2, upper) if start_po2 > 0.0 else upper
+        return _po2_from_content_flat(content, kh, alpha, scale, upper, start)
+    u = min(bound, s_upper)
+    if 0.0 < start_po2 < upper:  # a nearby answer (the fit's previous step) starts closer
+        u = min(u, standard_saturation(scale * start_po2))
     low = 0.0
     p_std = standard_po2(u) if u > 0.0 else 0.0
     for _ in range(_NEWTON_MAX_STEPS):
@@ -284,11 +296,11 @@ def _po2_from_content(
 
 
 def _po2_from_content_flat(
-    content: float, kh: float, alpha: float, scale: float, upper: float
+    content: float, kh: float, alpha: float, scale: float, upper: float, start: float
 ) -> float:
-    """Newton on PO2 from ``upper`` (where the content is not below the target), bracketed."""
+    """Newton on PO2 from ``start``, bracketed by 0 and ``upper``."""
     low, high = 0.0, upper
-    p = upper
+    p = start
     for _ in range(_NEWTON_MAX_STEPS):
         x_std = scale * p
         x = x_std * (x_std * x_std + 150.0)

@@ -110,7 +110,11 @@ def predict_oxygen_response(
     model = _FittedCurve(fit, response)
     count = math.ceil(round((FIO2_LIMITS[1] - ROOM_AIR_FIO2) / fio2_step, 9))
     fio2s = [ROOM_AIR_FIO2 + i * fio2_step for i in range(count)] + [FIO2_LIMITS[1]]
-    grid = [(f, values) for f in fio2s if (values := model.values(f)) is not None]
+    grid: list[tuple[float, _Values]] = []
+    for fio2 in fio2s:
+        values = model.values(fio2, grid[-1][1][3] if grid else 0.0)
+        if values is not None:
+            grid.append((fio2, values))
     curve = tuple(PredictedOxygenation(f, *values) for f, values in grid)
     return OxygenPrediction(
         model=fit.model,
@@ -135,7 +139,7 @@ class _FittedCurve:
         self.paco2 = response.prediction_paco2_mmhg
         self.scale = response.prediction_affinity.scale
 
-    def state(self, fio2: float) -> ExchangeState | None:
+    def state(self, fio2: float, start_po2: float = 0.0) -> ExchangeState | None:
         alveolar, _, _ = alveolar_terms(fio2, self.paco2, self.conditions)
         return exchange_state(
             alveolar,
@@ -144,12 +148,13 @@ class _FittedCurve:
             self.conditions.carrying_capacity_ml_dl,
             self.conditions.av_difference_ml_dl,
             self.scale,
+            start_po2,
         )
 
-    def values(self, fio2: float) -> _Values | None:
+    def values(self, fio2: float, start_po2: float = 0.0) -> _Values | None:
         """(SaO2, its 95 % low, high, PaO2, its low, high) at ``fio2``; None where the model
-        has no steady state."""
-        state = self.state(fio2)
+        has no steady state. ``start_po2``: a nearby PaO2 to start the solve from."""
+        state = self.state(fio2, start_po2)
         if state is None:
             return None
         sd_pao2 = self._pao2_sd(state)
@@ -172,10 +177,10 @@ class _FittedCurve:
         variance = g_o * g_o * var_o + 2.0 * g_o * g_d * cov + g_d * g_d * var_d
         return math.sqrt(variance) if math.isfinite(variance) and variance > 0.0 else 0.0
 
-    def saturation(self, fio2: float, which: int) -> float:
-        """One of the saturation values at ``fio2`` (0 where there is no steady state)."""
-        values = self.values(fio2)
-        return 0.0 if values is None else values[which]
+    def saturation(self, fio2: float, which: int, start_po2: float) -> tuple[float, float]:
+        """(one of the saturation values, PaO2) at ``fio2``; (0, 0) without a steady state."""
+        values = self.values(fio2, start_po2)
+        return (0.0, 0.0) if values is None else (values[which], values[3])
 
 
 def _lowest_fio2_reaching(
@@ -189,7 +194,8 @@ def _lowest_fio2_reaching(
         if values[which] >= target:
             if previous is None:
                 return fio2
-            return _up_to_tolerance(_refine(curve, previous, (fio2, values[which]), target, which))
+            above = (fio2, values[which])
+            return _up_to_tolerance(_refine(curve, previous, above, target, which, values[3]))
         previous = (fio2, values[which])
     return None
 
@@ -205,6 +211,7 @@ def _refine(
     above: tuple[float, float],
     target: float,
     which: int,
+    pao2: float,
 ) -> float:
     (f_lo, s_lo), (f_hi, s_hi) = below, above
     g_lo, g_hi = s_lo - target, s_hi - target
@@ -215,7 +222,8 @@ def _refine(
         f_new = (f_lo * g_hi - f_hi * g_lo) / (g_hi - g_lo)
         if not f_lo < f_new < f_hi:
             f_new = (f_lo + f_hi) / 2.0
-        g_new = curve.saturation(f_new, which) - target
+        saturation, pao2 = curve.saturation(f_new, which, pao2)
+        g_new = saturation - target
         if g_new >= 0.0:
             f_hi, g_hi = f_new, g_new
             if side == -1:

@@ -10,29 +10,30 @@ two parameters. Also fit the one-parameter "effective shunt" model (ΔPO2 held a
 Weights. Each residual is divided by its expected error: the measurement's own (SpO2 0.02,
 SaO2 0.01, PaO2 √(2² + (5 % of PaO2)²) mmHg — our defaults, see below) combined with the
 error the point's FiO2 uncertainty causes through the model's slope (the "effective
-variance" treatment of an uncertain abscissa, Orear J, Am J Phys 1982;50:912). An SpO2 above
-97 % is left out: there the curve is flat, a point says only "saturation is full", and
-oximeter error is as large as the signal (SpO2 ≤ 97 % is the validity limit of S/F, Rice TW
-et al., Chest 2007;132:410; Matthay MA et al., Am J Respir Crit Care Med 2024;209:37). Left-out
-points are still checked against the fitted curve and reported.
+variance" treatment of an uncertain abscissa; Orear J, Am J Phys 1982;50:912, from memory).
+An SpO2 above 97 % is left out: there the curve is flat, a point says only "saturation is
+full", and oximeter error is as large as the signal (SpO2 ≤ 97 % is the validity limit of
+S/F, Rice TW et al., Chest 2007;132:410; Matthay MA et al., Am J Respir Crit Care Med
+2024;209:37). Left-out points are still checked against the fitted curve and reported.
 
 Solver. A projected Levenberg–Marquardt on (shunt odds = shunt / (1 − shunt), ΔPO2) with the
 analytic Jacobian (the model's slopes by implicit differentiation of the content balance),
 started from the best of a grid over ΔPO2 on which the shunt odds have a closed form (the mass
 balance is linear in them). Written by hand, not with scipy: scipy is not a runtime dependency
-(tens of MB and a fifth of a second of import for one call), and
-``scipy.optimize.least_squares`` spends more per call on its own set-up than this whole fit
-costs for two to ten points (``python -m tests.benchmarks.oxygen_response`` measures both);
-the tests check that this solver reaches scipy's minimum.
+(tens of MB, and importing ``scipy.optimize`` took 0.7–1.4 s here), and one
+``scipy.optimize.least_squares`` call on the same residuals and Jacobian takes about three
+times as long as this whole fit, ranges included (``python -m tests.benchmarks.oxygen_response``
+measures both); the tests check that this solver reaches scipy's minimum.
 
 Confidence ranges, 95 %. Two-parameter fit: profile-likelihood ranges (Venzon DJ & Moolgavkar
-SH, Appl Stat 1988;37:87), the values of each parameter for which the best χ² over the other
-stays within 3.84 of the minimum — computed in content space, where the odds enter linearly
-(``_ContentSpace``). Unlike ranges from the linearised covariance they widen where the model
-bends, which it does most for oximetry on the shoulder of the curve: in simulated titrations
-(tests) the linearised ranges covered the true values far less often than stated. Effective
-shunt: ± 1.96 linearised standard errors (the model is nearly linear in its one parameter).
-Both are scaled up by χ²/ν when the fit is worse than the stated errors predict.
+SH, Appl Stat 1988;37:87, from memory), the values of each parameter for which the best χ²
+over the other stays within 3.84 of the minimum — computed in content space, where the odds
+enter linearly (``_ContentSpace``). Unlike ranges from the linearised covariance they widen
+where the model bends, which it does most for oximetry on the shoulder of the curve: in
+simulated titrations (tests) the linearised ranges covered the true values far less often than
+stated. Effective shunt: ± 1.96 linearised standard errors (the model is nearly linear in its
+one parameter). Both are scaled up by χ²/ν when the fit is worse than the stated errors
+predict.
 
 Identifiability. The two-parameter fit is refused — and only the effective shunt reported,
 labelled so — when fewer than two points are informative, when they do not span at least 0.03
@@ -82,13 +83,14 @@ from service.physiology.titration import DroppedPoint, MeasuredKind, TitrationPo
 # Above this SpO2 a point is left out of the fit (see the module docstring).
 SPO2_INFORMATIVE_MAX = 0.97
 # Expected measurement errors (1 SD), our defaults: oximeters claim 2–3 % Arms and ISO
-# 80601-2-61 allows 4 %; a co-oximeter's SaO2 is within about 1 %, the Severinghaus curve
-# itself within 0.55 %; a PaO2 varies by a few percent between samples (common practice).
+# 80601-2-61 allows 4 % (from memory); a co-oximeter's SaO2 is within about 1 %, the
+# Severinghaus curve itself within 0.55 %; a PaO2 varies by a few percent between samples
+# (common practice).
 SPO2_SD = 0.02
 SAO2_SD = 0.01
 PAO2_SD_FLOOR_MMHG = 2.0
 PAO2_SD_RELATIVE = 0.05
-# Identifiability settings (module docstring).
+# Identifiability settings (module docstring); a caller may pass others (IdentifiabilityLimits).
 MIN_FIO2_STEP = 0.03
 MAX_SHUNT_RANGE_WIDTH = 0.20
 MAX_VQ_DROP_RANGE_WIDTH_MMHG = 75.0
@@ -97,6 +99,9 @@ MIN_RECIPROCAL_CONDITION = 1e-10
 Z_95 = 1.959964
 
 _MAX_ITERATIONS = 60
+# Stop when a full Gauss–Newton step would lower χ² by less than this: the estimate is then
+# within 0.001 standard errors of the minimum.
+_DECREMENT_TOLERANCE = 1e-6
 _START_DROPS_MMHG = (0.0, 5.0, 10.0, 20.0, 35.0, 50.0, 75.0, 100.0, 150.0, 200.0, 300.0, 450.0)
 # The profile ranges: first step outwards from the estimate, bisections of each end, ΔPO2
 # slices searched for the odds range (see _ContentSpace.ranges).
@@ -106,6 +111,27 @@ _RANGE_SLICES = 8
 # Δχ² of a 95 % profile-likelihood range for one parameter: the χ²(1) upper 5 % point.
 DELTA_CHI_SQUARE_95 = 3.841459
 _MAX_SHUNT_ODDS = SHUNT_LIMITS[1] / (1.0 - SHUNT_LIMITS[1])
+
+
+@dataclass(frozen=True, slots=True)
+class IdentifiabilityLimits:
+    """When the two-parameter fit counts as identified (module docstring): the least FiO2
+    span of the informative points and the widest 95 % ranges of shunt and ΔPO2. Method
+    settings with sourced defaults, so that a rule set or a site may tighten them."""
+
+    min_fio2_span: float = MIN_FIO2_STEP
+    max_shunt_range_width: float = MAX_SHUNT_RANGE_WIDTH
+    max_vq_drop_range_width_mmhg: float = MAX_VQ_DROP_RANGE_WIDTH_MMHG
+
+    def __post_init__(self) -> None:
+        require_possible("min_fio2_span", self.min_fio2_span, 0.0, 0.9, "1")
+        require_possible("max_shunt_range_width", self.max_shunt_range_width, 0.01, 0.95, "1")
+        require_possible(
+            "max_vq_drop_range_width_mmhg", self.max_vq_drop_range_width_mmhg, 1.0, 700.0, "mm[Hg]"
+        )
+
+
+DEFAULT_LIMITS = IdentifiabilityLimits()
 
 
 class FitModel(StrEnum):
@@ -276,6 +302,7 @@ def fit_oxygen_response(
     spo2_informative_max: float = SPO2_INFORMATIVE_MAX,
     spo2_sd: float = SPO2_SD,
     sao2_sd: float = SAO2_SD,
+    limits: IdentifiabilityLimits = DEFAULT_LIMITS,
 ) -> OxygenResponse:
     """Fit both models to ``points`` (any order; see ``titration.select_titration_points``).
 
@@ -329,13 +356,13 @@ def fit_oxygen_response(
         return response(None, None, reason, None)
     one_solution = _solve(used, conditions, fit_drop=False)
     one = _model_fit(used, left_out, conditions, one_solution, fit_drop=False)
-    refusal = _refusal_before_fit(used)
+    refusal = _refusal_before_fit(used, limits)
     two: ModelFit | None = None
     two_solution: _Solution | None = None
     if refusal is None:
         two_solution = _solve(used, conditions, fit_drop=True)
         two = _model_fit(used, left_out, conditions, two_solution, fit_drop=True)
-        refusal = _refusal_after_fit(two)
+        refusal = _refusal_after_fit(two, limits)
     if refusal is not None or two is None or two_solution is None:
         one = replace(one, sensitivities=_sensitivities(used, one_solution, conditions, False))
         return response(None, one, refusal, None)
@@ -397,14 +424,19 @@ def _affinity_of(point: TitrationPoint | None, conditions: ExchangeConditions) -
 
 
 def _evaluate(
-    used: list[_Observation], odds: float, drop: float, conditions: ExchangeConditions
+    used: list[_Observation],
+    odds: float,
+    drop: float,
+    conditions: ExchangeConditions,
+    near: _Evaluation | None = None,
 ) -> _Evaluation | None:
     """The model at every used point; None where it has no steady state at some point.
 
     Jacobian by implicit differentiation of CaO2(PaO2) = Cc'O2 − odds × avd:
         dPaO2/d odds = −avd / C'(PaO2);  dPaO2/dΔPO2 = −C'(Pc'O2) / C'(PaO2);
         dPaO2/dFiO2 = C'(Pc'O2) dPAO2/dFiO2 / C'(PaO2);  dSaO2 = S'(PaO2) dPaO2.
-    Each residual is divided by √(measurement SD² + (dy/dFiO2 × FiO2 SD)²).
+    Each residual is divided by √(measurement SD² + (dy/dFiO2 × FiO2 SD)²). ``near``, an
+    evaluation at nearby parameters, starts each point's PaO2 solve from its answer there.
     """
     kh = conditions.carrying_capacity_ml_dl
     avd = conditions.av_difference_ml_dl
@@ -414,8 +446,10 @@ def _evaluate(
     sds: list[float] = []
     states: list[ExchangeState] = []
     chi2 = 0.0
-    for obs in used:
-        state = exchange_state(obs.alveolar_po2_mmhg, drop, odds, kh, avd, obs.scale)
+    starts = [st.arterial_po2_mmhg for st in near.states] if near is not None else None
+    for i, obs in enumerate(used):
+        start = starts[i] if starts is not None else 0.0
+        state = exchange_state(obs.alveolar_po2_mmhg, drop, odds, kh, avd, obs.scale, start)
         if state is None:
             return None
         to_observed = 1.0 if obs.is_pressure else state.saturation_slope
@@ -611,9 +645,9 @@ def _solve(
 
     A parameter at a limit whose gradient points outwards is held there for the step (an
     active set); a step that raises χ² or leaves the model's steady state is refused and the
-    damping raised. Converged when the projected gradient vanishes, χ² stops falling (1e-9
-    relative) or the step is below 1e-6 in the odds and 1e-4 mmHg in ΔPO2 — far finer than
-    any confidence range.
+    damping raised. Converged when a full Gauss–Newton step would lower χ² by less than 1e-6
+    (the estimate is within 0.001 standard errors of the minimum), when χ² stops falling (1e-9
+    relative) or when the step is below 1e-6 in the odds and 1e-4 mmHg in ΔPO2.
     """
     max_drop = _max_drop(used, conditions) if fit_drop else 0.0
     space = _ContentSpace(used, conditions)
@@ -641,13 +675,13 @@ def _solve(
             if not (params[k] <= lows[k] and g[k] > 0.0)
             and not (params[k] >= highs[k] and g[k] < 0.0)
         ]
-        if not free or max(abs(g[k]) for k in free) < 1e-10 * (1.0 + chi2):
+        if not free or _decrement(free, g, h) < _DECREMENT_TOLERANCE:
             converged = True
             break
         step = _damped_step(free, g, h, damping)
         trial_odds = min(max(odds + step[0], lows[0]), highs[0])
         trial_drop = min(max(drop + step[1], lows[1]), highs[1])
-        trial = _evaluate(used, trial_odds, trial_drop, conditions)
+        trial = _evaluate(used, trial_odds, trial_drop, conditions, current)
         if trial is not None and trial.chi_square <= chi2:
             small = abs(trial_odds - odds) <= 1e-6 * (1.0 + odds) and abs(
                 trial_drop - drop
@@ -671,6 +705,19 @@ def _solve(
         floor = at_estimate[0] if at_estimate is not None else current.chi_square
         ranges = space.ranges(floor + DELTA_CHI_SQUARE_95 * inflation, max_drop, (odds, drop))
     return _Solution(odds, drop, current, covariance, converged, iterations, ranges)
+
+
+def _decrement(free: list[int], g: tuple[float, float], h: tuple[float, float, float]) -> float:
+    """gᵀ H⁻¹ g over the free parameters: the fall in χ² a full Gauss–Newton step would
+    bring, i.e. the squared distance to the minimum in standard errors."""
+    if len(free) == 1:
+        k = free[0]
+        curvature = h[0] if k == 0 else h[2]
+        return g[k] * g[k] / curvature if curvature > 0.0 else math.inf
+    det = h[0] * h[2] - h[1] * h[1]
+    if det <= 0.0:
+        return math.inf
+    return (g[0] * g[0] * h[2] - 2.0 * g[0] * g[1] * h[1] + g[1] * g[1] * h[0]) / det
 
 
 def _damped_step(
@@ -808,35 +855,36 @@ def _point_fit(
     )
 
 
-def _refusal_before_fit(used: list[_Observation]) -> str | None:
+def _refusal_before_fit(used: list[_Observation], limits: IdentifiabilityLimits) -> str | None:
     if len(used) < 2:
         return "only one informative point: two parameters need at least two FiO2 levels"
     fio2s = [o.point.inspired.fio2 for o in used]
-    if max(fio2s) - min(fio2s) < MIN_FIO2_STEP:
+    if max(fio2s) - min(fio2s) < limits.min_fio2_span:
         return (
-            f"all informative points lie within {MIN_FIO2_STEP:g} of one FiO2 "
+            f"all informative points lie within {limits.min_fio2_span:g} of one FiO2 "
             f"({min(fio2s):.2f}–{max(fio2s):.2f}): the response to oxygen is not seen"
         )
     return None
 
 
-def _refusal_after_fit(fit: ModelFit) -> str | None:
+def _refusal_after_fit(fit: ModelFit, limits: IdentifiabilityLimits) -> str | None:
     if not fit.converged:
         return "the two-parameter fit did not converge"
     if not (
         math.isfinite(fit.shunt.standard_error) and math.isfinite(fit.vq_drop_mmhg.standard_error)
     ):
         return "the points cannot separate shunt from V/Q mismatch (their effects coincide)"
-    if fit.shunt.width > MAX_SHUNT_RANGE_WIDTH:
+    if fit.shunt.width > limits.max_shunt_range_width:
         return (
             f"the shunt is not identified: its 95 % range would span "
-            f"{fit.shunt.low:.0%}–{fit.shunt.high:.0%} (limit {MAX_SHUNT_RANGE_WIDTH:.0%} wide)"
+            f"{fit.shunt.low:.0%}–{fit.shunt.high:.0%} "
+            f"(limit {limits.max_shunt_range_width:.0%} wide)"
         )
-    if fit.vq_drop_mmhg.width > MAX_VQ_DROP_RANGE_WIDTH_MMHG:
+    if fit.vq_drop_mmhg.width > limits.max_vq_drop_range_width_mmhg:
         return (
             f"the V/Q term is not identified: its 95 % range would span "
             f"{fit.vq_drop_mmhg.low:.0f}–{fit.vq_drop_mmhg.high:.0f} mmHg "
-            f"(limit {MAX_VQ_DROP_RANGE_WIDTH_MMHG:.0f} mmHg wide)"
+            f"(limit {limits.max_vq_drop_range_width_mmhg:.0f} mmHg wide)"
         )
     return None
 

@@ -20,7 +20,7 @@ P/F and a/A change with FiO2 for an unchanged lung (Karbing DS et al., Crit Care
 
 from __future__ import annotations
 
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 from datetime import datetime
 from enum import StrEnum
@@ -94,29 +94,43 @@ class OxygenationTrend:
 
 
 _COMMON_RELATIVE = Threshold(0.20, True, "common practice (20 % relative change)")
-_COMMON_ADMIXTURE = Threshold(0.05, False, "common practice (5 percentage points)")
-_ROWE_SHUNT = Threshold(0.05, False, "Rowe et al. 2010, method limits of agreement (±5 points)")
-_ROWE_VQ = Threshold(
-    VQ_DROP_CHANGE_MMHG, False, "Rowe et al. 2010, method limits of agreement (3 kPa)"
+DEFAULT_THRESHOLDS: Mapping[str, Threshold] = {
+    "pf_ratio": _COMMON_RELATIVE,
+    "arterial_alveolar_ratio": _COMMON_RELATIVE,
+    "venous_admixture": Threshold(0.05, False, "common practice (5 percentage points)"),
+    "shunt": Threshold(0.05, False, "Rowe et al. 2010, method limits of agreement (±5 points)"),
+    "vq_drop": Threshold(
+        VQ_DROP_CHANGE_MMHG, False, "Rowe et al. 2010, method limits of agreement (3 kPa)"
+    ),
+}
+
+# (measure, unit, its value in a summary, whether a rise is an improvement)
+_MEASURES: tuple[tuple[str, str, Callable[[GasSummary], float | None], bool], ...] = (
+    ("pf_ratio", "mm[Hg]", lambda g: g.pf_ratio_mmhg, True),
+    ("arterial_alveolar_ratio", "1", lambda g: g.arterial_alveolar_ratio, True),
+    ("venous_admixture", "1", lambda g: g.venous_admixture, False),
+    ("shunt", "1", lambda g: g.shunt, False),
+    ("vq_drop", "mm[Hg]", lambda g: g.vq_drop_mmhg, False),
 )
 
-_MEASURES: tuple[tuple[str, str, Callable[[GasSummary], float | None], bool, Threshold], ...] = (
-    ("pf_ratio", "mm[Hg]", lambda g: g.pf_ratio_mmhg, True, _COMMON_RELATIVE),
-    ("arterial_alveolar_ratio", "1", lambda g: g.arterial_alveolar_ratio, True, _COMMON_RELATIVE),
-    ("venous_admixture", "1", lambda g: g.venous_admixture, False, _COMMON_ADMIXTURE),
-    ("shunt", "1", lambda g: g.shunt, False, _ROWE_SHUNT),
-    ("vq_drop", "mm[Hg]", lambda g: g.vq_drop_mmhg, False, _ROWE_VQ),
-)
 
-
-def oxygenation_trend(*, summaries: Sequence[GasSummary]) -> OxygenationTrend:
+def oxygenation_trend(
+    *,
+    summaries: Sequence[GasSummary],
+    thresholds: Mapping[str, Threshold] = DEFAULT_THRESHOLDS,
+) -> OxygenationTrend:
     """The series of every measure over ``summaries`` (any order), each with its direction,
     and an overall direction: worsening or improving when the measures that moved agree,
-    stable when none moved, unclear when they disagree or fewer than three values exist."""
+    stable when none moved, unclear when they disagree or fewer than three values exist.
+    ``thresholds`` (by measure name, as ``DEFAULT_THRESHOLDS``) lets a rule set set its own.
+
+    Raises:
+        KeyError: ``thresholds`` lacks a measure.
+    """
     ordered = sorted(summaries, key=lambda g: g.time)
     trends = tuple(
-        _measure_trend(name, unit, ordered, get, better, threshold)
-        for name, unit, get, better, threshold in _MEASURES
+        _measure_trend(name, unit, ordered, get, better, thresholds[name])
+        for name, unit, get, better in _MEASURES
     )
     fio2s = [g.fio2 for g in ordered]
     fio2_range = max(fio2s) - min(fio2s) if fio2s else 0.0

@@ -462,3 +462,23 @@ def test_a_points_curve_moves_with_its_ph_from_the_bloods_own_standard_p50() -> 
     )
     fitted_shunt, _ = _two(fit_oxygen_response(points=hypercapnic))
     assert fitted_shunt == pytest.approx(0.2, abs=1e-4)
+
+
+def test_a_rule_set_may_tighten_the_identifiability_limits() -> None:
+    from service.exceptions import ImpossibleValueError
+    from service.physiology.oxygen_response import IdentifiabilityLimits
+
+    points = generated_points(
+        shunt=0.15,
+        vq_drop_mmhg=40.0,
+        fio2s=GAS_FIO2S,
+        rng=random.Random(2),
+        pao2_relative_noise=0.05,
+    )
+    assert fit_oxygen_response(points=points).two_parameter is not None
+    strict = IdentifiabilityLimits(max_vq_drop_range_width_mmhg=5.0)
+    response = fit_oxygen_response(points=points, limits=strict)
+    assert response.two_parameter is None
+    assert response.refusal is not None and "limit 5 mmHg wide" in response.refusal
+    with pytest.raises(ImpossibleValueError, match="max_shunt_range_width"):
+        IdentifiabilityLimits(max_shunt_range_width=2.0)

@@ -121,3 +121,16 @@ def test_a_gas_summary_needs_an_aware_time_and_a_possible_fio2() -> None:
         GasSummary(time=datetime(2025, 3, 1, 8, 0), fio2=0.4)
     with pytest.raises(ValueError, match="fio2"):
         GasSummary(time=START, fio2=40.0)
+
+
+def test_a_rule_set_may_set_its_own_thresholds() -> None:
+    from service.physiology.oxygenation_trend import DEFAULT_THRESHOLDS, Threshold
+
+    gases = [
+        _gas(0, pf_ratio_mmhg=200.0),
+        _gas(4, pf_ratio_mmhg=185.0),
+        _gas(8, pf_ratio_mmhg=170.0),
+    ]
+    tighter = {**DEFAULT_THRESHOLDS, "pf_ratio": Threshold(0.10, True, "a site's 10 %")}
+    pf = _measure(oxygenation_trend(summaries=gases, thresholds=tighter), "pf_ratio")
+    assert pf.direction is Direction.WORSENING and pf.threshold.source == "a site's 10 %"
