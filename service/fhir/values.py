@@ -130,6 +130,7 @@ def read_coded(cc: JsonObject, at: str, quantity: Quantity, out: Collector) -> R
     """The value of a coded quantity (oxygen device, residence) from a ``valueCodeableConcept``:
     the first coding that means something to the service (``codes.coded_value``)."""
     codings = member_list(cc, "coding", at, out) or []
+    sent: list[str] = []  # codes of a terminology, not patient values: named so a map can be made
     for coding, coding_at in objects(codings, f"{at}.coding", out):
         system = text(coding, "system", coding_at, out)
         code = text(coding, "code", coding_at, out)
@@ -138,10 +139,13 @@ def read_coded(cc: JsonObject, at: str, quantity: Quantity, out: Collector) -> R
         value = codes.coded_value(quantity, system, code)
         if value is not None:
             return Reading(value)
+        sent.append(f"{system}|{code}")
+    named = ", ".join(sent) if sent else "no coding"
     out.issue(
         "observation-ignored",
         Severity.INFORMATION,
-        f"{quantity.value.replace('_', ' ')} not recognised; use {codes.CODE_SYSTEM_OF[quantity]}",
+        f"{quantity.value.replace('_', ' ')} not recognised ({named}); "
+        f"use {codes.CODE_SYSTEM_OF[quantity]}",
         at,
     )
     return None

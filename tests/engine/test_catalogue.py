@@ -24,7 +24,7 @@ REQUIRED_QUANTITIES = {
     "mixed_venous_so2": "%", "dlco_percent_predicted": "%", "spo2_exertional_nadir": "%",
     "spo2_exertional_baseline": "%", "peep": "cm[H2O]", "respiratory_rate": "/min",
     "inspired_po2": MMHG, "sea_level_inspired_po2": MMHG, "alveolar_po2": MMHG,
-    "aa_gradient": MMHG, "aa_gradient_mean_for_age": MMHG, "aa_gradient_upper_limit": MMHG,
+    "aa_gradient": MMHG, "aa_gradient_expected": MMHG, "aa_gradient_upper_limit": MMHG,
     "aa_gradient_excess": MMHG, "arterial_alveolar_excess": MMHG, "a_a_ratio": "1",
     "pf_ratio": MMHG, "sf_ratio": "1", "arterial_o2_content": "mL/dL", "shunt_fraction": "%",
     "imputed_pao2": MMHG, "expected_hco3_acute": "mmol/L", "expected_hco3_chronic": "mmol/L",
@@ -32,8 +32,11 @@ REQUIRED_QUANTITIES = {
     "spo2_sao2_difference": "%", "spo2_sao2_gap": "%", "ph_henderson_gap": "[pH]",
     "hco3_above_expected_acute": "mmol/L", "hco3_above_expected_chronic": "mmol/L",
     "exertional_desaturation": "%",
-    "fio2_change": "1", "fio2_step": "1", "pao2_change": MMHG, "shunt_fraction_at_lower_fio2": "%",
-    "shunt_fraction_at_higher_fio2": "%", "shunt_fraction_change": "%",
+    "fio2_step": "1", "pao2_change": MMHG, "admixture_at_lower_fio2": "%",
+    "admixture_at_higher_fio2": "%", "admixture_fall_least": "%", "admixture_change_largest": "%",
+    "admixture_at_higher_fio2_least": "%", "admixture_at_higher_fio2_most": "%",
+    "venous_admixture": "%", "venous_admixture_least": "%", "venous_admixture_most": "%",
+    "shunt_dissolved_bound_least": "%", "pao2_expected": MMHG, "paco2_expected": MMHG,
 }  # fmt: skip
 REQUIRED_BOOLEANS = [
     "fio2_estimated_from_flow", "fio2_time_mismatch", "barometric_pressure_estimated",
@@ -69,12 +72,14 @@ def test_default_catalogue_oxygen_device_is_a_code_with_the_agreed_devices() -> 
 def test_default_catalogue_serial_facts_are_marked_serial() -> None:
     serial = {name for name, spec in DEFAULT_CATALOGUE.items() if spec.origin is FactOrigin.SERIAL}
     assert serial == {
-        "fio2_change",
         "fio2_step",
         "pao2_change",
-        "shunt_fraction_at_lower_fio2",
-        "shunt_fraction_at_higher_fio2",
-        "shunt_fraction_change",
+        "admixture_at_lower_fio2",
+        "admixture_at_higher_fio2",
+        "admixture_fall_least",
+        "admixture_change_largest",
+        "admixture_at_higher_fio2_least",
+        "admixture_at_higher_fio2_most",
     }
 
 

@@ -80,15 +80,31 @@ def test_rule_rejects_conditions_that_are_not_all_any_not_ref_or_leaf(when: Any)
         {"finding": {"code": "fio2-missing", "severity": "warning"}, "hypoxaemia": "present"},
         {"mechanism": {"code": "shunt", "grade": "likely"}},
         {"finding": {"code": "fio2-missing", "severity": "warning"}, "priority": 3},
-        {"mechanism": {"code": "shunt", "grade": "not-assessable"}, "priority": 3},
+        {"mechanism": {"code": "shunt", "grade": "unknown"}, "priority": 3},
         {"mechanism": {"code": "dead-space", "grade": "likely"}, "priority": 3},
         {"finding": {"code": "made-up", "severity": "warning"}},
         {"hypoxaemia": "unknown"},
+        {"gas_exchange": "impaired"},
+        {"gas_exchange": "defect", "hypoxaemia": "present"},
         {"mechanism": {"code": "shunt", "grade": "likely"}, "priority": "high"},
     ],
 )
 def test_outcome_rejects_anything_but_exactly_one_valid_kind(outcome: dict[str, Any]) -> None:
     assert _error_types(OutcomeModel, outcome)
+
+
+@pytest.mark.parametrize(
+    "outcome",
+    [
+        {"mechanism": {"code": "shunt", "grade": "not-assessable"}, "priority": 3},
+        {"gas_exchange": "defect"},
+        {"gas_exchange": "normal"},
+        {"hypoxaemia": "absent"},
+        {"finding": {"code": "fio2-missing", "severity": "warning"}},
+    ],
+)
+def test_outcome_accepts_each_kind(outcome: dict[str, Any]) -> None:
+    OutcomeModel.model_validate(outcome)
 
 
 @pytest.mark.parametrize(

@@ -11,6 +11,8 @@ from service.terminology import codes
 
 from .builders import bundle, observation
 
+UCUM = "http://unitsofmeasure.org"
+
 Q, S = Quantity, Specimen
 
 # (LOINC, quantity, specimen implied by the code). Source of each row beside it:
@@ -21,7 +23,12 @@ LOINC_ROWS: list[tuple[str, Quantity, Specimen | None]] = [
     ("2744-1", Q.ARTERIAL_PH, S.ARTERIAL),  # standards.md §1.2 (GEC, 2ry)
     ("1960-4", Q.ARTERIAL_HCO3, S.ARTERIAL),  # standards.md §1.2 (2ry)
     ("1925-7", Q.ARTERIAL_BASE_EXCESS, S.ARTERIAL),  # standards.md §1.2 (LNm)
-    ("2708-6", Q.ARTERIAL_SO2, S.ARTERIAL),  # standards.md §1.2 + §1.9 (alone: co-oximetry)
+    ("2708-6", Q.ARTERIAL_SO2, S.ARTERIAL),
+    (
+        "2714-4",
+        Q.ARTERIAL_O2HB,
+        S.ARTERIAL,
+    ),  # LOINC: fractional oxyhaemoglobin, arterial  # standards.md §1.2 + §1.9 (alone: co-oximetry)
     ("59408-5", Q.SPO2, None),  # standards.md §1.3 (USC, FVS)
     ("59417-6", Q.SPO2, None),  # standards.md §1.3 (FVS)
     ("59407-7", Q.SPO2, None),  # standards.md §1.3 (GEC, preductal)
@@ -66,6 +73,7 @@ INPUT_ROWS = [
     ("dlco-percent-predicted", Q.DLCO_PERCENT_PREDICTED),
     ("spo2-exertional-nadir", Q.SPO2_EXERTIONAL_NADIR),
     ("spo2-exertional-baseline", Q.SPO2_EXERTIONAL_BASELINE),
+    ("altitude-residence", Q.ALTITUDE_RESIDENCE),
 ]
 
 # A possible value in the canonical unit of each quantity, to read every row end to end.
@@ -96,8 +104,11 @@ def test_loinc_table_has_exactly_the_listed_rows() -> None:
 
 
 def test_every_intake_quantity_can_be_read_from_some_code() -> None:
+    # A DLCO's lower limit of normal comes with the DLCO, in its referenceRange (FHIR R4B
+    # Observation.referenceRange.low), not under a code of its own.
+    from_reference_range = {Q.DLCO_LOWER_LIMIT, Q.DLCO_PERCENT_LOWER_LIMIT}
     concepts = [*codes.LOINC_CONCEPTS.values(), *codes.INPUT_CONCEPTS.values()]
-    assert {c.quantity for c in concepts} == set(Quantity)
+    assert {c.quantity for c in concepts} == set(Quantity) - from_reference_range
 
 
 @pytest.mark.parametrize(
@@ -131,6 +142,12 @@ def test_loinc_row_is_read_from_a_bundle(
 
 @pytest.mark.parametrize(("code", "quantity"), INPUT_ROWS)
 def test_project_input_code_is_read_from_a_bundle(code: str, quantity: Quantity) -> None:
+    if quantity is Q.ALTITUDE_RESIDENCE:
+        concept = {"coding": [{"system": codes.ALTITUDE_RESIDENCE_CODES, "code": "resident"}]}
+        obs = observation(code, system=codes.INPUT_CODES, valueCodeableConcept=concept)
+        [measurement] = read_bundle(bundle(obs)).measurements
+        assert (measurement.quantity, measurement.value) == (quantity, "resident")
+        return
     value, unit = sample(quantity)
     obs = observation(code, value, unit, system=codes.INPUT_CODES)
     [measurement] = read_bundle(bundle(obs)).measurements
@@ -180,3 +197,42 @@ def test_snomed_devices_map_onto_project_device_codes() -> None:
 def device(code: str) -> dict[str, str]:
     """A coding of the project oxygen-device CodeSystem."""
     return {"system": codes.OXYGEN_DEVICE_CODES, "code": code}
+
+
+def test_a_dlco_lower_limit_is_read_from_its_reference_range() -> None:
+    # FHIR R4B Observation.referenceRange: the first range is the normal range; its ``low`` is
+    # the lower limit of normal (GLI 2017 DLCO reference equations report one per patient).
+    obs = observation(
+        "19911-7",
+        14.0,
+        "mL/min/mm[Hg]",
+        referenceRange=[
+            {
+                "low": {
+                    "value": 18.5,
+                    "unit": "mL/min/mm[Hg]",
+                    "system": UCUM,
+                    "code": "mL/min/mm[Hg]",
+                }
+            },
+            {
+                "low": {
+                    "value": 99.0,
+                    "unit": "mL/min/mm[Hg]",
+                    "system": UCUM,
+                    "code": "mL/min/mm[Hg]",
+                }
+            },
+        ],
+    )
+    found = {m.quantity: m.value for m in read_bundle(bundle(obs)).measurements}
+    assert found == {Q.DLCO: 14.0, Q.DLCO_LOWER_LIMIT: 18.5}
+    percent = observation(
+        "dlco-percent-predicted",
+        45.0,
+        "%",
+        system=codes.INPUT_CODES,
+        referenceRange=[{"low": {"value": 72.0, "unit": "%", "system": UCUM, "code": "%"}}],
+    )
+    found = {m.quantity: m.value for m in read_bundle(bundle(percent)).measurements}
+    assert found == {Q.DLCO_PERCENT_PREDICTED: 0.45, Q.DLCO_PERCENT_LOWER_LIMIT: 0.72}
