@@ -142,6 +142,7 @@ class DerivedTable:
                 decimals=decimals,
                 origin=FactOrigin.DERIVED,
                 inputs=needed,
+                optional_inputs=optional,
             )
             entry = DerivedFact(spec, compute, optional, wants_settings, result)
             self.facts.append(entry)
@@ -161,6 +162,7 @@ class DerivedTable:
                 description,
                 origin=FactOrigin.DERIVED,
                 inputs=needed,
+                optional_inputs=optional,
             )
             entry = DerivedFact(spec, compute, optional, wants_settings)
             self.facts.append(entry)

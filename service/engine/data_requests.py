@@ -3,8 +3,9 @@
 Rules ask for facts by name, and often for derived ones (`aa_gradient_excess`) that no
 one can supply directly. A request for a missing derived fact is therefore turned into
 requests for its missing inputs, recursively, with `needed_for` naming the derived fact
-the rule wanted; a derived fact whose inputs are all known (it could not be computed for
-another reason) is requested itself.
+the rule wanted; a derived fact whose needed inputs are all known is translated into its missing optional
+inputs, which some settings need (the residence, for the PaCO2 expected at altitude), and
+requested itself only when none is missing (it could not be computed for another reason).
 
 A known fact is requested only when a discriminator names it: a discriminator such as
 "a gas on a higher FiO2" asks for a *new* value of `arterial_po2` and `fio2`, and leaving
@@ -54,6 +55,8 @@ class DataRequests:
             return
         spec = self._catalogue[fact]
         missing_inputs = [name for name in spec.inputs if name not in self._facts]
+        if not missing_inputs:
+            missing_inputs = [name for name in spec.optional_inputs if name not in self._facts]
         if missing_inputs:
             for name in missing_inputs:
                 self.ask(name, rule, wanted=wanted or fact)

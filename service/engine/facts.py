@@ -47,7 +47,9 @@ class FactSpec:
     rationales show it, rounded to that many decimals. `inputs` names,
     for a derived fact, the facts without which it cannot be computed; the verdict uses
     them to ask for the measurement that is really missing rather than for a derived
-    number nobody can supply directly.
+    number nobody can supply directly. `optional_inputs` are facts it reads when known and
+    may need in some settings (the residence, for the PaCO2 expected at altitude): asked
+    for when every needed input is known and the fact is still missing.
     """
 
     name: str
@@ -60,6 +62,7 @@ class FactSpec:
     decimals: int = 0
     origin: FactOrigin = FactOrigin.MEASURED
     inputs: tuple[str, ...] = ()
+    optional_inputs: tuple[str, ...] = ()
 
     def __post_init__(self) -> None:
         # Catch a malformed catalogue at import time rather than in the middle of a request.

@@ -13,6 +13,8 @@ in every scenario:
   what would settle it;
 * hypoxaemia and gas exchange are known only when every scenario agrees;
 * a finding is shown when the representative evaluation raised it, or when every scenario did;
+* when the representative lacks the uncertain input (FiO2 or age not sent), a data request
+  stands only when every scenario makes it too, beside what would settle a differing grade;
 * the pattern is worked out again from the combined grades.
 
 Scenarios whose data raised an error finding are left out when others did not: the data
@@ -145,6 +147,11 @@ def combine(
     ]
     findings = tuple(sorted((*verdict.findings, *everywhere), key=finding_order))
     requested = list(verdict.data_requested)
+    if not representative_counts and len(verdicts) > 0 and general:
+        # What the representative lacked only because the uncertain input was missing is
+        # filled in every scenario; a request stands when every scenario still makes it.
+        still = [{r.fact for r in v.data_requested} for v in verdicts]
+        requested = [r for r in requested if all(r.fact in asked_by for asked_by in still)]
     known = {r.fact for r in requested}
     for item in dict.fromkeys(asked):
         for fact in item.requests:
