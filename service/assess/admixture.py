@@ -36,15 +36,19 @@ def arterial_o2_content(
     haemoglobin: float,
     arterial_po2: float,
     settings: Settings,
-    arterial_so2: float | None = None,
+    arterial_so2_functional: float | None = None,
     carboxyhaemoglobin: float | None = None,
     methaemoglobin: float | None = None,
 ) -> Computed:
-    measured = arterial_so2 is not None
+    # The functional saturation is the analyser's SaO2 or a co-oximeter's fractional O2Hb
+    # divided by 1 − COHb − MetHb; times that factor again it is the measured O2Hb fraction.
+    measured = arterial_so2_functional is not None
     functional = (
-        arterial_so2 if arterial_so2 is not None else saturation_from_po2(po2_mmhg=arterial_po2)
+        arterial_so2_functional
+        if arterial_so2_functional is not None
+        else saturation_from_po2(po2_mmhg=arterial_po2)
     )
-    note = "measured SaO2" if measured else "SaO2 from PaO2 (Severinghaus)"
+    note = "measured saturation" if measured else "SaO2 from PaO2 (Severinghaus)"
     if carboxyhaemoglobin or methaemoglobin:
         note += ", times (1 − COHb − MetHb)"
     hufner = settings.hufner_ml_per_g
@@ -161,7 +165,7 @@ def venous_admixture(
     arterial_o2_content: float,
     fio2: float,
     settings: Settings,
-    arterial_so2: float | None = None,
+    arterial_so2_functional: float | None = None,
     carboxyhaemoglobin: float | None = None,
     methaemoglobin: float | None = None,
     mixed_venous_so2: float | None = None,
@@ -175,7 +179,7 @@ def venous_admixture(
         alveolar_po2,
         arterial_o2_content,
         settings,
-        arterial_so2,
+        arterial_so2_functional,
         carboxyhaemoglobin,
         methaemoglobin,
         mixed_venous_so2,
@@ -194,7 +198,7 @@ def _admixture_at_end(end: int) -> object:
         alveolar_po2: float,
         arterial_o2_content: float,
         settings: Settings,
-        arterial_so2: float | None = None,
+        arterial_so2_functional: float | None = None,
         carboxyhaemoglobin: float | None = None,
         methaemoglobin: float | None = None,
         mixed_venous_so2: float | None = None,
@@ -210,7 +214,7 @@ def _admixture_at_end(end: int) -> object:
             alveolar_po2,
             arterial_o2_content,
             settings,
-            arterial_so2,
+            arterial_so2_functional,
             carboxyhaemoglobin,
             methaemoglobin,
             mixed_venous_so2,

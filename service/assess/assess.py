@@ -24,8 +24,8 @@ from service.engine.verdict import SEVERITY_RANK, MechanismAssessment, Verdict
 from service.intake.model import Intake, Quantity, Specimen
 
 from .derivation import FactValue
-from .derive import GasFacts, derive_again, derive_gas_facts
-from .pairing import Pairing, Windows, pair_gases
+from .derive import GasFacts, derive_again, derive_gas_facts, with_fio2_raised
+from .pairing import SETTINGS, PairedGas, Pairing, Windows, pair_gases
 from .result import Assessment, Finding, GasResult, MechanismVerdict, ResultStatus
 from .serial import serial_facts
 from .uncertainty import input_ranges
@@ -35,6 +35,43 @@ from .uncertainty import input_ranges
 ALVEOLAR_TOLERANCE = "alveolar_excess_tolerance"
 
 VALUE_OUT_OF_RANGE = "value-out-of-range"
+VALUE_OUTSIDE_WINDOW = "value-outside-window"
+
+
+def _duration(delta: timedelta) -> str:
+    """A time span in words, to the nearest whole unit that reads well."""
+    seconds = abs(delta.total_seconds())
+    if seconds >= 2 * 86400:
+        return f"{seconds / 86400:.0f} days"
+    if seconds >= 2 * 3600:
+        return f"{seconds / 3600:.0f} hours"
+    return f"{seconds / 60:.0f} minutes"
+
+
+def _outside_window(gas: PairedGas, windows: Windows) -> list[Finding]:
+    """An information finding for each kind of value sent but taken too far from the gas to
+    describe it (an FiO2 has its own rule, ``fio2-time-mismatch``). The finding names the
+    kind and the time apart, never the value."""
+    found: list[Finding] = []
+    anchor = gas.time
+    for quantity, m in gas.out_of_window.items():
+        if quantity is Quantity.FIO2 or anchor is None or m.time is None:
+            continue
+        apart = anchor - m.time
+        when = "before" if apart >= timedelta(0) else "after"
+        limit = windows.setting if quantity in SETTINGS and apart > timedelta(0) else None
+        limit = limit or windows.limit(quantity)
+        beyond = f", beyond the {_duration(limit)} it is taken to describe" if limit else ""
+        found.append(
+            Finding(
+                VALUE_OUTSIDE_WINDOW,
+                Severity.INFORMATION,
+                f"{quantity.value.replace('_', ' ')} taken {_duration(apart)} {when} the gas"
+                f"{beyond}: not used",
+                expression=m.source.expression,
+            )
+        )
+    return found
 
 
 def _specimen_flags(pairing: Pairing) -> dict[str, FactValue]:
@@ -89,6 +126,15 @@ def windows(settings: Settings) -> Windows:
         temperature=timedelta(hours=settings.temperature_window_hours),
         lung_function=timedelta(days=settings.lung_function_window_days),
     )
+
+
+def _fio2_raised(index: GasFacts, ruleset: RuleSet, settings: Settings) -> float | None:
+    """The FiO2 the index gas's PaO2 proves, when above its device estimate (else None)."""
+    parameter = ruleset.parameters.get(ALVEOLAR_TOLERANCE)
+    tolerance = parameter.value if parameter is not None else 0.0
+    changes = input_ranges(index, tolerance_mmhg=tolerance, settings=settings).representative
+    fio2 = changes.get("fio2")
+    return fio2 if isinstance(fio2, float) and changes.get("fio2_raised_by_pao2") is True else None
 
 
 def evaluate_gas(
@@ -151,6 +197,9 @@ def assess(
         for g in pairing.gases
     ]
     index = gases[0]
+    raised = _fio2_raised(index, ruleset, settings)
+    if raised is not None:
+        index = gases[0] = with_fio2_raised(index, raised, settings=settings)
     intake_findings = [
         Finding(i.code, Severity(i.severity.value), i.message, expression=i.expression)
         for i in intake.issues
@@ -171,7 +220,11 @@ def assess(
         for g in gases
         for problem in g.problems
     ]
-    findings = _merge(rule_findings, intake_findings) + physiology
+    findings = (
+        _merge(rule_findings, intake_findings)
+        + physiology
+        + _outside_window(pairing.index, windows(settings))
+    )
     findings.sort(key=lambda f: SEVERITY_RANK[f.severity])  # stable: the engine's order within
     return Assessment(
         decision_id=decision_id or str(uuid.uuid4()),

@@ -23,7 +23,15 @@ from .derived import DERIVED_FACTS
 from .pairing import PairedGas
 from .sources import barometric_pressure, inspired_oxygen_fraction
 
-__all__ = ["Derived", "FactValue", "GasFacts", "age_years", "derive_again", "derive_gas_facts"]
+__all__ = [
+    "Derived",
+    "FactValue",
+    "GasFacts",
+    "age_years",
+    "derive_again",
+    "derive_gas_facts",
+    "with_fio2_raised",
+]
 
 
 @dataclass(slots=True)
@@ -109,3 +117,29 @@ def derive_again(
     sources = dict(gas.measured_sources)
     compute_derived(DERIVED_FACTS, facts, sources, DEFAULT_CATALOGUE, settings)
     return facts
+
+
+def with_fio2_raised(gas: GasFacts, fio2: float, *, settings: Settings) -> GasFacts:
+    """``gas`` as the result shows it when its PaO2 proves the FiO2 at least ``fio2``, above
+    the device estimate: every value derived from the FiO2 again, and the FiO2's method saying
+    why it was raised (an arterial PO2 cannot exceed the alveolar PO2)."""
+    out = GasFacts(
+        gas=gas.gas,
+        barometric_source=gas.barometric_source,
+        fio2_source=gas.fio2_source,
+        fio2_range=gas.fio2_range,
+        problems=list(gas.problems),
+        measured={**gas.measured, "fio2": fio2},
+        measured_sources=dict(gas.measured_sources),
+    )
+    out.facts = dict(out.measured)
+    out.sources = dict(out.measured_sources)
+    filed, _ = compute_derived(DERIVED_FACTS, out.facts, out.sources, DEFAULT_CATALOGUE, settings)
+    out.derived = {**gas.derived, **filed}
+    before = gas.derived.get("fio2")
+    method = (before.method + "; " if before is not None else "") + (
+        f"raised to {fio2:.2f}, the least FiO2 that gives this PaO2"
+    )
+    inputs = before.inputs if before is not None else ()
+    out.derived["fio2"] = Derived(fio2, "1", method, inputs)
+    return out

@@ -122,7 +122,7 @@ def _admixture(
             arterial_o2_content=content,
             hufner_ml_per_g=settings.hufner_ml_per_g,
             av_difference=av_difference,
-            arterial_so2=canonical("arterial_so2"),
+            arterial_so2=canonical("arterial_so2_functional"),
             carboxyhaemoglobin=canonical("carboxyhaemoglobin"),
             methaemoglobin=canonical("methaemoglobin"),
             mixed_venous_so2=canonical("mixed_venous_so2"),

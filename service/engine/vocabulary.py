@@ -119,11 +119,11 @@ class FindingCode(StrEnum):
     VALUE_OUT_OF_RANGE = "value-out-of-range"
     UNIT_CONVERTED = "unit-converted"
     OBSERVATION_IGNORED = "observation-ignored"
+    VALUE_OUTSIDE_WINDOW = "value-outside-window"
     # Clinical context.
     HYPOXAEMIA_MILD = "hypoxaemia-mild"
     HYPOXAEMIA_MODERATE = "hypoxaemia-moderate"
     HYPOXAEMIA_SEVERE = "hypoxaemia-severe"
-    GAS_EXCHANGE_DEFECT_ON_OXYGEN = "gas-exchange-defect-on-oxygen"
     OXYGEN_MASKS_GAS_EXCHANGE_DEFECT = "oxygen-masks-gas-exchange-defect"
     OXYGEN_MASKS_HYPERCAPNIA = "oxygen-masks-hypercapnia"
     HYPERCAPNIA = "hypercapnia"

@@ -32,7 +32,7 @@ MINIMUM_FINDINGS = {
     "acid-base-inconsistent", "fio2-missing", "fio2-estimated-from-flow", "fio2-time-mismatch",
     "pb-estimated-from-altitude", "pb-assumed-sea-level", "no-arterial-gas", "paco2-missing",
     "value-out-of-range", "unit-converted", "observation-ignored", "hypoxaemia-mild",
-    "hypoxaemia-moderate", "hypoxaemia-severe", "gas-exchange-defect-on-oxygen",
+    "hypoxaemia-moderate", "hypoxaemia-severe", "oxygen-masks-gas-exchange-defect",
     "normal-for-altitude", "low-mixed-venous-oxygen", "acute-respiratory-acidosis",
     "chronic-respiratory-acidosis",
 }  # fmt: skip
