@@ -6,7 +6,7 @@ names stop it), and its content enters the settings hash that every result carri
 
     site: invented-district-hospital      # a label, shown in results
     parameters:                           # rule parameters by name (ruleset.yaml), in their unit
-      hypercapnia_pco2: 48
+      paco2_margin: 3
     hufner_ml_per_g: 1.36
     assumed_av_difference_ml_dl: 3.5
     pairing_window_minutes: 20

@@ -32,18 +32,18 @@ def _params(result: dict[str, Any]) -> dict[str, Any]:
 
 def test_a_site_threshold_changes_the_verdict_and_the_identity(tmp_path: Path) -> None:
     site = tmp_path / "site.yaml"
-    site.write_text("site: invented-hospital\nparameters:\n  hypercapnia_pco2: 55\n")
+    site.write_text("site: invented-hospital\nparameters:\n  paco2_margin: 10\n")
     default, tuned = _params(_result(None)), _params(_result(site))
     assert tuned["ruleset-hash"] != default["ruleset-hash"]
     assert tuned["settings-hash"] != default["settings-hash"]
-    # The threshold moved from 45 to 55; PaCO2 65 still exceeds it, so the grade stands,
-    # and the rationale quotes the site's threshold.
+    # Hypercapnia now needs a PaCO2 above 45 + 10 mmHg at sea level; PaCO2 65 still exceeds
+    # it, so the grade stands.
     mechanism = next(
         m
         for m in _result(site)["entry"][1]["resource"]["parameter"]
         if m["name"] == "mechanism" and m["part"][0]["valueCode"] == "hypoventilation"
     )
-    assert "55 mmHg" in mechanism["part"][2]["valueString"]
+    assert mechanism["part"][1]["valueCode"] == "likely"
 
 
 def test_site_physiology_choices_apply(tmp_path: Path) -> None:
@@ -77,11 +77,11 @@ def test_a_bad_site_file_stops_start_up_naming_the_field(
 
 def test_an_unknown_or_out_of_range_parameter_stops_start_up(tmp_path: Path) -> None:
     site = tmp_path / "site.yaml"
-    site.write_text("site: x\nparameters:\n  hypercapnia_pco2: 90\n  no_such_threshold: 1\n")
+    site.write_text("site: x\nparameters:\n  paco2_margin: 90\n  no_such_threshold: 1\n")
     with pytest.raises(RuleSetError) as caught:
         Runtime.load(Settings(site_file=site))
     text = str(caught.value)
-    assert "hypercapnia_pco2" in text
+    assert "paco2_margin" in text
     assert "no_such_threshold" in text
 
 
@@ -118,9 +118,11 @@ def test_a_local_code_concept_map_in_the_rule_directory_is_used(tmp_path: Path) 
 
 
 def test_a_site_threshold_changes_the_verdict_and_the_result_names_the_override() -> None:
-    # Invented fixture: 2,240 m, PaCO2 52 mmHg: low inspired oxygen plus hypoventilation
-    # (pattern mixed). A site that calls hypercapnia only above 55 mmHg gets a single
-    # mechanism, and the result's rule-set and settings hashes change with the override.
+    # Invented fixture: 2,240 m, PaCO2 52 mmHg, residence not sent: low inspired oxygen plus
+    # hypoventilation (pattern mixed; the resident's limit is 35.8 mmHg, Cid-Juarez 2023, the
+    # newcomer's 45). A site that calls hypercapnia only 10 mmHg above the limit leaves
+    # hypoventilation depending on the residence (possible), so a single mechanism is likely;
+    # the result's rule-set and settings hashes change with the override.
     case = ROOT / "fixtures" / "cases" / "mechanism" / "altitude-hypoventilation-mixed.bundle.json"
     data = orjson.loads(case.read_bytes())
     default = _params(Runtime.load().assess_bundle(data))
@@ -128,7 +130,7 @@ def test_a_site_threshold_changes_the_verdict_and_the_result_names_the_override(
 
     with tempfile.TemporaryDirectory() as folder:
         site = Path(folder) / "site.yaml"
-        site.write_text("site: invented-hospital\nparameters:\n  hypercapnia_pco2: 55\n")
+        site.write_text("site: invented-hospital\nparameters:\n  paco2_margin: 10\n")
         tuned = _params(Runtime.load(Settings(site_file=site)).assess_bundle(data))
     assert default["pattern"]["valueCode"] == "mixed"
     assert tuned["pattern"]["valueCode"] == "single"

@@ -33,7 +33,7 @@ class Leaf:
     shown_unit: str = field(init=False, compare=False, repr=False)
     """The unit as a trace line shows it after a value (empty for none and for "1")."""
     shown_test: str = field(init=False, compare=False, repr=False)
-    """The test as a trace line shows it: ``≤ 45 mm[Hg] (hypercapnia_pco2)``."""
+    """The test as a trace line shows it: ``≤ 0 mm[Hg] (paco2_margin)``."""
 
     def __post_init__(self) -> None:
         # Traces are part of every result: the fixed text of a leaf is built once, here.

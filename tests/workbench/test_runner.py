@@ -32,7 +32,7 @@ def _case_copy(tmp_path: Path, expect: str, known_gap: str | None = None) -> Pat
     (tmp_path / "case.bundle.json").write_bytes(bundle.read_bytes())
     gap = f"known_gap: {known_gap}\n" if known_gap else ""
     # The demo case's own findings: expectations are closed-world.
-    findings = "  findings: [acute-respiratory-acidosis, hypoxaemia-mild]\n"
+    findings = "  findings: [acute-respiratory-acidosis, hypercapnia, hypoxaemia-mild]\n"
     (tmp_path / "case.expected.yaml").write_text(
         f"description: invented copy of a demo case\nexpect:\n{findings}{expect}\n{gap}"
     )
@@ -40,7 +40,8 @@ def _case_copy(tmp_path: Path, expect: str, known_gap: str | None = None) -> Pat
 
 
 def test_an_unexpected_finding_fails_unless_it_is_allowed(tmp_path: Path, runtime: Runtime) -> None:
-    # Closed world: the demo raises hypoxaemia-mild too; listing only one finding fails.
+    # Closed world: the demo raises hypercapnia and hypoxaemia-mild too; listing only one
+    # finding fails.
     bundle = DEMO / "post-operative-drowsiness.bundle.json"
     (tmp_path / "case.bundle.json").write_bytes(bundle.read_bytes())
     expected = tmp_path / "case.expected.yaml"
@@ -48,15 +49,17 @@ def test_an_unexpected_finding_fails_unless_it_is_allowed(tmp_path: Path, runtim
     expected.write_text(head)
     (result,) = run_cases(find_cases([tmp_path]), runtime)
     assert [(m.what, m.expected, m.got) for m in result.mismatches] == [
-        ("finding hypoxaemia-mild", "not expected", "present")
+        ("finding hypercapnia", "not expected", "present"),
+        ("finding hypoxaemia-mild", "not expected", "present"),
     ]
-    expected.write_text(head + "  allowed_findings: [hypoxaemia-mild]\n")
+    expected.write_text(head + "  allowed_findings: [hypercapnia, hypoxaemia-mild]\n")
     (allowed,) = run_cases(find_cases([tmp_path]), runtime)
     assert allowed.held
     expected.write_text("description: invented copy\nexpect:\n  pattern: single\n")
     (silent,) = run_cases(find_cases([tmp_path]), runtime)
     assert {m.what for m in silent.mismatches} == {
         "finding acute-respiratory-acidosis",
+        "finding hypercapnia",
         "finding hypoxaemia-mild",
     }
 
@@ -114,7 +117,8 @@ def test_explain_shows_reads_equations_conditions_and_verdict(runtime: Runtime) 
     assert "Observation/g1-2019-8" in text  # the source of each value read
     assert "(sent 91 %)" in text  # a unit conversion
     assert "alveolar gas equation, full form" in text  # the equation of a derived value
-    assert "arterial_pco2 65 mm[Hg] > 45 mm[Hg] (hypercapnia_pco2) → true" in text
+    # PaCO2 65 against the sea-level limit 45 (common practice) plus the site margin 0.
+    assert "paco2_above_limit 20 mm[Hg] > 0 mm[Hg] (paco2_margin) → true" in text
     assert "missing: mixed_venous_so2" in text  # an unknown condition names its missing fact
     assert "Verdict: single" in text
     as_json = explain_json(intake, assessment)
