@@ -16,6 +16,7 @@ MECHANISMS = {
     "shunt",
 }
 GRADES = {"likely", "possible", "unlikely", "not-assessable"}
+GAS_EXCHANGE = {"diffusion-limitation", "vq-mismatch", "shunt"}
 PATTERNS = {"no-hypoxaemia", "single", "mixed", "indeterminate", "not-classifiable"}
 STATUSES = {"success", "data-requested", "data-required", "failure"}
 PRESSURES = {
@@ -97,8 +98,16 @@ def _verdict(top: dict[str, list[dict[str, Any]]]) -> list[str]:
     likely = [c for c, g in grades.items() if g == "likely"]
     if pattern == "single" and len(likely) != 1:
         problems.append(f"pattern single with {len(likely)} likely")
-    if pattern == "mixed" and len(likely) < 2:
-        problems.append("mixed with fewer than two likely")
+    # Mixed: two likely causes, or one cause that leaves the A-a gradient normal (low
+    # inspired oxygen, hypoventilation) beside a gas-exchange defect whose type is open
+    # (docs/clinical-logic.md: one likely cause does not explain a raised A-a gradient).
+    open_exchange = any(grades.get(c) == "possible" for c in GAS_EXCHANGE)
+    if (
+        pattern == "mixed"
+        and len(likely) < 2
+        and not (len(likely) == 1 and likely[0] not in GAS_EXCHANGE and open_exchange)
+    ):
+        problems.append("mixed without two likely, or one beside an open gas-exchange defect")
     if pattern in ("indeterminate", "not-classifiable", "no-hypoxaemia") and likely:
         problems.append(f"{pattern} with likely mechanisms")
     severities = [_value(_parts(f).get("severity")) for f in top.get("finding", [])]

@@ -242,7 +242,7 @@ def input_ranges(gas: GasFacts, *, tolerance_mmhg: float, settings: Settings) ->
     if residence is not None:
         general.append(residence)
     pressure = _pressure_range(gas, tolerance_mmhg, settings)
-    fixed = {
+    fixed: dict[str, FactValue] = {
         name: representative[name]
         for name in ("fio2_lowest_possible", "fio2_raised_by_pao2")
         if name in representative

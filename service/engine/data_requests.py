@@ -3,9 +3,10 @@
 Rules ask for facts by name, and often for derived ones (`aa_gradient_excess`) that no
 one can supply directly. A request for a missing derived fact is therefore turned into
 requests for its missing inputs, recursively, with `needed_for` naming the derived fact
-the rule wanted; a derived fact whose needed inputs are all known is translated into its missing optional
-inputs, which some settings need (the residence, for the PaCO2 expected at altitude), and
-requested itself only when none is missing (it could not be computed for another reason).
+the rule wanted; a derived fact whose needed inputs are all known is translated into its
+missing optional inputs, which some settings need (the residence, for the PaCO2 expected at
+altitude), and requested itself only when none is missing (it could not be computed for
+another reason).
 
 A known fact is requested only when a discriminator names it: a discriminator such as
 "a gas on a higher FiO2" asks for a *new* value of `arterial_po2` and `fio2`, and leaving

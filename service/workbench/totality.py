@@ -15,7 +15,7 @@ property test runs it with many.
 from __future__ import annotations
 
 import random
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from dataclasses import dataclass
 from datetime import UTC, date, datetime, timedelta
 
@@ -54,48 +54,49 @@ def _value(rng: random.Random, ordinary: tuple[float, float], lines: tuple[float
     return rng.uniform(*ordinary)
 
 
-def _measurements(rng: random.Random, time: datetime) -> list[Measurement]:
-    found: list[Measurement] = []
+_Add = Callable[..., None]
+_ARTERIAL = Specimen.ARTERIAL
+# (how often, quantity, value, specimen) of the values drawn independently.
+_DRAWN: tuple[tuple[float, Quantity, Callable[[random.Random], float], Specimen | None], ...] = (
+    (
+        0.85,
+        _Q.ARTERIAL_PO2,
+        lambda r: _value(r, (25.0, 560.0), (40.0, 60.0, 68.0, 80.0)),
+        _ARTERIAL,
+    ),
+    (0.8, _Q.ARTERIAL_PCO2, lambda r: _value(r, (14.0, 110.0), (30.0, 36.0, 45.0)), _ARTERIAL),
+    (0.6, _Q.ARTERIAL_PH, lambda r: _value(r, (6.9, 7.7), (7.35, 7.40, 7.45)), _ARTERIAL),
+    (0.6, _Q.ARTERIAL_HCO3, lambda r: _value(r, (6.0, 45.0), (22.0, 26.0, 28.0)), _ARTERIAL),
+    (0.3, _Q.ARTERIAL_SO2, lambda r: _value(r, (0.55, 1.0), (0.88,)), _ARTERIAL),
+    (0.1, _Q.ARTERIAL_O2HB, lambda r: r.uniform(0.5, 0.99), _ARTERIAL),
+    (0.6, _Q.SPO2, lambda r: _value(r, (0.6, 1.0), (0.88, 0.92, 0.94, 0.97)), None),
+    (0.5, _Q.HAEMOGLOBIN, lambda r: r.uniform(6.0, 20.0), None),
+    (0.15, _Q.CARBOXYHAEMOGLOBIN, lambda r: r.uniform(0.0, 0.3), None),
+    (0.1, _Q.METHAEMOGLOBIN, lambda r: r.uniform(0.0, 0.15), None),
+    (0.1, _Q.MIXED_VENOUS_SO2, lambda r: r.uniform(0.4, 0.8), Specimen.MIXED_VENOUS),
+    (0.3, _Q.BODY_TEMPERATURE, lambda r: r.uniform(34.0, 41.0), None),
+)
+_FLOWS = {
+    OxygenDevice.NASAL_CANNULA: (1.0, 6.0),
+    OxygenDevice.SIMPLE_MASK: (5.0, 10.0),
+    OxygenDevice.NON_REBREATHER_MASK: (10.0, 15.0),
+}
 
-    def add(quantity: Quantity, value: float | str, specimen: Specimen | None = None) -> None:
-        source = Source(f"Observation/{quantity.value}-{len(found)}", f"generated {quantity.value}")
-        found.append(Measurement(quantity, value, time, source, specimen))
 
-    arterial = Specimen.ARTERIAL
-    if rng.random() < 0.85:
-        add(_Q.ARTERIAL_PO2, _value(rng, (25.0, 560.0), (40.0, 60.0, 68.0, 80.0)), arterial)
-    if rng.random() < 0.8:
-        add(_Q.ARTERIAL_PCO2, _value(rng, (14.0, 110.0), (30.0, 36.0, 45.0)), arterial)
-    if rng.random() < 0.6:
-        add(_Q.ARTERIAL_PH, _value(rng, (6.9, 7.7), (7.35, 7.40, 7.45)), arterial)
-    if rng.random() < 0.6:
-        add(_Q.ARTERIAL_HCO3, _value(rng, (6.0, 45.0), (22.0, 26.0, 28.0)), arterial)
-    if rng.random() < 0.3:
-        add(_Q.ARTERIAL_SO2, _value(rng, (0.55, 1.0), (0.88,)), arterial)
-    if rng.random() < 0.1:
-        add(_Q.ARTERIAL_O2HB, rng.uniform(0.5, 0.99), arterial)
-    if rng.random() < 0.6:
-        add(_Q.SPO2, _value(rng, (0.6, 1.0), (0.88, 0.92, 0.94, 0.97)))
+def _inspired(rng: random.Random, add: _Add) -> None:
+    """An FiO2, or a device (with a flow when it takes one), or nothing."""
     choice = rng.random()
     if choice < 0.45:
         add(_Q.FIO2, rng.choice((0.21, 0.24, 0.28, 0.35, 0.5, 0.6, 0.8, 1.0, rng.uniform(0.21, 1))))
     elif choice < 0.7:
-        device = rng.choice(
-            (
-                OxygenDevice.NASAL_CANNULA,
-                OxygenDevice.SIMPLE_MASK,
-                OxygenDevice.NON_REBREATHER_MASK,
-                OxygenDevice.NONE_ROOM_AIR,
-            )
-        )
+        device = rng.choice((*_FLOWS, OxygenDevice.NONE_ROOM_AIR))
         add(_Q.OXYGEN_DEVICE, device.value)
-        flows = {
-            OxygenDevice.NASAL_CANNULA: (1.0, 6.0),
-            OxygenDevice.SIMPLE_MASK: (5.0, 10.0),
-            OxygenDevice.NON_REBREATHER_MASK: (10.0, 15.0),
-        }
-        if device in flows:
-            add(_Q.OXYGEN_FLOW, rng.uniform(*flows[device]))
+        if device in _FLOWS:
+            add(_Q.OXYGEN_FLOW, rng.uniform(*_FLOWS[device]))
+
+
+def _place(rng: random.Random, add: _Add) -> None:
+    """A pressure, or an altitude, or neither; sometimes whether the patient lives there."""
     where = rng.random()
     if where < 0.3:
         add(_Q.BAROMETRIC_PRESSURE, rng.uniform(420.0, 780.0))
@@ -103,14 +104,10 @@ def _measurements(rng: random.Random, time: datetime) -> list[Measurement]:
         add(_Q.ALTITUDE, rng.uniform(0.0, 4500.0))
     if rng.random() < 0.2:
         add(_Q.ALTITUDE_RESIDENCE, rng.choice(("resident", "visitor")))
-    if rng.random() < 0.5:
-        add(_Q.HAEMOGLOBIN, rng.uniform(6.0, 20.0))
-    if rng.random() < 0.15:
-        add(_Q.CARBOXYHAEMOGLOBIN, rng.uniform(0.0, 0.3))
-    if rng.random() < 0.1:
-        add(_Q.METHAEMOGLOBIN, rng.uniform(0.0, 0.15))
-    if rng.random() < 0.1:
-        add(_Q.MIXED_VENOUS_SO2, rng.uniform(0.4, 0.8), Specimen.MIXED_VENOUS)
+
+
+def _lung_function(rng: random.Random, add: _Add) -> None:
+    """A DLCO (sometimes with its lower limit) and a walk test's oximetry."""
     if rng.random() < 0.25:
         add(_Q.DLCO_PERCENT_PREDICTED, rng.uniform(0.2, 1.2))
         if rng.random() < 0.4:
@@ -119,8 +116,21 @@ def _measurements(rng: random.Random, time: datetime) -> list[Measurement]:
         baseline = rng.uniform(0.88, 1.0)
         add(_Q.SPO2_EXERTIONAL_BASELINE, baseline)
         add(_Q.SPO2_EXERTIONAL_NADIR, max(baseline - rng.uniform(0.0, 0.15), 0.6))
-    if rng.random() < 0.3:
-        add(_Q.BODY_TEMPERATURE, rng.uniform(34.0, 41.0))
+
+
+def _measurements(rng: random.Random, time: datetime) -> list[Measurement]:
+    found: list[Measurement] = []
+
+    def add(quantity: Quantity, value: float | str, specimen: Specimen | None = None) -> None:
+        source = Source(f"Observation/{quantity.value}-{len(found)}", f"generated {quantity.value}")
+        found.append(Measurement(quantity, value, time, source, specimen))
+
+    for chance, quantity, draw, specimen in _DRAWN:
+        if rng.random() < chance:
+            add(quantity, draw(rng), specimen)
+    _inspired(rng, add)
+    _place(rng, add)
+    _lung_function(rng, add)
     return found
 
 

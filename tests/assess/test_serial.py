@@ -55,8 +55,11 @@ def gas(
 ) -> list[Measurement]:
     inspired = (
         [m(Q.FIO2, fio2, minutes)]
-        if cannula_flow is None
-        else [m(Q.OXYGEN_DEVICE, "nasal-cannula", minutes), m(Q.OXYGEN_FLOW, cannula_flow, minutes)]
+        if fio2 is not None
+        else [
+            m(Q.OXYGEN_DEVICE, "nasal-cannula", minutes),
+            m(Q.OXYGEN_FLOW, cannula_flow or 0.0, minutes),
+        ]
     )
     return [
         m(Q.ARTERIAL_PO2, pao2, minutes),

@@ -23,12 +23,8 @@ LOINC_ROWS: list[tuple[str, Quantity, Specimen | None]] = [
     ("2744-1", Q.ARTERIAL_PH, S.ARTERIAL),  # standards.md §1.2 (GEC, 2ry)
     ("1960-4", Q.ARTERIAL_HCO3, S.ARTERIAL),  # standards.md §1.2 (2ry)
     ("1925-7", Q.ARTERIAL_BASE_EXCESS, S.ARTERIAL),  # standards.md §1.2 (LNm)
-    ("2708-6", Q.ARTERIAL_SO2, S.ARTERIAL),
-    (
-        "2714-4",
-        Q.ARTERIAL_O2HB,
-        S.ARTERIAL,
-    ),  # LOINC: fractional oxyhaemoglobin, arterial  # standards.md §1.2 + §1.9 (alone: co-oximetry)
+    ("2708-6", Q.ARTERIAL_SO2, S.ARTERIAL),  # standards.md §1.2 + §1.9 (alone: co-oximetry)
+    ("2714-4", Q.ARTERIAL_O2HB, S.ARTERIAL),  # LOINC: fractional oxyhaemoglobin, arterial
     ("59408-5", Q.SPO2, None),  # standards.md §1.3 (USC, FVS)
     ("59417-6", Q.SPO2, None),  # standards.md §1.3 (FVS)
     ("59407-7", Q.SPO2, None),  # standards.md §1.3 (GEC, preductal)

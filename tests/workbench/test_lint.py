@@ -8,6 +8,7 @@ from pathlib import Path
 
 import pytest
 
+from service.engine import RuleSet
 from service.workbench.lint import lint
 from service.workbench.lock import write_lock
 
@@ -142,7 +143,7 @@ def test_the_shipped_rules_decide_every_mechanism_in_every_generated_state() -> 
     assert undecided(_shipped_ruleset(), settings=Settings(), count=400) == []
 
 
-def _shipped_ruleset():  # type: ignore[no-untyped-def]
+def _shipped_ruleset() -> RuleSet:
     from service.runtime import Runtime
 
     return Runtime.load().ruleset
