@@ -6,9 +6,9 @@ index gas) is evaluated by the rules, with the response to oxygen read from ever
 (``serial``). Inputs known only as a range (an estimated FiO2, an assumed pressure, a missing
 age or residence) are evaluated at the ends of their ranges and only what holds in all of them
 is kept (``uncertainty``, ``service.engine.scenarios``). The engine decides everything
-about the verdict (grades, demotion on untrusted data, the order of findings, what is missing, what to ask for); this module only
-gathers the facts and the findings met before the rules, and maps the verdict to the
-adapter-neutral ``Assessment``.
+about the verdict (grades, demotion on untrusted data, the order of findings, what is missing,
+what to ask for); this module only gathers the facts and the findings met before the rules, and
+maps the verdict to the adapter-neutral ``Assessment``.
 """
 
 from __future__ import annotations
