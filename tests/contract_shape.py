@@ -36,8 +36,15 @@ PRESSURES = {
     "imputed-pao2",
 }
 # The parts of a `deficit` parameter that are pressures (all of them but these).
-DEFICIT_NOT_PRESSURES = {"observation", "index", "not-computed", "altitude-residence"}
-DEFICIT_NOT_PRESSURES |= {"assumption", "pao2-basis", "method"}
+DEFICIT_NOT_PRESSURES = {
+    "observation",
+    "index",
+    "not-computed",
+    "altitude-residence",
+    "assumption",
+    "pao2-basis",
+    "method",
+}
 UNITS = {
     "fio2": {"1"},
     "a-a-ratio": {"1"},

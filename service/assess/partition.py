@@ -30,6 +30,7 @@ from service.physiology.deficit_steps import (
     waterfall,
 )
 
+from . import deficit as deficit_facts
 from .derivation import FactValue
 from .derive import GasFacts, derive_again
 from .result import Assessment
@@ -69,15 +70,7 @@ _PARTS = {
 }
 # What the partition reads (``deficit.pao2_fall``'s inputs and optional facts): the sources of
 # a partition computed for an assumed residence.
-_READS = (
-    "age",
-    "fio2",
-    "barometric_pressure",
-    "water_vapour_pressure",
-    "arterial_po2",
-    "imputed_pao2",
-    "arterial_pco2",
-)
+_READS = next(entry.reads for entry in deficit_facts.FACTS if entry.name == "pao2_fall")
 
 
 @dataclass(frozen=True, slots=True)

@@ -202,6 +202,12 @@ def test_an_unknown_residence_at_altitude_gives_one_partition_per_residence(
         residence = _components(obs)["altitude-residence-assumed"]
         assert residence["valueCodeableConcept"]["coding"][0]["code"] == code
         assert "Residence not sent" in obs["note"][0]["text"]
+        assert {d["reference"] for d in obs["derivedFrom"]} == {
+            "Observation/pao2",
+            "Observation/paco2",
+            "Observation/fio2",
+            "Observation/altitude",
+        }
     validate_resource(result)
     assert contract_problems(result) == []
 

@@ -49,6 +49,7 @@ def test_the_steps_run_from_the_expected_pao2_to_the_measured_one() -> None:
     assert (steps[-1].start_mmhg, steps[-1].end_mmhg) == (0.0, PAO2_MMHG)
     expected = {"inspired": 0.0, **ref.parts()}
     for step in steps[1:-1]:
+        assert step.part_mmhg is not None
         assert step.part_mmhg == pytest.approx(expected[step.key], abs=1e-3)
         assert step.start_mmhg - step.end_mmhg == pytest.approx(step.part_mmhg)
         assert step.lowers is (step.part_mmhg > 0.0)
