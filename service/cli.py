@@ -181,10 +181,14 @@ def _explain(args: argparse.Namespace) -> int:
     assessment = runtime.assess_intake(intake)
     if args.format == "json":
         sys.stdout.buffer.write(
-            orjson.dumps(explain_json(intake, assessment), option=orjson.OPT_INDENT_2) + b"\n"
+            orjson.dumps(
+                explain_json(intake, assessment, settings=runtime.settings),
+                option=orjson.OPT_INDENT_2,
+            )
+            + b"\n"
         )
     else:
-        sys.stdout.write(explain_text(intake, assessment))
+        sys.stdout.write(explain_text(intake, assessment, settings=runtime.settings))
     return EXIT_OK
 
 

@@ -40,5 +40,5 @@ def run_demo(*, as_json: bool = False) -> str:
         assessment = runtime.assess_intake(read_bundle(data, concept_map=runtime.concept_map))
         rule = "=" * 100
         parts.append(f"{rule}\nScenario {number} (invented): {label}\n{rule}\n")
-        parts.append(summary_text(assessment) + "\n")
+        parts.append(summary_text(assessment, settings=runtime.settings) + "\n")
     return "".join(parts)

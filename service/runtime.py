@@ -103,6 +103,7 @@ class Runtime:
         return render_bundle(
             assessment,
             data_requirements=codes,
+            settings=self.settings,
             pressure_unit=pressure_unit or self.settings.pressure_unit,
             settings_hash=self.settings_hash,
         )

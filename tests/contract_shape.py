@@ -16,7 +16,8 @@ MECHANISMS = {
     "shunt",
 }
 GRADES = {"likely", "possible", "unlikely", "not-assessable"}
-GAS_EXCHANGE = {"diffusion-limitation", "vq-mismatch", "shunt"}
+GAS_EXCHANGE = {"defect", "normal", "unknown"}
+GAS_EXCHANGE_MECHANISMS = {"diffusion-limitation", "vq-mismatch", "shunt"}
 PATTERNS = {"no-hypoxaemia", "single", "mixed", "indeterminate", "not-classifiable"}
 STATUSES = {"success", "data-requested", "data-required", "failure"}
 PRESSURES = {
@@ -26,8 +27,23 @@ PRESSURES = {
     "alveolar-po2",
     "aa-gradient",
     "aa-gradient-upper-limit",
+    "room-air-alveolar-po2",
+    "room-air-pao2",
+    "pao2-expected",
+    "pao2-lower-limit",
+    "paco2-upper-limit",
     "pf-ratio",
     "imputed-pao2",
+}
+# The parts of a `deficit` parameter that are pressures (all of them but these).
+DEFICIT_NOT_PRESSURES = {
+    "observation",
+    "index",
+    "not-computed",
+    "altitude-residence",
+    "assumption",
+    "pao2-basis",
+    "method",
 }
 UNITS = {
     "fio2": {"1"},
@@ -35,6 +51,8 @@ UNITS = {
     "sf-ratio": {"1"},
     "arterial-o2-content": {"mL/dL"},
     "shunt-fraction": {"%"},
+    "venous-admixture": {"%"},
+    "shunt-dissolved-bound": {"%"},
     "expected-hco3": {"mmol/L"},
 }
 
@@ -96,18 +114,17 @@ def _verdict(top: dict[str, list[dict[str, Any]]]) -> list[str]:
         if _value(m.get("grade")) == "possible" and "discriminator" not in m
     ]
     likely = [c for c, g in grades.items() if g == "likely"]
-    if pattern == "single" and len(likely) != 1:
-        problems.append(f"pattern single with {len(likely)} likely")
-    # Mixed: two likely causes, or one cause that leaves the A-a gradient normal (low
-    # inspired oxygen, hypoventilation) beside a gas-exchange defect whose type is open
-    # (docs/clinical-logic.md: one likely cause does not explain a raised A-a gradient).
-    open_exchange = any(grades.get(c) == "possible" for c in GAS_EXCHANGE)
-    if (
-        pattern == "mixed"
-        and len(likely) < 2
-        and not (len(likely) == 1 and likely[0] not in GAS_EXCHANGE and open_exchange)
-    ):
-        problems.append("mixed without two likely, or one beside an open gas-exchange defect")
+    # docs/clinical-logic.md (rule set 2.0): `single` is one likely mechanism that explains the deficit
+    # with normal gas exchange (or is itself the gas-exchange defect); `mixed` is two likely, or
+    # one likely beside a gas-exchange defect whose type is open (or not judged).
+    exchange = top.get("gas-exchange", [{}])[0].get("valueCode")
+    if exchange not in GAS_EXCHANGE:
+        problems.append(f"gas-exchange {exchange}")
+    alone = len(likely) == 1 and (likely[0] in GAS_EXCHANGE_MECHANISMS or exchange == "normal")
+    if pattern == "single" and not alone:
+        problems.append(f"pattern single with {likely} likely, gas exchange {exchange}")
+    if pattern == "mixed" and (not likely or alone):
+        problems.append(f"mixed with {likely} likely, gas exchange {exchange}")
     if pattern in ("indeterminate", "not-classifiable", "no-hypoxaemia") and likely:
         problems.append(f"{pattern} with likely mechanisms")
     severities = [_value(_parts(f).get("severity")) for f in top.get("finding", [])]
@@ -118,16 +135,35 @@ def _verdict(top: dict[str, list[dict[str, Any]]]) -> list[str]:
 
 def _quantities(top: dict[str, list[dict[str, Any]]]) -> list[str]:
     names = PRESSURES | set(UNITS)
-    quantities = [p for name, ps in top.items() for p in ps if name in names]
+    # (where, name, allowed unit codes, parameter)
+    found = [
+        (name, name, _allowed(name), p) for name, ps in top.items() for p in ps if name in names
+    ]
     for gas in top.get("gas", []):
-        quantities += [p for p in gas["part"] if p["name"] in names]
+        found += [
+            (p["name"], p["name"], _allowed(p["name"]), p)
+            for p in gas["part"]
+            if p["name"] in names
+        ]
+    for deficit in top.get("deficit", []):
+        found += [
+            (f"deficit {p['name']}", p["name"], {"mm[Hg]", "kPa"}, p)
+            for p in deficit["part"]
+            if p["name"] not in DEFICIT_NOT_PRESSURES
+        ]
     problems = []
-    for q in quantities:
-        code = q["valueQuantity"]["code"]
-        allowed = {"mm[Hg]", "kPa"} if q["name"] in PRESSURES else UNITS[q["name"]]
-        if code not in allowed:
-            problems.append(f"{q['name']} in {code}")
-        value = q["valueQuantity"]["value"]
+    for where, _, allowed, p in found:
+        q = p.get("valueQuantity")
+        if q is None:
+            problems.append(f"{where} is not a quantity")
+            continue
+        if q["code"] not in allowed or q.get("system") != "http://unitsofmeasure.org":
+            problems.append(f"{where} in {q['code']}")
+        value = q["value"]
         if isinstance(value, float) and len(repr(value).split(".")[-1]) > 6:
-            problems.append(f"{q['name']} has spurious precision {value!r}")
+            problems.append(f"{where} has spurious precision {value!r}")
     return problems
+
+
+def _allowed(name: str) -> set[str]:
+    return {"mm[Hg]", "kPa"} if name in PRESSURES else UNITS[name]

@@ -4,6 +4,7 @@
 from __future__ import annotations
 
 import json
+import re
 import subprocess
 import sys
 from pathlib import Path
@@ -11,7 +12,11 @@ from typing import Any
 
 import pytest
 
+from service.assess.summary import summary_text
 from service.cli import main
+from service.fhir.extract import read_bundle
+from service.runtime import Runtime
+from tests.deficit_reference import cerveri_expected_pao2, reference, reference_bundle
 
 ROOT = Path(__file__).resolve().parents[1]
 DEMO = ROOT / "fixtures" / "demo" / "altitude-visitor.bundle.json"
@@ -46,6 +51,48 @@ def test_demo_prints_each_scenario_and_the_caution(capsys: pytest.CaptureFixture
     assert out.count("Scenario ") == 3
     assert "alveolar PO2" in out
     assert "not a diagnosis" in out
+
+
+PARTITION_LINE = re.compile(
+    r"^(PaO2[^0-9]*) (\S+) vs (\S+) expected for age: fall (\S+) = (.+) mmHg", re.MULTILINE
+)
+
+
+def _number(text: str) -> float:
+    return float(text.replace("−", "-"))
+
+
+def test_demo_shows_each_scenarios_deficit_partition_adding_up(
+    capsys: pytest.CaptureFixture[str],
+) -> None:
+    assert main(["demo"]) == 0
+    scenarios = capsys.readouterr().out.split("Scenario ")[1:]
+    assert len(scenarios) == 3
+    for text in scenarios:
+        lines = PARTITION_LINE.findall(text)
+        assert lines, text[:400]
+        for _, pao2, expected, fall, parts in lines:
+            values = [_number(p.rsplit(" ", 1)[1]) for p in parts.split(" + ")]
+            assert _number(expected) - _number(pao2) == pytest.approx(_number(fall), abs=0.1)
+            assert sum(values) == pytest.approx(_number(fall), abs=0.2)
+    # Scenario 2, a 34-year-old at sea level (born 1992-06-02, gas 2026-11-21): PaO2 62
+    # against Cerveri 1995 (regression extrapolated below 40 years).
+    post_op = PARTITION_LINE.findall(scenarios[1])[0]
+    assert _number(post_op[2]) == pytest.approx(cerveri_expected_pao2(34.0), abs=0.05)
+    assert _number(post_op[1]) == 62.0
+
+
+def test_the_summary_states_the_partition_of_the_reference_patient() -> None:
+    # tests.deficit_reference: Cerveri 1995 and the alveolar gas equation, computed there.
+    ref = reference()
+    runtime = Runtime.load()
+    assessment = runtime.assess_intake(read_bundle(reference_bundle()))
+    text = summary_text(assessment, settings=runtime.settings)
+    assert (
+        f"PaO2 50.0 vs {ref.expected:.1f} expected for age: fall {ref.fall:.1f} = "
+        f"inspired PO2 0.0 + ventilation {ref.ventilation:.1f} + "
+        f"gas exchange {ref.gas_exchange:.1f} mmHg"
+    ) in text
 
 
 def test_assess_prints_a_result_bundle_and_exits_0() -> None:

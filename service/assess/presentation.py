@@ -25,11 +25,18 @@ QUANTITY_ORDER = (
     "alveolar-po2",
     "aa-gradient",
     "aa-gradient-upper-limit",
+    "room-air-alveolar-po2",
+    "room-air-pao2",
+    "pao2-expected",
+    "pao2-lower-limit",
+    "paco2-upper-limit",
     "a-a-ratio",
     "pf-ratio",
     "sf-ratio",
     "arterial-o2-content",
     "shunt-fraction",
+    "venous-admixture",
+    "shunt-dissolved-bound",
     "imputed-pao2",
     "expected-hco3",
 )
@@ -42,7 +49,8 @@ def quantity(name: str, value: float, unit: str, pressure_unit: PressureUnit) ->
     if unit == "mm[Hg]" and pressure_unit == "kPa":
         value, unit = kpa_from_mmhg(value), "kPa"
         decimals = 2 if name != "pf-ratio" else 1
-    rounded = round(value, decimals)
+    # + 0.0 turns a negative zero (a part that rounds to nothing) into 0.0.
+    rounded = round(value, decimals) + 0.0
     return {
         "value": rounded if decimals else float(int(rounded)),
         "unit": unit,

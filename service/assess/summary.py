@@ -2,6 +2,9 @@
 
 from __future__ import annotations
 
+from service.config import Settings
+
+from .partition import PART_LABELS, ShownPartition, assessment_partitions
 from .result import CAUTION, Assessment
 
 # Derived values shown, with their labels and display decimals.
@@ -13,23 +16,60 @@ _SHOWN = (
     ("alveolar-po2", "alveolar PO2", 1),
     ("aa-gradient", "A-a gradient", 1),
     ("aa-gradient-upper-limit", "A-a limit for age", 1),
+    ("pao2-expected", "PaO2 expected for age", 1),
+    ("pao2-lower-limit", "PaO2 lower limit for age", 1),
+    ("paco2-upper-limit", "PaCO2 limit for setting", 1),
+    ("room-air-pao2", "PaO2 on room air (a/A)", 1),
     ("a-a-ratio", "a/A ratio", 2),
     ("pf-ratio", "P/F ratio", 0),
     ("sf-ratio", "S/F ratio", 0),
     ("arterial-o2-content", "arterial O2 content", 1),
     ("shunt-fraction", "shunt fraction", 0),
+    ("venous-admixture", "venous admixture", 0),
+    ("shunt-dissolved-bound", "shunt at least", 0),
     ("imputed-pao2", "PaO2 imputed from SpO2", 1),
 )
 _GRADE_ORDER = {"likely": 0, "possible": 1, "unlikely": 2, "not-assessable": 3}
 
 
-def summary_text(a: Assessment) -> str:
-    """The verdict, the mechanisms with their reasons, the findings and the numbers."""
+def _signed(value: float) -> str:
+    text = f"{value:.1f}"
+    return "0.0" if text == "-0.0" else text.replace("-", "−")
+
+
+def partition_line(shown: ShownPartition) -> str:
+    """The partition in one line: PaO2 against the expected value, and the fall as the sum of
+    its parts (mmHg; a negative part raises the PaO2)."""
+    d = shown.partition
+    parts = " + ".join(f"{PART_LABELS[key]} {_signed(value)}" for key, value in shown.parts)
+    assumed = f" ({shown.assumption})" if shown.assumption else ""
+    return (
+        f"{shown.pao2_label} {d.arterial_po2:.1f} vs {d.expected_pao2:.1f} expected for age: "
+        f"fall {_signed(d.fall)} = {parts} mmHg{assumed}"
+    )
+
+
+def _partition_lines(a: Assessment, settings: Settings) -> list[str]:
+    index = next(g for g in assessment_partitions(a, settings) if g.index)
+    if not index.shown:
+        return [f"PaO2 deficit: not computed ({index.absent})"]
+    lines = [partition_line(shown) for shown in index.shown]
+    if any(value < 0.0 for shown in index.shown for _, value in shown.parts):
+        lines.append("  (a negative part raises the PaO2: oxygen, or a PaCO2 below the expected)")
+    return lines
+
+
+def summary_text(a: Assessment, *, settings: Settings) -> str:
+    """The verdict, the PaO2 deficit partition, the mechanisms with their reasons, the findings
+    and the numbers. ``settings`` are those ``a`` was assessed with."""
     lines = [
-        f"Pattern: {a.pattern}   (hypoxaemia {a.hypoxaemia}; rule set {a.ruleset_identity})",
-        "",
-        "Mechanisms",
+        f"Pattern: {a.pattern}   (hypoxaemia {a.hypoxaemia}; gas exchange {a.gas_exchange}; "
+        f"rule set {a.ruleset_identity})",
+        *_partition_lines(a, settings),
     ]
+    if a.uncertain_inputs:
+        lines += [f"Known only as a range, assessed at both ends: {u}" for u in a.uncertain_inputs]
+    lines += ["", "Mechanisms"]
     for m in sorted(a.mechanisms, key=lambda m: _GRADE_ORDER[m.grade]):
         lines.append(f"  {m.grade:<15} {m.code}")
         lines.append(f"  {'':<15} {m.rationale}")

@@ -1,10 +1,11 @@
 """Render an ``Assessment`` as the result Bundle of the contract (plain dicts, no models).
 
 Entries, in order: GuidanceResponse, Parameters (the machine-readable verdict), OperationOutcome
-(findings and the clinical caution), then derived Observations and the mechanism-assessment
-Observation. Built as dicts for speed; the tests validate every produced Bundle with
-``fhir.resources.R4B``. Pressures leave in mm[Hg] unless ``pressure_unit`` is ``kPa``: the one
-place where canonical units are converted for display.
+(findings and the clinical caution), then derived Observations (among them the PaO2 deficit
+partition of the index gas, one component per part) and the mechanism-assessment Observation.
+Built as dicts for speed; the tests validate every produced Bundle with ``fhir.resources.R4B``.
+Pressures leave in mm[Hg] unless ``pressure_unit`` is ``kPa``: the one place where canonical
+units are converted for display.
 """
 
 from __future__ import annotations
@@ -14,8 +15,12 @@ from collections.abc import Iterable
 from typing import Any
 
 from service.assess.derive import Derived, GasFacts
+from service.assess.partition import GasPartitions, ShownPartition, assessment_partitions
 from service.assess.presentation import QUANTITY_ORDER, PressureUnit, quantity
 from service.assess.result import CAUTION, Assessment, Finding, MechanismVerdict
+from service.config import Settings
+from service.physiology.deficit_steps import GAS_EXCHANGE, INSPIRED, UNATTRIBUTED, VENTILATION
+from service.terminology.codes import ALTITUDE_RESIDENCE_CODES
 from service.terminology.codes import DERIVED_OBSERVATION_CODES as OBSERVATION_CODES
 
 Json = dict[str, Any]
@@ -28,10 +33,31 @@ MECHANISM_SYSTEM = BASE + "hypoxaemia-mechanism"
 GRADE_SYSTEM = BASE + "mechanism-grade"
 PATTERN_SYSTEM = BASE + "hypoxaemia-pattern"
 DERIVED_SYSTEM = BASE + "derived"
+GAS_EXCHANGE_SYSTEM = BASE + "gas-exchange-status"
 INTERPRETATION = "http://terminology.hl7.org/CodeSystem/v3-ObservationInterpretation"
 CATEGORY = "http://terminology.hl7.org/CodeSystem/observation-category"
 
 ISSUE_CODE = {"error": "business-rule", "warning": "business-rule", "information": "informational"}
+
+# The PaO2 deficit partition: the parts' names in the ``deficit`` parameter, and the codes (our
+# CodeSystem .../derived, the names the derived values are filed under) and displays of the
+# Observation and its components.
+DEFICIT_PARTS = {
+    INSPIRED: "inspired",
+    VENTILATION: "ventilation",
+    GAS_EXCHANGE: "gas-exchange",
+    UNATTRIBUTED: "unattributed",
+}
+DEFICIT_OBSERVATION = ("pao2-deficit-partition", "PaO2 deficit partition")
+DEFICIT_COMPONENTS = {
+    "expected": ("pao2-expected", "PaO2 expected for age at sea level on air"),
+    "fall": ("pao2-fall", "Fall of PaO2 below the expected value"),
+    INSPIRED: ("deficit-inspired", "Part of the fall due to the inspired PO2 (altitude, FiO2)"),
+    VENTILATION: ("deficit-ventilation", "Part of the fall due to the PaCO2 (ventilation)"),
+    GAS_EXCHANGE: ("deficit-gas-exchange", "Part of the fall due to the A-a gradient"),
+    UNATTRIBUTED: ("deficit-unattributed", "Part of the fall not attributed (no PaCO2)"),
+}
+RESIDENCE_COMPONENT = ("altitude-residence-assumed", "Residence at altitude assumed")
 
 
 def _ref(reference: str) -> Json:
@@ -103,7 +129,53 @@ def _gas_parameter(gas: GasFacts, index: bool, quantities: _Quantities) -> Json:
     return {"name": "gas", "part": part}
 
 
-def _parameters(a: Assessment, quantities: _Quantities, settings_hash: str) -> Json:
+def _pressure(name: str, value_mmhg: float, quantities: _Quantities) -> Json:
+    return quantity(name, value_mmhg, "mm[Hg]", quantities.pressure_unit)
+
+
+def _deficit_parameter(gas: GasPartitions, shown: ShownPartition | None, q: _Quantities) -> Json:
+    """One gas's partition (``shown``), or why it has none: parts in the requested pressure
+    unit, positive where they lower the PaO2; absent parts are absent."""
+    part: list[Json] = []
+    if gas.reference is not None:
+        part.append({"name": "observation", "valueReference": _ref(gas.reference)})
+    part.append({"name": "index", "valueBoolean": gas.index})
+    if shown is None:
+        part.append({"name": "not-computed", "valueString": gas.absent or "not computable"})
+        return {"name": "deficit", "part": part}
+    if shown.residence is not None:
+        part.append({"name": "altitude-residence", "valueCode": shown.residence})
+        part.append({"name": "assumption", "valueString": shown.assumption})
+    d = shown.partition
+    basis = "imputed-from-spo2" if shown.imputed else "measured"
+    part += [
+        {"name": "pao2", "valueQuantity": _pressure("pao2", d.arterial_po2, q)},
+        {"name": "pao2-basis", "valueCode": basis},
+        {"name": "expected-pao2", "valueQuantity": _pressure("pao2-expected", d.expected_pao2, q)},
+        {"name": "fall", "valueQuantity": _pressure("pao2-fall", d.fall, q)},
+    ]
+    part += [
+        {"name": DEFICIT_PARTS[key], "valueQuantity": _pressure(f"deficit-{key}", value, q)}
+        for key, value in shown.parts
+    ]
+    part.append({"name": "method", "valueString": shown.method})
+    return {"name": "deficit", "part": part}
+
+
+def _deficit_parameters(partitions: tuple[GasPartitions, ...], q: _Quantities) -> list[Json]:
+    out: list[Json] = []
+    for gas in partitions:
+        shown: tuple[ShownPartition | None, ...] = gas.shown or (None,)
+        out += [_deficit_parameter(gas, s, q) for s in shown]
+    return out
+
+
+def _parameters(
+    a: Assessment,
+    quantities: _Quantities,
+    settings_hash: str,
+    partitions: tuple[GasPartitions, ...],
+) -> Json:
     params: list[Json] = [
         {"name": "ruleset", "valueString": a.ruleset_identity},
         {"name": "ruleset-hash", "valueString": a.ruleset_hash},
@@ -111,9 +183,12 @@ def _parameters(a: Assessment, quantities: _Quantities, settings_hash: str) -> J
     if settings_hash:
         params.append({"name": "settings-hash", "valueString": settings_hash})
     params.append({"name": "pattern", "valueCode": a.pattern})
+    params.append({"name": "gas-exchange", "valueCode": a.gas_exchange})
     params += [_mechanism_parameter(m) for m in a.mechanisms]
     params += [_finding_parameter(f) for f in a.findings]
+    params += [{"name": "uncertain-input", "valueString": what} for what in a.uncertain_inputs]
     params += [_gas_parameter(g.facts, g.index, quantities) for g in a.gases]
+    params += _deficit_parameters(partitions, quantities)
     index = a.index
     params += quantities.listed(index.derived)
     if index.barometric_source:
@@ -198,6 +273,48 @@ def _observation(
     return obs
 
 
+def _component(code: tuple[str, str], value: Json) -> Json:
+    return {"code": {"coding": [_coding(DERIVED_SYSTEM, *code)], "text": code[1]}, **value}
+
+
+def _deficit_observation(shown: ShownPartition, about: Json, q: _Quantities) -> Json:
+    """The index gas's partition as an Observation: one component per part, in the requested
+    pressure unit; ``derivedFrom`` the inputs; the method names the partition and sources."""
+    code, display = DEFICIT_OBSERVATION
+    identifier = code if shown.residence is None else f"{code}-{shown.residence}"
+    d = shown.partition
+    values = [("expected", d.expected_pao2), ("fall", d.fall), *shown.parts]
+    components = [
+        _component(
+            DEFICIT_COMPONENTS[key],
+            {"valueQuantity": _pressure(DEFICIT_COMPONENTS[key][0], value, q)},
+        )
+        for key, value in values
+    ]
+    if shown.residence is not None:
+        residence = _coding(ALTITUDE_RESIDENCE_CODES, shown.residence)
+        components.append(
+            _component(RESIDENCE_COMPONENT, {"valueCodeableConcept": {"coding": [residence]}})
+        )
+    text = f"{display}: the fall of the {shown.pao2_label} below the PaO2 expected for age"
+    obs: Json = {
+        "resourceType": "Observation",
+        "id": identifier,
+        "status": "final",
+        "category": [{"coding": [_coding(CATEGORY, "laboratory")]}],
+        "code": {"coding": [_coding(DERIVED_SYSTEM, code, display)], "text": text},
+        "method": {"text": shown.method},
+        **about,
+        "component": components,
+    }
+    if shown.assumption is not None:
+        obs["note"] = [{"text": f"Residence not sent: computed {shown.assumption}."}]
+    refs = list(dict.fromkeys(s.reference for s in shown.inputs))
+    if refs:
+        obs["derivedFrom"] = [_ref(r) for r in refs]
+    return obs
+
+
 def _mechanism_observation(a: Assessment, about: Json, derived_ids: list[str]) -> Json:
     obs: Json = {
         "resourceType": "Observation",
@@ -216,6 +333,16 @@ def _mechanism_observation(a: Assessment, about: Json, derived_ids: list[str]) -
                 "valueCodeableConcept": {"coding": [_coding(GRADE_SYSTEM, m.grade)]},
             }
             for m in a.mechanisms
+        ]
+        + [
+            _component(
+                ("gas-exchange-status", "Gas exchange for age"),
+                {
+                    "valueCodeableConcept": {
+                        "coding": [_coding(GAS_EXCHANGE_SYSTEM, a.gas_exchange)]
+                    }
+                },
+            )
         ],
         **about,
     }
@@ -228,11 +355,14 @@ def render_bundle(
     a: Assessment,
     *,
     data_requirements: Iterable[tuple[str, str]] = (),
+    settings: Settings,
     pressure_unit: PressureUnit = "mm[Hg]",
     settings_hash: str = "",
 ) -> Json:
     """The result Bundle for ``a``. ``data_requirements`` are (system, code) pairs;
-    ``settings_hash`` names the settings the result was computed with."""
+    ``settings`` are those ``a`` was assessed with (a partition that depends on an unknown
+    residence is shown for each residence, derived again with them); ``settings_hash`` names
+    them."""
     requirements = _data_requirements(data_requirements)
     # More data was asked for only if some of it can be named as a FHIR data requirement.
     status = "success" if a.status == "data-requested" and not requirements else a.status
@@ -251,9 +381,10 @@ def render_bundle(
     if requirements:
         guidance["dataRequirement"] = requirements
     quantities = _Quantities(pressure_unit)
+    partitions = assessment_partitions(a, settings)
     resources: list[Json] = [
         guidance,
-        _parameters(a, quantities, settings_hash),
+        _parameters(a, quantities, settings_hash, partitions),
         _operation_outcome(a),
     ]
     derived = a.index.derived
@@ -264,6 +395,11 @@ def render_bundle(
         if (d := derived.get(name)) is not None:
             resources.append(_observation(name, d, about, limit, quantities))
             derived_ids.append(name)
+    index = next((g for g in partitions if g.index), None)
+    for shown in index.shown if index is not None else ():
+        observation = _deficit_observation(shown, about, quantities)
+        resources.append(observation)
+        derived_ids.append(observation["id"])
     resources.append(_mechanism_observation(a, about, derived_ids))
     # Entry URLs derive from the decision id (its last 12 hex digits replaced by the entry's
     # number), so a result is reproducible apart from it and needs no hashing per entry.

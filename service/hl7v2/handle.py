@@ -125,7 +125,9 @@ def _answer(
         return V2Response(200, FHIR_MEDIA_TYPE, body, "AA")
     if reply == "result":
         unit = unit or runtime.settings.pressure_unit
-        result = oru_result(message, assessment, pressure_unit=unit, now=now)
+        result = oru_result(
+            message, assessment, settings=runtime.settings, pressure_unit=unit, now=now
+        )
         return V2Response(200, ER7_MEDIA_TYPE, result.encode(), "AA")
     answer = ack(message, "AA", notices(intake), text=outcome_text(assessment), now=now)
     return V2Response(200, ER7_MEDIA_TYPE, answer.encode(), "AA")

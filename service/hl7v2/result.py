@@ -11,9 +11,14 @@ Layout (one order group, filled by us as the filler):
   where a term exists (A-a gradient 19991-9, P/F 50984-4, a/A 78354-8; standards.md §1.8) and
   with our own code system otherwise; the A-a gradient with its age limit (OBX-7) and flag
   (OBX-8 H or N); the equation in OBX-17;
-* one coded ``OBX`` for the pattern, one per mechanism (sub-id 1.n) with its grade, an ``NTE``
-  with the rationale and one with the discriminator; one coded ``OBX`` per finding
-  (sub-id 2.n) with an ``NTE`` giving severity and message.
+* the PaO2 deficit partition of the index gas (sub-id 3, or 3.1 and 3.2 when it is given for
+  each residence at altitude, with an ``NTE`` naming the assumption): one NM ``OBX`` each for
+  the expected PaO2, the fall and every part shown (positive lowers the PaO2), with the method
+  in OBX-17; a gas without one gets an ``NTE`` saying why;
+* one coded ``OBX`` for the pattern (with ``NTE``s naming any input known only as a range),
+  one for the gas-exchange status (sub-id 1.0), one per mechanism (sub-id 1.n) with its
+  grade, an ``NTE`` with the rationale and one with the discriminator; one coded ``OBX`` per
+  finding (sub-id 2.n) with an ``NTE`` giving severity and message.
 
 Numbers and units are those of the FHIR result (``render.quantity``): pressures in mm[Hg]
 unless kPa is asked for. Pure: the clock and the control id may be given.
@@ -24,8 +29,10 @@ from __future__ import annotations
 from datetime import UTC, datetime
 
 from service.assess.derive import Derived
+from service.assess.partition import ShownPartition, assessment_partitions
 from service.assess.presentation import QUANTITY_ORDER, PressureUnit, quantity
 from service.assess.result import CAUTION, Assessment
+from service.config import Settings
 from service.hl7v2 import er7, tables
 from service.hl7v2.ack import reply_header
 from service.hl7v2.header import version_tuple
@@ -44,11 +51,18 @@ DISPLAYS: dict[str, str] = {
     "alveolar-po2": "Alveolar oxygen partial pressure (alveolar gas equation)",
     "aa-gradient": OBSERVATION_CODES["aa-gradient"][1],
     "aa-gradient-upper-limit": "A-a gradient upper limit for age",
+    "room-air-alveolar-po2": "Alveolar PO2 on room air at this PaCO2 and pressure",
+    "room-air-pao2": "PaO2 expected on room air if the a/A ratio held",
+    "pao2-expected": "PaO2 expected for age at sea level on air",
+    "pao2-lower-limit": "PaO2 lower limit of normal for age at sea level on air",
+    "paco2-upper-limit": "PaCO2 upper limit for this setting",
     "a-a-ratio": OBSERVATION_CODES["a-a-ratio"][1],
     "pf-ratio": OBSERVATION_CODES["pf-ratio"][1],
     "sf-ratio": "Oxygen saturation by pulse oximetry / inspired oxygen fraction",
     "arterial-o2-content": "Arterial oxygen content",
     "shunt-fraction": "Shunt fraction (venous admixture) estimate",
+    "venous-admixture": "Venous admixture by the shunt equation",
+    "shunt-dissolved-bound": "Least shunt from dissolved oxygen on near-pure oxygen",
     "imputed-pao2": "Arterial PO2 imputed from SpO2",
     "expected-hco3": "Expected bicarbonate for the PaCO2",
 }
@@ -59,6 +73,15 @@ MECHANISMS = {
     "vq-mismatch": "Ventilation-perfusion mismatch",
     "shunt": "Shunt",
 }
+DEFICIT_ROWS = {
+    "expected": ("pao2-expected", DISPLAYS["pao2-expected"]),
+    "fall": ("pao2-fall", "Fall of PaO2 below the expected value"),
+    "inspired": ("deficit-inspired", "Part of the fall due to the inspired PO2"),
+    "ventilation": ("deficit-ventilation", "Part of the fall due to the PaCO2"),
+    "gas-exchange": ("deficit-gas-exchange", "Part of the fall due to the A-a gradient"),
+    "unattributed": ("deficit-unattributed", "Part of the fall not attributed (no PaCO2)"),
+}
+GAS_EXCHANGE = {"defect": "Defect", "normal": "Normal", "unknown": "Unknown"}
 PATTERNS = {
     "no-hypoxaemia": "No hypoxaemia",
     "single": "Single mechanism",
@@ -113,15 +136,35 @@ def _derived(w: _Writer, name: str, d: Derived, a: Assessment, unit: PressureUni
     w.obx("NM", code, er7.number(shown["value"]), **more)
 
 
+def _deficit(w: _Writer, shown: ShownPartition, sub_id: str, unit: PressureUnit) -> None:
+    d = shown.partition
+    rows = [("expected", d.expected_pao2), ("fall", d.fall), *shown.parts]
+    for n, (key, value) in enumerate(rows):
+        code, display = DEFICIT_ROWS[key]
+        shown_value = quantity(code, value, "mm[Hg]", unit)
+        w.obx(
+            "NM",
+            er7.components(code, display, tables.DERIVED_SYSTEM),
+            er7.number(shown_value["value"]),
+            sub_id,
+            unit=er7.components(shown_value["code"], shown_value["unit"], "UCUM"),
+            method=er7.components("", shown.method),
+        )
+        if n == 0 and shown.assumption is not None:
+            w.note(f"Residence not sent: computed {shown.assumption}.")
+
+
 def oru_result(
     message: V2Message,
     assessment: Assessment,
     *,
+    settings: Settings,
     pressure_unit: PressureUnit = "mm[Hg]",
     now: datetime | None = None,
     control_id: str | None = None,
 ) -> str:
-    """The ORU^R01 carrying ``assessment`` of ``message`` back to its sender."""
+    """The ORU^R01 carrying ``assessment`` of ``message`` back to its sender; ``settings``
+    are those it was assessed with (for a partition given for each residence)."""
     a = assessment
     now = now or datetime.now(UTC)
     msh, version = reply_header(message, ("ORU", "R01", "ORU_R01"), now=now, control_id=control_id)
@@ -143,6 +186,10 @@ def oru_result(
     for name in QUANTITY_ORDER:
         if (d := a.index.derived.get(name)) is not None:
             _derived(w, name, d, a, pressure_unit)
+    index = next(g for g in assessment_partitions(a, settings) if g.index)
+    many = len(index.shown) > 1
+    for n, shown in enumerate(index.shown, start=1):
+        _deficit(w, shown, f"3.{n}" if many else "3", pressure_unit)
     assessment_code = er7.components(
         "hypoxaemia-mechanism-assessment", "Likely mechanism of hypoxaemia", tables.DERIVED_SYSTEM
     )
@@ -150,6 +197,13 @@ def oru_result(
     w.coded_obx(assessment_code, pattern, "1")
     if a.data_requested:
         w.note("More data would settle it: " + ", ".join(a.data_requested))
+    for what in a.uncertain_inputs:
+        w.note("Known only as a range, assessed at both ends: " + what)
+    if index.absent is not None:
+        w.note("No PaO2 deficit partition: " + index.absent)
+    exchange = er7.components("gas-exchange-status", "Gas exchange for age", tables.DERIVED_SYSTEM)
+    status = GAS_EXCHANGE.get(a.gas_exchange, a.gas_exchange)
+    w.coded_obx(exchange, er7.components(a.gas_exchange, status, tables.GAS_EXCHANGE_SYSTEM), "1.0")
     for n, m in enumerate(a.mechanisms, start=1):
         mechanism = er7.components(m.code, MECHANISMS.get(m.code, m.code), tables.MECHANISM_SYSTEM)
         grade = er7.components(m.grade, m.grade.capitalize(), tables.GRADE_SYSTEM)

@@ -11,6 +11,7 @@ from collections.abc import Iterable
 from html import escape
 
 from service import __version__
+from service.assess.partition import PART_LABELS, PART_MEANINGS, assessment_partitions
 from service.assess.result import CAUTION, Assessment, Finding, MechanismVerdict
 from service.physiology.constants import WATER_VAPOUR_TEXTBOOK_MMHG
 from service.runtime import Runtime
@@ -18,6 +19,7 @@ from service.runtime import Runtime
 from .cascade import Cascade, CascadeInput, build_cascade, cascade_svg, signed
 from .expectations import Mismatch
 from .runner import CaseResult, summary_line
+from .waterfall import waterfall_svg
 
 MECHANISM_NAMES = {
     "low-inspired-oxygen": "Low inspired oxygen",
@@ -77,6 +79,7 @@ details summary { cursor: pointer; color: var(--muted); }
 details ul { margin: .2rem 0; padding-left: 1.2rem; font-size: .9em; }
 figure { margin: .4rem 0; }
 figure svg { display: block; width: 100%; max-width: 820px; height: auto; }
+figure svg.deficit-chart { max-width: 680px; }
 figcaption { font-size: .9rem; color: var(--muted); max-width: 820px; }
 figcaption ul { margin: .2rem 0; padding-left: 1.2rem; }
 footer { color: var(--muted); font-size: .85rem; padding-bottom: 2rem; }
@@ -189,8 +192,12 @@ def _verdict(a: Assessment) -> str:
         '<dl class="meta">'
         f"<dt>Pattern</dt><dd>{_e(a.pattern)}</dd>"
         f"<dt>Hypoxaemia</dt><dd>{_e(a.hypoxaemia)}</dd>"
+        f"<dt>Gas exchange for age</dt><dd>{_e(a.gas_exchange)}</dd>"
         f"<dt>Result status</dt><dd>{_e(a.status)}</dd>"
     )
+    if a.uncertain_inputs:
+        ranges = "<br>".join(_e(u) for u in a.uncertain_inputs)
+        meta += f"<dt>Known only as a range (assessed at both ends)</dt><dd>{ranges}</dd>"
     if a.data_requested:
         asked = ", ".join(f"<code>{_e(f)}</code>" for f in a.data_requested)
         meta += f"<dt>Data that would help</dt><dd>{asked}</dd>"
@@ -303,6 +310,56 @@ def _cascade(a: Assessment, runtime: Runtime, index: int, name: str) -> str:
     return f"<h3>Oxygen cascade</h3><figure>{svg}{caption}</figure>" + _cascade_table(cascade)
 
 
+def _deficit_table(parts: list[tuple[str, float, float | None]], fall: float) -> str:
+    rows = [
+        [
+            _e(PART_LABELS[key]),
+            _e(_signed(value)),
+            _e("raises it" if value < 0 else f"{share:.0%}" if share is not None else "—"),
+            _e(PART_MEANINGS[key]),
+        ]
+        for key, value, share in parts
+    ]
+    rows.append(["<strong>fall</strong>", _e(_signed(fall)), "", "expected − measured PaO2"])
+    caption = (
+        "The chart's numbers (mmHg): each part of the fall (positive lowers the PaO2) and its "
+        "share of everything that lowers it."
+    )
+    return _table(caption, ["Part", "mmHg", "Share", "What it is"], rows, numeric={1, 2})
+
+
+def _deficit(a: Assessment, runtime: Runtime, index: int, name: str) -> str:
+    gas = next(g for g in assessment_partitions(a, runtime.settings) if g.index)
+    heading = "<h3>PaO2 deficit: why the PaO2 is below the expected value</h3>"
+    if not gas.shown:
+        return f'{heading}<p class="muted">No partition: {_e(gas.absent)}.</p>'
+    parts = [heading]
+    many = len(gas.shown) > 1
+    for n, shown in enumerate(gas.shown, start=1):
+        chart_id = f"deficit-{index}-{n}"
+        assumed = f" ({shown.assumption})" if shown.assumption else ""
+        svg = waterfall_svg(shown, title=f"PaO2 deficit: {name}{assumed}", chart_id=chart_id)
+        d = shown.partition
+        note = (
+            "<li>The residence at altitude was not sent: the PaCO2 expected there, and so the "
+            "split between the inspired and ventilation parts, depends on it. Both are drawn."
+            "</li>"
+            if many and n == 1
+            else ""
+        )
+        if shown.imputed:
+            note += "<li>No arterial PO2: the PaO2 was imputed from SpO2 (Brown 2016).</li>"
+        caption = (
+            f"<figcaption>From the PaO2 expected for age at sea level on air "
+            f"({_e(_mmhg(d.expected_pao2))} mmHg) to the {_e(shown.pao2_label)} "
+            f"({_e(_mmhg(d.arterial_po2))} mmHg){_e(assumed)}, step by step. "
+            f"<ul>{note}<li>{_e(shown.method)}.</li></ul></figcaption>"
+        )
+        rows = [(key, value, shown.share(value)) for key, value in shown.parts]
+        parts.append(f"<figure>{svg}{caption}</figure>" + _deficit_table(rows, d.fall))
+    return "".join(parts)
+
+
 def _case(result: CaseResult, runtime: Runtime, index: int) -> str:
     case = result.case
     parts = [
@@ -326,6 +383,7 @@ def _case(result: CaseResult, runtime: Runtime, index: int) -> str:
     if a is not None:
         parts += [
             _verdict(a),
+            _deficit(a, runtime, index, case.name),
             _findings(a.findings),
             _numbers(a),
             _cascade(a, runtime, index, case.name),

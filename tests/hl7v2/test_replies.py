@@ -11,17 +11,24 @@ from datetime import UTC, datetime
 from typing import Any
 
 import hl7  # type: ignore[import-untyped]
+import pytest
 
+from service.assess.presentation import PressureUnit
 from service.hl7v2.ack import ack
 from service.hl7v2.errors import ErrorCode, Location, V2Error
 from service.hl7v2.intake import read_oru
 from service.hl7v2.message import parse_message
 from service.hl7v2.result import oru_result
 from service.runtime import Runtime
+from tests.deficit_reference import KPA_PER_MMHG, alveolar, reference
 
-from .builders import fixture, message, msh, obr
+from .builders import fixture, gas, message, msh, obr, obx
 
 NOW = datetime(2026, 1, 5, 9, 20, tzinfo=UTC)
+# post-operative-drowsiness.hl7: FiO2 0.21, PB 762, PaCO2 65, PaO2 62 mm[Hg]. Its A-a gradient
+# by the alveolar gas equation (full form, R 0.8; PH2O at 37 °C, the temperature the analyser
+# reports at, IAPWS-IF97): about 10.3 mm[Hg].
+POST_OP_AA_MMHG = alveolar(0.21, 762.0, 65.0) - 62.0
 
 
 def parsed(text: str) -> Any:
@@ -80,7 +87,9 @@ def test_the_result_carries_derived_values_grades_findings_and_the_caution(
 ) -> None:
     source = parse_message(fixture("post-operative-drowsiness.hl7"))
     assessment = runtime.assess_intake(read_oru(source), now=NOW)
-    reply = parsed(oru_result(source, assessment, now=NOW, control_id="RES-1"))
+    reply = parsed(
+        oru_result(source, assessment, settings=runtime.settings, now=NOW, control_id="RES-1")
+    )
     assert str(reply.segment("MSH")[9]) == "ORU^R01^ORU_R01"
     assert str(reply["PID.F7"]) == "19920602"  # the original PID, to file the result
     assert str(reply.segment("OBR")[2]) == "ORD-0001^INVENTED-WARD"
@@ -92,9 +101,7 @@ def test_the_result_carries_derived_values_grades_findings_and_the_caution(
         assert str(by_code[loinc][3][0][2]) == "LN"
         assert str(by_code[loinc][2]) == "NM"
     aa = by_code["19991-9"]
-    # Alveolar gas equation with water vapour at 37 Cel, where the analyser reports the gases
-    # (IAPWS-IF97: 47.12 mmHg): 0.21 x (762 - 47.12) - 65 x (0.21 + 0.79/0.8) = 72.29; - 62.
-    assert (str(aa[5]), str(aa[6][0][0]), str(aa[8])) == ("10.3", "mm[Hg]", "N")
+    assert (str(aa[5]), str(aa[6][0][0]), str(aa[8])) == (f"{POST_OP_AA_MMHG:.1f}", "mm[Hg]", "N")
     assert str(by_code["alveolar-po2"][3][0][2]) == "99OXYDRV"
     assert str(by_code["hypoventilation"][5]) == "likely^Likely^99OXYGRD"
     assert str(by_code["hypoxaemia-mechanism-assessment"][5]) == "single^Single mechanism^99OXYPAT"
@@ -104,7 +111,47 @@ def test_the_result_carries_derived_values_grades_findings_and_the_caution(
 def test_the_result_in_kpa(runtime: Runtime) -> None:
     source = parse_message(fixture("post-operative-drowsiness.hl7"))
     assessment = runtime.assess_intake(read_oru(source), now=NOW)
-    reply = parsed(oru_result(source, assessment, pressure_unit="kPa", now=NOW))
+    reply = parsed(
+        oru_result(source, assessment, settings=runtime.settings, pressure_unit="kPa", now=NOW)
+    )
     aa = next(o for o in reply.segments("OBX") if str(o[3][0][0]) == "19991-9")
     assert str(aa[6][0][0]) == "kPa"
-    assert abs(float(str(aa[5])) - 10.29 * 0.133322) < 0.01
+    assert abs(float(str(aa[5])) - POST_OP_AA_MMHG * KPA_PER_MMHG) < 0.006
+
+
+def _partition_rows(reply: Any) -> dict[str, Any]:
+    return {str(o[3][0][0]): o for o in reply.segments("OBX") if str(o[4]).startswith("3")}
+
+
+def test_the_result_carries_the_deficit_partition_in_both_units(runtime: Runtime) -> None:
+    # tests.deficit_reference: 64 years (born 1961-04-12, gas on 2026-01-05), air, PB 760,
+    # PaCO2 55, PaO2 50; every part computed there from Cerveri 1995 and the alveolar gas
+    # equation.
+    ref = reference()
+    source = parse_message(gas(obx(4, "76268-2", "760"), pao2="50", paco2="55"))
+    assessment = runtime.assess_intake(read_oru(source), now=NOW)
+    expected = {
+        "pao2-expected": ref.expected,
+        "pao2-fall": ref.fall,
+        "deficit-inspired": ref.inspired,
+        "deficit-ventilation": ref.ventilation,
+        "deficit-gas-exchange": ref.gas_exchange,
+    }
+    units: tuple[tuple[PressureUnit, float, int], ...] = (
+        ("mm[Hg]", 1.0, 1),
+        ("kPa", KPA_PER_MMHG, 2),
+    )
+    for unit, factor, places in units:
+        reply = parsed(
+            oru_result(source, assessment, settings=runtime.settings, pressure_unit=unit, now=NOW)
+        )
+        rows = _partition_rows(reply)
+        assert set(rows) == set(expected)
+        for code, mmhg in expected.items():
+            row = rows[code]
+            assert str(row[2]) == "NM" and str(row[3][0][2]) == "99OXYDRV"
+            assert str(row[4]) == "3" and str(row[6][0][0]) == unit
+            assert float(str(row[5])) == pytest.approx(mmhg * factor, abs=0.5 * 10**-places)
+            assert "Cerveri 1995" in reply.unescape(str(row[17]))
+    status = next(o for o in reply.segments("OBX") if str(o[3][0][0]) == "gas-exchange-status")
+    assert str(status[5]) == "defect^Defect^99OXYGXS"

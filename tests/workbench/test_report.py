@@ -14,8 +14,10 @@ from pathlib import Path
 
 import pytest
 
+from service.assess.partition import assessment_partitions
 from service.assess.result import CAUTION
 from service.runtime import Runtime
+from service.workbench.cascade import signed
 from service.workbench.expectations import Mismatch, find_cases
 from service.workbench.report import html_report
 from service.workbench.runner import CaseResult, run_cases, summary_line
@@ -100,16 +102,52 @@ def test_report_is_well_formed_html(report: str) -> None:
 
 
 def test_every_chart_is_well_formed_svg_with_a_title(
-    report: str, results: list[CaseResult]
+    report: str, results: list[CaseResult], runtime: Runtime
 ) -> None:
-    charts = re.findall(r"<svg\b.*?</svg>", report, flags=re.DOTALL)
-    assessed = [r for r in results if r.assessment is not None]
-    assert len(charts) == len(assessed)
-    for chart in charts:
-        root = ET.fromstring(chart)
+    charts = [ET.fromstring(c) for c in re.findall(r"<svg\b.*?</svg>", report, flags=re.DOTALL)]
+    for root in charts:
         title = root.find("{http://www.w3.org/2000/svg}title")
-        assert title is not None and (title.text or "").startswith("Oxygen cascade: ")
+        assert title is not None and title.text
         assert root.get("role") == "img"
+    assessed = [r.assessment for r in results if r.assessment is not None]
+    cascades = [c for c in charts if c.get("class") == "cascade-chart"]
+    assert len(cascades) == len(assessed)
+    # One waterfall per partition of each case's index gas (two where the residence at
+    # altitude was not sent).
+    waterfalls = [c for c in charts if c.get("class") == "deficit-chart"]
+    shown = sum(
+        len(g.shown)
+        for a in assessed
+        for g in assessment_partitions(a, runtime.settings)
+        if g.index
+    )
+    assert len(waterfalls) == shown > 0
+    assert len(cascades) + len(waterfalls) == len(charts)
+
+
+def test_each_case_has_its_deficit_partition_or_says_why_not(
+    report: str, results: list[CaseResult], runtime: Runtime
+) -> None:
+    sections = report.split('<section class="case')[1:]
+    for result, section in zip(results, sections, strict=True):
+        if result.assessment is None:
+            continue
+        assert "<h3>PaO2 deficit: why the PaO2 is below the expected value</h3>" in section
+        exchange = result.assessment.gas_exchange
+        assert f"<dt>Gas exchange for age</dt><dd>{exchange}</dd>" in section
+        for what in result.assessment.uncertain_inputs:
+            assert escape(what) in section
+        (gas,) = [g for g in assessment_partitions(result.assessment, runtime.settings) if g.index]
+        if not gas.shown:
+            assert f"No partition: {escape(gas.absent or '')}" in section
+            continue
+        assert section.count('class="deficit-chart"') == len(gas.shown)
+        for shown in gas.shown:
+            for key, value in shown.parts:
+                label = {"gas-exchange": "gas exchange", "inspired": "inspired PO2"}.get(key, key)
+                assert f'<td>{label}</td><td class="num">{escape(signed(value))}</td>' in section
+            if shown.assumption:
+                assert escape(shown.assumption) in section
 
 
 def test_report_names_every_case_and_the_run(report: str, results: list[CaseResult]) -> None:
