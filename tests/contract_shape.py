@@ -114,9 +114,9 @@ def _verdict(top: dict[str, list[dict[str, Any]]]) -> list[str]:
         if _value(m.get("grade")) == "possible" and "discriminator" not in m
     ]
     likely = [c for c, g in grades.items() if g == "likely"]
-    # docs/clinical-logic.md (rule set 2.0): `single` is one likely mechanism that explains the deficit
-    # with normal gas exchange (or is itself the gas-exchange defect); `mixed` is two likely, or
-    # one likely beside a gas-exchange defect whose type is open (or not judged).
+    # docs/clinical-logic.md (rule set 2.0): `single` is one likely mechanism that explains the
+    # deficit with normal gas exchange (or is itself the gas-exchange defect); `mixed` is two
+    # likely, or one likely beside a gas-exchange defect whose type is open (or not judged).
     exchange = top.get("gas-exchange", [{}])[0].get("valueCode")
     if exchange not in GAS_EXCHANGE:
         problems.append(f"gas-exchange {exchange}")
