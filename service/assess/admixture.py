@@ -5,11 +5,18 @@ from __future__ import annotations
 from service.config import Settings
 from service.physiology import constants as c
 from service.physiology import oxygen_content as oc
+from service.physiology.oxygen_affinity import OxygenAffinity, oxygen_affinity
 from service.physiology.saturation import saturation_from_po2
 
 from .derivation import Computed, DerivedTable
 
 table = DerivedTable()
+
+
+def _curve(arterial_ph: float | None) -> OxygenAffinity | None:
+    """The patient's dissociation curve at 37 °C (where the analyser reports the gases): the
+    standard curve shifted for the measured pH (Severinghaus 1979 eq. 4), or None without one."""
+    return None if arterial_ph is None else oxygen_affinity(ph=arterial_ph)
 
 
 def _carried(
@@ -39,16 +46,22 @@ def arterial_o2_content(
     arterial_so2_functional: float | None = None,
     carboxyhaemoglobin: float | None = None,
     methaemoglobin: float | None = None,
+    arterial_ph: float | None = None,
 ) -> Computed:
     # The functional saturation is the analyser's SaO2 or a co-oximeter's fractional O2Hb
     # divided by 1 − COHb − MetHb; times that factor again it is the measured O2Hb fraction.
-    measured = arterial_so2_functional is not None
-    functional = (
-        arterial_so2_functional
-        if arterial_so2_functional is not None
-        else saturation_from_po2(po2_mmhg=arterial_po2)
-    )
-    note = "measured saturation" if measured else "SaO2 from PaO2 (Severinghaus)"
+    curve = _curve(arterial_ph)
+    if arterial_so2_functional is not None:
+        functional, note = arterial_so2_functional, "measured saturation"
+    elif curve is not None:
+        functional = curve.saturation(po2_mmhg=arterial_po2)
+        note = (
+            f"SaO2 from PaO2 on the patient's curve (Severinghaus, P50 {curve.p50_mmhg:.1f} "
+            f"mmHg for pH {arterial_ph:.2f}, eq. 4)"
+        )
+    else:
+        functional = saturation_from_po2(po2_mmhg=arterial_po2)
+        note = "SaO2 from PaO2 on the standard curve (Severinghaus; no pH)"
     if carboxyhaemoglobin or methaemoglobin:
         note += ", times (1 − COHb − MetHb)"
     hufner = settings.hufner_ml_per_g
@@ -76,15 +89,19 @@ def venous_admixture_fraction(
     methaemoglobin: float | None = None,
     mixed_venous_so2: float | None = None,
     mixed_venous_po2: float | None = None,
+    arterial_ph: float | None = None,
 ) -> float | None:
     """Qs/Qt by the shunt equation (a fraction), with a measured mixed-venous content or the
-    a-v difference given; None when there is no end-capillary to arterial gap."""
+    a-v difference given; None when there is no end-capillary to arterial gap. The
+    end-capillary saturation comes from the same curve as the arterial one (the patient's,
+    with a pH)."""
     if alveolar_po2 <= arterial_po2:
         return None  # no end-capillary to arterial gap: nothing to apportion
     capillary_saturation = oc.end_capillary_saturation(
         alveolar_po2_mmhg=alveolar_po2,
         arterial_po2_mmhg=arterial_po2,
         arterial_saturation=arterial_so2,
+        affinity=_curve(arterial_ph),
     )
     capillary = oc.oxygen_content_ml_dl(
         haemoglobin_g_dl=haemoglobin,
@@ -133,6 +150,7 @@ def _admixture(
     methaemoglobin: float | None,
     mixed_venous_so2: float | None,
     mixed_venous_po2: float | None,
+    arterial_ph: float | None,
 ) -> float | None:
     return venous_admixture_fraction(
         haemoglobin=haemoglobin,
@@ -146,6 +164,7 @@ def _admixture(
         methaemoglobin=methaemoglobin,
         mixed_venous_so2=mixed_venous_so2,
         mixed_venous_po2=mixed_venous_po2,
+        arterial_ph=arterial_ph,
     )
 
 
@@ -170,6 +189,7 @@ def venous_admixture(
     methaemoglobin: float | None = None,
     mixed_venous_so2: float | None = None,
     mixed_venous_po2: float | None = None,
+    arterial_ph: float | None = None,
 ) -> Computed | None:
     difference = settings.assumed_av_difference_ml_dl
     value = _admixture(
@@ -184,6 +204,7 @@ def venous_admixture(
         methaemoglobin,
         mixed_venous_so2,
         mixed_venous_po2,
+        arterial_ph,
     )
     if value is None:
         return None
@@ -203,6 +224,7 @@ def _admixture_at_end(end: int) -> object:
         methaemoglobin: float | None = None,
         mixed_venous_so2: float | None = None,
         mixed_venous_po2: float | None = None,
+        arterial_ph: float | None = None,
     ) -> float | None:
         # A larger a-v difference (a low cardiac output) gives a smaller admixture: the least
         # admixture is at the top of the range, the most at the bottom.
@@ -219,6 +241,7 @@ def _admixture_at_end(end: int) -> object:
             methaemoglobin,
             mixed_venous_so2,
             mixed_venous_po2,
+            arterial_ph,
         )
 
     return compute

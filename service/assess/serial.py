@@ -127,6 +127,7 @@ def _admixture(
             methaemoglobin=canonical("methaemoglobin"),
             mixed_venous_so2=canonical("mixed_venous_so2"),
             mixed_venous_po2=canonical("mixed_venous_po2"),
+            arterial_ph=canonical("arterial_ph"),
         )
     except PhysiologyError:
         return None

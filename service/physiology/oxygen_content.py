@@ -17,6 +17,7 @@ from service.physiology.bounds import (
     PARTIAL_PRESSURE_MMHG,
     require_possible,
 )
+from service.physiology.oxygen_affinity import OxygenAffinity
 from service.physiology.saturation import saturation_from_po2
 
 HUFNER_RANGE_ML_PER_G = (1.30, 1.40)  # 1.306 to the theoretical 1.39 are all in published use
@@ -72,18 +73,26 @@ def fractional_saturation(
 
 
 def end_capillary_saturation(
-    *, alveolar_po2_mmhg: float, arterial_po2_mmhg: float, arterial_saturation: float | None
+    *,
+    alveolar_po2_mmhg: float,
+    arterial_po2_mmhg: float,
+    arterial_saturation: float | None,
+    affinity: OxygenAffinity | None = None,
 ) -> float:
     """Saturation of pulmonary end-capillary blood, which leaves the alveoli at PAO2.
 
-    From the Severinghaus curve at PAO2, except when the arterial blood is itself on the flat
-    part of the curve (PaO2 ≥ 150 mmHg) and SaO2 was measured: then ScO2 = SaO2, so that a
-    dyshaemoglobin or an analyser offset is not counted as shunt. (Applying that switch on PAO2
-    instead of PaO2 would cancel the haemoglobin term for a hypoxaemic patient on oxygen and
-    hide most of the shunt.)
+    From the Severinghaus curve at PAO2 (shifted to the blood's P50 when ``affinity`` is
+    given, the same curve the arterial saturation was taken from), except when the arterial
+    blood is itself on the flat part of the curve (PaO2 ≥ 150 mmHg) and SaO2 was measured:
+    then ScO2 = SaO2, so that a dyshaemoglobin or an analyser offset is not counted as shunt.
+    (Applying that switch on PAO2 instead of PaO2 would cancel the haemoglobin term for a
+    hypoxaemic patient on oxygen and hide most of the shunt.)
     """
     if arterial_saturation is not None and arterial_po2_mmhg >= c.FLAT_CURVE_PO2_MMHG:
         return arterial_saturation
+    if affinity is not None:
+        require_possible("alveolar_po2_mmhg", alveolar_po2_mmhg, *PARTIAL_PRESSURE_MMHG, "mm[Hg]")
+        return affinity.saturation(po2_mmhg=alveolar_po2_mmhg)
     return saturation_from_po2(po2_mmhg=alveolar_po2_mmhg)
 
 
