@@ -20,7 +20,7 @@ from service.assess.presentation import QUANTITY_ORDER, PressureUnit, quantity
 from service.assess.result import CAUTION, Assessment, Finding, MechanismVerdict
 from service.config import Settings
 from service.physiology.deficit_steps import GAS_EXCHANGE, INSPIRED, UNATTRIBUTED, VENTILATION
-from service.terminology.codes import ALTITUDE_RESIDENCE_CODES
+from service.terminology.codes import ALTITUDE_RESIDENCE_CODES, UCUM
 from service.terminology.codes import DERIVED_OBSERVATION_CODES as OBSERVATION_CODES
 
 Json = dict[str, Any]
@@ -126,7 +126,38 @@ def _gas_parameter(gas: GasFacts, index: bool, quantities: _Quantities) -> Json:
         )
     part.append({"name": "index", "valueBoolean": index})
     part += quantities.listed(gas.derived)
+    part += _paired(gas)
     return {"name": "gas", "part": part}
+
+
+def _paired(gas: GasFacts) -> list[Json]:
+    """Each value paired with the gas and how long before it (negative: after) it was taken,
+    so a reader can judge whether an Hb of yesterday or a DLCO of last spring still holds."""
+    out: list[Json] = []
+    anchor = gas.gas.anchor
+    for quantity_, m in gas.gas.values.items():
+        if m is anchor:
+            continue
+        offset = gas.gas.offset(quantity_)
+        item: list[Json] = [
+            {"name": "quantity", "valueCode": quantity_.value},
+            {"name": "observation", "valueReference": _ref(m.source.reference)},
+        ]
+        if offset is not None:
+            minutes = round(offset.total_seconds() / 60.0, 1)
+            item.append(
+                {
+                    "name": "taken-before-gas",
+                    "valueQuantity": {
+                        "value": minutes,
+                        "unit": "min",
+                        "system": UCUM,
+                        "code": "min",
+                    },
+                }
+            )
+        out.append({"name": "paired", "part": item})
+    return out
 
 
 def _pressure(name: str, value_mmhg: float, quantities: _Quantities) -> Json:
