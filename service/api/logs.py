@@ -36,6 +36,13 @@ FIELDS = (
     "setting",
     "problem",
     "previous",
+    "cds_service",
+    "outcome",
+    "reason",
+    "accepted_suggestions",
+    "card",
+    "cards",
+    "indicator",
 )
 
 REQUEST_LOGGER = "oxyrule.http"
