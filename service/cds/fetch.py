@@ -214,7 +214,7 @@ class FhirReader:
                 found.stopped = "a next page outside fhirServer was not followed"
                 return
             if pages_read >= self.budget.max_pages:
-                found.stopped = f"more than {self.budget.max_pages} pages: the rest was not read"
+                found.stopped = f"more than {self.budget.max_pages} page(s): the rest was not read"
                 return
             page = await self._get(url)
             pages_read += 1

@@ -129,6 +129,8 @@ class CdsTrust:
             raise refuse(
                 "security", "the bearer token is not a JWT (its header cannot be read)"
             ) from None
+        except jwt.InvalidTokenError as exc:  # a kid that is no string, an unknown crit
+            raise refuse("security", f"the JWT header is not acceptable: {_reason(exc)}") from None
         alg = header.get("alg")
         if not isinstance(alg, str) or alg not in self.algorithms:
             raise refuse(
