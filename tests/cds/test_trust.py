@@ -437,7 +437,7 @@ def test_any_header_and_claims_give_a_refusal_never_an_error(
     if signed:  # a real signature over whatever claims were drawn
         try:
             token = jwt.encode(claims, ES_KEY, "ES384", header)
-        except (TypeError, ValueError, jwt.PyJWTError):
+        except (TypeError, ValueError, NotImplementedError, jwt.PyJWTError):
             token = handmade(header, claims)
     else:
         token = handmade(header, claims, b"\x00" * 96)
