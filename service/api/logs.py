@@ -36,6 +36,7 @@ FIELDS = (
     "setting",
     "problem",
     "previous",
+    "cds",
     "cds_service",
     "outcome",
     "reason",

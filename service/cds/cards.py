@@ -376,7 +376,7 @@ def _settle(v: AssessmentView) -> list[str]:
         code = code_for_fact(fact)
         wanted.append(f"{label} (LOINC {code[1]})" if code and code[0] == LOINC else label)
     if wanted:
-        lines.append(f"- Data that would help: {md(', '.join(dict.fromkeys(wanted)))}")
+        lines.append(f"- New measurements that would help: {md(', '.join(dict.fromkeys(wanted)))}")
     return lines
 
 
