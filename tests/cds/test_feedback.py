@@ -120,3 +120,11 @@ def test_a_body_that_is_not_json_is_400_and_another_media_type_415(cds: AppMaker
     assert answer.status_code == 400 and answer.json()["issue"][0]["expression"] == ["$"]
     answer = client.post(FEEDBACK, content=b"<x/>", headers={"Content-Type": "application/xml"})
     assert answer.status_code == 415
+
+
+def test_a_body_over_the_size_limit_is_413_located_at_the_body(cds: AppMaker) -> None:
+    answer = cds(max_body_bytes=2048).post(
+        "/cds-services/hypoxaemia-mechanism", json={"hook": "patient-view", "x": "y" * 4096}
+    )
+    assert answer.status_code == 413
+    assert answer.json()["issue"][0]["expression"] == ["http.Content-Length"]

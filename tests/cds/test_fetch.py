@@ -211,3 +211,12 @@ def test_a_prefetched_resource_counts_once_however_many_keys_hold_it(
     first = post(cds, ehr, hook_request("patient-view-shunt"))[1]
     assert status == 200
     assert answer["cards"][0]["summary"] == first["cards"][0]["summary"]
+
+
+def test_an_open_fhir_server_is_read_without_a_token(cds: AppMaker, ehr: Ehr) -> None:
+    ehr.token = None
+    body = hook_request("patient-view-without-prefetch", ehr.base + "/fhir")
+    del body["fhirAuthorization"]
+    status, answer = post(cds, ehr, body)
+    assert status == 200 and answer["cards"]
+    assert {auth for _, _, auth in ehr.seen} == {None}

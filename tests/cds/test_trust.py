@@ -446,3 +446,21 @@ def test_any_header_and_claims_give_a_refusal_never_an_error(
     except CdsError as refusal:
         assert refusal.status == 401
         assert refusal.issues[0].expression == "http.Authorization"
+
+
+def test_a_browser_ehr_gets_cors_only_for_an_allowed_origin(cds: AppMaker, ehr: Ehr) -> None:
+    origin = "https://ehr-web.invented.test"
+    client = cds(**trusted(ehr), cors_origins=[origin])
+    preflight = {
+        "Origin": origin,
+        "Access-Control-Request-Method": "POST",
+        "Access-Control-Request-Headers": "Authorization, Content-Type",
+    }
+    allowed = client.options(SERVICE, headers=preflight)
+    assert allowed.status_code == 200
+    assert allowed.headers["access-control-allow-origin"] == origin
+    refusal = client.post(SERVICE, json=BODY, headers={"Origin": origin})
+    refused(refusal, "signed JWT is required", "login")
+    assert refusal.headers["access-control-allow-origin"] == origin  # the EHR can read why
+    other = client.options(SERVICE, headers=preflight | {"Origin": "https://elsewhere.test"})
+    assert other.status_code == 400 and "access-control-allow-origin" not in other.headers

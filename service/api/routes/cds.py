@@ -45,7 +45,8 @@ async def _json(request: Request, service: ServiceState) -> Any:
         raise CdsError.one(
             415, "not-supported", "send the body as application/json", "http.Content-Type"
         )
-    raw = await read_bounded(request, service.server.max_body_bytes, service.server.body_timeout_s)
+    server = service.server
+    raw = await read_bounded(request, server.max_body_bytes, server.body_timeout_s, "$")
     record_of(request).bytes_in = len(raw)
     try:
         return orjson.loads(raw)
