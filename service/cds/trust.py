@@ -170,13 +170,16 @@ class CdsTrust:
                 raise refuse("security", "the JWT's jku is not a JWK Set URL of this issuer")
             urls = [jku.rstrip("/")]
         found = client.inline.key(kid) if client.inline is not None and jku is None else None
-        try:
-            for url in urls:
-                if found is not None:
-                    break
+        failure: KeySetError | None = None
+        for url in urls:
+            if found is not None:
+                break
+            try:
                 found = await self.keys.key(url, kid)
-        except KeySetError as error:
-            raise refuse("security", f"the issuer's keys cannot be had: {error.reason}") from None
+            except KeySetError as error:  # another listed set may still hold the key
+                failure = error
+        if found is None and failure is not None:
+            raise refuse("security", f"the issuer's keys cannot be had: {failure.reason}")
         if found is None:
             raise refuse("security", "no key of the issuer has this kid")
         jwk, pyjwk = found

@@ -464,3 +464,12 @@ def test_a_browser_ehr_gets_cors_only_for_an_allowed_origin(cds: AppMaker, ehr: 
     assert refusal.headers["access-control-allow-origin"] == origin  # the EHR can read why
     other = client.options(SERVICE, headers=preflight | {"Origin": "https://elsewhere.test"})
     assert other.status_code == 400 and "access-control-allow-origin" not in other.headers
+
+
+def test_a_second_jwk_set_url_is_tried_when_the_first_cannot_be_read(
+    cds: AppMaker, ehr: Ehr
+) -> None:
+    dead = ehr.base + "/no-such-jwks.json"  # answered 404 by the EHR server
+    client = cds(**trusted(ehr, jwks_urls=[dead, ehr.base + "/jwks.json"]))
+    assert call(client, sign()).status_code == 200
+    assert [p for p, _, _ in ehr.seen] == ["/no-such-jwks.json", "/jwks.json"]
