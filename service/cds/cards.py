@@ -546,12 +546,15 @@ def _raises(order: OxygenOrder, current: Number | None) -> bool | None:
     return round(order.fio2 * 100) > round(current.value * 100)
 
 
-def _order_fio2(order: OxygenOrder) -> str | None:
+def _order_lines(order: OxygenOrder) -> list[str]:
+    """The detail's first paragraph on an order card: which order, at which FiO2."""
     if order.fio2 is None:
-        return None
-    return f"{order.fio2:.2f}" + (
-        " (estimated from device and flow)" if order.fio2_estimated else ""
-    )
+        fio2 = ", FiO2 not stated"
+    else:
+        estimated = " (estimated from device and flow)" if order.fio2_estimated else ""
+        fio2 = f", FiO2 {order.fio2:.2f}{estimated}"
+    unread = f" ({md('; '.join(order.unread))} could not be read)" if order.unread else ""
+    return [f"**Order**: {md(order.reference)}{fio2}{unread}", ""]
 
 
 def _masking_card(v: AssessmentView, order: OxygenOrder, known: bool, context: CardContext) -> Json:
@@ -574,11 +577,8 @@ def _masking_card(v: AssessmentView, order: OxygenOrder, known: bool, context: C
         f"{lead}.",
     )
     rationale = next((m.rationale for m in v.mechanisms if m.code == "hypoventilation"), "")
-    target = _order_fio2(order)
     paragraphs = [
-        f"**Order**: {md(order.reference)}"
-        + (f", FiO2 {md(target)}" if target else ", FiO2 not stated"),
-        "",
+        *_order_lines(order),
         f"**Why this card**: hypoventilation is {md(grade)}. {md(rationale)}",
         "",
         "More oxygen raises the PaO2 and the SpO2 but does nothing for the PaCO2: a normal "
@@ -614,11 +614,8 @@ def _shunt_card(v: AssessmentView, order: OxygenOrder, context: CardContext) -> 
             f"of {step.value:+.2f}."
         )
     rationale = next((m.rationale for m in v.mechanisms if m.code == "shunt"), "")
-    target = _order_fio2(order)
     paragraphs = [
-        f"**Order**: {md(order.reference)}"
-        + (f", FiO2 {md(target)}" if target else ", FiO2 not stated"),
-        "",
+        *_order_lines(order),
         f"**Why this card**: shunt is likely. {md(rationale)}{md(response)}",
         "",
         "Blood that passes through a shunt never meets the added oxygen, so with a large "

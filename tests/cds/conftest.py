@@ -19,6 +19,7 @@ from jwt.algorithms import ECAlgorithm, RSAAlgorithm
 from service.api import create_app
 from service.config import ServerSettings, Settings
 from service.runtime import Runtime
+from tests.api.conftest import log_lines as log_lines  # the service's JSON log lines
 from tests.api.live import LiveServer
 from tests.cds.ehr import Ehr, ehr_app
 

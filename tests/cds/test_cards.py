@@ -9,6 +9,7 @@ from typing import Any
 
 import pytest
 
+from service.assess.result import MECHANISMS
 from service.cds.cards import (
     CardContext,
     fit,
@@ -23,13 +24,6 @@ from service.cds.orders import OxygenOrder
 from service.cds.view import AssessmentView, FindingLine, MechanismLine, Number
 from tests.cds.spec import check_card
 
-MECHANISMS = (
-    "low-inspired-oxygen",
-    "hypoventilation",
-    "diffusion-limitation",
-    "vq-mismatch",
-    "shunt",
-)
 CONTEXT = CardContext(patient_id="cds-invented-1", encounter_id=None)
 
 
@@ -206,3 +200,19 @@ def test_a_likely_shunt_gives_an_info_card_with_the_response_seen() -> None:
 def test_no_order_card_without_an_oxygen_order_or_without_data() -> None:
     assert order_cards(make(**HYPERCAPNIC, fio2=0.35), [], CONTEXT) == []
     assert order_cards(make(grades={"shunt": "likely"}, paco2=40), [order(0.8)], CONTEXT) == []
+
+
+def test_an_order_value_that_could_not_be_read_is_named_on_the_card() -> None:
+    unreadable = OxygenOrder(
+        "DeviceRequest/o2",
+        "context.draftOrders.entry[0].resource",
+        None,
+        False,
+        None,
+        "venturi-mask",
+        False,
+        ("a parameter (unit 'kg')",),
+    )
+    (card,) = order_cards(make(**HYPERCAPNIC, fio2=0.35), [unreadable], CONTEXT)
+    assert "FiO2 not stated (a parameter (unit 'kg') could not be read)" in card["detail"]
+    assert card["summary"].startswith("Oxygen ordered while PaCO2 is 62 mmHg")

@@ -2,14 +2,11 @@
 
 from __future__ import annotations
 
-import io
-import logging
-from collections.abc import Iterator
+from collections.abc import Callable
 from typing import Any
 
 import pytest
 
-from service.api.logs import JsonFormatter
 from service.cds.cards import OVERRIDE_SYSTEM
 from tests.cds.conftest import AppMaker, TestClient
 
@@ -18,26 +15,12 @@ CARD = "4e0a3a1e-3283-4575-ab82-028d55fe2719"
 SECRET_COMMENT = "Quillborne bed 7 MRN-58301977 was fine on PaO2 48.0371"
 
 
-@pytest.fixture
-def logs() -> Iterator[io.StringIO]:
-    stream = io.StringIO()
-    handler = logging.StreamHandler(stream)
-    handler.setFormatter(JsonFormatter())
-    logger = logging.getLogger("oxyrule")
-    level = logger.level
-    logger.addHandler(handler)
-    logger.setLevel(logging.INFO)
-    yield stream
-    logger.removeHandler(handler)
-    logger.setLevel(level)
-
-
 def item(outcome: str, **extra: Any) -> dict[str, Any]:
     return {"card": CARD, "outcome": outcome, "outcomeTimestamp": "2026-11-21T15:02:00Z"} | extra
 
 
 def test_outcomes_and_reasons_are_counted_and_logged_without_the_comment(
-    cds: AppMaker, logs: io.StringIO
+    cds: AppMaker, log_lines: Callable[[], list[str]]
 ) -> None:
     client: TestClient = cds()
     body = {
@@ -69,7 +52,7 @@ def test_outcomes_and_reasons_are_counted_and_logged_without_the_comment(
     ):
         line = f'oxyrule_cds_feedback_total{{{service},outcome="{outcome}",reason="{reason}"}} 1'
         assert line in metrics
-    text = logs.getvalue()
+    text = "\n".join(log_lines())
     assert text.count('"message":"cds feedback"') == 4
     assert '"reason":"data-wrong"' in text and '"accepted_suggestions":1' in text
     assert "x1" not in text and "Quillborne" not in text and "MRN-58301977" not in text
