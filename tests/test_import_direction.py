@@ -36,6 +36,8 @@ FORBIDDEN: dict[str, tuple[str, ...]] = {
         "service.api",
         "service.hl7v2",
     ),
+    # The CDS Hooks adapter speaks no HTTP framework: the routes in service/api do.
+    "cds": ("fastapi", "starlette", "uvicorn", "service.api", "service.hl7v2"),
 }
 
 

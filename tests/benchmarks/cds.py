@@ -1,17 +1,19 @@
 """CDS Hooks benchmark: ``patient-view`` with prefetch beside ``$assess-hypoxaemia`` (a command).
 
-    python -m tests.benchmarks.cds [--seconds 5] [--rounds 2] [--connections 8] [--latency 300]
+    python -m tests.benchmarks.cds [--seconds 10] [--connections 8] [--latency 300]
 
 Starts two ``oxyrule serve`` processes with one worker each on loopback ports: one that
 trusts an EHR signing with an ES384 key made here (``OXYRULE_CDS_CLIENTS`` with an inline JWK
 Set), one that accepts unsigned CDS calls. The same invented patient (the post-operative demo,
 its times moved to the last hour so that the hooks' recency window keeps them) is sent as a
 Bundle to ``$assess-hypoxaemia`` and as prefetch to ``patient-view``; the JWTs (a fresh
-``jti`` each) are signed before the timed part. For each, in the same run and in alternation:
-the median latency of ``--latency`` sequential requests on one connection, and requests per
-second with ``--connections`` concurrent connections (a bounded asyncio httpx client) for
-``--seconds``. Prints each figure and its ratio to ``$assess-hypoxaemia``. Loopback only,
-bounded in time; the machine may be shared, so compare the ratios.
+``jti`` each) are signed before the timed part. For each, in the same run and interleaved (so
+that whatever else the machine does weighs on all alike): the median latency of
+``--latency`` sequential requests on one connection, and requests per second with
+``--connections`` concurrent connections (a bounded asyncio httpx client, slower than the
+server, so the figures are the client's too) over ``--seconds`` in half-second slices taken
+in turn. Prints each figure and its ratio to ``$assess-hypoxaemia``. Loopback only, bounded
+in time; the machine may be shared, so compare the ratios.
 """
 
 from __future__ import annotations
@@ -44,13 +46,7 @@ SERVICE = "/cds-services/hypoxaemia-mechanism"
 ASSESS = "/fhir/$assess-hypoxaemia"
 KEY = ec.generate_private_key(ec.SECP384R1())
 MAX_SECONDS = 30
-
-
-@dataclass(frozen=True, slots=True)
-class Figures:
-    median_ms: float
-    requests_per_second: float
-    errors: int
+SLICE_S = 0.5
 
 
 def bodies() -> tuple[bytes, bytes]:
@@ -132,51 +128,64 @@ def tokens(base: str, count: int) -> list[str]:
     ]
 
 
-async def measure(
-    url: str,
-    body: bytes,
-    *,
-    signed: list[str] | None,
-    latency: int,
-    connections: int,
-    seconds: float,
-) -> Figures:
-    headers = {"Content-Type": "application/json"}
-    pool = iter(signed or [])
+@dataclass(slots=True)
+class Target:
+    """One thing measured: its URL, body, JWTs (None: unsigned), and what was seen."""
 
-    def with_token() -> dict[str, str]:
-        return headers | ({"Authorization": f"Bearer {next(pool)}"} if signed else {})
+    url: str
+    body: bytes
+    signed: list[str] | None
+    samples: list[float]
+    done: int = 0
+    busy_s: float = 0.0
+    errors: int = 0
 
-    errors = 0
+    def headers(self) -> dict[str, str]:
+        headers = {"Content-Type": "application/json"}
+        if self.signed is not None:
+            headers["Authorization"] = f"Bearer {self.signed.pop()}"
+        return headers
+
+
+async def latency(targets: list[Target], count: int) -> None:
+    """Sequential requests, one connection each, the targets in turn (so that whatever else
+    the machine does weighs on all of them alike)."""
     async with httpx.AsyncClient(timeout=10) as client:
-        samples = []
-        for _ in range(latency):
-            started = time.perf_counter()
-            answer = await client.post(url, content=body, headers=with_token())
-            samples.append((time.perf_counter() - started) * 1000)
-            errors += answer.status_code != 200
+        for _ in range(count):
+            for target in targets:
+                started = time.perf_counter()
+                answer = await client.post(
+                    target.url, content=target.body, headers=target.headers()
+                )
+                target.samples.append((time.perf_counter() - started) * 1000)
+                target.errors += answer.status_code != 200
+
+
+async def throughput(targets: list[Target], connections: int, seconds: float) -> None:
+    """``connections`` concurrent clients on one target at a time, in slices of half a second
+    taken in turn until each target had ``seconds``."""
     limits = httpx.Limits(max_connections=connections, max_keepalive_connections=connections)
-    done = 0
-    stop = time.perf_counter() + seconds
     async with httpx.AsyncClient(limits=limits, timeout=10) as client:
+        for _ in range(max(1, round(seconds / SLICE_S))):
+            for target in targets:
+                stop = time.perf_counter() + SLICE_S
 
-        async def worker() -> None:
-            nonlocal done, errors
-            while time.perf_counter() < stop:
-                answer = await client.post(url, content=body, headers=with_token())
-                done += 1
-                errors += answer.status_code != 200
+                async def worker(target: Target = target, stop: float = stop) -> None:
+                    while time.perf_counter() < stop:
+                        answer = await client.post(
+                            target.url, content=target.body, headers=target.headers()
+                        )
+                        target.done += 1
+                        target.errors += answer.status_code != 200
 
-        began = time.perf_counter()
-        await asyncio.gather(*(worker() for _ in range(connections)))
-        elapsed = time.perf_counter() - began
-    return Figures(statistics.median(samples), done / elapsed, errors)
+                began = time.perf_counter()
+                await asyncio.gather(*(worker() for _ in range(connections)))
+                target.busy_s += time.perf_counter() - began
 
 
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--seconds", type=float, default=5.0, help="throughput run (at most 30)")
-    parser.add_argument("--rounds", type=int, default=2)
+    parser.add_argument("--seconds", type=float, default=10.0, help="throughput, each (<= 30)")
     parser.add_argument("--connections", type=int, default=8)
     parser.add_argument("--latency", type=int, default=300, help="sequential requests")
     args = parser.parse_args()
@@ -199,47 +208,34 @@ def main() -> None:
     )
     if check.status_code != 200 or not check.json()["cards"]:
         raise SystemExit(f"benchmark: patient-view answered {check.status_code} {check.text[:200]}")
-    runs: dict[str, list[Figures]] = {
-        "$assess-hypoxaemia": [],
-        "patient-view": [],
-        "patient-view, ES384 JWT": [],
+    needed = args.latency + int(seconds * 4000)
+    targets = {
+        "$assess-hypoxaemia": Target(open_base + ASSESS, bundle, None, []),
+        "patient-view": Target(open_base + SERVICE, hook, None, []),
+        "patient-view, ES384 JWT": Target(
+            signed_base + SERVICE, hook, tokens(signed_base, needed), []
+        ),
     }
     try:
-        for _ in range(args.rounds):
-            common = {"latency": args.latency, "connections": args.connections, "seconds": seconds}
-            runs["$assess-hypoxaemia"].append(
-                asyncio.run(measure(open_base + ASSESS, bundle, signed=None, **common))
-            )
-            runs["patient-view"].append(
-                asyncio.run(measure(open_base + SERVICE, hook, signed=None, **common))
-            )
-            needed = args.latency + int(seconds * 4000)
-            runs["patient-view, ES384 JWT"].append(
-                asyncio.run(
-                    measure(
-                        signed_base + SERVICE, hook, signed=tokens(signed_base, needed), **common
-                    )
-                )
-            )
+        asyncio.run(latency(list(targets.values()), args.latency))
+        asyncio.run(throughput(list(targets.values()), args.connections, seconds))
     finally:
         for server in servers:
             server.terminate()
             server.wait(timeout=15)
-    floor = runs["$assess-hypoxaemia"]
-    floor_ms = statistics.median(f.median_ms for f in floor)
-    floor_rate = statistics.median(f.requests_per_second for f in floor)
+    floor = targets["$assess-hypoxaemia"]
+    floor_ms, floor_rate = statistics.median(floor.samples), floor.done / floor.busy_s
     sys.stdout.write(
-        f"1 worker each, {args.connections} connections for throughput, "
-        f"{args.latency} sequential requests for latency, {args.rounds} round(s)\n"
+        f"1 worker each; latency: {args.latency} sequential requests each, interleaved; "
+        f"throughput: {args.connections} connections, {seconds:g} s each in interleaved "
+        f"{SLICE_S:g} s slices\n"
         f"{'':<26}{'median ms':>10}{'x assess':>10}{'req/s':>9}{'x assess':>10}{'errors':>8}\n"
     )
-    for name, figures in runs.items():
-        ms = statistics.median(f.median_ms for f in figures)
-        rate = statistics.median(f.requests_per_second for f in figures)
-        errors = sum(f.errors for f in figures)
+    for name, target in targets.items():
+        ms, rate = statistics.median(target.samples), target.done / target.busy_s
         sys.stdout.write(
             f"{name:<26}{ms:>10.2f}{ms / floor_ms:>10.2f}{rate:>9.0f}{rate / floor_rate:>10.2f}"
-            f"{errors:>8}\n"
+            f"{target.errors:>8}\n"
         )
 
 
