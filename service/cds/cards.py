@@ -29,7 +29,16 @@ from typing import Any, Literal
 
 from service.assess.result import CAUTION
 from service.cds.orders import OxygenOrder
-from service.cds.view import AssessmentView, MechanismLine, Number
+from service.cds.view import (
+    HIDDEN_DEFECT,
+    HYPERCAPNIA,
+    NOTABLE,
+    SAFETY,
+    SEVERE,
+    AssessmentView,
+    MechanismLine,
+    Number,
+)
 from service.fhir.codes import LOINC, code_for_fact
 from service.physiology.units import kpa_from_mmhg
 
@@ -69,49 +78,6 @@ DECIDING = {
 }
 GRADE_ORDER = {"likely": 0, "possible": 1, "unlikely": 2, "not-assessable": 3}
 
-FINDING_LABELS = {
-    "possible-venous-sample": "the sample may be venous",
-    "pao2-exceeds-alveolar": "PaO2 is above the alveolar PO2",
-    "specimen-not-arterial": "the gas is not from an arterial sample",
-    "specimen-unknown": "the sample type is not stated",
-    "value-out-of-range": "a value is impossible",
-    "acid-base-inconsistent": "pH, PaCO2 and HCO3 do not agree",
-    "dyshaemoglobin": "carboxy- or methaemoglobin is raised",
-    "occult-hypoxaemia": "SpO2 may overestimate the arterial saturation",
-    "spo2-sao2-discordant": "SpO2 and SaO2 disagree",
-    "fio2-missing": "FiO2 not recorded",
-    "fio2-time-mismatch": "FiO2 not recorded near the time of the gas",
-    "fio2-estimated-from-flow": "FiO2 estimated from device and flow",
-    "paco2-missing": "PaCO2 missing",
-    "no-arterial-gas": "no arterial gas",
-    "pb-assumed-sea-level": "barometric pressure assumed at sea level",
-    "pb-estimated-from-altitude": "barometric pressure estimated from altitude",
-    "hypoxaemia-mild": "mild hypoxaemia",
-    "hypoxaemia-moderate": "moderate hypoxaemia",
-    "hypoxaemia-severe": "severe hypoxaemia",
-    "acute-respiratory-acidosis": "acute respiratory acidosis",
-    "chronic-respiratory-acidosis": "chronic (compensated) respiratory acidosis",
-    "gas-exchange-defect-on-oxygen": "a gas-exchange defect hidden by oxygen",
-    "low-mixed-venous-oxygen": "low mixed venous oxygen",
-    "normal-for-altitude": "normal for the altitude",
-}
-# Findings that make a card a warning: the reading of oxygenation itself may mislead.
-SAFETY_FINDINGS = frozenset(
-    {
-        "occult-hypoxaemia",
-        "spo2-sao2-discordant",
-        "dyshaemoglobin",
-        "acid-base-inconsistent",
-        "acute-respiratory-acidosis",
-    }
-)
-# Findings worth a card even without hypoxaemia.
-NOTABLE_FINDINGS = SAFETY_FINDINGS | {
-    "gas-exchange-defect-on-oxygen",
-    "chronic-respiratory-acidosis",
-    "low-mixed-venous-oxygen",
-}
-HYPERCAPNIA_FINDINGS = frozenset({"acute-respiratory-acidosis", "chronic-respiratory-acidosis"})
 NUMBER_LABELS = {
     "pao2": "PaO2",
     "paco2": "PaCO2",
@@ -226,10 +192,6 @@ def mechanism_name(code: str) -> str:
     return MECHANISM_NAMES.get(code, code.replace("-", " "))
 
 
-def finding_label(code: str) -> str:
-    return FINDING_LABELS.get(code, code.replace("-", " "))
-
-
 def _capital(text: str) -> str:
     return text[:1].upper() + text[1:]
 
@@ -260,12 +222,12 @@ def _trusted(v: AssessmentView) -> bool:
 
 def indicator(v: AssessmentView, *, more_oxygen_with_hypercapnia: bool = False) -> str:
     """The card's urgency, by the rules in the module docstring (and the README)."""
-    if _trusted(v) and v.has("hypoxaemia-severe"):
+    if _trusted(v) and any(SEVERE in f.tags for f in v.findings):
         return "critical"
     if (
         not _trusted(v)
         or more_oxygen_with_hypercapnia
-        or any(f.code in SAFETY_FINDINGS for f in v.findings)
+        or any(SAFETY in f.tags for f in v.findings)
         or v.grade("hypoventilation") == "likely"
     ):
         return "warning"
@@ -278,7 +240,7 @@ def nothing_to_add(v: AssessmentView) -> str | None:
         return "no recent PaO2 or SpO2"
     if (
         v.hypoxaemia != "present"
-        and not any(f.severity == "error" or f.code in NOTABLE_FINDINGS for f in v.findings)
+        and not any(f.severity == "error" or NOTABLE in f.tags for f in v.findings)
         and not any(m.grade == "likely" for m in v.mechanisms)
     ):
         return "no hypoxaemia and nothing notable"
@@ -289,7 +251,7 @@ def _reason(v: AssessmentView) -> str:
     for severity in ("error", "warning"):
         for f in v.findings:
             if f.severity == severity:
-                return finding_label(f.code)
+                return f.label
     return "the data are incomplete"
 
 
@@ -298,13 +260,14 @@ def _likely(v: AssessmentView) -> list[MechanismLine]:
 
 
 def _notable_clause(v: AssessmentView, unit: PressureUnit) -> str:
-    if v.has("gas-exchange-defect-on-oxygen") and (aa := _named(v, "aa_gradient", unit)):
+    tags = {tag for f in v.findings for tag in f.tags}
+    if HIDDEN_DEFECT in tags and (aa := _named(v, "aa_gradient", unit)):
         return f"{aa} shows a gas-exchange defect hidden by oxygen"
-    if any(v.has(code) for code in HYPERCAPNIA_FINDINGS) and (pc := _named(v, "paco2", unit)):
+    if HYPERCAPNIA in tags and (pc := _named(v, "paco2", unit)):
         return f"{pc} with respiratory acidosis"
     for f in v.findings:
-        if f.code in NOTABLE_FINDINGS or f.severity == "error":
-            return finding_label(f.code)
+        if NOTABLE in f.tags or f.severity == "error":
+            return f.label
     likely = _likely(v)
     return f"{mechanism_name(likely[0].code)} is likely" if likely else "see the detail"
 
@@ -407,8 +370,7 @@ def detail(v: AssessmentView, context: CardContext, lead: Sequence[str] = ()) ->
     if v.findings:
         lines.append("**Findings**")
         lines += [
-            f"- {md(_capital(finding_label(f.code)))} ({md(f.severity)}): {md(f.message)}"
-            for f in v.findings
+            f"- {md(_capital(f.label))} ({md(f.severity)}): {md(f.message)}" for f in v.findings
         ]
         lines.append("")
     settle = _settle(v)
@@ -518,7 +480,8 @@ def patient_view_cards(v: AssessmentView, context: CardContext) -> list[Json]:
         return []
     unit = context.pressure_unit
     suggestions = []
-    if v.pattern == "not-classifiable" or (v.has("no-arterial-gas") and v.hypoxaemia == "present"):
+    oximetry_only = v.number("pao2") is None and v.number("spo2") is not None
+    if v.pattern == "not-classifiable" or (oximetry_only and v.hypoxaemia == "present"):
         fio2 = v.number("fio2")
         on = f"on FiO2 {fio2.value:.2f} (as now)" if fio2 is not None else "on a stated FiO2"
         suggestions.append(gas_suggestion(v, context, f"Arterial sample {on}."))
@@ -643,7 +606,7 @@ def order_cards(
         return []
     cards: list[Json] = []
     hypercapnia = v.grade("hypoventilation") in ("likely", "possible") or any(
-        v.has(code) for code in HYPERCAPNIA_FINDINGS
+        HYPERCAPNIA in f.tags for f in v.findings
     )
     breathing = [(o, r) for o, r in more if not o.ventilator]
     if hypercapnia and breathing and v.device != "ventilator":

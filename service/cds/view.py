@@ -3,10 +3,12 @@
 Cards need the verdict pattern, the five grades with their rationale and discriminator, the
 findings, a few deciding numbers of the index gas and the data that would settle an open
 question. ``view`` copies exactly those into an ``AssessmentView`` of plain strings and floats
-in canonical units; ``cards.py`` and ``hooks.py`` read nothing else. When the assessment's
-internals change (enums for its free strings, derived values moved, new finding codes), this
-module is where the adapter is brought up to date, and ``tests/cds/test_view.py`` says whether
-it still reads what the cards need.
+in canonical units, each finding with the words a card uses for it and the roles it plays
+(``FINDING_TAGS``: a warning, worth a card without hypoxaemia, hypercapnia, ...); ``cards.py``
+and ``hooks.py`` read nothing else and name no finding code. When the assessment's internals
+change (enums for its free strings, derived values moved, new finding codes), this module is
+where the adapter is brought up to date, and ``tests/cds/test_view.py`` says whether it still
+reads what the cards need.
 
 Strings are read through ``_text``, so an ``Enum`` member (a ``StrEnum`` or a plain one) and a
 plain string both become the code the contract publishes.
@@ -22,6 +24,58 @@ from types import MappingProxyType
 
 from service.assess.result import Assessment
 from service.intake.model import Quantity
+
+# --- The finding codes of the rule set, as the cards need them -------------------------------
+# Words for each code (a code not listed reads as its words: "fio2-missing" -> "fio2 missing"),
+# and the roles a finding plays on a card (``tags``). New finding codes belong here.
+SAFETY = "safety"  # the oxygen reading itself may mislead: the card is a warning
+NOTABLE = "notable"  # worth a card even without hypoxaemia
+HYPERCAPNIA = "hypercapnia"  # the PaCO2 is raised: more oxygen may hide its rise
+HIDDEN_DEFECT = "hidden-defect"  # a gas-exchange defect that oxygen hides
+SEVERE = "severe-hypoxaemia"  # the rule set's severe band: critical on trusted data
+
+FINDING_LABELS = {
+    "possible-venous-sample": "the sample may be venous",
+    "pao2-exceeds-alveolar": "PaO2 is above the alveolar PO2",
+    "specimen-not-arterial": "the gas is not from an arterial sample",
+    "specimen-unknown": "the sample type is not stated",
+    "value-out-of-range": "a value is impossible",
+    "acid-base-inconsistent": "pH, PaCO2 and HCO3 do not agree",
+    "dyshaemoglobin": "carboxy- or methaemoglobin is raised",
+    "occult-hypoxaemia": "SpO2 may overestimate the arterial saturation",
+    "spo2-sao2-discordant": "SpO2 and SaO2 disagree",
+    "fio2-missing": "FiO2 not recorded",
+    "fio2-time-mismatch": "FiO2 not recorded near the time of the gas",
+    "fio2-estimated-from-flow": "FiO2 estimated from device and flow",
+    "paco2-missing": "PaCO2 missing",
+    "no-arterial-gas": "no arterial gas",
+    "pb-assumed-sea-level": "barometric pressure assumed at sea level",
+    "pb-estimated-from-altitude": "barometric pressure estimated from altitude",
+    "hypoxaemia-mild": "mild hypoxaemia",
+    "hypoxaemia-moderate": "moderate hypoxaemia",
+    "hypoxaemia-severe": "severe hypoxaemia",
+    "acute-respiratory-acidosis": "acute respiratory acidosis",
+    "chronic-respiratory-acidosis": "chronic (compensated) respiratory acidosis",
+    "gas-exchange-defect-on-oxygen": "a gas-exchange defect hidden by oxygen",
+    "low-mixed-venous-oxygen": "low mixed venous oxygen",
+    "normal-for-altitude": "normal for the altitude",
+    "unit-converted": "a unit was converted",
+    "observation-ignored": "an observation was not used",
+    "resource-ignored": "a resource was not read",
+    "time-zone-assumed": "a time without a zone was read as UTC",
+    "time-imprecise": "a date without a day",
+}
+FINDING_TAGS: dict[str, frozenset[str]] = {
+    "occult-hypoxaemia": frozenset({SAFETY, NOTABLE}),
+    "spo2-sao2-discordant": frozenset({SAFETY, NOTABLE}),
+    "dyshaemoglobin": frozenset({SAFETY, NOTABLE}),
+    "acid-base-inconsistent": frozenset({SAFETY, NOTABLE}),
+    "acute-respiratory-acidosis": frozenset({SAFETY, NOTABLE, HYPERCAPNIA}),
+    "chronic-respiratory-acidosis": frozenset({NOTABLE, HYPERCAPNIA}),
+    "gas-exchange-defect-on-oxygen": frozenset({NOTABLE, HIDDEN_DEFECT}),
+    "low-mixed-venous-oxygen": frozenset({NOTABLE}),
+    "hypoxaemia-severe": frozenset({SEVERE}),
+}
 
 # View name -> measured quantity of the index gas (value in the quantity's canonical unit).
 _MEASURED: dict[str, Quantity] = {
@@ -74,11 +128,19 @@ class MechanismLine:
 
 @dataclass(frozen=True, slots=True)
 class FindingLine:
-    """One finding: its code, severity (error, warning, information) and message."""
+    """One finding: its code, severity (error, warning, information), message, the words a
+    card uses for it and the roles it plays (``FINDING_TAGS``)."""
 
     code: str
     severity: str
     message: str
+    label: str = ""
+    tags: frozenset[str] = frozenset()
+
+    @classmethod
+    def of(cls, code: str, severity: str, message: str) -> FindingLine:
+        label = FINDING_LABELS.get(code, code.replace("-", " "))
+        return cls(code, severity, message, label, FINDING_TAGS.get(code, frozenset()))
 
 
 @dataclass(frozen=True, slots=True)
@@ -146,7 +208,7 @@ def view(a: Assessment) -> AssessmentView:
             for m in a.mechanisms
         ),
         findings=tuple(
-            FindingLine(_text(f.code), _text(f.severity), f.message) for f in a.findings
+            FindingLine.of(_text(f.code), _text(f.severity), f.message) for f in a.findings
         ),
         numbers=MappingProxyType(_numbers(a)),
         fio2_source=None if a.index.fio2_source is None else _text(a.index.fio2_source),

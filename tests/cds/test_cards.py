@@ -47,7 +47,7 @@ def make(
             for code, grade in graded.items()
         ),
         findings=tuple(
-            FindingLine(code, severity, f"{code} message") for code, severity in findings
+            FindingLine.of(code, severity, f"{code} message") for code, severity in findings
         ),
         numbers=MappingProxyType(
             {name: Number(value, units.get(name, "mm[Hg]")) for name, value in numbers.items()}

@@ -11,7 +11,8 @@ from pathlib import Path
 import pytest
 
 from service.assess.result import Assessment
-from service.cds.view import view
+from service.cds.view import FINDING_LABELS, FINDING_TAGS, view
+from service.engine.vocabulary import FindingCode
 from service.runtime import Runtime
 from tests.cds.conftest import ROOT
 
@@ -76,3 +77,11 @@ def test_codes_held_as_enums_are_read_as_their_published_values(runtime: Runtime
     v = view(changed)
     assert v.pattern == "single"
     assert v.mechanisms[0].grade == "likely"
+
+
+def test_every_finding_code_of_the_rule_set_has_words_for_a_card() -> None:
+    # A new finding code needs its words (and, if it matters for the indicator or for a card
+    # without hypoxaemia, its tags) in service/cds/view.py: this test says so.
+    missing = [code.value for code in FindingCode if code.value not in FINDING_LABELS]
+    assert missing == []
+    assert set(FINDING_TAGS) <= set(FINDING_LABELS)
