@@ -10,9 +10,10 @@ from __future__ import annotations
 
 from functools import lru_cache
 from pathlib import Path
-from typing import Literal
+from typing import Any, Literal
+from urllib.parse import urlsplit
 
-from pydantic import Field, model_validator
+from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
 from pydantic_settings import BaseSettings, SettingsConfigDict
 
 from service.physiology import constants as c
@@ -114,6 +115,48 @@ JwtAlgorithm = Literal["RS256", "RS384", "ES256", "ES384"]
 JWT_ALGORITHMS: tuple[JwtAlgorithm, ...] = ("RS256", "RS384", "ES256", "ES384")
 
 
+# CDS Hooks: the algorithms the EHR's JWT may be signed with (asymmetric only; the CDS Hooks
+# specification forbids `none` and symmetric algorithms and recommends ES384 and RS384).
+CdsJwtAlgorithm = Literal["ES256", "ES384", "RS256", "RS384"]
+CDS_JWT_ALGORITHMS: tuple[CdsJwtAlgorithm, ...] = ("ES384", "RS384")  # the default allow-list
+
+
+def absolute_http_url(text: str, what: str) -> str:
+    """``text`` as an absolute http(s) URL without query or fragment, trailing ``/`` removed."""
+    parts = urlsplit(text)
+    if parts.scheme not in ("http", "https") or not parts.netloc:
+        raise ValueError(f"{what}: {text!r} is not an absolute http(s) URL")
+    if parts.query or parts.fragment:
+        raise ValueError(f"{what}: {text!r} must have no query or fragment")
+    return text.rstrip("/")
+
+
+class CdsClient(BaseModel):
+    """One EHR (CDS Client) trusted to call the CDS Hooks services, by its JWT ``iss``.
+
+    Its public keys come from ``jwks_urls`` (JWK Set URLs: a JWT's ``jku`` header must be one
+    of them; without ``jku`` every listed set is searched) and/or ``jwks``, a JWK Set given
+    inline (exchanged out of band, as the specification allows when ``jku`` is omitted).
+    """
+
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+    iss: str = Field(min_length=1)
+    jwks_urls: list[str] = Field(default_factory=list)
+    jwks: dict[str, Any] | None = None
+
+    @field_validator("jwks_urls")
+    @classmethod
+    def _urls(cls, urls: list[str]) -> list[str]:
+        return [absolute_http_url(u, "jwks_urls") for u in urls]
+
+    @model_validator(mode="after")
+    def _has_keys(self) -> CdsClient:
+        if not self.jwks_urls and self.jwks is None:
+            raise ValueError(f"client {self.iss!r}: give jwks_urls or an inline jwks")
+        return self
+
+
 class ServerSettings(BaseSettings):
     """How ``oxyrule serve`` listens, limits and authenticates (same ``OXYRULE_`` prefix).
 
@@ -160,6 +203,63 @@ class ServerSettings(BaseSettings):
     mllp_port: int | None = Field(None, ge=1, le=65535, description="MLLP listener port")
     mllp_max_frame_bytes: int = Field(1024 * 1024, ge=1024, le=64 * 1024 * 1024)
     mllp_idle_timeout_s: float = Field(300.0, gt=0, le=86_400)
+    # CDS Hooks (service/cds): who may call, where data may be fetched, and every budget.
+    cds_base_url: str | None = Field(
+        None,
+        description="the public base URL of the service; a JWT's aud must be the exact URL of "
+        "the endpoint called under it ({base}/cds-services/{id})",
+    )
+    cds_clients: list[CdsClient] = Field(
+        default_factory=list, description="JSON list of trusted EHRs: iss, jwks_urls, jwks"
+    )
+    cds_allow_unsigned: bool = Field(
+        False, description="development only: accept CDS calls without a JWT"
+    )
+    cds_jwt_algorithms: list[CdsJwtAlgorithm] = Field(
+        default_factory=lambda: list(CDS_JWT_ALGORITHMS), min_length=1
+    )
+    cds_jwt_clock_skew_s: int = Field(30, ge=0, le=300, description="iat/exp leeway")
+    cds_jwt_max_lifetime_s: int = Field(
+        300, ge=10, le=3600, description="exp - iat at most; bounds the jti replay memory"
+    )
+    cds_jti_cache_size: int = Field(
+        100_000, ge=10, le=10_000_000, description="JWT ids remembered per worker (replay)"
+    )
+    cds_jwks_cache_s: int = Field(3600, ge=10, le=86_400, description="JWK Set kept this long")
+    cds_jwks_min_refresh_s: int = Field(
+        60, ge=0, le=3600, description="an unknown kid refetches a JWK Set at most this often"
+    )
+    cds_jwks_max_stale_s: int = Field(
+        86_400, ge=0, le=7 * 86_400, description="a JWK Set that cannot be refetched stays usable"
+    )
+    cds_jwks_max_bytes: int = Field(65_536, ge=1024, le=4 * 1024 * 1024)
+    cds_fhir_servers: list[str] = Field(
+        default_factory=list,
+        description="JSON list of FHIR base URLs the service may fetch missing prefetch from "
+        "(with the request's fhirAuthorization token); empty: prefetch only",
+    )
+    cds_fetch_timeout_s: float = Field(5.0, gt=0, le=60, description="each FHIR or JWKS request")
+    cds_fetch_deadline_s: float = Field(
+        10.0, gt=0, le=120, description="all FHIR requests of one hook call together"
+    )
+    cds_fetch_max_pages: int = Field(5, ge=1, le=100, description="pages read per prefetch key")
+    cds_fetch_max_bytes: int = Field(
+        4 * 1024 * 1024, ge=1024, le=256 * 1024 * 1024, description="largest FHIR response"
+    )
+    cds_fetch_max_entries: int = Field(
+        1000, ge=1, le=100_000, description="resources read per hook call, all keys together"
+    )
+    cds_fetch_max_connections: int = Field(20, ge=1, le=1000)
+    cds_max_data_age_hours: float = Field(
+        24.0, gt=0, le=24 * 366, description="older observations are not used by the hooks"
+    )
+    cds_max_lung_function_age_days: float = Field(
+        365.0, gt=0, le=3660, description="DLCO and walk-test oximetry older are not used"
+    )
+    cds_bench_url: str | None = Field(
+        None,
+        description="off unless set: a card link to the bench page; {decision_id} is replaced",
+    )
 
     @model_validator(mode="after")
     def _check_mllp(self) -> ServerSettings:
@@ -191,6 +291,46 @@ class ServerSettings(BaseSettings):
                 "OXYRULE_JWT_ISSUER and OXYRULE_JWT_AUDIENCE are required when a JWKS is set"
             )
         return self
+
+    @model_validator(mode="after")
+    def _check_cds(self) -> ServerSettings:
+        if self.cds_clients and self.cds_allow_unsigned:
+            raise ValueError(
+                "OXYRULE_CDS_ALLOW_UNSIGNED and OXYRULE_CDS_CLIENTS: trust signed calls or "
+                "none, not both"
+            )
+        if self.cds_clients and self.cds_base_url is None:
+            raise ValueError(
+                "OXYRULE_CDS_BASE_URL is required with OXYRULE_CDS_CLIENTS (a JWT's aud is "
+                "checked against it)"
+            )
+        issuers = [c.iss for c in self.cds_clients]
+        if len(set(issuers)) != len(issuers):
+            raise ValueError("OXYRULE_CDS_CLIENTS: each iss may appear once")
+        if self.cds_base_url is not None:
+            absolute_http_url(self.cds_base_url, "OXYRULE_CDS_BASE_URL")
+        for url in self.cds_fhir_servers:
+            absolute_http_url(url, "OXYRULE_CDS_FHIR_SERVERS")
+        if self.cds_bench_url is not None:
+            _check_bench_url(self.cds_bench_url)
+        return self
+
+    @property
+    def cds_base(self) -> str | None:
+        """``cds_base_url`` without a trailing slash."""
+        return None if self.cds_base_url is None else self.cds_base_url.rstrip("/")
+
+
+def _check_bench_url(template: str) -> None:
+    try:
+        url = template.format(decision_id="00000000-0000-0000-0000-000000000000")
+    except (KeyError, IndexError, ValueError) as exc:
+        raise ValueError(
+            "OXYRULE_CDS_BENCH_URL: the only placeholder allowed is {decision_id}"
+        ) from exc
+    parts = urlsplit(url)
+    if parts.scheme not in ("http", "https") or not parts.netloc:
+        raise ValueError("OXYRULE_CDS_BENCH_URL: not an absolute http(s) URL")
 
 
 def _is_hex(text: str) -> bool:

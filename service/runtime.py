@@ -79,6 +79,20 @@ class Runtime:
         digest = settings_hash(settings, site_bytes, _bytes(settings.rules_dir / CONCEPT_MAP_FILE))
         return cls(settings, ruleset, concept_map, digest, site)
 
+    def read(self, data: object) -> Intake:
+        """A parsed FHIR Bundle as an ``Intake`` (validated as FHIR R4B first in strict mode).
+
+        Raises:
+            BundleError: the input cannot be read; its ``operation_outcome()`` says where.
+        """
+        if self.settings.strict_fhir:
+            from service.fhir.models import validate_strict
+
+            problems = [p for p in validate_strict(data) if p.severity in ("fatal", "error")]
+            if problems:
+                raise BundleError(problems)
+        return read_bundle(data, concept_map=self.concept_map)
+
     def assess_intake(
         self, intake: Intake, *, now: datetime | None = None, decision_id: str | None = None
     ) -> Assessment:
@@ -121,12 +135,6 @@ class Runtime:
         Raises:
             BundleError: the input cannot be assessed; its ``operation_outcome()`` says where.
         """
-        if self.settings.strict_fhir:
-            from service.fhir.models import validate_strict
-
-            problems = [p for p in validate_strict(data) if p.severity in ("fatal", "error")]
-            if problems:
-                raise BundleError(problems)
-        intake = read_bundle(data, concept_map=self.concept_map)
+        intake = self.read(data)
         assessment = self.assess_intake(intake, now=now, decision_id=decision_id)
         return self.render(assessment, pressure_unit=pressure_unit)

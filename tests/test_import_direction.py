@@ -19,7 +19,13 @@ SERVICE = ROOT / "service"
 
 _WEB = ("fastapi", "starlette", "uvicorn")
 _FHIR_MODELS = ("fhir", "fhir_core")
-_ADAPTERS = ("service.fhir", "service.api", "service.hl7v2", "service.workbench")
+_ADAPTERS = (
+    "service.fhir",
+    "service.api",
+    "service.hl7v2",
+    "service.workbench",
+    "service.cds",
+)
 
 FORBIDDEN: dict[str, tuple[str, ...]] = {
     "physiology": (
@@ -38,6 +44,8 @@ FORBIDDEN: dict[str, tuple[str, ...]] = {
     "terminology": (*_WEB, *_FHIR_MODELS, *_ADAPTERS, "service.assess", "service.runtime"),
     "assess": (*_WEB, *_FHIR_MODELS, *_ADAPTERS, "service.runtime"),
     "hl7v2": (*_FHIR_MODELS, "service.fhir", "service.api"),
+    # The CDS Hooks adapter speaks no HTTP framework: the routes in service/api do.
+    "cds": (*_WEB, "service.api", "service.hl7v2"),
 }
 
 

@@ -23,9 +23,10 @@ from service.api.errors import ApiError, outcome_response, status_outcome
 from service.api.middleware import CredentialsMiddleware, RequestMiddleware
 from service.api.openapi import complete
 from service.api.reload import handle_sighup, install_runtime, stop_handling_sighup
-from service.api.routes import assess, conformance, health, hl7v2
+from service.api.routes import assess, cds, conformance, health, hl7v2
 from service.api.state import ServiceState
 from service.assess.result import CAUTION
+from service.cds.hooks import CdsHooks
 from service.config import ServerSettings, Settings
 from service.runtime import Runtime
 
@@ -85,6 +86,13 @@ def _openapi(app: FastAPI) -> dict[str, Any]:
             "scheme": "bearer",
             "description": "A static API key or a JWT, when the service is configured for them",
         }
+        schemes["cdsClientJwt"] = {
+            "type": "http",
+            "scheme": "bearer",
+            "bearerFormat": "JWT",
+            "description": "CDS Hooks: the EHR's signed JWT (ES384 or RS384), aud the exact URL "
+            "of the endpoint called; not needed when OXYRULE_CDS_ALLOW_UNSIGNED is set",
+        }
         app.openapi_schema = schema
     return app.openapi_schema
 
@@ -101,12 +109,14 @@ def create_app(
         RuleSetError, SiteFileError, LocatedError: the rule set (or site file, code map) is
             broken: the service must not start.
         AuthConfigError: the authentication settings cannot be used.
+        CdsConfigError: a CDS client's inline JWK Set cannot be used.
     """
     server = server or ServerSettings()
     settings = settings or (runtime.settings if runtime is not None else Settings())
     runtime = runtime or Runtime.load(settings)
     auth = Authenticator.from_settings(server)
-    service = ServiceState(runtime=runtime, server=server, auth=auth, settings=settings)
+    hooks = CdsHooks(server)
+    service = ServiceState(runtime=runtime, server=server, auth=auth, settings=settings, cds=hooks)
     install_runtime(service, runtime)
 
     @asynccontextmanager
@@ -132,6 +142,7 @@ def create_app(
             if listener is not None:
                 listener.close()
                 await listener.wait_closed()
+            await hooks.aclose()
 
     app = FastAPI(
         title="oxyrule",
@@ -147,6 +158,7 @@ def create_app(
     app.include_router(assess.router)
     app.include_router(conformance.router)
     app.include_router(hl7v2.router)
+    app.include_router(cds.router)
     app.include_router(health.router)
     app.add_exception_handler(ApiError, _api_error)
     app.add_exception_handler(HTTPException, _http_error)

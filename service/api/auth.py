@@ -28,9 +28,7 @@ import orjson
 
 from service.api.errors import ApiError, HttpIssueType
 from service.config import ServerSettings
-
-ASYMMETRIC = {"RS256": "RSA", "RS384": "RSA", "ES256": "EC", "ES384": "EC"}
-EC_CURVES = {"ES256": "P-256", "ES384": "P-384"}
+from service.jwk import ASYMMETRIC, key_fits
 
 
 class AuthConfigError(ValueError):
@@ -93,11 +91,7 @@ class JwtVerifier:
         fitting = [
             pyjwk
             for jwk, pyjwk in self.keys
-            if jwk.get("kty") == ASYMMETRIC[alg]
-            and jwk.get("alg", alg) == alg
-            and jwk.get("use", "sig") == "sig"
-            and (alg not in EC_CURVES or jwk.get("crv") == EC_CURVES[alg])
-            and (kid is None or jwk.get("kid") == kid)
+            if key_fits(jwk, alg) and (kid is None or jwk.get("kid") == kid)
         ]
         if len(fitting) != 1:
             reason = "no key" if not fitting else "more than one key (send a 'kid')"

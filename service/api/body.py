@@ -34,13 +34,13 @@ def _too_large(limit: int, expression: str) -> ApiError:
     )
 
 
-def too_slow(timeout_s: float, what: str = "the body") -> ApiError:
+def too_slow(timeout_s: float, what: str = "the body", expression: str = "Bundle") -> ApiError:
     """The 408 refusal of a body (or NDJSON line) that did not arrive within the timeout."""
     return ApiError.issue(
         408,
         "timeout",
         f"{what} did not arrive within {timeout_s:g} s (setting OXYRULE_BODY_TIMEOUT_S)",
-        "Bundle",
+        expression,
         headers={"Connection": "close"},
     )
 
@@ -61,9 +61,12 @@ def declared_length(request: Request) -> int | None:
     return int(text)
 
 
-async def read_bounded(request: Request, limit: int, timeout_s: float) -> bytes:
+async def read_bounded(
+    request: Request, limit: int, timeout_s: float, expression: str = "Bundle"
+) -> bytes:
     """The whole body, refused with 413 as soon as it is known to exceed ``limit`` bytes, and
-    with 408 when it has not all arrived ``timeout_s`` seconds after the first read."""
+    with 408 when it has not all arrived ``timeout_s`` seconds after the first read; the
+    refusal locates the body at ``expression`` (the resource or document it should hold)."""
     length = declared_length(request)
     if length is not None and length > limit:
         raise _too_large(limit, "http.Content-Length")
@@ -74,10 +77,10 @@ async def read_bounded(request: Request, limit: int, timeout_s: float) -> bytes:
             async for chunk in request.stream():
                 size += len(chunk)
                 if size > limit:
-                    raise _too_large(limit, "Bundle")
+                    raise _too_large(limit, expression)
                 chunks.append(chunk)
     except TimeoutError:
-        raise too_slow(timeout_s) from None
+        raise too_slow(timeout_s, expression=expression) from None
     return b"".join(chunks)
 
 

@@ -36,6 +36,14 @@ FIELDS = (
     "setting",
     "problem",
     "previous",
+    "cds",
+    "cds_service",
+    "outcome",
+    "reason",
+    "accepted_suggestions",
+    "card",
+    "cards",
+    "indicator",
 )
 
 REQUEST_LOGGER = "oxyrule.http"
@@ -65,7 +73,8 @@ def log_config(level: str) -> dict[str, Any]:
 
     Uvicorn's access log is off (the app writes its own line per request); its error log keeps
     its fixed messages, formatted as JSON. python-hl7's loggers are silenced: they quote the
-    fields they cannot read, which hold patient data.
+    fields they cannot read, which hold patient data; so are httpx's, whose request lines
+    carry a patient id in the URL.
     """
     handler = {"class": "logging.StreamHandler", "formatter": "json", "stream": "ext://sys.stderr"}
     loggers = {
@@ -78,6 +87,10 @@ def log_config(level: str) -> dict[str, Any]:
 
     for logger in hl7_library_loggers():
         loggers[logger.name] = {"handlers": [], "level": "CRITICAL", "propagate": False}
+    # httpx and httpcore (the CDS Hooks reads of an EHR's FHIR server) log each request's URL,
+    # which holds the patient's id: never written.
+    for name in ("httpx", "httpcore"):
+        loggers[name] = {"handlers": [], "level": "CRITICAL", "propagate": False}
     return {
         "version": 1,
         "disable_existing_loggers": False,

@@ -114,6 +114,24 @@ class Metrics:
             "oxyrule_inputs_rejected_total",
             "Input Bundles (or NDJSON lines) refused with an OperationOutcome, by issue code.",
         )
+        self.cds_cards = Counter(
+            "oxyrule_cds_cards_total", "CDS Hooks cards returned, by service and indicator."
+        )
+        self.cds_quiet = Counter(
+            "oxyrule_cds_no_card_total", "CDS Hooks calls answered with no card, by service."
+        )
+        self.cds_feedback = Counter(
+            "oxyrule_cds_feedback_total",
+            "CDS Hooks card feedback, by service, outcome and override reason code.",
+        )
+        self.cds_refused = Counter(
+            "oxyrule_cds_refused_total",
+            "CDS Hooks calls refused, by HTTP status and issue code.",
+        )
+        self.cds_reads = Counter(
+            "oxyrule_cds_fhir_reads_total",
+            "Prefetch keys read from the EHR's FHIR server (not sent by the client), by key.",
+        )
         self.ruleset = Gauge(
             "oxyrule_ruleset_info", "The loaded rule set (always 1), labelled with its identity."
         )
@@ -130,6 +148,19 @@ class Metrics:
     def rejection(self, code: str) -> None:
         self.rejected.inc((("code", code),))
 
+    def cds_answer(self, service: str, indicators: Iterable[str], fetched: Iterable[str]) -> None:
+        count = 0
+        for indicator in indicators:
+            self.cds_cards.inc((("service", service), ("indicator", indicator)))
+            count += 1
+        if not count:
+            self.cds_quiet.inc((("service", service),))
+        for key in fetched:
+            self.cds_reads.inc((("key", key),))
+
+    def cds_refusal(self, status: int, code: str) -> None:
+        self.cds_refused.inc((("status", str(status)), ("code", code)))
+
     def render(self) -> str:
         metrics = (
             self.requests,
@@ -138,6 +169,11 @@ class Metrics:
             self.verdicts,
             self.findings,
             self.rejected,
+            self.cds_cards,
+            self.cds_quiet,
+            self.cds_feedback,
+            self.cds_refused,
+            self.cds_reads,
             self.ruleset,
         )
         return "\n".join(line for metric in metrics for line in metric.lines()) + "\n"

@@ -37,12 +37,17 @@ from starlette.types import ASGIApp, Message, Receive, Scope, Send
 from service.api.errors import ApiError, outcome, outcome_response
 from service.api.logs import REQUEST_LOGGER
 from service.api.state import RequestRecord, ServiceState
+from service.cds.services import SERVICES
 
 log = logging.getLogger(REQUEST_LOGGER)
 
 ASSESS_PATH = "/fhir/$assess-hypoxaemia"
 V2_PATH = "/hl7v2"
-LIMITED = frozenset({ASSESS_PATH, V2_PATH})  # the routes that assess: counted in flight
+CDS_PATH = "/cds-services"
+CDS_SERVICE_PATHS = frozenset(f"{CDS_PATH}/{service_id}" for service_id in SERVICES)
+CDS_FEEDBACK_PATHS = frozenset(f"{path}/feedback" for path in CDS_SERVICE_PATHS)
+# The routes that assess: counted in flight.
+LIMITED = frozenset({ASSESS_PATH, V2_PATH}) | CDS_SERVICE_PATHS
 # Open without credentials even when authentication is configured.
 PUBLIC = frozenset({"/healthz", "/readyz", "/fhir/metadata"})
 CLIENT_CLOSED = 499  # the client closed the connection before the answer (proxies' convention)
@@ -50,6 +55,9 @@ ROUTES = frozenset(
     {
         ASSESS_PATH,
         V2_PATH,
+        CDS_PATH,
+        *CDS_SERVICE_PATHS,
+        *CDS_FEEDBACK_PATHS,
         "/fhir/metadata",
         "/fhir/OperationDefinition/assess-hypoxaemia",
         "/healthz",
@@ -74,9 +82,14 @@ def _header(scope: Scope, name: bytes) -> str | None:
     return None
 
 
+def is_cds(path: str) -> bool:
+    """A CDS Hooks path: authenticated by the EHR's signed JWT instead (``service.cds.trust``)."""
+    return path == CDS_PATH or path.startswith(CDS_PATH + "/")
+
+
 def needs_credentials(scope: Scope) -> bool:
     """Whether this request must carry credentials (when authentication is configured)."""
-    if scope["path"] in PUBLIC:
+    if scope["path"] in PUBLIC or is_cds(scope["path"]):
         return False
     preflight = scope["method"] == "OPTIONS" and _header(scope, b"access-control-request-method")
     return not preflight

@@ -9,7 +9,9 @@ so ``complete`` rewrites the generated document:
 * the assessing routes can answer 429 (too many in flight), 408 (body too slow) and 413;
 * each answer names its real media types (FHIR JSON and its ``_format`` alternatives, NDJSON,
   HL7 v2 ER7, Prometheus text) and a small schema of its body;
-* ``POST /hl7v2``, which reads its body itself, gets its request body and parameters.
+* ``POST /hl7v2``, which reads its body itself, gets its request body and parameters;
+* the CDS Hooks routes get their bodies, answers (discovery, cards, 412) and their own
+  security scheme: the EHR's signed JWT, not the service's API keys.
 
 ``tests/api/test_openapi_fuzz.py`` holds the service to this document with schemathesis.
 """
@@ -20,9 +22,10 @@ import copy
 from typing import Any
 
 from service.api.media import FHIR_JSON, FHIR_NDJSON, JSON, NDJSON
-from service.api.middleware import ASSESS_PATH, LIMITED, PUBLIC, V2_PATH
+from service.api.middleware import ASSESS_PATH, CDS_PATH, LIMITED, PUBLIC, V2_PATH, is_cds
 from service.api.routes.health import PROMETHEUS_TEXT
 from service.api.routes.hl7v2 import V2_MEDIA_TYPES
+from service.cds.services import SERVICES
 
 Schema = dict[str, Any]
 
@@ -185,6 +188,125 @@ V2_REQUEST: Schema = {
 }
 
 
+# CDS Hooks 2.0: the discovery document, the cards answer, the request and feedback bodies.
+CDS_SERVICE_PATH = CDS_PATH + "/{service_id}"
+CDS_FEEDBACK_PATH = CDS_SERVICE_PATH + "/feedback"
+CARD: Schema = {
+    "type": "object",
+    "required": ["summary", "indicator", "source"],
+    "properties": {
+        "uuid": {"type": "string"},
+        "summary": {"type": "string", "minLength": 1, "maxLength": 139},
+        "detail": {"type": "string"},
+        "indicator": {"enum": ["info", "warning", "critical"]},
+        "source": {
+            "type": "object",
+            "required": ["label"],
+            "properties": {"label": {"type": "string", "minLength": 1}},
+        },
+        "suggestions": {"type": "array", "items": {"type": "object", "required": ["label"]}},
+        "selectionBehavior": {"enum": ["at-most-one", "any"]},
+        "overrideReasons": {
+            "type": "array",
+            "items": {"type": "object", "required": ["code", "system", "display"]},
+        },
+        "links": {
+            "type": "array",
+            "items": {"type": "object", "required": ["label", "url", "type"]},
+        },
+    },
+}
+CARDS: Schema = {
+    "type": "object",
+    "required": ["cards"],
+    "properties": {"cards": {"type": "array", "items": CARD}},
+}
+DISCOVERY: Schema = {
+    "type": "object",
+    "required": ["services"],
+    "properties": {
+        "services": {
+            "type": "array",
+            "items": {"type": "object", "required": ["hook", "description", "id"]},
+        }
+    },
+}
+EXAMPLE_HOOK: Schema = {
+    "hook": "patient-view",
+    "hookInstance": "0b9e5f0c-3c1e-4a52-9d0e-6a3f1c2b7d41",
+    "context": {"userId": "Practitioner/example", "patientId": "example"},
+    "prefetch": {
+        "patient": {"resourceType": "Patient", "id": "example", "birthDate": "1958-03-14"},
+        "bloodGases": {"resourceType": "Bundle", "type": "searchset", "entry": []},
+        "oximetry": {"resourceType": "Bundle", "type": "searchset", "entry": []},
+        "oxygenSettings": {"resourceType": "Bundle", "type": "searchset", "entry": []},
+    },
+}
+EXAMPLE_FEEDBACK: Schema = {
+    "feedback": [
+        {
+            "card": "9368d37b-283f-44a0-93ea-547cebab93ed",
+            "outcome": "overridden",
+            "overrideReason": {
+                "reason": {
+                    "system": "https://oxyrule.org/fhir/CodeSystem/cds-override-reason",
+                    "code": "already-addressed",
+                }
+            },
+            "outcomeTimestamp": "2026-11-21T15:02:00Z",
+        }
+    ]
+}
+CDS_SECURITY: list[dict[str, list[str]]] = [{}, {"cdsClientJwt": []}]
+CDS_ANSWERS: dict[tuple[str, str], dict[str, Schema]] = {
+    ("get", CDS_PATH): {
+        "200": {"description": "The services offered", "content": {JSON: {"schema": DISCOVERY}}},
+    },
+    ("post", CDS_SERVICE_PATH): {
+        "200": {
+            "description": "The cards (an empty list when there is nothing to add)",
+            "content": {JSON: {"schema": CARDS}},
+        },
+        "400": _outcome("Not JSON, or a request that is not a valid hook call (OperationOutcome)"),
+        "404": _outcome("No service with this id (OperationOutcome)"),
+        "412": _outcome(
+            "Required data neither prefetched nor readable from fhirServer (OperationOutcome)"
+        ),
+        "415": _outcome("Not application/json (OperationOutcome)"),
+        "422": _outcome("Data that cannot be read, or about another patient (OperationOutcome)"),
+    },
+    ("post", CDS_FEEDBACK_PATH): {
+        "200": {"description": "Feedback received (no body)"},
+        "400": _outcome("Not JSON, or not a feedback body (OperationOutcome)"),
+        "404": _outcome("No service with this id (OperationOutcome)"),
+        "415": _outcome("Not application/json (OperationOutcome)"),
+    },
+}
+
+
+def _cds(operation: Schema, method: str, path: str) -> None:
+    """A CDS Hooks operation: its answers, body, service ids and the EHR's JWT."""
+    responses = operation["responses"]
+    responses.update(copy.deepcopy(CDS_ANSWERS.get((method, path), {})))
+    responses.setdefault(
+        "401", _outcome("The EHR's signed JWT is missing or not valid (OperationOutcome)")
+    )
+    operation["security"] = copy.deepcopy(CDS_SECURITY)
+    for parameter in operation.get("parameters", ()):
+        if parameter.get("name") == "service_id":
+            parameter["schema"] = {"type": "string", "enum": list(SERVICES)}
+    if method == "post":
+        example = EXAMPLE_FEEDBACK if path == CDS_FEEDBACK_PATH else EXAMPLE_HOOK
+        operation["requestBody"] = {
+            "required": True,
+            "content": {JSON: {"schema": {"type": "object"}, "example": copy.deepcopy(example)}},
+        }
+        responses.setdefault("408", _outcome("The body did not arrive in time (OperationOutcome)"))
+        responses.setdefault("413", _outcome("Body over the size limit (OperationOutcome)"))
+    if path == CDS_SERVICE_PATH:
+        responses.setdefault("429", _outcome("Too many assessments in progress (OperationOutcome)"))
+
+
 def _body_limits(operation: Schema) -> None:
     responses = operation["responses"]
     responses.setdefault("408", _outcome("The body did not arrive in time (OperationOutcome)"))
@@ -200,6 +322,9 @@ def complete(generated: Schema) -> Schema:
             responses = operation.setdefault("responses", {})
             if "HTTPValidationError" in str(responses.get("422")):
                 del responses["422"]  # FastAPI's validation error: this service answers 400
+            if is_cds(path):
+                _cds(operation, method, path)
+                continue
             responses.update(copy.deepcopy(ANSWERS.get((method, path), {})))
             if (method, path) == ("post", V2_PATH):
                 operation.update(copy.deepcopy(V2_REQUEST))

@@ -216,9 +216,15 @@ def serve(
             "workers": server.workers,
             "ruleset": f"{ruleset.id}|{ruleset.version}",
             "auth": ",".join(service.auth.methods) or "off",
+            "cds": service.cds.trust.mode,
             "mllp_port": server.mllp_port,
         },
     )
+    if service.cds.trust.mode == "unsigned":
+        logging.getLogger(SERVER_LOGGER).warning(
+            "cds hooks accept calls without the EHR's JWT (OXYRULE_CDS_ALLOW_UNSIGNED): "
+            "development only"
+        )
     common: dict[str, Any] = {
         "host": server.host,
         "port": server.port,

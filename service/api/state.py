@@ -8,6 +8,7 @@ from typing import Any
 
 from service.api.auth import Authenticator
 from service.api.metrics import Metrics
+from service.cds.hooks import CdsHooks
 from service.config import ServerSettings, Settings
 from service.runtime import Runtime
 
@@ -24,6 +25,7 @@ class ServiceState:
     server: ServerSettings
     auth: Authenticator
     settings: Settings  # what the runtime was loaded from: a reload loads it again
+    cds: CdsHooks  # the CDS Hooks adapter: EHR trust, JWK Sets, replay memory, HTTP client
     metrics: Metrics = field(default_factory=Metrics)
     conformance: dict[str, dict[str, Any]] = field(default_factory=dict)
     in_flight: int = 0

@@ -214,6 +214,12 @@ ROUTES: list[tuple[str, str, dict[str, str], bytes, bool]] = [
     ("POST", ASSESS, FHIR_JSON, ALTITUDE.read_bytes(), True),
     ("POST", "/hl7v2", {"Content-Type": "x-application/hl7-v2+er7"}, V2_MESSAGE, True),
 ]
+# The CDS Hooks routes answer to the EHR's signed JWT, not to these credentials (tests/cds/).
+CDS_ROUTES = [
+    ("GET", "/cds-services"),
+    ("POST", "/cds-services/{service_id}"),
+    ("POST", "/cds-services/{service_id}/feedback"),
+]
 
 
 def test_the_route_table_of_this_test_covers_every_route_of_the_app(make_app: AppFactory) -> None:
@@ -229,7 +235,15 @@ def test_the_route_table_of_this_test_covers_every_route_of_the_app(make_app: Ap
         for method in set(getattr(route, "methods", None) or ()) - {"HEAD"}
     }
     served = documented | undocumented
-    assert served == {(method, path) for method, path, *_ in ROUTES}
+    assert served == {(method, path) for method, path, *_ in ROUTES} | set(CDS_ROUTES)
+
+
+def test_the_service_credentials_do_not_open_the_cds_hooks_routes(secured: httpx.Client) -> None:
+    # No CDS client is configured: API keys and the service's own JWTs are not EHR JWTs.
+    for credentials in (f"Bearer {API_KEY}", f"Bearer {token()}"):
+        answer = secured.get("/cds-services", headers={"Authorization": credentials})
+        assert answer.status_code == 401
+        assert "OXYRULE_CDS_CLIENTS" in issue(answer.json())["diagnostics"]
 
 
 @pytest.mark.parametrize(

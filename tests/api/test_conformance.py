@@ -72,6 +72,9 @@ def test_openapi_documents_every_route_with_its_docstring(client: TestClient) ->
         "/readyz",
         "/metrics",
         "/hl7v2",
+        "/cds-services",
+        "/cds-services/{service_id}",
+        "/cds-services/{service_id}/feedback",
     }
     assert "not a diagnosis" in paths["/hl7v2"]["post"]["description"]
     operation = paths["/fhir/$assess-hypoxaemia"]["post"]

@@ -9,7 +9,10 @@ minute in all.
 
 Documented exclusions: none of the checks is disabled; schemathesis' ``ignored_auth`` and
 stateful checks are not run (authentication is off here and tested route by route in
-``test_auth.py``; the service keeps no state between requests).
+``test_auth.py``, the CDS Hooks JWT in ``tests/cds/test_trust.py``; the service keeps no state
+between requests). The CDS Hooks routes accept unsigned calls here
+(``OXYRULE_CDS_ALLOW_UNSIGNED``), so the fuzzer reaches their request reading, not only the
+401 of a missing JWT.
 """
 
 from __future__ import annotations
@@ -54,7 +57,7 @@ CHECKS = [
     content_type_conformance,
     response_schema_conformance,
 ]
-APP = create_app(Settings(), ServerSettings(), runtime=Runtime.load())
+APP = create_app(Settings(), ServerSettings(cds_allow_unsigned=True), runtime=Runtime.load())
 SCHEMA = schemathesis.openapi.from_asgi("/openapi.json", APP)
 CASES: dict[tuple[str, int], int] = {}  # (operation, status): cases, for the record
 
