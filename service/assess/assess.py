@@ -145,13 +145,15 @@ def evaluate_gas(
     settings: Settings,
     extra: dict[str, FactValue],
     input_errors: list[str],
+    serial: dict[str, float] | None = None,
 ) -> tuple[Evaluation, Verdict, tuple[str, ...]]:
     """The index gas's evaluation as its inputs were sent, the verdict that holds across the
     ranges of its uncertain inputs, and those inputs in words."""
     parameter = ruleset.parameters.get(ALVEOLAR_TOLERANCE)
     tolerance = parameter.value if parameter is not None else 0.0
     ranges = input_ranges(index, tolerance_mmhg=tolerance, settings=settings)
-    common = {**serial_facts(gases, settings=settings), **extra}
+    found = serial_facts(gases, settings=settings) if serial is None else serial
+    common = {**found, **extra}
     facts = (
         {**derive_again(index, ranges.representative, settings=settings), **common}
         if ranges.representative
@@ -204,6 +206,7 @@ def assess(
         Finding(i.code, Severity(i.severity.value), i.message, expression=i.expression)
         for i in intake.issues
     ]
+    serial = serial_facts(gases, settings=settings)
     evaluation, verdict, uncertain = evaluate_gas(
         index,
         gases,
@@ -211,6 +214,7 @@ def assess(
         settings=settings,
         extra=_specimen_flags(pairing),
         input_errors=[f.code for f in intake_findings if f.severity is Severity.ERROR],
+        serial=serial,
     )
     rule_findings = [
         Finding(f.code.value, f.severity, f.rationale, rule=f.rule) for f in verdict.findings
@@ -247,4 +251,5 @@ def assess(
         evaluation=evaluation,
         uncertain_inputs=uncertain,
         gas_exchange=verdict.gas_exchange,
+        serial=serial,
     )

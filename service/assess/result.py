@@ -2,7 +2,8 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from collections.abc import Mapping
+from dataclasses import dataclass, field
 from datetime import datetime
 from enum import StrEnum
 
@@ -87,3 +88,6 @@ class Assessment:
     uncertain_inputs: tuple[str, ...] = ()
     """Inputs known only as a range and assessed at its ends, in words (empty: none)."""
     gas_exchange: GasExchangeStatus = GasExchangeStatus.UNKNOWN
+    serial: Mapping[str, float] = field(default_factory=dict)
+    """The response to oxygen over the gases (``service.assess.serial``), in catalogue units:
+    the FiO2 step, the PaO2 change, the venous admixture at each FiO2; empty with one gas."""

@@ -39,8 +39,8 @@ from service.cds.view import (
     MechanismLine,
     Number,
 )
-from service.fhir.codes import LOINC, code_for_fact
 from service.physiology.units import kpa_from_mmhg
+from service.terminology.codes import LOINC, code_for_fact
 
 Json = dict[str, Any]
 PressureUnit = Literal["mm[Hg]", "kPa"]
@@ -76,6 +76,13 @@ DECIDING = {
     "vq-mismatch": "aa_gradient",
     "shunt": "shunt_fraction",
 }
+# A shunt's size, best first: the shunt fraction on near-pure oxygen, the venous admixture
+# below it (shunt plus low-V/Q units), the least shunt the dissolved oxygen proves.
+SHUNT_SIZES = (
+    ("shunt_fraction", "Shunt about"),
+    ("venous_admixture", "Venous admixture about"),
+    ("shunt_at_least", "Shunt at least"),
+)
 GRADE_ORDER = {"likely": 0, "possible": 1, "unlikely": 2, "not-assessable": 3}
 
 NUMBER_LABELS = {
@@ -93,6 +100,8 @@ NUMBER_LABELS = {
     "pf_ratio": "P/F",
     "sf_ratio": "S/F",
     "shunt_fraction": "shunt fraction",
+    "venous_admixture": "venous admixture",
+    "shunt_at_least": "shunt at least",
     "haemoglobin": "Hb",
     "oxygen_flow": "O2 flow",
     "barometric_pressure": "barometric pressure",
@@ -111,6 +120,7 @@ DETAIL_NUMBERS = (
     "pf_ratio",
     "sf_ratio",
     "shunt_fraction",
+    "venous_admixture",
     "haemoglobin",
 )
 FACT_LABELS = {
@@ -160,7 +170,7 @@ def shown(name: str, n: Number, unit: PressureUnit) -> str:
         text = f"{n.value * 100:.0f} %"
     elif n.unit == "%":
         text = f"{n.value:.0f} %"
-    elif name in ("fio2", "a_a_ratio", "ph", "fio2_change"):
+    elif name in ("fio2", "a_a_ratio", "ph", "fio2_step"):
         text = f"{n.value:.2f}"
     elif name == "haemoglobin":
         text = f"{n.value:.1f} g/dL"
@@ -172,6 +182,8 @@ def shown(name: str, n: Number, unit: PressureUnit) -> str:
 
 
 def _named(v: AssessmentView, name: str, unit: PressureUnit) -> str | None:
+    if name == "shunt_fraction":
+        name = next((key for key, _ in SHUNT_SIZES if v.number(key) is not None), name)
     n = v.number(name)
     if n is None:
         return None
@@ -290,6 +302,13 @@ def summary(v: AssessmentView, unit: PressureUnit) -> str:
         number = _named(v, DECIDING.get(m.code, "pao2"), unit)
         lead = f"{_capital(mechanism_name(m.code))} is the likely cause of hypoxaemia"
         return fit(f"{lead}: {number}, with {where}.", f"{lead}: {number}.", f"{lead}.")
+    if v.pattern == "mixed" and len(likely) == 1:
+        # One cause that leaves the A-a gradient normal, beside a defect of open type.
+        lead = f"{_capital(mechanism_name(likely[0].code))} is likely"
+        return fit(
+            f"{lead}, beside a gas-exchange defect of open type: {where}.",
+            f"{lead}, beside a gas-exchange defect of open type.",
+        )
     if v.pattern == "mixed" and likely:
         names = " and ".join(mechanism_name(m.code) for m in likely)
         return fit(
@@ -565,16 +584,16 @@ def _masking_card(v: AssessmentView, order: OxygenOrder, known: bool, context: C
 
 def _shunt_card(v: AssessmentView, order: OxygenOrder, context: CardContext) -> Json:
     unit = context.pressure_unit
-    shunt = v.number("shunt_fraction")
-    size = f"Shunt about {shunt.value:.0f} %" if shunt is not None else "A likely shunt"
+    found = next(((v.number(key), words) for key, words in SHUNT_SIZES if v.number(key)), None)
+    size = f"{found[1]} {found[0].value:.0f} %" if found and found[0] else "A likely shunt"
     to = f"raising FiO2 to {order.fio2:.2f}" if order.fio2 is not None else "more oxygen"
     text = fit(f"{size}: {to} will raise PaO2 little.", f"{size}: more oxygen will help little.")
     response = ""
-    step, change = v.number("fio2_change"), v.number("pao2_change")
+    step, change = v.number("fio2_step"), v.number("pao2_change")
     if step is not None and change is not None:
         response = (
-            f" Already seen: PaO2 changed by {_pressure(change.value, unit)} for an FiO2 change "
-            f"of {step.value:+.2f}."
+            f" Already seen: PaO2 changed by {_pressure(change.value, unit)} for an FiO2 step "
+            f"of {step.value:.2f}."
         )
     rationale = next((m.rationale for m in v.mechanisms if m.code == "shunt"), "")
     paragraphs = [

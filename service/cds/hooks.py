@@ -37,12 +37,12 @@ from service.cds.services import PATIENT_VIEW, SERVICES, CdsService, discovery
 from service.cds.trust import CdsCaller, CdsTrust
 from service.cds.view import view
 from service.config import ServerSettings
-from service.fhir.codes import concept_for
 from service.fhir.dates import effective_time
 from service.fhir.outcome import BundleError
 from service.fhir.shape import Collector
 from service.intake.model import Intake, Quantity
 from service.runtime import Runtime
+from service.terminology.codes import concept_for
 
 DISCOVERY_PATH = "/cds-services"
 # Untimed values that are context, not observations of the moment (a Location's altitude).

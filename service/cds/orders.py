@@ -28,10 +28,10 @@ from dataclasses import dataclass
 from typing import Any
 
 from service.exceptions import PhysiologyError, UnitError
-from service.fhir import codes
 from service.fhir.references import type_and_id
 from service.intake.model import Quantity
 from service.physiology.oxygen_delivery import OxygenDevice, estimate_fio2
+from service.terminology import codes
 
 Json = dict[str, Any]
 

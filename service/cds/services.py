@@ -15,7 +15,7 @@ draft oxygen and ventilator orders. Each asks for the same prefetch:
   ``position.altitude`` sets the barometric pressure. The 2.0 prefetch tokens can name only
   context fields, so the Location is reached through the encounter.
 
-The code lists come from the one code table (``service.fhir.codes``): every code the reader
+The code lists come from the one code table (``service.terminology.codes``): every code the reader
 understands is asked for by exactly one template (``tests/cds/test_services.py``).
 """
 
@@ -26,8 +26,8 @@ from types import MappingProxyType
 from typing import Any
 from urllib.parse import quote
 
-from service.fhir import codes
 from service.intake.model import Quantity
+from service.terminology import codes
 
 Json = dict[str, Any]
 

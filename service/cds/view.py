@@ -56,7 +56,18 @@ FINDING_LABELS = {
     "hypoxaemia-severe": "severe hypoxaemia",
     "acute-respiratory-acidosis": "acute respiratory acidosis",
     "chronic-respiratory-acidosis": "chronic (compensated) respiratory acidosis",
-    "gas-exchange-defect-on-oxygen": "a gas-exchange defect hidden by oxygen",
+    "oxygen-masks-gas-exchange-defect": "a gas-exchange defect hidden by oxygen",
+    "oxygen-masks-hypercapnia": "hypercapnia hidden by oxygen",
+    "hypercapnia": "the PaCO2 is raised",
+    "acid-base-impossible": "pH, PaCO2 and HCO3 cannot come from one sample",
+    "probable-unit-slip": "values look like kPa sent as mmHg",
+    "fio2-estimate-raised-by-pao2": "the PaO2 needs more oxygen than the device estimate",
+    "spo2-above-target-band": "SpO2 above its target band",
+    "spo2-below-target-band": "SpO2 below its target band",
+    "exertional-desaturation": "desaturation on exertion",
+    "metabolic-alkalosis-compensation": "PaCO2 raised to compensate a metabolic alkalosis",
+    "respiratory-compensation-inadequate": "ventilation not compensating a metabolic acidosis",
+    "value-outside-window": "a value was taken too long before the gas to use",
     "low-mixed-venous-oxygen": "low mixed venous oxygen",
     "normal-for-altitude": "normal for the altitude",
     "unit-converted": "a unit was converted",
@@ -72,7 +83,13 @@ FINDING_TAGS: dict[str, frozenset[str]] = {
     "acid-base-inconsistent": frozenset({SAFETY, NOTABLE}),
     "acute-respiratory-acidosis": frozenset({SAFETY, NOTABLE, HYPERCAPNIA}),
     "chronic-respiratory-acidosis": frozenset({NOTABLE, HYPERCAPNIA}),
-    "gas-exchange-defect-on-oxygen": frozenset({NOTABLE, HIDDEN_DEFECT}),
+    "oxygen-masks-gas-exchange-defect": frozenset({NOTABLE, HIDDEN_DEFECT}),
+    "oxygen-masks-hypercapnia": frozenset({SAFETY, NOTABLE, HYPERCAPNIA}),
+    "hypercapnia": frozenset({NOTABLE, HYPERCAPNIA}),
+    "acid-base-impossible": frozenset({SAFETY, NOTABLE}),
+    "probable-unit-slip": frozenset({SAFETY, NOTABLE}),
+    "respiratory-compensation-inadequate": frozenset({SAFETY, NOTABLE}),
+    "spo2-above-target-band": frozenset({NOTABLE}),
     "low-mixed-venous-oxygen": frozenset({NOTABLE}),
     "hypoxaemia-severe": frozenset({SEVERE}),
 }
@@ -99,11 +116,15 @@ _DERIVED: dict[str, str] = {
     "pf_ratio": "pf-ratio",
     "sf_ratio": "sf-ratio",
     "shunt_fraction": "shunt-fraction",
+    "venous_admixture": "venous-admixture",
+    "shunt_at_least": "shunt-dissolved-bound",
     "imputed_pao2": "imputed-pao2",
+    "pao2_expected": "pao2-expected",
+    "paco2_limit": "paco2-upper-limit",
 }
 # View name -> (rule fact of the index gas comparing it with an earlier gas, its unit).
 _SERIAL: dict[str, tuple[str, str]] = {
-    "fio2_change": ("fio2_change", "1"),
+    "fio2_step": ("fio2_step", "1"),
     "pao2_change": ("pao2_change", "mm[Hg]"),
 }
 
@@ -160,6 +181,8 @@ class AssessmentView:
     sample_time: datetime | None  # the index gas (or oximetry) time
     oxygenation_measured: bool  # an arterial PO2 or an SpO2 reached the rules
     data_requested: tuple[str, ...]  # rule fact names
+    gas_exchange: str = "unknown"  # defect | normal | unknown: abnormal for age or not
+    uncertain_inputs: tuple[str, ...] = ()  # inputs known only as a range, in words
 
     def grade(self, mechanism: str) -> str | None:
         return next((m.grade for m in self.mechanisms if m.code == mechanism), None)
@@ -176,7 +199,7 @@ def _text(value: object) -> str:
 
 
 def _numbers(a: Assessment) -> dict[str, Number]:
-    gas, derived, facts = a.index.gas, a.index.derived, a.index.facts
+    gas, derived = a.index.gas, a.index.derived
     found: dict[str, Number] = {}
     for name, quantity in _MEASURED.items():
         m = gas.get(quantity)
@@ -187,7 +210,7 @@ def _numbers(a: Assessment) -> dict[str, Number]:
         if d is not None:
             found[name] = Number(d.value, d.unit)
     for name, (fact, unit) in _SERIAL.items():
-        value = facts.get(fact)
+        value = a.serial.get(fact)
         if isinstance(value, float):
             found[name] = Number(value, unit)
     return found
@@ -216,4 +239,6 @@ def view(a: Assessment) -> AssessmentView:
         sample_time=gas.time,
         oxygenation_measured=Quantity.ARTERIAL_PO2 in gas.values or Quantity.SPO2 in gas.values,
         data_requested=tuple(_text(f) for f in a.data_requested),
+        gas_exchange=_text(a.gas_exchange),
+        uncertain_inputs=tuple(a.uncertain_inputs),
     )

@@ -9,7 +9,6 @@ from typing import Any
 
 import pytest
 
-from service.assess.result import MECHANISMS
 from service.cds.cards import (
     CardContext,
     fit,
@@ -22,8 +21,10 @@ from service.cds.cards import (
 )
 from service.cds.orders import OxygenOrder
 from service.cds.view import AssessmentView, FindingLine, MechanismLine, Number
+from service.engine.vocabulary import Mechanism
 from tests.cds.spec import check_card
 
+MECHANISMS = tuple(m.value for m in Mechanism)
 CONTEXT = CardContext(patient_id="cds-invented-1", encounter_id=None)
 
 
@@ -122,7 +123,7 @@ def test_a_defect_hidden_by_oxygen_is_worth_a_card_without_hypoxaemia() -> None:
     v = make(
         "no-hypoxaemia",
         "absent",
-        findings=[("gas-exchange-defect-on-oxygen", "information")],
+        findings=[("oxygen-masks-gas-exchange-defect", "warning")],
         pao2=95,
         fio2=0.5,
         aa_gradient=210,
@@ -188,13 +189,13 @@ def test_a_likely_shunt_gives_an_info_card_with_the_response_seen() -> None:
         pao2=65,
         fio2=0.5,
         shunt_fraction=30,
-        fio2_change=-0.5,
-        pao2_change=-35,
+        fio2_step=0.5,
+        pao2_change=35,
     )
     (card,) = order_cards(v, [order(0.8)], CONTEXT)
     check_card(card)
     assert card["summary"] == "Shunt about 30 %: raising FiO2 to 0.80 will raise PaO2 little."
-    assert "PaO2 changed by -35 mmHg for an FiO2 change of -0.50" in card["detail"]
+    assert "PaO2 changed by 35 mmHg for an FiO2 step of 0.50" in card["detail"]
 
 
 def test_no_order_card_without_an_oxygen_order_or_without_data() -> None:

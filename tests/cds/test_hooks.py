@@ -34,11 +34,14 @@ EXPECTED: dict[str, tuple[int, list[tuple[str, str]] | list[str]]] = {
     ),
     "patient-view-altitude": (
         200,
-        [("info", "Low inspired oxygen is the likely cause of hypoxaemia: inspired PO2 110 mmHg")],
+        # Rule set 2.0: the A-a gradient is above the normal at this alveolar PO2, so a
+        # gas-exchange defect of open type sits beside the altitude.
+        [("info", "Low inspired oxygen is likely, beside a gas-exchange defect of open type")],
     ),
     "patient-view-shunt": (
         200,
-        [("info", "Shunt is the likely cause of hypoxaemia: shunt fraction 30 %")],
+        # P/F 100 on FiO2 1.0 is severe (ARDS Definition Task Force, JAMA 2012): critical.
+        [("critical", "Shunt is the likely cause of hypoxaemia: shunt fraction 30 %")],
     ),
     "patient-view-nothing-to-say": (200, []),
     "patient-view-not-classifiable": (
@@ -68,7 +71,8 @@ EXPECTED: dict[str, tuple[int, list[tuple[str, str]] | list[str]]] = {
     ),
     "order-select-oxygen-shunt": (
         200,
-        [("info", "Shunt about 30 %: raising FiO2 to 0.80 will raise PaO2 little.")],
+        # Below near-pure oxygen the content equation gives venous admixture, and says so.
+        [("info", "Venous admixture about 30 %: raising FiO2 to 0.80 will raise PaO2 little.")],
     ),
     "order-sign-oxygen-no-concern": (200, []),
     "order-select-not-oxygen": (200, []),

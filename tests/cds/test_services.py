@@ -6,7 +6,7 @@ import re
 from urllib.parse import parse_qsl
 
 from service.cds.services import PREFETCH, SERVICES, fill
-from service.fhir import codes
+from service.terminology import codes
 from tests.cds.conftest import AppMaker
 from tests.cds.spec import check_discovery
 

@@ -55,7 +55,7 @@ def test_the_numbers_are_the_index_gas_values_in_canonical_units(runtime: Runtim
 def test_the_serial_numbers_compare_the_index_gas_with_the_other_fio2(runtime: Runtime) -> None:
     v = view(assessed(runtime, DEMO / "ventilated-two-fio2.bundle.json"))
     # PaO2 65 on FiO2 0.5, then 100 on 1.0 (the index gas).
-    assert v.numbers["fio2_change"].value == pytest.approx(0.5)
+    assert v.numbers["fio2_step"].value == pytest.approx(0.5)
     assert v.numbers["pao2_change"].value == pytest.approx(35.0)
     assert v.numbers["shunt_fraction"].unit == "%"
 
