@@ -25,6 +25,7 @@ from .output import ParquetSink, prepare, write_summary
 from .patient import JobContext, runtime_for
 from .pseudonym import Pseudonymiser
 from .report import summary_page
+from .rows import RESULT_COLUMNS
 from .settings import BulkSettings
 from .summary import Tally
 
@@ -120,9 +121,10 @@ def run_job(
     export = open_export(options.export_dir)
     runtime = runtime_for(settings)  # checks the rule set before any work
     out = prepare(options.out_dir)
-    context = JobContext(settings, bulk, pseudonym, datetime.now(UTC))
+    context = JobContext(settings, bulk, pseudonym, datetime.now(UTC), runtime.ruleset.content_hash)
     progress = progress or Progress()
-    export_errors = ParquetSink(join(out, "errors/export.parquet"), ERROR_COLUMNS)
+    # errors/ always exists (its folder problems, if any); results/ too, if no gas was found.
+    export_errors = ParquetSink(join(out, "errors/export.parquet"), ERROR_COLUMNS, always=True)
     for row in export.problems:
         export_errors.add(row.row())
     export_errors.close()
@@ -148,6 +150,8 @@ def run_job(
             largest = stats.largest_partition_records
     finally:
         progress.close()
+    if stats.tally.gases == 0 and options.engine == "local":
+        ParquetSink(join(out, "results/part-empty.parquet"), RESULT_COLUMNS, always=True).close()
     errors: Counter[str] = Counter(stats.errors)
     errors.update(_codes(export.problems))
     report = JobReport(

@@ -42,10 +42,11 @@ def prepare(out_dir: str) -> str:
 
 class ParquetSink:
     """Rows appended to one Parquet file, written a batch at a time; nothing written when
-    no row came (``close`` returns the count)."""
+    no row came unless ``always`` (``close`` returns the count)."""
 
-    def __init__(self, uri: str, columns: Sequence[Column]) -> None:
+    def __init__(self, uri: str, columns: Sequence[Column], *, always: bool = False) -> None:
         self.uri = uri
+        self.always = always
         self.schema = arrow_schema(columns)
         self.names = [c.name for c in columns]
         self.pending: list[Mapping[str, object]] = []
@@ -59,7 +60,7 @@ class ParquetSink:
             self._flush()
 
     def _flush(self) -> None:
-        if not self.pending:
+        if not self.pending and (self.writer is not None or not self.always):
             return
         import pyarrow as pa
         import pyarrow.parquet as pq

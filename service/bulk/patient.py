@@ -36,6 +36,7 @@ class JobContext:
     bulk: BulkSettings
     pseudonym: Pseudonymiser
     now: datetime  # the job's clock: the same for every assessment of the run
+    ruleset_hash: str  # the driver's rule set: every worker must assess with the same one
 
     def windows(self) -> Windows:
         return Windows(
@@ -51,6 +52,10 @@ class PatientOutcome:
 
     results: list[dict[str, object]] = field(default_factory=list)
     errors: list[ErrorRow] = field(default_factory=list)
+
+
+class RuleSetMismatchError(RuntimeError):
+    """A worker's rule set is not the driver's: the job stops rather than mix verdicts."""
 
 
 # One runtime per worker process and settings (loading the rule set is the costly part).
@@ -72,6 +77,11 @@ class Assessor:
     def __init__(self, context: JobContext, locations: dict[str, dict[str, object]]) -> None:
         self.context = context
         self.runtime = runtime_for(context.settings)
+        if self.runtime.ruleset.content_hash != context.ruleset_hash:
+            raise RuleSetMismatchError(
+                "a worker loaded another rule set than the one the job was started with "
+                f"({self.runtime.ruleset.identity}); ship the same rule directory to every node"
+            )
         self.locations = locations
         self.windows = context.windows()
 

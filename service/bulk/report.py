@@ -252,7 +252,8 @@ def _locations_section(tally: Tally, names: Mapping[str, str]) -> str:
     )
     caption = (
         "For each location (rows) and mechanism (columns): the share of its gases where the "
-        "mechanism was graded likely; the bar length is the share, the number beside it the count."
+        "mechanism was graded likely, as the bar's length and the number beside it; the table "
+        "below gives the counts."
     )
     return (
         f"{title}<figure>{svg}<figcaption>{caption}</figcaption></figure>"
@@ -288,7 +289,8 @@ def _likely_matrix(
     for i, place in enumerate(places):
         y = top + row_h * i
         text = _location_label(place, names)
-        short = text if len(text) <= 34 else text[:33] + "…"
+        shown = names.get(place) or text
+        short = shown if len(shown) <= 34 else shown[:33] + "…"
         out.append(
             f'<text x="4" y="{y + 17}" font-size="12"><title>{escape(text)}</title>'
             f"{escape(short)}</text>"

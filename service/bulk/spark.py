@@ -19,11 +19,13 @@ is ``local[N]`` for one machine and tests, or whatever ``spark-submit`` says on 
 
 from __future__ import annotations
 
+import dataclasses
 import functools
 import os
 import sys
 from collections import Counter
 from collections.abc import Iterator
+from pathlib import Path
 from typing import Any
 
 import orjson
@@ -93,6 +95,7 @@ def run_spark(
 
     spark, made_here = session(master, workers)
     try:
+        _ship_rules(spark, context)
         files = export.files
         mapped = (
             spark.range(0, len(files), 1, len(files))
@@ -148,6 +151,36 @@ def run_spark(
         if made_here:
             spark.stop()
     return stats, locations
+
+
+def _ship_rules(spark: Any, context: JobContext) -> None:
+    """Send the driver's rule directory (and site file) to every executor with the job.
+
+    The executors then assess with exactly the rule set the driver checked (``Assessor``
+    compares the content hash), whatever is installed on the nodes.
+    """
+    settings = context.settings
+    spark.sparkContext.addFile(str(settings.rules_dir.resolve()), recursive=True)
+    if settings.site_file is not None:
+        spark.sparkContext.addFile(str(settings.site_file.resolve()))
+
+
+def _executor_context(context: JobContext) -> JobContext:
+    """The context with the rule directory and site file the job shipped to this executor."""
+    from pyspark import SparkFiles
+
+    settings = context.settings
+    update: dict[str, object] = {}
+    shipped = Path(SparkFiles.get(settings.rules_dir.resolve().name))
+    if shipped.is_dir():
+        update["rules_dir"] = shipped
+    if settings.site_file is not None:
+        site = Path(SparkFiles.get(settings.site_file.name))
+        if site.is_file():
+            update["site_file"] = site
+    if not update:
+        return context
+    return dataclasses.replace(context, settings=settings.model_copy(update=update))
 
 
 def _locations(rows: list[Any], limit: int) -> dict[str, dict[str, object]]:
@@ -212,7 +245,7 @@ def _assess_batches(
     batches: Iterator[Any], *, context: JobContext, locations: Any
 ) -> Iterator[Any]:
     """Step 3: consecutive rows of one patient (the partition is sorted) assessed as a group."""
-    assessor = Assessor(context, locations.value)
+    assessor = Assessor(_executor_context(context), locations.value)
     tally = Tally()
 
     def groups() -> Iterator[tuple[str, list[Record]]]:

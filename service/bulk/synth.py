@@ -27,7 +27,7 @@ from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from datetime import UTC, datetime, timedelta
 from pathlib import Path
-from typing import IO, Any
+from typing import Any, BinaryIO, cast
 
 import orjson
 
@@ -78,7 +78,7 @@ class _Files:
 
     folder: Path
     written: Written
-    streams: dict[str, IO[bytes]] = field(default_factory=dict)
+    streams: dict[str, BinaryIO] = field(default_factory=dict)
     names: dict[str, str] = field(default_factory=dict)  # stream key -> file name
     types: dict[str, str] = field(default_factory=dict)  # file name -> resource type
     observation_lines: int = 0
@@ -99,9 +99,14 @@ class _Files:
         stream = self.streams.get(key)
         if stream is None:
             path = self.folder / name
-            raw = path.open("wb")
-            stream = gzip.GzipFile(fileobj=raw, mode="wb", mtime=0) if name.endswith(".gz") else raw
-            self.streams[key] = stream
+            # mtime=0: the same seed gives the same compressed bytes.
+            opened = cast(
+                BinaryIO,
+                gzip.GzipFile(filename=path, mode="wb", mtime=0)
+                if name.endswith(".gz")
+                else path.open("wb"),
+            )
+            stream = self.streams[key] = opened
             self.types[name] = kind
             self.written.files += 1
         stream.write(line + b"\n")
@@ -363,7 +368,7 @@ def _write_oxygen(p: _Patient, when: datetime, fio2: float, how: str, encounter:
 def _bad_lines(rng: random.Random, files: _Files) -> None:
     """A few lines of the kinds real exports carry; each lands in ``errors/``."""
     written = files.written
-    count = max(3, written.observations // 400)
+    count = max(2 * 4, written.observations // 400)  # every kind below at least twice
     samples: list[Callable[[int], bytes]] = [
         lambda i: b'{"resourceType":"Observation","id":"cut-%d","status":"fin' % i,
         lambda i: orjson.dumps({"resourceType": "Observaton", "id": f"typo-{i}"}),

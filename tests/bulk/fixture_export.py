@@ -48,8 +48,11 @@ def _rewrite(value: Any, refs: dict[str, str]) -> Any:
     return value
 
 
-def export_fixtures(folder: Path, bundles: list[Path] | None = None) -> Exported:
-    """Write the fixtures as one export in ``folder``; which patient each fixture became."""
+def export_fixtures(
+    folder: Path, bundles: list[Path] | None = None, *, names: str = ""
+) -> Exported:
+    """Write the fixtures as one export in ``folder`` (file names prefixed with ``names``);
+    which patient each fixture became."""
     by_type: dict[str, list[dict[str, Any]]] = defaultdict(list)
     patients: dict[Path, str] = {}
     for number, path in enumerate(bundles or fixture_bundles()):
@@ -96,9 +99,10 @@ def export_fixtures(folder: Path, bundles: list[Path] | None = None) -> Exported
         lines = [json.dumps(r, separators=(",", ":")) + "\n" for r in items]
         if kind == "Observation":
             half = len(lines) // 2
-            (folder / "Observation.000.ndjson").write_text("".join(lines[:half]), "utf-8")
-            with gzip.open(folder / "Observation.001.ndjson.gz", "wt", encoding="utf-8") as out:
+            (folder / f"{names}Observation.000.ndjson").write_text("".join(lines[:half]), "utf-8")
+            gz = folder / f"{names}Observation.001.ndjson.gz"
+            with gzip.open(gz, "wt", encoding="utf-8") as out:
                 out.write("".join(lines[half:]))
         else:
-            (folder / f"{kind}.ndjson").write_text("".join(lines), "utf-8")
+            (folder / f"{names}{kind}.ndjson").write_text("".join(lines), "utf-8")
     return Exported(patients)
