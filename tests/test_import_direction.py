@@ -24,6 +24,9 @@ FORBIDDEN: dict[str, tuple[str, ...]] = {
         "service.engine",
         "service.api",
         "service.hl7v2",
+        "service.bulk",
+        "pyarrow",
+        "pyspark",
         "yaml",
     ),
     "engine": (
@@ -35,6 +38,9 @@ FORBIDDEN: dict[str, tuple[str, ...]] = {
         "service.fhir",
         "service.api",
         "service.hl7v2",
+        "service.bulk",
+        "pyarrow",
+        "pyspark",
     ),
 }
 

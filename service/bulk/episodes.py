@@ -183,7 +183,7 @@ def patient_data(
                 patient=pseudonym(key),
             )
         )
-    intake = _read_all(data, observations, pseudonym)
+    intake = _read_all(data, observations, concept_map, pseudonym)
     if intake is not None:
         _describe(data, observations, intake, concept_map, pseudonym)
     return data
@@ -244,7 +244,10 @@ def _bundle(resources: Iterable[dict[str, object]]) -> dict[str, object]:
 
 
 def _read_all(
-    data: PatientData, observations: list[Entry], pseudonym: Pseudonymiser
+    data: PatientData,
+    observations: list[Entry],
+    concept_map: LocalCodeMap | None,
+    pseudonym: Pseudonymiser,
 ) -> Intake | None:
     """Read every resource of the patient at once; drop and report each refused one."""
     members: list[Entry] = [
@@ -254,7 +257,7 @@ def _read_all(
     ]
     while True:
         try:
-            intake = read_bundle(_bundle(e.resource for e in members))
+            intake = read_bundle(_bundle(e.resource for e in members), concept_map=concept_map)
         except BundleError as exc:
             blamed: dict[int, list[Problem]] = {}
             for problem in exc.problems:

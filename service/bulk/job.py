@@ -111,11 +111,16 @@ def run_job(
     """Run one bulk job.
 
     Raises:
+        ImportError: the extra the engine needs is not installed.
         PseudonymKeyError: --pseudonymise without a usable key.
         ExportError: the export folder cannot be read.
         OutputExistsError: the output folder holds an earlier run.
     """
     started = time.monotonic()
+    import pyarrow  # noqa: F401  (the extra must be installed before anything is written)
+
+    if options.engine == "spark":
+        import pyspark  # noqa: F401
     key = bulk.pseudonym_key.get_secret_value() if bulk.pseudonym_key else None
     pseudonym = Pseudonymiser.from_setting(key, required=options.pseudonymise)
     export = open_export(options.export_dir)

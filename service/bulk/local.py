@@ -40,6 +40,7 @@ from .output import ParquetSink
 from .patient import Assessor, JobContext
 from .records import Record, read_file
 from .rows import RESULT_COLUMNS
+from .settings import location_limit
 from .summary import Tally
 
 GZIP_EXPANSION = 8  # NDJSON of FHIR resources shrinks about this much under gzip (estimate)
@@ -263,10 +264,7 @@ def _load_locations(plan: _Plan) -> dict[str, dict[str, object]]:
         resource = orjson.loads(record.body)
         locations.setdefault(f"Location/{resource['id']}", resource)
         if len(locations) > plan.context.bulk.max_locations:
-            raise ValueError(
-                f"more than {plan.context.bulk.max_locations} Locations "
-                "(OXYRULE_BULK_MAX_LOCATIONS): every worker keeps them all"
-            )
+            raise location_limit(plan.context.bulk.max_locations)
     _LOCATIONS.clear()
     _LOCATIONS[plan.spill] = locations
     return locations

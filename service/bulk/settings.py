@@ -11,6 +11,20 @@ from __future__ import annotations
 from pydantic import Field, SecretStr
 from pydantic_settings import BaseSettings, SettingsConfigDict
 
+from service.exceptions import ServiceError
+
+
+class BulkLimitError(ServiceError):
+    """A budget of the job was exceeded where going on would be wrong (the message says which
+    setting raises it)."""
+
+
+def location_limit(limit: int) -> BulkLimitError:
+    return BulkLimitError(
+        f"more than {limit} Location resources (OXYRULE_BULK_MAX_LOCATIONS): every worker "
+        "keeps them all; raise the setting if the export really holds that many places"
+    )
+
 
 class BulkSettings(BaseSettings):
     """Every bulk setting, its default and its valid range."""

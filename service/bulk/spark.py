@@ -37,6 +37,7 @@ from .patient import Assessor, JobContext
 from .records import Record, read_file
 from .rows import RESULT_COLUMNS
 from .schema import Column, Kind, arrow_schema, spark_ddl, union
+from .settings import location_limit
 from .summary import COUNT_COLUMNS, Tally
 
 RECORD_COLUMNS: tuple[Column, ...] = (
@@ -190,9 +191,7 @@ def _locations(rows: list[Any], limit: int) -> dict[str, dict[str, object]]:
         resource = orjson.loads(row["body"])
         found.setdefault(f"Location/{resource['id']}", resource)
         if len(found) > limit:
-            raise ValueError(
-                f"more than {limit} Locations (OXYRULE_BULK_MAX_LOCATIONS): every worker keeps them"
-            )
+            raise location_limit(limit)
     return found
 
 

@@ -3,7 +3,9 @@
 from __future__ import annotations
 
 import json
+import shutil
 from datetime import UTC, datetime, timedelta
+from pathlib import Path
 from typing import Any
 
 import pytest
@@ -17,6 +19,7 @@ from service.bulk.settings import BulkSettings
 from service.config import Settings
 from service.runtime import Runtime
 
+ROOT = Path(__file__).resolve().parents[2]
 T0 = datetime(2026, 3, 1, 8, 0, tzinfo=UTC)
 WINDOWS = Windows(
     pairing=timedelta(minutes=30), same_sample=timedelta(minutes=5), lookback=timedelta(hours=12)
@@ -197,3 +200,26 @@ def test_a_patient_over_the_resource_budget_is_reported_not_assessed() -> None:
     data = read(*gas("a", T0), limit=3)
     assert [e.code for e in data.errors] == [ErrorCode.TOO_MANY_RESOURCES]
     assert cut_episodes(data, windows=WINDOWS, locations={}) == []
+
+
+def test_local_codes_are_read_through_the_sites_concept_map(tmp_path: Path) -> None:
+    """A gas coded only with the analyser's own codes is found and assessed when the rule
+    directory maps them to LOINC (``concept-map.json``)."""
+    rules = tmp_path / "rules"
+    shutil.copytree(ROOT / "rules", rules)
+    shutil.copy(
+        ROOT / "fixtures" / "intake" / "local-codes.conceptmap.json", rules / "concept-map.json"
+    )
+    settings = Settings(rules_dir=rules)
+    runtime = Runtime.load(settings)
+    context = JobContext(
+        settings, BulkSettings(), Pseudonymiser(), T0, runtime.ruleset.content_hash
+    )
+    local = "https://example.org/lab/analyser-codes"
+    po2 = obs("po2", "2703-7", 62, T0)
+    pco2 = obs("pco2", "2019-8", 40, T0)
+    po2["code"] = {"coding": [{"system": local, "code": "PO2-A"}]}
+    pco2["code"] = {"coding": [{"system": local, "code": "PCO2-A"}]}
+    outcome = Assessor(context, {}).patient(KEY, records(po2, pco2))
+    (row,) = outcome.results
+    assert (row["pao2_mmhg"], row["paco2_mmhg"]) == (62.0, 40.0)

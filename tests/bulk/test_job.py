@@ -130,3 +130,21 @@ def test_pseudonymised_outputs_hold_no_reference_and_never_the_key(
     assert KEY.encode() not in everything
     errors: list[dict[str, Any]] = read_table(out / "errors")
     assert all(e["patient"] is None or len(e["patient"]) == 8 + 64 for e in errors)
+
+
+def test_without_the_extra_the_command_says_what_to_install(
+    synthetic_export: Path,
+    tmp_path: Path,
+    monkeypatch: pytest.MonkeyPatch,
+    capsys: pytest.CaptureFixture[str],
+) -> None:
+    from service.cli import main
+
+    monkeypatch.setitem(sys.modules, "pyarrow", None)
+    assert main(["bulk", str(synthetic_export), str(tmp_path / "out")]) == 1
+    assert "pip install 'oxyrule[bulk]'" in capsys.readouterr().err
+    monkeypatch.setitem(sys.modules, "pyspark", None)
+    monkeypatch.delitem(sys.modules, "pyarrow")
+    assert main(["bulk", "--engine", "spark", str(synthetic_export), str(tmp_path / "o2")]) == 1
+    assert "pip install 'oxyrule[spark]'" in capsys.readouterr().err
+    assert list(tmp_path.iterdir()) == []  # refused before anything was written
