@@ -80,7 +80,7 @@ def session(master: str | None, workers: int) -> tuple[Any, bool]:
     )
     spark = builder.getOrCreate()
     context = spark.sparkContext
-    if context.master.startswith("local"):
+    if str(context.master or "").startswith("local"):
         # One machine: a few shuffle partitions (the small tallies) rather than 200 tiny ones.
         spark.conf.set("spark.sql.shuffle.partitions", str(2 * context.defaultParallelism))
     return spark, True
