@@ -192,6 +192,91 @@ def _explain(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+def _positive(text: str) -> int:
+    value = int(text)
+    if value < 1:
+        raise argparse.ArgumentTypeError("must be 1 or more")
+    return value
+
+
+def _bulk(args: argparse.Namespace) -> int:
+    from pydantic import ValidationError
+
+    from service.bulk.export import ExportError
+    from service.bulk.job import JobOptions, run_job
+    from service.bulk.output import OutputExistsError
+    from service.bulk.pseudonym import PseudonymKeyError
+    from service.bulk.settings import BulkSettings
+    from service.config import Settings
+
+    settings = Settings(rules_dir=args.rules) if args.rules else Settings()
+    try:
+        bulk = BulkSettings()
+    except ValidationError as exc:
+        sys.stderr.write(f"oxyrule bulk: a bulk setting is not valid: {_first_error(exc)}\n")
+        return EXIT_REJECTED
+    options = JobOptions(
+        export_dir=args.export_dir,
+        out_dir=args.out_dir,
+        engine=args.engine,
+        workers=args.workers,
+        master=args.master,
+        pseudonymise=args.pseudonymise,
+        spill_dir=args.spill_dir,
+    )
+    try:
+        report = run_job(options, settings, bulk)
+    except (PseudonymKeyError, ExportError, OutputExistsError) as exc:
+        sys.stderr.write(f"oxyrule bulk: {exc}\n")
+        return EXIT_REJECTED
+    except ImportError as exc:
+        extra = "spark" if args.engine == "spark" else "bulk"
+        sys.stderr.write(
+            f"oxyrule bulk: {exc.name or exc} is not installed; "
+            f"install the extra: pip install 'oxyrule[{extra}]'\n"
+        )
+        return EXIT_INTERNAL
+    sys.stdout.write(report.line() + "\n")
+    return EXIT_OK
+
+
+def _first_error(exc: object) -> str:
+    errors: list[dict[str, object]] = getattr(exc, "errors", list)()
+    if not errors:
+        return str(exc)
+    first = errors[0]
+    location = first.get("loc", ())
+    field = "_".join(str(p) for p in location) if isinstance(location, tuple) else ""
+    return f"OXYRULE_BULK_{field.upper()}: {first.get('msg')}"
+
+
+def _bulk_synth(args: argparse.Namespace) -> int:
+    from service.bulk.synth import write_export
+
+    written = write_export(Path(args.out_dir), patients=args.patients, seed=args.seed)
+    sys.stdout.write(
+        f"oxyrule bulk synth: {written.patients:,} invented patients, "
+        f"{written.observations:,} Observations ({written.gases:,} arterial gases), "
+        f"{written.bad_lines:,} bad lines in {written.files} files → {args.out_dir}\n"
+    )
+    return EXIT_OK
+
+
+def bulk_synth_parser() -> argparse.ArgumentParser:
+    """``oxyrule bulk synth N OUT_DIR``: an invented Bulk Data export."""
+    parser = argparse.ArgumentParser(
+        prog="oxyrule bulk synth",
+        description="Write an invented FHIR Bulk Data export (no real people): patients with "
+        "blood-gas series across the mechanisms, several locations and months, and some bad "
+        "lines. The same seed gives the same files.",
+    )
+    parser.add_argument("patients", type=_positive, metavar="N", help="invented patients")
+    parser.add_argument("out_dir", metavar="OUT_DIR", help="folder to write (must not exist)")
+    parser.add_argument("--seed", type=int, default=1, help="random seed (default 1)")
+    parser.set_defaults(handler=_bulk_synth)
+    return parser
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="oxyrule",
@@ -273,12 +358,55 @@ def build_parser() -> argparse.ArgumentParser:
     explain.add_argument("--rules", type=Path, help="rule directory (default: the shipped set)")
     explain.add_argument("--format", choices=("text", "json"), default="text")
     explain.set_defaults(handler=_explain)
+    bulk = commands.add_parser(
+        "bulk",
+        help="assess a FHIR Bulk Data export (NDJSON per resource type) into Parquet; "
+        "'oxyrule bulk synth N OUT_DIR' writes an invented export",
+        description="Assess every arterial gas of a FHIR Bulk Data export folder. Writes "
+        "OUT_DIR/results (Parquet, one row per gas), OUT_DIR/errors (every line or episode "
+        "not used, with file and line) and OUT_DIR/summary (tables and an offline HTML page). "
+        "Settings: OXYRULE_BULK_* (see README). 'oxyrule bulk synth N OUT_DIR [--seed S]' "
+        "writes an invented export. Decision support for qualified clinicians, not a diagnosis.",
+    )
+    bulk.add_argument("export_dir", metavar="EXPORT_DIR", help="the export folder (or a URI)")
+    bulk.add_argument("out_dir", metavar="OUT_DIR", help="output folder (or a URI); new or empty")
+    bulk.add_argument(
+        "--engine",
+        choices=("local", "spark"),
+        default="local",
+        help="local: processes on this machine (default); spark: Apache Spark (extra 'spark')",
+    )
+    bulk.add_argument(
+        "--workers",
+        type=_positive,
+        default=1,
+        metavar="N",
+        help="local: worker processes; spark: local[N] when no --master is given (default 1)",
+    )
+    bulk.add_argument(
+        "--master", metavar="URL", help="Spark master (default: spark-submit's, else local[N])"
+    )
+    bulk.add_argument(
+        "--pseudonymise",
+        action="store_true",
+        help="replace patient and resource references by a keyed hash "
+        "(key: OXYRULE_BULK_PSEUDONYM_KEY; refused without one)",
+    )
+    bulk.add_argument("--rules", type=Path, help="rule directory (default: the shipped set)")
+    bulk.add_argument(
+        "--spill-dir", metavar="DIR", help="local engine: folder for the shuffle's files (TMPDIR)"
+    )
+    bulk.set_defaults(handler=_bulk)
     return parser
 
 
 def main(argv: Sequence[str] | None = None) -> int:
     """Entry point of the ``oxyrule`` console script; returns the process exit code."""
-    args = build_parser().parse_args(argv)
+    arguments = list(sys.argv[1:] if argv is None else argv)
+    if arguments[:2] == ["bulk", "synth"]:
+        args = bulk_synth_parser().parse_args(arguments[2:])
+    else:
+        args = build_parser().parse_args(arguments)
     try:
         result: int = args.handler(args)
     except Exception as exc:  # the last line of defence: say what failed, exit 1

@@ -25,6 +25,9 @@ _ADAPTERS = (
     "service.hl7v2",
     "service.workbench",
     "service.cds",
+    "service.bulk",
+    "pyarrow",
+    "pyspark",
 )
 
 FORBIDDEN: dict[str, tuple[str, ...]] = {

@@ -13,6 +13,7 @@ The R4B models do not check required-binding codes (``status: "bogus"`` passes, 
 from __future__ import annotations
 
 from collections.abc import Mapping
+from functools import lru_cache
 from typing import TYPE_CHECKING, Any
 
 from service.fhir import codes
@@ -118,3 +119,21 @@ def validate_resource(data: Mapping[str, Any]) -> None:
         model.model_validate(dict(data))
     except ValidationError as exc:
         raise InvalidResourceError(_problems(exc, kind)) from exc
+
+
+@lru_cache(maxsize=1024)
+def is_resource_type(name: str) -> bool:
+    """Whether ``name`` is a FHIR (R4B) resource type, as the R4B models know them.
+
+    A data type (``Quantity``) or the abstract ``Resource`` and ``DomainResource`` are not.
+    """
+    if not name.isascii() or not name.isalpha() or not name[:1].isupper():
+        return False
+    from fhir.resources.R4B import get_fhir_model_class
+    from fhir.resources.R4B.resource import Resource
+
+    try:
+        model = get_fhir_model_class(name)
+    except ValueError:
+        return False
+    return issubclass(model, Resource) and name not in ("Resource", "DomainResource")

@@ -1,0 +1,225 @@
+"""Cutting a patient's data into gas episodes, and what cannot be used (invented values)."""
+
+from __future__ import annotations
+
+import json
+import shutil
+from datetime import UTC, datetime, timedelta
+from pathlib import Path
+from typing import Any
+
+import pytest
+
+from service.bulk.episodes import Episode, PatientData, Windows, cut_episodes, patient_data
+from service.bulk.errors import ErrorCode
+from service.bulk.patient import Assessor, JobContext
+from service.bulk.pseudonym import Pseudonymiser
+from service.bulk.records import Record
+from service.bulk.settings import BulkSettings
+from service.config import Settings
+from service.runtime import Runtime
+
+ROOT = Path(__file__).resolve().parents[2]
+T0 = datetime(2026, 3, 1, 8, 0, tzinfo=UTC)
+WINDOWS = Windows(
+    pairing=timedelta(minutes=30), same_sample=timedelta(minutes=5), lookback=timedelta(hours=12)
+)
+KEY = "Patient/p1"
+UNITS = {"2703-7": "mm[Hg]", "2019-8": "mm[Hg]", "3150-0": "%", "59408-5": "%", "11556-8": "mm[Hg]"}
+
+
+def obs(oid: str, code: str, value: float, when: datetime | None, **extra: Any) -> dict[str, Any]:
+    system = "http://loinc.org"
+    if code == "dlco-percent-predicted":
+        system = "https://oxyrule.org/fhir/CodeSystem/input"
+    unit = extra.pop("unit", UNITS.get(code, "%"))
+    resource: dict[str, Any] = {
+        "resourceType": "Observation",
+        "id": oid,
+        "status": "final",
+        "code": {"coding": [{"system": system, "code": code}]},
+        "subject": {"reference": KEY},
+        "valueQuantity": {"value": value, "system": "http://unitsofmeasure.org", "code": unit},
+    }
+    if when is not None:
+        resource["effectiveDateTime"] = when.isoformat()
+    resource.update(extra)
+    return resource
+
+
+def gas(prefix: str, when: datetime, pao2: float = 62, fio2: float = 21) -> list[dict[str, Any]]:
+    return [
+        obs(f"{prefix}-fio2", "3150-0", fio2, when - timedelta(minutes=10)),
+        obs(f"{prefix}-po2", "2703-7", pao2, when),
+        obs(f"{prefix}-pco2", "2019-8", 40, when),
+    ]
+
+
+def records(*resources: dict[str, Any], patient: bool = True) -> list[Record]:
+    items = [{"resourceType": "Patient", "id": "p1", "birthDate": "1960-01-01"}] if patient else []
+    items += resources
+    return [
+        Record(r["resourceType"], KEY, "Observation.ndjson", n, json.dumps(r).encode())
+        for n, r in enumerate(items, start=1)
+    ]
+
+
+def read(*resources: dict[str, Any], patient: bool = True, limit: int = 1000) -> PatientData:
+    return patient_data(
+        KEY,
+        records(*resources, patient=patient),
+        concept_map=None,
+        pseudonym=Pseudonymiser(),
+        max_resources=limit,
+    )
+
+
+def episodes(*resources: dict[str, Any], locations: dict[str, Any] | None = None) -> list[Episode]:
+    return cut_episodes(read(*resources), windows=WINDOWS, locations=locations or {})
+
+
+def ids(episode: Episode) -> set[str]:
+    entries: list[dict[str, Any]] = episode.bundle["entry"]  # type: ignore[assignment]
+    return {e["resource"]["id"] for e in entries if e["resource"]["resourceType"] == "Observation"}
+
+
+def test_each_arterial_gas_is_an_episode_and_never_sees_a_later_gas() -> None:
+    first, second = episodes(*gas("a", T0), *gas("b", T0 + timedelta(hours=2), fio2=40))
+    assert (first.time, second.time) == (T0, T0 + timedelta(hours=2))
+    assert ids(first) == {"a-fio2", "a-po2", "a-pco2"}
+    assert ids(second) >= {"a-po2", "a-pco2", "a-fio2", "b-po2", "b-pco2", "b-fio2"}
+    assert (first.earlier_gases, second.earlier_gases) == (0, 1)
+    assert (first.observation, second.observation) == ("Observation/a-po2", "Observation/b-po2")
+
+
+def test_a_gas_before_the_lookback_is_not_compared() -> None:
+    _, second = episodes(*gas("a", T0), *gas("b", T0 + timedelta(hours=13)))
+    assert "a-po2" not in ids(second) and second.earlier_gases == 0
+
+
+def test_a_doubtful_sample_is_judged_on_its_own() -> None:
+    """A blood PO2 of unstated specimen beside an earlier arterial gas: the arterial gas is
+    left out, or the service would assess it in the doubtful sample's place."""
+    doubtful_at = T0 + timedelta(minutes=20)
+    doubtful = obs("d-po2", "11556-8", 45, doubtful_at)
+    first, second = episodes(*gas("a", T0), doubtful)
+    assert second.time == doubtful_at
+    assert "a-po2" not in ids(second) and "d-po2" in ids(second)
+    assert second.earlier_gases == 0
+    assert "d-po2" not in ids(first)  # a later PO2 is never part of an earlier gas's episode
+
+
+def test_context_out_of_the_window_is_kept_only_when_nothing_nearer_exists() -> None:
+    far = obs("far-fio2", "3150-0", 28, T0 - timedelta(hours=3))
+    (only,) = episodes(obs("po2", "2703-7", 60, T0), far)
+    assert "far-fio2" in ids(only)  # the result will say the FiO2 was out of the window
+    (again,) = episodes(obs("po2", "2703-7", 60, T0), far, obs("near", "3150-0", 35, T0))
+    assert "far-fio2" not in ids(again) and "near" in ids(again)
+
+
+def test_patient_level_values_are_the_latest_of_each_kind() -> None:
+    older = obs("dlco-1", "dlco-percent-predicted", 60, T0 - timedelta(days=400))
+    newer = obs("dlco-2", "dlco-percent-predicted", 45, T0 - timedelta(days=30))
+    later = obs("dlco-3", "dlco-percent-predicted", 40, T0 + timedelta(days=2))
+    (only,) = episodes(*gas("a", T0), older, newer, later)
+    assert "dlco-2" in ids(only) and not {"dlco-1", "dlco-3"} & ids(only)
+
+
+def test_the_location_is_the_one_the_encounter_held_at_the_gas_time() -> None:
+    encounter = {
+        "resourceType": "Encounter",
+        "id": "e1",
+        "subject": {"reference": KEY},
+        "location": [
+            {
+                "location": {"reference": "Location/ward-a"},
+                "period": {"start": "2026-03-01T00:00:00Z", "end": "2026-03-01T07:00:00Z"},
+            },
+            {
+                "location": {"reference": "Location/ward-b"},
+                "period": {"start": "2026-03-01T07:00:00Z"},
+            },
+        ],
+    }
+    po2 = obs("po2", "2703-7", 60, T0, encounter={"reference": "Encounter/e1"})
+    ward_b: dict[str, object] = {
+        "resourceType": "Location",
+        "id": "ward-b",
+        "position": {"altitude": 1500},
+    }
+    data = read(po2, encounter)
+    (only,) = cut_episodes(data, windows=WINDOWS, locations={"Location/ward-b": ward_b})
+    assert only.location == "Location/ward-b"
+    entries: list[dict[str, Any]] = only.bundle["entry"]  # type: ignore[assignment]
+    assert ward_b in [e["resource"] for e in entries]  # its altitude reaches the reader
+
+
+@pytest.fixture(scope="module")
+def assessor() -> Assessor:
+    settings = Settings()
+    runtime = Runtime.load(settings)
+    context = JobContext(
+        settings, BulkSettings(), Pseudonymiser(), T0, runtime.ruleset.content_hash
+    )
+    return Assessor(context, {})
+
+
+def test_a_resource_the_reader_refuses_is_reported_and_the_gas_still_assessed(
+    assessor: Assessor,
+) -> None:
+    bad = obs("bad-pco2", "2019-8", 40, T0, unit="g")
+    outcome = assessor.patient(KEY, records(*gas("a", T0), bad))
+    assert len(outcome.results) == 1
+    (error,) = outcome.errors
+    assert (error.code, error.file, error.line) == (
+        ErrorCode.UNREADABLE_RESOURCE,
+        "Observation.ndjson",
+        5,
+    )
+    assert error.expression == "Observation.valueQuantity.code"
+    assert error.resource_id == "Observation/bad-pco2"
+
+
+def test_a_missing_or_repeated_patient_is_said_and_the_gas_assessed(assessor: Assessor) -> None:
+    missing = assessor.patient(KEY, records(*gas("a", T0), patient=False))
+    assert [e.code for e in missing.errors] == [ErrorCode.PATIENT_NOT_EXPORTED]
+    assert missing.results[0]["age_years"] is None
+    again = {"resourceType": "Patient", "id": "p1", "birthDate": "1990-01-01"}
+    twice = assessor.patient(KEY, records(again, *gas("a", T0)))
+    assert [(e.code, e.line) for e in twice.errors] == [(ErrorCode.DUPLICATE_RESOURCE, 2)]
+    assert twice.results[0]["age_years"] == 66.0  # the first Patient's birth date (1960)
+
+
+def test_a_gas_without_a_time_is_reported_not_assessed(assessor: Assessor) -> None:
+    outcome = assessor.patient(KEY, records(obs("po2", "2703-7", 60, None)))
+    assert outcome.results == []
+    assert [e.code for e in outcome.errors] == [ErrorCode.GAS_WITHOUT_TIME]
+
+
+def test_a_patient_over_the_resource_budget_is_reported_not_assessed() -> None:
+    data = read(*gas("a", T0), limit=3)
+    assert [e.code for e in data.errors] == [ErrorCode.TOO_MANY_RESOURCES]
+    assert cut_episodes(data, windows=WINDOWS, locations={}) == []
+
+
+def test_local_codes_are_read_through_the_sites_concept_map(tmp_path: Path) -> None:
+    """A gas coded only with the analyser's own codes is found and assessed when the rule
+    directory maps them to LOINC (``concept-map.json``)."""
+    rules = tmp_path / "rules"
+    shutil.copytree(ROOT / "rules", rules)
+    shutil.copy(
+        ROOT / "fixtures" / "intake" / "local-codes.conceptmap.json", rules / "concept-map.json"
+    )
+    settings = Settings(rules_dir=rules)
+    runtime = Runtime.load(settings)
+    context = JobContext(
+        settings, BulkSettings(), Pseudonymiser(), T0, runtime.ruleset.content_hash
+    )
+    local = "https://example.org/lab/analyser-codes"
+    po2 = obs("po2", "2703-7", 62, T0)
+    pco2 = obs("pco2", "2019-8", 40, T0)
+    po2["code"] = {"coding": [{"system": local, "code": "PO2-A"}]}
+    pco2["code"] = {"coding": [{"system": local, "code": "PCO2-A"}]}
+    outcome = Assessor(context, {}).patient(KEY, records(po2, pco2))
+    (row,) = outcome.results
+    assert (row["pao2_mmhg"], row["paco2_mmhg"]) == (62.0, 40.0)

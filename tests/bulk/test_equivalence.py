@@ -1,0 +1,179 @@
+"""The same patient data give the same verdict through ``oxyrule bulk`` as through
+``oxyrule assess`` on a Bundle of that patient's resources: every fixture, re-exported as
+Bulk Data files.
+
+The single-bundle side is the real command line (``oxyrule assess`` on NDJSON of Bundles, one
+subprocess): its result Bundles' ``Parameters`` give the pattern, the five grades, the finding
+codes, the rule set, its hash and the settings hash. The bulk side is the ``results/`` rows.
+For a fixture with two gases, the earlier gas is compared with ``oxyrule assess`` on the
+fixture cut at that gas (its later PO2 and everything after the pairing window left out), as
+a clinician sending the data of that moment would have sent them.
+"""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+from collections.abc import Callable
+from datetime import datetime, timedelta
+from pathlib import Path
+from typing import Any
+
+import pytest
+
+from service.bulk.job import JobReport
+from service.bulk.rows import GRADE_COLUMNS, RESULT_COLUMNS
+from service.config import Settings
+from tests.bulk.conftest import read_table
+from tests.bulk.fixture_export import Exported, fixture_bundles
+
+WINDOW = timedelta(minutes=Settings().pairing_window_minutes)
+PO2_ARTERIAL = "2703-7"
+
+
+def assess_cli(bundles: list[dict[str, Any]]) -> list[dict[str, Any]]:
+    """``oxyrule assess`` on NDJSON of the Bundles: each one's verdict, in order."""
+    ndjson = "".join(json.dumps(b) + "\n" for b in bundles).encode()
+    done = subprocess.run(
+        [sys.executable, "-m", "service.cli", "assess", "--ndjson", "-"],
+        input=ndjson,
+        capture_output=True,
+        check=False,
+    )
+    assert done.returncode == 0, done.stderr.decode()
+    return [_verdict(json.loads(line)) for line in done.stdout.splitlines()]
+
+
+def _verdict(result: dict[str, Any]) -> dict[str, Any]:
+    params = next(
+        e["resource"] for e in result["entry"] if e["resource"]["resourceType"] == "Parameters"
+    )
+    out: dict[str, Any] = {"grades": {}, "findings": set()}
+    for p in params["parameter"]:
+        parts = {q["name"]: q for q in p.get("part", [])}
+        if p["name"] == "mechanism":
+            out["grades"][parts["code"]["valueCode"]] = parts["grade"]["valueCode"]
+        elif p["name"] == "finding":
+            out["findings"].add(parts["code"]["valueCode"])
+        elif p["name"] in ("pattern",):
+            out["pattern"] = p["valueCode"]
+        elif p["name"] in ("ruleset", "ruleset-hash", "settings-hash"):
+            out[p["name"]] = p["valueString"]
+    return out
+
+
+def _row_verdict(row: dict[str, Any]) -> dict[str, Any]:
+    return {
+        "pattern": row["pattern"],
+        "grades": {m: row[c] for m, c in GRADE_COLUMNS.items()},
+        "findings": set(row["findings"]),
+        "ruleset": row["ruleset"],
+        "ruleset-hash": row["ruleset_hash"],
+        "settings-hash": row["settings_hash"],
+    }
+
+
+def _time(resource: dict[str, Any]) -> datetime | None:
+    text = resource.get("effectiveDateTime")
+    return datetime.fromisoformat(text) if isinstance(text, str) else None
+
+
+def _is_arterial_po2(resource: dict[str, Any]) -> bool:
+    return any(c.get("code") == PO2_ARTERIAL for c in resource.get("code", {}).get("coding", []))
+
+
+def cut_at(bundle: dict[str, Any], t: datetime) -> dict[str, Any]:
+    """The Bundle as it stood for the gas at ``t``: no later PO2, nothing after the window."""
+    kept = []
+    for entry in bundle["entry"]:
+        r = entry["resource"]
+        when = _time(r) if r["resourceType"] == "Observation" else None
+        if when is not None and (when > t + WINDOW or (_is_arterial_po2(r) and when > t)):
+            continue
+        kept.append(entry)
+    return {**bundle, "entry": kept}
+
+
+@pytest.fixture(scope="module")
+def bulk_rows(
+    fixture_export: tuple[Path, Exported],
+    local_run: Callable[[Path, int], tuple[Path, JobReport]],
+) -> dict[str, list[dict[str, Any]]]:
+    """The local engine's rows of each patient, earliest gas first."""
+    folder, _ = fixture_export
+    out, _ = local_run(folder, 1)
+    by_patient: dict[str, list[dict[str, Any]]] = {}
+    for row in read_table(out / "results"):
+        by_patient.setdefault(row["patient"], []).append(row)
+    return {k: sorted(v, key=lambda r: r["time"]) for k, v in by_patient.items()}
+
+
+def test_every_fixture_gets_the_verdict_of_oxyrule_assess_on_its_bundle(
+    fixture_export: tuple[Path, Exported], bulk_rows: dict[str, list[dict[str, Any]]]
+) -> None:
+    _, exported = fixture_export
+    paths = fixture_bundles()
+    assert len(paths) == len(exported.patients) >= 40
+    bundles = [json.loads(p.read_text(encoding="utf-8")) for p in paths]
+    expected = assess_cli(bundles)
+    compared = without_gas = 0
+    for path, verdict in zip(paths, expected, strict=True):
+        rows = bulk_rows.get(exported.patients[path], [])
+        if not rows:
+            # No arterial gas: nothing for bulk to assess, and the service says so too.
+            assert "no-arterial-gas" in verdict["findings"], path.name
+            without_gas += 1
+            continue
+        assert _row_verdict(rows[-1]) == verdict, path.name
+        compared += 1
+    assert compared >= 35 and without_gas <= 5
+
+
+def test_an_earlier_gas_gets_the_verdict_of_its_own_moment(
+    fixture_export: tuple[Path, Exported], bulk_rows: dict[str, list[dict[str, Any]]]
+) -> None:
+    _, exported = fixture_export
+    cases: list[tuple[str, dict[str, Any]]] = []
+    cut: list[dict[str, Any]] = []
+    for path in fixture_bundles():
+        rows = bulk_rows.get(exported.patients[path], [])
+        bundle = json.loads(path.read_text(encoding="utf-8"))
+        for row in rows[:-1]:
+            cases.append((path.name, row))
+            cut.append(cut_at(bundle, row["time"]))
+    assert len(cases) >= 5  # the serial fixtures and the two-FiO2 demo
+    for (name, row), verdict in zip(cases, assess_cli(cut), strict=True):
+        assert _row_verdict(row) == verdict, name
+        assert row["earlier_gases"] == 0, name
+
+
+def test_a_later_gas_sees_the_earlier_one(
+    bulk_rows: dict[str, list[dict[str, Any]]],
+) -> None:
+    serial = [rows for rows in bulk_rows.values() if len(rows) == 2]
+    assert serial
+    assert all(rows[1]["earlier_gases"] == 1 for rows in serial)
+
+
+def test_one_and_two_workers_write_the_same_rows(
+    fixture_export: tuple[Path, Exported],
+    synthetic_export: Path,
+    local_run: Callable[[Path, int], tuple[Path, JobReport]],
+) -> None:
+    for export in (fixture_export[0], synthetic_export):
+        one, report_one = local_run(export, 1)
+        two, report_two = local_run(export, 2)
+        for table in ("results", "errors"):
+            assert read_table(one / table) == read_table(two / table), table
+        assert report_one.tally.counts == report_two.tally.counts
+
+
+def test_result_rows_have_exactly_the_declared_columns(
+    fixture_export: tuple[Path, Exported],
+    local_run: Callable[[Path, int], tuple[Path, JobReport]],
+) -> None:
+    import pyarrow.dataset as ds
+
+    out, _ = local_run(fixture_export[0], 1)
+    assert ds.dataset(str(out / "results")).schema.names == [c.name for c in RESULT_COLUMNS]
