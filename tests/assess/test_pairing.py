@@ -1,4 +1,4 @@
-"""Pairing gases with the values of the same moment (docs/clinical-logic.md, pairing)."""
+"""Pairing gases with the values of the same moment (README, What it reads)."""
 
 from __future__ import annotations
 
