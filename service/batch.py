@@ -39,7 +39,7 @@ def answer(
         return orjson.dumps(runtime.assess_bundle(data, pressure_unit=unit)), False
     except LocatedError as exc:
         problems = exc.problems
-        if where.startswith("line"):  # NDJSON: every issue names its line (contract §1)
+        if where.startswith("line"):  # NDJSON: every issue names its line
             problems = tuple(replace(p, diagnostics=f"{where}: {p.diagnostics}") for p in problems)
         return orjson.dumps(operation_outcome(problems)), True
 

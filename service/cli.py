@@ -3,7 +3,7 @@
 Kept light on imports: each subcommand imports what it needs when it runs, so a one-off
 command answers quickly (the web framework is never imported here).
 
-Exit codes of ``assess`` (contract §1): 0 every input assessed, whatever the verdict;
+Exit codes of ``assess`` (README, Using it): 0 every input assessed, whatever the verdict;
 2 an input was rejected (its OperationOutcome is still printed); 1 an internal error.
 """
 

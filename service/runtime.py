@@ -108,7 +108,7 @@ class Runtime:
     def render(
         self, assessment: Assessment, *, pressure_unit: PressureUnit | None = None
     ) -> dict[str, Any]:
-        """The contract's result Bundle for an assessment."""
+        """The result Bundle for an assessment (README, What it answers)."""
         codes = list(
             dict.fromkeys(
                 c for f in assessment.data_requested if (c := code_for_fact(f)) is not None

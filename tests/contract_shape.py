@@ -1,6 +1,6 @@
-"""The contract's result shape, checked by the project's own tests (contract.md §3).
+"""The result's shape (README, What it answers), checked by the project's own tests.
 
-A small independent reading of the contract so the suite stands without the shared checker:
+A small independent reading of the result's documented shape, so the suite stands on its own:
 names, codes, units, the pattern/grade consistency rules and the absence of nulls.
 """
 

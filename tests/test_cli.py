@@ -1,5 +1,5 @@
 """The command line: the demo (README quick start) and ``assess`` with its exit codes
-(contract §1: 0 assessed, 2 rejected with its OperationOutcome printed, 1 internal error)."""
+(README, Using it: 0 assessed, 2 rejected with its OperationOutcome printed, 1 internal error)."""
 
 from __future__ import annotations
 

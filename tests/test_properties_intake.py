@@ -15,7 +15,7 @@ from tests.contract_shape import contract_problems
 
 RUNTIME = Runtime.load()
 LOINC = "http://loinc.org"
-# (code, plausible units) of the values the service reads: standards.md §1 (LOINC tables).
+# (code, plausible units) of the values the service reads (service/terminology/codes.py).
 CODES = [
     ("2703-7", ["mm[Hg]", "kPa"]),
     ("2019-8", ["mm[Hg]", "kPa"]),

@@ -2,7 +2,7 @@
 
 A Bundle body is refused with 413 from its ``Content-Length`` before anything is read, and
 again while it streams in (a chunked upload has no length), so no more than the limit plus
-one chunk is ever held. An NDJSON body as a whole is not limited (contract §1): it is split
+one chunk is ever held. An NDJSON body as a whole is not limited (by design): it is split
 into lines as it arrives, and only a line longer than the limit is refused, by answering that
 line with an OperationOutcome while its bytes are skipped.
 

@@ -1,7 +1,7 @@
 """What a result says, in counts: its verdict pattern and its finding codes.
 
-Read from the contract's Parameters resource (contract §3), never from anything else in the
-result, so what reaches the metrics and the request log is a code from a closed set.
+Read from the result's Parameters resource (README: What it answers), never from anything else
+in the result, so what reaches the metrics and the request log is a code from a closed set.
 """
 
 from __future__ import annotations

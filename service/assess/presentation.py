@@ -16,7 +16,7 @@ PressureUnit = Literal["mm[Hg]", "kPa"]
 Json = dict[str, Any]
 
 
-# Derived quantities in the order the contract lists them, with display decimals.
+# Derived quantities in the order the result lists them, with display decimals.
 QUANTITY_ORDER = (
     "barometric-pressure",
     "water-vapour-pressure",

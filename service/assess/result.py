@@ -37,9 +37,9 @@ class ResultStatus(StrEnum):
 
 @dataclass(frozen=True, slots=True)
 class Finding:
-    """A data-quality or context finding: a contract finding code with its severity."""
+    """A data-quality or context finding: a finding code with its severity."""
 
-    code: str  # a finding code of the contract (rules and intake share the code system)
+    code: str  # a finding code of the result (rules and intake share the code system)
     severity: Severity
     message: str
     subject: Source | None = None

@@ -4,7 +4,8 @@
 and gender, never name or identifier), ``Observation``, ``Location`` (``position.altitude``)
 and ``Specimen`` (for the type of "Bld" results); any other resource is reported as
 ``resource-ignored``. It accepts every Bundle type. fhir.resources is not used here
-(performance.md); the optional strict check is ``service.fhir.models.validate_strict``.
+(R4B model validation costs 51–95× a JSON parse: README, Performance); the optional strict
+check is ``service.fhir.models.validate_strict``.
 
 Two kinds of trouble, kept apart:
 
@@ -15,7 +16,7 @@ Two kinds of trouble, kept apart:
   unknown code, an impossible value, an unknown specimen): an ``IntakeIssue`` is reported and
   reading goes on. An impossible value (``value-out-of-range``, severity error) is dropped, not
   the whole Bundle: the rest is still assessed, and the error finding tells the rules that the
-  data cannot be fully trusted (clinical-logic.md §2).
+  data cannot be fully trusted (docs/clinical-logic.md, "Trust the data first").
 
 Each entry, Observation and subject reference is first offered to a plain path that checks the
 usual shape with ``type()`` tests and builds no FHIRPath; what it is not sure of it declines

@@ -1,13 +1,14 @@
 """The one door to ``fhir.resources`` (FHIR R4B models), opened only when asked.
 
 Validating with the R4B models costs ~90× a JSON parse and importing them ~220 ms
-(performance.md), so the per-request path never comes here: ``fhir.resources`` is imported
+(README, Performance), so the per-request path never comes here: ``fhir.resources`` is imported
 inside the functions below, never at module level. Uses: the optional strict input mode
 (``validate_strict``) and the tests' check that every produced resource is valid R4B
 (``validate_resource``).
 
-The R4B models do not check required-binding codes (``status: "bogus"`` passes, standards.md
-§3.9 TST 4), so strict mode adds that check for the code sets the service depends on.
+The R4B models do not check required-binding codes (``status: "bogus"`` passes;
+tests/fhir/test_models.py shows it), so strict mode adds that check for the code sets the
+service depends on.
 """
 
 from __future__ import annotations

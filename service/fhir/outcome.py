@@ -3,7 +3,8 @@
 An input the service cannot read is refused with every problem found, each located by a
 FHIRPath ``expression`` (``Bundle.entry[3].resource.valueQuantity.code``), never with the first
 one only and never with a stack trace. ``operation_outcome`` turns those problems into the R4
-OperationOutcome the HTTP layer returns (contract.md §1, standards.md §3.6).
+OperationOutcome the HTTP layer returns (FHIR R4 OperationOutcome: severity, issue-type code,
+FHIRPath ``expression``).
 
 Diagnostics say what is wrong with an element: its JSON type, a unit or code that was sent,
 what would be accepted. They never quote a patient's value, name or identifier, so an error
@@ -62,7 +63,8 @@ class BundleError(LocatedError):
 
 
 class NotABundleError(BundleError):
-    """The JSON body is not a FHIR Bundle at all (HTTP 400, contract.md §1)."""
+    """The JSON body is not a FHIR Bundle at all (HTTP 400; a Bundle that cannot be
+    assessed is a 422)."""
 
 
 class ConceptMapError(LocatedError):

@@ -1,4 +1,4 @@
-"""Render an ``Assessment`` as the result Bundle of the contract (plain dicts, no models).
+"""Render an ``Assessment`` as the result Bundle (plain dicts, no models; README, What it answers).
 
 Entries, in order: GuidanceResponse, Parameters (the machine-readable verdict), OperationOutcome
 (findings and the clinical caution), then derived Observations (among them the PaO2 deficit

@@ -1,9 +1,9 @@
 """Strict readers for the JSON shapes of a FHIR resource, and the collector of what they find.
 
-The adapter walks plain dicts from ``orjson`` (performance.md: no model validation per
-request). Each reader takes the parent object, the member name and the FHIRPath of the parent,
-checks the member's JSON type, and on a wrong type records a located ``Problem`` and returns
-None, so one pass finds every problem before the Bundle is refused once.
+The adapter walks plain dicts from ``orjson`` (no model validation per request: it costs 51–95× the
+parse; README, Performance). Each reader takes the parent object, the member name and the FHIRPath
+of the parent, checks the member's JSON type, and on a wrong type records a located ``Problem`` and
+returns None, so one pass finds every problem before the Bundle is refused once.
 """
 
 from __future__ import annotations

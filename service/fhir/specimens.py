@@ -1,10 +1,10 @@
 """Which blood a "Bld" result came from, read from the Specimen it references.
 
-LOINC codes such as 11556-8 (PO2 in Blood) do not say whether the sample was arterial
-(standards.md §1.1). The answer can only come from ``Observation.specimen`` → a contained or
-bundled ``Specimen`` whose ``type`` carries a SNOMED CT or HL7 v2 table 0487 code
-(``codes.SPECIMEN_TYPES``). When it does not, the specimen stays unknown and the caller says
-why; it is never taken as arterial.
+LOINC codes such as 11556-8 (PO2 in Blood) do not say whether the sample was arterial (their LOINC
+system is ``Bld``: blood, type not stated). The answer can only come from ``Observation.specimen``
+→ a contained or bundled ``Specimen`` whose ``type`` carries a SNOMED CT or HL7 v2 table 0487 code
+(``codes.SPECIMEN_TYPES``). When it does not, the specimen stays unknown and the caller says why;
+it is never taken as arterial.
 """
 
 from __future__ import annotations

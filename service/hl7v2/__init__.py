@@ -1,7 +1,7 @@
 """HL7 v2 intake: ORU^R01 messages in, ACK / FHIR result / ORU^R01 result out, and MLLP.
 
 The adapter reads a message into the same ``Intake`` the FHIR adapter produces (one pipeline
-after it), mapping fields as the HL7 V2-to-FHIR IG does (standards.md §5.4):
+after it), mapping fields as the HL7 V2-to-FHIR IG (1.0.0, STU 1) does:
 
 * ``read_oru`` (intake.py): ORU^R01 -> ``Intake``;
 * ``ack`` (ack.py), ``oru_result`` (result.py): the replies, pure functions;

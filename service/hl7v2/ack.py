@@ -1,4 +1,4 @@
-"""The ACK that answers a message (HL7 v2 original-mode acknowledgment, standards.md §5.2).
+"""The ACK that answers a message (HL7 v2.5.1 chapter 2, original mode).
 
 ``MSH`` with sender and receiver swapped (MSH-3/4 <- MSH-5/6 and back), MSH-9
 ``ACK^<trigger>^ACK``, a new MSH-10; ``MSA`` with MSA-1 AA (accepted: assessed), AE (error:

@@ -1,6 +1,6 @@
 """Writing ER7 (vertical-bar) text with the standard encoding characters ``|^~\\&``.
 
-Every value written is escaped (HL7 v2 §2.7: ``\\F\\ \\S\\ \\T\\ \\R\\ \\E\\``), so text from
+Every value written is escaped (HL7 v2.5.1 ch. 2: ``\\F\\ \\S\\ \\T\\ \\R\\ \\E\\``), so text from
 a rule rationale or a sender's application name can never break a field. Segments end with a
 carriage return, the v2 segment terminator.
 """

@@ -1,4 +1,4 @@
-"""MLLP framing, as a pure incremental decoder (standards.md §5.3).
+"""MLLP framing, as a pure incremental decoder (HL7 MLLP transport specification, release 2).
 
 A frame is ``0x0B`` (start block), the message, ``0x1C 0x0D`` (end block). Bytes arrive in
 any cut: a frame may span many reads, one read may hold several frames. ``FrameDecoder.feed``

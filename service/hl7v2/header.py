@@ -1,7 +1,7 @@
 """Whether a message is one this service takes: ORU^R01, a known version and processing id.
 
 A message that fails here is answered AR (HL7 table 0008: rejected for its type, event,
-version or processing id, standards.md §5.2) with ERR codes 200-203 of table 0357.
+version or processing id; HL7 v2.5.1 chapter 2) with ERR codes 200-203 of table 0357.
 """
 
 from __future__ import annotations

@@ -1,7 +1,7 @@
 """An ORU^R01 message as an ``Intake``: the entry point of the HL7 v2 adapter.
 
-The message is walked once in segment order, following the ORU^R01 structure (standards.md
-§5.1): MSH, then patient (PID), then order groups, each an OBR followed by its OBX and SPM
+The message is walked once in segment order, following the ORU^R01 structure (HL7
+v2.5.1 ch. 7): MSH, then patient (PID), then order groups, each an OBR followed by its OBX and SPM
 segments (OBX after an SPM are that specimen's observations and are read all the same, as
 V2-to-FHIR maps every OBX to an Observation). Other segments (NTE, ORC, PV1, TQ1, Z-segments
 ...) carry nothing the service reads and are passed over. Every OBX of every order group goes

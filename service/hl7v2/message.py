@@ -5,7 +5,7 @@ un-escapes ``\\F\\``, ``\\S\\``, ``\\T\\``, ``\\R\\``, ``\\E\\`` and hex sequenc
 validate structure, which this package does itself so that every problem is located. Its parse
 tree is uneven (a field without separators is a plain string, one with them a list of lists),
 so nothing outside this module touches it: ``Segment.value(field, component, subcomponent)``
-always answers a string, empty when absent (standards.md §5.1, §5.5).
+always answers a string, empty when absent (HL7 v2.5.1 chapter 2, message construction).
 
 Segments are counted per name across the whole message (``OBX[3]`` is the third OBX), which
 is how ERR-2 (ERL.2) locates a segment.

@@ -1,4 +1,4 @@
-"""The MLLP listener: HL7 v2 over TCP, answered with an ACK per message (standards.md §5.3).
+"""The MLLP listener: HL7 v2 over TCP, answered with an ACK per message (HL7 MLLP, release 2).
 
 An asyncio server; each connection has its own ``FrameDecoder``, so frames may arrive cut
 anywhere and several in one write. Each complete frame is assessed by ``handle_v2`` in a

@@ -1,4 +1,4 @@
-"""One OBX as intake measurements: status, code, time, value, specimen (standards.md §5.4).
+"""One OBX as intake measurements: status, code, time, value, specimen (HL7 V2-to-FHIR IG).
 
 V2-to-FHIR maps each OBX to an Observation: OBX-3 -> ``code`` (CWE components 1-3 the first
 coding, 4-6 the alternate, coding system through table 0396), OBX-11 -> ``status``, OBX-14 ->
@@ -97,7 +97,7 @@ def identify(
         mapped = (concept_map.loinc_for(s, code) for _, s, code in found)
         loinc = next((m for m in mapped if m is not None), None)
         hit = None if loinc is None else (codes.LOINC_CONCEPTS[loinc], loinc)
-    # 2708-6 beside a pulse-oximetry code is SpO2 (standards.md §1.9, contract §2).
+    # 2708-6 beside a pulse-oximetry code is SpO2 (US Core Pulse Oximetry profile).
     if (
         hit is not None
         and hit[0].quantity is Quantity.ARTERIAL_SO2

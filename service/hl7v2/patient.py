@@ -1,6 +1,6 @@
 """The little the service needs of the patient, from PID: birth date (PID-7), sex (PID-8).
 
-V2-to-FHIR (standards.md §5.4): PID-7 -> ``Patient.birthDate`` (the time part goes to an
+V2-to-FHIR (segment PID to Patient): PID-7 -> ``Patient.birthDate`` (the time part goes to an
 extension, unused here); PID-8 -> ``Patient.gender`` by table 0001 (F female, M male,
 O/A/N other, U unknown). Names and identifiers are never read into the intake; PID-3 is only
 compared between PID segments, to refuse a message that holds two patients.

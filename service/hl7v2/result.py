@@ -7,10 +7,10 @@ Layout (one order group, filled by us as the filler):
 * ``OBR`` with OBR-2 the placer order number of the message assessed, OBR-3 the decision id,
   OBR-4 our service code, OBR-7 the time of the index gas, OBR-25 ``F``; an order-level ``NTE``
   with the clinical caution;
-* one NM ``OBX`` per derived value of the index gas, in the contract's order, coded with LOINC
-  where a term exists (A-a gradient 19991-9, P/F 50984-4, a/A 78354-8; standards.md §1.8) and
-  with our own code system otherwise; the A-a gradient with its age limit (OBX-7) and flag
-  (OBX-8 H or N); the equation in OBX-17;
+* one NM ``OBX`` per derived value of the index gas, in the result's order, coded with LOINC where
+  a term exists (A-a gradient 19991-9, P/F 50984-4, a/A 78354-8; 50984-4 is "Horowitz index in
+  Arterial blood", the other two from memory) and with our own code system otherwise; the A-a
+  gradient with its age limit (OBX-7) and flag (OBX-8 H or N); the equation in OBX-17;
 * the PaO2 deficit partition of the index gas (sub-id 3, or 3.1 and 3.2 when it is given for
   each residence at altitude, with an ``NTE`` naming the assumption): one NM ``OBX`` each for
   the expected PaO2, the fall and every part shown (positive lowers the PaO2), with the method

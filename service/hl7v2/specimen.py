@@ -1,4 +1,4 @@
-"""Which blood an order group's results came from: SPM-4, else OBR-15 (standards.md §1.1).
+"""Which blood an order group's results came from: SPM-4, else OBR-15 (V2-to-FHIR IG).
 
 LOINC puts the specimen in the code for most blood-gas terms; the "Bld" terms (11556-8 ...)
 do not, and V2-to-FHIR maps SPM-4 (v2.5+) and, in older messages, OBR-15 to

@@ -1,6 +1,6 @@
 """The HL7 v2 tables and coding-system ids this package reads and writes, in one place.
 
-Each table cites where its codes come from (standards.md §5; HL7 tables by number). The FHIR
+Each table cites where its codes come from (HL7 v2.5.1 tables by number, V2-to-FHIR IG). The FHIR
 side of every mapping is the one code table of the service (``service.terminology.codes``): a v2
 coding is turned into a (FHIR system, code) pair here and looked up there, so the two adapters
 cannot disagree on what a code means.
@@ -15,7 +15,7 @@ from service.terminology import codes
 
 # --- Coding systems (HL7 table 0396 -> FHIR system URI) ---------------------------------------
 # V2-to-FHIR maps CWE.3 (name of coding system) through table 0396 to Coding.system. "LN" is
-# LOINC (standards.md §1), "SCT" SNOMED CT, "UCUM" UCUM, "HL7nnnn" an HL7 table. The project's
+# LOINC, "SCT" SNOMED CT, "UCUM" UCUM, "HL7nnnn" an HL7 table. The project's
 # own CodeSystems take local ids of the form 99zzz that table 0396 reserves for local use; a
 # sender may also put the FHIR URI itself in CWE.3.
 INPUT_SYSTEM = "99OXYIN"  # https://oxyrule.org/fhir/CodeSystem/input (altitude, ...)
@@ -50,7 +50,7 @@ FINDING_SYSTEM = "99OXYFND"  # .../CodeSystem/finding
 GAS_EXCHANGE_SYSTEM = "99OXYGXS"  # .../CodeSystem/gas-exchange-status
 
 # --- Observation result status (HL7 table 0085) -> used or not --------------------------------
-# V2-to-FHIR ConceptMap (standards.md §5.4): F->final, P->preliminary, C->corrected,
+# V2-to-FHIR ConceptMap table-hl70085-to-observation-status: F->final, P->preliminary, C->corrected,
 # A->amended, D and W->entered-in-error, X->cancelled; I, R, S, U, V, N, O, B have no row and
 # are decided here. Only F, C, A and P are used, as their FHIR counterparts are by the FHIR
 # adapter; every other code is ignored and reported with its reason.
@@ -77,7 +77,7 @@ STATUS_NAMES: MappingProxyType[str, str] = MappingProxyType(
     }
 )
 
-# --- Administrative sex (HL7 table 0001) -> FHIR gender (V2-to-FHIR, standards.md §5.4) ----
+# --- Administrative sex (HL7 table 0001) -> FHIR gender (V2-to-FHIR IG) -------------------
 SEX_TO_GENDER: MappingProxyType[str, str] = MappingProxyType(
     {"F": "female", "M": "male", "O": "other", "A": "other", "N": "other", "U": "unknown"}
 )
@@ -97,7 +97,7 @@ SN_SEPARATORS = frozenset({"-", "+", "/", ".", ":"})
 
 # --- Specimen type (SPM-4, OBR-15.1) -> Specimen ---------------------------------------------
 # Table 0487 (UTG): BLDA blood arterial, BLDV blood venous; table 0070 (older, still sent in
-# OBR-15): BLDC capillary blood, which 0487 lacks (standards.md §1.1). BLD (whole blood, type
+# OBR-15): BLDC capillary blood, which 0487 lacks (from memory). BLD (whole blood, type
 # not stated) is deliberately absent: it leaves the specimen unknown, as in the FHIR adapter.
 V2_SPECIMEN_CODES: MappingProxyType[str, Specimen] = MappingProxyType(
     {"BLDA": Specimen.ARTERIAL, "BLDV": Specimen.VENOUS, "BLDC": Specimen.CAPILLARY}

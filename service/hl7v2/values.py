@@ -1,6 +1,6 @@
 """One OBX value (OBX-2, OBX-5, OBX-6) read and converted once to its quantity's canonical unit.
 
-V2-to-FHIR (standards.md §5.4) maps OBX-5 by OBX-2: NM to ``valueQuantity.value``; SN to a
+V2-to-FHIR (segment OBX to Observation) maps OBX-5 by OBX-2: NM to ``valueQuantity.value``; SN to a
 ``valueQuantity`` when it is one number, to a ``valueQuantity`` with ``comparator`` when it
 carries ``<``, ``>``, ``<=``, ``>=`` and to a ``valueRange``/``valueRatio`` when it carries a
 separator; CWE/CE/CNE to ``valueCodeableConcept``; ST/TX/FT to ``valueString``; OBX-6 to the

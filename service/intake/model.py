@@ -102,7 +102,7 @@ class Specimen(StrEnum):
 
 
 class Fio2Source(StrEnum):
-    """How an FiO2 came to be known (contract: ``fio2-source``)."""
+    """How an FiO2 came to be known (result parameter ``fio2-source``)."""
 
     MEASURED = "measured"
     VENTILATOR_SETTING = "ventilator-setting"
@@ -154,7 +154,7 @@ class Severity(StrEnum):
 class IntakeIssue:
     """Something met while reading the input that the result must report.
 
-    ``code`` is a finding code of the contract (``unit-converted``, ``observation-ignored``,
+    ``code`` is a finding code of the result (``unit-converted``, ``observation-ignored``,
     ``specimen-unknown``, ``value-out-of-range``, …); ``expression`` locates the element.
     """
 

@@ -58,8 +58,8 @@ def fractional_saturation(
 
     sO2 = O2Hb / (O2Hb + HHb) is what the dissociation curve and pulse oximetry give (and what
     LOINC 2708-6 names); the content equation needs O2Hb / total Hb, so carboxy- and
-    methaemoglobin must come off. Definitions: co-oximetry fractions (standards.md §1.2 note;
-    common practice). All arguments are fractions.
+    methaemoglobin must come off. Definitions: co-oximetry fractions (common practice;
+    LOINC names sO2 and O2Hb / total Hb as different components). All arguments are fractions.
 
     Raises:
         ImpossibleValueError: a fraction outside 0–1, or COHb + MetHb above 1.

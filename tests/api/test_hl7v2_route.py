@@ -1,4 +1,4 @@
-"""``POST /hl7v2`` over HTTP: the ACK (contract §1), the FHIR answer, media types, auth.
+"""``POST /hl7v2`` over HTTP: the ACK (HL7 v2.5.1 chapter 2), the FHIR answer, media types, auth.
 
 The v2 twin of the invented demo case (fixtures/hl7v2) must be acknowledged AA with MSA-2 =
 its MSH-10 and graded as the FHIR path grades the same data (HL7 v2.5.1 ch. 2 original-mode

@@ -27,7 +27,7 @@ def facts_of(data: Intake, **settings: object) -> list[GasFacts]:
 
 
 def test_sea_level_room_air_gas_matches_the_worked_alveolar_value() -> None:
-    # physiology.md §1: PB 760, FiO2 0.21, PaCO2 40, PH2O 47.12 (IAPWS at 37 °C) → PAO2 101.8.
+    # [calc]: PB 760, FiO2 0.21, PaCO2 40, PH2O 47.12 (IAPWS at 37 °C) → PAO2 101.8.
     (gas,) = facts_of(
         intake(m(Q.ARTERIAL_PO2, 90.0), m(Q.ARTERIAL_PCO2, 40.0), m(Q.FIO2, 0.21)),
         site_altitude_m=None,
@@ -60,7 +60,7 @@ def test_barometric_pressure_precedence() -> None:
     )
     (model,) = facts_of(intake(*base, m(Q.ALTITUDE, 2500.0)), site_altitude_m=1000.0)
     assert model.barometric_source == "altitude-model"
-    # West 1996 at 2500 m: 569.8 mmHg (physiology.md §3 table).
+    # West JB, J Appl Physiol 1996;81:1850 at 2500 m: 569.8 mmHg [calc].
     assert model.facts["barometric_pressure"] == pytest.approx(569.8, abs=0.1)
     assert model.facts["barometric_pressure_estimated"] is True
     (site,) = facts_of(intake(*base), site_altitude_m=1609.0)
@@ -109,7 +109,7 @@ def test_spo2_only_gives_sf_ratio_and_an_imputed_pao2() -> None:
     (gas,) = facts_of(intake(m(Q.SPO2, 0.94), m(Q.FIO2, 0.4)))
     assert gas.facts["arterial_gas_present"] is False
     assert gas.facts["sf_ratio"] == pytest.approx(235.0)  # Rice 2007 anchor: 94 % on 0.4
-    # physiology.md §6 exact inverse: S 0.94 → 70.87 mmHg.
+    # Exact inverse of Severinghaus 1979 eq. 1 [calc]: S 0.94 → 70.87 mmHg.
     assert gas.facts["imputed_pao2"] == pytest.approx(70.87, abs=0.01)
     (high,) = facts_of(intake(m(Q.SPO2, 0.98), m(Q.FIO2, 0.21)))
     assert "imputed_pao2" not in high.facts  # Brown 2016: not above 96 %

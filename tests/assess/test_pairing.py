@@ -1,4 +1,4 @@
-"""Pairing gases with the values of the same moment (docs/clinical-logic.md, pairing)."""
+"""Pairing gases with the values of the same moment (README, What it reads)."""
 
 from __future__ import annotations
 
@@ -112,7 +112,8 @@ def test_untimed_context_is_used_only_when_no_timed_value_qualifies() -> None:
 
 
 def test_a_po2_of_doubtful_specimen_is_never_an_arterial_gas() -> None:
-    # clinical-logic.md §2: venous, capillary or unknown samples are never used as PaO2.
+    # docs/clinical-logic.md, "Trust the data first": venous, capillary or unknown samples are
+    # never used as PaO2.
     pairing = pair_gases(
         intake(m(Q.ARTERIAL_PO2, 40.0, 0, specimen=Specimen.UNKNOWN), m(Q.SPO2, 0.95, 0)),
         windows=WINDOWS,

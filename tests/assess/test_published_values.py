@@ -62,7 +62,7 @@ def runtime() -> Runtime:
 
 def test_everest_8400_m_gas_matches_grocott_2009(runtime: Runtime) -> None:
     # Grocott MPW et al., N Engl J Med 2009;360:140 (abstract): at 8400 m, PB 272 mmHg,
-    # mean PaO2 24.6, PaCO2 13.3 mmHg, mean calculated A-a 5.4 mmHg. physiology.md §5: our
+    # mean PaO2 24.6, PaCO2 13.3 mmHg, mean calculated A-a 5.4 mmHg. Our
     # recomputation gives 6.0–6.7 (R, PH2O unknown in the paper): ±1.5 mmHg allowed.
     result = runtime.assess_bundle(
         _bundle(
@@ -84,7 +84,7 @@ def test_everest_8400_m_gas_matches_grocott_2009(runtime: Runtime) -> None:
 def test_healthy_adult_on_pure_oxygen_matches_toffaletti_2026(runtime: Runtime) -> None:
     # Toffaletti & Zavorsky, Physiol Rep 2026 (abstract): healthy 51-year-old, FiO2 1.0,
     # PB 752, PaO2 587, PaCO2 38, SaO2 0.993, Hb 15.2 g/dL: shunt 2.8–5.2 % by four methods.
-    # physiology.md §5 [calc]: PAO2 = 752 − 47 − 38 = 667, A-a 80 (PH2O 47.1 here: ±0.3).
+    # [calc]: PAO2 = 752 − 47 − 38 = 667, A-a 80 (PH2O 47.1 here: ±0.3).
     result = runtime.assess_bundle(
         _bundle(
             "1975-06-01",

@@ -1,4 +1,4 @@
-"""The code table: every LOINC row of contract.md §2 / standards.md §1, read end to end."""
+"""The code table: every LOINC row the service reads (README, What it reads), end to end."""
 
 from __future__ import annotations
 
@@ -15,55 +15,59 @@ UCUM = "http://unitsofmeasure.org"
 
 Q, S = Quantity, Specimen
 
-# (LOINC, quantity, specimen implied by the code). Source of each row beside it:
-# standards.md §1.x table and its verification tags; contract.md §2 lists the same codes.
+# (LOINC, quantity, specimen implied by the code). Beside each row: the LOINC component and
+# system (BldA arterial, BldV venous, BldMV mixed venous, BldCV central venous, BldC capillary,
+# Bld not stated), and the published HL7 material where its meaning was seen (FHIR core
+# observation-vitalsign-oxygensat ValueSet, FHIR vital-signs profiles, US Core Pulse Oximetry,
+# HL7 SANER VentilatorObservations ValueSet, HL7 MCC eCare Plan IG examples); "from memory"
+# where it was not re-checked. The README's input table lists the same codes.
 LOINC_ROWS: list[tuple[str, Quantity, Specimen | None]] = [
-    ("2703-7", Q.ARTERIAL_PO2, S.ARTERIAL),  # standards.md §1.2 (GEC, VA, DIC, LNm)
-    ("2019-8", Q.ARTERIAL_PCO2, S.ARTERIAL),  # standards.md §1.2 (GEC, VA, DIC)
-    ("2744-1", Q.ARTERIAL_PH, S.ARTERIAL),  # standards.md §1.2 (GEC, 2ry)
-    ("1960-4", Q.ARTERIAL_HCO3, S.ARTERIAL),  # standards.md §1.2 (2ry)
-    ("1925-7", Q.ARTERIAL_BASE_EXCESS, S.ARTERIAL),  # standards.md §1.2 (LNm)
-    ("2708-6", Q.ARTERIAL_SO2, S.ARTERIAL),  # standards.md §1.2 + §1.9 (alone: co-oximetry)
-    ("2714-4", Q.ARTERIAL_O2HB, S.ARTERIAL),  # LOINC: fractional oxyhaemoglobin, arterial
-    ("59408-5", Q.SPO2, None),  # standards.md §1.3 (USC, FVS)
-    ("59417-6", Q.SPO2, None),  # standards.md §1.3 (FVS)
-    ("59407-7", Q.SPO2, None),  # standards.md §1.3 (GEC, preductal)
-    ("59418-4", Q.SPO2, None),  # standards.md §1.3 (LNC, postductal)
-    ("2705-2", Q.VENOUS_PO2, S.VENOUS),  # standards.md §1.4 (EHC, VA, DIC)
-    ("2021-4", Q.VENOUS_PCO2, S.VENOUS),  # standards.md §1.4 (EHC, VA, DIC)
-    ("2746-6", Q.VENOUS_PH, S.VENOUS),  # standards.md §1.4 (2ry)
-    ("2711-0", Q.VENOUS_SO2, S.VENOUS),  # standards.md §1.4 (LNC, VA)
-    ("19211-2", Q.MIXED_VENOUS_PO2, S.MIXED_VENOUS),  # standards.md §1.4 (VA)
-    ("19224-5", Q.MIXED_VENOUS_SO2, S.MIXED_VENOUS),  # standards.md §1.4 (LNm, VAL)
-    ("97549-0", Q.CENTRAL_VENOUS_SO2, S.CENTRAL_VENOUS),  # standards.md §1.4 (2ry, VAL)
-    ("2704-5", Q.CAPILLARY_PO2, S.CAPILLARY),  # standards.md §1.5 (GEC, VA)
-    ("2020-6", Q.CAPILLARY_PCO2, S.CAPILLARY),  # standards.md §1.5 (GEC, VA)
-    ("2745-8", Q.CAPILLARY_PH, S.CAPILLARY),  # standards.md §1.5 (GEC, LNm)
-    ("11556-8", Q.ARTERIAL_PO2, S.UNKNOWN),  # standards.md §1.6 (GEC, DIC): Bld, flagged
-    ("11557-6", Q.ARTERIAL_PCO2, S.UNKNOWN),  # standards.md §1.6 (GEC, DIC)
-    ("11558-4", Q.ARTERIAL_PH, S.UNKNOWN),  # standards.md §1.6 (GEC)
-    ("3150-0", Q.FIO2, None),  # standards.md §1.7 (USC, GEC, LNm)
-    ("71835-3", Q.FIO2, None),  # standards.md §1.7 (MII)
-    ("19994-3", Q.FIO2, None),  # standards.md §1.7 (MII, SAN): ventilator setting
-    ("3151-8", Q.OXYGEN_FLOW, None),  # standards.md §1.7 (USC)
-    ("19941-4", Q.OXYGEN_FLOW, None),  # standards.md §1.7 (GEC)
-    ("107117-4", Q.OXYGEN_DEVICE, None),  # standards.md §1.7 (2ry, confirm)
-    ("20077-4", Q.PEEP, None),  # standards.md §1.7 (SAN, 2ry)
-    ("76248-4", Q.PEEP, None),  # standards.md §1.7 (MII)
-    ("76530-5", Q.MEAN_AIRWAY_PRESSURE, None),  # standards.md §1.7 (SAN, MII)
-    ("9279-1", Q.RESPIRATORY_RATE, None),  # standards.md §1.7 (GEC, VAL)
-    ("8310-5", Q.BODY_TEMPERATURE, None),  # standards.md §1.8 (GEC, VAL, USC)
-    ("718-7", Q.HAEMOGLOBIN, None),  # standards.md §1.8 (GEC, VA)
-    ("55782-7", Q.HAEMOGLOBIN, None),  # standards.md §1.8 (GEC)
-    ("30313-1", Q.HAEMOGLOBIN, S.ARTERIAL),  # standards.md §1.2 (MII)
-    ("14775-1", Q.HAEMOGLOBIN, S.ARTERIAL),  # standards.md §1.2 (GEC)
-    ("20563-3", Q.CARBOXYHAEMOGLOBIN, None),  # standards.md §1.8 (MIM, 2ry)
-    ("2614-6", Q.METHAEMOGLOBIN, None),  # standards.md §1.8 (MIM, 2ry; 2614-6 not -4)
-    ("76268-2", Q.BAROMETRIC_PRESSURE, None),  # standards.md §1.8 (LNm)
-    ("19911-7", Q.DLCO, None),  # standards.md §1.8 (LNC)
+    ("2703-7", Q.ARTERIAL_PO2, S.ARTERIAL),  # O2 partial pressure, BldA (MCC IG example)
+    ("2019-8", Q.ARTERIAL_PCO2, S.ARTERIAL),  # CO2 partial pressure, BldA (MCC IG)
+    ("2744-1", Q.ARTERIAL_PH, S.ARTERIAL),  # pH, BldA (from memory)
+    ("1960-4", Q.ARTERIAL_HCO3, S.ARTERIAL),  # bicarbonate, BldA (from memory)
+    ("1925-7", Q.ARTERIAL_BASE_EXCESS, S.ARTERIAL),  # base excess, BldA (from memory)
+    ("2708-6", Q.ARTERIAL_SO2, S.ARTERIAL),  # O2 sat, BldA (FHIR oxygensat VS); alone: co-oximetry
+    ("2714-4", Q.ARTERIAL_O2HB, S.ARTERIAL),  # O2Hb/total Hb, BldA (from memory)
+    ("59408-5", Q.SPO2, None),  # O2 sat, BldA, pulse oximetry (FHIR oxygensat ValueSet, US Core)
+    ("59417-6", Q.SPO2, None),  # O2 sat, BldA, pulse oximetry, resting (FHIR oxygensat ValueSet)
+    ("59407-7", Q.SPO2, None),  # O2 sat, preductal, pulse oximetry (from memory)
+    ("59418-4", Q.SPO2, None),  # O2 sat, postductal, pulse oximetry (from memory)
+    ("2705-2", Q.VENOUS_PO2, S.VENOUS),  # O2 partial pressure, BldV (from memory)
+    ("2021-4", Q.VENOUS_PCO2, S.VENOUS),  # CO2 partial pressure, BldV (from memory)
+    ("2746-6", Q.VENOUS_PH, S.VENOUS),  # pH, BldV (from memory)
+    ("2711-0", Q.VENOUS_SO2, S.VENOUS),  # O2 saturation, BldV (from memory)
+    ("19211-2", Q.MIXED_VENOUS_PO2, S.MIXED_VENOUS),  # O2 partial pressure, BldMV (from memory)
+    ("19224-5", Q.MIXED_VENOUS_SO2, S.MIXED_VENOUS),  # O2 saturation, BldMV (from memory)
+    ("97549-0", Q.CENTRAL_VENOUS_SO2, S.CENTRAL_VENOUS),  # O2 saturation, BldCV (from memory)
+    ("2704-5", Q.CAPILLARY_PO2, S.CAPILLARY),  # O2 partial pressure, BldC (from memory)
+    ("2020-6", Q.CAPILLARY_PCO2, S.CAPILLARY),  # CO2 partial pressure, BldC (from memory)
+    ("2745-8", Q.CAPILLARY_PH, S.CAPILLARY),  # pH, BldC (from memory)
+    ("11556-8", Q.ARTERIAL_PO2, S.UNKNOWN),  # O2 partial pressure, Bld: flagged (from memory)
+    ("11557-6", Q.ARTERIAL_PCO2, S.UNKNOWN),  # CO2 partial pressure, Bld (from memory)
+    ("11558-4", Q.ARTERIAL_PH, S.UNKNOWN),  # pH, Bld (from memory)
+    ("3150-0", Q.FIO2, None),  # inhaled O2 concentration (from memory)
+    ("71835-3", Q.FIO2, None),  # O2/gas total, inhaled gas (from memory)
+    ("19994-3", Q.FIO2, None),  # ventilator FiO2 setting (HL7 SANER ValueSet)
+    ("3151-8", Q.OXYGEN_FLOW, None),  # inhaled O2 flow rate (US Core example)
+    ("19941-4", Q.OXYGEN_FLOW, None),  # O2 gas flow, delivery system (from memory)
+    ("107117-4", Q.OXYGEN_DEVICE, None),  # method of O2 delivery (from memory)
+    ("20077-4", Q.PEEP, None),  # PEEP setting, ventilator (HL7 SANER ValueSet)
+    ("76248-4", Q.PEEP, None),  # PEEP, on ventilator (from memory)
+    ("76530-5", Q.MEAN_AIRWAY_PRESSURE, None),  # mean airway pressure, on ventilator (from memory)
+    ("9279-1", Q.RESPIRATORY_RATE, None),  # respiratory rate (FHIR vital-signs profile)
+    ("8310-5", Q.BODY_TEMPERATURE, None),  # body temperature (FHIR vital-signs profile)
+    ("718-7", Q.HAEMOGLOBIN, None),  # haemoglobin, Bld (from memory)
+    ("55782-7", Q.HAEMOGLOBIN, None),  # haemoglobin, Bld, oximetry (from memory)
+    ("30313-1", Q.HAEMOGLOBIN, S.ARTERIAL),  # haemoglobin, BldA (from memory)
+    ("14775-1", Q.HAEMOGLOBIN, S.ARTERIAL),  # haemoglobin, BldA, oximetry (from memory)
+    ("20563-3", Q.CARBOXYHAEMOGLOBIN, None),  # COHb/total Hb, Bld (from memory)
+    ("2614-6", Q.METHAEMOGLOBIN, None),  # MetHb/total Hb, Bld (from memory; 2614-6, not -4)
+    ("76268-2", Q.BAROMETRIC_PRESSURE, None),  # ambient pressure (from memory)
+    ("19911-7", Q.DLCO, None),  # DLCO (from memory)
 ]
 
-# Project CodeSystem https://oxyrule.org/fhir/CodeSystem/input — contract.md §2.
+# Project CodeSystem https://oxyrule.org/fhir/CodeSystem/input (README, What it reads).
 INPUT_ROWS = [
     ("altitude", Q.ALTITUDE),
     ("dlco-percent-predicted", Q.DLCO_PERCENT_PREDICTED),
@@ -151,7 +155,8 @@ def test_project_input_code_is_read_from_a_bundle(code: str, quantity: Quantity)
 
 
 def test_fio2_codes_name_their_source() -> None:
-    # standards.md §1.7: 19994-3 is the ventilator's set FiO2; 3150-0 and 71835-3 are measured.
+    # LOINC: 19994-3 is the ventilator's set FiO2 ("Oxygen/Total gas setting [Volume Fraction]
+    # Ventilator", HL7 SANER ValueSet); 3150-0 and 71835-3 are measured (from memory).
     sources = {c: codes.LOINC_CONCEPTS[c].fio2_source for c in ("3150-0", "71835-3", "19994-3")}
     assert sources == {
         "3150-0": Fio2Source.MEASURED,
@@ -167,7 +172,7 @@ def test_unit_dimension_matches_the_intake_canonical_unit() -> None:
 
 
 def test_system_urls() -> None:
-    # standards.md §1 (LOINC), §2 (UCUM), §1.1 (SNOMED CT, v2 table 0487); contract.md §2.
+    # FHIR R4 terminology URIs of LOINC, UCUM, SNOMED CT and HL7 v2 table 0487 (THO).
     assert codes.LOINC == "http://loinc.org"
     assert codes.UCUM == "http://unitsofmeasure.org"
     assert codes.SNOMED_CT == "http://snomed.info/sct"
@@ -177,7 +182,7 @@ def test_system_urls() -> None:
 
 
 def test_specimen_codes() -> None:
-    # standards.md §1.1: SNOMED CT specimen concepts (2ry) and HL7 v2 table 0487 (UTG).
+    # SNOMED CT specimen concepts (from memory) and HL7 v2 table 0487 (HL7 terminology, THO).
     assert codes.SPECIMEN_TYPES[(codes.SNOMED_CT, "122552005")] is S.ARTERIAL
     assert codes.SPECIMEN_TYPES[(codes.SNOMED_CT, "122555007")] is S.VENOUS
     assert codes.SPECIMEN_TYPES[(codes.SNOMED_CT, "122554006")] is S.CAPILLARY

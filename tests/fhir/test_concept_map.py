@@ -1,4 +1,4 @@
-"""Local codes to LOINC through a FHIR R4 ConceptMap (contract.md §2)."""
+"""Local codes to LOINC through a FHIR R4 ConceptMap (README, What it reads)."""
 
 from __future__ import annotations
 

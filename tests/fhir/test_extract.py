@@ -55,7 +55,7 @@ def issues(intake: Intake, code: str) -> list[IntakeIssue]:
 
 
 def test_kpa_and_mmhg_feeds_give_the_same_canonical_values() -> None:
-    # UCUM essence: m[Hg] = 133.3220 kPa, so 1 mm[Hg] = 0.1333220 kPa (standards.md §2).
+    # UCUM essence: m[Hg] = 133.3220 kPa, so 1 mm[Hg] = 0.1333220 kPa.
     assert KPA_PER_MMHG == 0.1333220
     in_mmhg = bundle(
         observation("2703-7", 72.0, "mm[Hg]", oid="a"),
@@ -93,12 +93,12 @@ def test_canonical_unit_is_not_reported() -> None:
 @pytest.mark.parametrize(
     ("value", "unit", "severity"),
     [
-        # LOINC 3150-0 example unit is % (standards.md §1.7): held as a fraction inside the
+        # LOINC 3150-0 example unit is % (from memory): held as a fraction inside the
         # service, which is a representation, not a conversion worth an issue.
         (21, "%", None),
-        (0.21, "1", None),  # 71835-3 is a pure fraction (standards.md §1.7)
-        (0.21, "%", Severity.WARNING),  # a fraction sent with % (MII example, standards.md §1.7)
-        (21, "1", Severity.WARNING),  # a percentage sent with unit 1 (standards.md §1.7)
+        (0.21, "1", None),  # 71835-3 is a pure fraction (LOINC, from memory)
+        (0.21, "%", Severity.WARNING),  # a fraction sent with % (common practice)
+        (21, "1", Severity.WARNING),  # a percentage sent with unit 1
     ],
 )
 def test_fio2_forms_all_read_as_0_21(value: float, unit: str, severity: Severity | None) -> None:
@@ -194,7 +194,7 @@ def test_dlco_is_read_in_its_canonical_unit_only() -> None:
     assert caught.value.problems[0].expression == "Bundle.entry[0].resource.valueQuantity.code"
 
 
-# --- SpO2 versus SaO2 (standards.md §1.9) -----------------------------------------------------
+# --- SpO2 versus SaO2 (US Core Pulse Oximetry profile) -------------------------------------
 
 
 @pytest.mark.parametrize(
@@ -221,7 +221,8 @@ def test_2708_6_in_a_us_core_pulse_oximetry_profile_is_spo2(profile: str) -> Non
 
 
 def test_2708_6_alone_is_arterial_so2() -> None:
-    # standards.md §1.2 / §1.9: 2708-6 without 59408-5 is SaO2 by co-oximetry.
+    # FHIR core oxygensat profile, US Core Pulse Oximetry: 2708-6 without 59408-5 is SaO2 by
+    # co-oximetry.
     m = only(read_bundle(bundle(observation("2708-6", 93, "%"))))
     assert m.quantity is Quantity.ARTERIAL_SO2
     assert m.specimen is Specimen.ARTERIAL
@@ -240,8 +241,8 @@ def test_first_known_coding_wins() -> None:
 @pytest.mark.parametrize(
     ("status", "severity"),
     [
-        ("entered-in-error", Severity.INFORMATION),  # contract.md §2
-        ("cancelled", Severity.INFORMATION),  # contract.md §2
+        ("entered-in-error", Severity.INFORMATION),  # FHIR R4 observation-status
+        ("cancelled", Severity.INFORMATION),  # FHIR R4 observation-status
         ("registered", Severity.INFORMATION),
         ("unknown", Severity.WARNING),
     ],
@@ -261,7 +262,7 @@ def test_status_of_a_result_is_used(status: str) -> None:
     assert only(read_bundle(bundle(observation("2703-7", 80, "mm[Hg]", status=status))))
 
 
-# --- Specimen for "Bld" codes (standards.md §1.1, §1.6) --------------------------------------
+# --- Specimen for "Bld" codes (LOINC system Bld: blood, type not stated) -------------------
 
 
 def test_unspecified_blood_without_specimen_is_flagged_unknown() -> None:
@@ -360,7 +361,7 @@ def test_us_core_pulse_oximetry_components_become_measurements() -> None:
 
 def test_components_of_an_unknown_panel_are_read() -> None:
     panel = observation(
-        "24336-0",  # Gas panel - Arterial blood (standards.md §1.2): not read itself
+        "24336-0",  # Gas panel - Arterial blood (HL7 MCC eCare Plan IG example): not read itself
         component=[
             {
                 "code": {"coding": [{"system": LN, "code": "2703-7"}]},
@@ -581,7 +582,7 @@ def test_a_thousand_observations() -> None:
 
 
 def test_reading_a_bundle_does_not_import_fhir_resources() -> None:
-    # performance.md: fhir.resources stays out of the per-request path.
+    # fhir.resources stays out of the per-request path (README, Performance: 51–95× a parse).
     script = (
         "import sys, json, pathlib\n"
         "from service.fhir.extract import read_bundle\n"

@@ -228,7 +228,7 @@ def test_malformed_location_altitude_is_a_located_error() -> None:
     ],
 )
 def test_non_bundle_input_is_refused(data: object, found: str) -> None:
-    # contract.md §1: a body that is not a Bundle is a 400, told apart from a fixable Bundle.
+    # A body that is not a Bundle is a 400, told apart from a fixable Bundle (a 422).
     with pytest.raises(NotABundleError):
         read_bundle(data)
     [problem] = refused(data)
@@ -244,7 +244,7 @@ def test_every_problem_is_collected_and_raised_once() -> None:
     )
     with pytest.raises(BundleError) as caught:
         read_bundle(data)
-    assert not isinstance(caught.value, NotABundleError)  # contract.md §1: 422, not 400
+    assert not isinstance(caught.value, NotABundleError)  # a fixable Bundle: 422, not 400
     expressions = [p.expression for p in refused(data)]
     assert expressions == [
         "Bundle.entry[0].resource.valueQuantity.value",

@@ -1,4 +1,4 @@
-"""BundleError and the OperationOutcome it becomes (standards.md §3.6)."""
+"""BundleError and the OperationOutcome it becomes (FHIR R4 OperationOutcome)."""
 
 from __future__ import annotations
 

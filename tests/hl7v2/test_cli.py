@@ -1,4 +1,4 @@
-"""``oxyrule assess`` with an HL7 v2 file (contract §1: "an HL7 v2 file"), and ``mllp``."""
+"""``oxyrule assess`` with an HL7 v2 file (README, Using it), and ``mllp``."""
 
 from __future__ import annotations
 

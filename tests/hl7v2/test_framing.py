@@ -1,4 +1,4 @@
-"""MLLP framing (standards.md §5.3: ``0x0B <message> 0x1C 0x0D``), decoded incrementally."""
+"""MLLP framing (HL7 MLLP, release 2: ``0x0B <message> 0x1C 0x0D``), decoded incrementally."""
 
 from __future__ import annotations
 

@@ -1,6 +1,6 @@
 """handle_v2: one message in, the answer the HTTP layer and the MLLP listener send back.
 
-MSA-1 codes are HL7 table 0008 (standards.md §5.2): AA accepted (assessed), AE content
+MSA-1 codes are HL7 table 0008 (HL7 v2.5.1 chapter 2): AA accepted (assessed), AE content
 error, AR rejected (type, version, processing id, not a message, our own failure).
 """
 

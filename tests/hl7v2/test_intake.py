@@ -1,8 +1,7 @@
 """ORU^R01 -> Intake, checked against the HL7 V2-to-FHIR mapping rules.
 
-Each mapping assertion names the rule of IG ``hl7.fhir.uv.v2mappings`` 1.0.0 it follows, as
-summarised in standards.md §5.4 ("V2F: OBX-14 -> effectiveDateTime" and so on); the LOINC and
-UCUM facts are those of standards.md §1-§2.
+Each mapping assertion names the rule of IG ``hl7.fhir.uv.v2mappings`` 1.0.0 it follows, marked
+"V2F: OBX-14 -> effectiveDateTime" and so on; LOINC and UCUM facts name their source.
 """
 
 from __future__ import annotations
@@ -50,7 +49,7 @@ def test_mmhg_feed_reads_loinc_codes_into_canonical_measurements() -> None:
     intake = read(gas())
     pao2 = only(intake, Quantity.ARTERIAL_PO2)
     # V2F: OBX-3 -> Observation.code, CWE.3 "LN" -> http://loinc.org (table 0396);
-    # standards.md §1.2: 2703-7 is PaO2, BldA.
+    # LOINC 2703-7: Oxygen [Partial pressure] in Arterial blood (HL7 MCC eCare Plan IG example).
     assert pao2.value == 62.0
     assert pao2.specimen is Specimen.ARTERIAL
     # V2F: OBX-5 (OBX-2 NM) -> valueQuantity.value; OBX-6 -> valueQuantity.code (UCUM).
@@ -66,7 +65,7 @@ def test_mmhg_feed_reads_loinc_codes_into_canonical_measurements() -> None:
 def test_kpa_feed_is_converted_with_the_ucum_factor_and_reported() -> None:
     intake = read(message(obr(), obx(1, "2703-7", "8.0", KPA), obx(2, "2019-8", "5.3", KPA)))
     pao2 = only(intake, Quantity.ARTERIAL_PO2)
-    # standards.md §2 (UCUM): 1 kPa = 7.500638 mm[Hg].
+    # UCUM: m[Hg] = 133.3220 kPa, so 1 kPa = 7.500638 mm[Hg].
     assert pao2.value == pytest.approx(8.0 * 7.500638, abs=1e-4)
     assert (pao2.sent_value, pao2.sent_unit) == (8.0, "kPa")
     assert issues(intake, "unit-converted") == [
@@ -82,7 +81,7 @@ def test_unit_from_the_alternate_ucum_triplet_of_obx_6() -> None:
 
 
 def test_obr_7_is_the_time_when_obx_14_is_empty() -> None:
-    # V2F: OBX-14 -> effectiveDateTime, else OBR-7 (standards.md §5.1: "fallback for OBX-14").
+    # V2F: OBX-14 -> effectiveDateTime, else OBR-7 (the observation date/time of the order group).
     intake = read(message(obr(when="20260105093000+0100"), obx(1, "2703-7", "62", when="")))
     assert only(intake, Quantity.ARTERIAL_PO2).time == datetime(2026, 1, 5, 9, 30, tzinfo=CET)
 
@@ -148,14 +147,14 @@ def test_a_message_without_pid_has_no_patient() -> None:
 def test_spo2_and_sao2_both_arrive_as_two_quantities() -> None:
     text = message(obr(), obx(1, "2708-6", "91", PERCENT), obx(2, "59408-5", "93", PERCENT))
     intake = read(text)
-    # standards.md §1.2/§1.3: 2708-6 alone is SaO2 (co-oximetry), 59408-5 is SpO2.
+    # US Core Pulse Oximetry: 2708-6 alone is SaO2 (co-oximetry), 59408-5 is SpO2.
     assert only(intake, Quantity.ARTERIAL_SO2).value == pytest.approx(0.91)
     assert only(intake, Quantity.SPO2).value == pytest.approx(0.93)
 
 
 def test_2708_6_with_a_pulse_oximetry_alternate_code_is_spo2() -> None:
     # V2F: CWE components 4-6 are a second coding of the same Observation.code;
-    # standards.md §1.9: 2708-6 beside 59408-5 does not mean SaO2.
+    # US Core Pulse Oximetry profile: 2708-6 beside 59408-5 does not mean SaO2.
     text = message(obr(), obx(1, "2708-6^O2 sat^LN^59408-5^SpO2^LN", "93", PERCENT, system=""))
     assert only(read(text), Quantity.SPO2).value == pytest.approx(0.93)
 
@@ -166,7 +165,7 @@ def test_2708_6_with_a_pulse_oximetry_alternate_code_is_spo2() -> None:
 def test_capillary_and_venous_samples_are_read_as_such() -> None:
     text = message(
         obr(1),
-        obx(1, "2704-5", "55"),  # capillary PO2 (standards.md §1.5)
+        obx(1, "2704-5", "55"),  # capillary PO2 (LOINC system BldC, from memory)
         obr(2),
         obx(2, "11556-8", "40"),  # PO2 in Blood: specimen from SPM-4
         spm("BLDV"),
@@ -181,7 +180,7 @@ def test_capillary_and_venous_samples_are_read_as_such() -> None:
 
 
 def test_obr_15_gives_the_specimen_of_older_messages() -> None:
-    # standards.md §1.1: "v2 SPM-4 / OBR-15"; table 0070 BLDC is capillary blood.
+    # V2-to-FHIR: SPM-4, in older messages OBR-15; table 0070 BLDC is capillary blood (from memory).
     text = message(obr(specimen="BLDC&Capillary blood&HL70070"), obx(1, "11556-8", "50"))
     assert only(read(text), Quantity.CAPILLARY_PO2).specimen is Specimen.CAPILLARY
 
@@ -344,7 +343,7 @@ def test_an_impossible_value_is_not_used_and_reported() -> None:
 
 
 def test_an_fio2_fraction_sent_as_percent_is_reinterpreted_with_a_warning() -> None:
-    # standards.md §1.7: "value <= 1.0 with % is almost certainly a fraction".
+    # Common practice: an FiO2 of 1.0 or less sent with % is a fraction.
     intake = read(message(obr(), obx(1, "3150-0", "0.4", PERCENT)))
     assert only(intake, Quantity.FIO2).value == pytest.approx(0.4)
     assert issues(intake, "unit-converted") == [("OBX[1]-6", Severity.WARNING)]
@@ -362,7 +361,7 @@ def test_unknown_codes_and_codes_without_a_coding_system_are_ignored_and_named()
 
 
 def test_local_codes_go_through_the_same_concept_map_as_fhir() -> None:
-    # contract §2: local codes are mapped to LOINC by the site's ConceptMap; for v2 the
+    # README, What it reads: local codes are mapped to LOINC by the site's ConceptMap; for v2 the
     # ConceptMap's group.source is the coding system as sent in OBX-3.3.
     concept_map = LocalCodeMap({("99LAB", "PO2-A"): "2703-7"})
     intake = read(message(obr(), obx(1, "PO2-A", "62", system="99LAB")), concept_map)

@@ -14,7 +14,7 @@ def test_fields_components_and_escapes_are_read_unescaped() -> None:
     text = message(obr(), "NTE|1|L|a \\T\\ b \\F\\ c^second&sub~rep")
     parsed = parse_message(text)
     nte = parsed.all("NTE")[0]
-    # HL7 v2 §2.7 escape sequences: \T\ is '&', \F\ is '|'.
+    # HL7 v2.5.1 chapter 2 escape sequences: \T\ is '&', \F\ is '|'.
     assert nte.value(3) == "a & b | c"
     assert nte.value(3, 2) == "second"
     assert nte.value(3, 2, 2) == "sub"

@@ -1,7 +1,7 @@
 """One pipeline: the v2 adapter gives the same measurements and issue codes as the FHIR
 adapter for the same observation, so everything after the intake cannot tell them apart.
 
-V2F (standards.md §5.4): OBX-3 -> code, OBX-5 (NM) -> valueQuantity.value, OBX-6 ->
+V2F (HL7 V2-to-FHIR IG): OBX-3 -> code, OBX-5 (NM) -> valueQuantity.value, OBX-6 ->
 valueQuantity.code; each case is sent both ways and read by each adapter.
 """
 

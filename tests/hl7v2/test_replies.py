@@ -1,8 +1,9 @@
 """The ACK and the ORU^R01 result, read back with python-hl7 as a receiver would.
 
-ACK layout: standards.md §5.2 (MSH sender/receiver swapped, MSA-1 AA/AE/AR from table 0008,
+ACK layout: HL7 v2.5.1 chapter 2 (MSH sender/receiver swapped, MSA-1 AA/AE/AR from table 0008,
 MSA-2 = MSH-10 of the message acknowledged, ERR-2 location, ERR-3 table 0357 code, ERR-4
-severity). Result codes: standards.md §1.8 (A-a 19991-9, P/F 50984-4, a/A 78354-8).
+severity). Result codes: LOINC (A-a 19991-9 and a/A 78354-8 from memory; P/F 50984-4 "Horowitz index
+in Arterial blood").
 """
 
 from __future__ import annotations
@@ -96,7 +97,7 @@ def test_the_result_carries_derived_values_grades_findings_and_the_caution(
     assert str(reply["OBR.F25"]) == "F"
     assert "not a diagnosis" in reply.unescape(str(reply.segment("NTE")[3]))
     by_code = {str(o[3][0][0]): o for o in reply.segments("OBX")}
-    # standards.md §1.8: LOINC terms for the derived values that have one, coding system LN.
+    # LOINC terms for the derived values that have one, coding system LN (HL7 table 0396).
     for loinc in ("19991-9", "50984-4", "78354-8"):
         assert str(by_code[loinc][3][0][2]) == "LN"
         assert str(by_code[loinc][2]) == "NM"

@@ -1,4 +1,4 @@
-"""HL7 v2 DTM values (v2.5 §2A DTM: YYYY[MM[DD[HH[MM[SS[.S[S[S[S]]]]]]]]][+/-ZZZZ])."""
+"""HL7 v2 DTM values (HL7 v2.5 chapter 2A, DTM: YYYY[MM[DD[HH[MM[SS[.S[S[S[S]]]]]]]]][+/-ZZZZ])."""
 
 from __future__ import annotations
 

@@ -1,11 +1,11 @@
 """The v2 twins of two demo Bundles are assessed exactly as their FHIR originals.
 
 ``fixtures/hl7v2/<name>.hl7`` carries the same invented data as
-``fixtures/demo/<name>.bundle.json``, mapped field by field as V2-to-FHIR does (standards.md
-§5.4: PID-7 -> birthDate, PID-8 -> gender, OBX-3 -> code, OBX-5/OBX-6 -> valueQuantity,
-OBX-14 -> effectiveDateTime, SPM-4 -> Specimen.type). The altitude, which FHIR carries as
-``Location.position.altitude``, is sent as an OBX with the project input code ``altitude``
-(contract §2: "Location or altitude Observation").
+``fixtures/demo/<name>.bundle.json``, mapped field by field as V2-to-FHIR does (IG
+hl7.fhir.uv.v2mappings: PID-7 -> birthDate, PID-8 -> gender, OBX-3 -> code, OBX-5/OBX-6 ->
+valueQuantity, OBX-14 -> effectiveDateTime, SPM-4 -> Specimen.type). The altitude, which FHIR
+carries as ``Location.position.altitude``, is sent as an OBX with the project input code
+``altitude`` (README, What it reads).
 """
 
 from __future__ import annotations
@@ -78,7 +78,7 @@ def test_altitude_visitor_is_low_inspired_oxygen_on_both_paths(runtime: Runtime)
 
 
 def test_a_kpa_feed_is_graded_as_the_mmhg_feed(runtime: Runtime) -> None:
-    # standards.md §2: "many non-US labs send kPa"; UCUM 1 kPa = 7.500638 mm[Hg].
+    # Many laboratories outside the US send kPa (common practice); UCUM 1 kPa = 7.500638 mm[Hg].
     text = fixture("post-operative-drowsiness.hl7")
     for mmhg in ("62", "65", "762"):
         kpa = f"{float(mmhg) / 7.500638:.4f}"

@@ -23,8 +23,8 @@ def test_normal_gas_has_40_nmol_of_hydrogen_ion() -> None:
 
 
 def test_grocott_summit_gas_is_internally_consistent() -> None:
-    # Grocott 2009 at 8400 m, values from memory (physiology.md §5): pH 7.53, PaCO2 13.3,
-    # HCO3 10.8 → [H+] 29.6 nmol/L, pH 7.53 [CALC].
+    # Grocott MPW et al., N Engl J Med 2009;360:140 at 8400 m; PaCO2 13.3 from the abstract, pH
+    # 7.53 and HCO3 10.8 from memory: HCO3 10.8 → [H+] 29.6 nmol/L, pH 7.53 [CALC].
     check = henderson_check(ph=7.53, paco2_mmhg=13.3, hco3_mmol_l=10.8)
     assert check.ph_implied == pytest.approx(7.53, abs=0.005)
     assert abs(check.ph_difference) < 0.01
@@ -47,7 +47,7 @@ def test_hydrogen_ion_and_ph_round_trip() -> None:
 @pytest.mark.parametrize(
     ("paco2", "chronicity", "hco3"),
     [
-        # physiology.md §10 example [CALC] from Narins & Emmett 1980 / Berend et al. NEJM 2014:
+        # [calc] from Narins & Emmett, Medicine 1980;59:161 / Berend et al. NEJM 2014;371:1434:
         # PaCO2 60 → HCO3 26 acute, 31–32 chronic.
         (60.0, Chronicity.ACUTE, 26.0),
         (60.0, Chronicity.CHRONIC, 31.0),

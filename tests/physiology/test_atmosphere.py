@@ -57,7 +57,7 @@ def test_west_model_reproduces_the_pressure_measured_on_the_everest_summit() -> 
 def test_west_model_tracks_pressures_measured_on_everest(
     altitude_m: float, measured_mmhg: float
 ) -> None:
-    # physiology.md §3 notes West 1996 reproduces these within about ±4.3 mmHg; ±5 allowed.
+    # West 1996 reproduces these within 4.3 mmHg [calc]; ±5 allowed.
     assert barometric_pressure_west_mmhg(altitude_m=altitude_m) == pytest.approx(
         measured_mmhg, abs=5.0
     )
@@ -65,7 +65,7 @@ def test_west_model_tracks_pressures_measured_on_everest(
 
 def test_isa_underestimates_high_mountain_pressure_as_west_reports() -> None:
     # West et al. 1983 abstract: measured pressures "considerably higher" than the ICAO
-    # atmosphere; physiology.md §3: ISA is 6–7 % low at 8000–8848 m.
+    # atmosphere; ISA is 6–7 % below West 1996 at 8000–8848 m [calc].
     isa = barometric_pressure_isa_mmhg(altitude_m=8848.0)
     west = barometric_pressure_west_mmhg(altitude_m=8848.0)
     assert 0.05 < (west - isa) / west < 0.08

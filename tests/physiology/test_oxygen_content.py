@@ -18,7 +18,7 @@ from tests.physiology.iso_shunt import ISO_SHUNT_TABLE, pao2_on_iso_shunt_line
 
 @pytest.mark.parametrize(("hufner", "content"), [(1.34, 19.90), (1.39, 20.63)])
 def test_arterial_content_worked_value(hufner: float, content: float) -> None:
-    # physiology.md §8 [CALC]: Hb 15, SaO2 0.975, PaO2 100.
+    # [calc] from the content equation (k × Hb × SaO2 + 0.003 PaO2): Hb 15, SaO2 0.975, PaO2 100.
     assert oxygen_content_ml_dl(
         haemoglobin_g_dl=15.0, saturation=0.975, po2_mmhg=100.0, hufner_ml_per_g=hufner
     ) == pytest.approx(content, abs=0.005)
@@ -26,7 +26,7 @@ def test_arterial_content_worked_value(hufner: float, content: float) -> None:
 
 def test_arterial_content_at_8400_m_matches_grocott_2009() -> None:
     # Grocott et al., NEJM 2009 (abstract): mean CaO2 145.8 mL/L at 8400 m. Hb 19.3 and
-    # SaO2 54.0 % are from memory (physiology.md §5); with Hüfner 1.39 they give 14.56 mL/dL.
+    # SaO2 54.0 % are from memory; with Hüfner 1.39 they give 14.56 mL/dL [calc].
     content = oxygen_content_ml_dl(
         haemoglobin_g_dl=19.3, saturation=0.540, po2_mmhg=24.6, hufner_ml_per_g=1.39
     )
@@ -35,7 +35,7 @@ def test_arterial_content_at_8400_m_matches_grocott_2009() -> None:
 
 def _shunt_on_pure_oxygen(*, aa_mmhg: float, av_difference: float) -> float:
     """Shunt for a given A-a on FiO2 1.0 at sea level, PaCO2 40, Hb 15, saturations from the
-    curve on both sides (how physiology.md §8 computed its table)."""
+    curve on both sides (how the table below was computed [calc])."""
     pao2_alv = alveolar_po2_mmhg(fio2=1.0, paco2_mmhg=40.0)
     pao2 = pao2_alv - aa_mmhg
     capillary = end_capillary_content_ml_dl(
@@ -53,7 +53,7 @@ def _shunt_on_pure_oxygen(*, aa_mmhg: float, av_difference: float) -> float:
 
 @pytest.mark.parametrize(
     ("aa", "shunt_avd5", "shunt_avd35"),
-    # physiology.md §8 table [CALC] on FiO2 1.0. (Its caption's "fully saturated" shortcut,
+    # Table [calc] of the Berggren shunt equation on FiO2 1.0. (The "fully saturated" shortcut,
     # 0.003 A-a / (0.003 A-a + avd), gives 0.1–0.3 points less from A-a 200 up; the table
     # itself was computed with curve saturations, as here.)
     [(50, 2.9, 4.1), (100, 5.7, 7.9), (200, 10.8, 14.7), (300, 15.4, 20.6), (400, 19.6, 25.8)],
@@ -76,7 +76,7 @@ def test_shunt_on_pure_oxygen_matches_the_derivation_table(
 @pytest.mark.parametrize("aa", [100.0, 200.0, 300.0])
 def test_shunt_agrees_with_the_five_percent_per_100_mmhg_rule(aa: float) -> None:
     # Common practice: on FiO2 1.0 at sea level, shunt % ≈ A-a / 20 (valid with avd ≈ 5,
-    # PaO2 > 150; physiology.md §8 shows the gap grows to 0.8 points at A-a 300).
+    # PaO2 > 150; the table above shows the gap grows to 0.8 points at A-a 300 [calc]).
     assert _shunt_on_pure_oxygen(aa_mmhg=aa, av_difference=5.0) * 100 == pytest.approx(
         aa / 20.0, abs=1.0
     )
@@ -85,7 +85,7 @@ def test_shunt_agrees_with_the_five_percent_per_100_mmhg_rule(aa: float) -> None
 def test_shunt_in_a_healthy_adult_breathing_pure_oxygen() -> None:
     # Toffaletti & Zavorsky, Physiol Rep 2026 (abstract): 51-year-old, FiO2 1.0, PB 752,
     # PaO2 587, PaCO2 38, SaO2 0.993, Hb 15.2: shunt 2.8–5.2 % across four methods.
-    # physiology.md §5 recomputes 4.6 % by the content method with ScO2 = SaO2 and avd 5.
+    # Our recomputation [calc]: 4.6 % by the content method with ScO2 = SaO2 and avd 5.
     pao2_alv = alveolar_po2_mmhg(fio2=1.0, paco2_mmhg=38.0, barometric_mmhg=752.0)
     capillary = end_capillary_content_ml_dl(
         haemoglobin_g_dl=15.2,
@@ -114,17 +114,18 @@ def test_shunt_equation_reproduces_the_iso_shunt_table(
 
 def test_true_shunt_stays_constant_across_two_fio2() -> None:
     # Iso-shunt principle (Benatar 1973): on one iso-shunt line, raising FiO2 leaves the
-    # computed admixture unchanged; physiology.md §8 "virtual shunt" test.
+    # computed admixture unchanged (the two-FiO2 comparison built on it).
     comparison = compare_shunt_at_two_fio2(fio2_a=1.0, shunt_a=0.30, fio2_b=0.4, shunt_b=0.30)
     assert comparison.lower_fio2 == 0.4
     assert comparison.change == pytest.approx(0.0)
     falling = compare_shunt_at_two_fio2(fio2_a=0.4, shunt_a=0.22, fio2_b=1.0, shunt_b=0.06)
-    # physiology.md §8: "falls substantially (22 % → 6 %)" points to low-V/Q units.
+    # An admixture that falls substantially (22 % → 6 %) points to low-V/Q units (iso-shunt
+    # principle, Benatar 1973; invented example).
     assert falling.change == pytest.approx(-0.16)
 
 
 def test_end_capillary_uses_measured_saturation_only_on_the_flat_part_of_the_curve() -> None:
-    # physiology.md §8 says take ScO2 = SaO2 "above a PO2 of about 150". Applied to the
+    # Common practice: take ScO2 = SaO2 above a PO2 of about 150 mmHg. Applied to the
     # *arterial* PO2 it keeps dyshaemoglobin out of the shunt; applied to PAO2 it would hide the
     # shunt of a hypoxaemic patient on oxygen. A hypoxaemic patient (PaO2 55, SaO2 0.88) on FiO2
     # 0.6 must still be computed from the curve at PAO2.

@@ -10,7 +10,7 @@ from service.physiology.oxygen_delivery import OxygenDevice, estimate_fio2
 
 @pytest.mark.parametrize(("flow", "fio2"), [(1.0, 0.25), (2.0, 0.29), (4.0, 0.37), (6.0, 0.45)])
 def test_nasal_cannula_four_percent_per_litre(flow: float, fio2: float) -> None:
-    # Common practice: FiO2 ≈ 21 % + 4 % per L/min, 1–6 L/min (physiology.md §9).
+    # Common practice: FiO2 ≈ 21 % + 4 % per L/min, 1–6 L/min (no primary source known).
     assert estimate_fio2(device=OxygenDevice.NASAL_CANNULA, flow_l_min=flow).fio2 == (
         pytest.approx(fio2)
     )
@@ -31,7 +31,8 @@ def test_nasal_cannula_range_spans_the_measured_pharyngeal_fio2(
 
 
 def test_reservoir_mask_range_is_the_guideline_range() -> None:
-    # BTS 2017 device table (secondary summary, physiology.md §9): 15 L/min ≈ 60–90 %.
+    # O'Driscoll BR et al., BTS guideline, Thorax 2017;72 Suppl 1, device table (read only in
+    # secondary summaries): reservoir mask at 15 L/min ≈ 60–90 %.
     estimate = estimate_fio2(device=OxygenDevice.NON_REBREATHER_MASK, flow_l_min=15.0)
     assert (estimate.low, estimate.high) == (0.60, 0.90)
 

@@ -21,8 +21,8 @@ def test_p50_of_the_standard_curve() -> None:
 @pytest.mark.parametrize(
     ("po2", "published_percent"),
     [
-        # Severinghaus 1979 Table 1 (standard curve data, as reproduced in secondary sources,
-        # physiology.md §6). The paper's abstract states eq. 1 fits within ±0.0055 saturation.
+        # Severinghaus 1979 Table 1 (standard curve data, as two secondary sources reproduce
+        # them). The paper's abstract states eq. 1 fits within ±0.0055 saturation.
         (26.0, 48.27),
         (30.0, 57.54),
         (40.0, 74.69),
@@ -42,7 +42,7 @@ def test_curve_fits_the_published_table_within_the_stated_error(
 
 @pytest.mark.parametrize(
     ("po2", "percent"),
-    # physiology.md §6 check values of eq. 1 [CALC].
+    # Check values [calc] of Severinghaus 1979 eq. 1.
     [(20.0, 31.98), (60.0, 90.58), (100.0, 97.75), (150.0, 99.32), (600.0, 99.99)],
 )
 def test_curve_worked_values(po2: float, percent: float) -> None:
@@ -51,7 +51,8 @@ def test_curve_worked_values(po2: float, percent: float) -> None:
 
 @pytest.mark.parametrize(
     ("saturation", "po2"),
-    # physiology.md §6 exact-inverse check values [CALC].
+    # Check values [calc] of the exact (Cardano) inverse of eq. 1 (Ellis RK, J Appl Physiol
+    # 1989;67:902).
     [(0.75, 40.04), (0.88, 54.67), (0.90, 58.66), (0.92, 63.79), (0.94, 70.87), (0.96, 81.90)],
 )
 def test_exact_inverse_worked_values(saturation: float, po2: float) -> None:

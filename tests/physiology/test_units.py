@@ -14,12 +14,12 @@ from service.physiology.units import Dimension
 def test_mmhg_to_kpa_uses_the_ucum_factor() -> None:
     # UCUM essence: m[Hg] = 133.3220 kPa, so 1 mm[Hg] = 0.1333220 kPa.
     assert u.kpa_from_mmhg(1.0) == pytest.approx(0.1333220, abs=1e-12)
-    # standards.md §2 (from the UCUM definition): 1 kPa = 7.500638 mm[Hg].
+    # UCUM: m[Hg] = 133.3220 kPa, so 1 kPa = 7.500638 mm[Hg] [calc].
     assert u.mmhg_from_kpa(1.0) == pytest.approx(7.500638, abs=5e-7)
 
 
 def test_mmhg_to_kpa_matches_published_worked_values() -> None:
-    # physiology.md §1 [CALC]: PAO2 101.8 mmHg = 13.57 kPa; 673.0 mmHg = 89.7 kPa.
+    # [calc] from the UCUM factor: PAO2 101.8 mmHg = 13.57 kPa; 673.0 mmHg = 89.7 kPa.
     assert u.kpa_from_mmhg(101.8) == pytest.approx(13.57, abs=0.005)
     assert u.kpa_from_mmhg(673.0) == pytest.approx(89.7, abs=0.05)
     # Grocott et al., NEJM 2009 abstract: PB 272 mmHg (36.3 kPa), PaO2 24.6 mmHg (3.28 kPa).
@@ -28,7 +28,7 @@ def test_mmhg_to_kpa_matches_published_worked_values() -> None:
 
 
 def test_cmh2o_to_mmhg_uses_the_ucum_factor() -> None:
-    # UCUM: m[H2O] = 9.80665 kPa; standards.md §2: 1 mm[Hg] ≈ 1.3595 cm[H2O].
+    # UCUM: m[H2O] = 9.80665 kPa, m[Hg] = 133.3220 kPa: 1 mm[Hg] ≈ 1.3595 cm[H2O] [calc].
     assert u.mmhg_from_cmh2o(1.3595) == pytest.approx(1.0, abs=1e-4)
 
 
@@ -50,7 +50,7 @@ def test_haemoglobin_g_per_l_to_g_per_dl() -> None:
     [
         (21.0, "%", 0.21, False),
         (0.21, "1", 0.21, False),
-        # standards.md §1.7: an ICU feed sends 0.3 with UCUM "%": a fraction.
+        # Common practice: feeds send an FiO2 of 0.3 with UCUM "%"; it is a fraction.
         (0.3, "%", 0.3, True),
         (40.0, "1", 0.40, True),
         (100.0, "%", 1.0, False),

@@ -33,13 +33,13 @@ def test_water_vapour_agrees_with_iapws_95_within_a_tenth_of_a_mmhg(
 
 
 def test_water_vapour_at_body_temperature_is_the_textbook_47() -> None:
-    # West, Respiratory Physiology: 47 mmHg at 37 °C; physiology.md §2 (IAPWS): 47.12.
+    # West, Respiratory Physiology: 47 mmHg at 37 °C; IAPWS-IF97 (R7-97, eq. 30): 47.12 [calc].
     assert water_vapour_pressure_mmhg(temperature_cel=37.0) == pytest.approx(47.12, abs=0.01)
     assert round(water_vapour_pressure_mmhg(temperature_cel=37.0)) == 47
 
 
 def test_fever_raises_water_vapour_by_about_five_percent_per_degree() -> None:
-    # physiology.md §2 [CALC]: log-slope near 37 °C is 0.054 per °C.
+    # [calc] from IAPWS-IF97: the log-slope near 37 °C is 0.054 per °C.
     ratio = water_vapour_pressure_mmhg(temperature_cel=38.0) / water_vapour_pressure_mmhg(
         temperature_cel=37.0
     )

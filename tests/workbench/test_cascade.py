@@ -24,7 +24,7 @@ SVG = "{http://www.w3.org/2000/svg}"
 @pytest.mark.parametrize(
     ("fio2", "pio2", "pao2"),
     [
-        # physiology.md §1 worked values [CALC]: PB 760, PaCO2 40, R 0.8, PH2O 47 →
+        # Worked values [calc] of the alveolar gas equation: PB 760, PaCO2 40, R 0.8, PH2O 47 →
         # FiO2 0.21: PIO2 149.7, PAO2 (full form) 101.8; 0.40: 285.2, 239.2; 1.00: 713.0, 673.0.
         (0.21, 149.7, 101.8),
         (0.40, 285.2, 239.2),
