@@ -15,6 +15,9 @@ column); ``tests/test_exceptions.py`` checks the drawing against the classes::
     │   ├── ConceptMapError                   service.fhir.outcome
     │   └── InvalidResourceError              service.fhir.models
     ├── SiteFileError                         service.site
+    ├── CdsError                              service.cds.errors
+    ├── CdsConfigError (ValueError)           service.cds.errors
+    ├── BulkLimitError                        service.bulk.settings
     └── V2MessageError                        service.hl7v2.errors
         ├── MessageRejected                   service.hl7v2.errors
         └── MessageInError                    service.hl7v2.errors
@@ -26,11 +29,20 @@ column); ``tests/test_exceptions.py`` checks the drawing against the classes::
     AuthConfigError (ValueError)              service.api.auth
     StartupError (Exception)                  service.api.server
     FixtureError (ValueError)                 service.workbench.expectations
+    FetchError (Exception)                    service.cds.fetch
+    KeySetError (Exception)                   service.cds.jwks
+    MemoryFull (Exception)                    service.cds.replay
+    ExportError (Exception)                   service.bulk.export
+    OutputExistsError (Exception)             service.bulk.output
+    RuleSetMismatchError (RuntimeError)       service.bulk.patient
+    PseudonymKeyError (ValueError)            service.bulk.pseudonym
 
 The engine's errors stand outside because the engine imports nothing of the service (it is
 usable on its own); ``ApiError`` is an HTTP refusal carried to the exception handler, not a
 fault; ``AuthConfigError``, ``StartupError`` and ``FixtureError`` are start-up and tooling
-errors reported to an operator.
+errors reported to an operator. The CDS Hooks adapter's ``FetchError``, ``KeySetError`` and
+``MemoryFull`` are caught inside it and turned into its own answers (412, 401); the bulk job's
+errors stop a job before it writes anything and are reported by its command.
 
 The physiology package raises only ``PhysiologyError`` and ``UnitError``; adapters (FHIR,
 HL7 v2, HTTP) catch them and turn them into located OperationOutcome issues. Messages say
