@@ -92,8 +92,11 @@ def read_bundle(data: object, *, concept_map: LocalCodeMap | None = None) -> Int
         elif entry.kind == "Location":
             measurements.extend(_altitude(entry, out))
         elif entry.kind != "Specimen":
-            kind = entry.kind if FHIR_ID.fullmatch(entry.kind) else "unknown"
-            message = f"{kind} resources are not read"
+            # Named only when FHIR defines the type: the sender's text is never quoted.
+            if entry.kind in codes.RESOURCE_TYPES:
+                message = f"{entry.kind} resources are not read"
+            else:
+                message = "resources of a type FHIR R4B does not define are not read"
             out.issue("resource-ignored", Severity.INFORMATION, message, entry.at)
     out.raise_problems()
     if patient is None and subjects.first is not None:
@@ -106,10 +109,12 @@ def _bundle_object(data: object) -> JsonObject:
         found = f"JSON {json_type(data)}"
     elif data.get("resourceType") == "Bundle":
         return data
-    elif isinstance(data.get("resourceType"), str) and FHIR_ID.fullmatch(data["resourceType"]):
-        found = f"a {data['resourceType']} resource"
-    else:
+    elif not isinstance(kind := data.get("resourceType"), str):
         found = "an object without a FHIR resourceType"
+    elif kind in codes.RESOURCE_TYPES:  # named only when FHIR defines it: never the sender's text
+        found = f"a {kind} resource"
+    else:
+        found = "a resourceType FHIR R4B does not define"
     diagnostics = f"expected a FHIR Bundle resource (resourceType 'Bundle'), got {found}"
     raise NotABundleError([error("structure", diagnostics, "Bundle")])
 

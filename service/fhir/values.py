@@ -19,7 +19,7 @@ from service.fhir.plausibility import out_of_range
 from service.fhir.shape import Collector, JsonObject, member_list, member_number, objects
 from service.fhir.shape import member_str as text
 from service.intake.model import QUANTITY_UNITS, Quantity, Severity
-from service.physiology.units import FIO2_LIMITS, Dimension
+from service.physiology.units import FIO2_LIMITS, Dimension, unit_named
 
 
 @dataclass(frozen=True, slots=True)
@@ -61,7 +61,7 @@ def _convert(
         accepted = ", ".join(exc.accepted)
         out.problem(
             "value",
-            f"unit '{unit}' cannot be used for {concept.quantity.value}; accepted: {accepted}",
+            f"{unit_named(unit)} cannot be used for {concept.quantity.value}; accepted: {accepted}",
             unit_at,
         )
     except ImpossibleValueError:
@@ -69,8 +69,8 @@ def _convert(
         out.issue(
             "value-out-of-range",
             Severity.ERROR,
-            f"fio2 is not between {low:g} and {high:g} once read as a fraction (sent unit "
-            f"'{unit}'); the value is not used",
+            f"fio2 is not between {low:g} and {high:g} once read as a fraction (sent in "
+            f"{unit_named(unit)}); the value is not used",
             f"{at}.value",
         )
     return None
@@ -166,7 +166,7 @@ def read_quantity(q: JsonObject, at: str, concept: Concept, out: Collector) -> R
 def read_device(cc: JsonObject, at: str, out: Collector) -> Reading | None:
     """The oxygen-device code of a ``valueCodeableConcept`` (our CodeSystem or SNOMED CT)."""
     codings = member_list(cc, "coding", at, out) or []
-    sent: list[str] = []
+    sent = 0
     for coding, coding_at in objects(codings, f"{at}.coding", out):
         system = text(coding, "system", coding_at, out)
         code = text(coding, "code", coding_at, out)
@@ -176,12 +176,16 @@ def read_device(cc: JsonObject, at: str, out: Collector) -> Reading | None:
             return Reading(code)
         if system == codes.SNOMED_CT and code in codes.SNOMED_OXYGEN_DEVICES:
             return Reading(codes.SNOMED_OXYGEN_DEVICES[code])
-        sent.append(f"{system}|{code}")
-    named = ", ".join(sent) if sent else "no coding"
+        sent += 1
+    # The codes sent are not quoted: an error names the element, never what it holds.
     out.issue(
         "observation-ignored",
         Severity.INFORMATION,
-        f"oxygen device not recognised ({named}); use {codes.OXYGEN_DEVICE_CODES}",
+        f"oxygen device not recognised ({_codings(sent)}); use {codes.OXYGEN_DEVICE_CODES}",
         at,
     )
     return None
+
+
+def _codings(count: int) -> str:
+    return "no coding" if count == 0 else f"{count} coding{'s' if count > 1 else ''} sent"
