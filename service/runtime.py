@@ -22,6 +22,7 @@ from service.fhir.concept_map import LocalCodeMap
 from service.fhir.extract import read_bundle
 from service.fhir.outcome import BundleError
 from service.fhir.render import PressureUnit, render_bundle
+from service.intake.limits import DEFAULT_READ_LIMITS, ReadLimits
 from service.intake.model import Intake
 from service.site import apply, read_site_file, settings_hash
 
@@ -110,11 +111,13 @@ class Runtime:
         pressure_unit: PressureUnit | None = None,
         now: datetime | None = None,
         decision_id: str | None = None,
+        limits: ReadLimits = DEFAULT_READ_LIMITS,
     ) -> dict[str, Any]:
         """A parsed FHIR Bundle in, the result Bundle out.
 
         Raises:
-            BundleError: the input cannot be assessed; its ``operation_outcome()`` says where.
+            BundleError: the input cannot be assessed; its ``operation_outcome()`` says where
+                (``TooLargeError``: over ``limits``).
         """
         if self.settings.strict_fhir:
             from service.fhir.models import validate_strict
@@ -122,6 +125,6 @@ class Runtime:
             problems = [p for p in validate_strict(data) if p.severity in ("fatal", "error")]
             if problems:
                 raise BundleError(problems)
-        intake = read_bundle(data, concept_map=self.concept_map)
+        intake = read_bundle(data, concept_map=self.concept_map, limits=limits)
         assessment = self.assess_intake(intake, now=now, decision_id=decision_id)
         return self.render(assessment, pressure_unit=pressure_unit)

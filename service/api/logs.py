@@ -36,6 +36,10 @@ FIELDS = (
     "setting",
     "problem",
     "previous",
+    "stream",
+    "peer",
+    "connections",
+    "limit",
 )
 
 REQUEST_LOGGER = "oxyrule.http"

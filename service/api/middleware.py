@@ -191,5 +191,6 @@ def _log_request(record: RequestRecord, seconds: float) -> None:
         "lines": record.lines,
         "rejected": record.rejected,
         "bytes_in": record.bytes_in,
+        "stream": record.stream,
     }
     log.info("request", extra=extra)

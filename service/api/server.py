@@ -29,6 +29,7 @@ from pydantic_settings import SettingsError
 from service.api.app import create_app
 from service.api.auth import AuthConfigError
 from service.api.logs import SERVER_LOGGER, log_config
+from service.api.protocol import HttpProtocol
 from service.api.state import ServiceState
 from service.config import ServerSettings, Settings
 from service.engine import RuleSetError
@@ -226,6 +227,7 @@ def serve(
         "access_log": False,
         "server_header": False,
         "timeout_graceful_shutdown": GRACEFUL_SECONDS,
+        "http": HttpProtocol,
     }
     if server.workers == 1:
         runner = DrainingServer(uvicorn.Config(app, **common), service, DRAIN_SECONDS)

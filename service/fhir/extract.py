@@ -32,7 +32,7 @@ from service.fhir import codes
 from service.fhir.concept_map import LocalCodeMap
 from service.fhir.dates import parse_date
 from service.fhir.observation import ObservationReader
-from service.fhir.outcome import NotABundleError, error
+from service.fhir.outcome import NotABundleError, Problem, TooLargeError, error
 from service.fhir.plausibility import out_of_range
 from service.fhir.references import FHIR_ID, BundleIndex, resource_reference, type_and_id
 from service.fhir.shape import (
@@ -45,6 +45,7 @@ from service.fhir.shape import (
     member_object,
 )
 from service.fhir.shape import member_str as text
+from service.intake.limits import DEFAULT_READ_LIMITS, ReadLimits
 from service.intake.model import Intake, Measurement, Patient, Quantity, Severity, Source
 
 _READ = frozenset({"Patient", "Observation", "Location", "Specimen"})
@@ -61,20 +62,35 @@ class _Entry:
     at: str  # Bundle.entry[index].resource
 
 
-def read_bundle(data: object, *, concept_map: LocalCodeMap | None = None) -> Intake:
+def read_bundle(
+    data: object,
+    *,
+    concept_map: LocalCodeMap | None = None,
+    limits: ReadLimits = DEFAULT_READ_LIMITS,
+) -> Intake:
     """Read one patient's Bundle into measurements in canonical units, with issues.
 
     Args:
         data: the parsed JSON body (``orjson.loads``).
         concept_map: the site's local-code map, if any.
+        limits: the most entries read and issues listed (``service.intake.limits``).
 
     Raises:
         NotABundleError: ``data`` is not a FHIR Bundle at all (HTTP 400).
+        TooLargeError: more entries than ``limits.max_entries`` (HTTP 413).
         BundleError: a Bundle the service cannot read; lists every problem (HTTP 422).
     """
     bundle = _bundle_object(data)
+    entry = bundle.get("entry")
+    if isinstance(entry, list) and len(entry) > limits.max_entries:
+        message = (
+            f"the Bundle has more than {limits.max_entries} entries "
+            "(setting OXYRULE_MAX_BUNDLE_ENTRIES); send one patient's recent data"
+        )
+        raise TooLargeError([Problem("error", "too-long", message, "Bundle.entry")])
     out = Collector()
-    kind = text(bundle, "type", "Bundle", out)
+    # Bundle.type is 1..1 in FHIR: a Bundle without one is refused, not guessed at.
+    kind = text(bundle, "type", "Bundle", out, required=True)
     if kind is not None and kind not in codes.BUNDLE_TYPES:
         out.problem("code-invalid", "not an R4 Bundle type", "Bundle.type")
     index = BundleIndex()
@@ -98,10 +114,11 @@ def read_bundle(data: object, *, concept_map: LocalCodeMap | None = None) -> Int
             else:
                 message = "resources of a type FHIR R4B does not define are not read"
             out.issue("resource-ignored", Severity.INFORMATION, message, entry.at)
-    out.raise_problems()
+    out.raise_problems(limits.max_issues)
     if patient is None and subjects.first is not None:
         patient = Patient(reference=subjects.first, birth_date=None, gender=None)
-    return Intake(patient=patient, measurements=measurements, issues=out.issues)
+    issues = out.listed_issues(limits.max_issues)
+    return Intake(patient=patient, measurements=measurements, issues=issues)
 
 
 def _bundle_object(data: object) -> JsonObject:

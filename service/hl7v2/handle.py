@@ -129,7 +129,7 @@ def _answer(
     if problems:
         return refusal(message, "AR", problems, reply, now=now)
     try:
-        intake = read_oru(message, concept_map=runtime.concept_map)
+        intake = read_oru(message, concept_map=runtime.concept_map, max_issues=limits.max_issues)
     except MessageInError as exc:
         return refusal(message, "AE", exc.errors, reply, now=now)
     assessment = runtime.assess_intake(intake, now=now)

@@ -25,6 +25,7 @@ import hl7.util  # type: ignore[import-untyped]
 
 from service.hl7v2.er7 import escape
 from service.hl7v2.errors import ErrorCode, Location, MessageRejected, V2Error
+from service.intake.limits import DEFAULT_READ_LIMITS
 
 
 def hl7_library_loggers() -> list[logging.Logger]:
@@ -242,6 +243,7 @@ class V2Limits:
     max_segments: int = 500
     max_field_parts: int = 256  # repetitions × components × sub-components of one field
     max_parts: int = 50_000  # every field, component and sub-component of the message
+    max_issues: int = DEFAULT_READ_LIMITS.max_issues  # listed in the answer; the rest counted
 
 
 DEFAULT_LIMITS = V2Limits()

@@ -32,5 +32,7 @@ async def readyz(service: ServiceDep) -> Response:
 
 @router.get("/metrics", response_class=Response)
 async def metrics(service: ServiceDep) -> Response:
-    """Prometheus text: requests by route and status, latency, verdicts and findings (counts)."""
+    """Prometheus text: requests by route and status, latency, verdicts and findings, HL7 v2
+    messages by transport and MSA-1, MLLP connections, bytes buffered (counts only)."""
+    service.metrics.buffered_bytes.set(service.budget.used, (("budget", "http"),))
     return Response(service.metrics.render(), media_type=PROMETHEUS_TEXT)
