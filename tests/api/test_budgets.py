@@ -36,12 +36,13 @@ def with_entries(count: int, resource_type: str = "Condition") -> dict[str, Any]
 
 
 def outcome_of(result: dict[str, Any]) -> dict[str, Any]:
-    [found] = [
+    found: list[dict[str, Any]] = [
         e["resource"]
         for e in result["entry"]
         if e["resource"]["resourceType"] == "OperationOutcome"
     ]
-    return found
+    assert len(found) == 1
+    return found[0]
 
 
 def test_a_bundle_over_the_entry_budget_is_refused_413_at_bundle_entry(
