@@ -103,7 +103,10 @@ class ServerSettings(BaseSettings):
         100, ge=10, le=100_000, description="issues listed in one answer; the rest are counted"
     )
     work_threads: int = Field(
-        2, ge=1, le=64, description="threads that parse and assess, off the event loop"
+        2,
+        ge=0,
+        le=64,
+        description="threads that parse and assess, off the event loop (0: on it, unsafe)",
     )
     hl7_max_segments: int = Field(500, ge=10, le=1_000_000)
     hl7_max_field_parts: int = Field(256, ge=16, le=1_000_000)

@@ -29,15 +29,21 @@ class WorkPool:
     """A fixed number of threads for CPU-bound work; see the module docstring."""
 
     def __init__(self, threads: int) -> None:
+        """``threads`` 0: run the work on the event loop itself (for comparison only)."""
         self.threads = threads
-        self._executor = ThreadPoolExecutor(threads, thread_name_prefix="oxyrule-work")
+        self._executor = (
+            ThreadPoolExecutor(threads, thread_name_prefix="oxyrule-work") if threads else None
+        )
 
     async def run(self, function: Callable[P, T], *args: P.args, **kwargs: P.kwargs) -> T:
         """``function(*args, **kwargs)`` in one of the threads; its result or its exception."""
+        if self._executor is None:
+            return function(*args, **kwargs)
         loop = asyncio.get_running_loop()
         call = functools.partial(function, *args, **kwargs)
         return await loop.run_in_executor(self._executor, call)
 
     def close(self) -> None:
         """Stop taking work (work queued and not started is dropped)."""
-        self._executor.shutdown(wait=False, cancel_futures=True)
+        if self._executor is not None:
+            self._executor.shutdown(wait=False, cancel_futures=True)
