@@ -3,7 +3,7 @@
 Each function here takes bytes and returns bytes with what the metrics and the log need
 (``Answered``), touches nothing shared but the read-only runtime, and never raises for
 anything a client sends, so the HTTP layer can run it off the event loop
-(``service.api.work``) and do the counting on the loop.
+(``service.work``) and do the counting on the loop.
 """
 
 from __future__ import annotations

@@ -36,6 +36,7 @@ from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
 from service.api.errors import ApiError, outcome, outcome_response
 from service.api.logs import REQUEST_LOGGER
+from service.api.reload import follow_generation
 from service.api.state import RequestRecord, ServiceState
 
 log = logging.getLogger(REQUEST_LOGGER)
@@ -106,17 +107,25 @@ class RequestMiddleware:
         scope.setdefault("state", {})["record"] = record
         answered = False
 
+        service = self.service
+
         async def send_with_id(message: Message) -> None:
             nonlocal answered
             if message["type"] == "http.response.start":
                 answered = True
                 record.status = message["status"]
-                MutableHeaders(scope=message).append("X-Correlation-ID", record.correlation_id)
+                headers = MutableHeaders(scope=message)
+                headers.append("X-Correlation-ID", record.correlation_id)
+                if service.draining and "connection" not in headers:
+                    # Shutting down: a keep-alive client must not send its next request on
+                    # this connection (it would be reset); it reconnects, to another pod.
+                    headers.append("Connection", "close")
             await send(message)
 
-        service = self.service
         limited = record.route in LIMITED
         try:
+            if service.generations is not None:
+                await follow_generation(service)
             if limited and service.in_flight >= service.server.max_concurrent_requests:
                 body = outcome(
                     "throttled",

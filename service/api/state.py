@@ -8,12 +8,13 @@ from typing import Any
 
 from service.api.auth import Authenticator
 from service.api.budget import ByteBudget
+from service.api.generations import WorkerGenerations
 from service.api.metrics import Metrics
-from service.api.work import WorkPool
 from service.config import ServerSettings, Settings
 from service.hl7v2.message import V2Limits
 from service.intake.limits import ReadLimits
 from service.runtime import Runtime
+from service.work import WorkPool
 
 
 @dataclass(slots=True)
@@ -38,6 +39,11 @@ class ServiceState:
     work: WorkPool = field(init=False)
     read_limits: ReadLimits = field(init=False)
     v2_limits: V2Limits = field(init=False)
+    # A worker of a multi-worker server follows the supervisor's rule-set generations
+    # (service.api.generations); None with one worker.
+    generations: WorkerGenerations | None = None
+    generation: int = 0
+    prepared: dict[int, Runtime] = field(default_factory=dict)
 
     def __post_init__(self) -> None:
         server = self.server

@@ -12,7 +12,9 @@ from typing import Any
 import pytest
 import yaml
 
+from service.config import Settings
 from service.engine import load_ruleset
+from service.workbench.lint import verified_runtime
 from tests.api.conftest import ROOT
 
 DOCKER = ROOT / "docker"
@@ -131,6 +133,9 @@ def test_the_generated_rules_configmap_is_mounted_where_the_service_reads_rules(
     assert configmap["metadata"]["annotations"]["oxyrule.org/ruleset"] == (
         f"{original.id}|{original.version}"
     )
+    # And it passes the checks the service runs before it serves a set (those of lint, the
+    # lock file among them): without the lock in the ConfigMap the pod would not start.
+    assert verified_runtime(Settings(rules_dir=tmp_path)).ruleset.version == original.version
 
 
 def test_the_configmap_script_refuses_two_files_with_one_name(tmp_path: Path) -> None:

@@ -21,12 +21,17 @@ async def healthz() -> dict[str, str]:
 
 @router.get("/readyz", responses={503: {"description": "Shutting down (OperationOutcome)"}})
 async def readyz(service: ServiceDep) -> Response:
-    """Readiness: the rule set is loaded and the process is not shutting down."""
+    """Readiness: a rule set that passed every lint check is loaded (its identity and content
+    hash are given) and the process is not shutting down."""
     if service.draining:
         body = outcome("transient", "shutting down", severity="error")
         return outcome_response(503, body)
     ruleset = service.runtime.ruleset
-    body = {"status": "ready", "ruleset": f"{ruleset.id}|{ruleset.version}"}
+    body = {
+        "status": "ready",
+        "ruleset": f"{ruleset.id}|{ruleset.version}",
+        "ruleset_hash": ruleset.content_hash,  # what was loaded, byte for byte
+    }
     return Response(orjson.dumps(body), media_type="application/json")
 
 
