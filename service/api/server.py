@@ -176,6 +176,37 @@ def build(settings: Settings, server: ServerSettings, generation: int | None = N
         raise StartupError(f"cannot read {exc.filename or 'a file'}: {exc.strerror}") from None
 
 
+# File descriptors kept for HTTP beyond the assessments in flight: idle keep-alive connections,
+# the listening sockets, log and rule files.
+HTTP_DESCRIPTOR_RESERVE = 64
+
+
+def ensure_descriptors(server: ServerSettings) -> int:
+    """Make sure the process may open every connection its settings allow; the soft limit.
+
+    300 idle MLLP peers once used every descriptor the process had, and then HTTP ``/healthz``
+    failed too. Now MLLP peers are capped (``OXYRULE_MLLP_MAX_CONNECTIONS``) and the cap must
+    fit: the soft limit is raised to what is needed when the hard limit allows, else start-up
+    is refused naming the settings.
+    """
+    import resource
+
+    needed = server.max_concurrent_requests + HTTP_DESCRIPTOR_RESERVE
+    if server.mllp_port is not None:
+        needed += server.mllp_max_connections
+    soft, hard = resource.getrlimit(resource.RLIMIT_NOFILE)
+    if soft != resource.RLIM_INFINITY and soft < needed:
+        if hard == resource.RLIM_INFINITY or hard >= needed:
+            resource.setrlimit(resource.RLIMIT_NOFILE, (needed, hard))
+            return needed
+        raise StartupError(
+            f"the process may open {hard} files at most, and its settings need {needed} "
+            "(OXYRULE_MAX_CONCURRENT_REQUESTS + OXYRULE_MLLP_MAX_CONNECTIONS + "
+            f"{HTTP_DESCRIPTOR_RESERVE}): raise the limit (ulimit -n) or lower the settings"
+        )
+    return int(soft)
+
+
 def settle_memory() -> None:
     """Take what start-up loaded (code, rule set, app: ~77,000 objects) out of the garbage
     collector's sight with ``gc.freeze()``, once it is all built.
@@ -344,6 +375,7 @@ def serve(
     flags = {k: flag for k, flag in names.items() if overrides[k] is not None}
     try:
         settings, server = load_settings(overrides, flags)
+        ensure_descriptors(server)
         logging.config.dictConfig(log_config(server.log_level))
         app = build(settings, server)
     except StartupError as exc:
