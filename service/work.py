@@ -31,19 +31,21 @@ class WorkPool:
     def __init__(self, threads: int) -> None:
         """``threads`` 0: run the work on the event loop itself (for comparison only)."""
         self.threads = threads
-        self._executor = (
-            ThreadPoolExecutor(threads, thread_name_prefix="oxyrule-work") if threads else None
-        )
+        self._executor: ThreadPoolExecutor | None = None  # started with the first work
 
     async def run(self, function: Callable[P, T], *args: P.args, **kwargs: P.kwargs) -> T:
         """``function(*args, **kwargs)`` in one of the threads; its result or its exception."""
-        if self._executor is None:
+        if not self.threads:
             return function(*args, **kwargs)
+        if self._executor is None:
+            self._executor = ThreadPoolExecutor(self.threads, thread_name_prefix="oxyrule-work")
         loop = asyncio.get_running_loop()
         call = functools.partial(function, *args, **kwargs)
         return await loop.run_in_executor(self._executor, call)
 
     def close(self) -> None:
-        """Stop taking work (work queued and not started is dropped)."""
+        """Let the threads go (work queued and not started is dropped); more work starts new
+        ones (an app whose lifespan runs again, as in tests)."""
         if self._executor is not None:
             self._executor.shutdown(wait=False, cancel_futures=True)
+            self._executor = None

@@ -168,6 +168,8 @@ def create_app(
         lifespan=lifespan,
         docs_url="/docs",
         redoc_url=None,
+        # /healthz/ is not /healthz: a 404 saying so, not an empty 307 to follow.
+        redirect_slashes=False,
         swagger_ui_oauth2_redirect_url=None,  # no OAuth flow in the docs page: one route fewer
     )
     app.state.service = service

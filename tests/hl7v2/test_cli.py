@@ -101,3 +101,6 @@ def test_mllp_subcommand_listens_and_answers() -> None:
         _, err = server.communicate(timeout=30)
     assert b"MLLP listening" in err
     assert b"DEMO-0001" not in err  # no patient identifier in the log
+    # The same JSON lines as `oxyrule serve` (it logged plain text before).
+    lines = [json.loads(line) for line in err.decode().splitlines() if line.strip()]
+    assert lines and all({"time", "level", "logger", "message"} <= set(line) for line in lines)

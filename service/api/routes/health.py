@@ -24,7 +24,7 @@ async def readyz(service: ServiceDep) -> Response:
     """Readiness: a rule set that passed every lint check is loaded (its identity and content
     hash are given) and the process is not shutting down."""
     if service.draining:
-        body = outcome("transient", "shutting down", severity="error")
+        body = outcome("transient", "shutting down", "http.request", severity="error")
         return outcome_response(503, body)
     ruleset = service.runtime.ruleset
     body = {
