@@ -110,7 +110,7 @@ class ServerSettings(BaseSettings):
     )
     hl7_max_segments: int = Field(500, ge=10, le=1_000_000)
     hl7_max_field_parts: int = Field(256, ge=16, le=1_000_000)
-    hl7_max_parts: int = Field(50_000, ge=100, le=10_000_000)
+    hl7_max_parts: int = Field(20_000, ge=100, le=10_000_000)
     log_level: Literal["debug", "info", "warning", "error"] = "info"
     cors_origins: list[str] = Field(
         default_factory=list, description="JSON list of allowed origins; empty: CORS off"

@@ -43,6 +43,7 @@ from service.api.errors import ApiError, outcome
 from service.api.logs import REQUEST_LOGGER
 from service.api.middleware import frames
 from service.api.protocol import CONNECTION
+from service.api.sending import abort, send_within
 from service.api.state import RequestRecord, ServiceState
 from service.api.tally import Tally
 from service.fhir.render import PressureUnit
@@ -148,20 +149,15 @@ class NdjsonAnswer(Response):
 
     async def _send(self, send: Send, message: Message) -> bool:
         """Send, unless nothing moves either way for the body timeout: False then."""
-        timeout = self.service.server.body_timeout_s
-        sending = asyncio.ensure_future(send(message))
-        while True:
-            idle = time.monotonic() - max(self.last_sent, self.pace.last_bytes_at)
-            done, _ = await asyncio.wait({sending}, timeout=max(timeout - idle, 0.0) + 0.01)
-            if done:
-                sending.result()
-                self.last_sent = time.monotonic()
-                return True
-            if time.monotonic() - max(self.last_sent, self.pace.last_bytes_at) >= timeout:
-                sending.cancel()
-                with contextlib.suppress(BaseException):
-                    await sending
-                return False
+        sent = await send_within(
+            send,
+            message,
+            self.service.server.body_timeout_s,
+            lambda: max(self.last_sent, self.pace.last_bytes_at),
+        )
+        if sent:
+            self.last_sent = time.monotonic()
+        return sent
 
     async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
         budget = self.service.budget
@@ -212,7 +208,4 @@ class NdjsonAnswer(Response):
         """Close the connection at once (its answers are not being read): a reset, since a
         plain close would wait for ever for the unread answers to drain."""
         self.record.stream = why
-        connection = scope.get("extensions", {}).get(CONNECTION)
-        if connection is not None:
-            connection.abort()
-            await asyncio.sleep(0)  # let the server see the connection gone before we return
+        await abort(scope)

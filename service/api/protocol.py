@@ -1,6 +1,6 @@
 """uvicorn's HTTP/1.1 protocol (httptools), with what the service needs of the connection.
 
-Two changes, nothing else:
+Three changes, nothing else:
 
 * A request that is not valid HTTP/1.1 (conflicting ``Content-Length`` and
   ``Transfer-Encoding``, a malformed header, a bad request line) never reaches the app:
@@ -11,6 +11,10 @@ Two changes, nothing else:
   answer can close its connection once its last line is sent (``close``), or at once when its
   client has stopped reading (``abort``, a reset: a plain close would wait for ever for the
   unread answers to drain).
+
+* A keep-alive connection whose last answer is still unread when the keep-alive timeout ends
+  is reset, not closed: a close waits for the answer to drain, for ever if the client never
+  reads, and keeps it in memory all that time (``service.api.sending``).
 
 ``oxyrule serve`` runs with it (``http=HttpProtocol``); so do the tests' live servers.
 """
@@ -71,6 +75,14 @@ class HttpProtocol(HttpToolsProtocol):
         extensions: dict[str, Any] = dict(self.scope.get("extensions") or {})
         extensions[CONNECTION] = Connection(self.transport)
         self.scope["extensions"] = extensions
+
+    def timeout_keep_alive_handler(self) -> None:
+        """An idle keep-alive connection is closed; one whose last answer is still unread is
+        reset instead (a close would wait for ever for the answer to drain, holding it)."""
+        if not self.transport.is_closing() and self.transport.get_write_buffer_size():
+            self.transport.abort()
+            return
+        super().timeout_keep_alive_handler()
 
     def send_400_response(self, msg: str) -> None:  # uvicorn's message is not used
         correlation_id = uuid.uuid4().hex

@@ -242,7 +242,7 @@ class V2Limits:
 
     max_segments: int = 500
     max_field_parts: int = 256  # repetitions × components × sub-components of one field
-    max_parts: int = 50_000  # every field, component and sub-component of the message
+    max_parts: int = 20_000  # every field, component and sub-component of the message
     max_issues: int = DEFAULT_READ_LIMITS.max_issues  # listed in the answer; the rest counted
 
 

@@ -160,6 +160,7 @@ def test_healthz_answers_while_a_long_assessment_runs(serve: Serve) -> None:
             bundle["entry"].append(copy)
     body = orjson.dumps(bundle)
     answered: list[int] = []
+    began = time.perf_counter()
     worker = threading.Thread(
         target=lambda: answered.append(
             client.post(ASSESS, content=body, headers=FHIR_JSON, timeout=120).status_code
@@ -174,8 +175,11 @@ def test_healthz_answers_while_a_long_assessment_runs(serve: Serve) -> None:
         slowest = max(slowest, time.perf_counter() - started)
         time.sleep(0.05)
     worker.join()
+    took = time.perf_counter() - began
     assert answered == [200]
-    assert slowest < 0.5, slowest  # the event loop kept answering (it used to wait seconds)
+    # The event loop kept answering: on the event loop, /healthz waited for the whole
+    # assessment. (Bounds generous: the machine is shared.)
+    assert slowest < min(1.5, took / 2), (slowest, took)
 
 
 def test_a_request_that_is_not_valid_http_is_a_located_logged_counted_400(

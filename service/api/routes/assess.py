@@ -20,6 +20,7 @@ from service.api.errors import FHIR_JSON, ApiError, outcome
 from service.api.media import BodyKind, answer_type, body_kind
 from service.api.middleware import ASSESS_PATH
 from service.api.ndjson import NdjsonAnswer
+from service.api.sending import PacedResponse
 from service.api.state import RequestRecord, ServiceState
 from service.api.tally import Tally
 from service.fhir.render import PressureUnit
@@ -114,9 +115,15 @@ async def assess_hypoxaemia(request: Request) -> Response:
         answered = await service.work.run(answer_bundle, runtime, raw, units, service.read_limits)
     record.pattern = answered.tally.pattern
     _count(service, answered.tally)
-    if answered.status != 200:
-        return Response(answered.body, answered.status, media_type=FHIR_JSON)
-    return Response(answered.body, media_type=media_type, headers=NO_STORE)
+    ok = answered.status == 200
+    return PacedResponse(
+        answered.body,
+        answered.status,
+        media_type=media_type if ok else FHIR_JSON,
+        headers=NO_STORE if ok else None,
+        record=record,
+        timeout_s=server.body_timeout_s,
+    )
 
 
 async def _ndjson(

@@ -9,6 +9,7 @@ from service.api.answers import answer_v2
 from service.api.body import bounded_body
 from service.api.deps import caller_of, pressure_unit, record_of, service_of
 from service.api.errors import ApiError, outcome
+from service.api.sending import PacedResponse
 from service.hl7v2.handle import Reply
 
 router = APIRouter(tags=["hl7v2"])
@@ -72,4 +73,11 @@ async def assess_v2(request: Request) -> Response:
     media_type = answer.media_type
     if media_type.startswith("application/hl7-v2"):
         media_type = f"{base}; charset=utf-8"
-    return Response(answer.body, status_code=answer.status, media_type=media_type, headers=NO_STORE)
+    return PacedResponse(
+        answer.body,
+        answer.status,
+        media_type=media_type,
+        headers=NO_STORE,
+        record=record,
+        timeout_s=server.body_timeout_s,
+    )
