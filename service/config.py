@@ -85,7 +85,7 @@ class ServerSettings(BaseSettings):
         64, ge=1, le=10_000, description="assessments in flight per process before 429"
     )
     max_buffered_bytes: int = Field(
-        64 * 1024 * 1024,
+        32 * 1024 * 1024,
         ge=1024,
         le=16 * 1024**3,
         description="request body bytes held in the process at once (all requests); then 429",

@@ -41,7 +41,7 @@ def _status(exc: BundleError) -> int:
 
 
 def answer_bundle(
-    runtime: Runtime, raw: bytes, unit: PressureUnit | None, limits: ReadLimits
+    runtime: Runtime, raw: bytes | bytearray, unit: PressureUnit | None, limits: ReadLimits
 ) -> Answered:
     """One Bundle body: the result (200) or the OperationOutcome that refuses it."""
     try:
@@ -82,7 +82,11 @@ def answer_line(
 
 
 def answer_v2(
-    runtime: Runtime, raw: bytes, reply: Reply, unit: PressureUnit | None, limits: V2Limits
+    runtime: Runtime,
+    raw: bytes | bytearray,
+    reply: Reply,
+    unit: PressureUnit | None,
+    limits: V2Limits,
 ) -> V2Response:
     """One HL7 v2 message (bytes as sent: decoded here, invalid UTF-8 replaced)."""
     text = raw.decode("utf-8", errors="replace")

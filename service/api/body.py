@@ -84,7 +84,7 @@ def declared_length(request: Request) -> int | None:
 @asynccontextmanager
 async def bounded_body(
     request: Request, limit: int, timeout_s: float, budget: ByteBudget
-) -> AsyncIterator[bytes]:
+) -> AsyncIterator[bytearray]:
     """The whole body, held within ``budget`` until the ``with`` block ends.
 
     Refused with 413 as soon as it is known to exceed ``limit`` bytes, with 429 when the
@@ -98,23 +98,21 @@ async def bounded_body(
     if held and not budget.try_take(held):
         raise busy(budget)
     try:
-        chunks: list[bytes] = []
-        size = 0
+        # One buffer, filled as the body comes (joining chunks would hold the body twice).
+        body = bytearray()
         try:
             async with asyncio.timeout(timeout_s):
                 async for chunk in request.stream():
-                    size += len(chunk)
+                    size = len(body) + len(chunk)
                     if size > limit:
                         raise _too_large(limit, "Bundle")
                     if size > held:  # no length was declared (or a wrong one): take as it comes
                         if not budget.try_take(size - held):
                             raise busy(budget)
                         held = size
-                    chunks.append(chunk)
+                    body += chunk
         except TimeoutError:
             raise too_slow(timeout_s) from None
-        body = b"".join(chunks)
-        del chunks
         yield body
     finally:
         budget.give(held)

@@ -16,6 +16,8 @@ from __future__ import annotations
 import asyncio
 from collections import deque
 
+from service.config import ServerSettings
+
 
 class ByteBudget:
     """A count of bytes in use against a limit; see the module docstring."""
@@ -64,3 +66,26 @@ class ByteBudget:
                 continue
             self.used += size
             future.set_result(None)
+
+
+# What one worker needs at worst, from its settings: the figure the pod's memory limit must
+# exceed with room to spare (deploy/README.md, "Memory"; tests/api/test_deploy.py). Measured
+# on this project's machine (python -m tests.load.hostile amplification):
+BASE_BYTES = 72 * 1024 * 1024  # RSS after start-up, rule set loaded: 66-67 MiB
+PARSE_FACTOR = 21  # Python objects per byte of JSON at worst: [{},{},...] takes ~64 B per 3 B;
+#                    4.5 MB of {"resource": {...}} entries measured 93 MiB (tracemalloc)
+ANSWER_BYTES = 640 * 1024  # the largest answer inside the budgets (1,000 gases: 552 kB)
+
+
+def worst_case_bytes(server: ServerSettings) -> int:
+    """Start-up, plus every budget full at once: bodies held, one large body being parsed
+    (``service.work``: one at a time) beside small ones in the other threads, an answer held
+    for every request in flight, and MLLP's unfinished frames when MLLP is on."""
+    from service.work import HEAVY_BYTES
+
+    largest = server.max_body_bytes * PARSE_FACTOR
+    smaller = min(server.max_body_bytes, HEAVY_BYTES) * PARSE_FACTOR
+    parsing = largest + smaller * max(server.work_threads - 1, 0)
+    mllp = server.mllp_max_buffered_bytes if server.mllp_port is not None else 0
+    answers = server.max_concurrent_requests * ANSWER_BYTES
+    return BASE_BYTES + server.max_buffered_bytes + parsing + answers + mllp

@@ -102,7 +102,8 @@ class NdjsonAnswer(Response):
     async def _answer(self, line: Line) -> bytes:
         server = self.service.server
         try:
-            answered: Answered = await self.service.work.run(
+            answered: Answered = await self.service.work.run_heavy(
+                _size(line),
                 answer_line,
                 self.runtime,
                 line,

@@ -27,7 +27,7 @@ from service.fhir.outcome import BundleError, Problem
 _ELEMENT = re.compile(r"[a-z][A-Za-z0-9_]{0,63}|resourceType")
 
 
-def loads(raw: bytes | str, root: str = "Bundle") -> Any:
+def loads(raw: bytes | bytearray | str, root: str = "Bundle") -> Any:
     """The parsed JSON.
 
     Raises:
@@ -46,8 +46,8 @@ def loads(raw: bytes | str, root: str = "Bundle") -> Any:
     return data
 
 
-def _keys_in_text(raw: bytes | str) -> int:
-    return raw.count(b'":') if isinstance(raw, bytes) else raw.count('":')
+def _keys_in_text(raw: bytes | bytearray | str) -> int:
+    return raw.count('":') if isinstance(raw, str) else raw.count(b'":')
 
 
 def _keys_in_data(data: Any) -> int:
@@ -68,7 +68,7 @@ class _Duplicate(Exception):
         self.mapping, self.key = mapping, key
 
 
-def _duplicate(raw: bytes | str, root: str) -> str | None:
+def _duplicate(raw: bytes | bytearray | str, root: str) -> str | None:
     """Where the first object with a repeated key is (a FHIRPath-like path), or None."""
     found: list[tuple[int, str]] = []
 

@@ -112,7 +112,9 @@ async def assess_hypoxaemia(request: Request) -> Response:
         request, server.max_body_bytes, server.body_timeout_s, service.budget
     ) as raw:
         record.bytes_in = len(raw)
-        answered = await service.work.run(answer_bundle, runtime, raw, units, service.read_limits)
+        answered = await service.work.run_heavy(
+            len(raw), answer_bundle, runtime, raw, units, service.read_limits
+        )
     record.pattern = answered.tally.pattern
     _count(service, answered.tally)
     ok = answered.status == 200

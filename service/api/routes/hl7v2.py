@@ -66,8 +66,8 @@ async def assess_v2(request: Request) -> Response:
         request, server.max_body_bytes, server.body_timeout_s, service.budget
     ) as raw:
         record.bytes_in = len(raw)
-        answer = await service.work.run(
-            answer_v2, service.runtime, raw, reply, units, service.v2_limits
+        answer = await service.work.run_heavy(
+            len(raw), answer_v2, service.runtime, raw, reply, units, service.v2_limits
         )
     service.metrics.v2_message("http", answer.ack_code)
     media_type = answer.media_type
