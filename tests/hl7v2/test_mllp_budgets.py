@@ -8,21 +8,19 @@ HTTP ``/healthz`` failed in the same process, with nothing logged.
 from __future__ import annotations
 
 import asyncio
-import json
 import socket
-import subprocess
-import sys
 import time
 import urllib.request
 from collections import Counter
-from pathlib import Path
 
 import pytest
 
+from service.api import create_app
+from service.config import ServerSettings, Settings
 from service.hl7v2.mllp import MllpHooks, MllpLimits, frame
 from service.runtime import Runtime
-from tests.api.conftest import ROOT
-from tests.api.test_serve import environment, free_port
+from tests.api.live import LiveServer
+from tests.api.test_serve import free_port
 
 from .builders import message, nte_padding, obr, obx
 from .test_mllp import connect, good, listener, msa, read_reply, still_answers
@@ -121,37 +119,22 @@ def test_limits_must_let_one_frame_fit_the_budget() -> None:
         MllpLimits(max_frame_bytes=2048, max_buffered_bytes=1024)
 
 
-def test_serve_keeps_answering_http_while_idle_mllp_peers_crowd_the_listener(
-    tmp_path: Path,
+def test_http_keeps_answering_while_idle_mllp_peers_crowd_the_listener(
+    runtime: Runtime, caplog: pytest.LogCaptureFixture
 ) -> None:
-    # A real `oxyrule serve --mllp-port` with 60 idle peers against a cap of 20: the extra
-    # peers are refused and logged, /healthz and /metrics answer, MLLP still takes messages
-    # on the peers it kept.
-    http_port, mllp_port = free_port(), free_port()
-    log = tmp_path / "stderr.log"
-    with log.open("wb") as stderr:
-        process = subprocess.Popen(
-            [sys.executable, "-m", "service.cli", "serve", "--port", str(http_port)],
-            cwd=ROOT,
-            env=environment(OXYRULE_MLLP_PORT=str(mllp_port), OXYRULE_MLLP_MAX_CONNECTIONS="20"),
-            stdout=subprocess.DEVNULL,
-            stderr=stderr,
-        )
-        peers: list[socket.socket] = []
+    # The app as `oxyrule serve --mllp-port` runs it, on a real server, with 60 idle peers
+    # against a cap of 20: the extra peers are refused and logged, /healthz and /metrics
+    # answer, MLLP still takes messages on the peers it kept.
+    mllp_port = free_port()
+    server = ServerSettings(mllp_port=mllp_port, mllp_max_connections=20)
+    app = create_app(Settings(), server, runtime=runtime)
+    peers: list[socket.socket] = []
+    with LiveServer(app) as live:
         try:
-            deadline = time.monotonic() + 30
-            while True:
-                try:
-                    peers.append(socket.create_connection(("127.0.0.1", mllp_port), timeout=5))
-                    break
-                except OSError:
-                    assert time.monotonic() < deadline and process.poll() is None
-                    time.sleep(0.1)
-            peers += [socket.create_connection(("127.0.0.1", mllp_port)) for _ in range(59)]
+            peers += [socket.create_connection(("127.0.0.1", mllp_port)) for _ in range(60)]
             time.sleep(0.5)
-            url = f"http://127.0.0.1:{http_port}"
             started = time.monotonic()
-            with urllib.request.urlopen(f"{url}/healthz", timeout=2) as answer:
+            with urllib.request.urlopen(f"{live.url}/healthz", timeout=2) as answer:
                 assert answer.status == 200
             assert time.monotonic() - started < 2
             peers[0].sendall(frame(good("KEPT-PEER")))
@@ -162,15 +145,13 @@ def test_serve_keeps_answering_http_while_idle_mllp_peers_crowd_the_listener(
                 assert chunk
                 reply += chunk
             assert b"MSA|AA|KEPT-PEER" in reply
-            with urllib.request.urlopen(f"{url}/metrics", timeout=5) as answer:
+            with urllib.request.urlopen(f"{live.url}/metrics", timeout=5) as answer:
                 metrics = answer.read().decode()
         finally:
             for peer in peers:
                 peer.close()
-            process.terminate()
-            process.wait(30)
     assert 'oxyrule_mllp_refused_total{reason="connections"} 40' in metrics
     assert 'oxyrule_hl7v2_messages_total{transport="mllp",ack="AA"} 1' in metrics
     assert "oxyrule_mllp_connections 20" in metrics
-    refusals = [json.loads(line) for line in log.read_text().splitlines() if "refused" in line]
-    assert refusals and refusals[0]["level"] == "warning"
+    refusals = [r for r in caplog.records if "refused" in r.getMessage()]
+    assert refusals and refusals[0].levelname == "WARNING"
