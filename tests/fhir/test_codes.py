@@ -180,3 +180,22 @@ def test_snomed_devices_map_onto_project_device_codes() -> None:
 def device(code: str) -> dict[str, str]:
     """A coding of the project oxygen-device CodeSystem."""
     return {"system": codes.OXYGEN_DEVICE_CODES, "code": code}
+
+
+def test_the_resource_types_named_in_messages_are_exactly_fhir_r4b_s() -> None:
+    # Outside reference: the resource classes of fhir.resources (R4B, 4.3.0). A message names
+    # a resource type only when it is in this list; anything else sent is not repeated.
+    import importlib
+    import inspect
+    import pkgutil
+
+    import fhir.resources.R4B as r4b
+    from fhir.resources.R4B.resource import Resource
+
+    found = set()
+    for module_info in pkgutil.iter_modules(r4b.__path__):
+        module = importlib.import_module(f"fhir.resources.R4B.{module_info.name}")
+        for item in vars(module).values():
+            if inspect.isclass(item) and issubclass(item, Resource):
+                found.add(item.get_resource_type())
+    assert codes.RESOURCE_TYPES == found - {"Resource", "DomainResource"}
