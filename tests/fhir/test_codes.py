@@ -198,4 +198,4 @@ def test_the_resource_types_named_in_messages_are_exactly_fhir_r4b_s() -> None:
         for item in vars(module).values():
             if inspect.isclass(item) and issubclass(item, Resource):
                 found.add(item.get_resource_type())
-    assert codes.RESOURCE_TYPES == found - {"Resource", "DomainResource"}
+    assert found - {"Resource", "DomainResource"} == codes.RESOURCE_TYPES
