@@ -99,8 +99,25 @@ def _mllp(args: argparse.Namespace) -> int:
         max_connections=args.max_connections,
         max_buffered_bytes=max(args.max_buffered_bytes, args.max_frame_bytes),
     )
+    descriptors = _descriptors(args.max_connections + 64)  # the peers, and room for files
+    if descriptors is not None:
+        sys.stderr.write(f"oxyrule: cannot start: {descriptors}\n")
+        return EXIT_INTERNAL
     run_mllp(runtime, args.host, args.port, limits=limits)
     return EXIT_OK
+
+
+def _descriptors(needed: int) -> str | None:
+    """Why the process cannot open ``needed`` files (its limit raised when it can be), or None."""
+    import resource
+
+    soft, hard = resource.getrlimit(resource.RLIMIT_NOFILE)
+    if soft == resource.RLIM_INFINITY or soft >= needed:
+        return None
+    if hard == resource.RLIM_INFINITY or hard >= needed:
+        resource.setrlimit(resource.RLIMIT_NOFILE, (needed, hard))
+        return None
+    return f"--max-connections needs {needed} open files and the limit is {hard} (ulimit -n)"
 
 
 def _rules_dir(args: argparse.Namespace) -> Path:

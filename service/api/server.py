@@ -189,11 +189,17 @@ def ensure_descriptors(server: ServerSettings) -> int:
     fit: the soft limit is raised to what is needed when the hard limit allows, else start-up
     is refused naming the settings.
     """
-    import resource
-
     needed = server.max_concurrent_requests + HTTP_DESCRIPTOR_RESERVE
     if server.mllp_port is not None:
         needed += server.mllp_max_connections
+    return ensure_descriptor_limit(needed)
+
+
+def ensure_descriptor_limit(needed: int) -> int:
+    """Raise the soft limit of open files to ``needed`` if it is lower (``StartupError`` when
+    the hard limit does not allow it); the soft limit."""
+    import resource
+
     soft, hard = resource.getrlimit(resource.RLIMIT_NOFILE)
     if soft != resource.RLIM_INFINITY and soft < needed:
         if hard == resource.RLIM_INFINITY or hard >= needed:

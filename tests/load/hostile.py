@@ -356,6 +356,36 @@ def scenario_mllp(root: Path, seconds: float) -> None:
             f" a message on a kept peer: {answered}; RSS {before / 1024:.0f} -> "
             f"{rss / 1024:.0f} MiB"
         )
+        took = normal_ack_beside_quadratic_messages(mllp_port)
+        print(
+            "  a normal message's ACK while 8 peers each send a 41 kB message of 40,000 "
+            f"components: {took:.2f} s"
+        )
+
+
+def normal_ack_beside_quadratic_messages(port: int) -> float:
+    """Seconds for a normal message's ACK while 8 other peers each send a 41 kB message with
+    40,000 components in one field (the case that made a normal ACK wait 40 s)."""
+    heavy = v2(field_of("OBX", 5, "48" + "^" * 40_000))()
+    normal = V2_DEMO.read_bytes().replace(b"\n", b"\r")
+    senders = []
+    for _ in range(8):
+        sock = socket.create_connection((HOST, port), timeout=120)
+        sock.sendall(b"\x0b" + heavy + b"\x1c\r")
+        senders.append(sock)
+    started = time.monotonic()
+    with socket.create_connection((HOST, port), timeout=120) as sock:
+        sock.sendall(b"\x0b" + normal + b"\x1c\r")
+        reply = b""
+        while not reply.endswith(b"\x1c\r"):
+            chunk = sock.recv(65536)
+            if not chunk:
+                break
+            reply += chunk
+    took = time.monotonic() - started
+    for sock in senders:
+        sock.close()
+    return took
 
 
 def scenario_ndjson(root: Path, seconds: float) -> None:
