@@ -20,7 +20,9 @@ from typing import Any
 import yaml
 
 NAME = "oxyrule-rules"
-RUNTIME_FILES = ("concept-map.json",)  # besides every *.yaml, what the service reads
+# Besides every *.yaml, what the service reads: the code map, and the lock file, without which
+# the service refuses to start (it runs `oxyrule lint`'s checks on every rule set it loads).
+RUNTIME_FILES = ("concept-map.json", "ruleset.lock")
 LIMIT = 1024 * 1024  # a ConfigMap holds at most 1 MiB
 
 

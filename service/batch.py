@@ -19,7 +19,9 @@ import orjson
 
 from service.assess.presentation import PressureUnit
 from service.config import Settings
+from service.fhir import json_body
 from service.fhir.outcome import LocatedError, error, operation_outcome
+from service.intake.limits import DEFAULT_READ_LIMITS, ReadLimits
 from service.runtime import Runtime
 
 # One worker process's runtime, set by the pool initialiser.
@@ -27,16 +29,19 @@ _worker: tuple[Runtime, PressureUnit | None] | None = None
 
 
 def answer(
-    runtime: Runtime, raw: bytes, where: str, unit: PressureUnit | None
+    runtime: Runtime,
+    raw: bytes,
+    where: str,
+    unit: PressureUnit | None,
+    limits: ReadLimits = DEFAULT_READ_LIMITS,
 ) -> tuple[bytes, bool]:
     """The output for one input (JSON bytes) and whether the input was rejected."""
     try:
-        data = orjson.loads(raw)
+        data = json_body.loads(raw)
+        return orjson.dumps(runtime.assess_bundle(data, pressure_unit=unit, limits=limits)), False
     except orjson.JSONDecodeError as exc:
         problem = error("structure", f"{where}: not JSON ({exc.msg})", where)
         return orjson.dumps(operation_outcome([problem])), True
-    try:
-        return orjson.dumps(runtime.assess_bundle(data, pressure_unit=unit)), False
     except LocatedError as exc:
         problems = exc.problems
         if where.startswith("line"):  # NDJSON: every issue names its line

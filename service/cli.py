@@ -79,24 +79,45 @@ def _assess(args: argparse.Namespace) -> int:
 
 
 def _mllp(args: argparse.Namespace) -> int:
-    import logging
+    import logging.config
 
+    from service.api.logs import log_config
     from service.config import Settings
-    from service.hl7v2.mllp import run_mllp
-    from service.runtime import Runtime
+    from service.hl7v2.mllp import MllpLimits, run_mllp
+    from service.workbench.lint import RuleSetRefused, verified_runtime
 
-    runtime = Runtime.load(Settings(rules_dir=args.rules) if args.rules else Settings())
-    logging.basicConfig(
-        level=logging.INFO, format="%(asctime)s %(levelname)s %(name)s: %(message)s"
-    )
-    run_mllp(
-        runtime,
-        args.host,
-        args.port,
+    # The same JSON lines as `oxyrule serve`, on stderr.
+    logging.config.dictConfig(log_config("info"))
+    try:
+        runtime = verified_runtime(Settings(rules_dir=args.rules) if args.rules else Settings())
+    except RuleSetRefused as exc:
+        sys.stderr.write(f"oxyrule: cannot start: {exc}\n")
+        return EXIT_INTERNAL
+    limits = MllpLimits(
         max_frame_bytes=args.max_frame_bytes,
         idle_timeout_s=args.idle_timeout,
+        max_connections=args.max_connections,
+        max_buffered_bytes=max(args.max_buffered_bytes, args.max_frame_bytes),
     )
+    descriptors = _descriptors(args.max_connections + 64)  # the peers, and room for files
+    if descriptors is not None:
+        sys.stderr.write(f"oxyrule: cannot start: {descriptors}\n")
+        return EXIT_INTERNAL
+    run_mllp(runtime, args.host, args.port, limits=limits)
     return EXIT_OK
+
+
+def _descriptors(needed: int) -> str | None:
+    """Why the process cannot open ``needed`` files (its limit raised when it can be), or None."""
+    import resource
+
+    soft, hard = resource.getrlimit(resource.RLIMIT_NOFILE)
+    if soft == resource.RLIM_INFINITY or soft >= needed:
+        return None
+    if hard == resource.RLIM_INFINITY or hard >= needed:
+        resource.setrlimit(resource.RLIMIT_NOFILE, (needed, hard))
+        return None
+    return f"--max-connections needs {needed} open files and the limit is {hard} (ulimit -n)"
 
 
 def _rules_dir(args: argparse.Namespace) -> Path:
@@ -336,6 +357,20 @@ def build_parser() -> argparse.ArgumentParser:
     )
     mllp.add_argument(
         "--idle-timeout", type=float, default=300.0, metavar="S", help="close idle connections"
+    )
+    mllp.add_argument(
+        "--max-connections",
+        type=int,
+        default=100,
+        metavar="N",
+        help="peers at once; beyond: refused",
+    )
+    mllp.add_argument(
+        "--max-buffered-bytes",
+        type=int,
+        default=16 * 1024 * 1024,
+        metavar="N",
+        help="unfinished frames held by all peers together; beyond: AR",
     )
     mllp.set_defaults(handler=_mllp)
     test = commands.add_parser("test", help="run expected-outcome fixtures against the rules")

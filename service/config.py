@@ -176,11 +176,44 @@ class ServerSettings(BaseSettings):
         30.0,
         gt=0,
         le=3600,
-        description="seconds to receive a whole body (an NDJSON body: each line); then 408",
+        description="seconds to receive a whole Bundle or HL7 v2 body; an NDJSON body's grace",
+    )
+    body_min_bytes_per_s: float = Field(
+        1024.0,
+        gt=0,
+        le=1024**3,
+        description="an NDJSON body, after its grace, must keep arriving at this average rate",
     )
     max_concurrent_requests: int = Field(
         64, ge=1, le=10_000, description="assessments in flight per process before 429"
     )
+    max_buffered_bytes: int = Field(
+        32 * 1024 * 1024,
+        ge=1024,
+        le=16 * 1024**3,
+        description="request body bytes held in the process at once (all requests); then 429",
+    )
+    ndjson_read_ahead_bytes: int = Field(
+        16 * 1024 * 1024,
+        ge=1024,
+        le=16 * 1024**3,
+        description="NDJSON lines read ahead of their answers, per request",
+    )
+    max_bundle_entries: int = Field(
+        1000, ge=1, le=1_000_000, description="entries of one Bundle; beyond, 413"
+    )
+    max_issues: int = Field(
+        100, ge=10, le=100_000, description="issues listed in one answer; the rest are counted"
+    )
+    work_threads: int = Field(
+        2,
+        ge=0,
+        le=64,
+        description="threads that parse and assess, off the event loop (0: on it, unsafe)",
+    )
+    hl7_max_segments: int = Field(500, ge=10, le=1_000_000)
+    hl7_max_field_parts: int = Field(256, ge=16, le=1_000_000)
+    hl7_max_parts: int = Field(20_000, ge=100, le=10_000_000)
     log_level: Literal["debug", "info", "warning", "error"] = "info"
     cors_origins: list[str] = Field(
         default_factory=list, description="JSON list of allowed origins; empty: CORS off"
@@ -260,6 +293,15 @@ class ServerSettings(BaseSettings):
         None,
         description="off unless set: a card link to the bench page; {decision_id} is replaced",
     )
+    mllp_max_connections: int = Field(
+        100, ge=1, le=100_000, description="MLLP peers at once; beyond, refused and logged"
+    )
+    mllp_max_buffered_bytes: int = Field(
+        16 * 1024 * 1024,
+        ge=1024,
+        le=16 * 1024**3,
+        description="bytes of unfinished MLLP frames held at once (all peers); beyond, AR",
+    )
 
     @model_validator(mode="after")
     def _check_mllp(self) -> ServerSettings:
@@ -270,6 +312,30 @@ class ServerSettings(BaseSettings):
             )
         if self.mllp_port is not None and self.mllp_port == self.port:
             raise ValueError("OXYRULE_MLLP_PORT must differ from OXYRULE_PORT")
+        return self
+
+    @model_validator(mode="after")
+    def _check_budgets(self) -> ServerSettings:
+        for name, value, budget in (
+            ("OXYRULE_MAX_BODY_BYTES", self.max_body_bytes, "OXYRULE_MAX_BUFFERED_BYTES"),
+            (
+                "OXYRULE_NDJSON_READ_AHEAD_BYTES",
+                self.ndjson_read_ahead_bytes,
+                "OXYRULE_MAX_BUFFERED_BYTES",
+            ),
+            (
+                "OXYRULE_MLLP_MAX_FRAME_BYTES",
+                self.mllp_max_frame_bytes,
+                "OXYRULE_MLLP_MAX_BUFFERED_BYTES",
+            ),
+        ):
+            limit = (
+                self.mllp_max_buffered_bytes
+                if budget.startswith("OXYRULE_MLLP")
+                else self.max_buffered_bytes
+            )
+            if value > limit:
+                raise ValueError(f"{name} must not exceed {budget} (one body must fit the budget)")
         return self
 
     @model_validator(mode="after")

@@ -83,10 +83,14 @@ class OutsideModelRangeError(PhysiologyError):
 class UnitError(ServiceError, ValueError):
     """A unit that cannot be converted to the quantity's canonical unit."""
 
-    def __init__(self, unit: str, quantity: str, accepted: tuple[str, ...]) -> None:
+    def __init__(
+        self, unit: str, quantity: str, accepted: tuple[str, ...], *, named: str = "the unit"
+    ) -> None:
+        """``named``: how the message names the unit (never the sender's text unless it is one
+        of the service's own codes; ``physiology.units.unit_named``)."""
         self.unit = unit
         self.quantity = quantity
         self.accepted = accepted
         super().__init__(
-            f"unit {unit!r} is not a unit of {quantity}; accepted UCUM codes: {', '.join(accepted)}"
+            f"{named} is not a unit of {quantity}; accepted UCUM codes: {', '.join(accepted)}"
         )

@@ -23,6 +23,7 @@ from service.fhir.concept_map import read_concept_map
 from service.fhir.extract import read_bundle
 from service.fhir.outcome import BundleError
 from service.fhir.render import render_bundle
+from service.intake.limits import DEFAULT_READ_LIMITS, ReadLimits
 from service.intake.model import Intake
 from service.site import apply, read_site_file, settings_hash
 from service.terminology.codes import code_for_fact
@@ -79,11 +80,12 @@ class Runtime:
         digest = settings_hash(settings, site_bytes, _bytes(settings.rules_dir / CONCEPT_MAP_FILE))
         return cls(settings, ruleset, concept_map, digest, site)
 
-    def read(self, data: object) -> Intake:
+    def read(self, data: object, *, limits: ReadLimits = DEFAULT_READ_LIMITS) -> Intake:
         """A parsed FHIR Bundle as an ``Intake`` (validated as FHIR R4B first in strict mode).
 
         Raises:
-            BundleError: the input cannot be read; its ``operation_outcome()`` says where.
+            BundleError: the input cannot be read; its ``operation_outcome()`` says where
+                (``TooLargeError``: over ``limits``).
         """
         if self.settings.strict_fhir:
             from service.fhir.models import validate_strict
@@ -91,7 +93,7 @@ class Runtime:
             problems = [p for p in validate_strict(data) if p.severity in ("fatal", "error")]
             if problems:
                 raise BundleError(problems)
-        return read_bundle(data, concept_map=self.concept_map)
+        return read_bundle(data, concept_map=self.concept_map, limits=limits)
 
     def assess_intake(
         self, intake: Intake, *, now: datetime | None = None, decision_id: str | None = None
@@ -129,12 +131,14 @@ class Runtime:
         pressure_unit: PressureUnit | None = None,
         now: datetime | None = None,
         decision_id: str | None = None,
+        limits: ReadLimits = DEFAULT_READ_LIMITS,
     ) -> dict[str, Any]:
         """A parsed FHIR Bundle in, the result Bundle out.
 
         Raises:
-            BundleError: the input cannot be assessed; its ``operation_outcome()`` says where.
+            BundleError: the input cannot be assessed; its ``operation_outcome()`` says where
+                (``TooLargeError``: over ``limits``).
         """
-        intake = self.read(data)
+        intake = self.read(data, limits=limits)
         assessment = self.assess_intake(intake, now=now, decision_id=decision_id)
         return self.render(assessment, pressure_unit=pressure_unit)

@@ -20,6 +20,7 @@ from service import __version__
 from service.api.auth import Authenticator
 from service.api.cors import FhirCorsMiddleware
 from service.api.errors import ApiError, outcome_response, status_outcome
+from service.api.metrics import Metrics
 from service.api.middleware import CredentialsMiddleware, RequestMiddleware
 from service.api.openapi import complete
 from service.api.reload import handle_sighup, install_runtime, stop_handling_sighup
@@ -28,7 +29,10 @@ from service.api.state import ServiceState
 from service.assess.result import CAUTION
 from service.cds.hooks import CdsHooks
 from service.config import ServerSettings, Settings
+from service.hl7v2.message import V2Limits
+from service.hl7v2.mllp import MllpHooks, MllpLimits
 from service.runtime import Runtime
+from service.workbench.lint import verified_runtime
 
 DESCRIPTION = (
     "Grades the likely mechanism of hypoxaemia (low inspired oxygen, hypoventilation, "
@@ -97,23 +101,45 @@ def _openapi(app: FastAPI) -> dict[str, Any]:
     return app.openapi_schema
 
 
+def mllp_limits(server: ServerSettings, message: V2Limits) -> MllpLimits:
+    """The MLLP listener's budgets from the settings."""
+    return MllpLimits(
+        max_frame_bytes=server.mllp_max_frame_bytes,
+        idle_timeout_s=server.mllp_idle_timeout_s,
+        max_connections=server.mllp_max_connections,
+        max_buffered_bytes=server.mllp_max_buffered_bytes,
+        message=message,
+    )
+
+
+def mllp_hooks(metrics: Metrics) -> MllpHooks:
+    """What the MLLP listener reports, counted in ``/metrics``."""
+    return MllpHooks(
+        message=lambda ack: metrics.v2_message("mllp", ack),
+        connections=lambda n: metrics.mllp_connections.set(n),
+        refused=lambda why: metrics.mllp_refused.inc((("reason", why),)),
+    )
+
+
 def create_app(
     settings: Settings | None = None,
     server: ServerSettings | None = None,
     *,
     runtime: Runtime | None = None,
 ) -> FastAPI:
-    """The service app. Loads the rule set unless a loaded ``runtime`` is given.
+    """The service app. Loads the rule set unless a loaded ``runtime`` is given, and only one
+    that passes every check of ``oxyrule lint`` (``verified_runtime``).
 
     Raises:
         RuleSetError, SiteFileError, LocatedError: the rule set (or site file, code map) is
             broken: the service must not start.
+        RuleSetRefused: the rule set loads but lint rejects it (a rule file deleted, say).
         AuthConfigError: the authentication settings cannot be used.
         CdsConfigError: a CDS client's inline JWK Set cannot be used.
     """
     server = server or ServerSettings()
     settings = settings or (runtime.settings if runtime is not None else Settings())
-    runtime = runtime or Runtime.load(settings)
+    runtime = runtime or verified_runtime(settings)
     auth = Authenticator.from_settings(server)
     hooks = CdsHooks(server)
     service = ServiceState(runtime=runtime, server=server, auth=auth, settings=settings, cds=hooks)
@@ -129,8 +155,9 @@ def create_app(
                 lambda: service.runtime,  # a reload reaches the MLLP listener too
                 server.host,
                 server.mllp_port,
-                max_frame_bytes=server.mllp_max_frame_bytes,
-                idle_timeout_s=server.mllp_idle_timeout_s,
+                limits=mllp_limits(server, service.v2_limits),
+                work=service.work,
+                hooks=mllp_hooks(service.metrics),
             )
         reloads = handle_sighup(service)
         try:
@@ -143,6 +170,7 @@ def create_app(
                 listener.close()
                 await listener.wait_closed()
             await hooks.aclose()
+            service.work.close()
 
     app = FastAPI(
         title="oxyrule",
@@ -151,6 +179,8 @@ def create_app(
         lifespan=lifespan,
         docs_url="/docs",
         redoc_url=None,
+        # /healthz/ is not /healthz: a 404 saying so, not an empty 307 to follow.
+        redirect_slashes=False,
         swagger_ui_oauth2_redirect_url=None,  # no OAuth flow in the docs page: one route fewer
     )
     app.state.service = service

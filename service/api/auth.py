@@ -99,15 +99,15 @@ class JwtVerifier:
         return fitting[0]
 
     def verify(self, token: str) -> Caller:
-        try:
-            header = jwt.get_unverified_header(token)
-        except jwt.DecodeError as exc:
-            raise _refuse("security", "the bearer token is neither a known key nor a JWT") from exc
+        header = _header(token)
         alg = header.get("alg")
         if not isinstance(alg, str) or alg not in self.algorithms:
+            # Named only when it is a registered JWA algorithm: never the sender's text.
+            known = isinstance(alg, str) and alg in JWA_ALGORITHMS
+            named = f"{alg!r}" if known else "(not a JWA algorithm)"
             raise _refuse(
                 "security",
-                f"token algorithm {alg!r} is not accepted; allowed: {', '.join(self.algorithms)}",
+                f"token algorithm {named} is not accepted; allowed: {', '.join(self.algorithms)}",
             )
         key = self._key_for(header.get("kid"), alg)
         try:
@@ -123,7 +123,7 @@ class JwtVerifier:
         except jwt.ExpiredSignatureError as exc:
             raise _refuse("expired", "the token has expired") from exc
         except jwt.InvalidTokenError as exc:
-            raise _refuse("security", f"the token is not valid: {_reason(exc)}") from exc
+            raise _refuse("security", f"the token is not valid: {_reason(exc)}") from None
         if self.required_scope is not None:
             scopes = str(claims.get("scope", "")).split()
             if self.required_scope not in scopes:
@@ -138,10 +138,58 @@ class JwtVerifier:
         return Caller("jwt", subject if isinstance(subject, str) else None)
 
 
+def _header(token: str) -> dict[str, Any]:
+    """The token's JOSE header, checked before any key is looked up, or a 401.
+
+    Every malformed header is a refusal, never an error of ours: PyJWT raises on a ``kid``
+    that is not a string (a number, list, object or null) while it reads the header, and
+    ``crit`` names extensions a recipient must understand or refuse (RFC 7515 §4.1.11): this
+    service understands none, nor ``b64`` (RFC 7797, unencoded payloads).
+    """
+    not_a_jwt = _refuse("security", "the bearer token is neither a known key nor a JWT")
+    try:  # read first by hand, so that each problem of the header is named
+        raw = orjson.loads(jwt.utils.base64url_decode(token.split(".", 1)[0]))
+    except (ValueError, TypeError, orjson.JSONDecodeError):  # binascii.Error is a ValueError
+        raise not_a_jwt from None
+    if not isinstance(raw, dict):
+        raise not_a_jwt
+    if "kid" in raw and not isinstance(raw["kid"], str):
+        raise _refuse("security", "the token header's kid must be a string")
+    if "crit" in raw or "b64" in raw:
+        raise _refuse(
+            "security", "the token header names extensions (crit, b64) this service does not take"
+        )
+    try:
+        header: dict[str, Any] = jwt.get_unverified_header(token)
+    except jwt.InvalidTokenError:  # DecodeError, and PyJWT's own checks of the header
+        raise not_a_jwt from None
+    return header
+
+
+# The JWS algorithm names of the JWA registry (RFC 7518 §3.1, RFC 8037): the only algorithm
+# names a refusal repeats.
+JWA_ALGORITHMS = frozenset(
+    {"none", "EdDSA", "ES256K"}
+    | {f"{family}{bits}" for family in ("HS", "RS", "ES", "PS") for bits in (256, 384, 512)}
+)
+
+# What each failed check is called in a refusal: fixed phrases, so that nothing of the token
+# (and nothing PyJWT might one day quote from it) is repeated.
+_REASONS: tuple[tuple[type[jwt.InvalidTokenError], str], ...] = (
+    (jwt.InvalidSignatureError, "Signature verification failed"),
+    (jwt.InvalidAudienceError, "Audience (aud) is not this service"),
+    (jwt.InvalidIssuerError, "the issuer (iss) is not the configured one"),
+    (jwt.ImmatureSignatureError, "the token is not yet valid (nbf or iat in the future)"),
+    (jwt.InvalidIssuedAtError, "the issued-at time (iat) is not a number"),
+    (jwt.InvalidAlgorithmError, "the algorithm does not fit the key"),
+    (jwt.DecodeError, "the token cannot be decoded"),
+)
+
+
 def _reason(exc: jwt.InvalidTokenError) -> str:
-    # PyJWT's messages name the failed check (signature, audience, issuer, claim); none quote
-    # the token. Keep them short and on one line.
-    return str(exc).splitlines()[0][:200] if str(exc) else type(exc).__name__
+    if isinstance(exc, jwt.MissingRequiredClaimError):
+        return f"the token lacks the required claim {exc.claim}"  # one of ours: exp, iss, aud
+    return next((text for kind, text in _REASONS if isinstance(exc, kind)), "a check failed")
 
 
 class Authenticator:

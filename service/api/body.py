@@ -1,26 +1,34 @@
-"""Reading a request body within the size limit, as one Bundle or as NDJSON lines.
+"""Reading a request body within its budgets, as one Bundle (or message) or as NDJSON lines.
 
 A Bundle body is refused with 413 from its ``Content-Length`` before anything is read, and
 again while it streams in (a chunked upload has no length), so no more than the limit plus
-one chunk is ever held. An NDJSON body as a whole is not limited (by design): it is split
-into lines as it arrives, and only a line longer than the limit is refused, by answering that
-line with an OperationOutcome while its bytes are skipped.
+one chunk is ever held. Its bytes also count against the process's budget of buffered bytes
+(``OXYRULE_MAX_BUFFERED_BYTES``, ``service.api.budget``): a body that does not fit is refused
+with 429 before it is read. An NDJSON body as a whole is not limited (by design): it is
+split into lines as it arrives, and only a line longer than the limit is refused, by answering
+that line with an OperationOutcome while its bytes are skipped.
 
 Uvicorn has no timeout on reading a body, so a client that sends its body slowly (a few bytes
-now and then, slowloris-style) would hold a connection and a concurrency slot for ever. The
-body must therefore arrive within ``OXYRULE_BODY_TIMEOUT_S`` (a Bundle or an HL7 v2 message:
-the whole body; NDJSON, whose length is not limited: each line, counting only the time spent
-waiting for its bytes). Past that the request is refused with 408 and the connection closed.
+now and then, slowloris-style) would hold a connection and a concurrency slot for ever. So a
+Bundle or an HL7 v2 message must arrive whole within ``OXYRULE_BODY_TIMEOUT_S``; an NDJSON
+body, whose length is not limited, gets that long as a grace and must then keep arriving at
+``OXYRULE_BODY_MIN_BYTES_PER_S`` on average over the whole body (``Pace``): only the time
+spent waiting for bytes counts, never the time the server spends answering. Past that the
+request is refused with 408 and the connection closed. (Each newline used to restart the
+timer, so a client sending one byte every 29 s held its slot for ever.)
 """
 
 from __future__ import annotations
 
 import asyncio
+import time
 from collections.abc import AsyncIterator
-from dataclasses import dataclass
+from contextlib import asynccontextmanager
+from dataclasses import dataclass, field
 
 from starlette.requests import Request
 
+from service.api.budget import ByteBudget
 from service.api.errors import ApiError
 
 
@@ -34,8 +42,20 @@ def _too_large(limit: int, expression: str) -> ApiError:
     )
 
 
+def busy(budget: ByteBudget) -> ApiError:
+    """The 429 refusal of a body that does not fit the process's budget of buffered bytes."""
+    return ApiError.issue(
+        429,
+        "throttled",
+        f"the server holds {budget.limit} bytes of request bodies at most and has no room for "
+        "this one now; retry shortly (setting OXYRULE_MAX_BUFFERED_BYTES)",
+        "http.Content-Length",
+        headers={"Retry-After": "1", "Connection": "close"},
+    )
+
+
 def too_slow(timeout_s: float, what: str = "the body", expression: str = "Bundle") -> ApiError:
-    """The 408 refusal of a body (or NDJSON line) that did not arrive within the timeout."""
+    """The 408 refusal of a body that did not arrive within the timeout."""
     return ApiError.issue(
         408,
         "timeout",
@@ -61,27 +81,42 @@ def declared_length(request: Request) -> int | None:
     return int(text)
 
 
-async def read_bounded(
-    request: Request, limit: int, timeout_s: float, expression: str = "Bundle"
-) -> bytes:
-    """The whole body, refused with 413 as soon as it is known to exceed ``limit`` bytes, and
-    with 408 when it has not all arrived ``timeout_s`` seconds after the first read; the
-    refusal locates the body at ``expression`` (the resource or document it should hold)."""
+@asynccontextmanager
+async def bounded_body(
+    request: Request, limit: int, timeout_s: float, budget: ByteBudget, expression: str = "Bundle"
+) -> AsyncIterator[bytearray]:
+    """The whole body, held within ``budget`` until the ``with`` block ends.
+
+    Refused with 413 as soon as it is known to exceed ``limit`` bytes, with 429 when the
+    process's budget has no room for it, and with 408 when it has not all arrived ``timeout_s``
+    seconds after the first read. Refusals locate the body at ``expression`` (the resource or
+    document it should hold).
+    """
     length = declared_length(request)
     if length is not None and length > limit:
         raise _too_large(limit, "http.Content-Length")
-    chunks: list[bytes] = []
-    size = 0
+    held = length or 0
+    if held and not budget.try_take(held):
+        raise busy(budget)
     try:
-        async with asyncio.timeout(timeout_s):
-            async for chunk in request.stream():
-                size += len(chunk)
-                if size > limit:
-                    raise _too_large(limit, expression)
-                chunks.append(chunk)
-    except TimeoutError:
-        raise too_slow(timeout_s, expression=expression) from None
-    return b"".join(chunks)
+        # One buffer, filled as the body comes (joining chunks would hold the body twice).
+        body = bytearray()
+        try:
+            async with asyncio.timeout(timeout_s):
+                async for chunk in request.stream():
+                    size = len(body) + len(chunk)
+                    if size > limit:
+                        raise _too_large(limit, expression)
+                    if size > held:  # no length was declared (or a wrong one): take as it comes
+                        if not budget.try_take(size - held):
+                            raise busy(budget)
+                        held = size
+                    body += chunk
+        except TimeoutError:
+            raise too_slow(timeout_s, expression=expression) from None
+        yield body
+    finally:
+        budget.give(held)
 
 
 @dataclass(frozen=True, slots=True)
@@ -92,45 +127,80 @@ class Line:
     data: bytes | None
 
 
-async def _timed(
-    chunks: AsyncIterator[bytes], budget_s: float | None
-) -> tuple[bytes | None, float]:
-    """The next chunk (None at the end) and the seconds spent waiting for it, or ``TimeoutError``
-    when it takes more than ``budget_s``."""
-    loop = asyncio.get_running_loop()
-    started = loop.time()
-    async with asyncio.timeout(budget_s):
-        chunk = await anext(chunks, None)
-    return chunk, loop.time() - started
+@dataclass(slots=True)
+class Pace:
+    """How long an NDJSON body may keep the server waiting for its bytes.
+
+    No single pause longer than ``grace_s``, and in all no more than ``grace_s`` plus one
+    second for every ``min_bytes_per_s`` bytes received: an average rate over the whole body,
+    so a line that takes a while is fine after many that came fast, but a trickle (one
+    newline every few seconds) runs out. Only waiting for bytes counts.
+    """
+
+    grace_s: float
+    min_bytes_per_s: float
+    waited_s: float = 0.0
+    received: int = 0
+    last_bytes_at: float = field(default_factory=time.monotonic)
+
+    def remaining_s(self) -> float:
+        credit = self.grace_s + self.received / self.min_bytes_per_s - self.waited_s
+        return min(self.grace_s, credit)
+
+    def refusal(self, line: int) -> ApiError:
+        return ApiError.issue(
+            408,
+            "timeout",
+            f"line {line} of the body did not arrive: an NDJSON body may pause for "
+            f"{self.grace_s:g} s at most and must arrive at {self.min_bytes_per_s:g} bytes/s on "
+            f"average after its first {self.grace_s:g} s (settings OXYRULE_BODY_TIMEOUT_S, "
+            "OXYRULE_BODY_MIN_BYTES_PER_S)",
+            "Bundle",
+            headers={"Connection": "close"},
+        )
+
+
+async def _next_chunk(chunks: AsyncIterator[bytes], pace: Pace | None) -> bytes | None:
+    """The next chunk (None at the end), counting the wait in ``pace``; ``TimeoutError`` when
+    the body has used up its time."""
+    if pace is None:
+        return await anext(chunks, None)
+    started = time.monotonic()
+    try:
+        async with asyncio.timeout(max(pace.remaining_s(), 0.0)):
+            chunk = await anext(chunks, None)
+    finally:
+        pace.waited_s += time.monotonic() - started
+    if chunk:
+        pace.received += len(chunk)
+        pace.last_bytes_at = time.monotonic()
+    return chunk
 
 
 async def ndjson_lines(
-    chunks: AsyncIterator[bytes], limit: int, timeout_s: float | None = None
+    chunks: AsyncIterator[bytes], limit: int, pace: Pace | None = None
 ) -> AsyncIterator[Line]:
     """Non-blank lines of an NDJSON stream, numbered as an editor numbers them.
 
     A line longer than ``limit`` bytes is yielded with ``data=None`` and its bytes are dropped
-    as they arrive, so memory stays within the limit plus one chunk. A line whose bytes took
-    more than ``timeout_s`` seconds (None: no limit) of waiting to arrive raises a 408
-    ``ApiError`` (the time the consumer spends between lines is not counted).
+    as they arrive, so memory stays within the limit plus one chunk. When the body does not
+    keep its ``pace`` (None: no limit) a 408 ``ApiError`` is raised naming the line awaited
+    (the time the consumer spends between lines is not counted).
     """
     number = 0
     pending = bytearray()
     skipping = False  # inside a line already known to be too long
-    waited = 0.0  # seconds spent waiting for the bytes of the current line
     while True:
         try:
-            chunk, seconds = await _timed(chunks, None if timeout_s is None else timeout_s - waited)
+            chunk = await _next_chunk(chunks, pace)
         except TimeoutError:
-            assert timeout_s is not None
-            raise too_slow(timeout_s, f"line {number + 1} of the body") from None
+            assert pace is not None
+            raise pace.refusal(number + 1) from None
         if chunk is None:
             break
-        waited += seconds
         start = 0
         while (end := chunk.find(b"\n", start)) != -1:
             number += 1
-            waited = 0.0
             if skipping:
                 skipping = False
                 yield Line(number, None)

@@ -96,22 +96,34 @@ def outcome_response(
     return Response(orjson.dumps(body), status, dict(headers or {}), media_type=FHIR_JSON)
 
 
-# Issue codes for the statuses Starlette or FastAPI may produce on their own.
-STATUS_ISSUE: dict[int, tuple[HttpIssueType, str]] = {
-    400: ("invalid", "the request is not valid"),
-    401: ("login", "authentication is required"),
-    403: ("forbidden", "not allowed"),
-    404: ("not-found", "no such endpoint; the operation is POST /fhir/$assess-hypoxaemia"),
-    405: ("not-supported", "this method is not supported on this endpoint"),
-    406: ("not-supported", "no acceptable response format"),
-    408: ("timeout", "the request did not arrive in time"),
-    413: ("too-long", "the request is too large"),
-    415: ("not-supported", "unsupported media type"),
-    429: ("throttled", "too many requests in progress; retry shortly"),
+# Issue code, text and location for the statuses Starlette or FastAPI may produce on their
+# own. The location is the part of the HTTP request at fault (FHIR: ``http.`` and a header or
+# parameter name; the URL's path and the method for 404 and 405).
+STATUS_ISSUE: dict[int, tuple[HttpIssueType, str, str]] = {
+    400: ("invalid", "the request is not valid", "http.request"),
+    401: ("login", "authentication is required", "http.Authorization"),
+    403: ("forbidden", "not allowed", "http.Authorization"),
+    404: (
+        "not-found",
+        "no such endpoint (paths end without a slash); the operation is "
+        "POST /fhir/$assess-hypoxaemia",
+        "http.path",
+    ),
+    405: ("not-supported", "this method is not supported on this endpoint", "http.method"),
+    406: ("not-supported", "no acceptable response format", "http.Accept"),
+    408: ("timeout", "the request did not arrive in time", "http.request"),
+    413: ("too-long", "the request is too large", "http.Content-Length"),
+    415: ("not-supported", "unsupported media type", "http.Content-Type"),
+    429: ("throttled", "too many requests in progress; retry shortly", "http.request"),
 }
 
 
 def status_outcome(status: int, detail: str | None = None) -> dict[str, object]:
     """The OperationOutcome for a bare HTTP status (a route Starlette answered itself)."""
-    code, text = STATUS_ISSUE.get(status, ("exception" if status >= 500 else "invalid", ""))
-    return outcome(code, detail or text or f"HTTP {status}")
+    fallback: tuple[HttpIssueType, str, str] = (
+        "exception" if status >= 500 else "invalid",
+        "",
+        "http.request",
+    )
+    code, text, where = STATUS_ISSUE.get(status, fallback)
+    return outcome(code, detail or text or f"HTTP {status}", where)

@@ -44,6 +44,10 @@ FIELDS = (
     "card",
     "cards",
     "indicator",
+    "stream",
+    "peer",
+    "connections",
+    "limit",
 )
 
 REQUEST_LOGGER = "oxyrule.http"

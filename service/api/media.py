@@ -4,7 +4,8 @@ A body is a single Bundle (``application/fhir+json`` or ``application/json``) or
 Bundles (``application/fhir+ndjson`` or ``application/ndjson``). A ``fhirVersion`` parameter is
 tolerated when it names R4 or R4B (4.0 / 4.3), a ``charset`` when it is UTF-8. The answer has
 the same kind as the body; FHIR's ``_format`` parameter (or else ``Accept``) picks its media type
-within that kind. Anything else is refused with 415 (the body) or 406 (the answer).
+within that kind. Anything else is refused with 415 (the body) or 406 (the answer); the refusal
+names the header or parameter and what is accepted, never the text sent (SECURITY.md).
 """
 
 from __future__ import annotations
@@ -72,7 +73,7 @@ def body_kind(content_type: str | None) -> BodyKind:
         raise ApiError.issue(
             415,
             "not-supported",
-            f"unsupported media type {media.essence!r}; send one of {ACCEPTED_TYPES}",
+            f"unsupported media type; send one of {ACCEPTED_TYPES}",
             where,
         )
     charset = media.parameters.get("charset", "utf-8").lower()
@@ -83,7 +84,8 @@ def body_kind(content_type: str | None) -> BodyKind:
         raise ApiError.issue(
             415,
             "not-supported",
-            f"fhirVersion {version!r} is not supported; this service reads R4 (4.0) and R4B (4.3)",
+            "the fhirVersion parameter names a version this service does not read; "
+            "it reads R4 (4.0) and R4B (4.3)",
             where,
         )
     return kind
@@ -107,7 +109,7 @@ def answer_type(kind: BodyKind, format_param: str | None, accept: str | None) ->
             raise ApiError.issue(
                 406,
                 "not-supported",
-                f"_format {format_param!r} is not offered for this request; use one of "
+                "_format names no media type offered for this request; use one of "
                 + ", ".join(offered),
                 "http._format",
             )

@@ -135,6 +135,22 @@ class Metrics:
         self.ruleset = Gauge(
             "oxyrule_ruleset_info", "The loaded rule set (always 1), labelled with its identity."
         )
+        self.v2_messages = Counter(
+            "oxyrule_hl7v2_messages_total",
+            "HL7 v2 messages answered, by transport (http, mllp) and MSA-1 (AA, AE, AR).",
+        )
+        self.mllp_connections = Gauge(
+            "oxyrule_mllp_connections", "MLLP connections open now (peers being served)."
+        )
+        self.mllp_refused = Counter(
+            "oxyrule_mllp_refused_total",
+            "MLLP connections refused or frames refused for a budget, by reason.",
+        )
+        self.buffered_bytes = Gauge(
+            "oxyrule_buffered_bytes",
+            "Request body bytes held now, of OXYRULE_MAX_BUFFERED_BYTES (HTTP) and of "
+            "OXYRULE_MLLP_MAX_BUFFERED_BYTES (MLLP), by budget.",
+        )
 
     def request(self, route: str, method: str, status: int, seconds: float) -> None:
         self.requests.inc((("route", route), ("method", method), ("status", str(status))))
@@ -161,6 +177,9 @@ class Metrics:
     def cds_refusal(self, status: int, code: str) -> None:
         self.cds_refused.inc((("status", str(status)), ("code", code)))
 
+    def v2_message(self, transport: str, ack: str) -> None:
+        self.v2_messages.inc((("transport", transport), ("ack", ack)))
+
     def render(self) -> str:
         metrics = (
             self.requests,
@@ -175,5 +194,9 @@ class Metrics:
             self.cds_refused,
             self.cds_reads,
             self.ruleset,
+            self.v2_messages,
+            self.mllp_connections,
+            self.mllp_refused,
+            self.buffered_bytes,
         )
         return "\n".join(line for metric in metrics for line in metric.lines()) + "\n"

@@ -36,6 +36,7 @@ from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
 from service.api.errors import ApiError, outcome, outcome_response
 from service.api.logs import REQUEST_LOGGER
+from service.api.reload import follow_generation
 from service.api.state import RequestRecord, ServiceState
 from service.cds.services import SERVICES
 
@@ -119,22 +120,31 @@ class RequestMiddleware:
         scope.setdefault("state", {})["record"] = record
         answered = False
 
+        service = self.service
+
         async def send_with_id(message: Message) -> None:
             nonlocal answered
             if message["type"] == "http.response.start":
                 answered = True
                 record.status = message["status"]
-                MutableHeaders(scope=message).append("X-Correlation-ID", record.correlation_id)
+                headers = MutableHeaders(scope=message)
+                headers.append("X-Correlation-ID", record.correlation_id)
+                if service.draining and "connection" not in headers:
+                    # Shutting down: a keep-alive client must not send its next request on
+                    # this connection (it would be reset); it reconnects, to another pod.
+                    headers.append("Connection", "close")
             await send(message)
 
-        service = self.service
         limited = record.route in LIMITED
         try:
+            if service.generations is not None:
+                await follow_generation(service)
             if limited and service.in_flight >= service.server.max_concurrent_requests:
                 body = outcome(
                     "throttled",
                     f"more than {service.server.max_concurrent_requests} assessments in "
                     "progress; retry shortly (setting OXYRULE_MAX_CONCURRENT_REQUESTS)",
+                    "http.request",
                 )
                 response = outcome_response(429, body, {"Retry-After": "1"})
                 await response(scope, receive, send_with_id)
@@ -167,6 +177,7 @@ class RequestMiddleware:
                     "exception",
                     "internal error; nothing about the input was stored. Quote correlation id "
                     f"{record.correlation_id} when reporting it.",
+                    "http.request",
                 )
                 await outcome_response(500, body)(scope, receive, send_with_id)
         finally:
@@ -204,5 +215,6 @@ def _log_request(record: RequestRecord, seconds: float) -> None:
         "lines": record.lines,
         "rejected": record.rejected,
         "bytes_in": record.bytes_in,
+        "stream": record.stream,
     }
     log.info("request", extra=extra)

@@ -26,6 +26,7 @@ from service.api.middleware import ASSESS_PATH, CDS_PATH, LIMITED, PUBLIC, V2_PA
 from service.api.routes.health import PROMETHEUS_TEXT
 from service.api.routes.hl7v2 import V2_MEDIA_TYPES
 from service.cds.services import SERVICES
+from service.fhir.codes import BUNDLE_TYPES
 
 Schema = dict[str, Any]
 
@@ -112,8 +113,15 @@ ANSWERS: dict[tuple[str, str], dict[str, Schema]] = {
     },
     ("get", "/readyz"): {
         "200": {
-            "description": "The rule set is loaded; its id|version",
-            "content": {JSON: {"schema": {"type": "object", "required": ["status", "ruleset"]}}},
+            "description": "A rule set lint accepts is loaded: its id|version and content hash",
+            "content": {
+                JSON: {
+                    "schema": {
+                        "type": "object",
+                        "required": ["status", "ruleset", "ruleset_hash"],
+                    }
+                }
+            },
         },
         "503": _outcome("Shutting down (OperationOutcome)"),
     },
@@ -314,11 +322,38 @@ def _body_limits(operation: Schema) -> None:
     responses.setdefault("429", _outcome("Too many assessments in progress (OperationOutcome)"))
 
 
+# What ``_format`` may name, per route: what the service takes, so that a request valid by the
+# document is never refused (an empty ``_format`` is refused, and so is not offered).
+FORMATS: dict[str, list[str]] = {
+    ASSESS_PATH: ["json", FHIR_JSON, JSON, "ndjson", FHIR_NDJSON, NDJSON],
+    "/fhir/metadata": ["json", FHIR_JSON, JSON],
+    "/fhir/OperationDefinition/assess-hypoxaemia": ["json", FHIR_JSON, JSON],
+}
+
+# The request body of the operation: a Bundle, with the two members the service requires.
+BUNDLE_REQUEST: Schema = {
+    "type": "object",
+    "required": ["resourceType", "type"],
+    "properties": {
+        "resourceType": {"const": "Bundle"},
+        "type": {"enum": sorted(BUNDLE_TYPES)},
+        "entry": {"type": "array", "items": {"type": "object"}},
+    },
+}
+
+
+def _formats(path: str, operation: Schema) -> None:
+    for parameter in operation.get("parameters", []):
+        if parameter.get("name") == "_format" and path in FORMATS:
+            parameter["schema"] = {"type": "string", "enum": FORMATS[path]}
+
+
 def complete(generated: Schema) -> Schema:
     """The document FastAPI generated, corrected as the module docstring says."""
     schema = copy.deepcopy(generated)
     for path, operations in schema.get("paths", {}).items():
         for method, operation in operations.items():
+            _formats(path, operation)
             responses = operation.setdefault("responses", {})
             if "HTTPValidationError" in str(responses.get("422")):
                 del responses["422"]  # FastAPI's validation error: this service answers 400
@@ -332,7 +367,9 @@ def complete(generated: Schema) -> Schema:
                 _body_limits(operation)
             if (method, path) == ("post", ASSESS_PATH):
                 for media in (FHIR_JSON, JSON):
-                    operation["requestBody"]["content"][media]["example"] = EXAMPLE_BUNDLE
+                    content = operation["requestBody"]["content"][media]
+                    content["schema"] = copy.deepcopy(BUNDLE_REQUEST)
+                    content["example"] = EXAMPLE_BUNDLE
             if path not in PUBLIC:
                 operation["security"] = [{}, {"bearer": []}]
                 responses.setdefault("401", _outcome("Authentication required or failed"))

@@ -2,15 +2,20 @@
 
 ``reload_runtime`` loads the rule set, site file and code map again from the settings the app
 started with, in a worker thread (the event loop keeps answering meanwhile), and checks them as
-completely as at start. On success the new runtime replaces the old one in one step on the
-event loop (``install_runtime``: runtime, CapabilityStatement and the rule-set metric
-together), so each request sees one rule set or the other, never a mix, and the new identity
-is logged. On failure nothing changes: the loaded rule set keeps serving, and the refusal is
-logged at error level with the problem named (file and reason; rule files hold no patient
-data). A request already in progress finishes with the runtime it started with.
+completely as at start: the loader, then every check of ``oxyrule lint``
+(``service.workbench.lint.verified_runtime``: a set lint rejects is refused). On success the
+new runtime replaces the old one in one step on the event loop (``install_runtime``: runtime,
+CapabilityStatement and the rule-set metric together), so each request sees one rule set or
+the other, never a mix, and the new identity is logged. On failure nothing changes: the loaded
+rule set keeps serving, and the refusal is logged at error level with the problem named (file
+and reason; rule files hold no patient data). A request already in progress finishes with the
+runtime it started with.
 
-With one worker (the deployment's mode) ``oxyrule serve`` installs the handler; with several,
-uvicorn's supervisor answers ``SIGHUP`` by restarting the worker processes instead.
+With one worker (the deployment's mode) the process reloads itself on ``SIGHUP``. With
+several, the supervisor verifies and copies the set, and each worker's ``SIGHUP`` only prepares
+that copy (``prepare_generation``); every worker switches to it at the same instant when the
+supervisor commits it, at the start of its next request (``follow_generation``;
+``service.api.generations`` tells the whole story).
 """
 
 from __future__ import annotations
@@ -25,6 +30,7 @@ from service.api.capability import capability_statement, operation_definition
 from service.api.logs import SERVER_LOGGER
 from service.api.state import ServiceState
 from service.runtime import Runtime
+from service.workbench.lint import verified_runtime
 
 log = logging.getLogger(SERVER_LOGGER)
 PROBLEM_CHARS = 2000  # a rule set error can list many problems; the log line stays readable
@@ -57,11 +63,66 @@ def _problem(exc: BaseException) -> str:
     return f"{type(exc).__name__}: {text}"[:PROBLEM_CHARS]
 
 
+def _swap(service: ServiceState, runtime: Runtime) -> None:
+    install_runtime(service, runtime)
+    if gc.get_freeze_count():  # start-up froze the old set (server.settle_memory)
+        gc.unfreeze()  # so that what only the old set held can be collected,
+        gc.collect()  # once (one pause, per reload),
+        gc.freeze()  # and the new set kept out of later collections
+
+
+async def prepare_generation(service: ServiceState) -> bool:
+    """A worker of a multi-worker server: load and verify the generation the supervisor asks
+    for, beside the set being served, and report ready (or why not)."""
+    generations = service.generations
+    assert generations is not None
+    async with service.reload_lock:
+        number = generations.pending()
+        if number is None or number <= service.generation:
+            return False
+        try:
+            runtime = await asyncio.to_thread(generations.load, number, service.settings)
+        except Exception as exc:
+            generations.report(number, _problem(exc))
+            log.error(
+                "rule set generation refused by this worker",
+                extra={"ruleset": identity(service.runtime), "problem": _problem(exc)},
+            )
+            return False
+        service.prepared = {number: runtime}
+        generations.report(number, "ready")
+        return True
+
+
+async def follow_generation(service: ServiceState) -> None:
+    """A worker of a multi-worker server: serve the committed generation (called at the start
+    of every request; a read of shared memory when nothing changed)."""
+    generations = service.generations
+    if generations is None or generations.committed() == service.generation:
+        return
+    async with service.reload_lock:
+        committed = generations.committed()
+        if committed == service.generation:
+            return  # another request switched while this one waited
+        runtime = service.prepared.pop(committed, None)
+        if runtime is None:  # committed while this worker was starting: load it now
+            runtime = await asyncio.to_thread(generations.load, committed, service.settings)
+        previous = identity(service.runtime)
+        _swap(service, runtime)
+        service.generation, service.prepared = committed, {}
+        log.info(
+            "rule set switched",
+            extra={"ruleset": identity(runtime), "previous": previous},
+        )
+
+
 async def reload_runtime(service: ServiceState) -> bool:
     """Load the rule set again and swap it in; False (old one kept, error logged) on failure."""
+    if service.generations is not None:
+        return await prepare_generation(service)
     async with service.reload_lock:  # two quick signals: one reload after the other
         try:
-            runtime = await asyncio.to_thread(Runtime.load, service.settings)
+            runtime = await asyncio.to_thread(verified_runtime, service.settings)
         except Exception as exc:  # anything: refuse the new set, keep serving the loaded one
             log.error(
                 "rule set reload refused; still serving the loaded rule set",
@@ -69,11 +130,7 @@ async def reload_runtime(service: ServiceState) -> bool:
             )
             return False
         previous = identity(service.runtime)
-        install_runtime(service, runtime)
-        if gc.get_freeze_count():  # start-up froze the old set (server.settle_memory)
-            gc.unfreeze()  # so that what only the old set held can be collected,
-            gc.collect()  # once (one pause, per reload),
-            gc.freeze()  # and the new set kept out of later collections
+        _swap(service, runtime)
         log.info(
             "rule set reloaded",
             extra={"ruleset": identity(runtime), "previous": previous},

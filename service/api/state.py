@@ -7,10 +7,15 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from service.api.auth import Authenticator
+from service.api.budget import ByteBudget
+from service.api.generations import WorkerGenerations
 from service.api.metrics import Metrics
 from service.cds.hooks import CdsHooks
 from service.config import ServerSettings, Settings
+from service.hl7v2.message import V2Limits
+from service.intake.limits import ReadLimits
 from service.runtime import Runtime
+from service.work import WorkPool
 
 
 @dataclass(slots=True)
@@ -31,6 +36,28 @@ class ServiceState:
     in_flight: int = 0
     draining: bool = False  # set at shutdown: /readyz answers 503 so traffic moves away
     reload_lock: asyncio.Lock = field(default_factory=asyncio.Lock)
+    # Built from ``server`` (the budgets every request shares; see deploy/README.md).
+    budget: ByteBudget = field(init=False)
+    work: WorkPool = field(init=False)
+    read_limits: ReadLimits = field(init=False)
+    v2_limits: V2Limits = field(init=False)
+    # A worker of a multi-worker server follows the supervisor's rule-set generations
+    # (service.api.generations); None with one worker.
+    generations: WorkerGenerations | None = None
+    generation: int = 0
+    prepared: dict[int, Runtime] = field(default_factory=dict)
+
+    def __post_init__(self) -> None:
+        server = self.server
+        self.budget = ByteBudget(server.max_buffered_bytes)
+        self.work = WorkPool(server.work_threads)
+        self.read_limits = ReadLimits(server.max_bundle_entries, server.max_issues)
+        self.v2_limits = V2Limits(
+            max_segments=server.hl7_max_segments,
+            max_field_parts=server.hl7_max_field_parts,
+            max_parts=server.hl7_max_parts,
+            max_issues=server.max_issues,
+        )
 
 
 @dataclass(slots=True)
@@ -45,3 +72,4 @@ class RequestRecord:
     lines: int | None = None
     rejected: int | None = None
     bytes_in: int | None = None
+    stream: str | None = None  # how a streamed answer ended (service.api.ndjson)

@@ -42,7 +42,6 @@ from enum import Enum
 import orjson
 
 from service.assess.pairing import ARTERIAL, PATIENT_LEVEL
-from service.fhir.concept_map import LocalCodeMap
 from service.fhir.dates import effective_time, parse_date_time
 from service.fhir.extract import read_bundle
 from service.fhir.observation import identify
@@ -50,6 +49,7 @@ from service.fhir.outcome import BundleError, Problem
 from service.fhir.references import FHIR_ID, type_and_id
 from service.fhir.shape import Collector
 from service.intake.model import Intake, Measurement, Quantity, Specimen
+from service.terminology.local_codes import LocalCodeMap
 
 from .errors import ErrorCode, ErrorRow, Stage
 from .pseudonym import Pseudonymiser

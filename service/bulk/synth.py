@@ -31,14 +31,15 @@ from typing import Any, BinaryIO, cast
 
 import orjson
 
-from service.fhir import codes
+from service.fhir import codes as fhir_codes
 from service.physiology import acid_base, gas_exchange, saturation
 from service.physiology.atmosphere import barometric_pressure_mmhg
+from service.terminology import codes
 
 OBSERVATIONS_PER_FILE = 50_000
 START = datetime(2026, 1, 1, tzinfo=UTC)
 DAYS = 365
-_TAG = {"tag": [{"system": codes.TEST_DATA_TAG_SYSTEM, "code": codes.TEST_DATA_TAG_CODE}]}
+_TAG = {"tag": [{"system": fhir_codes.TEST_DATA_TAG_SYSTEM, "code": fhir_codes.TEST_DATA_TAG_CODE}]}
 
 # Invented places: (id, name, altitude in metres).
 LOCATIONS: tuple[tuple[str, str, float], ...] = (

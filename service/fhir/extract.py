@@ -32,7 +32,7 @@ from dataclasses import dataclass
 from service.fhir import codes
 from service.fhir.dates import parse_date
 from service.fhir.observation import ObservationReader
-from service.fhir.outcome import NotABundleError, error
+from service.fhir.outcome import NotABundleError, Problem, TooLargeError, error
 from service.fhir.references import FHIR_ID, BundleIndex, resource_reference, type_and_id
 from service.fhir.shape import (
     Collector,
@@ -44,6 +44,7 @@ from service.fhir.shape import (
     member_object,
 )
 from service.fhir.shape import member_str as text
+from service.intake.limits import DEFAULT_READ_LIMITS, ReadLimits
 from service.intake.model import Intake, Measurement, Patient, Quantity, Severity, Source
 from service.intake.plausibility import out_of_range
 from service.terminology.local_codes import LocalCodeMap
@@ -62,20 +63,29 @@ class _Entry:
     at: str  # Bundle.entry[index].resource
 
 
-def read_bundle(data: object, *, concept_map: LocalCodeMap | None = None) -> Intake:
+def read_bundle(
+    data: object,
+    *,
+    concept_map: LocalCodeMap | None = None,
+    limits: ReadLimits = DEFAULT_READ_LIMITS,
+) -> Intake:
     """Read one patient's Bundle into measurements in canonical units, with issues.
 
     Args:
         data: the parsed JSON body (``orjson.loads``).
         concept_map: the site's local-code map, if any.
+        limits: the most entries read and issues listed (``service.intake.limits``).
 
     Raises:
         NotABundleError: ``data`` is not a FHIR Bundle at all (HTTP 400).
+        TooLargeError: more entries than ``limits.max_entries`` (HTTP 413).
         BundleError: a Bundle the service cannot read; lists every problem (HTTP 422).
     """
     bundle = _bundle_object(data)
+    _within_limits(bundle, limits.max_entries)
     out = Collector()
-    kind = text(bundle, "type", "Bundle", out)
+    # Bundle.type is 1..1 in FHIR: a Bundle without one is refused, not guessed at.
+    kind = text(bundle, "type", "Bundle", out, required=True)
     if kind is not None and kind not in codes.BUNDLE_TYPES:
         out.problem("code-invalid", "not an R4 Bundle type", "Bundle.type")
     index = BundleIndex()
@@ -93,13 +103,46 @@ def read_bundle(data: object, *, concept_map: LocalCodeMap | None = None) -> Int
         elif entry.kind == "Location":
             measurements.extend(_altitude(entry, out))
         elif entry.kind != "Specimen":
-            kind = entry.kind if FHIR_ID.fullmatch(entry.kind) else "unknown"
-            message = f"{kind} resources are not read"
+            # Named only when FHIR defines the type: the sender's text is never quoted.
+            if entry.kind in codes.RESOURCE_TYPES:
+                message = f"{entry.kind} resources are not read"
+            else:
+                message = "resources of a type FHIR R4B does not define are not read"
             out.issue("resource-ignored", Severity.INFORMATION, message, entry.at)
-    out.raise_problems()
+    out.raise_problems(limits.max_issues)
     if patient is None and subjects.first is not None:
         patient = Patient(reference=subjects.first, birth_date=None, gender=None)
-    return Intake(patient=patient, measurements=measurements, issues=out.issues)
+    issues = out.listed_issues(limits.max_issues)
+    return Intake(patient=patient, measurements=measurements, issues=issues)
+
+
+def _within_limits(bundle: JsonObject, limit: int) -> None:
+    """Refuse a Bundle with more than ``limit`` entries, an Observation's components counting
+    as entries too (each is read as one more value: 20,000 components in one Observation took
+    3 s and a 10 MB answer before they counted)."""
+    entries = bundle.get("entry")
+    if not isinstance(entries, list):
+        return
+    problem = None
+    if len(entries) > limit:
+        problem = f"the Bundle has more than {limit} entries", "Bundle.entry"
+    else:
+        count = len(entries)
+        for i, item in enumerate(entries):
+            resource = item.get("resource") if type(item) is dict else None
+            components = resource.get("component") if type(resource) is dict else None
+            if isinstance(components, list):
+                count += len(components)
+                if count > limit:
+                    where = f"Bundle.entry[{i}].resource.component"
+                    problem = f"the Bundle has more than {limit} entries and components", where
+                    break
+    if problem is not None:
+        message = (
+            f"{problem[0]} (setting OXYRULE_MAX_BUNDLE_ENTRIES, components counted as "
+            "entries); send one patient's recent data"
+        )
+        raise TooLargeError([Problem("error", "too-long", message, problem[1])])
 
 
 def _bundle_object(data: object) -> JsonObject:
@@ -107,10 +150,12 @@ def _bundle_object(data: object) -> JsonObject:
         found = f"JSON {json_type(data)}"
     elif data.get("resourceType") == "Bundle":
         return data
-    elif isinstance(data.get("resourceType"), str) and FHIR_ID.fullmatch(data["resourceType"]):
-        found = f"a {data['resourceType']} resource"
-    else:
+    elif not isinstance(kind := data.get("resourceType"), str):
         found = "an object without a FHIR resourceType"
+    elif kind in codes.RESOURCE_TYPES:  # named only when FHIR defines it: never the sender's text
+        found = f"a {kind} resource"
+    else:
+        found = "a resourceType FHIR R4B does not define"
     diagnostics = f"expected a FHIR Bundle resource (resourceType 'Bundle'), got {found}"
     raise NotABundleError([error("structure", diagnostics, "Bundle")])
 

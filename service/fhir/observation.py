@@ -172,7 +172,9 @@ class ObservationReader:
         return measurements
 
     def _ignore_unknown(self, codings: list[tuple[str, str]], at: str) -> None:
-        named = ", ".join(f"{s}|{c}" for s, c in codings[:3]) or "no coding"
+        # The codes sent are not quoted (an error names the element, never what it holds).
+        count = len(codings)
+        named = "no coding" if not count else f"{count} coding{'s' if count > 1 else ''} sent"
         message = f"no code the service reads ({named})"
         self.out.issue("observation-ignored", Severity.INFORMATION, message, f"{at}.code")
 

@@ -18,14 +18,18 @@ from dataclasses import dataclass
 from typing import Literal
 
 from service.exceptions import ServiceError
+from service.intake.limits import condense
 
 IssueSeverity = Literal["fatal", "error", "warning", "information"]
 
 # The HL7 issue-type codes (http://hl7.org/fhir/issue-type) this service emits for input
 # problems: the shape is wrong (structure), something needed is absent (required), a value or
 # unit cannot be used (value), a code is not in its required code set (code-invalid), the input
-# is valid FHIR the service does not handle (not-supported), anything else invalid (invalid).
-IssueType = Literal["structure", "required", "value", "invalid", "code-invalid", "not-supported"]
+# is valid FHIR the service does not handle (not-supported), it is larger than a budget
+# (too-long), anything else invalid (invalid).
+IssueType = Literal[
+    "structure", "required", "value", "invalid", "code-invalid", "not-supported", "too-long"
+]
 
 
 @dataclass(frozen=True, slots=True)
@@ -67,6 +71,10 @@ class NotABundleError(BundleError):
     assessed is a 422)."""
 
 
+class TooLargeError(BundleError):
+    """A Bundle over a budget of what one input may hold, e.g. its entries (HTTP 413)."""
+
+
 class ConceptMapError(LocatedError):
     """A local-code ConceptMap that cannot be loaded (stops the service at start-up)."""
 
@@ -74,6 +82,25 @@ class ConceptMapError(LocatedError):
 def error(code: IssueType, diagnostics: str, expression: str) -> Problem:
     """A Problem of severity ``error``, the usual kind."""
     return Problem("error", code, diagnostics, expression)
+
+
+def condensed(problems: Sequence[Problem], limit: int) -> list[Problem]:
+    """``problems`` as listed: repeats counted, at most ``limit`` (``service.intake.limits``)."""
+    return condense(
+        problems,
+        kind=lambda p: (p.code, p.severity, p.diagnostics),
+        severity=lambda p: p.severity,
+        more=_more_problems,
+        limit=limit,
+    )
+
+
+def _more_problems(first: Problem, count: int, same_kind: bool) -> Problem:
+    if same_kind:
+        text = f"and {count} more like the one above, not listed: {first.diagnostics}"
+    else:
+        text = f"and {count} more problems not listed (setting OXYRULE_MAX_ISSUES)"
+    return Problem(first.severity, first.code, text, first.expression)
 
 
 def operation_outcome(problems: Iterable[Problem]) -> dict[str, object]:

@@ -11,7 +11,8 @@ from __future__ import annotations
 import math
 from typing import cast
 
-from service.fhir.outcome import BundleError, IssueType, Problem, error
+from service.fhir.outcome import BundleError, IssueType, Problem, condensed, error
+from service.intake.limits import DEFAULT_READ_LIMITS, condensed_issues
 from service.intake.model import IntakeIssue, Severity
 
 JsonObject = dict[str, object]
@@ -34,11 +35,16 @@ class Collector:
         """Record a finding to report beside the result; reading goes on."""
         self.issues.append(IntakeIssue(code, severity, message, expression))
 
-    def raise_problems(self) -> None:
-        """Raise one BundleError with every problem recorded, if there is any."""
+    def raise_problems(self, limit: int = DEFAULT_READ_LIMITS.max_issues) -> None:
+        """Raise one BundleError with every problem recorded, if there is any (repeats
+        counted, at most ``limit`` listed: ``service.intake.limits``)."""
         if self.problems:
             # A Specimen referenced twice is read twice: report each problem once.
-            raise BundleError(list(dict.fromkeys(self.problems)))
+            raise BundleError(condensed(list(dict.fromkeys(self.problems)), limit))
+
+    def listed_issues(self, limit: int = DEFAULT_READ_LIMITS.max_issues) -> list[IntakeIssue]:
+        """The issues to report: repeats counted, at most ``limit`` listed."""
+        return condensed_issues(self.issues, limit)
 
 
 def json_type(value: object) -> str:

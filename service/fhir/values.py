@@ -17,7 +17,7 @@ from service.fhir.shape import member_str as text
 from service.intake.model import Quantity, Severity
 from service.intake.plausibility import out_of_range
 from service.intake.reading import Reading, Settled, settle
-from service.physiology.units import FIO2_LIMITS, Dimension
+from service.physiology.units import FIO2_LIMITS, Dimension, unit_named
 from service.terminology import codes
 from service.terminology.codes import Concept
 
@@ -52,7 +52,7 @@ def _convert(
         accepted = ", ".join(exc.accepted)
         out.problem(
             "value",
-            f"unit '{unit}' cannot be used for {concept.quantity.value}; accepted: {accepted}",
+            f"{unit_named(unit)} cannot be used for {concept.quantity.value}; accepted: {accepted}",
             unit_at,
         )
     except ImpossibleValueError:
@@ -60,8 +60,8 @@ def _convert(
         out.issue(
             "value-out-of-range",
             Severity.ERROR,
-            f"fio2 is not between {low:g} and {high:g} once read as a fraction (sent unit "
-            f"'{unit}'); the value is not used",
+            f"fio2 is not between {low:g} and {high:g} once read as a fraction (sent in "
+            f"{unit_named(unit)}); the value is not used",
             f"{at}.value",
         )
     return None
@@ -130,7 +130,7 @@ def read_coded(cc: JsonObject, at: str, quantity: Quantity, out: Collector) -> R
     """The value of a coded quantity (oxygen device, residence) from a ``valueCodeableConcept``:
     the first coding that means something to the service (``codes.coded_value``)."""
     codings = member_list(cc, "coding", at, out) or []
-    sent: list[str] = []  # codes of a terminology, not patient values: named so a map can be made
+    sent = 0  # the codes sent are counted, never quoted: an error names the element
     for coding, coding_at in objects(codings, f"{at}.coding", out):
         system = text(coding, "system", coding_at, out)
         code = text(coding, "code", coding_at, out)
@@ -139,8 +139,8 @@ def read_coded(cc: JsonObject, at: str, quantity: Quantity, out: Collector) -> R
         value = codes.coded_value(quantity, system, code)
         if value is not None:
             return Reading(value)
-        sent.append(f"{system}|{code}")
-    named = ", ".join(sent) if sent else "no coding"
+        sent += 1
+    named = "no coding" if sent == 0 else f"{sent} coding{'s' if sent > 1 else ''} sent"
     out.issue(
         "observation-ignored",
         Severity.INFORMATION,
@@ -149,3 +149,7 @@ def read_coded(cc: JsonObject, at: str, quantity: Quantity, out: Collector) -> R
         at,
     )
     return None
+
+
+def _codings(count: int) -> str:
+    return "no coding" if count == 0 else f"{count} coding{'s' if count > 1 else ''} sent"

@@ -13,6 +13,7 @@ carries it from 2.7 on. Pure: the clock and the control id may be given.
 
 from __future__ import annotations
 
+import re
 import uuid
 from collections.abc import Sequence
 from datetime import UTC, datetime
@@ -25,6 +26,7 @@ from service.hl7v2.message import Header, V2Message
 from service.hl7v2.times import format_dtm
 
 AckCode = Literal["AA", "AE", "AR"]
+TRIGGER_SHAPE = re.compile(r"[A-Z][A-Z0-9]{2}")
 MSA_TEXT_LIMIT = 80  # MSA-3 is ST(80)
 
 
@@ -95,9 +97,10 @@ def ack(
     an informational ERR from v2.7 on).
     """
     header = message.header if isinstance(message, V2Message) else (message or Header())
-    msh, version = reply_header(
-        header, ("ACK", header.trigger, "ACK"), now=now, control_id=control_id
-    )
+    # MSH-9.2 echoes the trigger event acknowledged when it has a trigger's shape (table 0003:
+    # a letter and two letters or digits); anything else sent there is not repeated back.
+    trigger = header.trigger if TRIGGER_SHAPE.fullmatch(header.trigger) else ""
+    msh, version = reply_header(header, ("ACK", trigger, "ACK"), now=now, control_id=control_id)
     old_text = version_tuple(version) < (2, 7)
     msa_text = er7.escape(text[:MSA_TEXT_LIMIT]) if text and old_text else ""
     segments = [msh, er7.segment("MSA", code, er7.escape(header.control_id), msa_text)]

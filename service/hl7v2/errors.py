@@ -23,6 +23,7 @@ from enum import IntEnum
 from typing import Literal
 
 from service.exceptions import ServiceError
+from service.intake.limits import condense
 
 ErrSeverity = Literal["E", "W", "I"]  # HL7 table 0516
 
@@ -164,6 +165,25 @@ class MessageRejected(V2MessageError):
 
 class MessageInError(V2MessageError):
     """Answered AE: an ORU^R01 whose content the sender must fix."""
+
+
+def condensed_errors(errors: Sequence[V2Error], limit: int) -> list[V2Error]:
+    """``errors`` as listed: repeats counted, at most ``limit`` (``service.intake.limits``)."""
+    return condense(
+        errors,
+        kind=lambda e: (e.code, e.severity, e.reason),
+        severity=lambda e: _ISSUE_SEVERITY[e.severity],
+        more=_more_errors,
+        limit=limit,
+    )
+
+
+def _more_errors(first: V2Error, count: int, same_kind: bool) -> V2Error:
+    if same_kind:
+        reason = f"and {count} more like the one above, not listed: {first.reason}"
+    else:
+        reason = f"and {count} more problems not listed (setting OXYRULE_MAX_ISSUES)"
+    return V2Error(first.location, first.code, reason, first.severity, first.finding)
 
 
 def operation_outcome(errors: Sequence[V2Error]) -> dict[str, object]:

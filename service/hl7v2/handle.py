@@ -42,7 +42,15 @@ from service.hl7v2.errors import (
 )
 from service.hl7v2.header import unsupported
 from service.hl7v2.intake import read_oru
-from service.hl7v2.message import Header, V2Message, parse_message, read_header, v2_text
+from service.hl7v2.message import (
+    DEFAULT_LIMITS,
+    Header,
+    V2Limits,
+    V2Message,
+    parse_message,
+    read_header,
+    v2_text,
+)
 from service.hl7v2.result import oru_result
 from service.intake.model import Intake, Severity
 from service.runtime import Runtime
@@ -106,17 +114,22 @@ def refusal(
 
 
 def _answer(
-    text: str, runtime: Runtime, reply: Reply, unit: PressureUnit | None, now: datetime | None
+    text: str,
+    runtime: Runtime,
+    reply: Reply,
+    unit: PressureUnit | None,
+    now: datetime | None,
+    limits: V2Limits,
 ) -> V2Response:
     try:
-        message = parse_message(text)
+        message = parse_message(text, limits)
     except MessageRejected as exc:
         return refusal(read_header(text), "AR", exc.errors, reply, now=now)
     problems = unsupported(message.header)
     if problems:
         return refusal(message, "AR", problems, reply, now=now)
     try:
-        intake = read_oru(message, concept_map=runtime.concept_map)
+        intake = read_oru(message, concept_map=runtime.concept_map, max_issues=limits.max_issues)
     except MessageInError as exc:
         return refusal(message, "AE", exc.errors, reply, now=now)
     assessment = runtime.assess_intake(intake, now=now)
@@ -140,6 +153,7 @@ def handle_v2(
     reply: Reply = "ack",
     pressure_unit: PressureUnit | None = None,
     now: datetime | None = None,
+    limits: V2Limits = DEFAULT_LIMITS,
 ) -> V2Response:
     """Assess one HL7 v2 message (ER7 text) and answer it; never raises.
 
@@ -149,10 +163,11 @@ def handle_v2(
         reply: ``ack`` (an ACK), ``fhir`` (the FHIR result Bundle) or ``result`` (an ORU^R01).
         pressure_unit: pressures of the result (default: the runtime's setting).
         now: the clock, for reproducible answers in tests.
+        limits: how large a message is parsed at all (``V2Limits``); beyond, AR.
     """
     started = time.perf_counter()
     try:
-        response = _answer(text, runtime, reply, pressure_unit, now)
+        response = _answer(text, runtime, reply, pressure_unit, now, limits)
     except Exception as exc:  # the last line of defence: answered, never raised
         frames = "".join(traceback.format_tb(exc.__traceback__))
         # The exception's own message may quote the input: only its type and frames are logged.

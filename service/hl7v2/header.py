@@ -13,10 +13,6 @@ from service.hl7v2.message import Header
 _E = ErrorCode
 
 
-def _shown(text: str) -> str:
-    return text if len(text) <= 20 else text[:20] + "…"
-
-
 def version_tuple(version: str) -> tuple[int, ...]:
     """``"2.5.1"`` as (2, 5, 1); anything unreadable as (0,)."""
     try:
@@ -32,12 +28,13 @@ def unsupported(header: Header) -> list[V2Error]:
     def refuse(code: ErrorCode, reason: str, field: int, component: int | None = None) -> None:
         errors.append(V2Error(Location("MSH", 1, field, component), code, reason))
 
+    # What was sent is not quoted (an error names the field, never what it holds).
     if header.message_code != "ORU":
-        shown = _shown(header.message_code) or "(empty)"
-        refuse(_E.UNSUPPORTED_MESSAGE_TYPE, f"only ORU^R01 is taken, not {shown}", 9, 1)
+        what = "the message type is empty" if not header.message_code else "not ORU"
+        refuse(_E.UNSUPPORTED_MESSAGE_TYPE, f"only ORU^R01 is taken ({what})", 9, 1)
     elif header.trigger != "R01":
-        shown = _shown(header.trigger) or "(empty)"
-        refuse(_E.UNSUPPORTED_EVENT, f"only ORU^R01 is taken, not ORU^{shown}", 9, 2)
+        what = "the trigger event is empty" if not header.trigger else "not R01"
+        refuse(_E.UNSUPPORTED_EVENT, f"only ORU^R01 is taken ({what})", 9, 2)
     elif header.structure not in ("", "ORU_R01"):
         refuse(_E.UNSUPPORTED_MESSAGE_TYPE, "the message structure must be ORU_R01", 9, 3)
     if header.processing_id not in tables.PROCESSING_IDS:

@@ -26,21 +26,28 @@ message whose parts cannot all be used gives ``IntakeIssue``s and is assessed.
 from __future__ import annotations
 
 from service.hl7v2 import tables
-from service.hl7v2.errors import ErrorCode, Location, MessageInError
+from service.hl7v2.errors import ErrorCode, Location, MessageInError, condensed_errors
 from service.hl7v2.message import SEGMENT_ID, Segment, V2Message
 from service.hl7v2.notes import Notes
 from service.hl7v2.observations import Clock, ObservationReader, Order, Result
 from service.hl7v2.patient import read_patient
 from service.hl7v2.specimen import order_specimen
 from service.hl7v2.times import zone_of
+from service.intake.limits import DEFAULT_READ_LIMITS, condensed_issues
 from service.intake.model import Intake, IntakeIssue, Severity
 from service.terminology.local_codes import LocalCodeMap
 
 _E = ErrorCode
 
 
-def read_oru(message: V2Message, *, concept_map: LocalCodeMap | None = None) -> Intake:
-    """Read an ORU^R01 into measurements in canonical units, with the issues met.
+def read_oru(
+    message: V2Message,
+    *,
+    concept_map: LocalCodeMap | None = None,
+    max_issues: int = DEFAULT_READ_LIMITS.max_issues,
+) -> Intake:
+    """Read an ORU^R01 into measurements in canonical units, with the issues met (repeats
+    counted, at most ``max_issues`` listed: ``service.intake.limits``).
 
     The header (type, version, processing id) is checked by the caller (``header.unsupported``).
 
@@ -63,8 +70,10 @@ def read_oru(message: V2Message, *, concept_map: LocalCodeMap | None = None) -> 
         message_text = "times without an offset, and none in MSH-7: read as UTC"
         issues.append(IntakeIssue("time-zone-assumed", Severity.WARNING, message_text, "MSH[1]-7"))
     if notes.problems:
-        raise MessageInError(list(dict.fromkeys(notes.problems)))
-    return Intake(patient=patient, measurements=measurements, issues=issues)
+        raise MessageInError(condensed_errors(list(dict.fromkeys(notes.problems)), max_issues))
+    return Intake(
+        patient=patient, measurements=measurements, issues=condensed_issues(issues, max_issues)
+    )
 
 
 def _groups(message: V2Message, notes: Notes, clock: Clock) -> tuple[list[Segment], list[Order]]:

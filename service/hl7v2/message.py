@@ -25,6 +25,7 @@ import hl7.util  # type: ignore[import-untyped]
 
 from service.hl7v2.er7 import escape
 from service.hl7v2.errors import ErrorCode, Location, MessageRejected, V2Error
+from service.intake.limits import DEFAULT_READ_LIMITS
 
 
 def hl7_library_loggers() -> list[logging.Logger]:
@@ -48,11 +49,16 @@ _NEWLINES = re.compile(r"\r\n|\n|\r")
 
 
 def _child(node: object, index: int) -> object:
-    """Item ``index`` (1-based) of a python-hl7 container, or of a leaf string (itself at 1)."""
+    """Item ``index`` (1-based) of a python-hl7 container, or of a leaf string (itself at 1).
+
+    python-hl7's containers are lists, so this is one index, in constant time. (It used to copy
+    the container first, which made reading every component of a field quadratic in their
+    number: 69 s for one field of 100,000 components; tests/hl7v2/test_budgets.py.)
+    """
     if isinstance(node, str):
         return node if index == 1 else ""
-    items: list[object] = list(node)  # type: ignore[call-overload]
-    return items[index - 1] if 0 < index <= len(items) else ""
+    assert isinstance(node, list)
+    return node[index - 1] if 0 < index <= len(node) else ""
 
 
 def _count(node: object) -> int:
@@ -223,14 +229,89 @@ def _check_encoding(text: str) -> None:
         )
 
 
-def parse_message(text: str) -> V2Message:
-    """Parse ER7 text (segments separated by CR, LF or CRLF).
+@dataclass(frozen=True, slots=True)
+class V2Limits:
+    """How much of a message is parsed at all: the budget of one message's work.
+
+    A blood-gas ORU^R01 has a few dozen segments, a field a few components. The parser builds
+    an object per element (about 2.5 µs each), and reading and assessing grow with the number of
+    segments, so these bounds keep the worst message inside a body limit to a fraction of a
+    second. They are counted on the text, in C (``str.count``), before anything is built; a
+    message over one is refused AR, located (settings ``OXYRULE_HL7_MAX_*``).
+    """
+
+    max_segments: int = 500
+    max_field_parts: int = 256  # repetitions × components × sub-components of one field
+    max_parts: int = 20_000  # every field, component and sub-component of the message
+    max_issues: int = DEFAULT_READ_LIMITS.max_issues  # listed in the answer; the rest counted
+
+
+DEFAULT_LIMITS = V2Limits()
+
+
+def _over_budget(text: str, limits: V2Limits) -> MessageRejected | None:
+    """The refusal of a message over ``limits`` (counted on the normalised text), or None.
+
+    Linear in the text, and mostly in C: a segment whose separators are too few to put any
+    field over its limit is not split at all.
+    """
+    field_sep, encoding = text[3], text[4:8]
+    inner = (encoding[0], encoding[1], encoding[3])  # component, repetition, sub-component
+    segments = text.split("\r")
+    if len(segments) > limits.max_segments:
+        name = segments[limits.max_segments][:3]
+        reason = (
+            f"more than {limits.max_segments} segments (setting OXYRULE_HL7_MAX_SEGMENTS); "
+            "send one patient's recent results"
+        )
+        return _rejected(reason, Location(name if SEGMENT_ID.fullmatch(name) else "MSH", 1))
+    over_total = text.count(field_sep) + len(segments) + sum(map(text.count, inner)) > (
+        limits.max_parts
+    )
+    counts: dict[str, int] = {}
+    running = 0
+    for segment in segments:
+        name = segment[:3]
+        counts[name] = counts.get(name, 0) + 1
+        if not over_total and sum(map(segment.count, inner)) < limits.max_field_parts:
+            continue  # no field of this segment can be over its limit
+        for number, field in enumerate(segment.split(field_sep)):
+            if number == 0 or (name == "MSH" and number == 1):
+                continue  # the segment id; MSH-2, the encoding characters themselves
+            parts = 1 + sum(map(field.count, inner))
+            running += parts
+            if parts <= limits.max_field_parts and running <= limits.max_parts:
+                continue
+            at = Location(
+                name if SEGMENT_ID.fullmatch(name) else "MSH",
+                counts[name],
+                number + 1 if name == "MSH" else number,  # MSH-1 is the separator itself
+            )
+            if parts > limits.max_field_parts:
+                reason = (
+                    f"the field has more than {limits.max_field_parts} repetitions, components "
+                    "and sub-components (setting OXYRULE_HL7_MAX_FIELD_PARTS)"
+                )
+            else:
+                reason = (
+                    f"the message has more than {limits.max_parts} fields, components and "
+                    "sub-components (setting OXYRULE_HL7_MAX_PARTS)"
+                )
+            return MessageRejected([V2Error(at, ErrorCode.VALUE_TOO_LONG, reason)])
+    return None
+
+
+def parse_message(text: str, limits: V2Limits = DEFAULT_LIMITS) -> V2Message:
+    """Parse ER7 text (segments separated by CR, LF or CRLF), within ``limits``.
 
     Raises:
-        MessageRejected: not an HL7 v2 message, or its MSH cannot be read.
+        MessageRejected: not an HL7 v2 message, its MSH cannot be read, or it is over a limit.
     """
     text = normalise(text)
     _check_encoding(text)
+    refusal = _over_budget(text, limits)
+    if refusal is not None:
+        raise refusal
     try:
         parsed = hl7.parse(text)
     except Exception:  # python-hl7 raises several kinds on broken input

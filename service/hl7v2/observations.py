@@ -135,8 +135,9 @@ class ObservationReader:
             return None
         hit = identify(found, self.concept_map)
         if hit is None:
-            named = ", ".join(f"{v2 or '(no coding system)'}|{code}" for v2, _, code in found[:3])
-            message = f"no code the service reads ({named})"
+            # The codes sent are not quoted: an error names the field, never what it holds.
+            count = len(found)
+            message = f"no code the service reads ({count} code{'s' if count > 1 else ''} sent)"
             notes.issue("observation-ignored", Severity.INFORMATION, message, obx.at(3))
             return None
         concept, code = hit

@@ -25,7 +25,7 @@ from service.hl7v2.notes import Notes
 from service.intake.model import Quantity, Severity
 from service.intake.plausibility import out_of_range
 from service.intake.reading import Reading, settle
-from service.physiology.units import FIO2_LIMITS, Dimension
+from service.physiology.units import FIO2_LIMITS, Dimension, unit_named
 from service.terminology import codes
 from service.terminology.codes import Concept
 
@@ -124,13 +124,14 @@ def _convert(
         return concept.to_canonical(value, unit)
     except UnitError as exc:
         accepted = ", ".join(exc.accepted)
-        reason = f"unit '{unit}' cannot be used for {quantity.value}; accepted (UCUM): {accepted}"
+        named = unit_named(unit)
+        reason = f"{named} cannot be used for {quantity.value}; accepted (UCUM): {accepted}"
         notes.problem(_E.TABLE_VALUE_NOT_FOUND, reason, obx.at(6))
     except ImpossibleValueError:
         low, high = FIO2_LIMITS
         message = (
-            f"fio2 is not between {low:g} and {high:g} once read as a fraction (sent unit "
-            f"'{unit}'); the value is not used"
+            f"fio2 is not between {low:g} and {high:g} once read as a fraction (sent in "
+            f"{unit_named(unit)}); the value is not used"
         )
         notes.issue("value-out-of-range", Severity.ERROR, message, obx.at(5))
     return None
@@ -165,7 +166,7 @@ def _quantity(obx: Segment, value: float, concept: Concept, notes: Notes) -> Rea
 def _device(obx: Segment, notes: Notes) -> Reading | None:
     """The oxygen device of a coded OBX-5 (our device codes or SNOMED CT)."""
     parts = obx.components(5) + [""] * 6
-    sent: list[str] = []
+    sent = 0
     for code, v2_system in ((parts[0], parts[2]), (parts[3], parts[5])):
         if not code:
             continue
@@ -174,8 +175,9 @@ def _device(obx: Segment, notes: Notes) -> Reading | None:
             return Reading(code)
         if system == codes.SNOMED_CT and code in codes.SNOMED_OXYGEN_DEVICES:
             return Reading(codes.SNOMED_OXYGEN_DEVICES[code])
-        sent.append(f"{v2_system or '(no coding system)'}|{code}")
-    named = ", ".join(sent) if sent else "no code"
+        sent += 1
+    # The codes sent are not quoted: an error names the field, never what it holds.
+    named = "no code" if not sent else f"{sent} code{'s' if sent > 1 else ''} sent"
     message = (
         f"oxygen device not recognised ({named}); use {tables.DEVICE_SYSTEM} "
         f"({codes.OXYGEN_DEVICE_CODES}) or SCT"

@@ -136,6 +136,17 @@ _CONVERTERS: dict[Dimension, dict[str, Callable[[float], float]]] = {
 }
 
 
+# Every unit code the service converts, for any quantity: the only unit codes an error message
+# may name, because they come from this table and not from the sender.
+KNOWN_UNITS = frozenset(code for table in _CONVERTERS.values() for code in table)
+
+
+def unit_named(unit: str) -> str:
+    """How a message names a unit that was sent: the code itself only when it is one of the
+    service's own (``KNOWN_UNITS``), otherwise a description, so no message echoes the input."""
+    return f"unit '{unit}'" if unit in KNOWN_UNITS else "the unit sent (not a code of this service)"
+
+
 def accepted_units(dimension: Dimension) -> tuple[str, ...]:
     """The unit codes ``to_canonical`` accepts for a dimension."""
     return tuple(_CONVERTERS[dimension])
@@ -150,7 +161,9 @@ def to_canonical(value: float, unit: str, dimension: Dimension) -> float:
     try:
         convert = _CONVERTERS[dimension][unit]
     except KeyError:
-        raise UnitError(unit, dimension.name.lower(), accepted_units(dimension)) from None
+        raise UnitError(
+            unit, dimension.name.lower(), accepted_units(dimension), named=unit_named(unit)
+        ) from None
     return convert(value)
 
 
@@ -177,7 +190,7 @@ def normalise_fio2(value: float, unit: str) -> Fio2:
         ImpossibleValueError: the fraction is outside 0.10–1.0 after normalisation.
     """
     if unit not in ("%", "1"):
-        raise UnitError(unit, "inspired oxygen fraction", ("%", "1"))
+        raise UnitError(unit, "inspired oxygen fraction", ("%", "1"), named=unit_named(unit))
     as_percent = unit == "%"
     reinterpreted = False
     if as_percent and 0.0 < value <= 1.0:

@@ -26,7 +26,7 @@ from types import MappingProxyType
 from service.exceptions import UnitError
 from service.intake.model import QUANTITY_UNITS, Fio2Source, Quantity, Specimen
 from service.physiology.oxygen_delivery import OxygenDevice
-from service.physiology.units import Dimension, normalise_fio2, to_canonical
+from service.physiology.units import Dimension, normalise_fio2, to_canonical, unit_named
 
 # --- Code system and profile URLs -----------------------------------------------------------
 
@@ -83,7 +83,7 @@ class Concept:
         if self.dimension is None:
             canonical = QUANTITY_UNITS[self.quantity]
             if unit != canonical:
-                raise UnitError(unit, self.quantity.value, (canonical,))
+                raise UnitError(unit, self.quantity.value, (canonical,), named=unit_named(unit))
             return value, False
         return to_canonical(value, unit, self.dimension), False
 

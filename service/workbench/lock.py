@@ -96,7 +96,9 @@ def compare(recorded: dict[str, LockEntry], current: dict[str, LockEntry]) -> li
                     f"major: meaning or outcome), then {update}",
                 )
             )
-        elif before != now:
+        elif (before.version, before.sha256) != (now.version, now.sha256):
+            # Where a file sits is not part of its review: the deployed ConfigMap flattens
+            # the folders (deploy/rules_configmap.py), and the same lock must pass there.
             problems.append(
                 LockProblem(name, now.file, f"version {before.version} → {now.version}", update)
             )

@@ -10,6 +10,8 @@ from types import TracebackType
 import uvicorn
 from fastapi import FastAPI
 
+from service.api.protocol import HttpProtocol
+
 
 class LiveServer:
     """Serves ``app`` on a free loopback port while the ``with`` block runs."""
@@ -21,7 +23,12 @@ class LiveServer:
         self.sock.bind(("127.0.0.1", 0))
         self.port: int = self.sock.getsockname()[1]
         config = uvicorn.Config(
-            app, log_config=None, access_log=False, lifespan="on", timeout_graceful_shutdown=2
+            app,
+            log_config=None,
+            access_log=False,
+            lifespan="on",
+            timeout_graceful_shutdown=2,
+            http=HttpProtocol,  # as `oxyrule serve` runs
         )
         self.server = uvicorn.Server(config)
         self.thread = threading.Thread(

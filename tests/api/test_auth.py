@@ -334,3 +334,49 @@ def test_unusable_jwks_settings_stop_the_app(settings: dict[str, Any], words: st
 def test_bad_authentication_settings_are_refused(settings: dict[str, Any], words: str) -> None:
     with pytest.raises(ValueError, match=words):
         ServerSettings(**settings)
+
+
+@pytest.mark.parametrize(
+    ("header", "words"),
+    [
+        ({"alg": "RS384", "kid": 7}, "kid must be a string"),
+        ({"alg": "RS384", "kid": ["rsa-1"]}, "kid must be a string"),
+        ({"alg": "RS384", "kid": {"id": "rsa-1"}}, "kid must be a string"),
+        ({"alg": "RS384", "kid": None}, "kid must be a string"),
+        ({"alg": "RS384", "kid": "rsa-1", "crit": ["exp"]}, "crit"),
+        ({"alg": "RS384", "kid": "rsa-1", "b64": False}, "b64"),
+        ({"alg": "INVENTED-NAME-ALG", "kid": "rsa-1"}, "not a JWA algorithm"),
+        ({"alg": ["RS384"], "kid": "rsa-1"}, "not a JWA algorithm"),
+    ],
+    ids=[
+        "kid-number",
+        "kid-list",
+        "kid-object",
+        "kid-null",
+        "crit",
+        "b64",
+        "alg-unknown",
+        "alg-list",
+    ],
+)
+def test_a_malformed_token_header_is_a_located_401_never_a_500(
+    secured: httpx.Client, header: dict[str, Any], words: str
+) -> None:
+    # Each of these was a 500 before any signature check, on every protected route.
+    forged = handmade(header, b"\x01" * 256)
+    for route in (lambda c, a: post(c, a), lambda c, a: c.get("/metrics", headers=auth(a))):
+        diagnostics = refused(route(secured, f"Bearer {forged}"), "security")
+        assert words in diagnostics
+        assert "INVENTED-NAME" not in diagnostics  # the header's text is never echoed
+
+
+@pytest.mark.parametrize("segment", [b"[1, 2]", b"not json", b"\xff\xfe", b'"a string"'])
+def test_a_token_whose_header_is_not_a_json_object_is_a_401(
+    secured: httpx.Client, segment: bytes
+) -> None:
+    forged = jwt.utils.base64url_encode(segment).decode() + ".e30.c2ln"
+    assert "neither" in refused(post(secured, f"Bearer {forged}"), "security")
+
+
+def auth(authorization: str) -> dict[str, str]:
+    return {"Authorization": authorization}

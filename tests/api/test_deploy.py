@@ -12,8 +12,11 @@ from typing import Any
 import pytest
 import yaml
 
+from service.api.budget import worst_case_bytes
 from service.assess.catalogue import DEFAULT_CATALOGUE
+from service.config import ServerSettings, Settings
 from service.engine import load_ruleset
+from service.workbench.lint import verified_runtime
 from tests.api.conftest import ROOT
 
 DOCKER = ROOT / "docker"
@@ -70,6 +73,23 @@ def test_resources_have_requests_within_limits() -> None:
     assert _millicores(resources["requests"]["cpu"]) <= _millicores(resources["limits"]["cpu"])
     assert _mebibytes(resources["requests"]["memory"]) <= _mebibytes(resources["limits"]["memory"])
     assert _mebibytes(resources["requests"]["memory"]) >= 64  # measured ~50-60 MB per worker
+
+
+def test_the_memory_limit_holds_a_worker_with_every_budget_full_and_room_to_spare() -> None:
+    # Every budget of the settings the pod runs with, full at once (service.api.budget), must
+    # fit the limit with a third to spare; measured under the amplification attack, a worker
+    # peaked well below that (tests/load/hostile.py).
+    settings = {
+        e["name"].removeprefix("OXYRULE_").lower(): e["value"]
+        for e in container()["env"]
+        if e["name"].startswith("OXYRULE_") and "value" in e
+    }
+    server = ServerSettings(
+        **{k: v for k, v in settings.items() if k in ServerSettings.model_fields}
+    )
+    worst = worst_case_bytes(server) / 2**20
+    limit = _mebibytes(container()["resources"]["limits"]["memory"])
+    assert worst * 1.5 <= limit, (worst, limit)
 
 
 def _millicores(text: str) -> float:
@@ -135,6 +155,9 @@ def test_the_generated_rules_configmap_is_mounted_where_the_service_reads_rules(
     assert configmap["metadata"]["annotations"]["oxyrule.org/ruleset"] == (
         f"{original.id}|{original.version}"
     )
+    # And it passes the checks the service runs before it serves a set (those of lint, the
+    # lock file among them): without the lock in the ConfigMap the pod would not start.
+    assert verified_runtime(Settings(rules_dir=tmp_path)).ruleset.version == original.version
 
 
 def test_the_configmap_script_refuses_two_files_with_one_name(tmp_path: Path) -> None:

@@ -98,7 +98,8 @@ def test_assess_refuses_a_body_without_content_type(live: httpx.Client) -> None:
 def test_assess_refuses_a_fhir_version_it_does_not_read(live: httpx.Client) -> None:
     headers = {"Content-Type": "application/fhir+json; fhirVersion=5.0"}
     response = live.post(ASSESS, content=ALTITUDE.read_bytes(), headers=headers)
-    assert "5.0" in fhir_error(response, 415, "not-supported")["diagnostics"]
+    diagnostics = fhir_error(response, 415, "not-supported")["diagnostics"]
+    assert "5.0" not in diagnostics and "R4B (4.3)" in diagnostics  # named, never echoed
 
 
 def test_assess_refuses_a_charset_other_than_utf8(live: httpx.Client) -> None:
@@ -238,8 +239,45 @@ def test_an_internal_error_is_a_500_outcome_with_a_correlation_id_and_no_traceba
 def test_unknown_paths_and_methods_are_answered_as_fhir(live: httpx.Client) -> None:
     found = fhir_error(live.get("/fhir/Patient/1"), 404, "not-found")
     assert "$assess-hypoxaemia" in found["diagnostics"]
-    fhir_error(live.get(ASSESS), 405, "not-supported")
+    # Located like every other error (they had no expression before).
+    assert found["expression"] == ["http.path"]
+    assert fhir_error(live.get(ASSESS), 405, "not-supported")["expression"] == ["http.method"]
     fhir_error(live.delete("/fhir/metadata"), 405, "not-supported")
+
+
+def test_a_trailing_slash_is_a_located_404_not_an_empty_redirect(live: httpx.Client) -> None:
+    for path in ("/healthz/", "/fhir/metadata/", ASSESS + "/"):
+        answer = live.get(path, follow_redirects=False)
+        found = fhir_error(answer, 404, "not-found")  # it was an empty 307
+        assert found["expression"] == ["http.path"] and "slash" in found["diagnostics"]
+
+
+def test_every_error_the_document_offers_is_located(live: httpx.Client) -> None:
+    answers = [
+        live.get("/nowhere"),
+        live.put("/healthz"),
+        live.post(ASSESS, content=b"{}", headers={"Content-Type": "text/csv"}),
+        live.post(ASSESS, content=b"{}", headers=FHIR_JSON, params={"units": "psi"}),
+        live.post(ASSESS, content=b"[", headers=FHIR_JSON),
+        live.get("/fhir/metadata", params={"_format": ""}),
+    ]
+    for answer in answers:
+        assert answer.status_code >= 400
+        assert all(issue["expression"] for issue in answer.json()["issue"]), answer.text
+
+
+def test_the_document_offers_no_format_or_body_the_service_refuses(live: httpx.Client) -> None:
+    document = live.get("/openapi.json").json()
+    operation = document["paths"][ASSESS]["post"]
+    formats = next(p for p in operation["parameters"] if p["name"] == "_format")["schema"]
+    assert "" not in formats["enum"] and "ndjson" in formats["enum"]
+    for value in formats["enum"][:3]:
+        answer = live.post(
+            ASSESS, content=ALTITUDE.read_bytes(), headers=FHIR_JSON, params={"_format": value}
+        )
+        assert answer.status_code == 200, value
+    body = operation["requestBody"]["content"]["application/fhir+json"]["schema"]
+    assert body["required"] == ["resourceType", "type"]  # {} was offered, and refused
 
 
 @pytest.mark.parametrize(

@@ -153,3 +153,14 @@ def test_mllp_needs_a_single_worker() -> None:
 
     with pytest.raises(ValidationError, match="OXYRULE_WORKERS=1"):
         ServerSettings(mllp_port=2575, workers=2)
+
+
+def test_hl7v2_messages_are_counted_by_transport_and_acknowledgment() -> None:
+    # /metrics counted no HL7 v2 traffic beyond the HTTP route's requests.
+    client = _client()
+    headers = {"Content-Type": "application/hl7-v2"}
+    client.post("/hl7v2", content=V2, headers=headers)
+    client.post("/hl7v2", content=b"MSH|^~\\&|A|B|C|D|20260101||ADT^A01|X|T|2.5.1", headers=headers)
+    text = client.get("/metrics").text
+    assert 'oxyrule_hl7v2_messages_total{transport="http",ack="AA"} 1' in text
+    assert 'oxyrule_hl7v2_messages_total{transport="http",ack="AR"} 1' in text

@@ -178,6 +178,42 @@ def test_a_broken_rule_set_stops_start_up_naming_the_file(tmp_path: Path) -> Non
     assert "Traceback" not in done.stderr
 
 
+def test_serve_refuses_a_rule_set_that_lint_rejects(tmp_path: Path) -> None:
+    # Every rule file deleted: the set loads (a manifest is enough) but lint refuses it (the
+    # lock lists rules whose files are gone). It used to start and serve it.
+    rules = tmp_path / "rules"
+    shutil.copytree(ROOT / "rules", rules)
+    for path in rules.rglob("*.yaml"):
+        if path.name != "ruleset.yaml":
+            path.unlink()
+    done = start("--rules", str(rules))
+    assert done.returncode == 1
+    assert "fails `oxyrule lint`" in done.stderr and "its file is gone" in done.stderr
+    assert "Traceback" not in done.stderr
+
+
+def test_serve_refuses_settings_the_descriptor_limit_cannot_hold() -> None:
+    # 300 idle MLLP peers once exhausted the descriptors and HTTP failed with them: the
+    # connections the settings allow must fit the process's limit (raised when it can be).
+    def low_limit() -> None:
+        import resource
+
+        resource.setrlimit(resource.RLIMIT_NOFILE, (200, 200))
+
+    done = subprocess.run(
+        [sys.executable, "-m", "service.cli", "serve", "--port", str(free_port())],
+        env=environment(OXYRULE_MLLP_PORT=str(free_port()), OXYRULE_MLLP_MAX_CONNECTIONS="500"),
+        cwd=ROOT,
+        capture_output=True,
+        text=True,
+        timeout=60,
+        check=False,
+        preexec_fn=low_limit,
+    )
+    assert done.returncode == 1
+    assert "OXYRULE_MLLP_MAX_CONNECTIONS" in done.stderr and "ulimit -n" in done.stderr
+
+
 def test_importing_the_cli_does_not_import_the_web_framework() -> None:
     code = (
         "import sys, service.cli; "

@@ -71,7 +71,7 @@ class Pattern(Enum):
 def test_codes_held_as_enums_are_read_as_their_published_values(runtime: Runtime) -> None:
     # The assessment's free strings are to become enums: the view must read both alike.
     a = assessed(runtime, DEMO / "post-operative-drowsiness.bundle.json")
-    first = replace(a.mechanisms[0], grade=Grade.LIKELY)
+    first = replace(a.mechanisms[0], grade=Grade.LIKELY)  # type: ignore[arg-type]
     mechanisms = [first, *a.mechanisms[1:]]
     changed = replace(a, pattern=Pattern.SINGLE, mechanisms=mechanisms)  # type: ignore[arg-type]
     v = view(changed)

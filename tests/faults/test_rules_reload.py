@@ -27,6 +27,9 @@ from service.api import create_app
 from service.api.reload import reload_runtime
 from service.api.state import ServiceState
 from service.config import ServerSettings, Settings
+from service.runtime import Runtime
+from service.workbench.lint import RuleSetRefused
+from service.workbench.lock import write_lock
 from tests.api.conftest import ALTITUDE, ASSESS, FHIR_JSON, ROOT, TestClient
 from tests.api.test_serve import environment, free_port, wait_ready
 
@@ -38,10 +41,12 @@ def rules_copy(tmp_path: Path) -> Path:
 
 
 def bump_version(rules: Path, version: str) -> None:
+    """A reviewed change: a new version, recorded in the lock (`oxyrule lint --update-lock`)."""
     path = rules / "ruleset.yaml"
     text = path.read_text()
     current = next(line for line in text.splitlines() if line.startswith("version:"))
     path.write_text(text.replace(current, f"version: {version}", 1))
+    write_lock(rules, Runtime.load(Settings(rules_dir=rules)).ruleset)
 
 
 def ruleset_of(result: dict[str, object]) -> str:
@@ -171,21 +176,12 @@ def test_sighup_reloads_a_running_server_and_refuses_a_broken_set(tmp_path: Path
             ok = httpx.post(f"{url}{ASSESS}", content=ALTITUDE.read_bytes(), headers=FHIR_JSON)
             assert ok.status_code == 200
             broken.write_text(original)
+            broken.unlink()  # a set that loads but that lint refuses: a rule file gone
+            process.send_signal(signal.SIGHUP)
+            wait_for_line(log, "its file is gone")
+            assert httpx.get(f"{url}/readyz").json()["ruleset"] == identity
+            broken.write_text(original)
             bump_version(rules, "9.9.10-hup")
-            subprocess.run(
-                [
-                    sys.executable,
-                    "-m",
-                    "service.cli",
-                    "lint",
-                    "--rules",
-                    str(rules),
-                    "--update-lock",
-                ],
-                cwd=ROOT,
-                capture_output=True,
-                check=False,
-            )
             process.send_signal(signal.SIGHUP)
             wait_for_line(log, '"rule set reloaded"')
             assert httpx.get(f"{url}/readyz").json()["ruleset"] == "oxyrule-default|9.9.10-hup"
@@ -206,3 +202,62 @@ def wait_for_line(log: Path, words: str, seconds: float = 20) -> None:
             return
         time.sleep(0.05)
     raise AssertionError(f"no {words!r} in the log:\n{log.read_text()[-2000:]}")
+
+
+def deleted_rule(rules: Path) -> None:
+    sorted((rules / "mechanism").glob("*.yaml"))[0].unlink()
+
+
+def all_rules_deleted(rules: Path) -> None:
+    for path in rules.rglob("*.yaml"):
+        if path.name != "ruleset.yaml":
+            path.unlink()
+
+
+def edited_without_review(rules: Path) -> None:
+    path = sorted((rules / "mechanism").glob("*.yaml"))[0]
+    path.write_text(path.read_text().replace("title:", "title: (edited)", 1))
+
+
+@pytest.mark.parametrize(
+    ("damage", "named"),
+    [
+        (deleted_rule, "its file is gone"),
+        (all_rules_deleted, "its file is gone"),
+        (edited_without_review, "content changed but version is still"),
+        (lambda r: (r / "ruleset.lock").unlink(), "no lock file"),
+    ],
+    ids=["one-rule-file-deleted", "every-rule-file-deleted", "edited-not-reviewed", "no-lock"],
+)
+def test_a_rule_set_that_lint_rejects_is_refused_at_start_and_at_reload(
+    tmp_path: Path,
+    logged: Callable[[], str],
+    damage: Callable[[Path], object],
+    named: str,
+) -> None:
+    # Each of these loaded and served before: with every rule file gone the service answered
+    # every mechanism not-assessable, GuidanceResponse success, under the old identity.
+    rules = rules_copy(tmp_path)
+    app = create_app(Settings(rules_dir=rules), ServerSettings())
+    with TestClient(app) as client:
+        ready = client.get("/readyz").json()
+        damage(rules)
+        assert reload(app) is False
+        assert client.get("/readyz").json() == ready  # identity and content hash unchanged
+        assert assess(client).status_code == 200
+    (refusal,) = error_lines(logged())
+    assert "fails `oxyrule lint`" in str(refusal["problem"]) and named in str(refusal["problem"])
+    with pytest.raises(RuleSetRefused, match=named):
+        create_app(Settings(rules_dir=rules), ServerSettings())
+
+
+def test_readyz_names_the_content_hash_of_what_was_loaded(tmp_path: Path) -> None:
+    rules = rules_copy(tmp_path)
+    app = create_app(Settings(rules_dir=rules), ServerSettings())
+    with TestClient(app) as client:
+        before = client.get("/readyz").json()
+        assert before["ruleset_hash"] == app.state.service.runtime.ruleset.content_hash
+        bump_version(rules, "9.9.11-hash")
+        assert reload(app) is True
+        after = client.get("/readyz").json()
+    assert len(after["ruleset_hash"]) == 64 and after["ruleset_hash"] != before["ruleset_hash"]

@@ -7,6 +7,7 @@ exits with status 0 (not killed by the signal).
 
 from __future__ import annotations
 
+import http.client
 import json
 import signal
 import subprocess
@@ -70,6 +71,14 @@ def test_sigterm_drains_readiness_first_finishes_requests_then_exits_0(tmp_path:
             process.send_signal(signal.SIGTERM)
             time.sleep(0.1)
             assert readyz(port) == 503  # not ready, yet still answering
+            # A keep-alive client is told to go elsewhere: without Connection: close its next
+            # request on this connection would be reset when the server stops (3 resets).
+            connection = http.client.HTTPConnection("127.0.0.1", port, timeout=5)
+            connection.request("GET", "/healthz")
+            probe = connection.getresponse()
+            probe.read()
+            connection.close()
+            assert (probe.status, probe.getheader("connection")) == (200, "close")
             upload.join(30)
             status = process.wait(30)
         finally:

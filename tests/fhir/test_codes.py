@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import pytest
 
+from service.fhir import codes as fhir_codes
 from service.fhir.extract import read_bundle
 from service.intake.model import QUANTITY_UNITS, Fio2Source, Quantity, Specimen
 from service.physiology.units import Dimension
@@ -237,3 +238,22 @@ def test_a_dlco_lower_limit_is_read_from_its_reference_range() -> None:
     )
     found = {m.quantity: m.value for m in read_bundle(bundle(percent)).measurements}
     assert found == {Q.DLCO_PERCENT_PREDICTED: 0.45, Q.DLCO_PERCENT_LOWER_LIMIT: 0.72}
+
+
+def test_the_resource_types_named_in_messages_are_exactly_fhir_r4b_s() -> None:
+    # Outside reference: the resource classes of fhir.resources (R4B, 4.3.0). A message names
+    # a resource type only when it is in this list; anything else sent is not repeated.
+    import importlib
+    import inspect
+    import pkgutil
+
+    import fhir.resources.R4B as r4b
+    from fhir.resources.R4B.resource import Resource
+
+    found = set()
+    for module_info in pkgutil.iter_modules(r4b.__path__):
+        module = importlib.import_module(f"fhir.resources.R4B.{module_info.name}")
+        for item in vars(module).values():
+            if inspect.isclass(item) and issubclass(item, Resource):
+                found.add(item.get_resource_type())
+    assert found - {"Resource", "DomainResource"} == fhir_codes.RESOURCE_TYPES

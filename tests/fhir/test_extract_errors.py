@@ -172,20 +172,31 @@ def test_unspecified_blood_specimen_reference_is_checked() -> None:
 @pytest.mark.parametrize(
     ("data", "expression"),
     [
-        ({"resourceType": "Bundle", "entry": {}}, "Bundle.entry"),
-        ({"resourceType": "Bundle", "entry": [[]]}, "Bundle.entry[0]"),
-        ({"resourceType": "Bundle", "entry": [{"fullUrl": "x"}]}, "Bundle.entry[0].resource"),
-        ({"resourceType": "Bundle", "entry": [{"resource": []}]}, "Bundle.entry[0].resource"),
+        ({"resourceType": "Bundle", "type": "collection", "entry": {}}, "Bundle.entry"),
+        ({"resourceType": "Bundle", "type": "collection", "entry": [[]]}, "Bundle.entry[0]"),
         (
-            {"resourceType": "Bundle", "entry": [{"resource": {}}]},
+            {"resourceType": "Bundle", "type": "collection", "entry": [{"fullUrl": "x"}]},
+            "Bundle.entry[0].resource",
+        ),
+        (
+            {"resourceType": "Bundle", "type": "collection", "entry": [{"resource": []}]},
+            "Bundle.entry[0].resource",
+        ),
+        (
+            {"resourceType": "Bundle", "type": "collection", "entry": [{"resource": {}}]},
             "Bundle.entry[0].resource.resourceType",
         ),
         (
-            {"resourceType": "Bundle", "entry": [{"fullUrl": 3, "resource": patient()}]},
+            {
+                "resourceType": "Bundle",
+                "type": "collection",
+                "entry": [{"fullUrl": 3, "resource": patient()}],
+            },
             "Bundle.entry[0].fullUrl",
         ),
         ({"resourceType": "Bundle", "type": "bogus"}, "Bundle.type"),
         ({"resourceType": "Bundle", "type": 1}, "Bundle.type"),
+        ({"resourceType": "Bundle", "entry": []}, "Bundle.type"),  # 1..1: never guessed
     ],
 )
 def test_malformed_bundle_element_is_a_located_error(data: Json, expression: str) -> None:

@@ -85,3 +85,9 @@ def gas(*extra: str, pao2: str = "62", paco2: str = "65") -> str:
 def fixture(name: str) -> str:
     """A v2 fixture's text (stored with LF line ends for reading; the parser takes both)."""
     return (FIXTURES / name).read_text(encoding="utf-8")
+
+
+def nte_padding(size: int) -> str:
+    """An NTE segment of about ``size`` characters of invented comment text (FT), to make a
+    message large without touching what the service reads."""
+    return "NTE|1||" + ("invented comment text " * (size // 22 + 1))[:size]

@@ -101,3 +101,33 @@ def test_mllp_subcommand_listens_and_answers() -> None:
         _, err = server.communicate(timeout=30)
     assert b"MLLP listening" in err
     assert b"DEMO-0001" not in err  # no patient identifier in the log
+    # The same JSON lines as `oxyrule serve` (it logged plain text before).
+    lines = [json.loads(line) for line in err.decode().splitlines() if line.strip()]
+    assert lines and all({"time", "level", "logger", "message"} <= set(line) for line in lines)
+
+
+def test_mllp_subcommand_refuses_more_peers_than_the_descriptor_limit_holds() -> None:
+    def low_limit() -> None:
+        import resource
+
+        resource.setrlimit(resource.RLIMIT_NOFILE, (200, 200))
+
+    done = subprocess.run(
+        [
+            sys.executable,
+            "-m",
+            "service.cli",
+            "mllp",
+            "--port",
+            str(_free_port()),
+            "--max-connections",
+            "500",
+        ],
+        capture_output=True,
+        text=True,
+        timeout=60,
+        check=False,
+        preexec_fn=low_limit,
+    )
+    assert done.returncode == 1
+    assert "--max-connections" in done.stderr and "ulimit -n" in done.stderr

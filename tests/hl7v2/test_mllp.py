@@ -13,7 +13,7 @@ from typing import Any
 
 import hl7  # type: ignore[import-untyped]
 
-from service.hl7v2.mllp import frame, start_mllp
+from service.hl7v2.mllp import MllpHooks, MllpLimits, frame, start_mllp
 from service.runtime import Runtime
 
 from .builders import fixture, message, msh, obr, obx
@@ -28,11 +28,10 @@ def good(control: str) -> bytes:
 
 @asynccontextmanager
 async def listener(
-    runtime: Runtime, *, max_frame_bytes: int = 1024 * 1024, idle_timeout_s: float = 10.0
+    runtime: Runtime, *, hooks: MllpHooks | None = None, **limits: Any
 ) -> AsyncIterator[int]:
-    server = await start_mllp(
-        runtime, "127.0.0.1", 0, max_frame_bytes=max_frame_bytes, idle_timeout_s=idle_timeout_s
-    )
+    chosen = MllpLimits(**({"idle_timeout_s": 10.0} | limits))
+    server = await start_mllp(runtime, "127.0.0.1", 0, limits=chosen, hooks=hooks)
     try:
         yield server.sockets[0].getsockname()[1]
     finally:

@@ -74,7 +74,7 @@ def test_normalise_fio2_rejects_values_outside_ten_to_hundred_percent(
 
 
 def test_normalise_fio2_rejects_a_unit_that_is_not_a_fraction() -> None:
-    with pytest.raises(UnitError, match="'L/min'"):
+    with pytest.raises(UnitError, match="'L/min'"):  # a code of the service's own table
         u.normalise_fio2(2.0, "L/min")
 
 

@@ -4,10 +4,10 @@ from __future__ import annotations
 
 from typing import Any
 
-import orjson
 from fastapi import APIRouter, Request, Response
 
-from service.api.body import Line, ndjson_lines, read_bounded
+from service.api.answers import answer_bundle
+from service.api.body import Line, Pace, bounded_body, ndjson_lines
 from service.api.deps import (
     FORMAT_DOC,
     UNITS_DOC,
@@ -16,14 +16,14 @@ from service.api.deps import (
     record_of,
     service_of,
 )
-from service.api.errors import ApiError, outcome
+from service.api.errors import FHIR_JSON, ApiError, outcome
 from service.api.media import BodyKind, answer_type, body_kind
 from service.api.middleware import ASSESS_PATH
 from service.api.ndjson import NdjsonAnswer
+from service.api.sending import PacedResponse
 from service.api.state import RequestRecord, ServiceState
-from service.api.tally import Tally, tally
+from service.api.tally import Tally
 from service.assess.presentation import PressureUnit
-from service.fhir.outcome import BundleError, NotABundleError
 
 router = APIRouter(tags=["assessment"])
 
@@ -106,25 +106,26 @@ async def assess_hypoxaemia(request: Request) -> Response:
     )
     if kind is BodyKind.NDJSON:
         return await _ndjson(request, service, record, units, media_type)
-    raw = await read_bounded(request, service.server.max_body_bytes, service.server.body_timeout_s)
-    record.bytes_in = len(raw)
-    try:
-        data = orjson.loads(raw)
-    except orjson.JSONDecodeError as exc:
-        service.metrics.rejection("structure")
-        raise ApiError.issue(
-            400, "structure", f"the body is not JSON ({exc.msg})", "Bundle"
-        ) from exc
-    try:
-        result = service.runtime.assess_bundle(data, pressure_unit=units)
-    except BundleError as exc:
-        status = 400 if isinstance(exc, NotABundleError) else 422
-        service.metrics.rejection(exc.problems[0].code)
-        raise ApiError(status, exc.operation_outcome()) from exc
-    summary = tally(result)
-    record.pattern = summary.pattern
-    _count(service, summary)
-    return Response(orjson.dumps(result), media_type=media_type, headers=NO_STORE)
+    server = service.server
+    runtime = service.runtime  # one rule set for the whole request
+    async with bounded_body(
+        request, server.max_body_bytes, server.body_timeout_s, service.budget
+    ) as raw:
+        record.bytes_in = len(raw)
+        answered = await service.work.run_heavy(
+            len(raw), answer_bundle, runtime, raw, units, service.read_limits
+        )
+    record.pattern = answered.tally.pattern
+    _count(service, answered.tally)
+    ok = answered.status == 200
+    return PacedResponse(
+        answered.body,
+        answered.status,
+        media_type=media_type if ok else FHIR_JSON,
+        headers=NO_STORE if ok else None,
+        record=record,
+        timeout_s=server.body_timeout_s,
+    )
 
 
 async def _ndjson(
@@ -134,8 +135,9 @@ async def _ndjson(
     units: PressureUnit | None,
     media_type: str,
 ) -> Response:
-    limit = service.server.max_body_bytes
-    lines = ndjson_lines(request.stream(), limit, service.server.body_timeout_s)
+    server = service.server
+    pace = Pace(server.body_timeout_s, server.body_min_bytes_per_s)
+    lines = ndjson_lines(request.stream(), server.max_body_bytes, pace)
     first: Line | None = await anext(lines, None)
     if first is None:
         raise ApiError(400, outcome("required", "the NDJSON body has no lines", "Bundle"))
@@ -150,11 +152,11 @@ async def _ndjson(
     return NdjsonAnswer(
         first,
         lines,
-        runtime=service.runtime,
+        service=service,
+        record=record,
+        pace=pace,
         unit=units,
         media_type=media_type,
-        limit=limit,
-        correlation_id=record.correlation_id,
         on_line=on_line,
         headers=NO_STORE,
     )

@@ -18,7 +18,7 @@ from typing import Any
 import orjson
 from fastapi import APIRouter, Request, Response
 
-from service.api.body import read_bounded
+from service.api.body import bounded_body
 from service.api.deps import record_of, service_of
 from service.api.errors import ApiError
 from service.api.logs import REQUEST_LOGGER
@@ -46,12 +46,14 @@ async def _json(request: Request, service: ServiceState) -> Any:
             415, "not-supported", "send the body as application/json", "http.Content-Type"
         )
     server = service.server
-    raw = await read_bounded(request, server.max_body_bytes, server.body_timeout_s, "$")
-    record_of(request).bytes_in = len(raw)
-    try:
-        return orjson.loads(raw)
-    except orjson.JSONDecodeError as exc:
-        raise CdsError.one(400, "structure", f"the body is not JSON ({exc.msg})", "$") from exc
+    async with bounded_body(
+        request, server.max_body_bytes, server.body_timeout_s, service.budget, "$"
+    ) as raw:
+        record_of(request).bytes_in = len(raw)
+        try:
+            return orjson.loads(raw)
+        except orjson.JSONDecodeError as exc:
+            raise CdsError.one(400, "structure", f"the body is not JSON ({exc.msg})", "$") from exc
 
 
 @router.get(CDS_PATH)

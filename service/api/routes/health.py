@@ -21,16 +21,23 @@ async def healthz() -> dict[str, str]:
 
 @router.get("/readyz", responses={503: {"description": "Shutting down (OperationOutcome)"}})
 async def readyz(service: ServiceDep) -> Response:
-    """Readiness: the rule set is loaded and the process is not shutting down."""
+    """Readiness: a rule set that passed every lint check is loaded (its identity and content
+    hash are given) and the process is not shutting down."""
     if service.draining:
-        body = outcome("transient", "shutting down", severity="error")
+        body = outcome("transient", "shutting down", "http.request", severity="error")
         return outcome_response(503, body)
     ruleset = service.runtime.ruleset
-    body = {"status": "ready", "ruleset": f"{ruleset.id}|{ruleset.version}"}
+    body = {
+        "status": "ready",
+        "ruleset": f"{ruleset.id}|{ruleset.version}",
+        "ruleset_hash": ruleset.content_hash,  # what was loaded, byte for byte
+    }
     return Response(orjson.dumps(body), media_type="application/json")
 
 
 @router.get("/metrics", response_class=Response)
 async def metrics(service: ServiceDep) -> Response:
-    """Prometheus text: requests by route and status, latency, verdicts and findings (counts)."""
+    """Prometheus text: requests by route and status, latency, verdicts and findings, HL7 v2
+    messages by transport and MSA-1, MLLP connections, bytes buffered (counts only)."""
+    service.metrics.buffered_bytes.set(service.budget.used, (("budget", "http"),))
     return Response(service.metrics.render(), media_type=PROMETHEUS_TEXT)

@@ -5,10 +5,12 @@ from __future__ import annotations
 
 from fastapi import APIRouter, Request, Response
 
-from service.api.body import read_bounded
+from service.api.answers import answer_v2
+from service.api.body import bounded_body
 from service.api.deps import caller_of, pressure_unit, record_of, service_of
 from service.api.errors import ApiError, outcome
-from service.hl7v2.handle import Reply, handle_v2
+from service.api.sending import PacedResponse
+from service.hl7v2.handle import Reply
 
 router = APIRouter(tags=["hl7v2"])
 
@@ -59,11 +61,23 @@ async def assess_v2(request: Request) -> Response:
     caller_of(request)
     base = _media_type(request.headers.get("content-type"))
     units = pressure_unit(request.query_params.get("units"))
-    raw = await read_bounded(request, service.server.max_body_bytes, service.server.body_timeout_s)
-    record.bytes_in = len(raw)
-    text = raw.decode("utf-8", errors="replace")
-    answer = handle_v2(text, service.runtime, reply=_reply(request), pressure_unit=units)
+    server, reply = service.server, _reply(request)
+    async with bounded_body(
+        request, server.max_body_bytes, server.body_timeout_s, service.budget
+    ) as raw:
+        record.bytes_in = len(raw)
+        answer = await service.work.run_heavy(
+            len(raw), answer_v2, service.runtime, raw, reply, units, service.v2_limits
+        )
+    service.metrics.v2_message("http", answer.ack_code)
     media_type = answer.media_type
     if media_type.startswith("application/hl7-v2"):
         media_type = f"{base}; charset=utf-8"
-    return Response(answer.body, status_code=answer.status, media_type=media_type, headers=NO_STORE)
+    return PacedResponse(
+        answer.body,
+        answer.status,
+        media_type=media_type,
+        headers=NO_STORE,
+        record=record,
+        timeout_s=server.body_timeout_s,
+    )
