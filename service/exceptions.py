@@ -11,13 +11,15 @@ column); ``tests/test_exceptions.py`` checks the drawing against the classes::
     ├── UnitError (ValueError)                service.exceptions
     ├── LocatedError                          service.fhir.outcome
     │   ├── BundleError                       service.fhir.outcome
-    │   │   └── NotABundleError               service.fhir.outcome
+    │   │   ├── NotABundleError               service.fhir.outcome
+    │   │   └── TooLargeError                 service.fhir.outcome
     │   ├── ConceptMapError                   service.fhir.outcome
     │   └── InvalidResourceError              service.fhir.models
     ├── SiteFileError                         service.site
     ├── CdsError                              service.cds.errors
     ├── CdsConfigError (ValueError)           service.cds.errors
     ├── BulkLimitError                        service.bulk.settings
+    ├── RuleSetRefused                        service.workbench.lint
     └── V2MessageError                        service.hl7v2.errors
         ├── MessageRejected                   service.hl7v2.errors
         └── MessageInError                    service.hl7v2.errors

@@ -128,7 +128,9 @@ def test_a_reload_switches_every_worker_at_once_and_sigterm_drains_them_without_
     assert process.returncode == 0
     before = [s for s in seen if s.started < signalled]
     assert [s for s in before if s.version is None] == []  # no reset, no error, no 503
-    old, new = "oxyrule-default|1.2.0", "oxyrule-default|9.9.12-workers"
+    from service.runtime import Runtime
+
+    old, new = Runtime.load().ruleset.identity, "oxyrule-default|9.9.12-workers"
     assert {s.version for s in before} == {old, new}
     switched = min(s.ended for s in before if s.version == new)
     # Never mixed: once one answer came from the new set, no request begun after it was
