@@ -16,8 +16,10 @@ from service.engine import (
     Severity,
 )
 from service.intake.model import Patient, Source
+from service.physiology.oxygenation_trend import OxygenationTrend
 
 from .derive import GasFacts
+from .titration import Titration
 
 CAUTION = (
     "Decision support for qualified clinicians, not a diagnosis. The result depends on the "
@@ -87,3 +89,7 @@ class Assessment:
     uncertain_inputs: tuple[str, ...] = ()
     """Inputs known only as a range and assessed at its ends, in words (empty: none)."""
     gas_exchange: GasExchangeStatus = GasExchangeStatus.UNKNOWN
+    titration: Titration | None = None
+    """The oxygen titration around the index gas, fitted (None: no points on two FiO2s)."""
+    trend: OxygenationTrend | None = None
+    """The course over three or more arterial gases (None with fewer)."""
