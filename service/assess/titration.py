@@ -134,6 +134,7 @@ FITTED_FACTS: tuple[FactSpec, ...] = (
             "whose FiO2 was measured or set, not estimated", _COUNT),
     _fitted("titration_fio2_span", _Qk, "1", "Highest minus lowest FiO2 of those points",
             (0.0, 1.0), 2),
+    _fitted("titration_fio2_highest", _Qk, "1", "Highest FiO2 of those points", (0.0, 1.0), 2),
     _fitted("titration_model", _Ck, None, "The model reported: shunt-and-vq (both fitted) or "
             "effective-shunt (one parameter: the points could not separate them)",
             allowed=MODELS),
@@ -347,20 +348,26 @@ def _dyshaemoglobin(by_quantity: ByQuantity, rules: TitrationRules) -> str | Non
     return None
 
 
-def _point(candidate: _Candidate) -> TitrationPoint:
+def _point(candidate: _Candidate) -> TitrationPoint | str:
+    """The candidate as a point, or why it cannot be one (a value outside what the model
+    takes). A gas's PaCO2 or pH outside it is left aside, the PaO2 kept."""
     m, inspired = candidate.measurement, candidate.inspired
     assert inspired is not None and m.time is not None and isinstance(m.value, float)
-    if m.quantity is _Q.SPO2:
-        return TitrationPoint(m.time, inspired, spo2=m.value, reference=m.source.reference)
+    try:
+        if m.quantity is _Q.SPO2:
+            return TitrationPoint(m.time, inspired, spo2=m.value, reference=m.source.reference)
+        bare = TitrationPoint(m.time, inspired, pao2_mmhg=m.value, reference=m.source.reference)
+    except ValueError as error:  # ImpossibleValueError among them
+        return f"outside what the model takes ({error})"
     paired = candidate.paired
-    return TitrationPoint(
-        m.time,
-        inspired,
-        pao2_mmhg=m.value,
-        paco2_mmhg=_number(paired.get(_Q.ARTERIAL_PCO2)),
-        ph=_number(paired.get(_Q.ARTERIAL_PH)),
-        reference=m.source.reference,
-    )
+    try:
+        return replace(
+            bare,
+            paco2_mmhg=_number(paired.get(_Q.ARTERIAL_PCO2)),
+            ph=_number(paired.get(_Q.ARTERIAL_PH)),
+        )
+    except ValueError:
+        return bare
 
 
 def _dropped(candidate: _Candidate, reason: str) -> LeftOut:
@@ -511,6 +518,7 @@ def _target_facts(prefix: str, target: Fio2ForTarget) -> dict[str, FactValue]:
 def _facts(
     response: OxygenResponse,
     prediction: OxygenPrediction | None,
+    highest: float,
     levels: int,
     known_levels: int,
     shunt: Bounds | None,
@@ -524,6 +532,7 @@ def _facts(
         "titration_fio2_levels": float(levels),
         "titration_fio2_known_levels": float(known_levels),
         "titration_fio2_span": response.fio2_span,
+        "titration_fio2_highest": highest,
         "titration_refused": response.two_parameter is None,
     }
     if response.refusal_reason is not None:
@@ -609,10 +618,12 @@ def assess_titration(
         reason = candidate.reason
         if reason is None and unusable_spo2 and candidate.measurement.quantity is _Q.SPO2:
             reason = unusable_spo2
-        if reason is None:
-            kept.append(_point(candidate))
+        point = _point(candidate) if reason is None else reason
+        if isinstance(point, TitrationPoint):
+            kept.append(point)
             kept_candidates.append(candidate)
         else:
+            reason = point
             left_out.append(_dropped(candidate, reason))
     if _levels(kept) < 2:
         return None
@@ -625,7 +636,12 @@ def assess_titration(
     levels = _levels(informative)
     if _levels(list(series.points)) < 2:
         return None
-    conditions = _conditions(index, settings)
+    try:
+        conditions = _conditions(index, settings)
+    except PhysiologyError:
+        # A pressure or Hb the model does not take: no fit (the gas's own derived values
+        # report the value as a problem).
+        return None
     response = fit_oxygen_response(points=series.points, conditions=conditions)
     bands = dict(rules.bands)
     prediction = (
@@ -656,7 +672,17 @@ def assess_titration(
         fio2_levels=levels,
         fio2_known_levels=known,
         sources=tuple(dict.fromkeys(sources)),
-        facts=_facts(response, prediction, levels, known, shunt, drop, effective, limit),
+        facts=_facts(
+            response,
+            prediction,
+            max((p.inspired.fio2 for p in informative), default=0.0),
+            levels,
+            known,
+            shunt,
+            drop,
+            effective,
+            limit,
+        ),
     )
 
 
