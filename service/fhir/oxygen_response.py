@@ -20,15 +20,13 @@ from typing import Any
 from service.assess.presentation import PressureUnit, quantity
 from service.assess.response_view import (
     CAUTION,
-    FIO2_SOURCE_WORDS,
-    KIND_WORDS,
     MODEL_WORDS,
     applicable_band,
     band_words,
     right_shift_mmhg,
 )
 from service.assess.result import Assessment
-from service.assess.titration import Bounds, LeftOut, Titration
+from service.assess.titration import Bounds, LeftOut
 from service.physiology.oxygen_prediction import Fio2ForTarget, TargetBand
 from service.physiology.oxygen_response import ModelFit, PointFit
 from service.physiology.oxygenation_trend import OxygenationTrend
