@@ -158,13 +158,8 @@ def _fit_quality(fit: ModelFit) -> list[Json]:
     return parts
 
 
-def oxygen_response_parameter(a: Assessment, unit: PressureUnit) -> Json | None:
-    """The ``oxygen-response`` parameter, or None without a titration."""
-    t = a.titration
-    if t is None:
-        return None
-    response = t.response
-    fit = t.fit
+def _model_parts(t: Titration) -> list[Json]:
+    response, fit = t.response, t.fit
     parts: list[Json] = []
     if fit is not None:
         parts += [
@@ -175,18 +170,20 @@ def oxygen_response_parameter(a: Assessment, unit: PressureUnit) -> Json | None:
         parts.append(_part("refusal", valueString=response.refusal))
         if response.refusal_reason is not None:
             parts.append(_part("refusal-code", valueCode=response.refusal_reason.value))
-    parts += [
+    return parts + [
         _part("points-used", valueInteger=response.points_used),
         _part("fio2-levels", valueInteger=t.fio2_levels),
         _part("fio2-span", valueDecimal=_decimal(response.fio2_span)),
     ]
-    two = response.two_parameter
+
+
+def _fitted_parts(t: Titration, unit: PressureUnit) -> list[Json]:
+    response = t.response
+    two, one = response.two_parameter, response.effective_shunt
+    parts: list[Json] = []
     if two is not None and t.shunt is not None and t.vq_drop is not None:
         parts += _bounds_parts(
-            "shunt",
-            t.shunt,
-            (two.shunt.low, two.shunt.high),
-            lambda n, v: _percent(n, v, unit),
+            "shunt", t.shunt, (two.shunt.low, two.shunt.high), lambda n, v: _percent(n, v, unit)
         )
         parts += _bounds_parts(
             "vq-term",
@@ -197,19 +194,14 @@ def oxygen_response_parameter(a: Assessment, unit: PressureUnit) -> Json | None:
         low, high = t.vq_drop_limit_mmhg
         parts.append(_part("vq-term-healthy-limit", valueQuantity=_pressure("limit", high, unit)))
         if low != high:
-            parts.append(
-                _part(
-                    "vq-term-healthy-limit-narrowest", valueQuantity=_pressure("limit", low, unit)
-                )
-            )
+            narrowest = _pressure("limit", low, unit)
+            parts.append(_part("vq-term-healthy-limit-narrowest", valueQuantity=narrowest))
         shift = right_shift_mmhg(t)
         if shift is not None:
             parts.append(_part("right-shift-on-air", valueQuantity=_pressure("shift", shift, unit)))
         if response.vq_term_p_value is not None:
-            parts.append(
-                _part("vq-term-p-value", valueDecimal=_decimal(response.vq_term_p_value, 4))
-            )
-    one = response.effective_shunt
+            p_value = _decimal(response.vq_term_p_value, 4)
+            parts.append(_part("vq-term-p-value", valueDecimal=p_value))
     if one is not None and t.effective_shunt is not None:
         parts += _bounds_parts(
             "effective-shunt",
@@ -217,49 +209,66 @@ def oxygen_response_parameter(a: Assessment, unit: PressureUnit) -> Json | None:
             (one.shunt.low, one.shunt.high),
             lambda n, v: _percent(n, v, unit),
         )
-    if fit is not None:
-        parts += _fit_quality(fit)
+    if t.fit is not None:
+        parts += _fit_quality(t.fit)
+    return parts
+
+
+def _condition_parts(t: Titration, unit: PressureUnit) -> list[Json]:
+    response = t.response
     c = response.conditions
-    parts += [
+
+    def basis(measured: bool) -> str:
+        return "measured" if measured else "assumed"
+
+    return [
         _part("haemoglobin", valueQuantity=quantity("hb", c.haemoglobin_g_dl, "g/dL", unit)),
-        _part("haemoglobin-basis", valueCode="measured" if c.haemoglobin_measured else "assumed"),
+        _part("haemoglobin-basis", valueCode=basis(c.haemoglobin_measured)),
         _part("av-difference", valueQuantity=quantity("avd", c.av_difference_ml_dl, "mL/dL", unit)),
-        _part(
-            "av-difference-basis", valueCode="measured" if c.av_difference_measured else "assumed"
-        ),
+        _part("av-difference-basis", valueCode=basis(c.av_difference_measured)),
         _part("barometric-pressure", valueQuantity=_pressure("pb", c.barometric_mmhg, unit)),
         _part(
             "prediction-paco2",
             valueQuantity=_pressure("paco2", response.prediction_paco2_mmhg, unit),
         ),
-        _part(
-            "prediction-paco2-basis",
-            valueCode="assumed" if response.prediction_paco2_assumed else "measured",
-        ),
+        _part("prediction-paco2-basis", valueCode=basis(not response.prediction_paco2_assumed)),
     ]
-    if fit is not None:
-        parts += [_point(p, unit) for p in fit.points]
-    parts += [_left_out(d, unit) for d in t.dropped]
+
+
+def _prediction_parts(a: Assessment, t: Titration, unit: PressureUnit) -> list[Json]:
     prediction = t.prediction
-    if prediction is not None:
-        for p in prediction.curve:
-            parts.append(
-                _part(
-                    "prediction",
-                    part=[
-                        _part("fio2", valueDecimal=_decimal(p.fio2)),
-                        _part("spo2", valueQuantity=_percent("spo2", p.saturation, unit)),
-                        _part("spo2-low", valueQuantity=_percent("spo2", p.saturation_low, unit)),
-                        _part("spo2-high", valueQuantity=_percent("spo2", p.saturation_high, unit)),
-                        _part("pao2", valueQuantity=_pressure("pao2", p.pao2_mmhg, unit)),
-                        _part("pao2-low", valueQuantity=_pressure("pao2", p.pao2_low_mmhg, unit)),
-                        _part("pao2-high", valueQuantity=_pressure("pao2", p.pao2_high_mmhg, unit)),
-                    ],
-                )
-            )
-        choice = applicable_band(a)
-        parts.append(_part("target-band-choice", valueString=choice.reason))
-        parts += [_target(target, choice.band) for target in prediction.targets]
+    if prediction is None:
+        return []
+    parts = [
+        _part(
+            "prediction",
+            part=[
+                _part("fio2", valueDecimal=_decimal(p.fio2)),
+                _part("spo2", valueQuantity=_percent("spo2", p.saturation, unit)),
+                _part("spo2-low", valueQuantity=_percent("spo2", p.saturation_low, unit)),
+                _part("spo2-high", valueQuantity=_percent("spo2", p.saturation_high, unit)),
+                _part("pao2", valueQuantity=_pressure("pao2", p.pao2_mmhg, unit)),
+                _part("pao2-low", valueQuantity=_pressure("pao2", p.pao2_low_mmhg, unit)),
+                _part("pao2-high", valueQuantity=_pressure("pao2", p.pao2_high_mmhg, unit)),
+            ],
+        )
+        for p in prediction.curve
+    ]
+    choice = applicable_band(a)
+    parts.append(_part("target-band-choice", valueString=choice.reason))
+    return parts + [_target(target, choice.band) for target in prediction.targets]
+
+
+def oxygen_response_parameter(a: Assessment, unit: PressureUnit) -> Json | None:
+    """The ``oxygen-response`` parameter, or None without a titration."""
+    t = a.titration
+    if t is None:
+        return None
+    parts = _model_parts(t) + _fitted_parts(t, unit) + _condition_parts(t, unit)
+    if t.fit is not None:
+        parts += [_point(p, unit) for p in t.fit.points]
+    parts += [_left_out(d, unit) for d in t.dropped]
+    parts += _prediction_parts(a, t, unit)
     parts.append(_part("caution", valueString=CAUTION))
     return {"name": "oxygen-response", "part": parts}
 
