@@ -26,7 +26,7 @@ from service.assess.response_view import (
     right_shift_mmhg,
 )
 from service.assess.result import Assessment
-from service.assess.titration import Bounds, LeftOut
+from service.assess.titration import Bounds, LeftOut, Titration
 from service.physiology.oxygen_prediction import Fio2ForTarget, TargetBand
 from service.physiology.oxygen_response import ModelFit, PointFit
 from service.physiology.oxygenation_trend import OxygenationTrend
@@ -170,7 +170,8 @@ def _model_parts(t: Titration) -> list[Json]:
         parts.append(_part("refusal", valueString=response.refusal))
         if response.refusal_reason is not None:
             parts.append(_part("refusal-code", valueCode=response.refusal_reason.value))
-    return parts + [
+    return [
+        *parts,
         _part("points-used", valueInteger=response.points_used),
         _part("fio2-levels", valueInteger=t.fio2_levels),
         _part("fio2-span", valueDecimal=_decimal(response.fio2_span)),
