@@ -97,10 +97,10 @@ def predict_oxygen_response(
     bands: Sequence[TargetBand] = (TargetBand.STANDARD, TargetBand.HYPERCAPNIC_RISK),
     band_limits: Mapping[TargetBand, tuple[float, float]] = TARGET_BAND_LIMITS,
 ) -> OxygenPrediction | None:
-    """Predicted saturation and PaO2 from FiO2 0.21 to 1.0 (every ``fio2_step``, both ends
-    included) for the preferred fit of ``response``, and the FiO2 for each target band.
-    None when nothing was fitted. ``band_limits`` (fractions) lets a rule set or a site set
-    the bands' edges (default: the BTS guideline's).
+    """Predicted saturation and PaO2 from FiO2 0.21 to 1.0 (room air, the multiples of
+    ``fio2_step`` between, and 1.0) for the preferred fit of ``response``, and the FiO2 for
+    each target band. None when nothing was fitted. ``band_limits`` (fractions) lets a rule
+    set or a site set the bands' edges (default: the BTS guideline's).
 
     Raises:
         ImpossibleValueError: ``fio2_step`` outside 0.001–0.79, or a band's edges outside
@@ -115,8 +115,11 @@ def predict_oxygen_response(
     if fit is None:
         return None
     model = _FittedCurve(fit, response)
-    count = math.ceil(round((FIO2_LIMITS[1] - ROOM_AIR_FIO2) / fio2_step, 9))
-    fio2s = [ROOM_AIR_FIO2 + i * fio2_step for i in range(count)] + [FIO2_LIMITS[1]]
+    # Room air, then the round multiples of the step above it (0.25, 0.30, ...), then 1.0.
+    first = math.floor(round(ROOM_AIR_FIO2 / fio2_step, 9)) + 1
+    last = math.ceil(round(FIO2_LIMITS[1] / fio2_step, 9))
+    steps = [round(k * fio2_step, 9) for k in range(first, last)]
+    fio2s = [ROOM_AIR_FIO2, *steps, FIO2_LIMITS[1]]
     grid: list[tuple[float, _Values]] = []
     for fio2 in fio2s:
         values = model.values(fio2, grid[-1][1][3] if grid else 0.0)
