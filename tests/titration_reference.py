@@ -177,8 +177,8 @@ def fio2_for_saturation(
 #
 # Each scenario is an invented patient whose readings come from the model above with chosen
 # parameters ("the truth"), rounded the way they are charted (SpO2 to whole percent, PaO2 to
-# whole mmHg). ``python -m tests.titration_reference fixtures/cases/titration`` writes the
-# Bundles and prints the numbers the expected-outcome files quote as [calc] values.
+# whole mmHg). ``python -m tests.titration_reference fixtures`` writes the Bundles and the
+# expected-outcome files, their numbers computed here and quoted as [calc] values.
 
 VENTURI = "venturi"  # FiO2 charted as a measured FiO2 (3150-0)
 VENTILATOR = "ventilator"  # FiO2 set on a ventilator (19994-3)
@@ -609,6 +609,29 @@ def index_gas(scenario: Scenario) -> tuple[float, float] | None:
     gases = [p for p in _points(scenario) if p[0] == "pao2"]
     return (gases[-1][1], gases[-1][2]) if gases else None
 
+# The demo's titration (``oxyrule demo``), written into fixtures/demo.
+DEMO_SCENARIOS: tuple[Scenario, ...] = (
+    Scenario(
+        "venturi-titration",
+        "1964-10-05",
+        "2026-04-14T09:00:00+00:00",
+        VENTURI,
+        shunt=0.12,
+        drop=45.0,
+        paco2=37.0,
+        ph=7.44,
+        hco3=24.5,
+        hb=13.4,
+        steps=(
+            Step(0, 0.21, (8,), 10),
+            Step(20, 0.24, (8,)),
+            Step(40, 0.28, (8,)),
+            Step(60, 0.35, (8,)),
+            Step(80, 0.40, (8,), 12),
+        ),
+    ),
+)
+
 
 @dataclass(frozen=True)
 class Expected:
@@ -638,6 +661,20 @@ def _grades(lio: str, hv: str, dl: str, vq: str, sh: str) -> dict[str, str]:
 
 
 EXPECTED: dict[str, Expected] = {
+    "venturi-titration": Expected(
+        "Invented (the demo's titration). A 61-year-old with pneumonia titrated on a Venturi "
+        "mask from air to FiO2 0.40, SpO2 at each step, gases on air and at the end. Truth: "
+        "shunt 12 %, V/Q term 45 mmHg. The fit puts the V/Q term above a healthy "
+        "61-year-old's over its whole range (V/Q mismatch likely); the shunt's range, widened "
+        "by the assumed a-v difference (3.5-7 mL/dL), reaches down across 8 %: possible. It "
+        "predicts SpO2 94 % at about FiO2 0.25.",
+        "single",
+        _grades("unlikely", "unlikely", "possible", "likely", "possible"),
+        ("fio2-for-target-predicted", "hypoxaemia-mild", "oxygen-masks-gas-exchange-defect"),
+        ("vq-mismatch-likely-fitted", "shunt-possible-fitted", "fio2-for-target-predicted"),
+        ("shunt-likely-fitted", "vq-mismatch-possible-fitted", "shunt-possible-fit-narrow"),
+        "shunt-and-vq",
+    ),
     "shunt-pneumonia-venturi": Expected(
         "Invented. A 73-year-old with lobar pneumonia, titrated on a Venturi mask from air to "
         "FiO2 0.60 (FiO2 charted at each step), SpO2 at each step and three gases. Truth: "
@@ -944,21 +981,23 @@ def expected_yaml(scenario: Scenario, expected: Expected) -> str:
     return "\n".join(lines) + "\n"
 
 
-def write_fixtures(directory: str) -> None:
-    """Write every scenario's Bundle and expected-outcome file into ``directory``."""
+def write_fixtures(root: str) -> None:
+    """Write every scenario's Bundle and expected-outcome file under the fixture root
+    ``root``: the titration cases into ``cases/titration``, the demo's into ``demo``."""
     import json
     from pathlib import Path
 
-    out = Path(directory)
-    out.mkdir(parents=True, exist_ok=True)
-    for scenario in SCENARIOS:
-        bundle = json.dumps(bundle_of(scenario), indent=1, ensure_ascii=False) + "\n"
-        (out / f"{scenario.name}.bundle.json").write_text(bundle, encoding="utf-8")
-        text = expected_yaml(scenario, EXPECTED[scenario.name])
-        (out / f"{scenario.name}.expected.yaml").write_text(text, encoding="utf-8")
+    for folder, scenarios in (("cases/titration", SCENARIOS), ("demo", DEMO_SCENARIOS)):
+        out = Path(root) / folder
+        out.mkdir(parents=True, exist_ok=True)
+        for scenario in scenarios:
+            bundle = json.dumps(bundle_of(scenario), indent=1, ensure_ascii=False) + "\n"
+            (out / f"{scenario.name}.bundle.json").write_text(bundle, encoding="utf-8")
+            text = expected_yaml(scenario, EXPECTED[scenario.name])
+            (out / f"{scenario.name}.expected.yaml").write_text(text, encoding="utf-8")
 
 
 if __name__ == "__main__":
     import sys
 
-    write_fixtures(sys.argv[1] if len(sys.argv) > 1 else "fixtures/cases/titration")
+    write_fixtures(sys.argv[1] if len(sys.argv) > 1 else "fixtures")
