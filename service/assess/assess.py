@@ -131,9 +131,22 @@ def windows(settings: Settings) -> Windows:
     )
 
 
+_TITRATION_RULES: dict[str, TitrationRules] = {}
+
+
 def titration_rules(ruleset: RuleSet) -> TitrationRules:
     """What the titration takes from the rule set's parameters (percentages there, fractions
-    here); the defaults where a rule set lacks one."""
+    here); the defaults where a rule set lacks one. Kept per rule-set content hash (which
+    covers its site overrides)."""
+    found = _TITRATION_RULES.get(ruleset.content_hash)
+    if found is None:
+        if len(_TITRATION_RULES) > 16:  # rule sets reloaded many times: start afresh
+            _TITRATION_RULES.clear()
+        found = _TITRATION_RULES[ruleset.content_hash] = _titration_rules(ruleset)
+    return found
+
+
+def _titration_rules(ruleset: RuleSet) -> TitrationRules:
     default = TitrationRules()
 
     def fraction(name: str, fallback: float) -> float:

@@ -9,6 +9,8 @@ not known and it matters, the assessment evaluates both (``service.assess.uncert
 
 from __future__ import annotations
 
+from functools import lru_cache
+
 from service.config import Settings
 from service.exceptions import PhysiologyError
 from service.physiology import constants as c
@@ -206,6 +208,55 @@ def room_air_alveolar_po2(
     return Computed(value, "alveolar gas equation on room air (FiO2 0.21), this PB and PaCO2")
 
 
+@lru_cache(maxsize=512)
+def _projections(
+    arterial_po2: float,
+    fio2: float,
+    arterial_pco2: float,
+    barometric_pressure: float,
+    water_vapour_pressure: float,
+    haemoglobin: float | None,
+    arterial_ph: float | None,
+    hufner_ml_per_g: float,
+    respiratory_quotient: float,
+    av_difference_ml_dl: float,
+) -> tuple[float, float, float] | None:
+    """(the projection at the measured or assumed Hb, the least and the most over an assumed
+    Hb's range), or None when the model has no answer (an alveolar PO2 at or below zero, no
+    steady state). The three facts share it (cached: each scenario of an assessment derives
+    them again). The assumed a-v difference does not move the projection (``project_gas``),
+    so it is not varied."""
+    if fio2 == c.ROOM_AIR_FIO2:
+        return arterial_po2, arterial_po2, arterial_po2  # on room air it is the gas itself
+    affinity = oxygen_affinity(ph=arterial_ph) if arterial_ph is not None else None
+    hbs = (haemoglobin,) if haemoglobin is not None else (None, *HAEMOGLOBIN_SENSITIVITY_G_DL)
+    values: list[float] = []
+    for hb in hbs:
+        conditions = exchange_conditions(
+            barometric_mmhg=barometric_pressure,
+            haemoglobin_g_dl=hb,
+            av_difference_ml_dl=av_difference_ml_dl,
+            hufner_ml_per_g=hufner_ml_per_g,
+            respiratory_quotient=respiratory_quotient,
+            water_vapour_mmhg=water_vapour_pressure,
+        )
+        try:
+            projected = project_gas(
+                arterial_po2_mmhg=arterial_po2,
+                fio2=fio2,
+                paco2_mmhg=arterial_pco2,
+                target_fio2=c.ROOM_AIR_FIO2,
+                conditions=conditions,
+                affinity=affinity,
+            )
+        except PhysiologyError:
+            if not values:
+                return None
+            continue
+        values.append(projected.arterial_po2_mmhg)
+    return values[0], min(values), max(values)
+
+
 def _room_air_projections(
     arterial_po2: float,
     fio2: float,
@@ -216,38 +267,22 @@ def _room_air_projections(
     haemoglobin: float | None,
     arterial_ph: float | None,
 ) -> tuple[float, list[float]] | None:
-    """(the projection at the measured or assumed Hb and the site's a-v difference, every
-    projection over the Hb range when Hb is assumed and the site's a-v difference range), or
-    None when the model has no answer (an alveolar PO2 at or below zero, no steady state)."""
-    affinity = oxygen_affinity(ph=arterial_ph) if arterial_ph is not None else None
-    hbs = (haemoglobin,) if haemoglobin is not None else (None, *HAEMOGLOBIN_SENSITIVITY_G_DL)
-    avds = (settings.assumed_av_difference_ml_dl, *settings.av_difference_range_ml_dl)
-    values: list[float] = []
-    for i, hb in enumerate(hbs):
-        for j, avd in enumerate(avds):
-            conditions = exchange_conditions(
-                barometric_mmhg=barometric_pressure,
-                haemoglobin_g_dl=hb,
-                av_difference_ml_dl=avd,
-                hufner_ml_per_g=settings.hufner_ml_per_g,
-                respiratory_quotient=settings.respiratory_quotient,
-                water_vapour_mmhg=water_vapour_pressure,
-            )
-            try:
-                projected = project_gas(
-                    arterial_po2_mmhg=arterial_po2,
-                    fio2=fio2,
-                    paco2_mmhg=arterial_pco2,
-                    target_fio2=c.ROOM_AIR_FIO2,
-                    conditions=conditions,
-                    affinity=affinity,
-                )
-            except PhysiologyError:
-                if i == 0 and j == 0:
-                    return None
-                continue
-            values.append(projected.arterial_po2_mmhg)
-    return values[0], values
+    found = _projections(
+        arterial_po2,
+        fio2,
+        arterial_pco2,
+        barometric_pressure,
+        water_vapour_pressure,
+        haemoglobin,
+        arterial_ph,
+        settings.hufner_ml_per_g,
+        settings.respiratory_quotient,
+        settings.assumed_av_difference_ml_dl,
+    )
+    if found is None:
+        return None
+    value, least, most = found
+    return value, [least, most]
 
 
 _ROOM_AIR_METHOD = (
@@ -299,7 +334,7 @@ def room_air_pao2(
     MMHG,
     _PRESSURE,
     1,
-    "The least room_air_pao2 over an assumed Hb (8-17 g/dL) and the a-v difference range",
+    "The least room_air_pao2 over an assumed Hb (8-17 g/dL)",
     result="room-air-pao2-least",
 )
 def room_air_pao2_least(
@@ -333,7 +368,7 @@ def room_air_pao2_least(
     MMHG,
     _PRESSURE,
     1,
-    "The most room_air_pao2 over an assumed Hb (8-17 g/dL) and the a-v difference range",
+    "The most room_air_pao2 over an assumed Hb (8-17 g/dL)",
     result="room-air-pao2-most",
 )
 def room_air_pao2_most(

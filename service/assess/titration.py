@@ -27,6 +27,7 @@ curve, as everywhere in the service.
 
 from __future__ import annotations
 
+import bisect
 import math
 from dataclasses import dataclass, replace
 from datetime import datetime, timedelta
@@ -83,7 +84,7 @@ __all__ = [
 
 _Q = Quantity
 _SETTINGS_QUANTITIES = frozenset({_Q.FIO2, _Q.OXYGEN_DEVICE, _Q.OXYGEN_FLOW})
-_GAS_QUANTITIES = _SETTINGS_QUANTITIES | {_Q.ARTERIAL_PCO2, _Q.ARTERIAL_PH}
+_BLOOD_QUANTITIES = frozenset({_Q.ARTERIAL_PCO2, _Q.ARTERIAL_PH})
 _FIO2_SOURCES = {
     IntakeFio2Source.MEASURED.value: Fio2Source.MEASURED,
     IntakeFio2Source.VENTILATOR_SETTING.value: Fio2Source.VENTILATOR_SETTING,
@@ -273,6 +274,47 @@ class _Candidate:
     reason: str | None
 
 
+class _Settings:
+    """The oxygen settings of the record (FiO2, device, flow), sorted once, and the one in
+    force at any moment by the rule of ``pairing``: the latest charted at or before it within
+    the setting window, else the nearest within the pairing window, else an untimed one. A
+    titration asks this twice per point; pairing each point like a gas would sort every
+    kind of value each time."""
+
+    def __init__(self, by_quantity: ByQuantity, windows: Windows) -> None:
+        self.windows = windows
+        self.timed: dict[Quantity, tuple[list[datetime], list[Measurement]]] = {}
+        self.untimed: dict[Quantity, Measurement] = {}
+        for quantity in _SETTINGS_QUANTITIES:
+            found = by_quantity.get(quantity, [])
+            timed = sorted(
+                ((m.time, m) for m in found if m.time is not None), key=lambda pair: pair[0]
+            )
+            self.timed[quantity] = ([t for t, _ in timed], [m for _, m in timed])
+            untimed = [m for m in found if m.time is None]
+            if untimed:
+                self.untimed[quantity] = untimed[-1]
+
+    def at(self, time: datetime) -> PairedGas:
+        gas = PairedGas(anchor=None)
+        for quantity, (times, found) in self.timed.items():
+            chosen: Measurement | None = None
+            i = bisect.bisect_right(times, time)
+            if i and time - times[i - 1] <= self.windows.setting:
+                chosen = found[i - 1]  # in force: the latest at or before the moment
+            else:
+                near = [j for j in (i - 1, i) if 0 <= j < len(found)]
+                if near:
+                    j = min(near, key=lambda k: abs(times[k] - time))
+                    if abs(times[j] - time) <= self.windows.context:
+                        chosen = found[j]
+            if chosen is None:
+                chosen = self.untimed.get(quantity)
+            if chosen is not None:
+                gas.values[quantity] = chosen
+        return gas
+
+
 def _number(m: Measurement | None) -> float | None:
     return m.value if m is not None and isinstance(m.value, float) else None
 
@@ -291,11 +333,7 @@ def _inspired(
 
 
 def _settled(
-    time: datetime,
-    inspired: InspiredOxygen,
-    by_quantity: ByQuantity,
-    windows: Windows,
-    settings: Settings,
+    time: datetime, inspired: InspiredOxygen, index: _Settings, settings: Settings
 ) -> str | None:
     """Why a point is not in steady state (its FiO2 was changed within the settling time),
     or None. The FiO2 in force that long before the point is compared with the point's own;
@@ -303,8 +341,7 @@ def _settled(
     settle = timedelta(minutes=settings.titration_settle_minutes)
     if settle <= timedelta(0):
         return None
-    earlier = pair_at(None, by_quantity, windows, only=_SETTINGS_QUANTITIES, at=time - settle)
-    before, _ = _inspired(earlier, settings)
+    before, _ = _inspired(index.at(time - settle), settings)
     if before is None or abs(before.fio2 - inspired.fio2) <= SAME_STEP_FIO2:
         return None
     return (
@@ -317,12 +354,16 @@ def _candidates(
     by_quantity: ByQuantity, windows: Windows, settings: Settings, rules: TitrationRules
 ) -> list[_Candidate]:
     found: list[_Candidate] = []
+    index = _Settings(by_quantity, windows)
     for quantity in (_Q.ARTERIAL_PO2, _Q.SPO2):
         for m in by_quantity.get(quantity, []):
             if m.time is None or not isinstance(m.value, float):
                 continue
-            only = _GAS_QUANTITIES if quantity is _Q.ARTERIAL_PO2 else _SETTINGS_QUANTITIES
-            paired = pair_at(m, by_quantity, windows, only=only)
+            paired = index.at(m.time)
+            paired.anchor = m
+            if quantity is _Q.ARTERIAL_PO2:
+                blood = pair_at(m, by_quantity, windows, only=_BLOOD_QUANTITIES)
+                paired.values.update(blood.values)
             inspired, inputs = _inspired(paired, settings)
             reason: str | None = None
             if inspired is None:
@@ -332,7 +373,7 @@ def _candidates(
                     f"SpO2 below {rules.oximeter_low:.0%}, where oximeter accuracy is not specified"
                 )
             else:
-                reason = _settled(m.time, inspired, by_quantity, windows, settings)
+                reason = _settled(m.time, inspired, index, settings)
             found.append(_Candidate(m, inspired, inputs, paired, reason))
     return found
 

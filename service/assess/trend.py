@@ -2,12 +2,17 @@
 
 Each gas gives its P/F, a/A and venous admixture (its own derived values) and, when the
 titration that ends at it identifies them, the fitted shunt and V/Q term
-(``titration.assess_titration`` with the window ending at that gas). The series and their
-directions are ``physiology.oxygenation_trend``'s, with its thresholds and sources. The trend
-informs; it does not enter the verdict.
+(``titration.assess_titration`` with the window ending at that gas). A fit assumes one shunt
+and one V/Q term for its whole window, so fitted values are taken only from windows that do
+not overlap: the index gas's titration, then, going back, each gas more than one titration
+window before the last one fitted (a course over several titrations, not the points of one
+read twice). The series and their directions are ``physiology.oxygenation_trend``'s, with
+its thresholds and sources. The trend informs; it does not enter the verdict.
 """
 
 from __future__ import annotations
+
+from datetime import datetime, timedelta
 
 from service.config import Settings
 from service.intake.model import Intake, Quantity
@@ -36,7 +41,7 @@ def _fitted(
 ) -> tuple[float | None, float | None]:
     """(shunt, ΔPO2) of the two-parameter fit of the titration ending at ``gas`` (None, None
     when there is none or it is refused)."""
-    if is_index and index is not None and index.series.window_end == gas.gas.time:
+    if is_index:  # the assessment's own titration, around the index gas
         titration: Titration | None = index
     else:
         titration = assess_titration(
@@ -77,11 +82,16 @@ def assessment_trend(
     if len(arterial) < MIN_POINTS:
         return None
     summaries = []
-    for i, g in enumerate(arterial):
+    window = timedelta(minutes=settings.titration_window_minutes)
+    last_fitted: datetime | None = None
+    for i, g in enumerate(arterial):  # latest first
         time, fio2 = g.gas.time, g.number("fio2")
         assert time is not None and fio2 is not None
         admixture = g.number("venous_admixture")
-        shunt, drop = _fitted(g, intake, windows, settings, rules, titration, i == 0)
+        shunt = drop = None
+        if last_fitted is None or last_fitted - time > window:
+            shunt, drop = _fitted(g, intake, windows, settings, rules, titration, i == 0)
+            last_fitted = time
         summaries.append(
             GasSummary(
                 time=time,
