@@ -609,6 +609,7 @@ def index_gas(scenario: Scenario) -> tuple[float, float] | None:
     gases = [p for p in _points(scenario) if p[0] == "pao2"]
     return (gases[-1][1], gases[-1][2]) if gases else None
 
+
 # The demo's titration (``oxyrule demo``), written into fixtures/demo.
 DEMO_SCENARIOS: tuple[Scenario, ...] = (
     Scenario(

@@ -8,9 +8,9 @@ Each chart draws, from FiO2 0.21 to 1.0:
 * the healthy curve — a dashed line: the healthy lung of the patient's age (the same model
   fitted to Cerveri 1995 on air and to healthy men on 100 % oxygen, ``physiology.reference``)
   breathing the same gas at PaCO2 40 mmHg;
-* iso-shunt references — thin dotted lines for 10, 20, 30 and 40 % shunt without a V/Q term at
-  the patient's Hb and PaCO2 (Benatar SR, Hewlett AM & Nunn JF, Br J Anaesth 1973;45:711),
-  each labelled in words at its end.
+* iso-shunt references — thin dotted lines for 10, 20, 30 and 40 % shunt without a V/Q term
+  at the patient's Hb, PaCO2 and blood curve (Benatar SR, Hewlett AM & Nunn JF, Br J Anaesth
+  1973;45:711), each labelled in words at its end.
 
 Readable without colour: every line differs in stroke (solid, dashed, dotted) and is named in
 words, points differ in shape, and a key under the chart says which is which. The numbers are
@@ -30,6 +30,7 @@ from html import escape
 from service.assess.titration import Titration
 from service.exceptions import PhysiologyError
 from service.physiology import constants as c
+from service.physiology.oxygen_affinity import OxygenAffinity
 from service.physiology.oxygen_exchange import (
     ExchangeConditions,
     exchange_conditions,
@@ -80,6 +81,7 @@ def _curve(
     paco2: float,
     conditions: ExchangeConditions,
     value: Callable[[float, float], float],
+    affinity: OxygenAffinity | None = None,
 ) -> tuple[tuple[float, float], ...]:
     """(FiO2, value(PaO2, SaO2)) over the grid, where the model has a steady state."""
     out: list[tuple[float, float]] = []
@@ -91,6 +93,7 @@ def _curve(
                 fio2=fio2,
                 paco2_mmhg=paco2,
                 conditions=conditions,
+                affinity=affinity,
             )
         except PhysiologyError:
             continue
@@ -115,6 +118,7 @@ def _fitted(
             response.prediction_paco2_mmhg,
             response.conditions,
             value,
+            response.prediction_affinity,
         ),
     )
     prediction = titration.prediction
@@ -190,8 +194,9 @@ def chart_data(titration: Titration, *, age_years: float | None, quantity: str) 
         value,
     )
     paco2 = response.prediction_paco2_mmhg
+    curve = response.prediction_affinity  # the blood of the latest point, as the predictions
     iso = tuple(
-        Line(f"{s:.0%} shunt", _curve(s, 0.0, paco2, response.conditions, value))
+        Line(f"{s:.0%} shunt", _curve(s, 0.0, paco2, response.conditions, value, curve))
         for s in ISO_SHUNTS
     )
     used, unused = _marks(titration, saturation)
