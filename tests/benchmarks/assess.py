@@ -20,6 +20,7 @@ import argparse
 import statistics
 import time
 from collections.abc import Callable
+from datetime import UTC, datetime
 from pathlib import Path
 
 import orjson
@@ -50,8 +51,40 @@ def median_us(
 TITRATIONS = Path(__file__).resolve().parents[2] / "fixtures" / "cases" / "titration"
 
 
+def _titration_alone(runtime: Runtime, data: object) -> Callable[[], object]:
+    """``assess_titration`` on one Bundle's record, everything before it done once: the
+    points, the fit, its predictions and its facts."""
+    from service.assess.assess import titration_rules, windows
+    from service.assess.derive import derive_gas_facts
+    from service.assess.pairing import pair_gases
+    from service.assess.titration import assess_titration
+    from service.fhir.extract import read_bundle
+
+    settings = runtime.settings
+    intake = read_bundle(data)
+    pairing = pair_gases(intake, windows=windows(settings))
+    index = derive_gas_facts(
+        pairing.index, patient=intake.patient, settings=settings, today=datetime.now(UTC).date()
+    )
+    rules = titration_rules(runtime.ruleset)
+
+    def run() -> object:
+        return assess_titration(
+            intake,
+            index=index.facts,
+            index_time=index.gas.time,
+            windows=windows(settings),
+            settings=settings,
+            rules=rules,
+            by_quantity=pairing.by_quantity,
+        )
+
+    return run
+
+
 def titration_costs(runtime: Runtime, rounds: int, floor: float) -> None:
-    """The assess path of each titration fixture with and without the titration (CPU time)."""
+    """The assess path of each titration fixture with and without the titration, and the
+    titration alone (CPU time)."""
     import service.assess.assess as assess_module
     import service.assess.trend as trend_module
 
@@ -59,8 +92,10 @@ def titration_costs(runtime: Runtime, rounds: int, floor: float) -> None:
         return None
 
     bundles = [BUNDLE, *sorted(TITRATIONS.glob("*.bundle.json"))]
-    print("the oxygen-response fit in the assess path (CPU time; off = no titration computed)")
-    print(f"{'input':<34} {'with':>9} {'off':>9} {'adds':>9} {'× floor':>8}")
+    print("the oxygen-response fit in the assess path (CPU time; off = no titration computed;")
+    print("alone = the points, fit, predictions and facts by themselves)")
+    header = f"{'input':<34} {'with':>9} {'off':>9} {'adds':>9} {'× floor':>8}"
+    print(f"{header} {'alone':>9} {'× floor':>8}")
     shipped = (assess_module.assess_titration, trend_module.assess_titration)
     for path in bundles:
         raw = orjson.dumps(orjson.loads(path.read_bytes()))
@@ -75,8 +110,12 @@ def titration_costs(runtime: Runtime, rounds: int, floor: float) -> None:
         finally:
             assess_module.assess_titration, trend_module.assess_titration = shipped
         added = with_fit - without
+        alone = median_us(_titration_alone(runtime, orjson.loads(raw)), rounds, time.process_time)
         name = path.name.removesuffix(".bundle.json")
-        print(f"{name:<34} {with_fit:7.0f}µs {without:7.0f}µs {added:+7.0f}µs {added / floor:7.1f}")
+        print(
+            f"{name:<34} {with_fit:7.0f}µs {without:7.0f}µs {added:+7.0f}µs {added / floor:7.1f}"
+            f" {alone:7.0f}µs {alone / floor:7.1f}"
+        )
 
 
 def main() -> None:
