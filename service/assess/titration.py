@@ -92,6 +92,9 @@ _FIO2_SOURCES = {
     IntakeFio2Source.SITE_SETTING.value: Fio2Source.SITE_SETTING,
 }
 MMHG = "mm[Hg]"
+# The most points one fit takes (the latest are kept): a titration has a handful of steps;
+# the budget bounds the solver's work whatever a record holds (tested).
+MAX_POINTS = 40
 
 
 def _fitted(
@@ -670,8 +673,10 @@ def assess_titration(
         return None
     window = timedelta(minutes=settings.titration_window_minutes)
     anchor = index_time if ending_at_index else _anchor(kept, index_time, window)
-    series = select_titration_points(
-        points=kept, window_min=settings.titration_window_minutes, anchor=anchor
+    series = _within_budget(
+        select_titration_points(
+            points=kept, window_min=settings.titration_window_minutes, anchor=anchor
+        )
     )
     informative = [p for p in series.points if p.spo2 is None or p.spo2 <= 0.97]
     levels = _levels(informative)
@@ -725,6 +730,18 @@ def assess_titration(
             limit,
         ),
     )
+
+
+def _within_budget(series: TitrationSeries) -> TitrationSeries:
+    """At most ``MAX_POINTS`` points, the latest kept; the earlier ones are left out with the
+    reason (a record of continuous oximetry on a changing FiO2 would otherwise make a fit of
+    any length: each point costs every solver step)."""
+    if len(series.points) <= MAX_POINTS:
+        return series
+    cut = len(series.points) - MAX_POINTS
+    reason = f"beyond the {MAX_POINTS} latest points a fit takes"
+    dropped = tuple(DroppedPoint(p, reason) for p in series.points[:cut])
+    return replace(series, points=series.points[cut:], dropped=series.dropped + dropped)
 
 
 def _anchor(

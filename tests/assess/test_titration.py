@@ -294,3 +294,20 @@ def test_a_later_titration_after_the_gas_is_found_within_one_window() -> None:
     assert found is not None
     assert found.series.window_end == datetime(2026, 11, 20, 10, 58, tzinfo=UTC)
     assert len(found.series.points) == 3
+
+
+def test_a_record_of_continuous_oximetry_is_fitted_on_its_latest_points_only() -> None:
+    # Budget: a minute-by-minute SpO2 on an FiO2 changed every two minutes for two hours
+    # would be 60 steps; the fit takes the latest MAX_POINTS and says so for the rest.
+    record = []
+    for i in range(60):
+        fio2 = (0.28, 0.35)[i % 2]
+        spo2, _ = _reading(0.15, 30.0, fio2)
+        record += [
+            m(Q.FIO2, fio2, 2.0 * i, fio2_source=Fio2Source.MEASURED),
+            m(Q.SPO2, spo2, 2.0 * i + 1.0),
+        ]
+    found = _titration(intake(*record), settings=Settings(titration_settle_minutes=0.0))
+    assert found is not None
+    assert len(found.series.points) == titration_module.MAX_POINTS
+    assert sum("latest points a fit takes" in d.reason for d in found.dropped) == 60 - 40
