@@ -13,6 +13,7 @@
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from pathlib import Path
 
 import pytest
@@ -20,6 +21,7 @@ import pytest
 from service.assess.titration import FITTED_FACTS
 from service.config import Settings
 from service.engine import Grade, evaluate
+from service.engine.facts import FactValue
 from service.engine.ruleset import MechanismOutcome
 from service.physiology.oxygen_exchange import exchange_conditions, predict_arterial_oxygen
 from service.runtime import Runtime
@@ -59,8 +61,8 @@ def test_the_reference_model_and_the_service_model_agree(
     assert mine.arterial_saturation == pytest.approx(theirs.sao2, abs=2e-4)
 
 
-def _fit_rules_deciding_likely(runtime: Runtime, facts: dict[str, object]) -> list[str]:
-    evaluation = evaluate(runtime.ruleset, facts)  # type: ignore[arg-type]
+def _fit_rules_deciding_likely(runtime: Runtime, facts: Mapping[str, FactValue]) -> list[str]:
+    evaluation = evaluate(runtime.ruleset, facts)
     out = []
     for item in evaluation.verdict.mechanisms:
         if item.grade is not Grade.LIKELY:
@@ -71,13 +73,17 @@ def _fit_rules_deciding_likely(runtime: Runtime, facts: dict[str, object]) -> li
     return out
 
 
-def _gradeable(facts: dict[str, object]) -> bool:
+def _gradeable(facts: Mapping[str, FactValue]) -> bool:
+    def number(name: str) -> float:
+        value = facts.get(name)
+        return value if isinstance(value, float) else 0.0
+
     probability = facts.get("titration_fit_probability")
     return (
         facts.get("titration_model") == "shunt-and-vq"
-        and float(facts.get("titration_fio2_levels", 0.0)) >= 3.0  # type: ignore[arg-type]
-        and float(facts.get("titration_fio2_known_levels", 0.0)) >= 2.0  # type: ignore[arg-type]
-        and float(facts.get("titration_fio2_span", 0.0)) >= 0.1  # type: ignore[arg-type]
+        and number("titration_fio2_levels") >= 3.0
+        and number("titration_fio2_known_levels") >= 2.0
+        and number("titration_fio2_span") >= 0.1
         and isinstance(probability, float)
         and probability >= 0.01
     )
@@ -102,8 +108,8 @@ def test_no_generated_record_has_a_likely_from_an_unidentified_fit() -> None:
         if not patient.fitted:
             continue
         seen += 1
-        facts = {**patient.facts, **patient.fitted, "specimen_unknown": False}
-        facts["specimen_not_arterial"] = False
+        facts: dict[str, FactValue] = {**patient.facts, **patient.fitted}
+        facts |= {"specimen_unknown": False, "specimen_not_arterial": False}
         deciding = _fit_rules_deciding_likely(runtime, facts)
         if deciding:
             assert _gradeable(facts), deciding

@@ -96,7 +96,8 @@ def titration_costs(runtime: Runtime, rounds: int, floor: float) -> None:
     print("alone = the points, fit, predictions and facts by themselves)")
     header = f"{'input':<34} {'with':>9} {'off':>9} {'adds':>9} {'× floor':>8}"
     print(f"{header} {'alone':>9} {'× floor':>8}")
-    shipped = (assess_module.assess_titration, trend_module.assess_titration)
+    modules = (assess_module, trend_module)
+    shipped = [getattr(module, "assess_titration") for module in modules]  # noqa: B009
     for path in bundles:
         raw = orjson.dumps(orjson.loads(path.read_bytes()))
 
@@ -104,11 +105,13 @@ def titration_costs(runtime: Runtime, rounds: int, floor: float) -> None:
             return orjson.dumps(runtime.assess_bundle(orjson.loads(raw)))
 
         with_fit = median_us(run, rounds, time.process_time)
-        assess_module.assess_titration, trend_module.assess_titration = none, none  # type: ignore[assignment]
+        for module in modules:
+            setattr(module, "assess_titration", none)  # noqa: B010
         try:
             without = median_us(run, rounds, time.process_time)
         finally:
-            assess_module.assess_titration, trend_module.assess_titration = shipped
+            for module, function in zip(modules, shipped, strict=True):
+                setattr(module, "assess_titration", function)  # noqa: B010
         added = with_fit - without
         alone = median_us(_titration_alone(runtime, orjson.loads(raw)), rounds, time.process_time)
         name = path.name.removesuffix(".bundle.json")
