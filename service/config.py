@@ -23,6 +23,8 @@ from service.physiology.oxygen_content import AV_DIFFERENCE_RANGE_ML_DL, HUFNER_
 
 # The longest pairing window a site may set (minutes); the shortest is any positive time.
 MAX_PAIRING_WINDOW_MINUTES = 24 * 60
+# The longest titration window a site may set (minutes): beyond a day the lung itself changes.
+MAX_TITRATION_WINDOW_MINUTES = 24 * 60
 
 
 def default_rules_dir() -> Path:
@@ -62,6 +64,24 @@ class Settings(BaseSettings):
     )
     oxygen_response_window_hours: float = Field(
         12.0, gt=0, le=72, description="gases this close may be compared for the response to O2"
+    )
+    titration_window_minutes: float = Field(
+        120.0,
+        gt=0,
+        le=MAX_TITRATION_WINDOW_MINUTES,
+        description=(
+            "how far back from its last point an oxygen titration reaches: the gases and SpO2 "
+            "readings fitted together for the shunt and V/Q term"
+        ),
+    )
+    titration_settle_minutes: float = Field(
+        5.0,
+        ge=0,
+        le=60,
+        description=(
+            "a titration point taken sooner than this after its FiO2 was changed is not yet in "
+            "steady state and is left out"
+        ),
     )
     unknown_site_altitude_m: float = Field(
         4100.0,

@@ -18,6 +18,7 @@ SCENARIOS = (
     ("altitude-visitor", "a 68-year-old visitor at 2,500 m on room air"),
     ("post-operative-drowsiness", "a drowsy 34-year-old after an operation, at sea level"),
     ("ventilated-two-fio2", "a ventilated 57-year-old with gases on FiO2 0.5 and 1.0"),
+    ("venturi-titration", "a 61-year-old with pneumonia titrated on a Venturi mask, air to 0.40"),
 )
 
 

@@ -10,6 +10,7 @@ names stop it), and its content enters the settings hash that every result carri
     hufner_ml_per_g: 1.36
     assumed_av_difference_ml_dl: 3.5
     pairing_window_minutes: 20
+    titration_window_minutes: 90
     pressure_unit: kPa
     site_altitude_m: 1600
     assume_room_air: false
@@ -25,7 +26,7 @@ from typing import Literal
 import yaml
 from pydantic import BaseModel, ConfigDict, Field, ValidationError
 
-from service.config import MAX_PAIRING_WINDOW_MINUTES, Settings
+from service.config import MAX_PAIRING_WINDOW_MINUTES, MAX_TITRATION_WINDOW_MINUTES, Settings
 from service.exceptions import ServiceError
 from service.physiology.bounds import ALTITUDE_M
 from service.physiology.oxygen_content import AV_DIFFERENCE_RANGE_ML_DL, HUFNER_RANGE_ML_PER_G
@@ -49,6 +50,8 @@ class SiteOverrides(BaseModel):
         None, ge=AV_DIFFERENCE_RANGE_ML_DL[0], le=AV_DIFFERENCE_RANGE_ML_DL[1]
     )
     pairing_window_minutes: float | None = Field(None, gt=0, le=MAX_PAIRING_WINDOW_MINUTES)
+    titration_window_minutes: float | None = Field(None, gt=0, le=MAX_TITRATION_WINDOW_MINUTES)
+    titration_settle_minutes: float | None = Field(None, ge=0, le=60)
     pressure_unit: Literal["mm[Hg]", "kPa"] | None = None
     site_altitude_m: float | None = Field(None, ge=ALTITUDE_M[0], le=ALTITUDE_M[1])
     assume_room_air: bool | None = None

@@ -48,7 +48,7 @@ def bundle(*resources: dict[str, Any]) -> bytes:
 def test_demo_prints_each_scenario_and_the_caution(capsys: pytest.CaptureFixture[str]) -> None:
     assert main(["demo"]) == 0
     out = capsys.readouterr().out
-    assert out.count("Scenario ") == 3
+    assert out.count("Scenario ") == 4
     assert "alveolar PO2" in out
     assert "not a diagnosis" in out
 
@@ -62,12 +62,26 @@ def _number(text: str) -> float:
     return float(text.replace("−", "-"))
 
 
+def test_demo_states_the_titrations_fit_and_the_fio2_for_its_band(
+    capsys: pytest.CaptureFixture[str],
+) -> None:
+    # The demo's titration (fixtures/demo/venturi-titration, made by tests.titration_reference
+    # from shunt 12 %, V/Q term 45 mmHg): one line for the fit, one for the target band.
+    assert main(["demo"]) == 0
+    out = capsys.readouterr().out
+    scenario = out[out.index("Scenario 4") :]
+    line = next(x for x in scenario.splitlines() if x.startswith("Response to oxygen:"))
+    assert "shunt 12%" in line and "V/Q term 46 mmHg" in line and "fit probability" in line
+    assert "target 94–98%: the model predicts SpO2 94% at FiO2 0.25" in scenario
+    assert "titrate to the measured SpO2" in scenario
+
+
 def test_demo_shows_each_scenarios_deficit_partition_adding_up(
     capsys: pytest.CaptureFixture[str],
 ) -> None:
     assert main(["demo"]) == 0
     scenarios = capsys.readouterr().out.split("Scenario ")[1:]
-    assert len(scenarios) == 3
+    assert len(scenarios) == 4
     for text in scenarios:
         lines = PARTITION_LINE.findall(text)
         assert lines, text[:400]

@@ -22,12 +22,15 @@ from service.engine import Evaluation, Pattern, RuleSet, Severity, evaluate
 from service.engine.scenarios import Scenario, combine
 from service.engine.verdict import SEVERITY_RANK, MechanismAssessment, Verdict
 from service.intake.model import Intake, Quantity, Specimen
+from service.physiology.oxygen_prediction import TargetBand
 
 from .derivation import FactValue
 from .derive import GasFacts, derive_again, derive_gas_facts, with_fio2_raised
 from .pairing import SETTINGS, PairedGas, Pairing, Windows, pair_gases
 from .result import Assessment, Finding, GasResult, MechanismVerdict, ResultStatus
 from .serial import serial_facts
+from .titration import TitrationRules, assess_titration
+from .trend import assessment_trend
 from .uncertainty import input_ranges
 
 # The rule-set parameter that says how far a PaO2 may exceed the alveolar PO2 before the data
@@ -128,6 +131,47 @@ def windows(settings: Settings) -> Windows:
     )
 
 
+_TITRATION_RULES: dict[str, TitrationRules] = {}
+
+
+def titration_rules(ruleset: RuleSet) -> TitrationRules:
+    """What the titration takes from the rule set's parameters (percentages there, fractions
+    here); the defaults where a rule set lacks one. Kept per rule-set content hash (which
+    covers its site overrides)."""
+    found = _TITRATION_RULES.get(ruleset.content_hash)
+    if found is None:
+        if len(_TITRATION_RULES) > 16:  # rule sets reloaded many times: start afresh
+            _TITRATION_RULES.clear()
+        found = _TITRATION_RULES[ruleset.content_hash] = _titration_rules(ruleset)
+    return found
+
+
+def _titration_rules(ruleset: RuleSet) -> TitrationRules:
+    default = TitrationRules()
+
+    def fraction(name: str, fallback: float) -> float:
+        parameter = ruleset.parameters.get(name)
+        return fallback if parameter is None else parameter.value / 100.0
+
+    bands = dict(default.bands)
+    standard = (TargetBand.STANDARD, ("target_low", "target_high"))
+    hypercapnic = (
+        TargetBand.HYPERCAPNIC_RISK,
+        ("hypercapnic_target_low", "hypercapnic_target_high"),
+    )
+    for band, (low, high) in (standard, hypercapnic):
+        edges = bands[band]
+        bands[band] = (fraction(low, edges[0]), fraction(high, edges[1]))
+    return TitrationRules(
+        oximeter_low=fraction("oximeter_range_low", default.oximeter_low),
+        carboxyhaemoglobin_high=fraction(
+            "carboxyhaemoglobin_high", default.carboxyhaemoglobin_high
+        ),
+        methaemoglobin_high=fraction("methaemoglobin_high", default.methaemoglobin_high),
+        bands=tuple(bands.items()),
+    )
+
+
 def _fio2_raised(index: GasFacts, ruleset: RuleSet, settings: Settings) -> float | None:
     """The FiO2 the index gas's PaO2 proves, when above its device estimate (else None)."""
     parameter = ruleset.parameters.get(ALVEOLAR_TOLERANCE)
@@ -202,6 +246,16 @@ def assess(
     raised = _fio2_raised(index, ruleset, settings)
     if raised is not None:
         index = gases[0] = with_fio2_raised(index, raised, settings=settings)
+    chosen = titration_rules(ruleset)
+    titration = assess_titration(
+        intake,
+        index=index.facts,
+        index_time=index.gas.time,
+        windows=windows(settings),
+        settings=settings,
+        rules=chosen,
+        by_quantity=pairing.by_quantity,
+    )
     intake_findings = [
         Finding(i.code, Severity(i.severity.value), i.message, expression=i.expression)
         for i in intake.issues
@@ -212,7 +266,7 @@ def assess(
         gases,
         ruleset=ruleset,
         settings=settings,
-        extra=_specimen_flags(pairing),
+        extra={**_specimen_flags(pairing), **(titration.facts if titration else {})},
         input_errors=[f.code for f in intake_findings if f.severity is Severity.ERROR],
         serial=serial,
     )
@@ -252,4 +306,13 @@ def assess(
         uncertain_inputs=uncertain,
         gas_exchange=verdict.gas_exchange,
         serial=serial,
+        titration=titration,
+        trend=assessment_trend(
+            gases,
+            titration=titration,
+            intake=intake,
+            windows=windows(settings),
+            settings=settings,
+            rules=chosen,
+        ),
     )

@@ -5,7 +5,8 @@
   fractions), so every value the intake accepts, the catalogue accepts.
 - Derived facts: the derived-fact table (``service.assess.derived``), whose functions declare
   the inputs the catalogue lists.
-- Serial facts: ``service.assess.serial``. Provenance flags: here.
+- Serial facts: ``service.assess.serial``; facts fitted to a titration:
+  ``service.assess.titration``. Provenance flags: here.
 
 The ranges are wide on purpose: they reject impossible numbers (a unit slip, a typing error)
 and leave judging what is abnormal to the rules. A leaf compares one fact with one number, so
@@ -28,6 +29,7 @@ from service.physiology.units import to_fact_unit
 from .derivation import check_order
 from .derived import DERIVED_FACTS
 from .serial import SERIAL_FACTS
+from .titration import FITTED_FACTS
 
 __all__ = ["AGE", "DEFAULT_CATALOGUE", "MEASURED", "OXYGEN_DEVICES", "PROVENANCE"]
 
@@ -153,6 +155,7 @@ DEFAULT_CATALOGUE = FactCatalogue(
         *MEASURED_SPECS,
         *(entry.spec for entry in DERIVED_FACTS),
         *SERIAL_FACTS,
+        *FITTED_FACTS,
         *PROVENANCE,
         FIO2_LOWEST_POSSIBLE,
     )

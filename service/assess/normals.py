@@ -9,11 +9,17 @@ not known and it matters, the assessment evaluates both (``service.assess.uncert
 
 from __future__ import annotations
 
+from functools import lru_cache
+
 from service.config import Settings
+from service.exceptions import PhysiologyError
 from service.physiology import constants as c
 from service.physiology import reference as ref
 from service.physiology.bounds import PARTIAL_PRESSURE_MMHG
 from service.physiology.gas_exchange import alveolar_po2_mmhg
+from service.physiology.oxygen_affinity import oxygen_affinity
+from service.physiology.oxygen_exchange import HAEMOGLOBIN_SENSITIVITY_G_DL, exchange_conditions
+from service.physiology.oxygen_projection import project_gas
 
 from .derivation import Computed, DerivedTable
 
@@ -202,19 +208,193 @@ def room_air_alveolar_po2(
     return Computed(value, "alveolar gas equation on room air (FiO2 0.21), this PB and PaCO2")
 
 
+@lru_cache(maxsize=512)
+def _projections(
+    arterial_po2: float,
+    fio2: float,
+    arterial_pco2: float,
+    barometric_pressure: float,
+    water_vapour_pressure: float,
+    haemoglobin: float | None,
+    arterial_ph: float | None,
+    hufner_ml_per_g: float,
+    respiratory_quotient: float,
+    av_difference_ml_dl: float,
+) -> tuple[float, float, float] | None:
+    """(the projection at the measured or assumed Hb, the least and the most over an assumed
+    Hb's range), or None when the model has no answer (an alveolar PO2 at or below zero, no
+    steady state). The three facts share it (cached: each scenario of an assessment derives
+    them again). The assumed a-v difference does not move the projection (``project_gas``),
+    so it is not varied."""
+    if fio2 == c.ROOM_AIR_FIO2:
+        return arterial_po2, arterial_po2, arterial_po2  # on room air it is the gas itself
+    affinity = oxygen_affinity(ph=arterial_ph) if arterial_ph is not None else None
+    hbs = (haemoglobin,) if haemoglobin is not None else (None, *HAEMOGLOBIN_SENSITIVITY_G_DL)
+    values: list[float] = []
+    for hb in hbs:
+        conditions = exchange_conditions(
+            barometric_mmhg=barometric_pressure,
+            haemoglobin_g_dl=hb,
+            av_difference_ml_dl=av_difference_ml_dl,
+            hufner_ml_per_g=hufner_ml_per_g,
+            respiratory_quotient=respiratory_quotient,
+            water_vapour_mmhg=water_vapour_pressure,
+        )
+        try:
+            projected = project_gas(
+                arterial_po2_mmhg=arterial_po2,
+                fio2=fio2,
+                paco2_mmhg=arterial_pco2,
+                target_fio2=c.ROOM_AIR_FIO2,
+                conditions=conditions,
+                affinity=affinity,
+            )
+        except PhysiologyError:
+            if not values:
+                return None
+            continue
+        values.append(projected.arterial_po2_mmhg)
+    return values[0], min(values), max(values)
+
+
+def _room_air_projections(
+    arterial_po2: float,
+    fio2: float,
+    arterial_pco2: float,
+    barometric_pressure: float,
+    water_vapour_pressure: float,
+    settings: Settings,
+    haemoglobin: float | None,
+    arterial_ph: float | None,
+) -> tuple[float, list[float]] | None:
+    found = _projections(
+        arterial_po2,
+        fio2,
+        arterial_pco2,
+        barometric_pressure,
+        water_vapour_pressure,
+        haemoglobin,
+        arterial_ph,
+        settings.hufner_ml_per_g,
+        settings.respiratory_quotient,
+        settings.assumed_av_difference_ml_dl,
+    )
+    if found is None:
+        return None
+    value, least, most = found
+    return value, [least, most]
+
+
+_ROOM_AIR_METHOD = (
+    "this gas's effective shunt carried to FiO2 0.21 at the same PB and PaCO2 (shunt "
+    "equation with a constant a-v content difference, Berggren 1942; one-parameter model, "
+    "Karbing 2007): the most this lung would give on room air, less where low-V/Q units "
+    "contribute; it does not depend on the assumed a-v difference"
+)
+
+
 @table.quantity(
     "room_air_pao2",
     MMHG,
     _PRESSURE,
     1,
-    "PaO2 expected on room air if the a/A ratio held (oxygen taken away)",
+    "PaO2 this gas's effective shunt would give on room air (at most: less with low-V/Q units)",
     result="room-air-pao2",
 )
-def room_air_pao2(*, a_a_ratio: float, room_air_alveolar_po2: float) -> Computed:
-    return Computed(
-        ref.projected_pao2_mmhg(a_a_ratio=a_a_ratio, alveolar_po2_mmhg=room_air_alveolar_po2),
-        "a/A × room-air alveolar PO2 (Gilbert & Keighley 1974)",
+def room_air_pao2(
+    *,
+    arterial_po2: float,
+    fio2: float,
+    arterial_pco2: float,
+    barometric_pressure: float,
+    water_vapour_pressure: float,
+    settings: Settings,
+    haemoglobin: float | None = None,
+    arterial_ph: float | None = None,
+) -> Computed | None:
+    found = _room_air_projections(
+        arterial_po2,
+        fio2,
+        arterial_pco2,
+        barometric_pressure,
+        water_vapour_pressure,
+        settings,
+        haemoglobin,
+        arterial_ph,
     )
+    if found is None:
+        return None
+    hb = "measured Hb" if haemoglobin is not None else "Hb 14 g/dL assumed"
+    curve = ", the curve moved for the pH (Severinghaus 1979)" if arterial_ph is not None else ""
+    return Computed(found[0], f"{_ROOM_AIR_METHOD}; {hb}{curve}")
+
+
+@table.quantity(
+    "room_air_pao2_least",
+    MMHG,
+    _PRESSURE,
+    1,
+    "The least room_air_pao2 over an assumed Hb (8-17 g/dL)",
+    result="room-air-pao2-least",
+)
+def room_air_pao2_least(
+    *,
+    arterial_po2: float,
+    fio2: float,
+    arterial_pco2: float,
+    barometric_pressure: float,
+    water_vapour_pressure: float,
+    settings: Settings,
+    haemoglobin: float | None = None,
+    arterial_ph: float | None = None,
+) -> Computed | None:
+    found = _room_air_projections(
+        arterial_po2,
+        fio2,
+        arterial_pco2,
+        barometric_pressure,
+        water_vapour_pressure,
+        settings,
+        haemoglobin,
+        arterial_ph,
+    )
+    if found is None:
+        return None
+    return Computed(min(found[1]), "room-air PaO2 by effective shunt, least over the assumptions")
+
+
+@table.quantity(
+    "room_air_pao2_most",
+    MMHG,
+    _PRESSURE,
+    1,
+    "The most room_air_pao2 over an assumed Hb (8-17 g/dL)",
+    result="room-air-pao2-most",
+)
+def room_air_pao2_most(
+    *,
+    arterial_po2: float,
+    fio2: float,
+    arterial_pco2: float,
+    barometric_pressure: float,
+    water_vapour_pressure: float,
+    settings: Settings,
+    haemoglobin: float | None = None,
+    arterial_ph: float | None = None,
+) -> Computed | None:
+    found = _room_air_projections(
+        arterial_po2,
+        fio2,
+        arterial_pco2,
+        barometric_pressure,
+        water_vapour_pressure,
+        settings,
+        haemoglobin,
+        arterial_ph,
+    )
+    if found is None:
+        return None
+    return Computed(max(found[1]), "room-air PaO2 by effective shunt, most over the assumptions")
 
 
 FACTS = tuple(table.facts)

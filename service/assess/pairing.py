@@ -142,6 +142,8 @@ class Pairing:
     gases: list[PairedGas]
     excluded_specimens: list[Measurement]  # arterial-coded values whose sample is doubtful
     non_arterial_po2: list[Measurement]  # venous, capillary, mixed-venous PO2 present
+    by_quantity: dict[Quantity, list[Measurement]] = field(default_factory=dict)
+    """Every usable measurement by quantity (what the gases were paired from)."""
 
     @property
     def index(self) -> PairedGas:
@@ -192,15 +194,38 @@ def _nearest(
     return None, rejected, False
 
 
-def pair_gases(intake: Intake, *, windows: Windows) -> Pairing:
-    """Build the gases of ``intake``: every usable arterial PO2 anchors one, latest first."""
-    by_quantity: dict[Quantity, list[Measurement]] = {}
+ByQuantity = dict[Quantity, list[Measurement]]
+
+
+def group_measurements(intake: Intake) -> tuple[ByQuantity, list[Measurement]]:
+    """The usable measurements of ``intake`` by quantity, and the arterial-coded ones whose
+    sample is doubtful (left out)."""
+    by_quantity: ByQuantity = {}
     excluded: list[Measurement] = []
     for m in intake.measurements:
         if m.quantity in ARTERIAL and not _is_usable_arterial(m):
             excluded.append(m)
             continue
         by_quantity.setdefault(m.quantity, []).append(m)
+    return by_quantity, excluded
+
+
+def pair_at(
+    anchor: Measurement | None,
+    by_quantity: ByQuantity,
+    windows: Windows,
+    *,
+    only: frozenset[Quantity],
+    at: datetime | None = None,
+) -> PairedGas:
+    """The values of the quantities ``only`` that describe the moment of ``anchor`` (or the
+    time ``at``), by the same windows as a gas: a titration point's FiO2 and blood."""
+    return _pair_one(anchor, by_quantity, windows, only=only, at=at)
+
+
+def pair_gases(intake: Intake, *, windows: Windows) -> Pairing:
+    """Build the gases of ``intake``: every usable arterial PO2 anchors one, latest first."""
+    by_quantity, excluded = group_measurements(intake)
     anchors = sorted(by_quantity.get(Quantity.ARTERIAL_PO2, []), key=_sort_key, reverse=True)
     if not anchors:
         spo2 = sorted(by_quantity.get(Quantity.SPO2, []), key=_sort_key, reverse=True)
@@ -209,22 +234,30 @@ def pair_gases(intake: Intake, *, windows: Windows) -> Pairing:
     if not gases:
         gases = [_pair_one(None, by_quantity, windows)]
     non_arterial = [m for q in NOT_ARTERIAL_PO2 for m in by_quantity.get(q, [])]
-    return Pairing(gases=gases, excluded_specimens=excluded, non_arterial_po2=non_arterial)
+    return Pairing(
+        gases=gases,
+        excluded_specimens=excluded,
+        non_arterial_po2=non_arterial,
+        by_quantity=by_quantity,
+    )
 
 
 def _pair_one(
     anchor: Measurement | None,
-    by_quantity: dict[Quantity, list[Measurement]],
+    by_quantity: ByQuantity,
     windows: Windows,
+    *,
+    only: frozenset[Quantity] = PAIRED,
+    at: datetime | None = None,
 ) -> PairedGas:
     gas = PairedGas(anchor=anchor)
-    anchor_time = anchor.time if anchor else None
+    anchor_time = at if at is not None else anchor.time if anchor else None
     if anchor is not None:
         gas.values[anchor.quantity] = anchor
     for quantity, candidates in by_quantity.items():
         if quantity in gas.values or quantity is Quantity.ARTERIAL_PO2:
             continue
-        if quantity not in PAIRED:
+        if quantity not in PAIRED or quantity not in only:
             continue
         limit = windows.limit(quantity)
         chosen, rejected, untimed = _nearest(candidates, anchor_time, limit)

@@ -27,6 +27,8 @@ QUANTITY_ORDER = (
     "aa-gradient-upper-limit",
     "room-air-alveolar-po2",
     "room-air-pao2",
+    "room-air-pao2-least",
+    "room-air-pao2-most",
     "pao2-expected",
     "pao2-lower-limit",
     "paco2-upper-limit",

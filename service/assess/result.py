@@ -17,8 +17,10 @@ from service.engine import (
     Severity,
 )
 from service.intake.model import Patient, Source
+from service.physiology.oxygenation_trend import OxygenationTrend
 
 from .derive import GasFacts
+from .titration import Titration
 
 CAUTION = (
     "Decision support for qualified clinicians, not a diagnosis. The result depends on the "
@@ -91,3 +93,7 @@ class Assessment:
     serial: Mapping[str, float] = field(default_factory=dict)
     """The response to oxygen over the gases (``service.assess.serial``), in catalogue units:
     the FiO2 step, the PaO2 change, the venous admixture at each FiO2; empty with one gas."""
+    titration: Titration | None = None
+    """The oxygen titration around the index gas, fitted (None: no points on two FiO2s)."""
+    trend: OxygenationTrend | None = None
+    """The course over three or more arterial gases (None with fewer)."""

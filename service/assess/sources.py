@@ -8,6 +8,7 @@ provenance flags the data-quality rules read) so the result can say how the numb
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from datetime import timedelta
 from typing import TYPE_CHECKING
 
@@ -19,6 +20,7 @@ from service.physiology.atmosphere import barometric_pressure_mmhg
 from service.physiology.oxygen_delivery import OxygenDevice, estimate_fio2
 
 from .derivation import Derived, DerivedTable
+from .pairing import PairedGas
 
 if TYPE_CHECKING:  # derive imports the catalogue, which lists this module's facts
     from .derive import GasFacts
@@ -83,36 +85,70 @@ def barometric_pressure(out: GasFacts, settings: Settings) -> float:
     return pb
 
 
-def inspired_oxygen_fraction(out: GasFacts, settings: Settings) -> float | None:
-    """Set the FiO2 fact of ``out`` (when it can be known) and its flags; return it."""
-    sent = out.gas.get(Quantity.FIO2)
-    device = out.gas.get(Quantity.OXYGEN_DEVICE)
-    flow = out.gas.get(Quantity.OXYGEN_FLOW)
+@dataclass(frozen=True, slots=True)
+class InspiredChoice:
+    """The FiO2 of one moment and how it was known: ``fio2`` None when it cannot be known;
+    ``fio2_range`` the range of a device estimate (None when measured, set or assumed);
+    ``source`` a ``Fio2Source`` value; ``estimated`` True for a flow-based estimate."""
+
+    fio2: float | None
+    fio2_range: tuple[float, float] | None
+    source: str | None
+    estimated: bool
+    inputs: tuple[Source, ...]
+    method: str
+    problem: str | None = None
+
+
+def choose_inspired_oxygen(gas: PairedGas, settings: Settings) -> InspiredChoice:
+    """The FiO2 of ``gas`` (a gas, or any moment paired like one), by precedence: measured or
+    set > estimated from device and flow > room air by site setting > none."""
+    sent = gas.get(Quantity.FIO2)
+    device = gas.get(Quantity.OXYGEN_DEVICE)
+    flow = gas.get(Quantity.OXYGEN_FLOW)
     fio2 = _number(sent)
-    estimated = False
-    inputs: tuple[Source, ...] = ()
-    method = "as sent"
     if sent is not None and fio2 is not None:
-        out.fio2_source = (sent.fio2_source or Fio2Source.MEASURED).value
-        inputs = _sources(sent)
-    elif device is not None and isinstance(device.value, str):
+        source = (sent.fio2_source or Fio2Source.MEASURED).value
+        return InspiredChoice(fio2, None, source, False, _sources(sent), "as sent")
+    problem: str | None = None
+    if device is not None and isinstance(device.value, str):
         try:
             estimate = estimate_fio2(device=OxygenDevice(device.value), flow_l_min=_number(flow))
         except (PhysiologyError, ValueError) as error:
-            out.problems.append(f"fio2: {error}")
+            problem = f"fio2: {error}"
         else:
-            fio2, out.fio2_range = estimate.fio2, (estimate.low, estimate.high)
-            out.fio2_source = Fio2Source.DEVICE_ESTIMATE.value
-            estimated = device.value != OxygenDevice.NONE_ROOM_AIR
-            inputs = _sources(device, flow)
-            method = (
-                f"estimated from {estimate.basis} (range {estimate.low:.2f}–{estimate.high:.2f})"
+            return InspiredChoice(
+                estimate.fio2,
+                (estimate.low, estimate.high),
+                Fio2Source.DEVICE_ESTIMATE.value,
+                device.value != OxygenDevice.NONE_ROOM_AIR,
+                _sources(device, flow),
+                f"estimated from {estimate.basis} (range {estimate.low:.2f}–{estimate.high:.2f})",
             )
-    if fio2 is None and settings.assume_room_air:
-        fio2, method = c.ROOM_AIR_FIO2, "room air assumed by site setting"
-        out.fio2_source = Fio2Source.SITE_SETTING.value
+    if settings.assume_room_air:
+        return InspiredChoice(
+            c.ROOM_AIR_FIO2,
+            None,
+            Fio2Source.SITE_SETTING.value,
+            False,
+            (),
+            "room air assumed by site setting",
+            problem,
+        )
+    return InspiredChoice(None, None, None, False, (), "as sent", problem)
+
+
+def inspired_oxygen_fraction(out: GasFacts, settings: Settings) -> float | None:
+    """Set the FiO2 fact of ``out`` (when it can be known) and its flags; return it."""
+    choice = choose_inspired_oxygen(out.gas, settings)
+    if choice.problem is not None:
+        out.problems.append(choice.problem)
+    sent = out.gas.get(Quantity.FIO2)
+    fio2 = choice.fio2
+    out.fio2_source = choice.source
+    out.fio2_range = choice.fio2_range
     out.facts["fio2_sent"] = fio2 is not None
-    out.facts["fio2_estimated_from_flow"] = estimated
+    out.facts["fio2_estimated_from_flow"] = choice.estimated
     # A setting charted outside the pairing window is used as the one in force, and said so.
     offset = out.gas.offset(Quantity.FIO2)
     late = offset is not None and abs(offset) > timedelta(minutes=settings.pairing_window_minutes)
@@ -121,6 +157,6 @@ def inspired_oxygen_fraction(out: GasFacts, settings: Settings) -> float | None:
     )
     if fio2 is None:
         return None
-    out.set_fact("fio2", fio2, inputs)
-    out.derived["fio2"] = Derived(fio2, "1", method, inputs)
+    out.set_fact("fio2", fio2, choice.inputs)
+    out.derived["fio2"] = Derived(fio2, "1", choice.method, choice.inputs)
     return fio2

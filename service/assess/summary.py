@@ -5,6 +5,8 @@ from __future__ import annotations
 from service.config import Settings
 
 from .partition import PART_LABELS, ShownPartition, assessment_partitions
+from .response_view import applicable_band, band_words
+from .response_view import summary_line as response_line
 from .result import CAUTION, Assessment
 
 # Derived values shown, with their labels and display decimals.
@@ -19,7 +21,7 @@ _SHOWN = (
     ("pao2-expected", "PaO2 expected for age", 1),
     ("pao2-lower-limit", "PaO2 lower limit for age", 1),
     ("paco2-upper-limit", "PaCO2 limit for setting", 1),
-    ("room-air-pao2", "PaO2 on room air (a/A)", 1),
+    ("room-air-pao2", "PaO2 on room air, at most", 1),
     ("a-a-ratio", "a/A ratio", 2),
     ("pf-ratio", "P/F ratio", 0),
     ("sf-ratio", "S/F ratio", 0),
@@ -59,6 +61,23 @@ def _partition_lines(a: Assessment, settings: Settings) -> list[str]:
     return lines
 
 
+def _response_lines(a: Assessment) -> list[str]:
+    """The titration fit in a line, and the FiO2 it predicts for the band that applies."""
+    t = a.titration
+    if t is None:
+        return []
+    lines = [response_line(t)]
+    choice = applicable_band(a)
+    prediction = t.prediction
+    if prediction is not None and choice.band is not None and t.response.two_parameter:
+        target = next(x for x in prediction.targets if x.band is choice.band)
+        lines.append(
+            f"  target {band_words(target)}: {target.note} (model estimate: titrate to "
+            "the measured SpO2)"
+        )
+    return lines
+
+
 def summary_text(a: Assessment, *, settings: Settings) -> str:
     """The verdict, the PaO2 deficit partition, the mechanisms with their reasons, the findings
     and the numbers. ``settings`` are those ``a`` was assessed with."""
@@ -66,6 +85,7 @@ def summary_text(a: Assessment, *, settings: Settings) -> str:
         f"Pattern: {a.pattern}   (hypoxaemia {a.hypoxaemia}; gas exchange {a.gas_exchange}; "
         f"rule set {a.ruleset_identity})",
         *_partition_lines(a, settings),
+        *_response_lines(a),
     ]
     if a.uncertain_inputs:
         lines += [f"Known only as a range, assessed at both ends: {u}" for u in a.uncertain_inputs]

@@ -33,6 +33,8 @@ class FactOrigin(StrEnum):
     """Computed by the physiology layer from other facts of the same gas."""
     SERIAL = "serial"
     """Computed from this gas and an earlier one taken on a different FiO2."""
+    FITTED = "fitted"
+    """Fitted to the points of an oxygen titration (gases and SpO2 on several FiO2s)."""
     PROVENANCE = "provenance"
     """A flag about how the other facts were obtained (estimated, assumed, specimen)."""
 

@@ -129,6 +129,8 @@ class FindingCode(StrEnum):
     HYPERCAPNIA = "hypercapnia"
     SPO2_ABOVE_TARGET_BAND = "spo2-above-target-band"
     SPO2_BELOW_TARGET_BAND = "spo2-below-target-band"
+    FIO2_FOR_TARGET_PREDICTED = "fio2-for-target-predicted"
+    TARGET_BAND_UNREACHABLE = "target-band-unreachable"
     EXERTIONAL_DESATURATION = "exertional-desaturation"
     METABOLIC_ALKALOSIS_COMPENSATION = "metabolic-alkalosis-compensation"
     RESPIRATORY_COMPENSATION_INADEQUATE = "respiratory-compensation-inadequate"

@@ -2,7 +2,8 @@
 
 Entries, in order: GuidanceResponse, Parameters (the machine-readable verdict), OperationOutcome
 (findings and the clinical caution), then derived Observations (among them the PaO2 deficit
-partition of the index gas, one component per part) and the mechanism-assessment Observation.
+partition of the index gas, one component per part, and the oxygen-response fit,
+``oxygen_response``) and the mechanism-assessment Observation.
 Built as dicts for speed; the tests validate every produced Bundle with ``fhir.resources.R4B``.
 Pressures leave in mm[Hg] unless ``pressure_unit`` is ``kPa``: the one place where canonical
 units are converted for display.
@@ -19,6 +20,11 @@ from service.assess.partition import GasPartitions, ShownPartition, assessment_p
 from service.assess.presentation import QUANTITY_ORDER, PressureUnit, quantity
 from service.assess.result import CAUTION, Assessment, Finding, MechanismVerdict
 from service.config import Settings
+from service.fhir.oxygen_response import (
+    oxygen_response_observation,
+    oxygen_response_parameter,
+    trend_parameter,
+)
 from service.physiology.deficit_steps import GAS_EXCHANGE, INSPIRED, UNATTRIBUTED, VENTILATION
 from service.terminology.codes import ALTITUDE_RESIDENCE_CODES, UCUM
 from service.terminology.codes import DERIVED_OBSERVATION_CODES as OBSERVATION_CODES
@@ -220,6 +226,12 @@ def _parameters(
     params += [{"name": "uncertain-input", "valueString": what} for what in a.uncertain_inputs]
     params += [_gas_parameter(g.facts, g.index, quantities) for g in a.gases]
     params += _deficit_parameters(partitions, quantities)
+    for extra in (
+        oxygen_response_parameter(a, quantities.pressure_unit),
+        trend_parameter(a.trend),
+    ):
+        if extra is not None:
+            params.append(extra)
     index = a.index
     params += quantities.listed(index.derived)
     if index.barometric_source:
@@ -431,6 +443,10 @@ def render_bundle(
         observation = _deficit_observation(shown, about, quantities)
         resources.append(observation)
         derived_ids.append(observation["id"])
+    response = oxygen_response_observation(a, about, pressure_unit)
+    if response is not None:
+        resources.append(response)
+        derived_ids.append(response["id"])
     resources.append(_mechanism_observation(a, about, derived_ids))
     # Entry URLs derive from the decision id (its last 12 hex digits replaced by the entry's
     # number), so a result is reproducible apart from it and needs no hashing per entry.

@@ -15,6 +15,10 @@ Layout (one order group, filled by us as the filler):
   each residence at altitude, with an ``NTE`` naming the assumption): one NM ``OBX`` each for
   the expected PaO2, the fall and every part shown (positive lowers the PaO2), with the method
   in OBX-17; a gas without one gets an ``NTE`` saying why;
+* the oxygen-response fit (sub-id 4): NM ``OBX``s for the fitted shunt and V/Q term (or the
+  effective shunt when they are not separated) and the FiO2 predicted for the target band
+  that applies, each with an ``NTE`` giving its range; an ``NTE`` with the model, any refusal
+  and the model caution;
 * one coded ``OBX`` for the pattern (with ``NTE``s naming any input known only as a range),
   one for the gas-exchange status (sub-id 1.0), one per mechanism (sub-id 1.n) with its
   grade, an ``NTE`` with the rationale and one with the discriminator; one coded ``OBX`` per
@@ -31,6 +35,7 @@ from datetime import UTC, datetime
 from service.assess.derive import Derived
 from service.assess.partition import ShownPartition, assessment_partitions
 from service.assess.presentation import QUANTITY_ORDER, PressureUnit, quantity
+from service.assess.response_view import MODEL_WORDS, applicable_band, band_words
 from service.assess.result import CAUTION, Assessment
 from service.config import Settings
 from service.hl7v2 import er7, tables
@@ -38,6 +43,7 @@ from service.hl7v2.ack import reply_header
 from service.hl7v2.header import version_tuple
 from service.hl7v2.message import V2Message
 from service.hl7v2.times import format_dtm
+from service.physiology.oxygen_prediction import CAUTION as MODEL_CAUTION
 from service.terminology.codes import DERIVED_OBSERVATION_CODES as OBSERVATION_CODES
 
 LOINC_V2 = "LN"
@@ -52,7 +58,9 @@ DISPLAYS: dict[str, str] = {
     "aa-gradient": OBSERVATION_CODES["aa-gradient"][1],
     "aa-gradient-upper-limit": "A-a gradient upper limit for age",
     "room-air-alveolar-po2": "Alveolar PO2 on room air at this PaCO2 and pressure",
-    "room-air-pao2": "PaO2 expected on room air if the a/A ratio held",
+    "room-air-pao2": "PaO2 on room air by this gas's effective shunt (at most)",
+    "room-air-pao2-least": "PaO2 on room air by effective shunt, least over the assumptions",
+    "room-air-pao2-most": "PaO2 on room air by effective shunt, most over the assumptions",
     "pao2-expected": "PaO2 expected for age at sea level on air",
     "pao2-lower-limit": "PaO2 lower limit of normal for age at sea level on air",
     "paco2-upper-limit": "PaCO2 upper limit for this setting",
@@ -154,6 +162,78 @@ def _deficit(w: _Writer, shown: ShownPartition, sub_id: str, unit: PressureUnit)
             w.note(f"Residence not sent: computed {shown.assumption}.")
 
 
+def _response(w: _Writer, a: Assessment, unit: PressureUnit) -> None:
+    t = a.titration
+    if t is None or t.fit is None:
+        return
+    method = er7.components("", "two-parameter model of oxygen exchange fitted to a titration")
+    rows: list[tuple[str, str, float, str, str]] = []  # code, display, value, unit, range note
+    if t.shunt is not None and t.vq_drop is not None:
+        s, d = t.shunt, t.vq_drop
+        rows += [
+            (
+                "fitted-shunt",
+                "Shunt fitted to the titration",
+                100.0 * s.value,
+                "%",
+                f"range {s.least:.1%} to {s.most:.1%} (95 % and the assumptions)",
+            ),
+            (
+                "fitted-vq-term",
+                "V/Q term fitted to the titration (alveolar to end-capillary PO2 drop)",
+                d.value,
+                "mm[Hg]",
+                f"range {d.least:.0f} to {d.most:.0f} mmHg (95 % and the assumptions)",
+            ),
+        ]
+    elif t.effective_shunt is not None:
+        e = t.effective_shunt
+        rows.append(
+            (
+                "effective-shunt",
+                "Effective shunt (shunt and V/Q mismatch together)",
+                100.0 * e.value,
+                "%",
+                f"range {e.least:.1%} to {e.most:.1%} (95 % and the a-v difference)",
+            )
+        )
+    choice = applicable_band(a)
+    prediction = t.prediction
+    if prediction is not None and choice.band is not None and t.response.two_parameter:
+        target = next(x for x in prediction.targets if x.band is choice.band)
+        if target.fio2 is not None:
+            low, high = target.fio2_low, target.fio2_high
+            spread = (
+                f"range {low:.2f} to {high:.2f}"
+                if low is not None and high is not None
+                else "upper end beyond FiO2 1.0"
+            )
+            rows.append(
+                (
+                    "predicted-fio2-for-target",
+                    f"FiO2 predicted for the target band {band_words(target)} (model estimate)",
+                    target.fio2,
+                    "1",
+                    spread,
+                )
+            )
+    for code, display, value, row_unit, note in rows:
+        shown = quantity(code, value, row_unit, unit)
+        if row_unit == "1":
+            shown = {**shown, "value": round(value, 2)}
+        w.obx(
+            "NM",
+            er7.components(code, display, tables.DERIVED_SYSTEM),
+            er7.number(shown["value"]),
+            "4",
+            unit=er7.components(shown["code"], shown["unit"], "UCUM"),
+            method=method,
+        )
+        w.note(note)
+    refusal = f"; not separated: {t.response.refusal}" if t.response.refusal else ""
+    w.note(f"Model: {MODEL_WORDS[t.fit.model]}{refusal}. {MODEL_CAUTION}")
+
+
 def oru_result(
     message: V2Message,
     assessment: Assessment,
@@ -190,6 +270,7 @@ def oru_result(
     many = len(index.shown) > 1
     for n, shown in enumerate(index.shown, start=1):
         _deficit(w, shown, f"3.{n}" if many else "3", pressure_unit)
+    _response(w, a, pressure_unit)
     assessment_code = er7.components(
         "hypoxaemia-mechanism-assessment", "Likely mechanism of hypoxaemia", tables.DERIVED_SYSTEM
     )

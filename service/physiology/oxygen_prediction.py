@@ -16,7 +16,7 @@ does not foresee.
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from enum import StrEnum
 
@@ -95,21 +95,31 @@ def predict_oxygen_response(
     response: OxygenResponse,
     fio2_step: float = 0.05,
     bands: Sequence[TargetBand] = (TargetBand.STANDARD, TargetBand.HYPERCAPNIC_RISK),
+    band_limits: Mapping[TargetBand, tuple[float, float]] = TARGET_BAND_LIMITS,
 ) -> OxygenPrediction | None:
-    """Predicted saturation and PaO2 from FiO2 0.21 to 1.0 (every ``fio2_step``, both ends
-    included) for the preferred fit of ``response``, and the FiO2 for each target band.
-    None when nothing was fitted.
+    """Predicted saturation and PaO2 from FiO2 0.21 to 1.0 (room air, the multiples of
+    ``fio2_step`` between, and 1.0) for the preferred fit of ``response``, and the FiO2 for
+    each target band. None when nothing was fitted. ``band_limits`` (fractions) lets a rule
+    set or a site set the bands' edges (default: the BTS guideline's).
 
     Raises:
-        ImpossibleValueError: ``fio2_step`` outside 0.001–0.79.
+        ImpossibleValueError: ``fio2_step`` outside 0.001–0.79, or a band's edges outside
+            0.5–1.0 or out of order.
     """
     require_possible("fio2_step", fio2_step, 0.001, 0.79, "1")
+    for band in bands:
+        low, high = band_limits[band]
+        require_possible(f"{band.value} lower edge", low, 0.5, 1.0, "1")
+        require_possible(f"{band.value} upper edge", high, low, 1.0, "1")
     fit = response.preferred
     if fit is None:
         return None
     model = _FittedCurve(fit, response)
-    count = math.ceil(round((FIO2_LIMITS[1] - ROOM_AIR_FIO2) / fio2_step, 9))
-    fio2s = [ROOM_AIR_FIO2 + i * fio2_step for i in range(count)] + [FIO2_LIMITS[1]]
+    # Room air, then the round multiples of the step above it (0.25, 0.30, ...), then 1.0.
+    first = math.floor(round(ROOM_AIR_FIO2 / fio2_step, 9)) + 1
+    last = math.ceil(round(FIO2_LIMITS[1] / fio2_step, 9))
+    steps = [round(k * fio2_step, 9) for k in range(first, last)]
+    fio2s = [ROOM_AIR_FIO2, *steps, FIO2_LIMITS[1]]
     grid: list[tuple[float, _Values]] = []
     for fio2 in fio2s:
         values = model.values(fio2, grid[-1][1][3] if grid else 0.0)
@@ -120,7 +130,7 @@ def predict_oxygen_response(
         model=fit.model,
         model_label=fit.label,
         curve=curve,
-        targets=tuple(_fio2_for_target(model, grid, band) for band in bands),
+        targets=tuple(_fio2_for_target(model, grid, band, band_limits[band]) for band in bands),
         paco2_mmhg=response.prediction_paco2_mmhg,
         paco2_assumed=response.prediction_paco2_assumed,
     )
@@ -240,9 +250,12 @@ def _refine(
 
 
 def _fio2_for_target(
-    curve: _FittedCurve, grid: list[tuple[float, _Values]], band: TargetBand
+    curve: _FittedCurve,
+    grid: list[tuple[float, _Values]],
+    band: TargetBand,
+    limits: tuple[float, float],
 ) -> Fio2ForTarget:
-    target_low, target_high = TARGET_BAND_LIMITS[band]
+    target_low, target_high = limits
     central = _lowest_fio2_reaching(curve, grid, target_low, _CENTRAL)
     optimistic = _lowest_fio2_reaching(curve, grid, target_low, _UPPER)
     pessimistic = _lowest_fio2_reaching(curve, grid, target_low, _LOWER)

@@ -134,6 +134,18 @@ class IdentifiabilityLimits:
 DEFAULT_LIMITS = IdentifiabilityLimits()
 
 
+class Refusal(StrEnum):
+    """Why the two-parameter fit is not reported (the rule numbers of the module docstring)."""
+
+    NO_POINTS = "no-informative-points"  # none, or every SpO2 above the informative limit
+    ONE_POINT = "one-informative-point"  # rule 1
+    NARROW_SPAN = "narrow-fio2-span"  # rule 2
+    NOT_CONVERGED = "not-converged"  # rule 3
+    NOT_SEPARABLE = "not-separable"  # rule 3: the information matrix is singular
+    SHUNT_RANGE_WIDE = "shunt-range-wide"  # rule 4
+    VQ_RANGE_WIDE = "vq-range-wide"  # rule 4
+
+
 class FitModel(StrEnum):
     """Which model a fit used."""
 
@@ -236,6 +248,7 @@ class OxygenResponse:
     two_parameter: ModelFit | None
     effective_shunt: ModelFit | None
     refusal: str | None  # why ``two_parameter`` is None (None when it is reported)
+    refusal_reason: Refusal | None  # the same, as a code
     excluded: tuple[DroppedPoint, ...]
     points_used: int
     fio2_span: float
@@ -330,13 +343,17 @@ def fit_oxygen_response(
     fio2s = [o.point.inspired.fio2 for o in used]
 
     def response(
-        two: ModelFit | None, one: ModelFit | None, refusal: str | None, p: float | None
+        two: ModelFit | None,
+        one: ModelFit | None,
+        refusal: tuple[Refusal, str] | None,
+        p: float | None,
     ) -> OxygenResponse:
         return OxygenResponse(
             conditions=conditions,
             two_parameter=two,
             effective_shunt=one,
-            refusal=refusal,
+            refusal=None if refusal is None else refusal[1],
+            refusal_reason=None if refusal is None else refusal[0],
             excluded=tuple(DroppedPoint(o.point, reason) for o, reason in left_out),
             points_used=len(used),
             fio2_span=max(fio2s) - min(fio2s) if fio2s else 0.0,
@@ -353,7 +370,7 @@ def fit_oxygen_response(
             if ordered
             else "no points"
         )
-        return response(None, None, reason, None)
+        return response(None, None, (Refusal.NO_POINTS, reason), None)
     one_solution = _solve(used, conditions, fit_drop=False)
     one = _model_fit(used, left_out, conditions, one_solution, fit_drop=False)
     refusal = _refusal_before_fit(used, limits)
@@ -855,36 +872,47 @@ def _point_fit(
     )
 
 
-def _refusal_before_fit(used: list[_Observation], limits: IdentifiabilityLimits) -> str | None:
+def _refusal_before_fit(
+    used: list[_Observation], limits: IdentifiabilityLimits
+) -> tuple[Refusal, str] | None:
     if len(used) < 2:
-        return "only one informative point: two parameters need at least two FiO2 levels"
+        return (
+            Refusal.ONE_POINT,
+            "only one informative point: two parameters need at least two FiO2 levels",
+        )
     fio2s = [o.point.inspired.fio2 for o in used]
     if max(fio2s) - min(fio2s) < limits.min_fio2_span:
         return (
+            Refusal.NARROW_SPAN,
             f"all informative points lie within {limits.min_fio2_span:g} of one FiO2 "
-            f"({min(fio2s):.2f}–{max(fio2s):.2f}): the response to oxygen is not seen"
+            f"({min(fio2s):.2f}–{max(fio2s):.2f}): the response to oxygen is not seen",
         )
     return None
 
 
-def _refusal_after_fit(fit: ModelFit, limits: IdentifiabilityLimits) -> str | None:
+def _refusal_after_fit(fit: ModelFit, limits: IdentifiabilityLimits) -> tuple[Refusal, str] | None:
     if not fit.converged:
-        return "the two-parameter fit did not converge"
+        return Refusal.NOT_CONVERGED, "the two-parameter fit did not converge"
     if not (
         math.isfinite(fit.shunt.standard_error) and math.isfinite(fit.vq_drop_mmhg.standard_error)
     ):
-        return "the points cannot separate shunt from V/Q mismatch (their effects coincide)"
+        return (
+            Refusal.NOT_SEPARABLE,
+            "the points cannot separate shunt from V/Q mismatch (their effects coincide)",
+        )
     if fit.shunt.width > limits.max_shunt_range_width:
         return (
+            Refusal.SHUNT_RANGE_WIDE,
             f"the shunt is not identified: its 95 % range would span "
             f"{fit.shunt.low:.0%}–{fit.shunt.high:.0%} "
-            f"(limit {limits.max_shunt_range_width:.0%} wide)"
+            f"(limit {limits.max_shunt_range_width:.0%} wide)",
         )
     if fit.vq_drop_mmhg.width > limits.max_vq_drop_range_width_mmhg:
         return (
+            Refusal.VQ_RANGE_WIDE,
             f"the V/Q term is not identified: its 95 % range would span "
             f"{fit.vq_drop_mmhg.low:.0f}–{fit.vq_drop_mmhg.high:.0f} mmHg "
-            f"(limit {limits.max_vq_drop_range_width_mmhg:.0f} mmHg wide)"
+            f"(limit {limits.max_vq_drop_range_width_mmhg:.0f} mmHg wide)",
         )
     return None
 

@@ -29,6 +29,7 @@ from service.physiology.units import FIO2_LIMITS, mmhg_from_kpa
 
 MIN_POINTS = 3
 FIO2_VARIED = 0.10  # FiO2 range across the gases above which P/F and a/A are confounded
+_FIO2_BOUND = frozenset({"pf_ratio", "arterial_alveolar_ratio"})
 VQ_DROP_CHANGE_MMHG = mmhg_from_kpa(3.0)  # Rowe 2010 (module docstring)
 
 
@@ -122,6 +123,8 @@ def oxygenation_trend(
     """The series of every measure over ``summaries`` (any order), each with its direction,
     and an overall direction: worsening or improving when the measures that moved agree,
     stable when none moved, unclear when they disagree or fewer than three values exist.
+    When FiO2 varied by more than 0.10 across the gases, P/F and a/A (which FiO2 moves by
+    itself) do not take part in the overall direction.
     ``thresholds`` (by measure name, as ``DEFAULT_THRESHOLDS``) lets a rule set set its own.
 
     Raises:
@@ -134,10 +137,16 @@ def oxygenation_trend(
     )
     fio2s = [g.fio2 for g in ordered]
     fio2_range = max(fio2s) - min(fio2s) if fio2s else 0.0
-    judged = [t.direction for t in trends if t.direction is not Direction.UNCLEAR]
+    # P/F and a/A move with FiO2 alone: when it varied they are shown but do not decide.
+    deciding = [t for t in trends if not (fio2_range > FIO2_VARIED and t.measure in _FIO2_BOUND)]
+    judged = [t.direction for t in deciding if t.direction is not Direction.UNCLEAR]
     if not judged:
         overall = Direction.UNCLEAR
-        note = f"fewer than {MIN_POINTS} values of every measure"
+        note = (
+            "no measure that FiO2 does not move has enough values"
+            if fio2_range > FIO2_VARIED
+            else f"fewer than {MIN_POINTS} values of every measure"
+        )
     elif Direction.WORSENING in judged and Direction.IMPROVING in judged:
         overall = Direction.UNCLEAR
         note = "the measures disagree"
@@ -150,7 +159,8 @@ def oxygenation_trend(
     if fio2_range > FIO2_VARIED:
         note += (
             f"; FiO2 varied by {fio2_range:.2f}, and P/F and a/A move with FiO2 alone "
-            "(Karbing 2007): the fitted shunt and ΔPO2 are the better guide"
+            "(Karbing 2007): they are shown but do not decide the course; the fitted shunt "
+            "and ΔPO2 and the venous admixture do"
         )
     return OxygenationTrend(trends, overall, fio2_range, note)
 

@@ -365,3 +365,45 @@ def expected_paco2(*, barometric_mmhg: float, residence: Residence) -> ExpectedP
     require_possible("barometric_mmhg", barometric_mmhg, *PRESSURE_BAROMETRIC_MMHG, "mm[Hg]")
     anchors = RESIDENT_PACO2 if residence is Residence.RESIDENT else VISITOR_PACO2
     return _interpolate(anchors, barometric_mmhg)
+
+
+# --- The V/Q term of a healthy lung -----------------------------------------------------------
+
+
+def vq_drop_upper_limit_mmhg(
+    *, age_years: float, respiratory_quotient: float = c.DEFAULT_RESPIRATORY_QUOTIENT
+) -> float:
+    """The V/Q term (ΔPO2, mm[Hg]) of the healthy lung at the lower limit of normal for this
+    age (``healthy_lung``): the largest ΔPO2 a healthy person of this age shows, by the same
+    two anchors as the normal A-a gradient (Cerveri 1995 on air; healthy men on 100 % oxygen).
+    About 9 mmHg at 18 years, 19 at 50 and 32 at 74; 28 from 75 on, where Cerveri's
+    reference no longer depends on age.
+
+    Raises:
+        ImpossibleValueError: an impossible age.
+    """
+    age = round(_reference_age(age_years))
+    return healthy_lung(age, True, respiratory_quotient).vq_drop_mmhg
+
+
+def vq_drop_upper_limit_range_mmhg(
+    *,
+    ages: tuple[float, float],
+    respiratory_quotient: float = c.DEFAULT_RESPIRATORY_QUOTIENT,
+) -> tuple[float, float]:
+    """(narrowest, widest) ``vq_drop_upper_limit_mmhg`` over the ages ``ages`` (low, high):
+    the limits to use when the age is not known. The limit rises with age up to 74 and is
+    constant from 75 (both anchors are linear in age there; the tests check every whole year),
+    so the extremes lie at the ends of the range and at 74.
+
+    Raises:
+        ImpossibleValueError: an impossible age.
+    """
+    low, high = ages
+    last_rising = CERVERI_ELDERLY_FROM_YEARS - 1.0
+    candidates = [low, high] + ([last_rising] if low <= last_rising <= high else [])
+    limits = [
+        vq_drop_upper_limit_mmhg(age_years=a, respiratory_quotient=respiratory_quotient)
+        for a in candidates
+    ]
+    return min(limits), max(limits)

@@ -16,6 +16,12 @@ A fixture is ``NAME.bundle.json`` (a FHIR Bundle) with ``NAME.expected.yaml`` be
       rules_silent: [shunt-likely]            # rule ids whose condition must not be true
       derived:                        # canonical units (mm[Hg], 1, %, mL/dL, mmol/L)
         alveolar-po2: {value: 83.8, unit: "mm[Hg]", tolerance: 0.5}
+      oxygen_response:                # the titration fit (absent: none expected to be checked)
+        model: shunt-and-vq           # or effective-shunt, or none (no titration at all)
+        refusal: vq-range-wide        # why the two-parameter fit was refused
+        points: 5                     # points the fit used
+        values:                       # fit facts, hyphenated, in the catalogue unit
+          fitted-shunt: {value: 22.0, unit: "%", tolerance: 2.0}
     known_gap: null                   # or a reason: the case is then a strict expected failure
 
 ``findings`` is closed-world: a finding the result raises that is neither listed there nor in
@@ -36,6 +42,7 @@ from typing import Literal
 import yaml
 from pydantic import BaseModel, ConfigDict, Field, ValidationError
 
+from service.assess.catalogue import DEFAULT_CATALOGUE
 from service.assess.result import Assessment, ResultStatus
 from service.engine import Grade, HypoxaemiaStatus, Mechanism, Pattern, Truth
 
@@ -52,6 +59,15 @@ class ExpectedQuantity(_Strict):
     tolerance: float = Field(ge=0)
 
 
+class ExpectedResponse(_Strict):
+    """The checks of the oxygen-response fit; every key is optional."""
+
+    model: Literal["shunt-and-vq", "effective-shunt", "none"] | None = None
+    refusal: str | None = None
+    points: int | None = Field(None, ge=0)
+    values: dict[str, ExpectedQuantity] = Field(default_factory=dict)
+
+
 class Expectation(_Strict):
     """The checks of one case; every key is optional."""
 
@@ -66,6 +82,7 @@ class Expectation(_Strict):
     rules_fire: list[str] = Field(default_factory=list)
     rules_silent: list[str] = Field(default_factory=list)
     derived: dict[str, ExpectedQuantity] = Field(default_factory=dict)
+    oxygen_response: ExpectedResponse | None = None
 
 
 class ExpectedOutcome(_Strict):
@@ -148,6 +165,7 @@ def check(expectation: Expectation, a: Assessment) -> list[Mismatch]:
         + _check_findings(expectation, a)
         + _check_rules(expectation, a)
         + _check_derived(expectation, a)
+        + _check_response(expectation.oxygen_response, a)
     )
 
 
@@ -208,6 +226,36 @@ def _check_derived(expectation: Expectation, a: Assessment) -> list[Mismatch]:
         elif abs(d.value - want.value) > want.tolerance:
             expected = f"{_fmt(want.value)} ± {want.tolerance:g}"
             rows.append(Mismatch(name, expected, _fmt(d.value), d.unit))
+    return rows
+
+
+def _check_response(want: ExpectedResponse | None, a: Assessment) -> list[Mismatch]:
+    if want is None:
+        return []
+    titration = a.titration
+    facts = titration.facts if titration is not None else {}
+    model = facts.get("titration_model", "none")
+    rows: list[Mismatch] = []
+    if want.model is not None and want.model != model:
+        rows.append(Mismatch("oxygen-response model", want.model, str(model)))
+    refusal = facts.get("titration_refusal")
+    if want.refusal is not None and want.refusal != refusal:
+        rows.append(Mismatch("oxygen-response refusal", want.refusal, str(refusal or "none")))
+    points = facts.get("titration_points")
+    if want.points is not None and (not isinstance(points, float) or want.points != int(points)):
+        rows.append(Mismatch("oxygen-response points", str(want.points), str(points or 0)))
+    for name, quantity in want.values.items():
+        fact = name.replace("-", "_")
+        value = facts.get(fact)
+        spec = DEFAULT_CATALOGUE.get(fact)
+        unit = spec.unit if spec is not None else None
+        if not isinstance(value, float):
+            rows.append(Mismatch(name, _fmt(quantity.value), "absent", quantity.unit))
+        elif unit != quantity.unit:
+            rows.append(Mismatch(f"{name} unit", quantity.unit, str(unit)))
+        elif abs(value - quantity.value) > quantity.tolerance:
+            expected = f"{_fmt(quantity.value)} ± {quantity.tolerance:g}"
+            rows.append(Mismatch(name, expected, _fmt(value), quantity.unit))
     return rows
 
 

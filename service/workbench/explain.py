@@ -19,12 +19,27 @@ from service.assess.partition import (
     ShownPartition,
     assessment_partitions,
 )
+from service.assess.response_view import (
+    FIO2_SOURCE_WORDS,
+    KIND_WORDS,
+    MODEL_WORDS,
+    applicable_band,
+    band_words,
+    right_shift_mmhg,
+)
 from service.assess.result import CAUTION, Assessment, MechanismVerdict
+from service.assess.titration import FITTED_FACTS, Bounds, Titration
 from service.config import Settings
 from service.engine import Evaluation, Grade, Truth
+from service.engine.ruleset import GasExchangeOutcome, MechanismOutcome
 from service.intake.model import Intake, Measurement
+from service.physiology.oxygen_prediction import CAUTION as MODEL_CAUTION
+from service.physiology.oxygenation_trend import OxygenationTrend
+from service.physiology.titration import MeasuredKind
+from service.physiology.units import kpa_from_mmhg
 
 HELD = "the same grade at every end of the ranges"
+_FITTED = frozenset(spec.name for spec in FITTED_FACTS)
 
 
 def _measurement(m: Measurement) -> dict[str, Any]:
@@ -158,6 +173,170 @@ def _uncertain(a: Assessment) -> dict[str, Any]:
     }
 
 
+def _bounds(b: Bounds | None, low: float, high: float) -> dict[str, Any] | None:
+    if b is None:
+        return None
+    return {
+        "value": b.value,
+        "low": low,
+        "high": high,
+        "least": b.least,
+        "most": b.most,
+        "widened_by": list(b.widened_by),
+    }
+
+
+def _fit_rules(a: Assessment) -> list[dict[str, Any]]:
+    """Every rule that reads a fact of the fit: its state, what it decided (or which rules
+    outranked it), its rationale."""
+    deciding = {rule: m.code for m in a.mechanisms for rule in m.rules}
+    by_mechanism = {m.code: m.rules for m in a.mechanisms}
+    found = {f.rule for f in a.findings if f.rule}
+    out = []
+    for r in a.evaluation.results:
+        if r.shadow or not any(leaf.fact in _FITTED for leaf in r.trace):
+            continue
+        outcome = r.rule.outcome
+        decided: str | None = None
+        outranked: list[str] = []
+        if r.ref in deciding and isinstance(outcome, MechanismOutcome):
+            decided = f"{outcome.mechanism}: {outcome.grade}"
+        elif r.ref in found:
+            decided = "a finding"
+        elif isinstance(outcome, GasExchangeOutcome) and r.state is Truth.TRUE:
+            decided = f"gas exchange: {outcome.status}"
+        elif isinstance(outcome, MechanismOutcome) and r.state is Truth.TRUE:
+            outranked = list(by_mechanism.get(outcome.mechanism, ()))
+        out.append(
+            {
+                "rule": r.ref,
+                "state": r.state.value,
+                "decided": decided,
+                "outranked_by": outranked,
+                "rationale": r.rationale if r.state is Truth.TRUE else None,
+            }
+        )
+    return out
+
+
+def _response(a: Assessment) -> dict[str, Any] | None:
+    t: Titration | None = a.titration
+    if t is None:
+        return None
+    response, fit = t.response, t.fit
+    two, one = response.two_parameter, response.effective_shunt
+    points = [
+        {
+            "time": p.point.time.isoformat(),
+            "observation": p.point.reference,
+            "kind": p.point.kind.value,
+            "value": p.point.value,
+            "unit": "mm[Hg]" if p.point.kind is MeasuredKind.PAO2 else "1",
+            "fio2": p.point.inspired.fio2,
+            "fio2_range": [p.point.inspired.low, p.point.inspired.high],
+            "fio2_source": p.point.inspired.source.value,
+            "readings": p.point.readings,
+            "used": p.used,
+            "predicted": p.predicted,
+            "standardised_residual": p.standardised_residual,
+            "paco2": p.paco2_mmhg,
+            "paco2_assumed": p.paco2_assumed,
+            "note": p.note,
+        }
+        for p in (fit.points if fit is not None else ())
+    ]
+    prediction = t.prediction
+    choice = applicable_band(a)
+    c = response.conditions
+    return {
+        "model": fit.model.value if fit is not None else None,
+        "model_label": MODEL_WORDS[fit.model] if fit is not None else None,
+        "refusal": response.refusal,
+        "points": points,
+        "left_out": [
+            {
+                "time": d.time.isoformat(),
+                "observation": d.reference,
+                "kind": d.kind.value,
+                "value": d.value,
+                "fio2": d.fio2,
+                "reason": d.reason,
+            }
+            for d in t.dropped
+        ],
+        "points_used": response.points_used,
+        "fio2_levels": t.fio2_levels,
+        "fio2_span": response.fio2_span,
+        "shunt": _bounds(t.shunt, two.shunt.low, two.shunt.high) if two else None,
+        "vq_term_mmhg": (
+            _bounds(t.vq_drop, two.vq_drop_mmhg.low, two.vq_drop_mmhg.high) if two else None
+        ),
+        "vq_term_healthy_limit_mmhg": list(t.vq_drop_limit_mmhg),
+        "right_shift_on_air_mmhg": right_shift_mmhg(t),
+        "effective_shunt": _bounds(t.effective_shunt, one.shunt.low, one.shunt.high)
+        if one
+        else None,
+        "chi_square": fit.chi_square if fit is not None else None,
+        "degrees_of_freedom": fit.degrees_of_freedom if fit is not None else None,
+        "fit_probability": fit.fit_probability if fit is not None else None,
+        "vq_term_p_value": response.vq_term_p_value,
+        "conditions": {
+            "haemoglobin_g_dl": c.haemoglobin_g_dl,
+            "haemoglobin_measured": c.haemoglobin_measured,
+            "av_difference_ml_dl": c.av_difference_ml_dl,
+            "av_difference_measured": c.av_difference_measured,
+            "barometric_pressure_mmhg": c.barometric_mmhg,
+            "prediction_paco2_mmhg": response.prediction_paco2_mmhg,
+            "prediction_paco2_assumed": response.prediction_paco2_assumed,
+        },
+        "rules": _fit_rules(a),
+        "predictions": [
+            {
+                "fio2": p.fio2,
+                "spo2": p.saturation,
+                "spo2_range": [p.saturation_low, p.saturation_high],
+                "pao2": p.pao2_mmhg,
+                "pao2_range": [p.pao2_low_mmhg, p.pao2_high_mmhg],
+            }
+            for p in (prediction.curve if prediction is not None else ())
+        ],
+        "band_choice": choice.reason,
+        "targets": [
+            {
+                "band": band_words(x),
+                "applies": None if choice.band is None else x.band is choice.band,
+                "fio2": x.fio2,
+                "fio2_range": [x.fio2_low, x.fio2_high],
+                "fio2_ceiling": x.fio2_ceiling,
+                "note": x.note,
+            }
+            for x in (prediction.targets if prediction is not None else ())
+        ],
+        "caution": MODEL_CAUTION,
+    }
+
+
+def _trend(trend: OxygenationTrend | None) -> dict[str, Any] | None:
+    if trend is None:
+        return None
+    return {
+        "direction": trend.direction.value,
+        "note": trend.note,
+        "fio2_range": trend.fio2_range,
+        "measures": [
+            {
+                "measure": m.measure,
+                "unit": m.unit,
+                "direction": m.direction.value,
+                "change": m.change,
+                "threshold": m.threshold.source,
+                "series": [[t.isoformat(), v] for t, v in m.series],
+            }
+            for m in trend.measures
+        ],
+    }
+
+
 def explain_json(intake: Intake, a: Assessment, *, settings: Settings) -> dict[str, Any]:
     """The explanation as plain data (for tools), the verdict first. ``settings`` are those
     ``a`` was assessed with."""
@@ -166,6 +345,8 @@ def explain_json(intake: Intake, a: Assessment, *, settings: Settings) -> dict[s
         "verdict": _verdict(a),
         "partition": _partitions(a, settings),
         "uncertain_inputs": _uncertain(a),
+        "oxygen_response": _response(a),
+        "trend": _trend(a.trend),
         "ruleset": a.ruleset_identity,
         "ruleset_hash": a.ruleset_hash,
         "measurements": [_measurement(m) for m in intake.measurements],
@@ -256,12 +437,143 @@ def _uncertain_lines(u: dict[str, Any]) -> list[str]:
     return out
 
 
+_SOURCES = {source.value: source for source in FIO2_SOURCE_WORDS}
+
+
+def _value(kind: str, value: float) -> str:
+    return f"{value:.0f} mmHg" if kind == "pao2" else f"{value:.0%}"
+
+
+def _range(name: str, b: dict[str, Any] | None, scale: float, unit: str) -> str:
+    if b is None:
+        return ""
+    widened = f" ({'; '.join(b['widened_by'])})" if b["widened_by"] else ""
+    return (
+        f"  {name} {b['value'] * scale:.1f}{unit}: 95 % range {b['low'] * scale:.1f}–"
+        f"{b['high'] * scale:.1f}, with the assumptions {b['least'] * scale:.1f}–"
+        f"{b['most'] * scale:.1f}{widened}"
+    )
+
+
+def _point_lines(r: dict[str, Any]) -> list[str]:
+    out = ["  points (oldest first; residual in expected errors):"]
+    for p in r["points"]:
+        low, high = p["fio2_range"]
+        fio2 = f"{p['fio2']:.2f}" + (f" ({low:.2f}–{high:.2f})" if high > low else "")
+        source = FIO2_SOURCE_WORDS[_SOURCES[p["fio2_source"]]]
+        kind = KIND_WORDS[MeasuredKind(p["kind"])]
+        runs = f", {p['readings']} readings" if p["readings"] > 1 else ""
+        used = "used" if p["used"] else f"not used: {p['note']}"
+        paco2 = " (PaCO2 assumed)" if p["paco2_assumed"] else ""
+        out.append(
+            f"    {p['time']}  {kind} {_value(p['kind'], p['value']):>8} on FiO2 {fio2} "
+            f"[{source}{runs}]  model {_value(p['kind'], p['predicted'])}, residual "
+            f"{p['standardised_residual']:+.1f}; {used}{paco2}"
+        )
+    for d in r["left_out"]:
+        fio2 = "unknown FiO2" if d["fio2"] is None else f"FiO2 {d['fio2']:.2f}"
+        out.append(
+            f"    {d['time']}  {KIND_WORDS[MeasuredKind(d['kind'])]} "
+            f"{_value(d['kind'], d['value'])} on {fio2}: left out, {d['reason']}"
+        )
+    return out
+
+
+def _rule_lines(rules: list[dict[str, Any]]) -> list[str]:
+    out = ["  how the rules used it (rules that read the fit and fired):"]
+    fired = [rule for rule in rules if rule["state"] == Truth.TRUE.value]
+    for rule in fired:
+        if rule["decided"]:
+            decided = f"decided {rule['decided']}"
+        elif rule["outranked_by"]:
+            decided = "outranked by " + ", ".join(rule["outranked_by"])
+        else:
+            decided = "fired (context for another rule)"
+        out.append(f"    {rule['rule']} — {decided}")
+        if rule["rationale"] and rule["decided"]:
+            out.append(f"      {rule['rationale']}")
+    if len(fired) < len(rules):
+        out.append(f"    ({len(rules) - len(fired)} more read it and did not fire: see Rules)")
+    return out
+
+
+def _response_lines(r: dict[str, Any] | None) -> list[str]:
+    if r is None:
+        return ["Response to oxygen: no titration (no points on two or more FiO2s)"]
+    out = [
+        f"Response to oxygen: {r['points_used']} points on {r['fio2_levels']} FiO2 levels, span "
+        f"{r['fio2_span']:.2f}",
+        *_point_lines(r),
+    ]
+    if r["model"] is None:
+        return [*out, f"  nothing fitted: {r['refusal']}"]
+    out.append(f"  model: {r['model_label']}")
+    if r["refusal"]:
+        out.append(f"  two-parameter fit refused: {r['refusal']}")
+    for line in (
+        _range("shunt", r["shunt"], 100.0, " %"),
+        _range("V/Q term", r["vq_term_mmhg"], 1.0, " mmHg"),
+        _range("effective shunt", r["effective_shunt"], 100.0, " %"),
+    ):
+        if line:
+            out.append(line)
+    if r["shunt"] is not None:
+        low, high = r["vq_term_healthy_limit_mmhg"]
+        limit = f"{high:.0f}" if low == high else f"{low:.0f}–{high:.0f} (age not known)"
+        out.append(f"  healthy V/Q term for age up to {limit} mmHg")
+        if r["right_shift_on_air_mmhg"] is not None:
+            shift = r["right_shift_on_air_mmhg"]
+            kpa = kpa_from_mmhg(shift)
+            out.append(f"  right shift on air (PIO2 − Pc'O2): {shift:.0f} mmHg ({kpa:.1f} kPa)")
+    probability = (
+        "no spare points to test it"
+        if r["fit_probability"] is None
+        else f"probability {r['fit_probability']:.3g}"
+    )
+    out.append(
+        f"  fit: chi-square {r['chi_square']:.2f} on {r['degrees_of_freedom']} degrees of "
+        f"freedom, {probability}"
+    )
+    c = r["conditions"]
+    out.append(
+        f"  conditions: Hb {c['haemoglobin_g_dl']:g} g/dL "
+        f"({'measured' if c['haemoglobin_measured'] else 'assumed'}), a-v difference "
+        f"{c['av_difference_ml_dl']:.1f} mL/dL "
+        f"({'measured' if c['av_difference_measured'] else 'assumed'}), PB "
+        f"{c['barometric_pressure_mmhg']:.0f} mmHg"
+    )
+    out += _rule_lines(r["rules"])
+    if r["predictions"]:
+        out.append("  predicted (model estimate):")
+        out.append("    FiO2  " + " ".join(f"{p['fio2']:>5.2f}" for p in r["predictions"]))
+        out.append("    SpO2  " + " ".join(f"{p['spo2']:>5.0%}" for p in r["predictions"]))
+        out.append("    PaO2  " + " ".join(f"{p['pao2']:>5.0f}" for p in r["predictions"]))
+        out.append(f"  target band: {r['band_choice']}")
+        for x in r["targets"]:
+            applies = " (applies)" if x["applies"] else ""
+            out.append(f"    {x['band']}{applies}: {x['note']}")
+    out.append(f"  {r['caution']}")
+    return out
+
+
+def _trend_lines(t: dict[str, Any] | None) -> list[str]:
+    if t is None:
+        return ["Trend: fewer than three arterial gases"]
+    out = [f"Trend over the gases: {t['direction']} ({t['note']})"]
+    for m in t["measures"]:
+        values = ", ".join(f"{v:.3g}" for _, v in m["series"]) or "none"
+        out.append(f"  {m['measure']:<24} {m['direction']:<10} {values}  [{m['threshold']}]")
+    return out
+
+
 def explain_text(intake: Intake, a: Assessment, *, settings: Settings) -> str:
     """The explanation for a terminal, the verdict first."""
     data = explain_json(intake, a, settings=settings)
     out = _verdict_lines(data["verdict"])
     out += ["", *_partition_lines(data["partition"])]
     out += ["", *_uncertain_lines(data["uncertain_inputs"])]
+    out += ["", *_response_lines(data["oxygen_response"])]
+    out += ["", *_trend_lines(data["trend"])]
     out += ["", f"Rule set {data['ruleset']} (sha256 {data['ruleset_hash'][:16]}…)", "", "Read"]
     for m in data["measurements"]:
         sent = f"  (sent {_fmt(m['sent']['value'])} {m['sent']['unit']})" if "sent" in m else ""

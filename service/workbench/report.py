@@ -12,12 +12,23 @@ from html import escape
 
 from service import __version__
 from service.assess.partition import PART_LABELS, PART_MEANINGS, assessment_partitions
+from service.assess.response_view import (
+    FIO2_SOURCE_WORDS,
+    KIND_WORDS,
+    applicable_band,
+    band_words,
+)
+from service.assess.response_view import summary_line as response_line
 from service.assess.result import CAUTION, Assessment, Finding, MechanismVerdict
+from service.assess.titration import Titration
 from service.physiology.constants import WATER_VAPOUR_TEXTBOOK_MMHG
+from service.physiology.oxygen_prediction import CAUTION as CAUTION_MODEL
+from service.physiology.titration import MeasuredKind
 from service.runtime import Runtime
 
 from .cascade import Cascade, CascadeInput, build_cascade, cascade_svg, signed
 from .expectations import Mismatch
+from .response_chart import chart_data, response_svg
 from .runner import CaseResult, summary_line
 from .waterfall import waterfall_svg
 
@@ -35,6 +46,13 @@ STATUS_WORDS = {
     "gap-closed": ("!", "gap closed: the known gap now passes"),
 }
 UNIT_DISPLAY = {"mm[Hg]": "mmHg", "1": "", "Cel": "°C"}
+TREND_NAMES = {
+    "pf_ratio": "P/F (mmHg)",
+    "arterial_alveolar_ratio": "a/A",
+    "venous_admixture": "venous admixture (fraction)",
+    "shunt": "fitted shunt (fraction)",
+    "vq_drop": "fitted V/Q term (mmHg)",
+}
 
 CSS = """
 :root { --ink: #1f2a33; --muted: #5a6670; --rule: #d5dadf; --paper: #fbfaf7;
@@ -79,7 +97,7 @@ details summary { cursor: pointer; color: var(--muted); }
 details ul { margin: .2rem 0; padding-left: 1.2rem; font-size: .9em; }
 figure { margin: .4rem 0; }
 figure svg { display: block; width: 100%; max-width: 820px; height: auto; }
-figure svg.deficit-chart { max-width: 680px; }
+figure svg.deficit-chart, figure svg.response-chart { max-width: 680px; }
 figcaption { font-size: .9rem; color: var(--muted); max-width: 820px; }
 figcaption ul { margin: .2rem 0; padding-left: 1.2rem; }
 footer { color: var(--muted); font-size: .85rem; padding-bottom: 2rem; }
@@ -360,6 +378,171 @@ def _deficit(a: Assessment, runtime: Runtime, index: int, name: str) -> str:
     return "".join(parts)
 
 
+def _fit_rows(t: Titration) -> list[list[str]]:
+    two, one = t.response.two_parameter, t.response.effective_shunt
+    rows: list[list[str]] = []
+    if two is not None and t.shunt is not None and t.vq_drop is not None:
+        s, d = t.shunt, t.vq_drop
+        rows += [
+            [
+                "Shunt",
+                f"{s.value:.1%}",
+                f"{two.shunt.low:.1%} – {two.shunt.high:.1%}",
+                f"{s.least:.1%} – {s.most:.1%}",
+                _e("; ".join(s.widened_by) or "—"),
+            ],
+            [
+                "V/Q term (mmHg)",
+                f"{d.value:.0f}",
+                f"{two.vq_drop_mmhg.low:.0f} – {two.vq_drop_mmhg.high:.0f}",
+                f"{d.least:.0f} – {d.most:.0f}",
+                _e("; ".join(d.widened_by) or "—"),
+            ],
+        ]
+    if one is not None and t.effective_shunt is not None:
+        e = t.effective_shunt
+        rows.append(
+            [
+                "Effective shunt (one parameter)",
+                f"{e.value:.1%}",
+                f"{one.shunt.low:.1%} – {one.shunt.high:.1%}",
+                f"{e.least:.1%} – {e.most:.1%}",
+                _e("; ".join(e.widened_by) or "—"),
+            ]
+        )
+    return rows
+
+
+def _response_tables(a: Assessment, t: Titration) -> str:
+    fit = t.fit
+    headers = ["Parameter", "Fitted", "95 % range", "With the assumptions", "Assumptions"]
+    parts = [
+        _table(
+            "The fitted values: each with its 95 % range, and the range widened by what the "
+            "fit assumed.",
+            headers,
+            _fit_rows(t),
+            numeric={1, 2, 3},
+        )
+    ]
+    rows = []
+    for p in fit.points if fit is not None else ():
+        point = p.point
+        pao2 = point.kind is MeasuredKind.PAO2
+        shown = f"{point.value:.0f} mmHg" if pao2 else f"{point.value:.0%}"
+        model = f"{p.predicted:.0f} mmHg" if pao2 else f"{p.predicted:.0%}"
+        rows.append(
+            [
+                _e(point.time.isoformat()),
+                _e(KIND_WORDS[point.kind]),
+                _e(shown),
+                _e(f"{point.inspired.fio2:.2f}"),
+                _e(FIO2_SOURCE_WORDS[point.inspired.source]),
+                _e(model),
+                _e(f"{p.standardised_residual:+.1f}"),
+                _e("used" if p.used else f"not used: {p.note}"),
+            ]
+        )
+    for d in t.dropped:
+        shown = f"{d.value:.0f} mmHg" if d.kind is MeasuredKind.PAO2 else f"{d.value:.0%}"
+        fio2 = "—" if d.fio2 is None else f"{d.fio2:.2f}"
+        rows.append(
+            [
+                _e(d.time.isoformat()),
+                _e(KIND_WORDS[d.kind]),
+                _e(shown),
+                _e(fio2),
+                "—",
+                "—",
+                "—",
+                _e(f"left out: {d.reason}"),
+            ]
+        )
+    parts.append(
+        _table(
+            "The points, oldest first: the model's value at each and the residual in expected "
+            "errors.",
+            ["Time", "What", "Value", "FiO2", "FiO2 from", "Model", "Residual", "Use"],
+            rows,
+            numeric={2, 3, 5, 6},
+        )
+    )
+    prediction = t.prediction
+    if prediction is not None:
+        rows = [
+            [
+                _e(f"{p.fio2:.2f}"),
+                _e(f"{p.saturation:.0%} ({p.saturation_low:.0%}–{p.saturation_high:.0%})"),
+                _e(f"{p.pao2_mmhg:.0f} ({p.pao2_low_mmhg:.0f}–{p.pao2_high_mmhg:.0f})"),
+            ]
+            for p in prediction.curve
+        ]
+        parts.append(
+            _table(
+                "Predicted (model estimate, 95 % range in brackets).",
+                ["FiO2", "SaO2 (≈ SpO2)", "PaO2 (mmHg)"],
+                rows,
+                numeric={0, 1, 2},
+            )
+        )
+        choice = applicable_band(a)
+        items = "".join(
+            f"<li>{_e(band_words(x))}"
+            f"{' (applies)' if choice.band is x.band else ''}: {_e(x.note)}</li>"
+            for x in prediction.targets
+        )
+        parts.append(f"<p>Target band: {_e(choice.reason)}.</p><ul>{items}</ul>")
+    return "".join(parts)
+
+
+def _response(a: Assessment, index: int, name: str) -> str:
+    t = a.titration
+    heading = "<h3>Response to oxygen: shunt and V/Q term</h3>"
+    if t is None:
+        return heading + '<p class="muted">No titration: no points on two or more FiO2s.</p>'
+    note = f"<p>{_e(response_line(t))}.</p>"
+    if t.response.refusal:
+        note += f"<p>Two-parameter fit not reported: {_e(t.response.refusal)}.</p>"
+    figures = []
+    for quantity, words in (("saturation", "Saturation"), ("pao2", "PaO2")):
+        data = chart_data(t, age_years=a.index.number("age"), quantity=quantity)
+        chart_id = f"response-{index}-{quantity}"
+        svg = response_svg(data, title=f"{words} against FiO2: {name}", chart_id=chart_id)
+        notes = "".join(f"<li>{_e(n)}</li>" for n in data.notes)
+        caption = (
+            f"<figcaption>{_e(words)} against FiO2: the patient's points (circles SpO2, squares "
+            "gases, crosses left out), the fitted curve (thick solid line, hatched 95 % range), "
+            "a healthy lung of the same age on the same gas (dashed) and iso-shunt lines "
+            f"(dotted, each named). <ul>{notes}</ul></figcaption>"
+        )
+        figures.append(f"<figure>{svg}{caption}</figure>")
+    caution = (
+        f'<p class="caution" role="note"><strong>Model estimate.</strong> {_e(CAUTION_MODEL)}</p>'
+    )
+    return heading + caution + note + "".join(figures) + _response_tables(a, t) + _trend(a)
+
+
+def _trend(a: Assessment) -> str:
+    trend = a.trend
+    if trend is None:
+        return ""
+    rows = [
+        [
+            _e(TREND_NAMES.get(m.measure, m.measure)),
+            _e(m.direction.value),
+            _e(", ".join(f"{v:.3g}" for _, v in m.series) or "—"),
+            _e(m.threshold.source),
+        ]
+        for m in trend.measures
+    ]
+    return "<h3>Trend over the gases</h3>" + _table(
+        f"Course over the arterial gases: {trend.direction.value} ({trend.note}).",
+        ["Measure", "Direction", "Values, oldest first", "Threshold"],
+        rows,
+        numeric=set(),
+    )
+
+
 def _case(result: CaseResult, runtime: Runtime, index: int) -> str:
     case = result.case
     parts = [
@@ -387,6 +570,7 @@ def _case(result: CaseResult, runtime: Runtime, index: int) -> str:
             _findings(a.findings),
             _numbers(a),
             _cascade(a, runtime, index, case.name),
+            _response(a, index, case.name),
         ]
     parts.append("</section>")
     return "\n".join(parts)

@@ -23,6 +23,7 @@ from service.assess.assess import windows
 from service.assess.derive import GasFacts, derive_gas_facts
 from service.assess.pairing import pair_gases
 from service.assess.serial import serial_facts
+from service.assess.titration import assess_titration
 from service.config import Settings
 from service.engine import Mechanism, RuleSet, evaluate
 from service.engine.facts import FactValue
@@ -134,11 +135,37 @@ def _measurements(rng: random.Random, time: datetime) -> list[Measurement]:
     return found
 
 
+def _titration(rng: random.Random) -> list[Measurement]:
+    """Two to six FiO2 steps (measured, or a nasal cannula's flow) in the two hours before
+    the gas, an SpO2 reading on each: the points of an oxygen titration."""
+    found: list[Measurement] = []
+    steps = rng.randint(2, 6)
+    measured = rng.random() < 0.7
+    for i in range(steps):
+        at = WHEN - timedelta(minutes=110 - i * 100 / steps)
+        label = f"titration-{i}"
+        if measured:
+            fio2 = rng.choice((0.21, 0.24, 0.28, 0.31, 0.35, 0.4, 0.5, 0.6, 0.8, 1.0))
+            found.append(Measurement(_Q.FIO2, fio2, at, Source(f"Observation/{label}", label)))
+        else:
+            device = OxygenDevice.NASAL_CANNULA.value
+            found.append(Measurement(_Q.OXYGEN_DEVICE, device, at, Source("Observation/d", "d")))
+            flow = float(rng.randint(1, 6))
+            found.append(Measurement(_Q.OXYGEN_FLOW, flow, at, Source("Observation/f", "f")))
+        spo2 = _value(rng, (0.7, 1.0), (0.88, 0.92, 0.97))
+        found.append(
+            Measurement(_Q.SPO2, spo2, at + timedelta(minutes=8), Source("Observation/s", "s"))
+        )
+    return found
+
+
 @dataclass(frozen=True, slots=True)
 class Generated:
-    """One generated patient: every gas's facts (index first) as the service derives them."""
+    """One generated patient: every gas's facts (index first) as the service derives them,
+    and the facts fitted to its titration when its values lie on two or more FiO2s."""
 
     gases: list[GasFacts]
+    fitted: dict[str, FactValue]
 
     @property
     def facts(self) -> dict[str, FactValue]:
@@ -161,16 +188,26 @@ def generated(seed: int, count: int, *, settings: Settings) -> Iterator[Generate
                 for m in _measurements(rng, earlier)
                 if m.quantity in (_Q.ARTERIAL_PO2, _Q.ARTERIAL_PCO2, _Q.FIO2, _Q.HAEMOGLOBIN)
             ]
+        if rng.random() < 0.2:  # an oxygen titration before it: SpO2 on FiO2 steps
+            measurements += _titration(rng)
         born = today - timedelta(days=365.25 * rng.uniform(18, 95))
         intake = Intake(Patient("Patient/generated", None if rng.random() < 0.3 else born, None))
         intake.measurements.extend(measurements)
         pairing = pair_gases(intake, windows=windows(settings))
-        yield Generated(
-            [
-                derive_gas_facts(g, patient=intake.patient, settings=settings, today=today)
-                for g in pairing.gases
-            ]
+        gases = [
+            derive_gas_facts(g, patient=intake.patient, settings=settings, today=today)
+            for g in pairing.gases
+        ]
+        titration = assess_titration(
+            intake,
+            index=gases[0].facts,
+            index_time=gases[0].gas.time,
+            windows=windows(settings),
+            settings=settings,
+            by_quantity=pairing.by_quantity,
+            predict=True,
         )
+        yield Generated(gases, titration.facts if titration is not None else {})
 
 
 def undecided(
@@ -181,7 +218,12 @@ def undecided(
     an FiO2 or an age missing, or present at any value)."""
     holes: dict[Mechanism, Hole] = {}
     for patient in generated(seed, count, settings=settings):
-        facts = {**patient.facts, **serial_facts(patient.gases, settings=settings), **_FLAGS}
+        facts = {
+            **patient.facts,
+            **serial_facts(patient.gases, settings=settings),
+            **patient.fitted,
+            **_FLAGS,
+        }
         evaluation = evaluate(ruleset, facts)
         for item in evaluation.verdict.mechanisms:
             if not item.deciding and item.mechanism not in holes:

@@ -1,11 +1,17 @@
 """Benchmark of the in-process assess path (a separate command, not a test).
 
-    python -m tests.benchmarks.assess [--rounds N] [--bulk N]
+    python -m tests.benchmarks.assess [--rounds N] [--bulk N] [--titration-only]
 
 Prints, measured in the same run on the same bytes: the median time of ``orjson.loads`` (the
 floor), of the whole assess path (bytes → result bytes), and of full ``fhir.resources`` R4B
 validation of the input (what strict mode adds), each as a ratio to the floor; then NDJSON bulk
 throughput with 1 and 2 worker processes.
+
+Then what the oxygen-response fit adds: the assess path of each titration fixture (and of the
+demo Bundle, which has no titration) with the titration as shipped and with it switched off
+(``assess_titration`` and the trend's fits replaced by a function that finds none), in CPU time
+of this process (steadier than wall time on a shared machine), the difference in µs and as a
+ratio to the floor.
 """
 
 from __future__ import annotations
@@ -14,6 +20,7 @@ import argparse
 import statistics
 import time
 from collections.abc import Callable
+from datetime import UTC, datetime
 from pathlib import Path
 
 import orjson
@@ -41,13 +48,92 @@ def median_us(
     return statistics.median(samples)
 
 
+TITRATIONS = Path(__file__).resolve().parents[2] / "fixtures" / "cases" / "titration"
+
+
+def _titration_alone(runtime: Runtime, data: object) -> Callable[[], object]:
+    """``assess_titration`` on one Bundle's record, everything before it done once: the
+    points, the fit, its predictions and its facts."""
+    from service.assess.assess import titration_rules, windows
+    from service.assess.derive import derive_gas_facts
+    from service.assess.pairing import pair_gases
+    from service.assess.titration import assess_titration
+    from service.fhir.extract import read_bundle
+
+    settings = runtime.settings
+    intake = read_bundle(data)
+    pairing = pair_gases(intake, windows=windows(settings))
+    index = derive_gas_facts(
+        pairing.index, patient=intake.patient, settings=settings, today=datetime.now(UTC).date()
+    )
+    rules = titration_rules(runtime.ruleset)
+
+    def run() -> object:
+        return assess_titration(
+            intake,
+            index=index.facts,
+            index_time=index.gas.time,
+            windows=windows(settings),
+            settings=settings,
+            rules=rules,
+            by_quantity=pairing.by_quantity,
+        )
+
+    return run
+
+
+def titration_costs(runtime: Runtime, rounds: int, floor: float) -> None:
+    """The assess path of each titration fixture with and without the titration, and the
+    titration alone (CPU time)."""
+    import service.assess.assess as assess_module
+    import service.assess.trend as trend_module
+
+    def none(*_: object, **__: object) -> None:
+        return None
+
+    bundles = [BUNDLE, *sorted(TITRATIONS.glob("*.bundle.json"))]
+    print("the oxygen-response fit in the assess path (CPU time; off = no titration computed;")
+    print("alone = the points, fit, predictions and facts by themselves)")
+    header = f"{'input':<34} {'with':>9} {'off':>9} {'adds':>9} {'× floor':>8}"
+    print(f"{header} {'alone':>9} {'× floor':>8}")
+    modules = (assess_module, trend_module)
+    shipped = [getattr(module, "assess_titration") for module in modules]  # noqa: B009
+    for path in bundles:
+        raw = orjson.dumps(orjson.loads(path.read_bytes()))
+
+        def run(raw: bytes = raw) -> bytes:
+            return orjson.dumps(runtime.assess_bundle(orjson.loads(raw)))
+
+        with_fit = median_us(run, rounds, time.process_time)
+        for module in modules:
+            setattr(module, "assess_titration", none)  # noqa: B010
+        try:
+            without = median_us(run, rounds, time.process_time)
+        finally:
+            for module, function in zip(modules, shipped, strict=True):
+                setattr(module, "assess_titration", function)  # noqa: B010
+        added = with_fit - without
+        alone = median_us(_titration_alone(runtime, orjson.loads(raw)), rounds, time.process_time)
+        name = path.name.removesuffix(".bundle.json")
+        print(
+            f"{name:<34} {with_fit:7.0f}µs {without:7.0f}µs {added:+7.0f}µs {added / floor:7.1f}"
+            f" {alone:7.0f}µs {alone / floor:7.1f}"
+        )
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--rounds", type=int, default=300)
     parser.add_argument("--bulk", type=int, default=3000)
+    parser.add_argument("--titration-only", action="store_true", help="only the fit's cost")
     args = parser.parse_args()
     raw = orjson.dumps(orjson.loads(BUNDLE.read_bytes()))
     runtime = Runtime.load()
+    if args.titration_only:
+        floor = median_us(lambda: orjson.loads(raw), args.rounds, time.process_time)
+        print(f"orjson.loads of {BUNDLE.name} (floor, CPU)  {floor:7.1f} µs")
+        titration_costs(runtime, max(args.rounds // 10, 20), floor)
+        return
 
     def assess() -> bytes:
         return orjson.dumps(runtime.assess_bundle(orjson.loads(raw)))
@@ -72,6 +158,9 @@ def main() -> None:
         elapsed = time.perf_counter() - start
         rate = count / elapsed
         print(f"NDJSON, {workers} worker(s): {count} bundles in {elapsed:5.2f} s = {rate:7.0f} /s")
+    cpu_floor = median_us(lambda: orjson.loads(raw), args.rounds, time.process_time)
+    print(f"orjson.loads (floor, CPU time) {cpu_floor:9.1f} µs")
+    titration_costs(runtime, max(args.rounds // 10, 20), cpu_floor)
 
 
 if __name__ == "__main__":

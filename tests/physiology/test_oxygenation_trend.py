@@ -134,3 +134,24 @@ def test_a_rule_set_may_set_its_own_thresholds() -> None:
     tighter = {**DEFAULT_THRESHOLDS, "pf_ratio": Threshold(0.10, True, "a site's 10 %")}
     pf = _measure(oxygenation_trend(summaries=gases, thresholds=tighter), "pf_ratio")
     assert pf.direction is Direction.WORSENING and pf.threshold.source == "a site's 10 %"
+
+
+def test_when_fio2_varied_pf_and_aa_are_shown_but_do_not_decide_the_course() -> None:
+    # A pure shunt on rising FiO2: P/F falls with FiO2 alone while the admixture stays put
+    # (Karbing DS et al., Crit Care 2007;11:R118; iso-shunt lines, Benatar 1973).
+    gases = [
+        _gas(0, fio2=0.4, pf_ratio_mmhg=128.0, arterial_alveolar_ratio=0.22, venous_admixture=0.34),
+        _gas(1, fio2=0.6, pf_ratio_mmhg=93.0, arterial_alveolar_ratio=0.15, venous_admixture=0.34),
+        _gas(2, fio2=1.0, pf_ratio_mmhg=71.0, arterial_alveolar_ratio=0.11, venous_admixture=0.35),
+    ]
+    trend = oxygenation_trend(summaries=gases)
+    assert _measure(trend, "pf_ratio").direction is Direction.WORSENING
+    assert _measure(trend, "venous_admixture").direction is Direction.STABLE
+    assert trend.direction is Direction.STABLE
+    assert "do not decide the course" in trend.note
+    same_fio2 = [
+        _gas(0, pf_ratio_mmhg=128.0, venous_admixture=0.34),
+        _gas(6, pf_ratio_mmhg=93.0, venous_admixture=0.34),
+        _gas(12, pf_ratio_mmhg=71.0, venous_admixture=0.35),
+    ]
+    assert oxygenation_trend(summaries=same_fio2).direction is Direction.WORSENING

@@ -122,7 +122,11 @@ def test_every_chart_is_well_formed_svg_with_a_title(
         if g.index
     )
     assert len(waterfalls) == shown > 0
-    assert len(cascades) + len(waterfalls) == len(charts)
+    # Two response-to-oxygen charts (saturation and PaO2) per case with a titration fit.
+    responses = [c for c in charts if c.get("class") == "response-chart"]
+    fitted = [a for a in assessed if a.titration is not None]
+    assert len(responses) == 2 * len(fitted) > 0
+    assert len(cascades) + len(waterfalls) + len(responses) == len(charts)
 
 
 def test_each_case_has_its_deficit_partition_or_says_why_not(

@@ -106,7 +106,7 @@ def test_cli_test_prints_a_table_and_the_summary_line(tmp_path: Path) -> None:
     )
     assert done.returncode == 1
     assert "what     expected  got" in done.stdout
-    assert done.stdout.strip().endswith("3 passed, 1 failed")
+    assert done.stdout.strip().endswith("4 passed, 1 failed")
 
 
 def test_explain_shows_reads_equations_conditions_and_verdict(runtime: Runtime) -> None:
