@@ -68,6 +68,8 @@ FINDING_LABELS = {
     "metabolic-alkalosis-compensation": "PaCO2 raised to compensate a metabolic alkalosis",
     "respiratory-compensation-inadequate": "ventilation not compensating a metabolic acidosis",
     "value-outside-window": "a value was taken too long before the gas to use",
+    "fio2-for-target-predicted": "the FiO2 for the target band, predicted from the fitted curve",
+    "target-band-unreachable": "the target band is out of reach even on FiO2 1.0",
     "low-mixed-venous-oxygen": "low mixed venous oxygen",
     "normal-for-altitude": "normal for the altitude",
     "unit-converted": "a unit was converted",
@@ -90,6 +92,7 @@ FINDING_TAGS: dict[str, frozenset[str]] = {
     "probable-unit-slip": frozenset({SAFETY, NOTABLE}),
     "respiratory-compensation-inadequate": frozenset({SAFETY, NOTABLE}),
     "spo2-above-target-band": frozenset({NOTABLE}),
+    "target-band-unreachable": frozenset({SAFETY, NOTABLE}),
     "low-mixed-venous-oxygen": frozenset({NOTABLE}),
     "hypoxaemia-severe": frozenset({SEVERE}),
 }
