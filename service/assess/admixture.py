@@ -10,6 +10,7 @@ from service.physiology.saturation import saturation_from_po2
 from .derivation import Computed, DerivedTable
 
 table = DerivedTable()
+SHUNT_LIMITS = (-100.0, 100.0)  # percent; negative when the inputs are inconsistent
 
 
 def _carried(
@@ -62,7 +63,7 @@ def arterial_o2_content(
 @table.quantity(
     "shunt_fraction",
     "%",
-    (-100.0, 100.0),
+    SHUNT_LIMITS,
     0,
     "Estimated right-to-left shunt fraction",
     result="shunt-fraction",

@@ -95,29 +95,28 @@ def _is_usable_arterial(m: Measurement) -> bool:
     return m.specimen in (None, Specimen.ARTERIAL)
 
 
-def _sort_key(m: Measurement) -> tuple[int, float]:
+def _sort_key(m: Measurement) -> tuple[bool, float]:
     # Timed values sort by instant (intake times are timezone-aware); untimed ones sort first
     # so that "latest" prefers a timed value.
-    return (0, 0.0) if m.time is None else (1, m.time.timestamp())
+    return (m.time is not None, m.time.timestamp() if m.time is not None else 0.0)
 
 
 def _nearest(
     candidates: Iterable[Measurement], anchor_time: datetime | None, limit: timedelta | None
-) -> tuple[Measurement | None, Measurement | None, bool]:
-    """(chosen, nearest rejected as out of window, chosen-is-untimed)."""
+) -> tuple[Measurement | None, Measurement | None]:
+    """(chosen, nearest rejected as out of window); a value with no time is chosen only when
+    no timed value qualifies."""
     timed = [m for m in candidates if m.time is not None]
     untimed = [m for m in candidates if m.time is None]
     if anchor_time is None or limit is None:
         pool = sorted(timed, key=_sort_key) or untimed
-        return (pool[-1] if pool else None), None, bool(pool) and pool[-1].time is None
+        return (pool[-1] if pool else None), None
     assert all(m.time is not None for m in timed)
     by_distance = sorted(timed, key=lambda m: abs(m.time - anchor_time))  # type: ignore[operator]
     if by_distance and abs(by_distance[0].time - anchor_time) <= limit:  # type: ignore[operator]
-        return by_distance[0], None, False
+        return by_distance[0], None
     rejected = by_distance[0] if by_distance else None
-    if untimed:
-        return untimed[-1], rejected, True
-    return None, rejected, False
+    return (untimed[-1] if untimed else None), rejected
 
 
 def pair_gases(intake: Intake, *, window: timedelta, same_sample: timedelta) -> Pairing:
@@ -161,10 +160,10 @@ def _pair_one(
             limit = window
         else:
             continue
-        chosen, rejected, untimed = _nearest(candidates, anchor_time, limit)
+        chosen, rejected = _nearest(candidates, anchor_time, limit)
         if chosen is not None:
             gas.values[quantity] = chosen
-            if untimed and anchor_time is not None:
+            if chosen.time is None and anchor_time is not None:
                 gas.untimed.append(quantity)
         elif rejected is not None:
             gas.out_of_window[quantity] = rejected

@@ -10,6 +10,11 @@ from __future__ import annotations
 from typing import TYPE_CHECKING
 
 from service.engine.facts import FactKind, FactOrigin, FactSpec
+from service.intake.model import Quantity
+from service.intake.plausibility import POSSIBLE_RANGE
+from service.physiology.units import FIO2_LIMITS
+
+from .admixture import SHUNT_LIMITS
 
 if TYPE_CHECKING:  # derive imports the catalogue, which lists these facts
     from .derive import GasFacts
@@ -31,15 +36,26 @@ def _serial(
     )
 
 
+def _difference(limits: tuple[float, float]) -> tuple[float, float]:
+    """The possible range of a difference of two values that lie within ``limits``."""
+    low, high = limits
+    return low - high, high - low
+
+
+# Each range follows from the range of the facts compared: one owner per limit.
+_FIO2_CHANGE = _difference(FIO2_LIMITS)
+_PAO2 = POSSIBLE_RANGE[Quantity.ARTERIAL_PO2]
 # fmt: off
 SERIAL_FACTS: tuple[FactSpec, ...] = (
-    _serial("fio2_change", "1", (-1, 1), 2, "FiO2 now minus FiO2 of the earlier gas"),
-    _serial("fio2_step", "1", (0, 1), 2, "Higher minus lower FiO2 of the two gases"),
-    _serial("pao2_change", MMHG, (-1200, 1200), 1, "PaO2 now minus PaO2 of the earlier gas"),
-    _serial("shunt_fraction_at_lower_fio2", "%", (-100, 100), 0, "Shunt fraction, lower-FiO2 gas"),
-    _serial("shunt_fraction_at_higher_fio2", "%", (-100, 100), 0,
+    _serial("fio2_change", "1", _FIO2_CHANGE, 2, "FiO2 now minus FiO2 of the earlier gas"),
+    _serial("fio2_step", "1", (0.0, _FIO2_CHANGE[1]), 2,
+            "Higher minus lower FiO2 of the two gases"),
+    _serial("pao2_change", MMHG, _difference(_PAO2), 1, "PaO2 now minus PaO2 of the earlier gas"),
+    _serial("shunt_fraction_at_lower_fio2", "%", SHUNT_LIMITS, 0,
+            "Shunt fraction, lower-FiO2 gas"),
+    _serial("shunt_fraction_at_higher_fio2", "%", SHUNT_LIMITS, 0,
             "Shunt fraction, higher-FiO2 gas"),
-    _serial("shunt_fraction_change", "%", (-200, 200), 0,
+    _serial("shunt_fraction_change", "%", _difference(SHUNT_LIMITS), 0,
             "Shunt fraction, higher minus lower FiO2"),
 )
 # fmt: on
@@ -75,16 +91,17 @@ def add_serial_facts(index: GasFacts, earlier: list[GasFacts]) -> GasFacts | Non
         return None
     fio2, other_fio2 = index.number("fio2"), other.number("fio2")
     assert fio2 is not None and other_fio2 is not None
-    facts = index.facts
-    facts["fio2_change"] = fio2 - other_fio2
-    facts["fio2_step"] = abs(fio2 - other_fio2)
+    index.set_fact("fio2_change", fio2 - other_fio2)
+    index.set_fact("fio2_step", abs(fio2 - other_fio2))
+    # Every gas is anchored on its PaO2 (pairing.py), so both are known.
     pao2, other_pao2 = index.number("arterial_po2"), other.number("arterial_po2")
-    if pao2 is not None and other_pao2 is not None:
-        facts["pao2_change"] = pao2 - other_pao2
+    assert pao2 is not None and other_pao2 is not None
+    index.set_fact("pao2_change", pao2 - other_pao2)
     shunt, other_shunt = index.number("shunt_fraction"), other.number("shunt_fraction")
     if shunt is not None and other_shunt is not None:
+        # compared_gas never returns a gas on the same FiO2.
         low, high = (other_shunt, shunt) if fio2 > other_fio2 else (shunt, other_shunt)
-        facts["shunt_fraction_at_lower_fio2"] = low
-        facts["shunt_fraction_at_higher_fio2"] = high
-        facts["shunt_fraction_change"] = high - low
+        index.set_fact("shunt_fraction_at_lower_fio2", low)
+        index.set_fact("shunt_fraction_at_higher_fio2", high)
+        index.set_fact("shunt_fraction_change", high - low)
     return other

@@ -91,7 +91,8 @@ def inspired_oxygen_fraction(out: GasFacts, settings: Settings) -> float | None:
     estimated = False
     inputs: tuple[Source, ...] = ()
     method = "as sent"
-    if sent is not None and fio2 is not None:
+    if fio2 is not None:
+        assert sent is not None  # fio2 is the number sent
         out.fio2_source = (sent.fio2_source or Fio2Source.MEASURED).value
         inputs = _sources(sent)
     elif device is not None and isinstance(device.value, str):

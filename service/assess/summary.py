@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from service.engine import Grade
+
 from .result import CAUTION, Assessment
 
 # Derived values shown, with their labels and display decimals.
@@ -20,7 +22,7 @@ _SHOWN = (
     ("shunt-fraction", "shunt fraction", 0),
     ("imputed-pao2", "PaO2 imputed from SpO2", 1),
 )
-_GRADE_ORDER = {"likely": 0, "possible": 1, "unlikely": 2, "not-assessable": 3}
+_GRADE_ORDER = {grade: rank for rank, grade in enumerate(Grade)}  # likely first
 
 
 def summary_text(a: Assessment) -> str:
