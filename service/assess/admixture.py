@@ -10,7 +10,10 @@ from service.physiology.saturation import saturation_from_po2
 from .derivation import Computed, DerivedTable
 
 table = DerivedTable()
-SHUNT_LIMITS = (-100.0, 100.0)  # percent; negative when the inputs are inconsistent
+# Percent of the cardiac output: no more than all of it. A negative value (arterial content
+# above end-capillary) flags inconsistent inputs for the rules, down to as much again.
+WHOLE_OUTPUT_PERCENT = 100.0
+SHUNT_LIMITS = (-WHOLE_OUTPUT_PERCENT, WHOLE_OUTPUT_PERCENT)
 
 
 def _carried(

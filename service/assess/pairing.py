@@ -150,7 +150,7 @@ def _pair_one(
     if anchor is not None:
         gas.values[anchor.quantity] = anchor
     for quantity, candidates in by_quantity.items():
-        if quantity in gas.values or quantity is Quantity.ARTERIAL_PO2:
+        if quantity in gas.values:  # the anchor; other PaO2s anchor gases of their own
             continue
         if quantity in PATIENT_LEVEL:
             limit: timedelta | None = None

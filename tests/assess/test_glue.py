@@ -203,3 +203,39 @@ def test_an_earlier_gas_without_admixture_gives_no_admixture_comparison() -> Non
     facts = result.index.facts
     assert "shunt_fraction" in facts and facts["fio2_step"] == pytest.approx(0.3)
     assert "shunt_fraction_change" not in facts
+
+
+def test_acid_base_ranges_are_the_images_of_the_input_ranges() -> None:
+    # [calc] Narins & Emmett 1980 / Berend 2014 slopes over PaCO2 0-250 mmHg (bounds.py):
+    # acute 24 - 0.2 x 40 = 16 to 24 + 0.1 x 210 = 45; chronic 24 - 0.45 x 40 = 6 to
+    # 24 + 0.35 x 210 = 97.5. Henderson: pH = 9 - log10[H+] over [H+] 1-1000 nmol/L is 6-9;
+    # HCO3 implied = 24 x PaCO2 / [H+] is at most 24 x 250 / 10 (pH 8.0) = 600 mmol/L.
+    ranges = {
+        name: (DEFAULT_CATALOGUE[name].minimum, DEFAULT_CATALOGUE[name].maximum)
+        for name in (
+            "expected_hco3_acute",
+            "expected_hco3_chronic",
+            "hco3_above_expected_acute",
+            "hco3_above_expected_chronic",
+            "ph_henderson_difference",
+            "ph_henderson_gap",
+            "hco3_henderson_difference",
+        )
+    }
+    expected = {
+        "expected_hco3_acute": (16.0, 45.0),
+        "expected_hco3_chronic": (6.0, 97.5),
+        "hco3_above_expected_acute": (1.0 - 45.0, 80.0 - 16.0),
+        "hco3_above_expected_chronic": (1.0 - 97.5, 80.0 - 6.0),
+        "ph_henderson_difference": (6.3 - 9.0, 8.0 - 6.0),
+        "ph_henderson_gap": (0.0, 2.7),
+        "hco3_henderson_difference": (1.0 - 600.0, 80.0),
+    }
+    for name, limits in expected.items():
+        assert ranges[name] == pytest.approx(limits), name
+
+
+def test_an_admixture_cannot_exceed_the_whole_cardiac_output() -> None:
+    spec = DEFAULT_CATALOGUE["shunt_fraction"]
+    assert spec.problem(95.0) is None and spec.problem(-95.0) is None
+    assert spec.problem(105.0) is not None and spec.problem(-105.0) is not None
