@@ -23,7 +23,7 @@ from dataclasses import dataclass
 from service.engine.catalogue import FactCatalogue
 from service.engine.data_requests import DataRequest, DataRequests
 from service.engine.facts import FactValue
-from service.engine.logic import Truth, TruthValue
+from service.engine.logic import TruthValue, value_of
 from service.engine.results import RuleResult
 from service.engine.ruleset import Discriminator, MechanismOutcome, VerdictPlan
 from service.engine.vocabulary import (
@@ -66,7 +66,6 @@ SEVERITY_RANK: Mapping[Severity, int] = {
 """The order findings are listed in: errors first, then warnings, then information."""
 # Enum member and class iteration are slow on Python 3.11; the hot path uses these.
 _MECHANISMS = tuple(Mechanism)
-_TRUTH_VALUE: dict[Truth, TruthValue] = {Truth.TRUE: True, Truth.FALSE: False, Truth.UNKNOWN: None}
 _LIKELY, _POSSIBLE, _NOT_ASSESSABLE = Grade.LIKELY, Grade.POSSIBLE, Grade.NOT_ASSESSABLE
 _PRESENT, _ABSENT = HypoxaemiaStatus.PRESENT, HypoxaemiaStatus.ABSENT
 _ERROR = Severity.ERROR
@@ -277,7 +276,7 @@ def decide(
 ) -> Verdict:
     """Build the verdict from rule results; shadow (testing) results are skipped."""
     rules = [result.rule for result in results]
-    states = [_TRUTH_VALUE[result.state] for result in results]
+    states = [value_of(result.state) for result in results]
     return decide_states(
         VerdictPlan.of(rules), states, results.__getitem__, facts, catalogue, input_errors
     )
