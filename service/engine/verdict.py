@@ -177,16 +177,10 @@ def _assess(
     demotion: str | None,
 ) -> MechanismAssessment:
     """The grade of a mechanism some rules fired for (`fired` in rule order, not empty)."""
-    deciding: tuple[RuleResult, ...]
-    losing: tuple[RuleResult, ...]
-    if len(fired) == 1:  # the usual case
-        position, outcome = fired[0]
-        grade, deciding, losing = outcome.grade, (result_of(position),), ()
-    else:
-        best = min([outcome.priority for _, outcome in fired])
-        grade = next(outcome.grade for _, outcome in fired if outcome.priority == best)
-        deciding = tuple([result_of(p) for p, outcome in fired if outcome.priority == best])
-        losing = tuple([result_of(p) for p, outcome in fired if outcome.priority != best])
+    best = min([outcome.priority for _, outcome in fired])
+    grade = next(outcome.grade for _, outcome in fired if outcome.priority == best)
+    deciding = tuple([result_of(p) for p, outcome in fired if outcome.priority == best])
+    losing = tuple([result_of(p) for p, outcome in fired if outcome.priority != best])
     if demotion is not None and grade is _LIKELY:
         return MechanismAssessment(mechanism, _POSSIBLE, deciding, losing, demotion)
     return MechanismAssessment(mechanism, grade, deciding, losing)
@@ -226,8 +220,6 @@ def _demotion(
 ) -> str | None:
     """Why the gas is not classifiable, or None when it is."""
     errors = sorted({item.code.value for item in findings if item.severity is _ERROR})
-    if not errors and not input_errors and any(name in facts for name in OXYGENATION_FACTS):
-        return None  # the usual case
     reasons: list[str] = []
     if errors:
         reasons.append("error finding fired: " + ", ".join(errors))
@@ -302,8 +294,7 @@ def decide_states(
         for position, found in plan.findings
         if states[position] is True
     ]
-    if len(findings) > 1:
-        findings.sort(key=_finding_order)
+    findings.sort(key=_finding_order)
     said: dict[HypoxaemiaStatus, list[str]] = {}
     for position, stated, ref in plan.hypoxaemia:
         if states[position] is True:

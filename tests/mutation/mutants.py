@@ -174,7 +174,8 @@ class _Sites(ast.NodeVisitor):
             def change(node: ast.Compare = node, position: int = position, new: type = new) -> None:
                 node.ops[position] = new()
 
-            self.sites.append((node, f"{_SYMBOL[type(op)]} -> {_SYMBOL[new]}", change))
+            which = f" (comparison {position + 1})" if len(node.ops) > 1 else ""
+            self.sites.append((node, f"{_SYMBOL[type(op)]} -> {_SYMBOL[new]}{which}", change))
         self.generic_visit(node)
 
     def visit_BinOp(self, node: ast.BinOp) -> None:
