@@ -58,12 +58,9 @@ REPEAT_SAMPLE = Discriminator(
 )
 """What would settle a grade demoted because the data are not trusted."""
 
-SEVERITY_RANK: Mapping[Severity, int] = {
-    Severity.ERROR: 0,
-    Severity.WARNING: 1,
-    Severity.INFORMATION: 2,
-}
-"""The order findings are listed in: errors first, then warnings, then information."""
+SEVERITY_RANK: Mapping[Severity, int] = {severity: rank for rank, severity in enumerate(Severity)}
+"""The order findings are listed in: errors first, then warnings, then information (the order
+of `Severity`)."""
 # Enum member and class iteration are slow on Python 3.11; the hot path uses these.
 _MECHANISMS = tuple(Mechanism)
 _LIKELY, _POSSIBLE, _NOT_ASSESSABLE = Grade.LIKELY, Grade.POSSIBLE, Grade.NOT_ASSESSABLE

@@ -239,3 +239,19 @@ def test_an_admixture_cannot_exceed_the_whole_cardiac_output() -> None:
     spec = DEFAULT_CATALOGUE["shunt_fraction"]
     assert spec.problem(95.0) is None and spec.problem(-95.0) is None
     assert spec.problem(105.0) is not None and spec.problem(-105.0) is not None
+
+
+def test_a_mixed_venous_saturation_without_its_po2_is_taken_at_40_mmhg() -> None:
+    # The dissolved part of the venous content needs a PO2; the normal resting mixed-venous
+    # PO2 is 40 mmHg (common practice). Sent or assumed, the admixture is the same.
+    base = (
+        m(Q.ARTERIAL_PO2, 70.0),
+        m(Q.ARTERIAL_PCO2, 40.0),
+        m(Q.FIO2, 0.5),
+        m(Q.HAEMOGLOBIN, 13.0),
+        m(Q.MIXED_VENOUS_SO2, 0.65),
+    )
+    assumed = gas(*base).facts["shunt_fraction"]
+    sent = gas(*base, m(Q.MIXED_VENOUS_PO2, 40.0)).facts["shunt_fraction"]
+    assert assumed == sent
+    assert gas(*base, m(Q.MIXED_VENOUS_PO2, 44.0)).facts["shunt_fraction"] != assumed

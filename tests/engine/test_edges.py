@@ -59,6 +59,8 @@ def test_a_range_needs_a_minimum_below_its_maximum() -> None:
 
 def test_a_threshold_on_the_edge_of_the_facts_range_is_accepted() -> None:
     build(rules=[rule("edge", when=leaf("spo2", "le", 100, "%"))])
+    build(rules=[rule("floor", when=leaf("spo2", "ge", 2, "%"))])
+    only_problem(rules=[rule("below", when=leaf("spo2", "ge", 1.9, "%"))])
     problem = only_problem(rules=[rule("past", when=leaf("spo2", "le", 101, "%"))])
     assert "outside the accepted range" in problem.message
 
@@ -75,7 +77,7 @@ def test_an_unknown_parameter_names_the_known_ones_or_none() -> None:
 
 
 def test_a_misspelt_fact_suggests_at_most_three_names() -> None:
-    problem = only_problem(rules=[rule("r", when=leaf("aa_gradien", "gt", 0, MMHG))])
+    problem = only_problem(rules=[rule("r", when=leaf("arterial_", "gt", 0, MMHG))])
     suggested = problem.message.split("did you mean ")[1].rstrip(")").split(", ")
     assert len(suggested) == 3
 
