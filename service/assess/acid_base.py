@@ -2,8 +2,16 @@
 
 from __future__ import annotations
 
+import math
+
 from service.physiology import acid_base as ab
 from service.physiology import constants as c
+from service.physiology.bounds import (
+    BICARBONATE_MMOL_L,
+    CARBON_DIOXIDE_MMHG,
+    HYDROGEN_ION_NMOL_L,
+    PH,
+)
 
 from .derivation import Computed, DerivedTable
 
@@ -12,14 +20,39 @@ table = DerivedTable()
 # gas whose pH is known too. The comparison judges an acid-base state, and the rules read its
 # direction from the pH; a gas whose pH is missing or was refused gets no chronicity finding.
 MMOL_L = "mmol/L"
-_BICARBONATE = (0.0, 80.0)
-_BICARBONATE_DIFFERENCE = (-80.0, 80.0)
+
+
+# The range of each derived fact is the image of its inputs' ranges, so nothing computed from
+# accepted values is refused, and each limit keeps one owner (physiology/bounds.py).
+def _expected(chronicity: ab.Chronicity) -> tuple[float, float]:
+    # Compensation rises with PaCO2 on both sides of 40 mmHg: the ends map to the ends.
+    low, high = CARBON_DIOXIDE_MMHG
+    return (
+        ab.expected_hco3_mmol_l(paco2_mmhg=low, chronicity=chronicity),
+        ab.expected_hco3_mmol_l(paco2_mmhg=high, chronicity=chronicity),
+    )
+
+
+def _above(expected: tuple[float, float]) -> tuple[float, float]:
+    return BICARBONATE_MMOL_L[0] - expected[1], BICARBONATE_MMOL_L[1] - expected[0]
+
+
+_ACUTE = _expected(ab.Chronicity.ACUTE)
+_CHRONIC = _expected(ab.Chronicity.CHRONIC)
+# pH implied by PaCO2 and HCO3 lies where [H+] may (9 − log10 [H+]); HCO3 implied by PaCO2 and
+# the measured pH is at most 24 × PaCO2 / the lowest [H+] of a possible pH.
+_PH_IMPLIED = (9.0 - math.log10(HYDROGEN_ION_NMOL_L[1]), 9.0 - math.log10(HYDROGEN_ION_NMOL_L[0]))
+_PH_DIFFERENCE = (PH[0] - _PH_IMPLIED[1], PH[1] - _PH_IMPLIED[0])
+_HCO3_IMPLIED_MAX = (
+    c.HENDERSON_CONSTANT * CARBON_DIOXIDE_MMHG[1] / ab.hydrogen_ion_from_ph(ph=PH[1])
+)
+_HCO3_DIFFERENCE = (BICARBONATE_MMOL_L[0] - _HCO3_IMPLIED_MAX, BICARBONATE_MMOL_L[1])
 
 
 @table.quantity(
     "expected_hco3_acute",
     MMOL_L,
-    _BICARBONATE,
+    _ACUTE,
     1,
     "Expected HCO3 for an acute CO2 change",
     result="expected-hco3",
@@ -34,9 +67,7 @@ def expected_hco3_acute(*, arterial_pco2: float) -> Computed:
     )
 
 
-@table.quantity(
-    "expected_hco3_chronic", MMOL_L, _BICARBONATE, 1, "Expected HCO3, chronic CO2 change"
-)
+@table.quantity("expected_hco3_chronic", MMOL_L, _CHRONIC, 1, "Expected HCO3, chronic CO2 change")
 def expected_hco3_chronic(*, arterial_pco2: float) -> float:
     return ab.expected_hco3_mmol_l(paco2_mmhg=arterial_pco2, chronicity=ab.Chronicity.CHRONIC)
 
@@ -44,7 +75,7 @@ def expected_hco3_chronic(*, arterial_pco2: float) -> float:
 @table.quantity(
     "hco3_above_expected_acute",
     MMOL_L,
-    _BICARBONATE_DIFFERENCE,
+    _above(_ACUTE),
     1,
     "Reported HCO3 minus the expected HCO3 for an acute CO2 change",
 )
@@ -58,7 +89,7 @@ def hco3_above_expected_acute(
 @table.quantity(
     "hco3_above_expected_chronic",
     MMOL_L,
-    _BICARBONATE_DIFFERENCE,
+    _above(_CHRONIC),
     1,
     "Reported HCO3 minus the expected HCO3 for a chronic CO2 change",
 )
@@ -72,7 +103,7 @@ def hco3_above_expected_chronic(
 @table.quantity(
     "hco3_henderson_difference",
     MMOL_L,
-    _BICARBONATE_DIFFERENCE,
+    _HCO3_DIFFERENCE,
     1,
     "Reported HCO3 minus HCO3 computed from pH and PaCO2",
 )
@@ -87,7 +118,7 @@ def hco3_henderson_difference(
 @table.quantity(
     "ph_henderson_difference",
     "[pH]",
-    (-2.0, 2.0),
+    _PH_DIFFERENCE,
     2,
     "Measured pH minus pH computed from PaCO2 and HCO3",
 )
@@ -102,7 +133,7 @@ def ph_henderson_difference(
 @table.quantity(
     "ph_henderson_gap",
     "[pH]",
-    (0.0, 2.0),
+    (0.0, max(-_PH_DIFFERENCE[0], _PH_DIFFERENCE[1])),
     2,
     "Size of ph_henderson_difference, whatever its sign",
 )

@@ -182,7 +182,8 @@ def check_order(entries: Iterable[DerivedFact], known: Iterable[str]) -> None:
 
 
 def _canonical(value: FactValue, spec: FactSpec) -> FactValue:
-    if isinstance(value, float) and spec.unit is not None:
+    if isinstance(value, float):
+        assert spec.unit is not None  # a quantity has a unit (FactSpec checks)
         return from_fact_unit(value, spec.unit)
     return value
 
@@ -228,7 +229,7 @@ def compute_derived(
         facts[entry.name] = value
         used = tuple(dict.fromkeys(s for name in read for s in sources.get(name, ())))
         sources[entry.name] = used
-        if entry.result is not None and not isinstance(value, bool):
-            assert spec.unit is not None
+        if entry.result is not None:  # only quantities are filed (see DerivedTable.flag)
+            assert spec.unit is not None and not isinstance(value, bool)
             filed[entry.result] = Derived(value, spec.unit, method, used)
     return filed, problems

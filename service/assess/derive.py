@@ -56,16 +56,16 @@ class GasFacts:
         value = self.facts.get(name)
         return value if isinstance(value, float) else None
 
-    def set_fact(self, name: str, value: FactValue, sources: tuple[Source, ...] = ()) -> bool:
-        """Set a fact if its catalogue entry accepts the value, else record a problem."""
+    def set_fact(self, name: str, value: FactValue, sources: tuple[Source, ...] = ()) -> None:
+        """Set a fact if its catalogue entry accepts the value, else record a problem (and
+        drop any earlier value of it)."""
         problem = DEFAULT_CATALOGUE[name].problem(value)
         if problem is not None:
             self.problems.append(f"{name}: {problem}; not used")
             self.facts.pop(name, None)
-            return False
+            return
         self.facts[name] = value
         self.sources[name] = sources
-        return True
 
 
 def age_years(birth: date, at: date) -> float:

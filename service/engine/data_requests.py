@@ -91,8 +91,4 @@ class DataRequests:
         )
 
     def _order(self, asked: Mapping[str, object]) -> list[str]:
-        return (
-            sorted(asked, key=self._catalogue.positions.__getitem__)
-            if len(asked) > 1
-            else list(asked)
-        )
+        return sorted(asked, key=self._catalogue.positions.__getitem__)

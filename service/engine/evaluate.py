@@ -13,14 +13,12 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 
 from service.engine.facts import FactValue
-from service.engine.logic import Truth, TruthValue
+from service.engine.logic import TruthValue, truth_of
 from service.engine.results import EvaluationContext, RuleResult
 from service.engine.ruleset import Rule, RuleSet
 from service.engine.verdict import Verdict, decide_states
 
 __all__ = ["Evaluation", "evaluate"]
-
-_TRUTH: dict[TruthValue, Truth] = {True: Truth.TRUE, False: Truth.FALSE, None: Truth.UNKNOWN}
 
 
 class _Results:
@@ -38,7 +36,9 @@ class _Results:
     def __call__(self, position: int) -> RuleResult:
         made = self._made[position]
         if made is None:
-            made = RuleResult(self._rules[position], _TRUTH[self._states[position]], self._context)
+            made = RuleResult(
+                self._rules[position], truth_of(self._states[position]), self._context
+            )
             self._made[position] = made
         return made
 

@@ -12,7 +12,7 @@ cheap to test with `is`; `Truth` is the public spelling used in results.
 
 from enum import StrEnum
 
-__all__ = ["Operator", "Truth", "TruthValue", "truth_of"]
+__all__ = ["Operator", "Truth", "TruthValue", "truth_of", "value_of"]
 
 TruthValue = bool | None
 """The internal three-valued truth: True, False or None for unknown."""
@@ -26,12 +26,19 @@ class Truth(StrEnum):
     UNKNOWN = "unknown"
 
 
+# The one pair of maps between the two spellings of a truth value.
 _TRUTH_OF: dict[TruthValue, Truth] = {True: Truth.TRUE, False: Truth.FALSE, None: Truth.UNKNOWN}
+_VALUE_OF: dict[Truth, TruthValue] = {truth: value for value, truth in _TRUTH_OF.items()}
 
 
 def truth_of(value: TruthValue) -> Truth:
     """Convert the internal truth (True, False, None) to `Truth`."""
     return _TRUTH_OF[value]
+
+
+def value_of(truth: Truth) -> TruthValue:
+    """Convert a `Truth` to the internal truth (True, False, None)."""
+    return _VALUE_OF[truth]
 
 
 class Operator(StrEnum):

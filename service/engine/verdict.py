@@ -28,7 +28,7 @@ from dataclasses import dataclass, replace
 from service.engine.catalogue import FactCatalogue
 from service.engine.data_requests import DataRequest, DataRequests
 from service.engine.facts import FactValue
-from service.engine.logic import Truth, TruthValue
+from service.engine.logic import TruthValue, value_of
 from service.engine.results import RuleResult
 from service.engine.ruleset import Discriminator, MechanismOutcome, VerdictPlan
 from service.engine.vocabulary import (
@@ -67,15 +67,11 @@ REPEAT_SAMPLE = Discriminator(
 )
 """What would settle a grade demoted because the data are not trusted."""
 
-SEVERITY_RANK: Mapping[Severity, int] = {
-    Severity.ERROR: 0,
-    Severity.WARNING: 1,
-    Severity.INFORMATION: 2,
-}
-"""The order findings are listed in: errors first, then warnings, then information."""
+SEVERITY_RANK: Mapping[Severity, int] = {severity: rank for rank, severity in enumerate(Severity)}
+"""The order findings are listed in: errors first, then warnings, then information (the order
+of `Severity`)."""
 # Enum member and class iteration are slow on Python 3.11; the hot path uses these.
 _MECHANISMS = tuple(Mechanism)
-_TRUTH_VALUE: dict[Truth, TruthValue] = {Truth.TRUE: True, Truth.FALSE: False, Truth.UNKNOWN: None}
 _LIKELY, _POSSIBLE, _NOT_ASSESSABLE = Grade.LIKELY, Grade.POSSIBLE, Grade.NOT_ASSESSABLE
 _PRESENT, _ABSENT = HypoxaemiaStatus.PRESENT, HypoxaemiaStatus.ABSENT
 _DEFECT, _NORMAL = GasExchangeStatus.DEFECT, GasExchangeStatus.NORMAL
@@ -203,16 +199,10 @@ def _assess(
     demotion: str | None,
 ) -> MechanismAssessment:
     """The grade of a mechanism some rules fired for (`fired` in rule order, not empty)."""
-    deciding: tuple[RuleResult, ...]
-    losing: tuple[RuleResult, ...]
-    if len(fired) == 1:  # the usual case
-        position, outcome = fired[0]
-        grade, deciding, losing = outcome.grade, (result_of(position),), ()
-    else:
-        best = min([outcome.priority for _, outcome in fired])
-        grade = next(outcome.grade for _, outcome in fired if outcome.priority == best)
-        deciding = tuple([result_of(p) for p, outcome in fired if outcome.priority == best])
-        losing = tuple([result_of(p) for p, outcome in fired if outcome.priority != best])
+    best = min([outcome.priority for _, outcome in fired])
+    grade = next(outcome.grade for _, outcome in fired if outcome.priority == best)
+    deciding = tuple([result_of(p) for p, outcome in fired if outcome.priority == best])
+    losing = tuple([result_of(p) for p, outcome in fired if outcome.priority != best])
     if demotion is not None and grade is _LIKELY:
         return MechanismAssessment(mechanism, _POSSIBLE, deciding, losing, demotion)
     return MechanismAssessment(mechanism, grade, deciding, losing)
@@ -280,8 +270,6 @@ def _demotion(
 ) -> str | None:
     """Why the gas is not classifiable, or None when it is."""
     errors = sorted({item.code.value for item in findings if item.severity is _ERROR})
-    if not errors and not input_errors and any(name in facts for name in OXYGENATION_FACTS):
-        return None  # the usual case
     reasons: list[str] = []
     if errors:
         reasons.append("error finding fired: " + ", ".join(errors))
@@ -330,7 +318,7 @@ def decide(
 ) -> Verdict:
     """Build the verdict from rule results; shadow (testing) results are skipped."""
     rules = [result.rule for result in results]
-    states = [_TRUTH_VALUE[result.state] for result in results]
+    states = [value_of(result.state) for result in results]
     return decide_states(
         VerdictPlan.of(rules), states, results.__getitem__, facts, catalogue, input_errors
     )

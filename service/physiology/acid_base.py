@@ -12,7 +12,13 @@ from dataclasses import dataclass
 from enum import StrEnum
 
 from service.physiology import constants as c
-from service.physiology.bounds import BICARBONATE_MMOL_L, PH, require_possible
+from service.physiology.bounds import (
+    BICARBONATE_MMOL_L,
+    CARBON_DIOXIDE_MMHG,
+    HYDROGEN_ION_NMOL_L,
+    PH,
+    require_possible,
+)
 
 
 def hydrogen_ion_nmol_l(*, paco2_mmhg: float, hco3_mmol_l: float) -> float:
@@ -21,14 +27,14 @@ def hydrogen_ion_nmol_l(*, paco2_mmhg: float, hco3_mmol_l: float) -> float:
     Source: Kassirer JP, Bleich HL, "Rapid estimation of plasma carbon dioxide tension from pH
     and total carbon dioxide content", N Engl J Med 1965;272:1067.
     """
-    require_possible("paco2_mmhg", paco2_mmhg, 1.0, 250.0, "mm[Hg]")
+    require_possible("paco2_mmhg", paco2_mmhg, *CARBON_DIOXIDE_MMHG, "mm[Hg]")
     require_possible("hco3_mmol_l", hco3_mmol_l, *BICARBONATE_MMOL_L, "mmol/L")
     return c.HENDERSON_CONSTANT * paco2_mmhg / hco3_mmol_l
 
 
 def ph_from_hydrogen_ion(*, hydrogen_ion_nmol_l: float) -> float:
     """pH from [H+] in nmol/L: pH = 9 − log10 [H+]."""
-    require_possible("hydrogen_ion_nmol_l", hydrogen_ion_nmol_l, 1.0, 1000.0, "nmol/L")
+    require_possible("hydrogen_ion_nmol_l", hydrogen_ion_nmol_l, *HYDROGEN_ION_NMOL_L, "nmol/L")
     return 9.0 - math.log10(hydrogen_ion_nmol_l)
 
 
@@ -101,7 +107,7 @@ def expected_hco3_mmol_l(*, paco2_mmhg: float, chronicity: Chronicity) -> float:
 
     Source: Narins & Emmett 1980; Berend, de Vries & Gans, NEJM 2014;371:1434 (Table).
     """
-    require_possible("paco2_mmhg", paco2_mmhg, 1.0, 250.0, "mm[Hg]")
+    require_possible("paco2_mmhg", paco2_mmhg, *CARBON_DIOXIDE_MMHG, "mm[Hg]")
     delta = paco2_mmhg - c.NORMAL_PACO2_MMHG
     slope = HCO3_PER_MMHG[(chronicity, delta > 0)]
     return c.NORMAL_HCO3_MMOL_L + slope * delta

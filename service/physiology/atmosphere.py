@@ -12,7 +12,7 @@ import math
 from enum import StrEnum
 
 from service.physiology import constants as c
-from service.physiology.bounds import require_in_model
+from service.physiology.bounds import ALTITUDE_M, require_in_model
 
 
 class AltitudeModel(StrEnum):
@@ -23,9 +23,9 @@ class AltitudeModel(StrEnum):
 
 
 # Lowest dry land (Dead Sea shore, about -430 m) to just above the highest summit (8849 m).
-WEST_1996_RANGE_M = (-500.0, 9000.0)
-# The ISA troposphere (geopotential 0–11 km), extended slightly below sea level as ISO 2533 is.
-ISA_RANGE_M = (-500.0, c.ISA_TROPOPAUSE_GEOPOTENTIAL_M)
+WEST_1996_RANGE_M = ALTITUDE_M
+# The ISA troposphere (geopotential 0–11 km), extended below sea level as far as people live.
+ISA_RANGE_M = (ALTITUDE_M[0], c.ISA_TROPOPAUSE_GEOPOTENTIAL_M)
 
 
 def geopotential_altitude_m(*, geometric_altitude_m: float) -> float:

@@ -50,6 +50,7 @@ HAEMOGLOBIN_G_DL = (1.0, 26.0)
 BODY_TEMPERATURE_CEL = (15.0, 45.0)  # deep therapeutic hypothermia to extreme hyperpyrexia
 AGE_YEARS = (0.0, 130.0)
 PH = (6.3, 8.0)  # the analysers' measuring range; lowest pH survived is about 6.33 (from memory)
+HYDROGEN_ION_NMOL_L = (1.0, 1000.0)  # pH 9 to 6: beyond any pH a blood sample can have
 BICARBONATE_MMOL_L = (1.0, 80.0)
 RESPIRATORY_QUOTIENT = (0.6, 1.2)  # whole-body RQ, fat (0.7) to net lipogenesis (about 1.2)
 ALTITUDE_M = (-500.0, 9000.0)  # below the Dead Sea shore (-430 m) to above Everest (8,849 m)

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 from enum import StrEnum
 
+from service.exceptions import ImpossibleValueError
 from service.physiology import constants as c
 from service.physiology.bounds import (
     AGE_YEARS,
@@ -176,7 +177,11 @@ def arterial_alveolar_ratio(*, arterial_po2_mmhg: float, alveolar_po2_mmhg: floa
     Raises:
         ImpossibleValueError: PAO2 not positive (the ratio has no meaning).
     """
-    require_possible("alveolar_po2_mmhg", alveolar_po2_mmhg, 1e-9, 1200.0, "mm[Hg]")
+    require_possible("alveolar_po2_mmhg", alveolar_po2_mmhg, *PARTIAL_PRESSURE_MMHG, "mm[Hg]")
+    if not alveolar_po2_mmhg > 0.0:
+        raise ImpossibleValueError(
+            "alveolar_po2_mmhg", alveolar_po2_mmhg, "the ratio needs a positive alveolar PO2"
+        )
     require_possible("arterial_po2_mmhg", arterial_po2_mmhg, *PARTIAL_PRESSURE_MMHG, "mm[Hg]")
     return arterial_po2_mmhg / alveolar_po2_mmhg
 

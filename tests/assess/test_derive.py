@@ -102,7 +102,7 @@ def test_shunt_uses_measured_mixed_venous_content_when_present() -> None:
     assert "measured mixed-venous" in gas.derived["venous-admixture"].method
     assert "venous admixture" in gas.derived["venous-admixture"].method
     (assumed,) = facts_of(intake(*data.measurements[:5]))
-    assert "assumed a-v content difference 5" in assumed.derived["venous-admixture"].method
+    assert "assumed a-v content difference 5 mL/dL" in assumed.derived["venous-admixture"].method
 
 
 def test_spo2_only_gives_sf_ratio_and_an_imputed_pao2() -> None:

@@ -116,3 +116,15 @@ def test_normalise_fio2_is_idempotent_on_its_own_output(fraction: float, unit: s
     sent = fraction * 100.0 if unit == "%" else fraction
     first = u.normalise_fio2(sent, unit)
     assert u.normalise_fio2(first.fraction, "1").fraction == pytest.approx(first.fraction)
+
+
+def test_fio2_just_above_one_is_refused_whichever_way_it_is_read() -> None:
+    # A fraction above 1 sent as "1" is read as a percentage (1.05 % = 0.0105) and one just
+    # above 1 sent as "%" as a percentage too; both are impossible inspired fractions.
+    for value, unit, fraction in ((1.05, "1", 0.0105), (1.05, "%", 0.0105), (105.0, "%", 1.05)):
+        with pytest.raises(ImpossibleValueError) as caught:
+            u.normalise_fio2(value, unit)
+        assert caught.value.value == pytest.approx(fraction)
+    assert u.normalise_fio2(1.0, "%") == u.Fio2(fraction=1.0, reinterpreted=True)
+    assert u.normalise_fio2(100.0, "%") == u.Fio2(fraction=1.0, reinterpreted=False)
+    assert u.FIO2_LIMITS == (0.10, 1.0)  # 10 % (hypoxic test gas) to pure oxygen

@@ -10,14 +10,18 @@ from service.exceptions import ImpossibleValueError
 from service.physiology.water_vapour import water_vapour_pressure_mmhg
 
 PA_PER_MMHG = 133.322387415
+UCUM_PA_PER_MMHG = 133.3220  # UCUM essence: m[Hg] = 133.3220 kPa
 
 
-@pytest.mark.parametrize("temperature_cel", [30.0, 35.0, 36.0, 37.0, 38.0, 39.0, 40.0, 43.0])
+@pytest.mark.parametrize(
+    "temperature_cel", [15.0, 25.0, 30.0, 35.0, 36.0, 37.0, 38.0, 39.0, 40.0, 43.0, 45.0]
+)
 def test_water_vapour_matches_iapws_97(temperature_cel: float) -> None:
-    # iapws (PyPI) _PSat_T: IAPWS-IF97 saturation pressure in MPa. Same equation: ±0.001 mmHg.
-    reference = _PSat_T(temperature_cel + 273.15) * 1e6 / PA_PER_MMHG
+    # iapws (PyPI) _PSat_T: IAPWS-IF97 saturation pressure in MPa. The same equation, so the
+    # same number to rounding, in UCUM's mm[Hg] (133.3220 Pa).
+    reference = _PSat_T(temperature_cel + 273.15) * 1e6 / UCUM_PA_PER_MMHG
     assert water_vapour_pressure_mmhg(temperature_cel=temperature_cel) == pytest.approx(
-        reference, abs=0.001
+        reference, rel=1e-9
     )
 
 
