@@ -139,6 +139,16 @@ class ServerSettings(BaseSettings):
         64, ge=1, le=10_000, description="assessments in flight per process before 429"
     )
     log_level: Literal["debug", "info", "warning", "error"] = "info"
+    bench: bool = Field(
+        True,
+        description="serve the rule owner's bench at /bench (for local use; set false in "
+        "production). It stores nothing and needs the same credentials as every other route",
+    )
+    fixtures_dir: Path | None = Field(
+        None,
+        description="the rule set's fixtures for the bench's fixture panel (default: the "
+        "fixtures folder beside the rule directory)",
+    )
     cors_origins: list[str] = Field(
         default_factory=list, description="JSON list of allowed origins; empty: CORS off"
     )

@@ -179,7 +179,9 @@ def serve(
     port: int | None = None,
     workers: int | None = None,
     rules: Path | None = None,
+    site: Path | None = None,
     mllp_port: int | None = None,
+    bench: bool | None = None,
 ) -> int:
     """Run the service until stopped; the process exit status."""
     overrides = {
@@ -187,14 +189,18 @@ def serve(
         "port": port,
         "workers": workers,
         "rules_dir": rules,
+        "site_file": site,
         "mllp_port": mllp_port,
+        "bench": bench,
     }
     names = {
         "host": "--host",
         "port": "--port",
         "workers": "--workers",
         "rules_dir": "--rules",
+        "site_file": "--site",
         "mllp_port": "--mllp-port",
+        "bench": "--no-bench",
     }
     flags = {k: flag for k, flag in names.items() if overrides[k] is not None}
     try:
@@ -215,8 +221,10 @@ def serve(
             "port": server.port,
             "workers": server.workers,
             "ruleset": f"{ruleset.id}|{ruleset.version}",
+            "site": service.runtime.site_view.summary() if service.runtime.site_view else None,
             "auth": ",".join(service.auth.methods) or "off",
             "mllp_port": server.mllp_port,
+            "bench": f"http://{server.host}:{server.port}/bench" if server.bench else "off",
         },
     )
     common: dict[str, Any] = {
@@ -236,6 +244,10 @@ def serve(
         # Worker processes read the environment: hand them the command line's choices.
         if rules is not None:
             os.environ[PREFIX + "RULES_DIR"] = str(rules)
+        if site is not None:
+            os.environ[PREFIX + "SITE_FILE"] = str(site)
+        if bench is not None:
+            os.environ[PREFIX + "BENCH"] = "true" if bench else "false"
         uvicorn.run(
             "service.api.server:app_from_environment",
             factory=True,

@@ -9,7 +9,7 @@ must fire in some fixture and stay silent in another.
 
 from __future__ import annotations
 
-from collections.abc import Iterable
+from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -42,8 +42,13 @@ class LintMessage:
         return f"{self.severity}: {where}: {self.message} (fix: {self.fix})"
 
 
-def lint(directory: Path, *, fixtures: Iterable[Path] = ()) -> list[LintMessage]:
-    """Every problem found in the rule set at ``directory`` (empty when clean)."""
+def lint(directory: Path, *, fixtures: Sequence[Path] | None = None) -> list[LintMessage]:
+    """Every problem found in the rule set at ``directory`` (empty when clean).
+
+    ``fixtures`` are the folders (or expected-outcome files) whose cases must cover every
+    active rule; None leaves coverage out on purpose. A folder that does not exist, or an
+    empty list, is an error: a coverage gate that checked nothing must not pass.
+    """
     try:
         runtime = Runtime.load(Settings(rules_dir=directory))
     except RuleSetError as error:
@@ -59,10 +64,51 @@ def lint(directory: Path, *, fixtures: Iterable[Path] = ()) -> list[LintMessage]
     ruleset = runtime.ruleset
     messages = _lock(directory, ruleset) + _reachability(ruleset) + _unused(ruleset)
     messages += _totality(ruleset, runtime.settings)
-    fixture_dirs = [f for f in fixtures if f.exists()]
-    if fixture_dirs:
-        messages += _coverage(ruleset, runtime, fixture_dirs)
+    if fixtures is not None:
+        messages += _coverage_scope(fixtures)
+        present = [f for f in fixtures if f.exists()]
+        if present:
+            messages += _coverage(ruleset, runtime, present)
     return messages
+
+
+NO_FIXTURES_FIX = (
+    "name the fixture folder with --fixtures DIR (or pass --no-coverage to leave the "
+    "coverage check out on purpose)"
+)
+
+
+def _coverage_scope(fixtures: Sequence[Path]) -> list[LintMessage]:
+    """An error for each fixture folder that is not there, or for none at all."""
+    if not fixtures:
+        return [
+            LintMessage(
+                "error",
+                "",
+                "",
+                "",
+                "no fixture folder found (none named, no fixtures/ here or beside the rule "
+                "set): fixture coverage was not checked",
+                NO_FIXTURES_FIX,
+            )
+        ]
+    return [
+        LintMessage(
+            "error",
+            str(path),
+            "",
+            "",
+            "this fixture folder does not exist: fixture coverage was not checked against it",
+            NO_FIXTURES_FIX,
+        )
+        for path in fixtures
+        if not path.exists()
+    ]
+
+
+def plural(count: int, word: str) -> str:
+    """``1 error``, ``2 errors``."""
+    return f"{count} {word}" + ("" if count == 1 else "s")
 
 
 def _lock(directory: Path, ruleset: RuleSet) -> list[LintMessage]:

@@ -1,6 +1,7 @@
-"""``oxyrule explain``: the verdict first, then the PaO2 deficit partition as a table (checked
-against ``tests.deficit_reference``: Cerveri 1995 and the alveolar gas equation), then the
-inputs known only as a range and how each grade depended on them, then the rest."""
+"""``oxyrule explain``: the verdict first, then the deciding rules as trees, then the PaO2
+deficit partition as a table (checked against ``tests.deficit_reference``: Cerveri 1995 and
+the alveolar gas equation), then the inputs known only as a range and how each grade depended
+on them; the rest with ``--full``."""
 
 from __future__ import annotations
 
@@ -25,8 +26,9 @@ def runtime() -> Runtime:
 
 
 def _row(text: str, label: str) -> list[str]:
-    """The cells after ``label`` on its table line."""
-    line = next(line for line in text.splitlines() if line.strip().startswith(label))
+    """The cells after ``label`` on its line of the partition table."""
+    table = text[text.index("PaO2 deficit partition") :]
+    line = next(line for line in table.splitlines() if line.strip().startswith(label))
     return line.strip()[len(label) :].split()
 
 
@@ -34,9 +36,11 @@ def test_explain_leads_with_the_verdict_then_the_partition_then_the_uncertain_in
     runtime: Runtime,
 ) -> None:
     intake = read_bundle(reference_bundle())
-    text = explain_text(intake, runtime.assess_intake(intake), settings=runtime.settings)
+    assessment = runtime.assess_intake(intake)
+    text = explain_text(intake, assessment, settings=runtime.settings, full=True)
     headings = [
         "Verdict: ",
+        "Deciding rules",
         "PaO2 deficit partition",
         "Uncertain inputs",
         "Rule set ",
@@ -47,6 +51,9 @@ def test_explain_leads_with_the_verdict_then_the_partition_then_the_uncertain_in
     positions = [text.index(h) for h in headings]
     assert positions == sorted(positions) and positions[0] == 0
     assert re.search(r"^  why: .+", text, flags=re.MULTILINE)
+    short = explain_text(intake, assessment, settings=runtime.settings)
+    assert "Deciding rules" in short and "\nRead" not in short and "\nDerived" not in short
+    assert "explain --full" in short
 
 
 def test_the_partition_table_matches_the_independent_computation(runtime: Runtime) -> None:

@@ -23,10 +23,14 @@ async def healthz() -> dict[str, str]:
 async def readyz(service: ServiceDep) -> Response:
     """Readiness: the rule set is loaded and the process is not shutting down."""
     if service.draining:
-        body = outcome("transient", "shutting down", severity="error")
-        return outcome_response(503, body)
-    ruleset = service.runtime.ruleset
-    body = {"status": "ready", "ruleset": f"{ruleset.id}|{ruleset.version}"}
+        return outcome_response(503, outcome("transient", "shutting down", severity="error"))
+    runtime = service.runtime
+    ruleset = runtime.ruleset
+    body: dict[str, object] = {"status": "ready", "ruleset": f"{ruleset.id}|{ruleset.version}"}
+    if runtime.site_view is not None:
+        body["site"] = runtime.site_view.label
+        body["site_changes"] = runtime.site_view.summary()
+    body["settings_hash"] = runtime.settings_hash
     return Response(orjson.dumps(body), media_type="application/json")
 
 
