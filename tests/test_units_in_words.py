@@ -60,13 +60,14 @@ def test_rationales_follow_the_requested_pressure_unit(how: str, tmp_path: Path)
 
 def test_an_assumed_pressure_is_worded_in_the_requested_unit() -> None:
     data = orjson.loads(NO_PRESSURE.read_bytes())
-    kpa = [t for t in _texts(Runtime.load().assess_bundle(data, pressure_unit="kPa"))]
+    kpa = _texts(Runtime.load().assess_bundle(data, pressure_unit="kPa"))
     (pressure,) = [t for t in kpa if t.startswith("the barometric pressure")]
     assert re.search(r"not sent: \d+\.\d kPa to 101\.3 kPa", pressure), pressure
 
 
 def test_the_http_units_parameter_reaches_the_rationales() -> None:
-    from tests.api.conftest import ASSESS, FHIR_JSON, TestClient, create_app
+    from service.api import create_app
+    from tests.api.conftest import ASSESS, FHIR_JSON, TestClient
 
     with TestClient(create_app(Settings())) as client:
         answer = client.post(f"{ASSESS}?units=kPa", content=CASE.read_bytes(), headers=FHIR_JSON)
