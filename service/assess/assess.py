@@ -226,8 +226,16 @@ def assess(
         input_errors=[f.code for f in intake_findings if f.severity is Severity.ERROR],
         pressure_unit=unit,
     )
+    declared = ruleset.findings
     rule_findings = [
-        Finding(str(f.code), f.severity, f.rationale_in(units), rule=f.rule)
+        Finding(
+            str(f.code),
+            f.severity,
+            f.rationale_in(units),
+            rule=f.rule,
+            system=d.system if (d := declared.get(f.code)) is not None else None,
+            display=d.display if d is not None else None,
+        )
         for f in verdict.findings
     ]
     physiology = [

@@ -33,7 +33,6 @@ from service.engine.rationale import NO_UNITS, Units
 from service.engine.results import RuleResult
 from service.engine.ruleset import Discriminator, MechanismOutcome, VerdictPlan
 from service.engine.vocabulary import (
-    FindingCode,
     GasExchangeStatus,
     Grade,
     HypoxaemiaStatus,
@@ -160,7 +159,8 @@ class MechanismAssessment:
 class FindingResult:
     """A finding raised by a fired rule."""
 
-    code: FindingCode
+    code: str
+    """A built-in ``FindingCode`` or a code the rule set declares."""
     severity: Severity
     result: RuleResult
 
@@ -288,7 +288,7 @@ def _demotion(
     input_errors: Sequence[str],
 ) -> str | None:
     """Why the gas is not classifiable, or None when it is."""
-    errors = sorted({item.code.value for item in findings if item.severity is _ERROR})
+    errors = sorted({str(item.code) for item in findings if item.severity is _ERROR})
     if not errors and not input_errors and any(name in facts for name in OXYGENATION_FACTS):
         return None  # the usual case
     reasons: list[str] = []

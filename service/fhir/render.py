@@ -236,7 +236,10 @@ def _issue(f: Finding) -> Json:
     issue: Json = {
         "severity": f.severity,
         "code": ISSUE_CODE[f.severity],
-        "details": {"coding": [_coding(FINDING_SYSTEM, f.code)], "text": f.message},
+        "details": {
+            "coding": [_coding(f.system or FINDING_SYSTEM, f.code, f.display)],
+            "text": f.message,
+        },
         "diagnostics": f.message + (f" (rule {f.rule})" if f.rule else ""),
     }
     if f.expression:
