@@ -1,0 +1,431 @@
+// The oxyrule bench: lays out what the service answers. No physiology and no rule is computed
+// here: every verdict, number, chart and what-if comes from the service's /bench/api calls.
+// The case stays in this page (state.input) and is sent with each call; nothing is stored.
+
+const state = { input: null, expected: null, name: "", units: "mm[Hg]", whatIf: {},
+  fields: null, seq: 0, timer: null };
+const $ = (id) => document.getElementById(id);
+
+function el(tag, attrs = {}, ...children) {
+  const node = document.createElement(tag);
+  for (const [key, value] of Object.entries(attrs)) {
+    if (value === null || value === undefined || value === false) continue;
+    if (key === "class") node.className = value;
+    else if (key.startsWith("on")) node.addEventListener(key.slice(2), value);
+    else node.setAttribute(key, value === true ? "" : String(value));
+  }
+  for (const child of children.flat()) {
+    if (child === null || child === undefined) continue;
+    node.append(child instanceof Node ? child : document.createTextNode(String(child)));
+  }
+  return node;
+}
+
+function svgNode(markup) {
+  // The charts are drawn by the service (hand-written SVG, every text escaped there).
+  const parsed = new DOMParser().parseFromString(markup, "image/svg+xml").documentElement;
+  return document.importNode(parsed, true);
+}
+
+function say(text, error = false) {
+  const status = $("status");
+  status.textContent = text;
+  status.classList.toggle("error", error);
+}
+
+async function api(path, body) {
+  const options = { credentials: "same-origin", headers: { Accept: "application/json" } };
+  if (body !== undefined) {
+    options.method = "POST";
+    options.headers["Content-Type"] = "application/json";
+    options.body = JSON.stringify(body);
+  }
+  const answer = await fetch(path, options);
+  const data = await answer.json().catch(() => null);
+  if (!answer.ok) {
+    const issues = (data && data.issue) || [];
+    const words = issues.map((i) => i.diagnostics).filter(Boolean).join("; ");
+    throw new Error(words || `the service answered ${answer.status}`);
+  }
+  return data;
+}
+
+function table(headers, rows, caption) {
+  return el("table", {},
+    caption ? el("caption", {}, caption) : null,
+    el("thead", {}, el("tr", {}, headers.map((h) => el("th", { scope: "col" }, h)))),
+    el("tbody", {}, rows.map((cells) => el("tr", {}, cells.map((c) =>
+      c && c.num !== undefined ? el("td", { class: "num" }, c.num) : el("td", {}, c))))));
+}
+
+const GRADE_MARK = { likely: "●●", possible: "●○", unlikely: "○○", "not-assessable": "–" };
+const STATUS_MARK = { passed: "✓ passed", failed: "✗ FAILED", "known-gap": "◐ known gap",
+  "gap-closed": "! gap closed" };
+
+// --- The case -----------------------------------------------------------------------------
+
+function isExpected(name, text) {
+  return /\.expected\.ya?ml$/i.test(name) || /^\s*description\s*:/m.test(text.slice(0, 400))
+    && !/^\s*[{M]/.test(text);
+}
+
+async function loadFiles(files) {
+  let input = null, expected = null, name = "";
+  for (const file of files) {
+    const text = await file.text();
+    if (isExpected(file.name, text)) expected = text;
+    else { input = text; name = file.name; }
+  }
+  if (input === null) { say("No case among the files: drop a Bundle or an HL7 v2 message.", true); return; }
+  setCase(input, expected, name);
+}
+
+function setCase(input, expected, name) {
+  state.input = input;
+  state.expected = expected;
+  state.name = name;
+  state.whatIf = {};
+  state.fields = null;
+  $("paste").value = input;
+  $("expected-text").value = expected || "";
+  const stem = name.replace(/\.(bundle\.json|json|hl7|er7|txt)$/i, "");
+  if (stem) $("fixture-name").value = stem.replace(/[^a-z0-9]+/gi, "-").toLowerCase();
+  assess();
+}
+
+function assessSoon() {
+  clearTimeout(state.timer);
+  state.timer = setTimeout(assess, 180);
+}
+
+async function assess() {
+  if (state.input === null) return;
+  const seq = ++state.seq;
+  const started = performance.now();
+  say("Assessing…");
+  try {
+    const view = await api("/bench/api/assess", { input: state.input, expected: state.expected,
+      units: state.units, what_if: state.whatIf });
+    if (seq !== state.seq) return; // a newer request is on its way
+    render(view);
+    const ms = Math.round(performance.now() - started);
+    document.body.dataset.roundTripMs = String(ms);
+    say(`Assessed (${view.kind === "hl7v2" ? "HL7 v2 message" : "FHIR Bundle"}, ${ms} ms).`);
+  } catch (error) {
+    if (seq === state.seq) say(`The case could not be assessed: ${error.message}`, true);
+  }
+}
+
+// --- Rendering ----------------------------------------------------------------------------
+
+function render(view) {
+  for (const id of ["verdict", "whatif", "partition", "numbers", "trace", "save"]) $(id).hidden = false;
+  renderVerdict(view);
+  renderWhatIf(view.what_if);
+  renderPartition(view.partition);
+  renderCascade(view.cascade);
+  renderOxygen(view.oxygen_response);
+  renderNumbers(view.numbers);
+  renderTrace(view);
+}
+
+function renderVerdict(view) {
+  const v = view.verdict;
+  $("case-name").textContent = state.name ? `Case: ${state.name}` : "";
+  const list = $("verdict-list");
+  list.replaceChildren(
+    el("dt", {}, "Pattern"), el("dd", {}, el("span", { id: "pattern", class: "pattern" }, v.pattern)),
+    el("dt", {}, "Why"), el("dd", { id: "why" }, v.why),
+    el("dt", {}, "Hypoxaemia"), el("dd", {}, v.hypoxaemia),
+    el("dt", {}, "Gas exchange for age"), el("dd", {}, v.gas_exchange),
+    el("dt", {}, "Result status"), el("dd", {}, v.status),
+    el("dt", {}, "Rule set"), el("dd", {}, view.ruleset),
+    view.what_if.changed ? [el("dt", {}, "What if"), el("dd", { class: "changed" },
+      "inputs changed from the case as sent (section 3)")] : null,
+  );
+  const body = $("mechanisms").tBodies[0];
+  body.replaceChildren(...v.mechanisms.map((m) => el("tr", { "data-mechanism": m.code },
+    el("td", {}, m.name),
+    el("td", {}, el("span", { class: `grade grade-${m.grade}`, "data-grade": m.grade },
+      `${GRADE_MARK[m.grade] || ""} ${m.grade}`)),
+    el("td", {}, m.rationale),
+    el("td", {}, m.discriminator || "—"),
+    el("td", {}, m.rules.length ? m.rules.map((r) => el("div", {}, el("code", {}, r))) : "—"))));
+  $("findings").replaceChildren(v.findings.length
+    ? table(["Severity", "Code", "Message", "Rule"], v.findings.map((f) =>
+      [f.severity, el("code", {}, f.code), f.message, f.rule ? el("code", {}, f.rule) : "—"]))
+    : el("p", { class: "muted" }, "No findings."));
+  const split = v.data_requested_split;
+  $("requested").replaceChildren(
+    split.not_sent.length ? el("p", {}, el("strong", {}, "Not sent, would settle an open question: "),
+      split.not_sent.join(", ")) : null,
+    split.again.length ? el("p", {}, el("strong", {}, "Sent, and worth repeating (as the discriminators say): "),
+      split.again.join(", ")) : null);
+  const u = view.uncertain_inputs;
+  $("uncertain").replaceChildren(u.inputs.length ? el("div", {},
+    el("h3", {}, "Known only as a range (assessed at each end)"),
+    el("ul", {}, u.inputs.map((w) => el("li", {}, w))),
+    table(["Mechanism", "Grade", "How it depended"], u.grades.map((g) => [g.mechanism, g.grade, g.how])))
+    : null);
+  const check = view.expected;
+  const box = $("expected-check");
+  if (!check) { box.replaceChildren(); return; }
+  if (check.error) { box.replaceChildren(el("p", { class: "failed" }, check.error)); return; }
+  box.replaceChildren(
+    el("p", {}, "Expected outcome: ",
+      el("span", { id: "expected-status", class: check.status }, STATUS_MARK[check.status] || check.status),
+      ` — ${check.description}`),
+    check.mismatches.length ? table(["What", "Expected", "Got", "Unit"],
+      check.mismatches.map((m) => [m.what, m.expected, m.got, m.unit]), "What differed") : null);
+}
+
+function renderWhatIf(whatIf) {
+  const form = $("whatif-form");
+  const focused = document.activeElement && document.activeElement.id;
+  if (!state.fields) {
+    state.fields = whatIf.fields;
+    form.replaceChildren(...whatIf.fields.map(whatIfField));
+  }
+  for (const f of whatIf.fields) {
+    const changed = f.key in state.whatIf;
+    $(`wi-${f.key}-sent`).textContent = f.sent === null ? "not sent" : `as sent: ${f.sent} ${f.unit}`.trim();
+    $(`wi-${f.key}-now`).textContent = f.value === null ? "" : `assessed at ${f.value} ${f.unit}`.trim();
+    $(`wi-${f.key}-on`).checked = changed;
+    if (!changed && f.value !== null && focused !== `wi-${f.key}-range` && focused !== `wi-${f.key}-number`) {
+      $(`wi-${f.key}-range`).value = f.value;
+      $(`wi-${f.key}-number`).value = f.value;
+    }
+    $(`wi-${f.key}`).classList.toggle("changed", changed);
+  }
+}
+
+function whatIfField(f) {
+  const id = `wi-${f.key}`;
+  const start = f.value ?? f.low;
+  const set = (value) => {
+    if (value === "" || Number.isNaN(Number(value))) return;
+    $(`${id}-range`).value = value;
+    $(`${id}-number`).value = value;
+    state.whatIf[f.key] = Number(value);
+    if (f.key === "altitude_m") delete state.whatIf.barometric_pressure_mmhg;
+    if (f.key === "barometric_pressure_mmhg") delete state.whatIf.altitude_m;
+    $(`${id}-on`).checked = true;
+    assessSoon();
+  };
+  return el("fieldset", { id },
+    el("legend", {}, `${f.label}${f.unit ? ` (${f.unit})` : ""}`),
+    el("div", { class: "row" },
+      el("input", { id: `${id}-on`, type: "checkbox", onchange: (e) => {
+        if (e.target.checked) set($(`${id}-number`).value);
+        else { delete state.whatIf[f.key]; assessSoon(); }
+      } }),
+      el("label", { for: `${id}-on` }, "change it")),
+    el("label", { for: `${id}-range`, class: "sr" }, `${f.label} slider`),
+    el("input", { id: `${id}-range`, type: "range", min: f.low, max: f.high, step: f.step, value: start,
+      oninput: (e) => set(e.target.value) }),
+    el("div", { class: "row" },
+      el("label", { for: `${id}-number` }, "value"),
+      el("input", { id: `${id}-number`, type: "number", min: f.low, max: f.high, step: f.step,
+        value: start, onchange: (e) => set(e.target.value) }),
+      el("span", { id: `${id}-sent`, class: "muted" }),
+      el("span", { id: `${id}-now`, class: "muted" })));
+}
+
+function renderPartition(p) {
+  const body = $("partition-body");
+  if (!p.charts.length) {
+    body.replaceChildren(el("p", { class: "muted" }, `Not computed: ${p.absent}.`));
+    return;
+  }
+  body.replaceChildren(...p.charts.map((c) => el("figure", {},
+    c.assumption ? el("h3", {}, c.assumption) : null,
+    svgNode(c.svg),
+    el("figcaption", {}, `From the PaO2 expected for age (${c.expected} ${p.unit}) to the PaO2 `
+      + `(${c.pao2} ${p.unit}): a fall of ${c.fall} ${p.unit}. ${c.method}.`),
+    table(["Part", p.unit, "Share", "What it is"], c.rows.map((r) => [r.label, { num: r.value },
+      r.value < 0 ? "raises it" : r.share === null ? "—" : `${Math.round(r.share * 100)}%`,
+      r.meaning])))));
+}
+
+function renderCascade(c) {
+  $("cascade").hidden = !c;
+  if (!c) return;
+  $("cascade-body").replaceChildren(el("figure", {}, svgNode(c.svg),
+    el("figcaption", {}, `Normal cascade for ${c.conditions}.`,
+      el("ul", {}, c.notes.map((n) => el("li", {}, n))))));
+}
+
+function quantityText(q) {
+  return q ? `${q.value} ${q.unit === "1" ? "" : q.code}`.trim() : "—";
+}
+
+function renderOxygen(o) {
+  const fits = o.parameters.length + o.observations.length;
+  const box = $("oxygen-body");
+  $("oxygen-response").hidden = false;
+  if (o.gases.length < 2 && !fits) {
+    box.replaceChildren(el("p", { class: "muted" }, "One gas: the response to oxygen needs gases "
+      + "on different FiO2. (A fitted oxygen-response curve, when the result carries one, is shown here.)"));
+    return;
+  }
+  const rows = o.gases.map((g) => [g.index ? "index (latest)" : "earlier", g.observation || "—",
+    { num: quantityText(g.fio2) }, { num: quantityText(g["pf-ratio"]) },
+    { num: quantityText(g["aa-gradient"]) }, { num: quantityText(g["venous-admixture"]) }]);
+  box.replaceChildren(
+    table(["Gas", "Observation", "FiO2", "P/F", "A-a gradient", "Venous admixture"], rows,
+      "Each arterial gas of the case, from the result."),
+    ...o.parameters.map((p) => el("div", {}, el("h3", {}, p.name),
+      table(["Part", "Value"], (p.part || []).map((part) => [part.name, partValue(part)])))),
+    ...o.observations.map((obs) => el("div", {}, el("h3", {}, obs.id),
+      table(["Component", "Value"], (obs.component || []).map((c) =>
+        [(c.code.coding || [{}])[0].code || "", quantityText(c.valueQuantity)])))));
+}
+
+function partValue(part) {
+  for (const [key, value] of Object.entries(part)) {
+    if (!key.startsWith("value")) continue;
+    if (key === "valueQuantity") return quantityText(value);
+    if (typeof value === "object") return JSON.stringify(value);
+    return String(value);
+  }
+  return (part.part || []).map((p) => `${p.name}: ${partValue(p)}`).join("; ");
+}
+
+function renderNumbers(numbers) {
+  $("numbers-table").tBodies[0].replaceChildren(...numbers.map((n) => el("tr", {},
+    el("td", {}, n.label), el("td", { class: "num" }, n.value), el("td", {}, n.unit),
+    el("td", {}, n.method))));
+}
+
+const KIND_WORDS = { all: "all of", any: "any of", not: "not", definitely: "definitely" };
+
+function treeNode(node) {
+  const mark = el("span", { class: `state state-${node.state}` }, `[${node.state}]`);
+  if (node.kind === "leaf") {
+    return el("li", {}, mark, " ", el("code", {}, node.text),
+      node.missing ? el("span", { class: "muted" }, ` (missing: ${node.missing})`) : null);
+  }
+  const words = node.kind === "ref" ? `block ${node.name}` : KIND_WORDS[node.kind] || node.kind;
+  const open = node.kind !== "ref";
+  return el("li", {}, el("details", { open },
+    el("summary", {}, mark, " ", words),
+    el("ul", {}, (node.children || []).map(treeNode))));
+}
+
+function renderTrace(view) {
+  $("deciding").replaceChildren(...view.deciding.map((d) => el("details", { class: "rule", open: true },
+    el("summary", { class: "rule-head" }, `${d.for} ← `, el("code", {}, d.rule)),
+    d.note ? el("p", { class: "muted" }, d.note) : null,
+    el("ul", { class: "tree" }, treeNode(d.tree)))));
+  $("outranked").replaceChildren(view.outranked.length ? el("div", {},
+    el("h3", {}, "Fired but outranked"),
+    el("ul", {}, view.outranked.map((o) => el("li", {}, `${o.mechanism}: `, el("code", {}, o.rule),
+      ` (${o.grade}, priority ${o.priority}) lost to ${o.outranked_by.join(", ")} `
+      + `(priority ${o.winning_priority})`)))) : null);
+  $("all-rules-body").replaceChildren(...view.rules.map((r) => el("details", { class: "rule" },
+    el("summary", {}, el("span", { class: `state state-${r.state}` }, `[${r.state}]`), " ",
+      el("code", {}, r.rule), ` ${r.title}`, r.role ? ` — ${r.role}` : "",
+      r.shadow ? " (testing: reported only)" : ""),
+    el("ul", { class: "tree" }, treeNode(r.tree)))));
+}
+
+// --- Fixtures -----------------------------------------------------------------------------
+
+async function runFixtures() {
+  $("fixtures-summary").textContent = "Running the fixtures…";
+  try {
+    const run = await api("/bench/api/fixtures");
+    $("fixtures-summary").textContent = run.summary;
+    const cases = [...run.cases].sort((a, b) => Number(a.passed) - Number(b.passed));
+    const body = $("fixtures-table").tBodies[0];
+    body.replaceChildren(...cases.map((c) => el("tr", { "data-status": c.status },
+      el("td", {}, el("code", {}, c.name), el("div", { class: "muted" }, c.description)),
+      el("td", {}, el("span", { class: c.status }, STATUS_MARK[c.status] || c.status)),
+      el("td", {}, c.pattern || "—"),
+      el("td", {}, c.error ? `input rejected: ${c.error}` : c.mismatches.length
+        ? table(["What", "Expected", "Got", "Unit"], c.mismatches.map((m) => [m.what, m.expected, m.got, m.unit]))
+        : "—"),
+      el("td", {}, el("button", { type: "button", onclick: () => openFixture(c.name) },
+        "Open", el("span", { class: "sr" }, ` ${c.name}`))))));
+    $("fixtures-table").hidden = false;
+  } catch (error) {
+    $("fixtures-summary").textContent = `The fixtures could not be run: ${error.message}`;
+  }
+}
+
+async function openFixture(name) {
+  try {
+    const found = await api(`/bench/api/fixture?name=${encodeURIComponent(name)}`);
+    setCase(found.input, found.expected, `${name.split("/").pop()}.bundle.json`);
+    $("verdict").scrollIntoView();
+  } catch (error) { say(error.message, true); }
+}
+
+async function makeFixture() {
+  const list = $("fixture-files");
+  list.replaceChildren(el("li", {}, "Making the files…"));
+  try {
+    const made = await api("/bench/api/fixture", { input: state.input, what_if: state.whatIf,
+      units: state.units, name: $("fixture-name").value, description: $("fixture-description").value });
+    list.replaceChildren(...made.files.map((f) => {
+      const type = f.name.endsWith(".json") ? "application/fhir+json" : "application/yaml";
+      const href = URL.createObjectURL(new Blob([f.text], { type }));
+      return el("li", {}, el("a", { href, download: f.name, class: "download" }, `Download ${f.name}`),
+        el("details", {}, el("summary", {}, "show"), el("pre", { class: "mono" }, f.text)));
+    }));
+  } catch (error) {
+    list.replaceChildren(el("li", { class: "failed" }, error.message));
+  }
+}
+
+// --- Start --------------------------------------------------------------------------------
+
+async function start() {
+  const drop = $("drop");
+  drop.addEventListener("dragover", (e) => { e.preventDefault(); drop.classList.add("over"); });
+  drop.addEventListener("dragleave", () => drop.classList.remove("over"));
+  drop.addEventListener("drop", (e) => {
+    e.preventDefault();
+    drop.classList.remove("over");
+    loadFiles([...e.dataTransfer.files]);
+  });
+  drop.addEventListener("keydown", (e) => { if (e.key === "Enter") $("files").click(); });
+  $("files").addEventListener("change", (e) => loadFiles([...e.target.files]));
+  $("assess-paste").addEventListener("click", () =>
+    setCase($("paste").value, $("expected-text").value || null, "pasted case"));
+  $("units").addEventListener("change", (e) => {
+    state.units = e.target.value;
+    state.whatIf = {};
+    state.fields = null;
+    assess();
+  });
+  $("whatif-reset").addEventListener("click", () => { state.whatIf = {}; state.fields = null; assess(); });
+  $("run-fixtures").addEventListener("click", runFixtures);
+  $("make-fixture").addEventListener("click", makeFixture);
+  $("load-scenario").addEventListener("click", async () => {
+    try {
+      const found = await api(`/bench/api/scenario?name=${encodeURIComponent($("scenario").value)}`);
+      setCase(found.input, null, `${found.name}.bundle.json`);
+    } catch (error) { say(error.message, true); }
+  });
+  try {
+    const info = await api("/bench/api/info");
+    $("ruleset").textContent = `Rule set ${info.ruleset} — ${info.ruleset_title}`;
+    if (info.site) {
+      const changes = info.site.parameters.map((p) => `${p.name} ${p.site} ${p.unit} (rule set: ${p.rule_set})`)
+        .concat(Object.entries(info.site.settings).map(([k, v]) => `${k} ${v}`));
+      $("site").textContent = `Site file in force: ${info.site.label}`
+        + (changes.length ? ` — ${changes.join("; ")}` : "");
+      $("site").hidden = false;
+    }
+    $("caution").textContent = info.caution;
+    $("caution-foot").textContent = info.caution;
+    state.units = info.units;
+    $("units").value = info.units;
+    $("scenario").replaceChildren(...info.scenarios.map((s) => el("option", { value: s.name }, `${s.label} (invented)`)));
+    $("fixtures-where").textContent = info.fixtures.length ? `from ${info.fixtures.join(", ")}` : "no fixture folder found";
+    document.body.dataset.ready = "true";
+  } catch (error) { say(`The bench could not reach the service: ${error.message}`, true); }
+}
+
+start();
