@@ -27,6 +27,8 @@ class EvaluationContext:
     facts: Mapping[str, FactValue]
     states: Sequence[TruthValue]
     leaves: Sequence[Leaf]
+    blocks: dict[str, "TraceNode"] = field(default_factory=dict, compare=False, repr=False)
+    """Each named block's trace, made once per evaluation for all the rules that use it."""
 
 
 @dataclass(frozen=True, slots=True)
@@ -110,6 +112,13 @@ class RuleResult:
             seen = "missing" if value is None else f"{shown_value(value)}{leaf.shown_unit}"
             text = f"{leaf.fact} {seen} {leaf.shown_test}"
             return TraceNode("leaf", trace.state, leaf=trace, text=text)
+        if node.kind == "ref" and node.name is not None:
+            made = self.context.blocks.get(node.name)
+            if made is None:
+                children = tuple(self._node(part) for part in node.parts)
+                made = TraceNode("ref", truth_of(node.truth(states)), children, node.name)
+                self.context.blocks[node.name] = made
+            return made
         children = tuple(self._node(part) for part in node.parts)
         return TraceNode(node.kind, truth_of(node.truth(states)), children, node.name)
 

@@ -29,6 +29,7 @@ from service.assess.presentation import (
 )
 from service.assess.result import CAUTION, Assessment
 from service.demo import SCENARIOS, demo_dir
+from service.engine import Truth
 from service.fhir.extract import read_bundle
 from service.fhir.intake_bundle import intake_bundle
 from service.intake.model import Intake
@@ -153,11 +154,12 @@ def _what_if_fields(done: Assessed, unit: PressureUnit) -> list[dict[str, Any]]:
     fields = []
     for f in FIELDS:
         fact = WHAT_IF_FACTS[f.key]
-        low, high, step = f.low, f.high, f.step
-        shown_unit = f.unit
+        low, high, step, start = f.low, f.high, f.step, f.start
+        shown_unit = {"1": "", "a": "years"}.get(f.unit, f.unit)
         if f.unit == "mm[Hg]":
-            low, shown_unit = _shown(low, f.unit, unit)
+            low, _ = _shown(low, f.unit, unit)
             high, _ = _shown(high, f.unit, unit)
+            start, _ = _shown(start, f.unit, unit)
             step = 0.1 if unit == "kPa" else step
         value_sent, value_now = sent.get(fact), now.get(fact)
         fields.append(
@@ -168,6 +170,7 @@ def _what_if_fields(done: Assessed, unit: PressureUnit) -> list[dict[str, Any]]:
                 "low": round(low, 2),
                 "high": round(high, 2),
                 "step": step,
+                "start": round(start, 2),
                 "sent": _number(value_sent, f.unit, unit),
                 "value": _number(value_now, f.unit, unit),
             }
@@ -319,7 +322,12 @@ def view(
     done = assess_case(runtime, raw, what_if, unit)
     a = done.assessment
     explained = explain_json(
-        done.intake, a, settings=runtime.settings, site=runtime.site_view, pressure_unit=unit
+        done.intake,
+        a,
+        settings=runtime.settings,
+        site=runtime.site_view,
+        pressure_unit=unit,
+        shared_blocks=True,
     )
     verdict = explained["verdict"]
     for m in verdict["mechanisms"]:
@@ -336,6 +344,7 @@ def view(
         "oxygen_response": _oxygen_response(done.result),
         "numbers": _numbers(a, unit),
         "deciding": explained["deciding"],
+        "blocks": explained["blocks"],
         "outranked": explained["outranked"],
         "rules": [
             {k: r[k] for k in ("rule", "title", "state", "shadow", "role", "tree", "rationale")}
@@ -426,6 +435,15 @@ def _fixture_name(name: str) -> str:
     return cleaned[:80] or "bench-case"
 
 
+def _fired(a: Assessment) -> list[str]:
+    """The deciding rules that fired as the inputs were sent (a grade decided at an end of an
+    uncertain input's range has rules that are unknown there: a fixture cannot pin them)."""
+    deciding = {ref for m in a.mechanisms for ref in m.rules}
+    return sorted(
+        r.rule.id for r in a.evaluation.results if r.ref in deciding and r.state is Truth.TRUE
+    )
+
+
 def export_fixture(
     runtime: Runtime,
     raw: bytes,
@@ -446,7 +464,7 @@ def export_fixture(
         "hypoxaemia": again.hypoxaemia.value,
         "mechanisms": {m.code.value: m.grade.value for m in again.mechanisms},
         "findings": sorted({f.code for f in again.findings}),
-        "rules_fire": sorted({ref.split("@")[0] for m in again.mechanisms for ref in m.rules}),
+        "rules_fire": _fired(again),
         "derived": {
             key: {"value": round(d.value, 2), "unit": d.unit, "tolerance": tolerance}
             for key, tolerance in PINNED.items()

@@ -73,8 +73,12 @@ def _measurement(m: Measurement, pressure_unit: PressureUnit) -> dict[str, Any]:
     return item
 
 
-def tree_json(node: TraceNode) -> dict[str, Any]:
-    """A condition tree as plain data: kind, state, a leaf's text and missing fact, children."""
+def tree_json(node: TraceNode, blocks: dict[str, dict[str, Any]] | None = None) -> dict[str, Any]:
+    """A condition tree as plain data: kind, state, a leaf's text and missing fact, children.
+
+    With ``blocks``, a named block's parts are written there once (by name) rather than under
+    every rule that uses it.
+    """
     item: dict[str, Any] = {"kind": node.kind, "state": node.state.value}
     if node.name is not None:
         item["name"] = node.name
@@ -82,8 +86,13 @@ def tree_json(node: TraceNode) -> dict[str, Any]:
         item["text"] = node.text
         if node.leaf.missing is not None:
             item["missing"] = node.leaf.missing
+    if node.kind == "ref" and blocks is not None and node.name is not None:
+        if node.name not in blocks:
+            blocks[node.name] = {}  # taken before its parts, which may refer to others
+            blocks[node.name] = tree_json(node.children[0], blocks)
+        return item
     if node.children:
-        item["children"] = [tree_json(child) for child in node.children]
+        item["children"] = [tree_json(child, blocks) for child in node.children]
     return item
 
 
@@ -107,30 +116,32 @@ def _roles(a: Assessment) -> dict[str, str]:
     return roles
 
 
-def _rule(r: RuleResult, role: str | None) -> dict[str, Any]:
+def _rule(
+    r: RuleResult, role: str | None, blocks: dict[str, dict[str, Any]] | None
+) -> dict[str, Any]:
     return {
         "rule": r.ref,
         "title": r.rule.title,
         "state": r.state.value,
         "shadow": r.shadow,
         "role": role,
-        "tree": tree_json(r.tree),
+        "tree": tree_json(r.tree, blocks),
         "conditions": list(r.trace_lines),
         "missing": list(r.undecided) if r.state is Truth.UNKNOWN else [],
         "rationale": r.rationale if r.state is Truth.TRUE else None,
     }
 
 
-def _rules(a: Assessment) -> list[dict[str, Any]]:
+def _rules(a: Assessment, blocks: dict[str, dict[str, Any]] | None) -> list[dict[str, Any]]:
     roles = _roles(a)
-    return [_rule(r, roles.get(r.ref)) for r in a.evaluation.results]
+    return [_rule(r, roles.get(r.ref), blocks) for r in a.evaluation.results]
 
 
 def _result_of(evaluation: Evaluation, ref: str) -> RuleResult | None:
     return next((r for r in evaluation.results if r.ref == ref), None)
 
 
-def _deciding(a: Assessment) -> list[dict[str, Any]]:
+def _deciding(a: Assessment, blocks: dict[str, dict[str, Any]] | None) -> list[dict[str, Any]]:
     """The rules behind each part of the verdict, each with its tree (as the inputs were sent)."""
     evaluation = a.evaluation
     verdict = evaluation.verdict
@@ -148,7 +159,7 @@ def _deciding(a: Assessment) -> list[dict[str, Any]]:
         if result is None:
             continue
         item: dict[str, Any] = {"for": what, "rule": ref, "state": result.state.value}
-        item["tree"] = tree_json(result.tree)
+        item["tree"] = tree_json(result.tree, blocks)
         if result.state is not Truth.TRUE:
             item["note"] = (
                 "decided at an end of the range of an uncertain input; as the inputs were "
@@ -300,20 +311,24 @@ def explain_json(
     settings: Settings,
     site: SiteView | None = None,
     pressure_unit: PressureUnit | None = None,
+    shared_blocks: bool = False,
 ) -> dict[str, Any]:
     """The explanation as plain data (for tools and the bench), the verdict first.
 
     ``settings`` are those ``a`` was assessed with, ``site`` what their site file changed, and
     ``pressure_unit`` the unit the rationales of ``a`` were rendered in (default: the site's).
+    With ``shared_blocks`` each named block's tree is given once, under ``blocks``, and the
+    rules' trees name it (``{"kind": "ref", "name": ...}``) instead of repeating it.
     """
     unit: PressureUnit = pressure_unit or settings.pressure_unit
-    return {
+    blocks: dict[str, dict[str, Any]] | None = {} if shared_blocks else None
+    data = {
         "verdict": _verdict(a),
         "partition": _partitions(a, settings),
         "uncertain_inputs": _uncertain(a),
         "site": site.as_json() if site is not None else None,
         "pressure_unit": unit,
-        "deciding": _deciding(a),
+        "deciding": _deciding(a, blocks),
         "outranked": _outranked(a),
         "ruleset": a.ruleset_identity,
         "ruleset_hash": a.ruleset_hash,
@@ -335,9 +350,12 @@ def explain_json(
             for name, d in a.index.derived.items()
         },
         "facts": dict(a.index.facts),
-        "rules": _rules(a),
+        "rules": _rules(a, blocks),
         "caution": CAUTION,
     }
+    if blocks is not None:
+        data["blocks"] = blocks
+    return data
 
 
 def _fmt(value: object) -> str:

@@ -52,16 +52,18 @@ class Field:
     low: float
     high: float
     step: float
+    start: float
+    """Where the control starts when the case did not send the input (a typical value)."""
 
 
 # Pressures are in mm[Hg] here; the bench shows and sends them in the unit the reader chose.
 FIELDS = (
-    Field("fio2", "FiO2", "1", FIO2_LIMITS[0], FIO2_LIMITS[1], 0.01),
-    Field("altitude_m", "Altitude", "m", ALTITUDE_M[0], 5500.0, 50.0),
-    Field("barometric_pressure_mmhg", "Barometric pressure", "mm[Hg]", 350.0, 800.0, 1.0),
-    Field("age_years", "Age", "a", max(AGE_YEARS[0], 18.0), min(AGE_YEARS[1], 100.0), 1.0),
-    Field("paco2_mmhg", "PaCO2", "mm[Hg]", 15.0, 120.0, 1.0),
-    Field("haemoglobin_g_dl", "Hb", "g/dL", 4.0, 22.0, 0.1),
+    Field("fio2", "FiO2", "1", FIO2_LIMITS[0], FIO2_LIMITS[1], 0.01, 0.21),
+    Field("altitude_m", "Altitude", "m", ALTITUDE_M[0], 5500.0, 50.0, 0.0),
+    Field("barometric_pressure_mmhg", "Barometric pressure", "mm[Hg]", 350.0, 800.0, 1.0, 760.0),
+    Field("age_years", "Age", "a", max(AGE_YEARS[0], 18.0), min(AGE_YEARS[1], 100.0), 1.0, 50.0),
+    Field("paco2_mmhg", "PaCO2", "mm[Hg]", 15.0, 120.0, 1.0, 40.0),
+    Field("haemoglobin_g_dl", "Hb", "g/dL", 4.0, 22.0, 0.1, 14.0),
 )
 FIELD = {f.key: f for f in FIELDS}
 

@@ -3,7 +3,7 @@
 // The case stays in this page (state.input) and is sent with each call; nothing is stored.
 
 const state = { input: null, expected: null, name: "", units: "mm[Hg]", whatIf: {},
-  fields: null, seq: 0, timer: null };
+  fields: null, seq: 0, timer: null, blocks: {} };
 const $ = (id) => document.getElementById(id);
 
 function el(tag, attrs = {}, ...children) {
@@ -19,6 +19,11 @@ function el(tag, attrs = {}, ...children) {
     node.append(child instanceof Node ? child : document.createTextNode(String(child)));
   }
   return node;
+}
+
+function fill(node, ...children) {
+  // Like replaceChildren, leaving out the parts that are not there (null).
+  node.replaceChildren(...children.flat().filter((c) => c !== null && c !== undefined));
 }
 
 function svgNode(markup) {
@@ -133,7 +138,7 @@ function renderVerdict(view) {
   const v = view.verdict;
   $("case-name").textContent = state.name ? `Case: ${state.name}` : "";
   const list = $("verdict-list");
-  list.replaceChildren(
+  fill(list,
     el("dt", {}, "Pattern"), el("dd", {}, el("span", { id: "pattern", class: "pattern" }, v.pattern)),
     el("dt", {}, "Why"), el("dd", { id: "why" }, v.why),
     el("dt", {}, "Hypoxaemia"), el("dd", {}, v.hypoxaemia),
@@ -144,34 +149,34 @@ function renderVerdict(view) {
       "inputs changed from the case as sent (section 3)")] : null,
   );
   const body = $("mechanisms").tBodies[0];
-  body.replaceChildren(...v.mechanisms.map((m) => el("tr", { "data-mechanism": m.code },
+  fill(body, ...v.mechanisms.map((m) => el("tr", { "data-mechanism": m.code },
     el("td", {}, m.name),
     el("td", {}, el("span", { class: `grade grade-${m.grade}`, "data-grade": m.grade },
       `${GRADE_MARK[m.grade] || ""} ${m.grade}`)),
     el("td", {}, m.rationale),
     el("td", {}, m.discriminator || "—"),
     el("td", {}, m.rules.length ? m.rules.map((r) => el("div", {}, el("code", {}, r))) : "—"))));
-  $("findings").replaceChildren(v.findings.length
+  fill($("findings"), v.findings.length
     ? table(["Severity", "Code", "Message", "Rule"], v.findings.map((f) =>
       [f.severity, el("code", {}, f.code), f.message, f.rule ? el("code", {}, f.rule) : "—"]))
     : el("p", { class: "muted" }, "No findings."));
   const split = v.data_requested_split;
-  $("requested").replaceChildren(
+  fill($("requested"),
     split.not_sent.length ? el("p", {}, el("strong", {}, "Not sent, would settle an open question: "),
       split.not_sent.join(", ")) : null,
     split.again.length ? el("p", {}, el("strong", {}, "Sent, and worth repeating (as the discriminators say): "),
       split.again.join(", ")) : null);
   const u = view.uncertain_inputs;
-  $("uncertain").replaceChildren(u.inputs.length ? el("div", {},
+  fill($("uncertain"), u.inputs.length ? el("div", {},
     el("h3", {}, "Known only as a range (assessed at each end)"),
     el("ul", {}, u.inputs.map((w) => el("li", {}, w))),
     table(["Mechanism", "Grade", "How it depended"], u.grades.map((g) => [g.mechanism, g.grade, g.how])))
     : null);
   const check = view.expected;
   const box = $("expected-check");
-  if (!check) { box.replaceChildren(); return; }
-  if (check.error) { box.replaceChildren(el("p", { class: "failed" }, check.error)); return; }
-  box.replaceChildren(
+  if (!check) { fill(box); return; }
+  if (check.error) { fill(box, el("p", { class: "failed" }, check.error)); return; }
+  fill(box,
     el("p", {}, "Expected outcome: ",
       el("span", { id: "expected-status", class: check.status }, STATUS_MARK[check.status] || check.status),
       ` — ${check.description}`),
@@ -184,7 +189,7 @@ function renderWhatIf(whatIf) {
   const focused = document.activeElement && document.activeElement.id;
   if (!state.fields) {
     state.fields = whatIf.fields;
-    form.replaceChildren(...whatIf.fields.map(whatIfField));
+    fill(form, ...whatIf.fields.map(whatIfField));
   }
   for (const f of whatIf.fields) {
     const changed = f.key in state.whatIf;
@@ -201,7 +206,7 @@ function renderWhatIf(whatIf) {
 
 function whatIfField(f) {
   const id = `wi-${f.key}`;
-  const start = f.value ?? f.low;
+  const start = f.value ?? f.start;
   const set = (value) => {
     if (value === "" || Number.isNaN(Number(value))) return;
     $(`${id}-range`).value = value;
@@ -234,10 +239,10 @@ function whatIfField(f) {
 function renderPartition(p) {
   const body = $("partition-body");
   if (!p.charts.length) {
-    body.replaceChildren(el("p", { class: "muted" }, `Not computed: ${p.absent}.`));
+    fill(body, el("p", { class: "muted" }, `Not computed: ${p.absent}.`));
     return;
   }
-  body.replaceChildren(...p.charts.map((c) => el("figure", {},
+  fill(body, ...p.charts.map((c) => el("figure", {},
     c.assumption ? el("h3", {}, c.assumption) : null,
     svgNode(c.svg),
     el("figcaption", {}, `From the PaO2 expected for age (${c.expected} ${p.unit}) to the PaO2 `
@@ -250,7 +255,7 @@ function renderPartition(p) {
 function renderCascade(c) {
   $("cascade").hidden = !c;
   if (!c) return;
-  $("cascade-body").replaceChildren(el("figure", {}, svgNode(c.svg),
+  fill($("cascade-body"), el("figure", {}, svgNode(c.svg),
     el("figcaption", {}, `Normal cascade for ${c.conditions}.`,
       el("ul", {}, c.notes.map((n) => el("li", {}, n))))));
 }
@@ -264,14 +269,14 @@ function renderOxygen(o) {
   const box = $("oxygen-body");
   $("oxygen-response").hidden = false;
   if (o.gases.length < 2 && !fits) {
-    box.replaceChildren(el("p", { class: "muted" }, "One gas: the response to oxygen needs gases "
+    fill(box, el("p", { class: "muted" }, "One gas: the response to oxygen needs gases "
       + "on different FiO2. (A fitted oxygen-response curve, when the result carries one, is shown here.)"));
     return;
   }
   const rows = o.gases.map((g) => [g.index ? "index (latest)" : "earlier", g.observation || "—",
     { num: quantityText(g.fio2) }, { num: quantityText(g["pf-ratio"]) },
     { num: quantityText(g["aa-gradient"]) }, { num: quantityText(g["venous-admixture"]) }]);
-  box.replaceChildren(
+  fill(box,
     table(["Gas", "Observation", "FiO2", "P/F", "A-a gradient", "Venous admixture"], rows,
       "Each arterial gas of the case, from the result."),
     ...o.parameters.map((p) => el("div", {}, el("h3", {}, p.name),
@@ -292,7 +297,7 @@ function partValue(part) {
 }
 
 function renderNumbers(numbers) {
-  $("numbers-table").tBodies[0].replaceChildren(...numbers.map((n) => el("tr", {},
+  fill($("numbers-table").tBodies[0], ...numbers.map((n) => el("tr", {},
     el("td", {}, n.label), el("td", { class: "num" }, n.value), el("td", {}, n.unit),
     el("td", {}, n.method))));
 }
@@ -305,24 +310,32 @@ function treeNode(node) {
     return el("li", {}, mark, " ", el("code", {}, node.text),
       node.missing ? el("span", { class: "muted" }, ` (missing: ${node.missing})`) : null);
   }
-  const words = node.kind === "ref" ? `block ${node.name}` : KIND_WORDS[node.kind] || node.kind;
-  const open = node.kind !== "ref";
-  return el("li", {}, el("details", { open },
-    el("summary", {}, mark, " ", words),
+  if (node.kind === "ref") {
+    // A named block: its parts are given once (view.blocks), laid out when it is opened.
+    const parts = el("ul", {});
+    const details = el("details", {}, el("summary", {}, mark, " ", `block ${node.name}`), parts);
+    details.addEventListener("toggle", () => {
+      if (details.open && !parts.childElementCount) fill(parts, treeNode(state.blocks[node.name]));
+    });
+    return el("li", {}, details);
+  }
+  return el("li", {}, el("details", { open: true },
+    el("summary", {}, mark, " ", KIND_WORDS[node.kind] || node.kind),
     el("ul", {}, (node.children || []).map(treeNode))));
 }
 
 function renderTrace(view) {
-  $("deciding").replaceChildren(...view.deciding.map((d) => el("details", { class: "rule", open: true },
+  state.blocks = view.blocks;
+  fill($("deciding"), ...view.deciding.map((d) => el("details", { class: "rule", open: true },
     el("summary", { class: "rule-head" }, `${d.for} ← `, el("code", {}, d.rule)),
     d.note ? el("p", { class: "muted" }, d.note) : null,
     el("ul", { class: "tree" }, treeNode(d.tree)))));
-  $("outranked").replaceChildren(view.outranked.length ? el("div", {},
+  fill($("outranked"), view.outranked.length ? el("div", {},
     el("h3", {}, "Fired but outranked"),
     el("ul", {}, view.outranked.map((o) => el("li", {}, `${o.mechanism}: `, el("code", {}, o.rule),
       ` (${o.grade}, priority ${o.priority}) lost to ${o.outranked_by.join(", ")} `
       + `(priority ${o.winning_priority})`)))) : null);
-  $("all-rules-body").replaceChildren(...view.rules.map((r) => el("details", { class: "rule" },
+  fill($("all-rules-body"), ...view.rules.map((r) => el("details", { class: "rule" },
     el("summary", {}, el("span", { class: `state state-${r.state}` }, `[${r.state}]`), " ",
       el("code", {}, r.rule), ` ${r.title}`, r.role ? ` — ${r.role}` : "",
       r.shadow ? " (testing: reported only)" : ""),
@@ -338,7 +351,7 @@ async function runFixtures() {
     $("fixtures-summary").textContent = run.summary;
     const cases = [...run.cases].sort((a, b) => Number(a.passed) - Number(b.passed));
     const body = $("fixtures-table").tBodies[0];
-    body.replaceChildren(...cases.map((c) => el("tr", { "data-status": c.status },
+    fill(body, ...cases.map((c) => el("tr", { "data-status": c.status },
       el("td", {}, el("code", {}, c.name), el("div", { class: "muted" }, c.description)),
       el("td", {}, el("span", { class: c.status }, STATUS_MARK[c.status] || c.status)),
       el("td", {}, c.pattern || "—"),
@@ -363,18 +376,18 @@ async function openFixture(name) {
 
 async function makeFixture() {
   const list = $("fixture-files");
-  list.replaceChildren(el("li", {}, "Making the files…"));
+  fill(list, el("li", {}, "Making the files…"));
   try {
     const made = await api("/bench/api/fixture", { input: state.input, what_if: state.whatIf,
       units: state.units, name: $("fixture-name").value, description: $("fixture-description").value });
-    list.replaceChildren(...made.files.map((f) => {
+    fill(list, ...made.files.map((f) => {
       const type = f.name.endsWith(".json") ? "application/fhir+json" : "application/yaml";
       const href = URL.createObjectURL(new Blob([f.text], { type }));
       return el("li", {}, el("a", { href, download: f.name, class: "download" }, `Download ${f.name}`),
         el("details", {}, el("summary", {}, "show"), el("pre", { class: "mono" }, f.text)));
     }));
   } catch (error) {
-    list.replaceChildren(el("li", { class: "failed" }, error.message));
+    fill(list, el("li", { class: "failed" }, error.message));
   }
 }
 
@@ -422,7 +435,7 @@ async function start() {
     $("caution-foot").textContent = info.caution;
     state.units = info.units;
     $("units").value = info.units;
-    $("scenario").replaceChildren(...info.scenarios.map((s) => el("option", { value: s.name }, `${s.label} (invented)`)));
+    fill($("scenario"), ...info.scenarios.map((s) => el("option", { value: s.name }, `${s.label} (invented)`)));
     $("fixtures-where").textContent = info.fixtures.length ? `from ${info.fixtures.join(", ")}` : "no fixture folder found";
     document.body.dataset.ready = "true";
   } catch (error) { say(`The bench could not reach the service: ${error.message}`, true); }
