@@ -26,11 +26,17 @@ column); ``tests/test_exceptions.py`` checks the drawing against the classes::
     AuthConfigError (ValueError)              service.api.auth
     StartupError (Exception)                  service.api.server
     FixtureError (ValueError)                 service.workbench.expectations
+    CaseInputError (ValueError)               service.workbench.case_input
+    WhatIfError (ValueError)                  service.workbench.whatif
+    BenchError (ValueError)                   service.workbench.bench
+    NotWritable (ValueError)                  service.fhir.intake_bundle
 
 The engine's errors stand outside because the engine imports nothing of the service (it is
 usable on its own); ``ApiError`` is an HTTP refusal carried to the exception handler, not a
 fault; ``AuthConfigError``, ``StartupError`` and ``FixtureError`` are start-up and tooling
-errors reported to an operator.
+errors reported to an operator; ``CaseInputError``, ``WhatIfError``, ``BenchError`` and
+``NotWritable`` are the rule owner's tools' (``explain``, the bench), each turned into a
+located message or a 422 by its surface.
 
 The physiology package raises only ``PhysiologyError`` and ``UnitError``; adapters (FHIR,
 HL7 v2, HTTP) catch them and turn them into located OperationOutcome issues. Messages say
