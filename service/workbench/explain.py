@@ -531,8 +531,9 @@ def _read_lines(data: dict[str, Any]) -> list[str]:
     out = ["Read (each value as a reader writes it; what was sent when it was converted)"]
     for m in data["measurements"]:
         sent = ""
-        if "sent" in m:
-            sent = f"  (sent {_fmt(m['sent']['value'])} {m['sent']['unit']})"
+        if "sent" in m:  # said when the sender's writing differs from the one shown
+            written = f"{_fmt(m['sent']['value'])} {m['sent']['unit']}"
+            sent = "" if written == m["shown"] else f"  (sent {written})"
         specimen = f" [{m['specimen']}]" if "specimen" in m else ""
         out.append(
             f"  {m['quantity']:<26} {m['shown']:>12}{specimen} "
