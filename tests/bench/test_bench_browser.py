@@ -297,6 +297,20 @@ def test_the_bench_is_usable_from_the_keyboard_and_without_colour(
     page.screenshot(path=str(tmp_path / "5-forced-colours.png"), full_page=False)
 
 
+def test_gases_on_different_fio2_show_the_response_to_oxygen(page: Any, tmp_path: Path) -> None:
+    page.select_option("#scenario", "ventilated-two-fio2")
+    page.click("#load-scenario")
+    expect = _expect()
+    expect(page.locator("#oxygen-body svg.oxygen-chart")).to_have_count(1)
+    chart = page.locator("#oxygen-body svg.oxygen-chart")
+    # One mark per gas (the latest filled, the earlier open), placed from the result's numbers.
+    assert chart.locator("rect").count() == 1 and chart.locator("circle").count() == 1
+    rows = page.locator("#oxygen-body table tbody tr")
+    assert rows.count() == 2
+    assert {rows.nth(i).locator("td").nth(2).inner_text() for i in range(2)} == {"0.50", "1.00"}
+    page.locator("#oxygen-response").screenshot(path=str(tmp_path / "7-oxygen-response.png"))
+
+
 def test_the_bench_works_offline(browser: Any, server: str, tmp_path: Path) -> None:
     # Every request to anywhere but the service fails: the bench still loads and assesses.
     context = browser.new_context()

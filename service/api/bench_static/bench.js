@@ -261,7 +261,9 @@ function renderCascade(c) {
 }
 
 function quantityText(q) {
-  return q ? `${q.value} ${q.unit === "1" ? "" : q.code}`.trim() : "—";
+  if (!q) return "—";
+  const unit = { "mm[Hg]": "mmHg", "1": "" }[q.code] ?? q.code;
+  return `${q.code === "1" ? q.value.toFixed(2) : q.value} ${unit}`.trim();
 }
 
 function renderOxygen(o) {
@@ -277,6 +279,7 @@ function renderOxygen(o) {
     { num: quantityText(g.fio2) }, { num: quantityText(g["pf-ratio"]) },
     { num: quantityText(g["aa-gradient"]) }, { num: quantityText(g["venous-admixture"]) }]);
   fill(box,
+    oxygenChart(o.gases),
     table(["Gas", "Observation", "FiO2", "P/F", "A-a gradient", "Venous admixture"], rows,
       "Each arterial gas of the case, from the result."),
     ...o.parameters.map((p) => el("div", {}, el("h3", {}, p.name),
@@ -284,6 +287,52 @@ function renderOxygen(o) {
     ...o.observations.map((obs) => el("div", {}, el("h3", {}, obs.id),
       table(["Component", "Value"], (obs.component || []).map((c) =>
         [(c.code.coding || [{}])[0].code || "", quantityText(c.valueQuantity)])))));
+}
+
+const SVG = "http://www.w3.org/2000/svg";
+
+function svg(tag, attrs, text) {
+  const node = document.createElementNS(SVG, tag);
+  for (const [key, value] of Object.entries(attrs)) node.setAttribute(key, String(value));
+  if (text !== undefined) node.textContent = text;
+  return node;
+}
+
+function oxygenChart(gases) {
+  // The result's own numbers, placed: each gas at its FiO2, with its venous admixture (or its
+  // P/F ratio when no admixture was computed). Nothing is computed here.
+  const key = gases.some((g) => g["venous-admixture"]) ? "venous-admixture" : "pf-ratio";
+  const points = gases.filter((g) => g.fio2 && g[key])
+    .map((g) => ({ x: g.fio2.value, y: g[key].value, index: g.index }));
+  if (points.length < 2) return null;
+  const [w, h, left, bottom] = [520, 220, 56, 36];
+  const top = Math.max(...points.map((p) => p.y)) * 1.15 || 1;
+  const px = (x) => left + (x - 0.2) / 0.8 * (w - left - 70);
+  const py = (y) => h - bottom - (y / top) * (h - bottom - 14);
+  const label = key === "venous-admixture" ? "venous admixture (%)"
+    : `P/F ratio (${quantityText(gases.find((g) => g[key])[key]).split(" ").pop()})`;
+  const chart = svg("svg", { viewBox: `0 0 ${w} ${h}`, role: "img", class: "oxygen-chart",
+    "aria-label": `Each gas's ${label} against its FiO2` });
+  chart.append(svg("line", { x1: left, x2: w - 12, y1: h - bottom, y2: h - bottom, stroke: "#1f2a33" }));
+  chart.append(svg("line", { x1: left, x2: left, y1: 8, y2: h - bottom, stroke: "#1f2a33" }));
+  for (const f of [0.2, 0.4, 0.6, 0.8, 1.0]) {
+    chart.append(svg("text", { x: px(f), y: h - bottom + 16, "text-anchor": "middle", "font-size": 11 }, f.toFixed(1)));
+  }
+  chart.append(svg("text", { x: (w + left) / 2, y: h - 4, "text-anchor": "middle", "font-size": 11 }, "FiO2"));
+  chart.append(svg("text", { x: 12, y: 12, "font-size": 11 }, label));
+  const ordered = [...points].sort((a, b) => a.x - b.x);
+  chart.append(svg("polyline", { points: ordered.map((p) => `${px(p.x)},${py(p.y)}`).join(" "),
+    fill: "none", stroke: "#1f2a33", "stroke-dasharray": "4 3" }));
+  for (const p of points) {
+    chart.append(svg(p.index ? "rect" : "circle", p.index
+      ? { x: px(p.x) - 5, y: py(p.y) - 5, width: 10, height: 10, fill: "#1f2a33" }
+      : { cx: px(p.x), cy: py(p.y), r: 5, fill: "white", stroke: "#1f2a33", "stroke-width": 2 }));
+    chart.append(svg("text", { x: px(p.x) + 8, y: py(p.y) - 8, "font-size": 11 },
+      `${p.y}${p.index ? " (latest)" : ""}`));
+  }
+  return el("figure", {}, chart, el("figcaption", {},
+    `${label} of each gas against its FiO2, from the result: filled square the latest gas, `
+    + "open circles the earlier ones."));
 }
 
 function partValue(part) {
