@@ -54,11 +54,11 @@ def _init_worker(settings: Settings, unit: PressureUnit | None) -> None:
     _worker = (Runtime.load(settings), unit)
 
 
-def _work(item: tuple[int, bytes]) -> tuple[bytes, bool]:
+def _work(item: tuple[int, bytes]) -> tuple[int, bytes, bool]:
     assert _worker is not None
     runtime, unit = _worker
     number, raw = item
-    return answer(runtime, raw, f"line {number}", unit)
+    return (number, *answer(runtime, raw, f"line {number}", unit))
 
 
 def numbered_lines(stream: IO[bytes]) -> Iterator[tuple[int, bytes]]:
@@ -74,34 +74,58 @@ def assess_lines(
     settings: Settings,
     unit: PressureUnit | None,
     workers: int = 1,
-) -> Iterator[tuple[bytes, bool]]:
-    """Answers to NDJSON lines, in order."""
+) -> Iterator[tuple[int, bytes, bool]]:
+    """Answers to NDJSON lines, in order: (line number, answer, whether it was rejected)."""
     if workers <= 1:
         runtime = Runtime.load(settings)
         for number, raw in lines:
-            yield answer(runtime, raw, f"line {number}", unit)
+            yield (number, *answer(runtime, raw, f"line {number}", unit))
         return
     context = multiprocessing.get_context("spawn")
     with context.Pool(workers, initializer=_init_worker, initargs=(settings, unit)) as pool:
         yield from pool.imap(_work, lines, chunksize=16)
 
 
-class Progress:
-    """A one-line progress counter on stderr, shown only when stderr is a terminal."""
+SHOWN_LINE_NUMBERS = 20
+"""Rejected line numbers the summary lists; past them it counts the rest."""
 
-    def __init__(self, stream: IO[str] = sys.stderr) -> None:
-        self.stream = stream
-        self.enabled = stream.isatty()
+
+class Progress:
+    """A progress counter on stderr while a terminal watches, and always, at the end, one line
+    saying what happened: ``oxyrule: 98 assessed, 2 rejected (lines 3, 7), 0.41 s``."""
+
+    def __init__(self, stream: IO[str] | None = None) -> None:
+        self.stream = stream if stream is not None else sys.stderr
+        self.live = self.stream.isatty()
         self.count = 0
+        self.rejected: list[int] = []
         self.started = time.monotonic()
 
-    def step(self) -> None:
+    def step(self, number: int = 0, rejected: bool = False) -> None:
+        """Count one input (its line ``number``, and whether it was rejected)."""
         self.count += 1
-        if self.enabled and self.count % 100 == 0:
+        if rejected:
+            self.rejected.append(number)
+        if self.live and self.count % 100 == 0:
             rate = self.count / max(time.monotonic() - self.started, 1e-9)
             self.stream.write(f"\roxyrule: {self.count} bundles, {rate:,.0f}/s")
             self.stream.flush()
 
+    def summary(self) -> str:
+        """The closing line (without its newline)."""
+        seconds = time.monotonic() - self.started
+        assessed = self.count - len(self.rejected)
+        line = f"oxyrule: {assessed} assessed, {len(self.rejected)} rejected"
+        if self.rejected:
+            shown = ", ".join(str(n) for n in self.rejected[:SHOWN_LINE_NUMBERS])
+            more = len(self.rejected) - SHOWN_LINE_NUMBERS
+            word = "line" if len(self.rejected) == 1 else "lines"
+            line += f" ({word} {shown}" + (f" and {more} more)" if more > 0 else ")")
+        return line + f", {seconds:.2f} s"
+
     def close(self) -> None:
-        if self.enabled and self.count >= 100:
+        """End the live counter's line and write the summary."""
+        if self.live and self.count >= 100:
             self.stream.write("\n")
+        self.stream.write(self.summary() + "\n")
+        self.stream.flush()

@@ -13,9 +13,12 @@ import argparse
 import sys
 from collections.abc import Sequence
 from pathlib import Path
-from typing import IO
+from typing import IO, TYPE_CHECKING
 
 from service import __version__
+
+if TYPE_CHECKING:
+    from service.config import Settings
 
 EXIT_OK, EXIT_INTERNAL, EXIT_REJECTED = 0, 1, 2
 
@@ -27,6 +30,18 @@ def _demo(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+def _settings(args: argparse.Namespace, **extra: object) -> Settings:
+    """The settings of one command: the environment's, with ``--rules`` and ``--site``."""
+    from service.config import Settings
+
+    values = dict(extra)
+    if getattr(args, "rules", None):
+        values["rules_dir"] = args.rules
+    if getattr(args, "site", None):
+        values["site_file"] = args.site
+    return Settings(**values)  # type: ignore[arg-type]
+
+
 def _serve(args: argparse.Namespace) -> int:
     # The web framework is imported here and nowhere else on the command-line path.
     from service.api.server import serve
@@ -36,20 +51,18 @@ def _serve(args: argparse.Namespace) -> int:
         port=args.port,
         workers=args.workers,
         rules=args.rules,
+        site=args.site,
         mllp_port=args.mllp_port,
+        bench=False if args.no_bench else None,
     )
 
 
 def _assess(args: argparse.Namespace) -> int:
     from service.assess.presentation import PressureUnit
     from service.batch import Progress, answer, assess_lines, numbered_lines
-    from service.config import Settings
     from service.runtime import Runtime
 
-    overrides: dict[str, object] = {"strict_fhir": args.strict}
-    if args.rules:
-        overrides["rules_dir"] = args.rules
-    settings = Settings(**overrides)  # type: ignore[arg-type]
+    settings = _settings(args, strict_fhir=args.strict)
     unit: PressureUnit | None = args.units
     path: str = args.path
     ndjson = args.ndjson or path.endswith((".ndjson", ".jsonl"))
@@ -60,12 +73,13 @@ def _assess(args: argparse.Namespace) -> int:
         if ndjson:
             progress = Progress()
             lines = numbered_lines(stream)
-            for text, bad in assess_lines(
+            for number, text, bad in assess_lines(
                 lines, settings=settings, unit=unit, workers=args.workers
             ):
                 out.write(text + b"\n")
                 rejected |= bad
-                progress.step()
+                progress.step(number, bad)
+            out.flush()
             progress.close()
         else:
             from service.hl7v2.handle import answer_v2
@@ -74,6 +88,10 @@ def _assess(args: argparse.Namespace) -> int:
             # An HL7 v2 message (MSH first, or MLLP-framed) is told from a Bundle by content.
             text, rejected = answer_v2(runtime, raw, unit) or answer(runtime, raw, "Bundle", unit)
             out.write(text + b"\n")
+            if rejected:  # said on stderr too: stdout may be going to a file
+                sys.stderr.write(
+                    "oxyrule: the input was rejected; its OperationOutcome is on standard output\n"
+                )
     out.flush()
     return EXIT_REJECTED if rejected else EXIT_OK
 
@@ -82,14 +100,13 @@ def _mllp(args: argparse.Namespace) -> int:
     import logging.config
 
     from service.api.logs import log_config
-    from service.config import Settings
     from service.hl7v2.mllp import MllpLimits, run_mllp
     from service.workbench.lint import RuleSetRefused, verified_runtime
 
     # The same JSON lines as `oxyrule serve`, on stderr.
     logging.config.dictConfig(log_config("info"))
     try:
-        runtime = verified_runtime(Settings(rules_dir=args.rules) if args.rules else Settings())
+        runtime = verified_runtime(_settings(args))
     except RuleSetRefused as exc:
         sys.stderr.write(f"oxyrule: cannot start: {exc}\n")
         return EXIT_INTERNAL
@@ -126,16 +143,36 @@ def _rules_dir(args: argparse.Namespace) -> Path:
     return Path(args.rules) if getattr(args, "rules", None) else default_rules_dir()
 
 
+def _fixture_paths(named: Sequence[str] | None, rules_dir: Path) -> list[Path]:
+    """The fixture folders named, else the default ones (``default_fixture_dirs``)."""
+    from service.workbench.expectations import FixtureError, default_fixture_dirs
+
+    if named:
+        return [Path(p) for p in named]
+    found = default_fixture_dirs(rules_dir)
+    if not found:
+        raise FixtureError(
+            f"no fixtures folder here ({Path.cwd()}) nor beside the rule set ({rules_dir}): "
+            "name one, e.g. `oxyrule test path/to/fixtures`"
+        )
+    return found
+
+
 def _test(args: argparse.Namespace) -> int:
-    from service.config import Settings
     from service.runtime import Runtime
-    from service.workbench.expectations import find_cases, mismatch_table
+    from service.workbench.expectations import FixtureError, find_cases, mismatch_table
     from service.workbench.runner import run_cases, summary_line
 
-    runtime = Runtime.load(Settings(rules_dir=_rules_dir(args)))
-    paths = [Path(p) for p in args.fixtures] or [Path("fixtures")]
-    results = run_cases(find_cases(paths), runtime)
+    runtime = Runtime.load(_settings(args))
+    try:
+        cases = find_cases(_fixture_paths(args.fixtures, runtime.settings.rules_dir))
+    except FixtureError as exc:
+        sys.stderr.write(f"oxyrule test: {exc}\n")
+        return EXIT_REJECTED
+    results = run_cases(cases, runtime)
     out = sys.stdout
+    site = f"; {runtime.site_view.summary()}" if runtime.site_view is not None else ""
+    out.write(f"rule set {runtime.ruleset.identity}{site}\n")
     for r in results:
         if r.passed:
             continue
@@ -163,7 +200,8 @@ def _test(args: argparse.Namespace) -> int:
 
 
 def _lint(args: argparse.Namespace) -> int:
-    from service.workbench.lint import lint
+    from service.workbench.expectations import FixtureError, default_fixture_dirs, find_cases
+    from service.workbench.lint import lint, plural
 
     directory = Path(args.directory) if args.directory else _rules_dir(args)
     if args.update_lock:
@@ -173,43 +211,53 @@ def _lint(args: argparse.Namespace) -> int:
 
         path = write_lock(directory, Runtime.load(Settings(rules_dir=directory)).ruleset)
         sys.stdout.write(f"wrote {path}\n")
-    fixtures = [Path(p) for p in args.fixtures] if args.fixtures else [Path("fixtures")]
+    fixtures: list[Path] | None = None
+    if not args.no_coverage:
+        named = [Path(p) for p in args.fixtures or ()]
+        fixtures = named or default_fixture_dirs(directory)
     messages = lint(directory, fixtures=fixtures)
     for message in messages:
         sys.stdout.write(f"{message}\n")
     errors = sum(m.severity == "error" for m in messages)
     warnings = len(messages) - errors
-    sys.stdout.write(f"{directory}: {errors} errors, {warnings} warnings\n")
+    if fixtures is None:
+        scope = "fixture coverage not checked (--no-coverage)"
+    else:
+        try:
+            count = len(find_cases([f for f in fixtures if f.exists()]))
+            where = ", ".join(str(f) for f in fixtures) or "no folder"
+            scope = f"fixture coverage checked against {plural(count, 'case')} in {where}"
+        except FixtureError:
+            scope = "fixture coverage: a fixture file could not be read (see above)"
+    sys.stdout.write(
+        f"{directory}: {plural(errors, 'error')}, {plural(warnings, 'warning')}; {scope}\n"
+    )
     return 1 if errors else EXIT_OK
 
 
 def _explain(args: argparse.Namespace) -> int:
     import orjson
 
-    from service.config import Settings
-    from service.fhir.extract import read_bundle
-    from service.fhir.outcome import LocatedError
     from service.runtime import Runtime
+    from service.workbench.case_input import CaseInputError, read_case
     from service.workbench.explain import explain_json, explain_text
 
-    runtime = Runtime.load(Settings(rules_dir=_rules_dir(args)))
+    runtime = Runtime.load(_settings(args))
     raw = sys.stdin.buffer.read() if args.path == "-" else Path(args.path).read_bytes()
     try:
-        intake = read_bundle(orjson.loads(raw), concept_map=runtime.concept_map)
-    except (orjson.JSONDecodeError, LocatedError) as exc:
-        sys.stdout.write(f"input rejected: {exc}\n")
+        case = read_case(raw, runtime)
+    except CaseInputError as exc:
+        sys.stdout.write("input rejected:\n" + "".join(f"  {p}\n" for p in exc.problems))
         return EXIT_REJECTED
-    assessment = runtime.assess_intake(intake)
+    unit = args.units or runtime.settings.pressure_unit
+    assessment = runtime.assess_intake(case.intake, pressure_unit=unit)
+    view = {"settings": runtime.settings, "site": runtime.site_view, "pressure_unit": unit}
     if args.format == "json":
-        sys.stdout.buffer.write(
-            orjson.dumps(
-                explain_json(intake, assessment, settings=runtime.settings),
-                option=orjson.OPT_INDENT_2,
-            )
-            + b"\n"
-        )
+        data = explain_json(case.intake, assessment, **view)  # type: ignore[arg-type]
+        sys.stdout.buffer.write(orjson.dumps(data, option=orjson.OPT_INDENT_2) + b"\n")
     else:
-        sys.stdout.write(explain_text(intake, assessment, settings=runtime.settings))
+        text = explain_text(case.intake, assessment, full=args.full, **view)  # type: ignore[arg-type]
+        sys.stdout.write(text)
     return EXIT_OK
 
 
@@ -326,6 +374,17 @@ def build_parser() -> argparse.ArgumentParser:
         metavar="N",
         help="also accept HL7 v2 over MLLP on this port (default: OXYRULE_MLLP_PORT, off)",
     )
+    serve.add_argument(
+        "--no-bench",
+        action="store_true",
+        help="do not serve the rule owner's bench at /bench (setting OXYRULE_BENCH=false)",
+    )
+    serve.add_argument(
+        "--site",
+        type=Path,
+        metavar="FILE",
+        help="a site override file (default: OXYRULE_SITE_FILE)",
+    )
     serve.set_defaults(handler=_serve)
     assess = commands.add_parser(
         "assess",
@@ -336,6 +395,12 @@ def build_parser() -> argparse.ArgumentParser:
     )
     assess.add_argument("--ndjson", action="store_true", help="read stdin as NDJSON")
     assess.add_argument("--rules", type=Path, help="rule directory (default: the shipped set)")
+    assess.add_argument(
+        "--site",
+        type=Path,
+        metavar="FILE",
+        help="a site override file (default: OXYRULE_SITE_FILE)",
+    )
     assess.add_argument(
         "--units", choices=("mm[Hg]", "kPa"), help="pressure unit of the result (default: setting)"
     )
@@ -352,6 +417,12 @@ def build_parser() -> argparse.ArgumentParser:
     mllp.add_argument("--port", type=int, required=True, help="TCP port (2575 is HL7's)")
     mllp.add_argument("--host", default="127.0.0.1", help="address to bind (default: 127.0.0.1)")
     mllp.add_argument("--rules", type=Path, help="rule directory (default: the shipped set)")
+    mllp.add_argument(
+        "--site",
+        type=Path,
+        metavar="FILE",
+        help="a site override file (default: OXYRULE_SITE_FILE)",
+    )
     mllp.add_argument(
         "--max-frame-bytes", type=int, default=1024 * 1024, metavar="N", help="largest message"
     )
@@ -376,21 +447,48 @@ def build_parser() -> argparse.ArgumentParser:
     test = commands.add_parser("test", help="run expected-outcome fixtures against the rules")
     test.add_argument("fixtures", nargs="*", help="fixture directories or *.expected.yaml files")
     test.add_argument("--rules", type=Path, help="rule directory (default: the shipped set)")
+    test.add_argument(
+        "--site",
+        type=Path,
+        metavar="FILE",
+        help="a site override file (default: OXYRULE_SITE_FILE)",
+    )
     test.add_argument("--junit", metavar="FILE", help="also write JUnit XML for CI")
     test.add_argument("--html", metavar="FILE", help="also write a self-contained HTML report")
     test.set_defaults(handler=_test)
     lint_cmd = commands.add_parser("lint", help="check a rule directory without a patient")
     lint_cmd.add_argument("directory", nargs="?", help="rule directory (default: shipped set)")
     lint_cmd.add_argument(
-        "--fixtures", nargs="*", help="fixture directories for coverage (default: fixtures)"
+        "--fixtures",
+        nargs="*",
+        help="fixture folders for coverage (default: fixtures/ here, else beside the rule set)",
+    )
+    lint_cmd.add_argument(
+        "--no-coverage", action="store_true", help="leave the fixture-coverage check out"
     )
     lint_cmd.add_argument(
         "--update-lock", action="store_true", help="record versions and hashes in ruleset.lock"
     )
     lint_cmd.set_defaults(handler=_lint)
-    explain = commands.add_parser("explain", help="explain the assessment of one Bundle")
-    explain.add_argument("path", help="a Bundle JSON file, or - for stdin")
+    explain = commands.add_parser(
+        "explain", help="explain the assessment of one Bundle or HL7 v2 message"
+    )
+    explain.add_argument("path", help="a Bundle JSON file, an HL7 v2 message, or - for stdin")
     explain.add_argument("--rules", type=Path, help="rule directory (default: the shipped set)")
+    explain.add_argument(
+        "--site",
+        type=Path,
+        metavar="FILE",
+        help="a site override file (default: OXYRULE_SITE_FILE)",
+    )
+    explain.add_argument(
+        "--units", choices=("mm[Hg]", "kPa"), help="pressure unit of the text (default: setting)"
+    )
+    explain.add_argument(
+        "--full",
+        action="store_true",
+        help="also show every value read, every derived value and every rule's trace",
+    )
     explain.add_argument("--format", choices=("text", "json"), default="text")
     explain.set_defaults(handler=_explain)
     bulk = commands.add_parser(

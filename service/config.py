@@ -235,6 +235,16 @@ class ServerSettings(BaseSettings):
     hl7_max_field_parts: int = Field(256, ge=16, le=1_000_000)
     hl7_max_parts: int = Field(20_000, ge=100, le=10_000_000)
     log_level: Literal["debug", "info", "warning", "error"] = "info"
+    bench: bool = Field(
+        True,
+        description="serve the rule owner's bench at /bench (for local use; set false in "
+        "production). It stores nothing and needs the same credentials as every other route",
+    )
+    fixtures_dir: Path | None = Field(
+        None,
+        description="the rule set's fixtures for the bench's fixture panel (default: the "
+        "fixtures folder beside the rule directory)",
+    )
     cors_origins: list[str] = Field(
         default_factory=list, description="JSON list of allowed origins; empty: CORS off"
     )

@@ -25,7 +25,7 @@ SCENARIOS = (
 def demo_dir() -> Path:
     """The demo Bundles: bundled in the wheel, or ``fixtures/demo`` beside the package."""
     package = Path(__file__).resolve().parent
-    bundled = package / "_bundled" / "demo"
+    bundled = package / "_bundled" / "fixtures" / "demo"
     return bundled if bundled.is_dir() else package.parent / "fixtures" / "demo"
 
 

@@ -38,13 +38,19 @@ column); ``tests/test_exceptions.py`` checks the drawing against the classes::
     OutputExistsError (Exception)             service.bulk.output
     RuleSetMismatchError (RuntimeError)       service.bulk.patient
     PseudonymKeyError (ValueError)            service.bulk.pseudonym
+    CaseInputError (ValueError)               service.workbench.case_input
+    WhatIfError (ValueError)                  service.workbench.whatif
+    BenchError (ValueError)                   service.workbench.bench
+    NotWritable (ValueError)                  service.fhir.intake_bundle
 
 The engine's errors stand outside because the engine imports nothing of the service (it is
 usable on its own); ``ApiError`` is an HTTP refusal carried to the exception handler, not a
 fault; ``AuthConfigError``, ``StartupError`` and ``FixtureError`` are start-up and tooling
 errors reported to an operator. The CDS Hooks adapter's ``FetchError``, ``KeySetError`` and
 ``MemoryFull`` are caught inside it and turned into its own answers (412, 401); the bulk job's
-errors stop a job before it writes anything and are reported by its command.
+errors stop a job before it writes anything and are reported by its command;
+``CaseInputError``, ``WhatIfError``, ``BenchError`` and ``NotWritable`` are the rule owner's
+tools' (``explain``, the bench), each turned into a located message or a 422 by its surface.
 
 The physiology package raises only ``PhysiologyError`` and ``UnitError``; adapters (FHIR,
 HL7 v2, HTTP) catch them and turn them into located OperationOutcome issues. Messages say

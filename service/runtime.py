@@ -25,7 +25,7 @@ from service.fhir.outcome import BundleError
 from service.fhir.render import render_bundle
 from service.intake.limits import DEFAULT_READ_LIMITS, ReadLimits
 from service.intake.model import Intake
-from service.site import apply, read_site_file, settings_hash
+from service.site import SiteView, apply, read_site_file, settings_hash
 from service.terminology.codes import code_for_fact
 from service.terminology.local_codes import LocalCodeMap
 
@@ -52,7 +52,13 @@ class Runtime:
     ruleset: RuleSet
     concept_map: LocalCodeMap | None = None
     settings_hash: str = ""
-    site: str | None = None
+    site_view: SiteView | None = None
+    """What the site file changes (None without one)."""
+
+    @property
+    def site(self) -> str | None:
+        """The site's label, or None without a site file."""
+        return self.site_view.label if self.site_view is not None else None
 
     @classmethod
     def load(cls, settings: Settings | None = None) -> Runtime:
@@ -65,20 +71,19 @@ class Runtime:
         """
         settings = settings or Settings()
         parameters: dict[str, float] = {}
-        site_bytes, site = b"", None
+        site_bytes, overrides = b"", None
         if settings.site_file is not None:
             overrides, site_bytes = read_site_file(settings.site_file)
-            settings, parameters, site = (
-                apply(settings, overrides),
-                overrides.parameters,
-                overrides.site,
-            )
+            settings, parameters = apply(settings, overrides), overrides.parameters
         ruleset = load_ruleset(
             settings.rules_dir, catalogue=DEFAULT_CATALOGUE, overrides=parameters
         )
         concept_map = load_concept_map(settings.rules_dir)
         digest = settings_hash(settings, site_bytes, _bytes(settings.rules_dir / CONCEPT_MAP_FILE))
-        return cls(settings, ruleset, concept_map, digest, site)
+        view = None
+        if overrides is not None and settings.site_file is not None:
+            view = SiteView.of(overrides, settings.site_file, ruleset.parameters)
+        return cls(settings, ruleset, concept_map, digest, view)
 
     def read(self, data: object, *, limits: ReadLimits = DEFAULT_READ_LIMITS) -> Intake:
         """A parsed FHIR Bundle as an ``Intake`` (validated as FHIR R4B first in strict mode).
@@ -96,15 +101,22 @@ class Runtime:
         return read_bundle(data, concept_map=self.concept_map, limits=limits)
 
     def assess_intake(
-        self, intake: Intake, *, now: datetime | None = None, decision_id: str | None = None
+        self,
+        intake: Intake,
+        *,
+        now: datetime | None = None,
+        decision_id: str | None = None,
+        pressure_unit: PressureUnit | None = None,
     ) -> Assessment:
-        """The assessment of an already-read input."""
+        """The assessment of an already-read input; its sentences show pressures in
+        ``pressure_unit`` (default: the site's)."""
         return assess(
             intake,
             ruleset=self.ruleset,
             settings=self.settings,
             now=now,
             decision_id=decision_id,
+            pressure_unit=pressure_unit,
         )
 
     def render(
@@ -122,6 +134,7 @@ class Runtime:
             settings=self.settings,
             pressure_unit=pressure_unit or self.settings.pressure_unit,
             settings_hash=self.settings_hash,
+            site=self.site,
         )
 
     def assess_bundle(
@@ -140,5 +153,7 @@ class Runtime:
                 (``TooLargeError``: over ``limits``).
         """
         intake = self.read(data, limits=limits)
-        assessment = self.assess_intake(intake, now=now, decision_id=decision_id)
+        assessment = self.assess_intake(
+            intake, now=now, decision_id=decision_id, pressure_unit=pressure_unit
+        )
         return self.render(assessment, pressure_unit=pressure_unit)

@@ -20,8 +20,10 @@ from __future__ import annotations
 
 import hashlib
 import json
+from collections.abc import Mapping
+from dataclasses import dataclass
 from pathlib import Path
-from typing import Literal
+from typing import Any, Literal, Protocol
 
 import yaml
 from pydantic import BaseModel, ConfigDict, Field, ValidationError
@@ -72,6 +74,86 @@ def read_site_file(path: Path) -> tuple[SiteOverrides, bytes]:
         )
         raise SiteFileError(f"{path}: {details}") from None
     return overrides, raw
+
+
+class _Threshold(Protocol):
+    """What the site view needs of a rule-set parameter (``service.engine.Parameter``)."""
+
+    @property
+    def value(self) -> float: ...
+    @property
+    def default(self) -> float: ...
+    @property
+    def unit(self) -> str: ...
+
+
+@dataclass(frozen=True, slots=True)
+class ParameterChange:
+    """A rule threshold the site changed: its name, the rule set's value, the site's."""
+
+    name: str
+    rule_set: float
+    site: float
+    unit: str
+
+    def __str__(self) -> str:
+        unit = "" if self.unit == "1" else f" {self.unit}"
+        return f"{self.name} {self.site:g}{unit} (rule set: {self.rule_set:g})"
+
+
+@dataclass(frozen=True, slots=True)
+class SiteView:
+    """What a site file changes, for every surface to show beside the rule set's identity
+    (``explain``, ``test``, the report, the start-up log, ``/readyz``, the bench, results)."""
+
+    label: str
+    file: str
+    parameters: tuple[ParameterChange, ...]
+    settings: tuple[tuple[str, str], ...]
+    """Settings the file sets, as (name, value in words)."""
+
+    @classmethod
+    def of(
+        cls, overrides: SiteOverrides, path: Path, parameters: Mapping[str, _Threshold]
+    ) -> SiteView:
+        """The view of a loaded site file; ``parameters`` are the rule set's, overrides in."""
+        changes = tuple(
+            ParameterChange(name, p.default, p.value, p.unit)
+            for name in sorted(overrides.parameters)
+            if (p := parameters.get(name)) is not None
+        )
+        chosen = overrides.model_dump(exclude={"site", "parameters"}, exclude_none=True)
+        return cls(
+            overrides.site,
+            str(path),
+            changes,
+            tuple((name, _words(value)) for name, value in sorted(chosen.items())),
+        )
+
+    def summary(self) -> str:
+        """One line: ``site NAME: paco2_margin 10 mm[Hg] (rule set: 0); pressure_unit kPa``."""
+        changes = [str(c) for c in self.parameters] + [f"{n} {v}" for n, v in self.settings]
+        return f"site {self.label}: " + ("; ".join(changes) or "no change to the rule set")
+
+    def as_json(self) -> dict[str, Any]:
+        """Plain data for tools and the bench."""
+        return {
+            "label": self.label,
+            "file": self.file,
+            "parameters": [
+                {"name": c.name, "rule_set": c.rule_set, "site": c.site, "unit": c.unit}
+                for c in self.parameters
+            ],
+            "settings": dict(self.settings),
+        }
+
+
+def _words(value: object) -> str:
+    if isinstance(value, bool):
+        return "yes" if value else "no"
+    if isinstance(value, float):
+        return f"{value:g}"
+    return str(value)
 
 
 def apply(settings: Settings, overrides: SiteOverrides) -> Settings:

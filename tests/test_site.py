@@ -136,3 +136,93 @@ def test_a_site_threshold_changes_the_verdict_and_the_result_names_the_override(
     assert tuned["pattern"]["valueCode"] == "single"
     assert tuned["ruleset-hash"]["valueString"] != default["ruleset-hash"]["valueString"]
     assert tuned["settings-hash"]["valueString"] != default["settings-hash"]["valueString"]
+
+
+SITE_TEXT = (
+    "site: invented-district-hospital\nparameters:\n  paco2_margin: 10\npressure_unit: kPa\n"
+)
+
+
+def test_every_surface_names_the_site_and_what_it_changes(tmp_path: Path) -> None:
+    from service.cli import main
+    from service.fhir.extract import read_bundle
+    from service.workbench.expectations import find_cases
+    from service.workbench.explain import explain_json, explain_text
+    from service.workbench.report import html_report
+    from service.workbench.runner import run_cases
+
+    site = tmp_path / "site.yaml"
+    site.write_text(SITE_TEXT)
+    runtime = Runtime.load(Settings(site_file=site))
+    assert runtime.site_view is not None
+    summary = runtime.site_view.summary()
+    # The changed threshold with the rule set's own value beside it, and the changed setting.
+    assert summary == (
+        "site invented-district-hospital: paco2_margin 10 mm[Hg] (rule set: 0); pressure_unit kPa"
+    )
+    intake = read_bundle(orjson.loads(CASE.read_bytes()))
+    assessment = runtime.assess_intake(intake)
+    text = explain_text(intake, assessment, settings=runtime.settings, site=runtime.site_view)
+    assert "Site file in force: invented-district-hospital" in text
+    assert "parameter paco2_margin: 10 mm[Hg] (rule set: 0)" in text
+    data = explain_json(intake, assessment, settings=runtime.settings, site=runtime.site_view)
+    assert data["site"]["parameters"] == [
+        {"name": "paco2_margin", "rule_set": 0.0, "site": 10.0, "unit": "mm[Hg]"}
+    ]
+    params = _params(runtime.assess_bundle(orjson.loads(CASE.read_bytes())))
+    assert params["site"]["valueString"] == "invented-district-hospital"
+    assert "site" not in _params(_result(None))
+    results = run_cases(find_cases([ROOT / "fixtures" / "demo"]), runtime)
+    report = html_report(results, runtime)
+    assert "invented-district-hospital" in report and "paco2_margin 10 mm[Hg]" in report
+    assert "none: the rule set as written" in html_report(results, Runtime.load())
+    out = tmp_path / "out.txt"
+    import contextlib
+
+    with out.open("w") as stream, contextlib.redirect_stdout(stream):
+        main(["test", "--site", str(site), str(ROOT / "fixtures" / "demo")])
+    assert out.read_text().splitlines()[0] == f"rule set {runtime.ruleset.identity}; {summary}"
+
+
+def test_readyz_and_the_start_up_log_name_the_site(tmp_path: Path) -> None:
+    import json
+    import subprocess
+    import sys
+    import urllib.request
+
+    from tests.api.test_serve import environment, free_port, wait_ready
+
+    site = tmp_path / "site.yaml"
+    site.write_text(SITE_TEXT)
+    port = free_port()
+    log = tmp_path / "stderr.log"
+    with log.open("wb") as stderr:
+        process = subprocess.Popen(
+            [
+                sys.executable,
+                "-m",
+                "service.cli",
+                "serve",
+                "--port",
+                str(port),
+                "--site",
+                str(site),
+            ],
+            stdout=subprocess.DEVNULL,
+            stderr=stderr,
+            env=environment(),
+            cwd=ROOT,
+        )
+        try:
+            wait_ready(port, process)
+            with urllib.request.urlopen(f"http://127.0.0.1:{port}/readyz", timeout=5) as answer:
+                ready = json.loads(answer.read())
+        finally:
+            process.terminate()
+            process.wait(15)
+    assert ready["site"] == "invented-district-hospital"
+    assert "paco2_margin 10 mm[Hg] (rule set: 0)" in ready["site_changes"]
+    starting = next(
+        json.loads(line) for line in log.read_text().splitlines() if '"starting"' in line
+    )
+    assert starting["site"].startswith("site invented-district-hospital: paco2_margin 10")

@@ -190,6 +190,10 @@ def create_app(
     app.include_router(hl7v2.router)
     app.include_router(cds.router)
     app.include_router(health.router)
+    if server.bench:  # the rule owner's bench (service.api.bench); off in production
+        from service.api import bench
+
+        app.include_router(bench.router())
     app.add_exception_handler(ApiError, _api_error)
     app.add_exception_handler(HTTPException, _http_error)
     app.add_exception_handler(RequestValidationError, _validation_error)

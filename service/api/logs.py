@@ -33,6 +33,8 @@ FIELDS = (
     "workers",
     "auth",
     "mllp_port",
+    "site",
+    "bench",
     "setting",
     "problem",
     "previous",

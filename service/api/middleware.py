@@ -71,8 +71,11 @@ ROUTES = frozenset(
 
 
 def route_label(path: str) -> str:
-    """The route for logs and metrics: a known path, or ``other`` (bounded label values)."""
-    return path if path in ROUTES else "other"
+    """The route for logs and metrics: a known path, ``/bench`` for any of the bench's, or
+    ``other`` (bounded label values)."""
+    if path in ROUTES:
+        return path
+    return "/bench" if path == "/bench" or path.startswith("/bench/") else "other"
 
 
 def _header(scope: Scope, name: bytes) -> str | None:

@@ -361,7 +361,9 @@ def serve(
     port: int | None = None,
     workers: int | None = None,
     rules: Path | None = None,
+    site: Path | None = None,
     mllp_port: int | None = None,
+    bench: bool | None = None,
 ) -> int:
     """Run the service until stopped; the process exit status."""
     overrides = {
@@ -369,14 +371,18 @@ def serve(
         "port": port,
         "workers": workers,
         "rules_dir": rules,
+        "site_file": site,
         "mllp_port": mllp_port,
+        "bench": bench,
     }
     names = {
         "host": "--host",
         "port": "--port",
         "workers": "--workers",
         "rules_dir": "--rules",
+        "site_file": "--site",
         "mllp_port": "--mllp-port",
+        "bench": "--no-bench",
     }
     flags = {k: flag for k, flag in names.items() if overrides[k] is not None}
     try:
@@ -398,9 +404,11 @@ def serve(
             "port": server.port,
             "workers": server.workers,
             "ruleset": f"{ruleset.id}|{ruleset.version}",
+            "site": service.runtime.site_view.summary() if service.runtime.site_view else None,
             "auth": ",".join(service.auth.methods) or "off",
             "cds": service.cds.trust.mode,
             "mllp_port": server.mllp_port,
+            "bench": f"http://{server.host}:{server.port}/bench" if server.bench else "off",
         },
     )
     if service.cds.trust.mode == "unsigned":
@@ -423,17 +431,27 @@ def serve(
         if not runner.started:  # uvicorn logged why (the port is taken, say)
             return EXIT_FAILED
     else:
-        return supervise(settings, server, common, rules)
+        return supervise(settings, server, common, rules, site=site, bench=bench)
     return EXIT_OK
 
 
 def supervise(
-    settings: Settings, server: ServerSettings, common: dict[str, Any], rules: Path | None
+    settings: Settings,
+    server: ServerSettings,
+    common: dict[str, Any],
+    rules: Path | None,
+    *,
+    site: Path | None = None,
+    bench: bool | None = None,
 ) -> int:
     """Run ``server.workers`` worker processes under a ``Supervisor`` until stopped."""
     # Worker processes read the environment: hand them the command line's choices.
     if rules is not None:
         os.environ[PREFIX + "RULES_DIR"] = str(rules)
+    if site is not None:
+        os.environ[PREFIX + "SITE_FILE"] = str(site)
+    if bench is not None:
+        os.environ[PREFIX + "BENCH"] = "true" if bench else "false"
     generations = Generations.create()
     try:
         try:

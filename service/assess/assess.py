@@ -19,6 +19,7 @@ from datetime import UTC, datetime, timedelta
 
 from service.config import Settings
 from service.engine import Evaluation, Pattern, RuleSet, Severity, evaluate
+from service.engine.rationale import Units
 from service.engine.scenarios import Scenario, combine
 from service.engine.verdict import SEVERITY_RANK, MechanismAssessment, Verdict
 from service.intake.model import Intake, Quantity, Specimen
@@ -27,6 +28,7 @@ from service.physiology.oxygen_prediction import TargetBand
 from .derivation import FactValue
 from .derive import GasFacts, derive_again, derive_gas_facts, with_fio2_raised
 from .pairing import SETTINGS, PairedGas, Pairing, Windows, pair_gases
+from .presentation import PressureUnit, display_units
 from .result import Assessment, Finding, GasResult, MechanismVerdict, ResultStatus
 from .serial import serial_facts
 from .titration import TitrationRules, assess_titration
@@ -86,12 +88,12 @@ def _specimen_flags(pairing: Pairing) -> dict[str, FactValue]:
     return {"specimen_unknown": unknown, "specimen_not_arterial": not_arterial}
 
 
-def _mechanism(item: MechanismAssessment) -> MechanismVerdict:
+def _mechanism(item: MechanismAssessment, units: Units) -> MechanismVerdict:
     discriminators = " ".join(d.text for d in item.discriminators)
     return MechanismVerdict(
         code=item.mechanism,
         grade=item.grade,
-        rationale=" ".join(item.rationales),
+        rationale=" ".join(item.rationales_in(units)),
         rules=item.rules,
         discriminator=discriminators or None,
         trace=tuple(line for result in item.deciding for line in result.trace_lines),
@@ -190,12 +192,16 @@ def evaluate_gas(
     extra: dict[str, FactValue],
     input_errors: list[str],
     serial: dict[str, float] | None = None,
+    pressure_unit: PressureUnit = "mm[Hg]",
 ) -> tuple[Evaluation, Verdict, tuple[str, ...]]:
     """The index gas's evaluation as its inputs were sent, the verdict that holds across the
-    ranges of its uncertain inputs, and those inputs in words."""
+    ranges of its uncertain inputs, and those inputs in words (pressures in
+    ``pressure_unit``)."""
     parameter = ruleset.parameters.get(ALVEOLAR_TOLERANCE)
     tolerance = parameter.value if parameter is not None else 0.0
-    ranges = input_ranges(index, tolerance_mmhg=tolerance, settings=settings)
+    ranges = input_ranges(
+        index, tolerance_mmhg=tolerance, settings=settings, pressure_unit=pressure_unit
+    )
     found = serial_facts(gases, settings=settings) if serial is None else serial
     common = {**found, **extra}
     facts = (
@@ -234,9 +240,16 @@ def assess(
     settings: Settings,
     now: datetime | None = None,
     decision_id: str | None = None,
+    pressure_unit: PressureUnit | None = None,
 ) -> Assessment:
-    """Assess one patient's data: every gas's physiology, the index gas's verdict."""
+    """Assess one patient's data: every gas's physiology, the index gas's verdict.
+
+    ``pressure_unit`` is the unit the sentences show pressures in (rationales, findings, the
+    uncertain inputs); by default the site's. Numbers stay in canonical units either way.
+    """
     now = now or datetime.now(UTC)
+    unit: PressureUnit = pressure_unit or settings.pressure_unit
+    units = display_units(unit)
     pairing = pair_gases(intake, windows=windows(settings))
     gases = [
         derive_gas_facts(g, patient=intake.patient, settings=settings, today=now.date())
@@ -269,9 +282,19 @@ def assess(
         extra={**_specimen_flags(pairing), **(titration.facts if titration else {})},
         input_errors=[f.code for f in intake_findings if f.severity is Severity.ERROR],
         serial=serial,
+        pressure_unit=unit,
     )
+    declared = ruleset.findings
     rule_findings = [
-        Finding(f.code.value, f.severity, f.rationale, rule=f.rule) for f in verdict.findings
+        Finding(
+            str(f.code),
+            f.severity,
+            f.rationale_in(units),
+            rule=f.rule,
+            system=d.system if (d := declared.get(f.code)) is not None else None,
+            display=d.display if d is not None else None,
+        )
+        for f in verdict.findings
     ]
     physiology = [
         Finding(VALUE_OUT_OF_RANGE, Severity.WARNING, problem)
@@ -292,7 +315,7 @@ def assess(
         patient=intake.patient,
         pattern=verdict.pattern,
         hypoxaemia=verdict.hypoxaemia,
-        mechanisms=[_mechanism(item) for item in verdict.mechanisms],
+        mechanisms=[_mechanism(item, units) for item in verdict.mechanisms],
         findings=findings,
         index=index,
         gases=[

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 from typing import Any, Literal
 
+from service.engine.rationale import NO_UNITS, DisplayUnit, Units
 from service.physiology.units import kpa_from_mmhg
 from service.terminology.codes import UCUM
 
@@ -59,3 +60,29 @@ def quantity(name: str, value: float, unit: str, pressure_unit: PressureUnit) ->
         "system": UCUM,
         "code": unit,
     }
+
+
+KPA_PER_MMHG_SHOWN = kpa_from_mmhg(1.0)
+"""The factor text uses to show a mm[Hg] value in kPa (the one conversion, ``units``)."""
+_DISPLAY: dict[PressureUnit, Units] = {
+    "mm[Hg]": NO_UNITS,
+    # One decimal more than the mmHg value: 65.0 mmHg reads 8.67 kPa (as ``quantity`` does).
+    "kPa": {"mm[Hg]": DisplayUnit("kPa", KPA_PER_MMHG_SHOWN, extra_decimals=1)},
+}
+
+
+def display_units(unit: PressureUnit) -> Units:
+    """What the rule engine's sentences show a pressure in, for a requested pressure unit."""
+    return _DISPLAY[unit]
+
+
+def pressure_text(value_mmhg: float, unit: PressureUnit, decimals: int = 1) -> str:
+    """A pressure for a sentence: ``65.0 mmHg`` or ``8.67 kPa`` (one decimal more in kPa)."""
+    if unit == "kPa":
+        return f"{kpa_from_mmhg(value_mmhg):.{decimals + 1}f} kPa"
+    return f"{value_mmhg:.{decimals}f} mmHg"
+
+
+def pressure_label(unit: PressureUnit) -> str:
+    """The unit as a reader writes it: ``mmHg`` or ``kPa``."""
+    return "mmHg" if unit == "mm[Hg]" else "kPa"

@@ -47,6 +47,10 @@ class Finding:
     subject: Source | None = None
     expression: str | None = None  # where in the input, for intake findings
     rule: str | None = None  # id@version of the rule that raised it
+    system: str | None = None
+    """The code system of a code the rule set declares (None: the project's built-in codes)."""
+    display: str | None = None
+    """The declared code's display (built-in codes have none)."""
 
 
 @dataclass(frozen=True, slots=True)

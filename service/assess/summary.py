@@ -5,6 +5,7 @@ from __future__ import annotations
 from service.config import Settings
 
 from .partition import PART_LABELS, ShownPartition, assessment_partitions
+from .presentation import PressureUnit, pressure_label, quantity
 from .response_view import applicable_band, band_words
 from .response_view import summary_line as response_line
 from .result import CAUTION, Assessment
@@ -34,20 +35,22 @@ _SHOWN = (
 _GRADE_ORDER = {"likely": 0, "possible": 1, "unlikely": 2, "not-assessable": 3}
 
 
-def _signed(value: float) -> str:
-    text = f"{value:.1f}"
-    return "0.0" if text == "-0.0" else text.replace("-", "−")
+def _signed(value: float, unit: PressureUnit = "mm[Hg]") -> str:
+    shown = quantity("", value, "mm[Hg]", unit)["value"]
+    text = f"{shown:.{1 if unit == 'mm[Hg]' else 2}f}"
+    return text.lstrip("-") if float(text) == 0 else text.replace("-", "−")
 
 
-def partition_line(shown: ShownPartition) -> str:
+def partition_line(shown: ShownPartition, unit: PressureUnit = "mm[Hg]") -> str:
     """The partition in one line: PaO2 against the expected value, and the fall as the sum of
-    its parts (mmHg; a negative part raises the PaO2)."""
+    its parts (in ``unit``; a negative part raises the PaO2)."""
     d = shown.partition
-    parts = " + ".join(f"{PART_LABELS[key]} {_signed(value)}" for key, value in shown.parts)
+    parts = " + ".join(f"{PART_LABELS[key]} {_signed(value, unit)}" for key, value in shown.parts)
     assumed = f" ({shown.assumption})" if shown.assumption else ""
     return (
-        f"{shown.pao2_label} {d.arterial_po2:.1f} vs {d.expected_pao2:.1f} expected for age: "
-        f"fall {_signed(d.fall)} = {parts} mmHg{assumed}"
+        f"{shown.pao2_label} {_signed(d.arterial_po2, unit)} vs "
+        f"{_signed(d.expected_pao2, unit)} expected for age: "
+        f"fall {_signed(d.fall, unit)} = {parts} {pressure_label(unit)}{assumed}"
     )
 
 
@@ -55,7 +58,7 @@ def _partition_lines(a: Assessment, settings: Settings) -> list[str]:
     index = next(g for g in assessment_partitions(a, settings) if g.index)
     if not index.shown:
         return [f"PaO2 deficit: not computed ({index.absent})"]
-    lines = [partition_line(shown) for shown in index.shown]
+    lines = [partition_line(shown, settings.pressure_unit) for shown in index.shown]
     if any(value < 0.0 for shown in index.shown for _, value in shown.parts):
         lines.append("  (a negative part raises the PaO2: oxygen, or a PaCO2 below the expected)")
     return lines
@@ -102,9 +105,18 @@ def summary_text(a: Assessment, *, settings: Settings) -> str:
     derived = a.index.derived
     for name, label, decimals in _SHOWN:
         d = derived.get(name)
-        if d is not None:
-            unit = "" if d.unit == "1" else f" {d.unit}"
-            lines.append(f"  {label:<26} {d.value:>8.{decimals}f}{unit}")
+        if d is None:
+            continue
+        if d.unit == "mm[Hg]":  # in the site's pressure unit, written as a reader writes it
+            shown = quantity(name, d.value, d.unit, settings.pressure_unit)
+            places = decimals + (1 if settings.pressure_unit == "kPa" else 0)
+            lines.append(
+                f"  {label:<26} {shown['value']:>8.{places}f} "
+                f"{pressure_label(settings.pressure_unit)}"
+            )
+            continue
+        unit = "" if d.unit == "1" else f" {d.unit}"
+        lines.append(f"  {label:<26} {d.value:>8.{decimals}f}{unit}")
     if a.index.barometric_source:
         lines.append(f"  {'pressure source':<26} {a.index.barometric_source}")
     if a.index.fio2_source:

@@ -31,6 +31,7 @@ from service.physiology.units import FIO2_LIMITS
 
 from .derive import GasFacts
 from .normals import SAME_PACO2_MMHG
+from .presentation import PressureUnit, pressure_text
 
 __all__ = ["Ranges", "input_ranges"]
 
@@ -62,10 +63,14 @@ class _Range:
     uncertainty: Uncertainty
     nominal: FactValue | None = None
     """The value the representative evaluation uses (None: the input is missing there)."""
+    pressure_unit: PressureUnit | None = None
+    """For a pressure: the unit its label shows the value in."""
 
     def labelled(self, value: FactValue) -> str:
         if isinstance(value, str):
             return value
+        if self.pressure_unit is not None and isinstance(value, float):
+            return f"{self.label} {pressure_text(value, self.pressure_unit, 0)}"
         return f"{self.label} {value:.3g}"
 
 
@@ -155,7 +160,9 @@ def _fio2_range(
     return _Range("fio2", (low, high), "FiO2", Uncertainty(what, SETTLE_FIO2)), {}
 
 
-def _pressure_range(gas: GasFacts, tolerance: float, settings: Settings) -> _Range | None:
+def _pressure_range(
+    gas: GasFacts, tolerance: float, settings: Settings, unit: PressureUnit
+) -> _Range | None:
     if gas.facts.get("barometric_pressure_assumed") is not True:
         return None
     high = c.SEA_LEVEL_PRESSURE_MMHG
@@ -168,7 +175,8 @@ def _pressure_range(gas: GasFacts, tolerance: float, settings: Settings) -> _Ran
     if low >= high:
         return None  # the PaO2 itself says sea level (or higher pressure)
     what = (
-        f"the barometric pressure (not sent: {low:.0f} to {high:.0f} mm[Hg], sea level up to "
+        f"the barometric pressure (not sent: {pressure_text(low, unit, 0)} to "
+        f"{pressure_text(high, unit, 0)}, sea level up to "
         f"{settings.unknown_site_altitude_m:.0f} m, considered)"
     )
     return _Range(
@@ -177,6 +185,7 @@ def _pressure_range(gas: GasFacts, tolerance: float, settings: Settings) -> _Ran
         "PB",
         Uncertainty(what, SETTLE_PRESSURE, PRESSURE_BEARS_ON),
         nominal=high,
+        pressure_unit=unit,
     )
 
 
@@ -223,12 +232,19 @@ def _combinations(ranges: list[_Range]) -> list[tuple[str, dict[str, FactValue]]
     return out
 
 
-def input_ranges(gas: GasFacts, *, tolerance_mmhg: float, settings: Settings) -> Ranges:
+def input_ranges(
+    gas: GasFacts,
+    *,
+    tolerance_mmhg: float,
+    settings: Settings,
+    pressure_unit: PressureUnit = "mm[Hg]",
+) -> Ranges:
     """The uncertain inputs of ``gas`` and the scenarios at the ends of their ranges.
 
     ``tolerance_mmhg`` is how far a PaO2 may exceed the alveolar PO2 before the data are
     doubted (the rule set's parameter), used to narrow the ranges. The assumed pressure varies
-    only in the scenarios that bear on a low inspired PO2.
+    only in the scenarios that bear on a low inspired PO2; its words show it in
+    ``pressure_unit``.
     """
     general: list[_Range] = []
     fio2, representative = _fio2_range(gas, tolerance_mmhg, settings)
@@ -241,7 +257,7 @@ def input_ranges(gas: GasFacts, *, tolerance_mmhg: float, settings: Settings) ->
     residence = _residence_range((pb,) if pb is not None else (), gas)
     if residence is not None:
         general.append(residence)
-    pressure = _pressure_range(gas, tolerance_mmhg, settings)
+    pressure = _pressure_range(gas, tolerance_mmhg, settings, pressure_unit)
     fixed: dict[str, FactValue] = {
         name: representative[name]
         for name in ("fio2_lowest_possible", "fio2_raised_by_pao2")

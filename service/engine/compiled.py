@@ -8,7 +8,7 @@ requested" never asks for a fact that could not change the answer.
 """
 
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from operator import itemgetter
 
 from service.engine.logic import TruthValue
@@ -21,6 +21,7 @@ __all__ = [
     "any_of",
     "definitely_of",
     "leaf_node",
+    "named",
     "not_of",
 ]
 
@@ -37,6 +38,12 @@ class CompiledCondition:
     """Indices of every leaf under this node, in order of first appearance."""
     leaf: int | None = None
     """The index when the node is a single leaf (lets parents read the vector directly)."""
+    kind: str = "leaf"
+    """What the node is, for traces: all, any, not, definitely, leaf, or ref (a named block)."""
+    parts: tuple["CompiledCondition", ...] = ()
+    """The nodes under this one, as written (a ref has its block's condition)."""
+    name: str | None = None
+    """The block's name, for a ref."""
 
 
 def _never_decided(states: StateVector) -> frozenset[int]:
@@ -47,7 +54,7 @@ def _always_unknown(states: StateVector) -> TruthValue:
     return None
 
 
-BROKEN = CompiledCondition(_always_unknown, _never_decided, ())
+BROKEN = CompiledCondition(_always_unknown, _never_decided, (), kind="broken")
 """Stand-in for a condition that failed to compile; the load fails anyway."""
 
 
@@ -89,7 +96,13 @@ def all_of(parts: Sequence[CompiledCondition]) -> CompiledCondition:
                 result = None
         return result
 
-    return CompiledCondition(truth, _undecided_under(parts, truth), _ordered_leaves(parts))
+    return CompiledCondition(
+        truth,
+        _undecided_under(parts, truth),
+        _ordered_leaves(parts),
+        kind="all",
+        parts=tuple(parts),
+    )
 
 
 def any_of(parts: Sequence[CompiledCondition]) -> CompiledCondition:
@@ -113,7 +126,13 @@ def any_of(parts: Sequence[CompiledCondition]) -> CompiledCondition:
                 result = None
         return result
 
-    return CompiledCondition(truth, _undecided_under(parts, truth), _ordered_leaves(parts))
+    return CompiledCondition(
+        truth,
+        _undecided_under(parts, truth),
+        _ordered_leaves(parts),
+        kind="any",
+        parts=tuple(parts),
+    )
 
 
 def not_of(part: CompiledCondition) -> CompiledCondition:
@@ -124,7 +143,7 @@ def not_of(part: CompiledCondition) -> CompiledCondition:
         value = inner(states)
         return None if value is None else not value
 
-    return CompiledCondition(truth, part.undecided, part.leaves)
+    return CompiledCondition(truth, part.undecided, part.leaves, kind="not", parts=(part,))
 
 
 def definitely_of(part: CompiledCondition) -> CompiledCondition:
@@ -134,7 +153,13 @@ def definitely_of(part: CompiledCondition) -> CompiledCondition:
     def truth(states: StateVector) -> TruthValue:
         return inner(states) is True
 
-    return CompiledCondition(truth, _never_decided, part.leaves)
+    return CompiledCondition(truth, _never_decided, part.leaves, kind="definitely", parts=(part,))
+
+
+def named(name: str, block: CompiledCondition) -> CompiledCondition:
+    """A reference to the block ``name``: the block's own closures (evaluation is unchanged,
+    a single-leaf block is still read straight from the vector), marked for traces."""
+    return replace(block, kind="ref", parts=(block,), name=name)
 
 
 def leaf_node(index: int) -> CompiledCondition:

@@ -25,6 +25,7 @@ from service.engine.compiled import (
     any_of,
     definitely_of,
     leaf_node,
+    named,
     not_of,
 )
 from service.engine.errors import RuleProblem
@@ -86,6 +87,7 @@ class ConditionCompiler:
         self.problems: list[RuleProblem] = []
         self._leaf_index: dict[tuple[object, ...], int] = {}
         self._compiled_blocks: dict[str, CompiledCondition] = {}
+        self._references: dict[str, CompiledCondition] = {}
         self._block_stack: list[str] = []
 
     def _problem(self, where: Location, message: str, hint: str) -> None:
@@ -146,7 +148,10 @@ class ConditionCompiler:
             return BROKEN
         if isinstance(compiled, _Cycle):
             return BROKEN
-        return compiled
+        reference = self._references.get(name)
+        if reference is None:  # one node per block, shared by every rule that refers to it
+            reference = self._references[name] = named(name, compiled)
+        return reference
 
     def _resolve(
         self, value: ThresholdValue, spec: FactSpec, where: Location
@@ -192,7 +197,7 @@ class ConditionCompiler:
             self._problem(
                 where.at(".fact"),
                 f"unknown fact {node.fact}{suggestion}",
-                "use a fact from the catalogue (see catalogue_markdown)",
+                "use a fact from the catalogue (rules/README.md, 'The fact catalogue')",
             )
             return BROKEN
         operator = node.operator

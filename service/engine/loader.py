@@ -10,6 +10,7 @@ This is the engine's only I/O. All problems are collected and raised together as
 `RuleSetError`; a rule set either loads completely or not at all.
 """
 
+import difflib
 import hashlib
 import json
 from collections.abc import Mapping
@@ -24,6 +25,7 @@ from service.engine.rationale import compile_template
 from service.engine.rule_checks import discriminator_problems, priority_problems, read_rule
 from service.engine.ruleset import (
     Discriminator,
+    FindingDeclaration,
     FindingOutcome,
     GasExchangeOutcome,
     HypoxaemiaOutcome,
@@ -34,7 +36,13 @@ from service.engine.ruleset import (
     RuleSet,
 )
 from service.engine.schema import ManifestModel, OutcomeModel, RuleModel
-from service.engine.vocabulary import GasExchangeStatus, Grade, HypoxaemiaStatus, RuleStatus
+from service.engine.vocabulary import (
+    FindingCode,
+    GasExchangeStatus,
+    Grade,
+    HypoxaemiaStatus,
+    RuleStatus,
+)
 
 __all__ = ["build_ruleset", "content_hash", "load_ruleset", "read_directory"]
 
@@ -128,6 +136,57 @@ def _outcome(model: OutcomeModel) -> Outcome:
     return HypoxaemiaOutcome(HypoxaemiaStatus(model.hypoxaemia))
 
 
+BUILT_IN_FINDINGS = frozenset(code.value for code in FindingCode)
+DECLARE_HINT = (
+    "use a built-in finding code, or declare this one in ruleset.yaml under `findings:` "
+    "with a display and a description, e.g. findings: {{{code}: {{display: ..., "
+    "description: ...}}}} (no code change is needed)"
+)
+
+
+def _declared_findings(
+    manifest: ManifestModel,
+) -> tuple[dict[str, FindingDeclaration], list[RuleProblem]]:
+    """The manifest's added finding codes; a code that is already built in is a problem."""
+    system = manifest.finding_system or f"urn:oxyrule:ruleset:{manifest.id}:finding"
+    declared: dict[str, FindingDeclaration] = {}
+    problems: list[RuleProblem] = []
+    for code, model in manifest.findings.items():
+        if code in BUILT_IN_FINDINGS:
+            problems.append(
+                RuleProblem(
+                    MANIFEST,
+                    None,
+                    f"findings.{code}",
+                    f"{code} is a built-in finding code",
+                    "remove the declaration: rules may use the built-in code as it is",
+                )
+            )
+            continue
+        declared[code] = FindingDeclaration(code, model.display, model.description, system)
+    return declared, problems
+
+
+def _finding_problems(
+    model: RuleModel, path: str, declared: Mapping[str, FindingDeclaration]
+) -> list[RuleProblem]:
+    finding = model.outcome.finding
+    if finding is None or finding.code in BUILT_IN_FINDINGS or finding.code in declared:
+        return []
+    known = sorted(BUILT_IN_FINDINGS | set(declared))
+    close = difflib.get_close_matches(finding.code, known, n=3)
+    suggestion = f" (did you mean {', '.join(close)}?)" if close else ""
+    return [
+        RuleProblem(
+            path,
+            model.id,
+            "outcome.finding.code",
+            f"unknown finding code {finding.code}{suggestion}",
+            DECLARE_HINT.format(code=finding.code),
+        )
+    ]
+
+
 def _compile_rule(
     model: RuleModel, path: str, compiler: ConditionCompiler
 ) -> tuple[Rule, list[RuleProblem]]:
@@ -218,6 +277,8 @@ def _build(
         manifest.parameters, overrides, frozenset(catalogue)
     )
     problems.extend(found)
+    declared, found = _declared_findings(manifest)
+    problems.extend(found)
     compiler = ConditionCompiler(catalogue, parameters, manifest.blocks)
     compiler.compile_blocks()
     rules: list[Rule] = []
@@ -228,6 +289,7 @@ def _build(
             continue
         rule, found = _compile_rule(model, path, compiler)
         problems.extend(found)
+        problems.extend(_finding_problems(model, path, declared))
         rules.append(rule)
     problems.extend(compiler.problems)
     problems.extend(priority_problems(rules))
@@ -245,4 +307,5 @@ def _build(
         rules=tuple(rules),
         retired=tuple(retired),
         leaves=tuple(compiler.leaves),
+        findings=declared,
     )

@@ -1,10 +1,15 @@
 """Rationale templates: sentences with `{fact_name}` and `{parameter_name}` placeholders.
 
-A template is parsed once at load time. Parameter placeholders become literal text then,
-because a parameter's value (including a site override) is fixed for the life of the
-rule set; fact placeholders stay slots filled at evaluation time with the value, rounded
-to the fact's display precision, and a readable unit. A missing fact is shown as "not known"
-rather than hiding the gap (the trace names which fact it was).
+A template is parsed once at load time. Parameter placeholders are formatted then, because a
+parameter's value (including a site override) is fixed for the life of the rule set; fact
+placeholders stay slots filled at evaluation time with the value, rounded to the fact's
+display precision, and a readable unit. A missing fact is shown as "not known" rather than
+hiding the gap (the trace names which fact it was).
+
+The unit a sentence shows is a rendering choice: ``render(facts, units)`` shows every number
+whose catalogue unit is a key of ``units`` in the ``DisplayUnit`` given (a reader who asked for
+kPa reads "PaCO2 8.67 kPa is above 6 kPa", from the same rule and the same facts). The engine
+knows no conversion factor itself; the caller passes it.
 
 Only bare names are allowed: no attribute access, indexing, format specs or conversions,
 so a template can never reach into anything but the facts.
@@ -17,7 +22,33 @@ from string import Formatter
 from service.engine.facts import FactKind, FactSpec
 from service.engine.parameters import Parameter
 
-__all__ = ["Template", "compile_template", "format_quantity", "format_value"]
+__all__ = [
+    "DisplayUnit",
+    "Template",
+    "Units",
+    "compile_template",
+    "format_quantity",
+    "format_value",
+]
+
+
+@dataclass(frozen=True, slots=True)
+class DisplayUnit:
+    """A unit a reader asked for in place of a catalogue unit."""
+
+    unit: str
+    """UCUM code of the unit shown, e.g. ``kPa``."""
+    per_catalogue_unit: float
+    """How many of it make one catalogue unit (0.133322 kPa per mm[Hg])."""
+    extra_decimals: int = 0
+    """Decimals shown beyond the fact's own (a kPa needs one more than a mmHg)."""
+    parameter_decimals: int = 2
+    """Decimals a converted threshold is rounded to before it is printed as written."""
+
+
+Units = Mapping[str, DisplayUnit]
+"""Display units keyed by the catalogue unit they replace; empty: catalogue units."""
+NO_UNITS: Units = {}
 
 # UCUM codes are exact but not what a reader expects in a sentence.
 _DISPLAY_UNITS: dict[str, str] = {
@@ -40,26 +71,44 @@ def _with_unit(number: str, unit: str) -> str:
     return f"{number} {display}"
 
 
-def format_quantity(value: float, decimals: int, unit: str) -> str:
+def format_quantity(value: float, decimals: int, unit: str, units: Units = NO_UNITS) -> str:
     """Format a measured or derived number with fixed decimals and a display unit."""
+    shown = units.get(unit)
+    if shown is not None:
+        value, unit = value * shown.per_catalogue_unit, shown.unit
+        decimals += shown.extra_decimals
     text = f"{value:.{decimals}f}"
     if text[0] == "-" and float(text) == 0:
         text = text[1:]  # a tiny negative difference should not print as "-0.0"
     return _with_unit(text, unit)
 
 
-def format_value(spec: FactSpec, value: float | bool | str) -> str:
+def format_value(spec: FactSpec, value: float | bool | str, units: Units = NO_UNITS) -> str:
     """Format a fact value of any kind for a sentence."""
     if spec.kind is FactKind.QUANTITY:
-        return format_quantity(float(value), spec.decimals, spec.unit or "1")
+        return format_quantity(float(value), spec.decimals, spec.unit or "1", units)
     if spec.kind is FactKind.BOOLEAN:
         return "yes" if value else "no"
     return str(value)
 
 
-def _format_parameter(parameter: Parameter) -> str:
-    # Thresholds are written by people; `g` prints them as written (45, 0.21, 7.35).
-    return _with_unit(f"{parameter.value:g}", parameter.unit)
+def _format_parameter(parameter: Parameter, units: Units = NO_UNITS) -> str:
+    # Thresholds are written by people; `g` prints them as written (45, 0.21, 7.35). A
+    # converted one is rounded first, so 45 mmHg reads 6 kPa rather than 5.99949 kPa.
+    shown = units.get(parameter.unit)
+    if shown is None:
+        return _with_unit(f"{parameter.value:g}", parameter.unit)
+    value = round(parameter.value * shown.per_catalogue_unit, shown.parameter_decimals) + 0.0
+    return _with_unit(f"{value:g}", shown.unit)
+
+
+@dataclass(frozen=True, slots=True)
+class _ParameterSlot:
+    """A parameter placeholder: its text in the catalogue unit, made once, and the parameter
+    to format again when another unit is asked for."""
+
+    parameter: Parameter
+    text: str
 
 
 # What a rationale shows for a fact that was not sent or could not be derived. The trace and
@@ -72,22 +121,24 @@ class Template:
     """A parsed rationale: literal text interleaved with fact slots."""
 
     source: str
-    parts: tuple[str | FactSpec, ...]
+    parts: tuple[str | FactSpec | _ParameterSlot, ...]
 
     @property
     def facts(self) -> tuple[str, ...]:
         """Names of the facts the template shows."""
         return tuple(part.name for part in self.parts if isinstance(part, FactSpec))
 
-    def render(self, facts: Mapping[str, float | bool | str]) -> str:
-        """Fill the fact slots from `facts`."""
+    def render(self, facts: Mapping[str, float | bool | str], units: Units = NO_UNITS) -> str:
+        """Fill the slots from `facts`, numbers in `units` where it names their unit."""
         out: list[str] = []
         for part in self.parts:
             if isinstance(part, str):
                 out.append(part)
-                continue
-            value = facts.get(part.name)
-            out.append(NOT_KNOWN if value is None else format_value(part, value))
+            elif isinstance(part, _ParameterSlot):
+                out.append(_format_parameter(part.parameter, units) if units else part.text)
+            else:
+                value = facts.get(part.name)
+                out.append(NOT_KNOWN if value is None else format_value(part, value, units))
         return "".join(out)
 
 
@@ -96,7 +147,7 @@ def compile_template(
 ) -> tuple[Template, list[tuple[str, str]]]:
     """Parse `text`; return the template and a list of (message, hint) problems."""
     problems: list[tuple[str, str]] = []
-    parts: list[str | FactSpec] = []
+    parts: list[str | FactSpec | _ParameterSlot] = []
     try:
         pieces = list(Formatter().parse(text))
     except ValueError as error:
@@ -117,7 +168,8 @@ def compile_template(
         elif name in catalogue:
             parts.append(catalogue[name])
         elif name in parameters:
-            parts.append(_format_parameter(parameters[name]))
+            parameter = parameters[name]
+            parts.append(_ParameterSlot(parameter, _format_parameter(parameter)))
         else:
             problems.append(
                 (
@@ -126,7 +178,7 @@ def compile_template(
                 )
             )
     # Adjacent literals are joined so rendering touches as few parts as possible.
-    merged: list[str | FactSpec] = []
+    merged: list[str | FactSpec | _ParameterSlot] = []
     for part in parts:
         if isinstance(part, str) and merged and isinstance(merged[-1], str):
             merged[-1] += part

@@ -10,12 +10,14 @@ deterministic: nothing in the context changes after evaluation.
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 
+from service.engine.compiled import CompiledCondition
 from service.engine.facts import FactValue
 from service.engine.leaves import Leaf, Threshold, shown_value
 from service.engine.logic import Operator, Truth, TruthValue, truth_of
+from service.engine.rationale import NO_UNITS, Units
 from service.engine.ruleset import Outcome, Rule
 
-__all__ = ["EvaluationContext", "LeafTrace", "RuleResult"]
+__all__ = ["EvaluationContext", "LeafTrace", "RuleResult", "TraceNode"]
 
 
 @dataclass(frozen=True, slots=True)
@@ -25,6 +27,8 @@ class EvaluationContext:
     facts: Mapping[str, FactValue]
     states: Sequence[TruthValue]
     leaves: Sequence[Leaf]
+    blocks: dict[str, "TraceNode"] = field(default_factory=dict, compare=False, repr=False)
+    """Each named block's trace, made once per evaluation for all the rules that use it."""
 
 
 @dataclass(frozen=True, slots=True)
@@ -42,6 +46,24 @@ class LeafTrace:
     state: Truth
     missing: str | None
     """The fact's name when it was missing (a leaf other than `present` is then unknown)."""
+
+
+@dataclass(frozen=True, slots=True)
+class TraceNode:
+    """One node of a rule's condition as evaluated: its kind, its value and its parts.
+
+    ``kind`` is ``all``, ``any``, ``not``, ``definitely``, ``ref`` (a named block of the
+    manifest, ``name`` says which) or ``leaf`` (``leaf`` holds what it saw). The tree shows why
+    an ``all`` is unknown (a part is unknown and none is false) or an ``any`` is true.
+    """
+
+    kind: str
+    state: Truth
+    children: tuple["TraceNode", ...] = ()
+    name: str | None = None
+    leaf: LeafTrace | None = None
+    text: str = ""
+    """A leaf as a trace line shows it: ``arterial_pco2 65 mm[Hg] > 45 mm[Hg] (limit)``."""
 
 
 @dataclass(frozen=True, slots=True)
@@ -72,27 +94,52 @@ class RuleResult:
         """The rule's rationale with this evaluation's values and units filled in."""
         return self.rule.rationale.render(self.context.facts)
 
+    def rationale_in(self, units: Units = NO_UNITS) -> str:
+        """The rationale with numbers shown in ``units`` (see ``rationale.DisplayUnit``)."""
+        return self.rule.rationale.render(self.context.facts, units)
+
+    @property
+    def tree(self) -> TraceNode:
+        """The rule's condition as a tree of evaluated nodes, blocks named, as written."""
+        return self._node(self.rule.condition)
+
+    def _node(self, node: CompiledCondition) -> TraceNode:
+        states = self.context.states
+        if node.kind == "leaf" and node.leaf is not None:
+            leaf = self.context.leaves[node.leaf]
+            trace = self._leaf_trace(node.leaf)
+            value = trace.value
+            seen = "missing" if value is None else f"{shown_value(value)}{leaf.shown_unit}"
+            text = f"{leaf.fact} {seen} {leaf.shown_test}"
+            return TraceNode("leaf", trace.state, leaf=trace, text=text)
+        if node.kind == "ref" and node.name is not None:
+            made = self.context.blocks.get(node.name)
+            if made is None:
+                children = tuple(self._node(part) for part in node.parts)
+                made = TraceNode("ref", truth_of(node.truth(states)), children, node.name)
+                self.context.blocks[node.name] = made
+            return made
+        children = tuple(self._node(part) for part in node.parts)
+        return TraceNode(node.kind, truth_of(node.truth(states)), children, node.name)
+
+    def _leaf_trace(self, index: int) -> LeafTrace:
+        leaf = self.context.leaves[index]
+        value = self.context.facts.get(leaf.fact)
+        return LeafTrace(
+            fact=leaf.fact,
+            operator=leaf.operator,
+            threshold=leaf.threshold,
+            parameters=leaf.parameters,
+            unit=leaf.unit,
+            value=value,
+            state=truth_of(self.context.states[index]),
+            missing=leaf.fact if value is None else None,
+        )
+
     @property
     def trace(self) -> tuple[LeafTrace, ...]:
         """Every leaf of the rule's condition (blocks expanded), in written order."""
-        facts, states, leaves = self.context.facts, self.context.states, self.context.leaves
-        traces: list[LeafTrace] = []
-        for index in self.rule.condition.leaves:
-            leaf = leaves[index]
-            value = facts.get(leaf.fact)
-            traces.append(
-                LeafTrace(
-                    fact=leaf.fact,
-                    operator=leaf.operator,
-                    threshold=leaf.threshold,
-                    parameters=leaf.parameters,
-                    unit=leaf.unit,
-                    value=value,
-                    state=truth_of(states[index]),
-                    missing=leaf.fact if value is None else None,
-                )
-            )
-        return tuple(traces)
+        return tuple(self._leaf_trace(index) for index in self.rule.condition.leaves)
 
     @property
     def trace_lines(self) -> tuple[str, ...]:

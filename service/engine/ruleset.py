@@ -14,7 +14,6 @@ from service.engine.logic import TruthValue
 from service.engine.parameters import Parameter
 from service.engine.rationale import Template
 from service.engine.vocabulary import (
-    FindingCode,
     GasExchangeStatus,
     Grade,
     HypoxaemiaStatus,
@@ -25,6 +24,7 @@ from service.engine.vocabulary import (
 
 __all__ = [
     "Discriminator",
+    "FindingDeclaration",
     "FindingOutcome",
     "GasExchangeOutcome",
     "HypoxaemiaOutcome",
@@ -48,10 +48,21 @@ class MechanismOutcome:
 
 @dataclass(frozen=True, slots=True)
 class FindingOutcome:
-    """The rule raises a finding."""
+    """The rule raises a finding: a built-in ``FindingCode`` or a code the rule set declares
+    (``FindingDeclaration``)."""
 
-    code: FindingCode
+    code: str
     severity: Severity
+
+
+@dataclass(frozen=True, slots=True)
+class FindingDeclaration:
+    """A finding code a rule set adds, with the code system it belongs to."""
+
+    code: str
+    display: str
+    description: str
+    system: str
 
 
 @dataclass(frozen=True, slots=True)
@@ -180,6 +191,8 @@ class RuleSet:
     retired: tuple[RetiredRule, ...]
     leaves: tuple[Leaf, ...]
     """Every distinct leaf; a rule's condition refers to them by index."""
+    findings: Mapping[str, FindingDeclaration] = field(default_factory=dict)
+    """Finding codes the rule set declares beside the built-in ones, by code."""
     evaluated: tuple[Rule, ...] = field(init=False, repr=False, compare=False)
     """Active and testing rules: the ones `evaluate` runs."""
     leaf_tests: tuple[FactTest, ...] = field(init=False, repr=False, compare=False)

@@ -143,7 +143,7 @@ def combine(
         f
         for f in verdicts[0].findings
         if f.code not in shown_codes
-        and all(any(g.code is f.code for g in v.findings) for v in verdicts[1:])
+        and all(any(g.code == f.code for g in v.findings) for v in verdicts[1:])
     ]
     findings = tuple(sorted((*verdict.findings, *everywhere), key=finding_order))
     requested = list(verdict.data_requested)

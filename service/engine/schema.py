@@ -37,7 +37,7 @@ from pydantic import (
 from pydantic_core import PydanticCustomError
 
 from service.engine.logic import Operator
-from service.engine.vocabulary import FindingCode, Mechanism, RuleStatus, Severity
+from service.engine.vocabulary import Mechanism, RuleStatus, Severity
 
 __all__ = [
     "UNION_TAGS",
@@ -46,6 +46,7 @@ __all__ = [
     "Condition",
     "DefinitelyNode",
     "DiscriminatorModel",
+    "FindingDeclarationModel",
     "FindingModel",
     "LeafNode",
     "ManifestModel",
@@ -259,6 +260,15 @@ class ParameterModel(_Strict):
     source: Text
 
 
+class FindingDeclarationModel(_Strict):
+    """A finding code the rule set adds to the built-in ones (``FindingCode``)."""
+
+    display: Text
+    """A few words, shown beside the code (FHIR ``Coding.display``)."""
+    description: Text
+    """What the finding means and when it is raised."""
+
+
 class ManifestModel(_Strict):
     """`ruleset.yaml` at the root of a rule-set directory."""
 
@@ -268,6 +278,12 @@ class ManifestModel(_Strict):
     description: Text
     parameters: dict[SnakeName, ParameterModel] = Field(default_factory=dict)
     blocks: dict[SnakeName, Condition] = Field(default_factory=dict)
+    findings: dict[KebabId, FindingDeclarationModel] = Field(default_factory=dict)
+    """Finding codes this rule set adds (a site's own), each with its display and meaning."""
+    finding_system: (
+        Annotated[str, Strict(), Field(min_length=1, pattern=r"^[a-z][a-z0-9+.-]*:\S+$")] | None
+    ) = None
+    """The URI of the code system of the added codes (default: one named after the rule set)."""
 
 
 class MechanismModel(_Strict):
@@ -278,9 +294,10 @@ class MechanismModel(_Strict):
 
 
 class FindingModel(_Strict):
-    """`finding: {code, severity}`."""
+    """`finding: {code, severity}`: a built-in code, or one declared under the manifest's
+    `findings` (checked by the loader, which can say how to declare it)."""
 
-    code: FindingCode
+    code: KebabId
     severity: Severity
 
 

@@ -29,10 +29,10 @@ from service.engine.catalogue import FactCatalogue
 from service.engine.data_requests import DataRequest, DataRequests
 from service.engine.facts import FactValue
 from service.engine.logic import TruthValue, value_of
+from service.engine.rationale import NO_UNITS, Units
 from service.engine.results import RuleResult
 from service.engine.ruleset import Discriminator, MechanismOutcome, VerdictPlan
 from service.engine.vocabulary import (
-    FindingCode,
     GasExchangeStatus,
     Grade,
     HypoxaemiaStatus,
@@ -121,13 +121,17 @@ class MechanismAssessment:
     def rationales(self) -> tuple[str, ...]:
         """The deciding rules' rationales, plus a sentence on any demotion; for a mechanism
         no rule decided, what was missing."""
+        return self.rationales_in(NO_UNITS)
+
+    def rationales_in(self, units: Units) -> tuple[str, ...]:
+        """``rationales`` with numbers shown in ``units`` (see ``rationale.DisplayUnit``)."""
         if self.uncertain_because is not None:
             return (self.uncertain_because,)
         if self.grade is _NOT_ASSESSABLE and not self.deciding:
             if self.undecided:
                 return ("Not assessable: missing " + ", ".join(self.undecided),)
             return ("Not assessable: no rule applied to these data",)
-        texts = [result.rationale for result in self.deciding]
+        texts = [result.rationale_in(units) for result in self.deciding]
         if self.demoted_because is not None:
             texts.append(
                 "Demoted from likely to possible: the gas is not classifiable "
@@ -151,7 +155,8 @@ class MechanismAssessment:
 class FindingResult:
     """A finding raised by a fired rule."""
 
-    code: FindingCode
+    code: str
+    """A built-in ``FindingCode`` or a code the rule set declares."""
     severity: Severity
     result: RuleResult
 
@@ -164,6 +169,10 @@ class FindingResult:
     def rationale(self) -> str:
         """The rule's rationale with this evaluation's values."""
         return self.result.rationale
+
+    def rationale_in(self, units: Units) -> str:
+        """The rationale with numbers shown in ``units``."""
+        return self.result.rationale_in(units)
 
 
 @dataclass(frozen=True, slots=True)
@@ -269,7 +278,7 @@ def _demotion(
     input_errors: Sequence[str],
 ) -> str | None:
     """Why the gas is not classifiable, or None when it is."""
-    errors = sorted({item.code.value for item in findings if item.severity is _ERROR})
+    errors = sorted({str(item.code) for item in findings if item.severity is _ERROR})
     reasons: list[str] = []
     if errors:
         reasons.append("error finding fired: " + ", ".join(errors))

@@ -2,8 +2,12 @@
 
 Every word a rule file may use for an outcome is listed here, so a typo in a rule is a
 load error rather than a silently new category. The values are the wire spellings
-(kebab-case); the member names are their Python spellings. Extending a vocabulary is a
+(kebab-case); the member names are their Python spellings. Extending these vocabularies is a
 code change on purpose: downstream consumers switch on these values.
+
+Finding codes are the exception: ``FindingCode`` lists the built-in ones (the service's own
+intake raises some of them), and a rule set adds its own as data, under ``findings:`` in its
+``ruleset.yaml``, each with a display and a description (``loader``). A rule may use either.
 """
 
 from enum import StrEnum
@@ -95,7 +99,8 @@ class RuleStatus(StrEnum):
 
 
 class FindingCode(StrEnum):
-    """Codes of findings: data-quality remarks and clinical context beside the grades."""
+    """Built-in codes of findings: data-quality remarks and clinical context beside the
+    grades. A rule set declares any others in its manifest (``findings:``)."""
 
     # Data quality and plausibility.
     PAO2_EXCEEDS_ALVEOLAR = "pao2-exceeds-alveolar"

@@ -212,6 +212,7 @@ def _parameters(
     quantities: _Quantities,
     settings_hash: str,
     partitions: tuple[GasPartitions, ...],
+    site: str | None = None,
 ) -> Json:
     params: list[Json] = [
         {"name": "ruleset", "valueString": a.ruleset_identity},
@@ -219,6 +220,8 @@ def _parameters(
     ]
     if settings_hash:
         params.append({"name": "settings-hash", "valueString": settings_hash})
+    if site:
+        params.append({"name": "site", "valueString": site})
     params.append({"name": "pattern", "valueCode": a.pattern})
     params.append({"name": "gas-exchange", "valueCode": a.gas_exchange})
     params += [_mechanism_parameter(m) for m in a.mechanisms]
@@ -245,7 +248,10 @@ def _issue(f: Finding) -> Json:
     issue: Json = {
         "severity": f.severity,
         "code": ISSUE_CODE[f.severity],
-        "details": {"coding": [_coding(FINDING_SYSTEM, f.code)], "text": f.message},
+        "details": {
+            "coding": [_coding(f.system or FINDING_SYSTEM, f.code, f.display)],
+            "text": f.message,
+        },
         "diagnostics": f.message + (f" (rule {f.rule})" if f.rule else ""),
     }
     if f.expression:
@@ -401,11 +407,12 @@ def render_bundle(
     settings: Settings,
     pressure_unit: PressureUnit = "mm[Hg]",
     settings_hash: str = "",
+    site: str | None = None,
 ) -> Json:
     """The result Bundle for ``a``. ``data_requirements`` are (system, code) pairs;
     ``settings`` are those ``a`` was assessed with (a partition that depends on an unknown
     residence is shown for each residence, derived again with them); ``settings_hash`` names
-    them."""
+    them, and ``site`` is the label of the site file they came from (None: none)."""
     requirements = _data_requirements(data_requirements)
     # More data was asked for only if some of it can be named as a FHIR data requirement.
     status = "success" if a.status == "data-requested" and not requirements else a.status
@@ -427,7 +434,7 @@ def render_bundle(
     partitions = assessment_partitions(a, settings)
     resources: list[Json] = [
         guidance,
-        _parameters(a, quantities, settings_hash, partitions),
+        _parameters(a, quantities, settings_hash, partitions, site),
         _operation_outcome(a),
     ]
     derived = a.index.derived

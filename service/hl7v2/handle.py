@@ -108,7 +108,8 @@ def refusal(
     if reply == "fhir":
         return V2Response(status, FHIR_MEDIA_TYPE, orjson.dumps(operation_outcome(errors)), code)
     what = "rejected" if code == "AR" else "not assessed"
-    text = f"{what}: {len(errors)} problem(s), see ERR"
+    count = len(errors)
+    text = f"{what}: {count} problem{'' if count == 1 else 's'}, see ERR"
     body = ack(message, code, errors, text=text, now=now)
     return V2Response(status, ER7_MEDIA_TYPE, body.encode(), code)
 
@@ -132,7 +133,7 @@ def _answer(
         intake = read_oru(message, concept_map=runtime.concept_map, max_issues=limits.max_issues)
     except MessageInError as exc:
         return refusal(message, "AE", exc.errors, reply, now=now)
-    assessment = runtime.assess_intake(intake, now=now)
+    assessment = runtime.assess_intake(intake, now=now, pressure_unit=unit)
     if reply == "fhir":
         body = orjson.dumps(runtime.render(assessment, pressure_unit=unit))
         return V2Response(200, FHIR_MEDIA_TYPE, body, "AA")

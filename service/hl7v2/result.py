@@ -296,6 +296,7 @@ def oru_result(
         "finding", "Data-quality or context finding", tables.DERIVED_SYSTEM
     )
     for n, f in enumerate(a.findings, start=1):
-        w.coded_obx(finding_code, er7.components(f.code, "", tables.FINDING_SYSTEM), f"2.{n}")
+        system = tables.FINDING_SYSTEM if f.system is None else tables.SITE_FINDING_SYSTEM
+        w.coded_obx(finding_code, er7.components(f.code, f.display or "", system), f"2.{n}")
         w.note(f"{f.severity}: {f.message}")
     return er7.message(segments + w.segments)

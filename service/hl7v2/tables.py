@@ -47,6 +47,7 @@ MECHANISM_SYSTEM = "99OXYMEC"  # .../CodeSystem/hypoxaemia-mechanism
 GRADE_SYSTEM = "99OXYGRD"  # .../CodeSystem/mechanism-grade
 PATTERN_SYSTEM = "99OXYPAT"  # .../CodeSystem/hypoxaemia-pattern
 FINDING_SYSTEM = "99OXYFND"  # .../CodeSystem/finding
+SITE_FINDING_SYSTEM = "99OXYSFN"  # finding codes a rule set declares (its ruleset.yaml)
 GAS_EXCHANGE_SYSTEM = "99OXYGXS"  # .../CodeSystem/gas-exchange-status
 
 # --- Observation result status (HL7 table 0085) -> used or not --------------------------------

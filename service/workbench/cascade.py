@@ -1,60 +1,51 @@
 """The oxygen cascade of one gas against the normal cascade for the same age, altitude and FiO2.
 
 Pure: numbers in, an SVG string out. The stages are inspired → alveolar → arterial (→ mixed
-venous when it was measured). The normal line breathes the same gas (same PB, FiO2 and PH2O):
+venous when it was measured); the normal values come from ``service.physiology.cascade``
+(same PB, FiO2 and PH2O, PaCO2 40). The gap between the patient's line and the normal line at
+each stage shows where the oxygen is lost; its growth from one stage to the next, at which step.
 
-* inspired: PIO2 = FiO2 × (PB − PH2O);
-* alveolar: the alveolar gas equation (full form) with PaCO2 40 mmHg;
-* arterial: normal alveolar − the age-expected room-air A-a limit;
-* mixed venous: about 40 mmHg (common practice).
-
-The gap between the patient's line and the normal line at each stage shows where the oxygen
-is lost; the growth of the gap from one stage to the next shows at which step.
+Drawn by hand, as the deficit waterfall beside it (``waterfall``): a few lines, marks and
+labels, so a plotting library would add a large dependency to the service for nothing a
+reader sees; hand-written SVG keeps every label as text, is a few kB and reproducible.
+Readable without colour: the patient is a solid line with filled circles, the normal a dashed
+line with open squares, the gap a hatched band with its signed size written on it.
 """
 
 from __future__ import annotations
 
-import html
-import io
 import math
-import re
-from contextlib import AbstractContextManager
 from dataclasses import dataclass
+from html import escape
 
-import matplotlib
-from matplotlib.artist import Artist
-from matplotlib.axes import Axes
-from matplotlib.backends.backend_agg import FigureCanvasAgg
-from matplotlib.figure import Figure
-from matplotlib.lines import Line2D
-from matplotlib.patches import Patch
-
-from service.exceptions import PhysiologyError
 from service.physiology import constants as c
-from service.physiology.gas_exchange import (
-    aa_gradient_upper_limit_mmhg,
-    alveolar_po2_mmhg,
-    inspired_po2_mmhg,
-)
+from service.physiology.cascade import NormalCascade, normal_cascade
 
-NORMAL_PACO2_MMHG = c.NORMAL_PACO2_MMHG
-NORMAL_MIXED_VENOUS_PO2_MMHG = 40.0  # common practice: resting mixed-venous PO2 ≈ 40 mmHg
+__all__ = [
+    "Cascade",
+    "CascadeInput",
+    "Stage",
+    "build_cascade",
+    "cascade_svg",
+    "describe",
+    "signed",
+]
+
 ROOM_AIR_LIMIT_MAX_FIO2 = 0.3  # above this the room-air A-a limit understates the normal gap
 # The sea-level room-air reference is drawn when the inspired PO2 is this far below it.
 LOW_INSPIRED_MARGIN_MMHG = 5.0
 # Gaps smaller than this are not annotated (the inspired gap is zero by construction).
 SMALLEST_GAP_MMHG = 0.5
 
-HASH_SALT = "oxyrule-cascade"  # a constant salt makes the SVG ids, so the bytes, reproducible
-PATIENT_COLOUR = "#7a2431"  # deep wine: the patient, solid line with filled circles
-NORMAL_COLOUR = "#3d6478"  # slate: the normal cascade, dashed line with open squares
-REFERENCE_COLOUR = "#6b6b6b"  # grey: the sea-level room-air reference, dotted
-GAP_COLOUR = "#e7c77f"  # sand: the hatched band between the lines
-GAP_EDGE = "#b08a3a"
-NORMAL_DASH = (0, (5, 3))
-FIGURE_SIZE_IN = (7.4, 3.9)
-# Fixed margins (a layout engine would triple the drawing time); room for two-line tick labels.
-MARGINS = {"left": 0.085, "right": 0.985, "bottom": 0.15, "top": 0.92}
+PATIENT_INK = "#7a2431"  # the patient: solid line, filled circles
+NORMAL_INK = "#3d6478"  # the normal cascade: dashed line, open squares
+REFERENCE_INK = "#555555"  # the sea-level room-air reference: dotted
+GAP_INK, GAP_PAPER = "#8a6a22", "#f3e6c4"  # the hatched band between the lines
+INK, MUTED, GRID = "#1f2a33", "#444444", "#e3e6e9"
+WIDTH, HEIGHT = 740, 330
+LEFT, RIGHT, TOP, BOTTOM = 56, 14, 44, 52
+HEADROOM = 1.12
+TARGET_TICKS = 5
 
 
 @dataclass(frozen=True, slots=True)
@@ -95,18 +86,6 @@ class Stage:
 
 
 @dataclass(frozen=True, slots=True)
-class Normal:
-    """The normal cascade for one age, PB and FiO2, with the reasons for any missing value."""
-
-    inspired: float | None
-    alveolar: float | None
-    arterial: float | None
-    mixed_venous: float
-    aa_limit: float | None
-    missing: dict[str, str]
-
-
-@dataclass(frozen=True, slots=True)
 class Cascade:
     """The stages to draw, the notes of the caption and the conditions of the normal line."""
 
@@ -119,59 +98,6 @@ class Cascade:
     def drawable(self) -> bool:
         """Whether any stage has a number to draw."""
         return any(s.patient is not None or s.normal is not None for s in self.stages)
-
-
-def normal_cascade(
-    *,
-    fio2: float | None,
-    barometric_mmhg: float | None,
-    age_years: float | None,
-    water_vapour_mmhg: float = c.WATER_VAPOUR_TEXTBOOK_MMHG,
-    respiratory_quotient: float = c.DEFAULT_RESPIRATORY_QUOTIENT,
-) -> Normal:
-    """The normal PO2 at each stage for the same gas (same FiO2, PB and PH2O), PaCO2 40."""
-    missing: dict[str, str] = {}
-    inspired = alveolar = arterial = aa_limit = None
-    if age_years is not None:
-        try:
-            aa_limit = aa_gradient_upper_limit_mmhg(age_years=age_years)
-        except PhysiologyError as error:
-            missing["arterial"] = f"no age-expected A-a limit ({error})"
-    else:
-        missing["arterial"] = "age not known, so no age-expected A-a limit"
-    if fio2 is None or barometric_mmhg is None:
-        why = "FiO2 not known" if fio2 is None else "barometric pressure not known"
-        missing.update(inspired=why, alveolar=why, arterial=why)
-        return Normal(None, None, None, NORMAL_MIXED_VENOUS_PO2_MMHG, aa_limit, missing)
-    try:
-        inspired = inspired_po2_mmhg(
-            fio2=fio2, barometric_mmhg=barometric_mmhg, water_vapour_mmhg=water_vapour_mmhg
-        )
-        alveolar = alveolar_po2_mmhg(
-            fio2=fio2,
-            paco2_mmhg=NORMAL_PACO2_MMHG,
-            barometric_mmhg=barometric_mmhg,
-            water_vapour_mmhg=water_vapour_mmhg,
-            respiratory_quotient=respiratory_quotient,
-        )
-    except PhysiologyError as error:
-        missing.update(inspired=str(error), alveolar=str(error), arterial=str(error))
-        return Normal(None, None, None, NORMAL_MIXED_VENOUS_PO2_MMHG, aa_limit, missing)
-    if alveolar <= 0:
-        # Extreme altitude or a hypoxic mixture: with PaCO2 40 no oxygen would be left, so no
-        # normal line exists there (people survive it only by hyperventilating).
-        why = (
-            f"with PaCO2 {NORMAL_PACO2_MMHG:g} mmHg no alveolar oxygen is left at this PB and "
-            f"FiO2: the equation gives {signed(alveolar)} mmHg"
-        )
-        missing.update(alveolar=why, arterial=why)
-        return Normal(inspired, None, None, NORMAL_MIXED_VENOUS_PO2_MMHG, aa_limit, missing)
-    if aa_limit is not None:
-        arterial = alveolar - aa_limit
-        if arterial <= 0:
-            arterial = None
-            missing["arterial"] = "the age-expected A-a limit exceeds the normal alveolar PO2"
-    return Normal(inspired, alveolar, arterial, NORMAL_MIXED_VENOUS_PO2_MMHG, aa_limit, missing)
 
 
 def _patient_missing(inp: CascadeInput) -> dict[str, str]:
@@ -196,7 +122,7 @@ def _fmt(value: float) -> str:
 
 def build_cascade(inp: CascadeInput) -> Cascade:
     """The patient's stages beside the normal ones, with the caption notes."""
-    normal = normal_cascade(
+    normal: NormalCascade = normal_cascade(
         fio2=inp.fio2,
         barometric_mmhg=inp.barometric_mmhg,
         age_years=inp.age_years,
@@ -210,7 +136,7 @@ def build_cascade(inp: CascadeInput) -> Cascade:
             "Inspired",
             "PIO₂",
             inp.inspired_po2,
-            normal.inspired,
+            normal.inspired_mmhg,
             why.get("inspired"),
             normal.missing.get("inspired"),
         ),
@@ -219,7 +145,7 @@ def build_cascade(inp: CascadeInput) -> Cascade:
             "Alveolar",
             "PAO₂",
             inp.alveolar_po2,
-            normal.alveolar,
+            normal.alveolar_mmhg,
             why.get("alveolar"),
             normal.missing.get("alveolar"),
         ),
@@ -228,7 +154,7 @@ def build_cascade(inp: CascadeInput) -> Cascade:
             "Arterial",
             "PaO₂",
             inp.arterial_po2,
-            normal.arterial,
+            normal.arterial_mmhg,
             why.get("arterial"),
             normal.missing.get("arterial"),
         ),
@@ -236,10 +162,16 @@ def build_cascade(inp: CascadeInput) -> Cascade:
     notes: list[str] = []
     if inp.mixed_venous_po2 is not None:
         stages.append(
-            Stage("mixed-venous", "Mixed venous", "PvO₂", inp.mixed_venous_po2, normal.mixed_venous)
+            Stage(
+                "mixed-venous",
+                "Mixed venous",
+                "PvO₂",
+                inp.mixed_venous_po2,
+                normal.mixed_venous_mmhg,
+            )
         )
         notes.append(
-            f"Normal mixed-venous PO2 taken as about {NORMAL_MIXED_VENOUS_PO2_MMHG:g} mmHg "
+            f"Normal mixed-venous PO2 taken as about {c.NORMAL_MIXED_VENOUS_PO2_MMHG:g} mmHg "
             "(common practice)."
         )
     else:
@@ -249,16 +181,21 @@ def build_cascade(inp: CascadeInput) -> Cascade:
             notes.append(f"{stage.label}: no patient value ({stage.patient_missing}).")
         if stage.normal_missing:
             notes.append(f"{stage.label}: no normal value ({stage.normal_missing}).")
-    if inp.fio2 is not None and inp.fio2 > ROOM_AIR_LIMIT_MAX_FIO2 and normal.aa_limit is not None:
+    if (
+        inp.fio2 is not None
+        and inp.fio2 > ROOM_AIR_LIMIT_MAX_FIO2
+        and normal.aa_limit_mmhg is not None
+    ):
         notes.append(
-            f"On FiO2 {inp.fio2:.2f} the room-air A-a limit for age ({_fmt(normal.aa_limit)} mmHg) "
+            f"On FiO2 {inp.fio2:.2f} the room-air A-a limit for age "
+            f"({_fmt(normal.aa_limit_mmhg)} mmHg) "
             "understates the normal gap, which widens with FiO2: the normal arterial value is "
             "drawn too high, so the arterial gap overstates the loss."
         )
     return Cascade(tuple(stages), tuple(notes), _conditions(inp, normal), _reference(inp))
 
 
-def _conditions(inp: CascadeInput, normal: Normal) -> str:
+def _conditions(inp: CascadeInput, normal: NormalCascade) -> str:
     parts = []
     if inp.age_years is not None:
         parts.append(f"age {inp.age_years:g}")
@@ -266,11 +203,11 @@ def _conditions(inp: CascadeInput, normal: Normal) -> str:
         parts.append(f"PB {inp.barometric_mmhg:.0f} mmHg")
     if inp.fio2 is not None:
         parts.append(f"FiO2 {inp.fio2:.2f}")
-    parts.append(f"PaCO2 {NORMAL_PACO2_MMHG:g} mmHg")
+    parts.append(f"PaCO2 {c.NORMAL_PACO2_MMHG:g} mmHg")
     parts.append(f"PH2O {_fmt(inp.water_vapour_mmhg)} mmHg")
     parts.append(f"R {inp.respiratory_quotient:g}")
-    if normal.aa_limit is not None:
-        parts.append(f"A-a limit {_fmt(normal.aa_limit)} mmHg")
+    if normal.aa_limit_mmhg is not None:
+        parts.append(f"A-a limit {_fmt(normal.aa_limit_mmhg)} mmHg")
     return ", ".join(parts)
 
 
@@ -294,268 +231,167 @@ def describe(cascade: Cascade) -> str:
     return "; ".join(parts) + f". Normal cascade for {cascade.conditions}."
 
 
-def _polyline(values: list[float | None]) -> tuple[list[float], list[float]]:
-    """A step line: each known stage a plateau over [i, i+1], neighbours joined vertically."""
-    xs: list[float] = []
-    ys: list[float] = []
-    for i, v in enumerate(values):
-        if v is None:
-            xs.append(math.nan)
-            ys.append(math.nan)
-            continue
-        xs += [float(i), float(i + 1)]
-        ys += [v, v]
-    return xs, ys
-
-
-def _draw(fig: Figure, cascade: Cascade) -> None:
-    ax = fig.add_subplot()
-    stages = cascade.stages
-    n = len(stages)
-    patient = [s.patient for s in stages]
-    normal = [s.normal for s in stages]
-    known = [v for v in patient + normal if v is not None]
-    if cascade.sea_level_inspired_po2 is not None:
-        known.append(cascade.sea_level_inspired_po2)
-    top = max(known, default=100.0) * 1.12
-    ax.set_xlim(0, n)
-    ax.set_ylim(0, top)
-    ax.set_xticks([i + 0.5 for i in range(n)])
-    ax.set_xticklabels([f"{s.label}\n{s.symbol}" for s in stages])
-    ax.tick_params(axis="x", length=0)
-    for i in range(1, n):
-        ax.axvline(i, color="#eeeeee", linewidth=0.6, zorder=0)
-    ax.set_ylabel("PO₂ (mmHg)")
-
-    for i, s in enumerate(stages):
-        if s.patient is None or s.normal is None:
-            continue
-        if abs(s.patient - s.normal) >= SMALLEST_GAP_MMHG:
-            _gap(ax, i, s.patient, s.normal, top)
-
-    nx, ny = _polyline(normal)
-    ax.plot(nx, ny, color=NORMAL_COLOUR, linewidth=1.6, linestyle=NORMAL_DASH, zorder=3)
-    px, py = _polyline(patient)
-    ax.plot(px, py, color=PATIENT_COLOUR, linewidth=2.4, zorder=4)
-    for i, s in enumerate(stages):
-        _stage_marks(ax, i, s, top)
-    if cascade.sea_level_inspired_po2 is not None:
-        _reference_mark(ax, cascade.sea_level_inspired_po2)
-    _legend(ax, reference=cascade.sea_level_inspired_po2 is not None)
-
-
-def _legend(ax: Axes, *, reference: bool) -> None:
-    handles: list[Artist] = [
-        Line2D([], [], color=PATIENT_COLOUR, linewidth=2.4, marker="o", label="this patient"),
-        Line2D(
-            [],
-            [],
-            color=NORMAL_COLOUR,
-            linewidth=1.6,
-            linestyle=NORMAL_DASH,
-            marker="s",
-            markerfacecolor="white",
-            label="normal: same age, PB, FiO₂",
-        ),
-        Patch(
-            facecolor=GAP_COLOUR,
-            edgecolor=GAP_EDGE,
-            hatch="///",
-            alpha=0.55,
-            label="gap: patient − normal",
-        ),
-    ]
-    if reference:
-        handles.append(
-            Line2D([], [], color=REFERENCE_COLOUR, linestyle=":", label="sea-level room air")
-        )
-    ax.legend(
-        handles=handles,
-        loc="lower left",
-        bbox_to_anchor=(0.0, 1.01),
-        ncols=len(handles),
-        handlelength=2.4,
-        columnspacing=1.2,
-        borderaxespad=0.0,
-    )
-
-
-def _reference_mark(ax: Axes, ref: float) -> None:
-    ax.plot([0.06, 0.94], [ref, ref], color=REFERENCE_COLOUR, linewidth=1.2, linestyle=":")
-    ax.annotate(
-        f"sea-level room air {_fmt(ref)}",
-        (0.5, ref),
-        xytext=(0, 3),
-        textcoords="offset points",
-        ha="center",
-        va="bottom",
-        fontsize=7.5,
-        color="#444444",
-    )
-
-
-def _stage_marks(ax: Axes, i: int, s: Stage, top: float) -> None:
-    centre = i + 0.5
-    if s.normal is not None:
-        ax.plot(
-            [centre],
-            [s.normal],
-            marker="s",
-            markersize=7,
-            color=NORMAL_COLOUR,
-            markerfacecolor="white",
-            markeredgewidth=1.4,
-            linestyle="none",
-            zorder=5,
-        )
-    if s.patient is not None:
-        ax.plot(
-            [centre],
-            [s.patient],
-            marker="o",
-            markersize=5.5,
-            color=PATIENT_COLOUR,
-            linestyle="none",
-            zorder=6,
-        )
-    above = s.normal is None or (s.patient is not None and s.patient >= s.normal)
-    if s.patient is not None:
-        _value_label(ax, centre, s.patient, above=above, bold=True, colour=PATIENT_COLOUR)
-    if s.normal is not None:
-        _value_label(ax, centre, s.normal, above=not above, bold=False, colour=NORMAL_COLOUR)
-    if s.normal is None and s.patient is not None:
-        ax.text(
-            centre,
-            top * 0.03,
-            "no normal value (see caption)",
-            ha="center",
-            va="bottom",
-            fontsize=7.5,
-            style="italic",
-            color="#333333",
-        )
-    if s.patient is None:
-        # The note goes in the half of the stage away from the normal line.
-        y = top * (0.25 if s.normal is not None and s.normal > top * 0.5 else 0.72)
-        ax.text(
-            centre,
-            y,
-            "patient value\nnot available:\n" + _wrap(s.patient_missing or "not available"),
-            ha="center",
-            va="center",
-            fontsize=7.5,
-            style="italic",
-            color="#333333",
-            bbox={"boxstyle": "round,pad=0.35", "facecolor": "white", "edgecolor": "#999999"},
-            zorder=7,
-        )
-
-
-def _wrap(text: str, width: int = 22) -> str:
-    lines: list[str] = []
-    for word in text.split():
-        if lines and len(lines[-1]) + 1 + len(word) <= width:
-            lines[-1] += " " + word
-        else:
-            lines.append(word)
-    return "\n".join(lines)
-
-
-def _value_label(ax: Axes, x: float, y: float, *, above: bool, bold: bool, colour: str) -> None:
-    ax.annotate(
-        _fmt(y),
-        (x, y),
-        xytext=(-8, 4 if above else -4),
-        textcoords="offset points",
-        ha="right",
-        va="bottom" if above else "top",
-        fontsize=8,
-        fontweight="bold" if bold else "normal",
-        color=colour,
-        zorder=8,
-    )
-
-
-def _gap(ax: Axes, i: int, patient: float, normal: float, top: float) -> None:
-    """The hatched band between the lines over one stage, its arrow and its signed size."""
-    low, high = sorted((patient, normal))
-    ax.fill_between(
-        [i, i + 1],
-        low,
-        high,
-        facecolor=GAP_COLOUR,
-        edgecolor=GAP_EDGE,
-        hatch="///",
-        linewidth=0.0,
-        alpha=0.55,
-        zorder=1,
-    )
-    x = i + 0.8
-    small = high - low < top * 0.07  # too thin for an arrow: the label sits under the band
-    if not small:
-        ax.annotate(
-            "",
-            xy=(x, patient),
-            xytext=(x, normal),
-            arrowprops={
-                "arrowstyle": "<->",
-                "color": "#333333",
-                "linewidth": 0.9,
-                "shrinkA": 0,
-                "shrinkB": 0,
-            },
-            zorder=7,
-        )
-    ax.annotate(
-        signed(patient - normal),
-        (x, low if small else (low + high) / 2),
-        xytext=(-6 if small else 3, -4 if small else 0),
-        textcoords="offset points",
-        ha="left",
-        va="top" if small else "center",
-        fontsize=8,
-        fontweight="bold",
-        color="#222222",
-        bbox={"boxstyle": "square,pad=0.15", "facecolor": "white", "edgecolor": "none"},
-        zorder=8,
-    )
-
-
 def signed(value: float) -> str:
     """``+1.2`` / ``−3.4`` (a true minus sign), ``0.0`` when it rounds to zero."""
     text = f"{value:+.1f}"
     return "0.0" if text in ("+0.0", "-0.0") else text.replace("-", "−")
 
 
-_ID = re.compile(r'\bid="([^"]+)"')
-_REF = re.compile(r'(href="#|url\(#)([^")]+)')
-_SIZE = re.compile(r'\s(?:width|height)="[\d.]+pt"')
+def _ticks(high: float) -> list[float]:
+    """Round tick values (1, 2 or 5 × 10^k apart) from 0 to ``high``."""
+    raw = max(high, 1.0) / TARGET_TICKS
+    power = 10.0 ** math.floor(math.log10(raw))
+    step = next(m * power for m in (1.0, 2.0, 5.0, 10.0) if m * power >= raw)
+    return [i * step for i in range(int(high / step) + 1)]
 
 
-def _style() -> AbstractContextManager[None]:
-    """The one style of every chart (a literal, so each key is checked against matplotlib's)."""
-    return matplotlib.rc_context(
-        {
-            "svg.fonttype": "none",  # text stays text: searchable, and no glyph paths
-            "svg.hashsalt": HASH_SALT,
-            "font.family": "sans-serif",
-            "font.sans-serif": ["DejaVu Sans", "Liberation Sans", "Arial"],
-            "font.size": 9.0,
-            "axes.edgecolor": "#4a4a4a",
-            "axes.linewidth": 0.8,
-            "axes.spines.top": False,
-            "axes.spines.right": False,
-            "axes.grid": True,
-            "axes.grid.axis": "y",
-            "grid.color": "#dddddd",
-            "grid.linewidth": 0.6,
-            "xtick.color": "#333333",
-            "ytick.color": "#333333",
-            "legend.frameon": False,
-            "legend.fontsize": 8.0,
-            "hatch.linewidth": 0.6,
-        }
+def _wrap(text: str, width: int = 24) -> list[str]:
+    lines: list[str] = []
+    for word in text.split():
+        if lines and len(lines[-1]) + 1 + len(word) <= width:
+            lines[-1] += " " + word
+        else:
+            lines.append(word)
+    return lines
+
+
+def _text(x: float, y: float, words: str, **attributes: str) -> str:
+    extra = "".join(f' {k.replace("_", "-")}="{v}"' for k, v in attributes.items())
+    return f'<text x="{x:.1f}" y="{y:.1f}"{extra}>{escape(words)}</text>'
+
+
+def _steps(values: list[float | None], x: list[float], y: object) -> str:
+    """A step line's path: a plateau over each known stage, neighbours joined vertically."""
+    assert callable(y)
+    path: list[str] = []
+    previous: float | None = None
+    for i, v in enumerate(values):
+        if v is None:
+            previous = None
+            continue
+        start, end = x[i], x[i + 1]
+        path.append(f"{'L' if previous is not None else 'M'}{start:.1f},{y(v):.1f}")
+        path.append(f"L{end:.1f},{y(v):.1f}")
+        previous = v
+    return " ".join(path)
+
+
+def _defs(prefix: str) -> str:
+    return (
+        "<defs>"
+        f'<pattern id="{prefix}-gap" width="6" height="6" patternUnits="userSpaceOnUse" '
+        'patternTransform="rotate(45)">'
+        f'<rect width="6" height="6" fill="{GAP_PAPER}"/>'
+        f'<line x1="0" y1="0" x2="0" y2="6" stroke="{GAP_INK}" stroke-width="1.6"/>'
+        "</pattern></defs>"
     )
+
+
+def _legend(prefix: str, *, reference: bool) -> str:
+    y = 16
+    items = [
+        f'<line x1="{LEFT}" x2="{LEFT + 26}" y1="{y}" y2="{y}" stroke="{PATIENT_INK}" '
+        'stroke-width="2.6"/>'
+        f'<circle cx="{LEFT + 13}" cy="{y}" r="3.6" fill="{PATIENT_INK}"/>'
+        + _text(LEFT + 32, y + 4, "this patient"),
+        f'<line x1="{LEFT + 130}" x2="{LEFT + 156}" y1="{y}" y2="{y}" stroke="{NORMAL_INK}" '
+        'stroke-width="1.8" stroke-dasharray="5 3"/>'
+        f'<rect x="{LEFT + 139.5}" y="{y - 3.5}" width="7" height="7" fill="white" '
+        f'stroke="{NORMAL_INK}" stroke-width="1.4"/>'
+        + _text(LEFT + 162, y + 4, "normal: same age, PB, FiO₂"),
+        f'<rect x="{LEFT + 352}" y="{y - 6}" width="18" height="12" fill="url(#{prefix}-gap)" '
+        f'stroke="{GAP_INK}" stroke-width="0.8"/>'
+        + _text(LEFT + 376, y + 4, "gap: patient − normal"),
+    ]
+    if reference:
+        items.append(
+            f'<line x1="{LEFT + 530}" x2="{LEFT + 556}" y1="{y}" y2="{y}" '
+            f'stroke="{REFERENCE_INK}" stroke-width="1.3" stroke-dasharray="1.5 2.5"/>'
+            + _text(LEFT + 562, y + 4, "sea-level room air")
+        )
+    return f'<g class="legend" font-size="11" fill="{INK}">' + "".join(items) + "</g>"
+
+
+def _stage_marks(s: Stage, centre: float, y: object, top_value: float) -> list[str]:
+    assert callable(y)
+    out: list[str] = []
+    if s.normal is not None:
+        out.append(
+            f'<rect x="{centre - 4.5:.1f}" y="{y(s.normal) - 4.5:.1f}" width="9" height="9" '
+            f'fill="white" stroke="{NORMAL_INK}" stroke-width="1.6"/>'
+        )
+    if s.patient is not None:
+        out.append(
+            f'<circle cx="{centre:.1f}" cy="{y(s.patient):.1f}" r="4.5" fill="{PATIENT_INK}"/>'
+        )
+    above = s.normal is None or (s.patient is not None and s.patient >= s.normal)
+    if s.patient is not None:
+        dy = -7 if above else 15
+        out.append(
+            _text(
+                centre - 8,
+                y(s.patient) + dy,
+                _fmt(s.patient),
+                text_anchor="end",
+                font_weight="bold",
+                fill=PATIENT_INK,
+            )
+        )
+    if s.normal is not None:
+        dy = 15 if above else -7
+        out.append(
+            _text(centre - 8, y(s.normal) + dy, _fmt(s.normal), text_anchor="end", fill=NORMAL_INK)
+        )
+    if s.normal is None and s.patient is not None:
+        out.append(
+            _text(
+                centre,
+                y(top_value * 0.03),
+                "no normal value (see caption)",
+                text_anchor="middle",
+                font_style="italic",
+                fill=MUTED,
+            )
+        )
+    if s.patient is None:
+        low = s.normal is not None and s.normal > top_value * 0.5
+        base = y(top_value * (0.25 if low else 0.72))
+        lines = ["patient value", "not available:", *_wrap(s.patient_missing or "not available")]
+        for n, line in enumerate(lines):
+            out.append(
+                _text(
+                    centre,
+                    base + (n - len(lines) / 2) * 13 + 10,
+                    line,
+                    text_anchor="middle",
+                    font_style="italic",
+                    fill=MUTED,
+                )
+            )
+    return out
+
+
+def _gap(s: Stage, left: float, right: float, y: object, prefix: str) -> list[str]:
+    """The hatched band between the lines over one stage and its signed size, as text."""
+    assert callable(y) and s.patient is not None and s.normal is not None
+    low, high = sorted((s.patient, s.normal))
+    top, bottom = y(high), y(low)
+    x = right - 52  # the signed size sits in the band's right part, inside the stage
+    out = [
+        f'<rect class="gap" x="{left:.1f}" y="{top:.1f}" width="{right - left:.1f}" '
+        f'height="{max(bottom - top, 0.8):.1f}" fill="url(#{prefix}-gap)" stroke="none"/>'
+    ]
+    label_y = (top + bottom) / 2 + 4 if bottom - top > 18 else bottom + 13
+    if bottom - top > 18:
+        out.append(
+            f'<line x1="{x:.1f}" x2="{x:.1f}" y1="{top + 2:.1f}" y2="{bottom - 2:.1f}" '
+            f'stroke="{INK}" stroke-width="0.9"/>'
+        )
+    out.append(
+        f'<rect x="{x + 3:.1f}" y="{label_y - 11:.1f}" width="38" height="14" fill="white"/>'
+        + _text(x + 5, label_y, signed(s.patient - s.normal), font_weight="bold", fill=INK)
+    )
+    return out
 
 
 def cascade_svg(cascade: Cascade, *, title: str, chart_id: str) -> str:
@@ -563,34 +399,83 @@ def cascade_svg(cascade: Cascade, *, title: str, chart_id: str) -> str:
 
     ``chart_id`` prefixes every id in the SVG so several charts can share one HTML page.
     """
-    with _style():
-        fig = Figure(figsize=FIGURE_SIZE_IN)
-        fig.subplots_adjust(**MARGINS)
-        FigureCanvasAgg(fig)
-        try:
-            _draw(fig, cascade)
-            buffer = io.StringIO()
-            fig.savefig(
-                buffer,
-                format="svg",
-                metadata={"Date": None, "Creator": None, "Format": None, "Type": None},
+    stages = cascade.stages
+    n = max(len(stages), 1)
+    known = [v for s in stages for v in (s.patient, s.normal) if v is not None]
+    if cascade.sea_level_inspired_po2 is not None:
+        known.append(cascade.sea_level_inspired_po2)
+    top_value = max(known, default=100.0) * HEADROOM
+    plot_w, plot_h = WIDTH - LEFT - RIGHT, HEIGHT - TOP - BOTTOM
+
+    def y(value: float) -> float:
+        return TOP + (top_value - value) / top_value * plot_h
+
+    x = [LEFT + i * plot_w / n for i in range(n + 1)]
+    out = [
+        f'<svg xmlns="http://www.w3.org/2000/svg" viewBox="0 0 {WIDTH} {HEIGHT}" role="img" '
+        f'aria-labelledby="{chart_id}-title {chart_id}-desc" class="cascade-chart" '
+        'font-family="DejaVu Sans, Liberation Sans, Arial, sans-serif" font-size="12">',
+        f'<title id="{chart_id}-title">{escape(title)}</title>',
+        f'<desc id="{chart_id}-desc">{escape(describe(cascade))}</desc>',
+        _defs(chart_id),
+        _legend(chart_id, reference=cascade.sea_level_inspired_po2 is not None),
+    ]
+    for tick in _ticks(top_value / HEADROOM * 1.05):
+        out.append(
+            f'<line x1="{LEFT}" x2="{WIDTH - RIGHT}" y1="{y(tick):.1f}" y2="{y(tick):.1f}" '
+            f'stroke="{GRID}"/>'
+            + _text(LEFT - 6, y(tick) + 4, f"{tick:g}", text_anchor="end", fill=MUTED)
+        )
+    middle = TOP + plot_h / 2
+    out.append(
+        _text(
+            14,
+            middle,
+            "PO₂ (mmHg)",
+            text_anchor="middle",
+            fill=MUTED,
+            transform=f"rotate(-90 14 {middle:.1f})",
+        )
+    )
+    for i, s in enumerate(stages):
+        centre = (x[i] + x[i + 1]) / 2
+        if i:
+            out.append(
+                f'<line x1="{x[i]:.1f}" x2="{x[i]:.1f}" y1="{TOP}" y2="{TOP + plot_h}" '
+                f'stroke="{GRID}"/>'
             )
-        finally:
-            fig.clear()
-    return _inline(buffer.getvalue(), title=title, desc=describe(cascade), prefix=chart_id)
-
-
-def _inline(svg: str, *, title: str, desc: str, prefix: str) -> str:
-    svg = svg[svg.index("<svg") :]
-    svg = _ID.sub(lambda m: f'id="{prefix}-{m.group(1)}"', svg)
-    svg = _REF.sub(lambda m: f"{m.group(1)}{prefix}-{m.group(2)}", svg)
-    head_end = svg.index(">") + 1
-    head = _SIZE.sub("", svg[:head_end])
-    head = head[:-1] + (
-        f' role="img" aria-labelledby="{prefix}-title {prefix}-desc" class="cascade-chart">'
+        out.append(_text(centre, HEIGHT - BOTTOM + 18, s.label, text_anchor="middle", fill=INK))
+        out.append(_text(centre, HEIGHT - BOTTOM + 33, s.symbol, text_anchor="middle", fill=MUTED))
+        gap = s.difference
+        if gap is not None and abs(gap) >= SMALLEST_GAP_MMHG:
+            out += _gap(s, x[i], x[i + 1], y, chart_id)
+    out.append(
+        f'<path class="normal-line" d="{_steps([s.normal for s in stages], x, y)}" fill="none" '
+        f'stroke="{NORMAL_INK}" stroke-width="1.8" stroke-dasharray="5 3"/>'
     )
-    labels = (
-        f'<title id="{prefix}-title">{html.escape(title)}</title>'
-        f'<desc id="{prefix}-desc">{html.escape(desc)}</desc>'
+    out.append(
+        f'<path class="patient-line" d="{_steps([s.patient for s in stages], x, y)}" '
+        f'fill="none" stroke="{PATIENT_INK}" stroke-width="2.6"/>'
     )
-    return head + labels + svg[head_end:].rstrip() + "\n"
+    for i, s in enumerate(stages):
+        out += _stage_marks(s, (x[i] + x[i + 1]) / 2, y, top_value)
+    ref = cascade.sea_level_inspired_po2
+    if ref is not None and stages:
+        out.append(
+            f'<line x1="{x[0] + 6:.1f}" x2="{x[1] - 6:.1f}" y1="{y(ref):.1f}" y2="{y(ref):.1f}" '
+            f'stroke="{REFERENCE_INK}" stroke-width="1.3" stroke-dasharray="1.5 2.5"/>'
+            + _text(
+                (x[0] + x[1]) / 2,
+                y(ref) - 4,
+                f"sea-level room air {_fmt(ref)}",
+                text_anchor="middle",
+                font_size="10.5",
+                fill=MUTED,
+            )
+        )
+    out.append(
+        f'<line x1="{LEFT}" x2="{WIDTH - RIGHT}" y1="{y(0):.1f}" y2="{y(0):.1f}" stroke="{INK}"/>'
+        f'<line x1="{LEFT}" x2="{LEFT}" y1="{TOP}" y2="{y(0):.1f}" stroke="{INK}"/>'
+    )
+    out.append("</svg>")
+    return "".join(out) + "\n"

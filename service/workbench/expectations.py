@@ -35,9 +35,10 @@ Checking compares an ``Assessment`` against the expectation and returns the mism
 
 from __future__ import annotations
 
+import difflib
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Literal
+from typing import Any, Literal
 
 import yaml
 from pydantic import BaseModel, ConfigDict, Field, ValidationError
@@ -119,16 +120,36 @@ def load_case(path: Path, root: Path) -> Case:
     except yaml.YAMLError as exc:
         raise FixtureError(f"{path}: not valid YAML: {exc}") from None
     except ValidationError as exc:
-        details = "; ".join(
-            f"{'.'.join(str(p) for p in e['loc'])}: {e['msg']}" for e in exc.errors()
-        )
+        details = "; ".join(_problem(e) for e in exc.errors())
         raise FixtureError(f"{path}: {details}") from None
+    except OSError as exc:
+        raise FixtureError(f"{path}: cannot read it ({exc.strerror})") from None
     stem = path.name[: -len(SUFFIX)]
     bundle = path.parent / (outcome.bundle or f"{stem}.bundle.json")
     if not bundle.is_file():
         raise FixtureError(f"{path}: bundle file {bundle.name} not found beside it")
     name = str(path.relative_to(root))[: -len(SUFFIX)]
     return Case(name, path, bundle, outcome)
+
+
+_MODELS: dict[str, type[BaseModel]] = {
+    "": ExpectedOutcome,
+    "expect": Expectation,
+}
+
+
+def _problem(error: Any) -> str:
+    """One validation error as ``where: what`` and, for an unknown key, the key it may be."""
+    where = ".".join(str(p) for p in error["loc"]) or "(file)"
+    if error["type"] != "extra_forbidden":
+        return f"{where}: {error['msg']}"
+    *parent, key = (str(p) for p in error["loc"])
+    model = _MODELS.get(".".join(parent))
+    known = list(model.model_fields) if model is not None else []
+    close = difflib.get_close_matches(key, known, n=1)
+    hint = f" (did you mean {close[0]}?)" if close else ""
+    listed = f"; the keys are {', '.join(known)}" if known else ""
+    return f"{where}: unknown key{hint}{listed}"
 
 
 def find_cases(paths: list[Path]) -> list[Case]:
@@ -139,9 +160,21 @@ def find_cases(paths: list[Path]) -> list[Case]:
             cases += [load_case(p, path) for p in sorted(path.rglob(f"*{SUFFIX}"))]
         elif path.name.endswith(SUFFIX):
             cases.append(load_case(path, path.parent))
+        elif not path.exists():
+            raise FixtureError(f"{path}: no such file or folder")
         else:
-            raise FixtureError(f"{path}: not a directory or a *{SUFFIX} file")
+            raise FixtureError(f"{path}: not a folder or a *{SUFFIX} file")
     return sorted(cases, key=lambda c: c.name)
+
+
+def default_fixture_dirs(rules_dir: Path, here: Path | None = None) -> list[Path]:
+    """Where fixtures are when none are named: ``fixtures`` in the working folder, else the
+    ``fixtures`` folder beside the rule directory (the repository's, or the one bundled with
+    the shipped rule set). Empty when neither exists."""
+    for candidate in ((here or Path.cwd()) / "fixtures", rules_dir.resolve().parent / "fixtures"):
+        if candidate.is_dir():
+            return [candidate]
+    return []
 
 
 @dataclass(frozen=True, slots=True)

@@ -1,15 +1,25 @@
-"""``oxyrule explain``: a readable account of how one Bundle was assessed.
+"""``oxyrule explain``: a readable account of how one case was assessed.
 
-In order: the verdict (pattern and why, each mechanism's grade and reason, the findings, what
-would settle the open questions); the PaO2 deficit partition of each gas as a short table (the
-expected PaO2, each part with its share, the fall); the inputs known only as a range and how
-each grade depended on them; then what was read (each measurement, its source and any unit
-conversion), what was derived (each number with its equation) and every rule with each
-condition's value (true, false or unknown, and the fact that was missing).
+The verdict first (pattern and why, each mechanism's grade and reason, the findings, what would
+settle the open questions, telling data not sent from data to repeat); the site's overrides,
+when a site file is in force; then the rules that decided, each condition as a tree (``all``,
+``any``, ``not``, named blocks) with its value, and the rules that fired but were outranked;
+the PaO2 deficit partition of each gas as a short table; the inputs known only as a range and
+how each grade depended on them; the response to oxygen when the record holds a titration (its
+points, the fit, how the rules used it, the predictions with their caution) and the trend over
+three or more gases. The rest on request (``full``): what was read (each value as a
+reader writes it, its source and what was sent), what was derived (each number with its
+equation) and every rule's tree.
+
+The text is a list of sections (``SECTIONS``, ``FULL_SECTIONS``), each a function of the
+explanation's data: a new section slots in without touching the others. Pressures are shown in
+the unit asked for (the engine renders the rationales in it); rule conditions keep the unit the
+rule file is written in.
 """
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from typing import Any
 
 from service.assess.partition import (
@@ -18,6 +28,12 @@ from service.assess.partition import (
     GasPartitions,
     ShownPartition,
     assessment_partitions,
+)
+from service.assess.presentation import (
+    PressureUnit,
+    pressure_label,
+    pressure_text,
+    quantity,
 )
 from service.assess.response_view import (
     FIO2_SOURCE_WORDS,
@@ -30,23 +46,38 @@ from service.assess.response_view import (
 from service.assess.result import CAUTION, Assessment, MechanismVerdict
 from service.assess.titration import FITTED_FACTS, Bounds, Titration
 from service.config import Settings
-from service.engine import Evaluation, Grade, Truth
+from service.engine import Evaluation, Grade, RuleResult, Truth
+from service.engine.results import TraceNode
 from service.engine.ruleset import GasExchangeOutcome, MechanismOutcome
 from service.intake.model import Intake, Measurement
 from service.physiology.oxygen_prediction import CAUTION as MODEL_CAUTION
 from service.physiology.oxygenation_trend import OxygenationTrend
 from service.physiology.titration import MeasuredKind
 from service.physiology.units import kpa_from_mmhg
+from service.site import SiteView
 
 HELD = "the same grade at every end of the ranges"
+MARK = {"true": "[true]   ", "false": "[false]  ", "unknown": "[unknown]"}
 _FITTED = frozenset(spec.name for spec in FITTED_FACTS)
 
 
-def _measurement(m: Measurement) -> dict[str, Any]:
+def _shown_value(value: float | str, unit: str, pressure_unit: PressureUnit) -> str:
+    """A value read as a reader writes it: pressures in the unit asked for, fractions in %."""
+    if isinstance(value, str):
+        return value
+    if unit == "mm[Hg]":
+        return pressure_text(value, pressure_unit, 1 if abs(value) < 1000 else 0)
+    if unit == "1":
+        return f"{value * 100:.4g} %"
+    return f"{value:.4g} {unit}".rstrip()
+
+
+def _measurement(m: Measurement, pressure_unit: PressureUnit) -> dict[str, Any]:
     item: dict[str, Any] = {
         "quantity": m.quantity.value,
         "value": m.value,
         "unit": m.unit,
+        "shown": _shown_value(m.value, m.unit, pressure_unit),
         "time": m.time.isoformat() if m.time else None,
         "source": m.source.reference,
         "at": m.source.expression,
@@ -58,19 +89,123 @@ def _measurement(m: Measurement) -> dict[str, Any]:
     return item
 
 
-def _rules(evaluation: Evaluation) -> list[dict[str, Any]]:
-    return [
-        {
-            "rule": r.ref,
-            "title": r.rule.title,
-            "state": r.state.value,
-            "shadow": r.shadow,
-            "conditions": list(r.trace_lines),
-            "missing": list(r.undecided) if r.state is Truth.UNKNOWN else [],
-            "rationale": r.rationale if r.state is Truth.TRUE else None,
-        }
-        for r in evaluation.results
+def tree_json(node: TraceNode, blocks: dict[str, dict[str, Any]] | None = None) -> dict[str, Any]:
+    """A condition tree as plain data: kind, state, a leaf's text and missing fact, children.
+
+    With ``blocks``, a named block's parts are written there once (by name) rather than under
+    every rule that uses it.
+    """
+    item: dict[str, Any] = {"kind": node.kind, "state": node.state.value}
+    if node.name is not None:
+        item["name"] = node.name
+    if node.leaf is not None:
+        item["text"] = node.text
+        if node.leaf.missing is not None:
+            item["missing"] = node.leaf.missing
+    if node.kind == "ref" and blocks is not None and node.name is not None:
+        if node.name not in blocks:
+            blocks[node.name] = {}  # taken before its parts, which may refer to others
+            blocks[node.name] = tree_json(node.children[0], blocks)
+        return item
+    if node.children:
+        item["children"] = [tree_json(child, blocks) for child in node.children]
+    return item
+
+
+def _roles(a: Assessment) -> dict[str, str]:
+    """What each rule did for the verdict: decides, outranked (fired, lost on priority)."""
+    roles: dict[str, str] = {}
+    for assessed in a.evaluation.verdict.mechanisms:
+        for r in assessed.losing:
+            roles[r.ref] = f"outranked for {assessed.mechanism.value}"
+    for m in a.mechanisms:
+        for ref in m.rules:
+            roles[ref] = f"decides {m.code.value} {m.grade.value}"
+    for f in a.findings:
+        if f.rule:
+            roles[f.rule] = f"raises finding {f.code}"
+    verdict = a.evaluation.verdict
+    for ref in verdict.hypoxaemia_rules:
+        roles[ref] = f"decides hypoxaemia {verdict.hypoxaemia.value}"
+    for ref in verdict.gas_exchange_rules:
+        roles[ref] = f"decides gas exchange {verdict.gas_exchange.value}"
+    return roles
+
+
+def _rule(
+    r: RuleResult, role: str | None, blocks: dict[str, dict[str, Any]] | None
+) -> dict[str, Any]:
+    return {
+        "rule": r.ref,
+        "title": r.rule.title,
+        "state": r.state.value,
+        "shadow": r.shadow,
+        "role": role,
+        "tree": tree_json(r.tree, blocks),
+        "conditions": list(r.trace_lines),
+        "missing": list(r.undecided) if r.state is Truth.UNKNOWN else [],
+        "rationale": r.rationale if r.state is Truth.TRUE else None,
+    }
+
+
+def _rules(a: Assessment, blocks: dict[str, dict[str, Any]] | None) -> list[dict[str, Any]]:
+    roles = _roles(a)
+    return [_rule(r, roles.get(r.ref), blocks) for r in a.evaluation.results]
+
+
+def _result_of(evaluation: Evaluation, ref: str) -> RuleResult | None:
+    return next((r for r in evaluation.results if r.ref == ref), None)
+
+
+def _deciding(a: Assessment, blocks: dict[str, dict[str, Any]] | None) -> list[dict[str, Any]]:
+    """The rules behind each part of the verdict, each with its tree (as the inputs were sent)."""
+    evaluation = a.evaluation
+    verdict = evaluation.verdict
+    wanted: list[tuple[str, str]] = [
+        (f"{m.code.value} {m.grade.value}", ref) for m in a.mechanisms for ref in m.rules
     ]
+    wanted += [(f"finding {f.code}", f.rule) for f in a.findings if f.rule]
+    wanted += [(f"hypoxaemia {verdict.hypoxaemia.value}", r) for r in verdict.hypoxaemia_rules]
+    wanted += [
+        (f"gas exchange {verdict.gas_exchange.value}", r) for r in verdict.gas_exchange_rules
+    ]
+    out = []
+    for what, ref in wanted:
+        result = _result_of(evaluation, ref)
+        if result is None:
+            continue
+        item: dict[str, Any] = {"for": what, "rule": ref, "state": result.state.value}
+        item["tree"] = tree_json(result.tree, blocks)
+        if result.state is not Truth.TRUE:
+            item["note"] = (
+                "decided at an end of the range of an uncertain input; as the inputs were "
+                f"sent the rule is {result.state.value}"
+            )
+        out.append(item)
+    return out
+
+
+def _outranked(a: Assessment) -> list[dict[str, Any]]:
+    out = []
+    for m in a.evaluation.verdict.mechanisms:
+        winners = [r.ref for r in m.deciding]
+        for r in m.losing:
+            outcome = r.rule.outcome
+            assert isinstance(outcome, MechanismOutcome)
+            best = m.deciding[0].rule.outcome if m.deciding else None
+            out.append(
+                {
+                    "mechanism": m.mechanism.value,
+                    "rule": r.ref,
+                    "grade": outcome.grade.value,
+                    "priority": outcome.priority,
+                    "outranked_by": winners,
+                    "winning_priority": best.priority
+                    if isinstance(best, MechanismOutcome)
+                    else None,
+                }
+            )
+    return out
 
 
 def _why(a: Assessment) -> str:
@@ -85,6 +220,16 @@ def _why(a: Assessment) -> str:
         f"across the ends of the uncertain inputs: likely {', '.join(likely) or 'none'}; "
         f"gas exchange {a.gas_exchange}"
     )
+
+
+def _requested(a: Assessment) -> dict[str, list[str]]:
+    """The data requested, split: facts not sent (or not derivable) and facts already known
+    that a repeat would settle (after a change of FiO2, say)."""
+    known = a.index.facts
+    return {
+        "not_sent": [f for f in a.data_requested if f not in known],
+        "again": [f for f in a.data_requested if f in known],
+    }
 
 
 def _verdict(a: Assessment) -> dict[str, Any]:
@@ -109,10 +254,12 @@ def _verdict(a: Assessment) -> dict[str, Any]:
             for f in a.findings
         ],
         "data_requested": a.data_requested,
+        "data_requested_split": _requested(a),
     }
 
 
 def _partition(gas: GasPartitions, shown: ShownPartition | None) -> dict[str, Any]:
+    """One partition in mm[Hg] (the text converts it when another unit is asked for)."""
     item: dict[str, Any] = {"observation": gas.reference, "index": gas.index}
     if shown is None:
         item["not_computed"] = gas.absent
@@ -337,19 +484,37 @@ def _trend(trend: OxygenationTrend | None) -> dict[str, Any] | None:
     }
 
 
-def explain_json(intake: Intake, a: Assessment, *, settings: Settings) -> dict[str, Any]:
-    """The explanation as plain data (for tools), the verdict first. ``settings`` are those
-    ``a`` was assessed with."""
-    evaluation = a.evaluation
-    return {
+def explain_json(
+    intake: Intake,
+    a: Assessment,
+    *,
+    settings: Settings,
+    site: SiteView | None = None,
+    pressure_unit: PressureUnit | None = None,
+    shared_blocks: bool = False,
+) -> dict[str, Any]:
+    """The explanation as plain data (for tools and the bench), the verdict first.
+
+    ``settings`` are those ``a`` was assessed with, ``site`` what their site file changed, and
+    ``pressure_unit`` the unit the rationales of ``a`` were rendered in (default: the site's).
+    With ``shared_blocks`` each named block's tree is given once, under ``blocks``, and the
+    rules' trees name it (``{"kind": "ref", "name": ...}``) instead of repeating it.
+    """
+    unit: PressureUnit = pressure_unit or settings.pressure_unit
+    blocks: dict[str, dict[str, Any]] | None = {} if shared_blocks else None
+    data = {
         "verdict": _verdict(a),
         "partition": _partitions(a, settings),
         "uncertain_inputs": _uncertain(a),
         "oxygen_response": _response(a),
         "trend": _trend(a.trend),
+        "site": site.as_json() if site is not None else None,
+        "pressure_unit": unit,
+        "deciding": _deciding(a, blocks),
+        "outranked": _outranked(a),
         "ruleset": a.ruleset_identity,
         "ruleset_hash": a.ruleset_hash,
-        "measurements": [_measurement(m) for m in intake.measurements],
+        "measurements": [_measurement(m, unit) for m in intake.measurements],
         "intake_issues": [
             {"code": i.code, "severity": i.severity.value, "message": i.message, "at": i.expression}
             for i in intake.issues
@@ -367,16 +532,23 @@ def explain_json(intake: Intake, a: Assessment, *, settings: Settings) -> dict[s
             for name, d in a.index.derived.items()
         },
         "facts": dict(a.index.facts),
-        "rules": _rules(evaluation),
+        "rules": _rules(a, blocks),
         "caution": CAUTION,
     }
+    if blocks is not None:
+        data["blocks"] = blocks
+    return data
 
 
 def _fmt(value: object) -> str:
     return f"{value:.4g}" if isinstance(value, float) else str(value)
 
 
-def _verdict_lines(v: dict[str, Any]) -> list[str]:
+Section = Callable[[dict[str, Any]], list[str]]
+
+
+def _verdict_lines(data: dict[str, Any]) -> list[str]:
+    v = data["verdict"]
     out = [
         f"Verdict: {v['pattern']} (hypoxaemia {v['hypoxaemia']}, gas exchange "
         f"{v['gas_exchange']}, status {v['status']})",
@@ -388,8 +560,95 @@ def _verdict_lines(v: dict[str, Any]) -> list[str]:
             out.append(f"  {'':<15} would settle it: {m['discriminator']}")
     for f in v["findings"]:
         out.append(f"  finding {f['severity']} {f['code']}: {f['message']}")
-    if v["data_requested"]:
-        out.append(f"  data requested: {', '.join(v['data_requested'])}")
+    split = v["data_requested_split"]
+    if split["not_sent"]:
+        out.append(f"  not sent, would settle an open question: {', '.join(split['not_sent'])}")
+    if split["again"]:
+        out.append(
+            "  sent, and worth repeating (as the discriminators say): " + ", ".join(split["again"])
+        )
+    return out
+
+
+def _site_lines(data: dict[str, Any]) -> list[str]:
+    site = data["site"]
+    if site is None:
+        return []
+    out = [f"Site file in force: {site['label']} ({site['file']})"]
+    for p in site["parameters"]:
+        unit = "" if p["unit"] == "1" else f" {p['unit']}"
+        out.append(f"  parameter {p['name']}: {p['site']:g}{unit} (rule set: {p['rule_set']:g})")
+    for name, value in site["settings"].items():
+        out.append(f"  setting {name}: {value}")
+    if not site["parameters"] and not site["settings"]:
+        out.append("  (no parameter or setting changed)")
+    return out
+
+
+ALL_BLOCKS = 1_000
+
+
+def _deciding_parts(node: dict[str, Any]) -> list[dict[str, Any]]:
+    """The parts of an ``all`` or ``any`` that gave it its value: a false part of a false
+    ``all``, a true part of a true ``any``, the unknown parts of an unknown one; every part of
+    a true ``all`` or a false ``any`` (each one was needed)."""
+    children: list[dict[str, Any]] = node.get("children", [])
+    state, kind = node["state"], node["kind"]
+    if (kind, state) in (("all", "true"), ("any", "false")) or kind not in ("all", "any"):
+        return children
+    return [c for c in children if c["state"] == state]
+
+
+def tree_lines(
+    node: dict[str, Any], depth: int = 0, *, blocks: int = ALL_BLOCKS, why: bool = False
+) -> list[str]:
+    """A condition tree as indented lines, each with its value in words (no colour needed).
+
+    ``blocks`` is how many levels of named blocks are opened; deeper ones show as one line.
+    With ``why``, only the parts that gave each node its value are shown (the others counted).
+    """
+    pad = "  " * depth
+    mark = MARK[node["state"]]
+    if node["kind"] == "leaf":
+        missing = f"  (missing: {node['missing']})" if "missing" in node else ""
+        return [f"{pad}{mark} {node['text']}{missing}"]
+    if node["kind"] == "ref":
+        head = f"{pad}{mark} block {node['name']}"
+        if blocks <= 0:
+            return [head + " (opened with --full)"]
+        inner = tree_lines(node["children"][0], depth + 1, blocks=blocks - 1, why=why)
+        return [head, *inner]
+    words = {"all": "all of", "any": "any of", "not": "not", "definitely": "definitely"}
+    children = node.get("children", [])
+    shown = _deciding_parts(node) if why else children
+    left = len(children) - len(shown)
+    more = f"  ({left} other part{'s' if left != 1 else ''} {_OTHERS[node['state']]})"
+    out = [f"{pad}{mark} {words.get(node['kind'], node['kind'])}" + (more if left else "")]
+    for child in shown:
+        out += tree_lines(child, depth + 1, blocks=blocks, why=why)
+    return out
+
+
+# What the parts a ``why`` tree leaves out were, by the value of their node.
+_OTHERS = {"true": "false or unknown", "false": "true or unknown", "unknown": "decided"}
+
+
+def _deciding_lines(data: dict[str, Any]) -> list[str]:
+    out = ["Deciding rules (each condition with its value; blocks are named conditions)"]
+    if not data["deciding"]:
+        out.append("  none fired")
+    for item in data["deciding"]:
+        out.append(f"  {item['for']}  ←  {item['rule']}")
+        if "note" in item:
+            out.append(f"    ({item['note']})")
+        out += tree_lines(item["tree"], 2, blocks=1, why=True)
+    if data["outranked"]:
+        out.append("  Fired but outranked (a rule of lower priority number decided):")
+        for o in data["outranked"]:
+            out.append(
+                f"    {o['mechanism']}: {o['rule']} ({o['grade']}, priority {o['priority']}) "
+                f"lost to {', '.join(o['outranked_by'])} (priority {o['winning_priority']})"
+            )
     return out
 
 
@@ -399,10 +658,17 @@ def _share(share: float | None, value: float) -> str:
     return "" if share is None else f"{share:.0%}"
 
 
-def _partition_lines(partitions: list[dict[str, Any]]) -> list[str]:
-    out = ["PaO2 deficit partition (mm[Hg]; a part > 0 lowers the PaO2, < 0 raises it)"]
+def _pressure(value_mmhg: float, unit: PressureUnit) -> str:
+    shown = quantity("", value_mmhg, "mm[Hg]", unit)["value"]
+    return f"{shown:.{1 if unit == 'mm[Hg]' else 2}f}"
+
+
+def _partition_lines(data: dict[str, Any]) -> list[str]:
+    unit: PressureUnit = data["pressure_unit"]
+    label = pressure_label(unit)
+    out = [f"PaO2 deficit partition ({label}; a part > 0 lowers the PaO2, < 0 raises it)"]
     meanings: dict[str, str] = {}
-    for p in partitions:
+    for p in data["partition"]:
         gas = "index gas" if p["index"] else "earlier gas"
         where = f"{gas} {p['observation']}" if p["observation"] else gas
         if "not_computed" in p:
@@ -411,22 +677,24 @@ def _partition_lines(partitions: list[dict[str, Any]]) -> list[str]:
         assumed = f", {p['assumption']}" if p["assumption"] else ""
         basis = " imputed from SpO2" if p["pao2_basis"] == "imputed-from-spo2" else ""
         out.append(f"  {where}{assumed}")
-        out.append(f"    {'expected PaO2 for age (sea level, air)':<40} {p['expected_pao2']:>7.1f}")
+        expected = _pressure(p["expected_pao2"], unit)
+        out.append(f"    {'expected PaO2 for age (sea level, air)':<40} {expected:>7}")
         for part in p["parts"]:
             share = _share(part["share"], part["value"])
-            out.append(f"    {part['label']:<40} {part['value']:>7.1f} {share:>7}")
+            out.append(f"    {part['label']:<40} {_pressure(part['value'], unit):>7} {share:>7}")
             meanings.setdefault(part["label"], part["meaning"])
         out.append(
-            f"    {'fall':<40} {p['fall']:>7.1f}    = {p['expected_pao2']:.1f} − PaO2{basis} "
-            f"{p['pao2']:.1f}"
+            f"    {'fall':<40} {_pressure(p['fall'], unit):>7}    = {expected} − PaO2{basis} "
+            f"{_pressure(p['pao2'], unit)}"
         )
-    out += [f"  {label}: {meaning}" for label, meaning in meanings.items()]
+    out += [f"  {label_}: {meaning}" for label_, meaning in meanings.items()]
     if meanings:
         out.append("  share: of everything that lowers the PaO2 (parts that raise it count 0)")
     return out
 
 
-def _uncertain_lines(u: dict[str, Any]) -> list[str]:
+def _uncertain_lines(data: dict[str, Any]) -> list[str]:
+    u = data["uncertain_inputs"]
     if not u["inputs"]:
         return ["Uncertain inputs: none (every input as sent)"]
     out = ["Uncertain inputs (known only as a range; assessed at each end)"]
@@ -434,6 +702,51 @@ def _uncertain_lines(u: dict[str, Any]) -> list[str]:
     out.append("  how each grade depended on them:")
     for g in u["grades"]:
         out.append(f"    {g['mechanism']:<22} {g['grade']:<15} {g['how']}")
+    return out
+
+
+def _ruleset_lines(data: dict[str, Any]) -> list[str]:
+    return [f"Rule set {data['ruleset']} (sha256 {data['ruleset_hash'][:16]}…)"]
+
+
+def _read_lines(data: dict[str, Any]) -> list[str]:
+    out = ["Read (each value as a reader writes it; what was sent when it was converted)"]
+    for m in data["measurements"]:
+        sent = ""
+        if "sent" in m:  # said when the sender's writing differs from the one shown
+            written = f"{_fmt(m['sent']['value'])} {m['sent']['unit']}"
+            sent = "" if written == m["shown"] else f"  (sent {written})"
+        specimen = f" [{m['specimen']}]" if "specimen" in m else ""
+        out.append(
+            f"  {m['quantity']:<26} {m['shown']:>12}{specimen} "
+            f"{m['time'] or 'no time'}  {m['source']}{sent}"
+        )
+    for issue in data["intake_issues"]:
+        out.append(f"  ! {issue['severity']} {issue['code']}: {issue['message']} ({issue['at']})")
+    out += [
+        "",
+        f"Index gas: {data['index_gas'] or 'none'}; barometric pressure "
+        f"{data['barometric_pressure_source']}; FiO2 {data['fio2_source'] or 'unknown'}",
+    ]
+    return out
+
+
+def _derived_lines(data: dict[str, Any]) -> list[str]:
+    out = ["Derived (canonical units, with the equation of each)"]
+    for name, d in data["derived"].items():
+        out.append(f"  {name:<24} {_fmt(d['value']):>8} {d['unit']:<7} {d['method']}")
+    return out
+
+
+def _all_rules_lines(data: dict[str, Any]) -> list[str]:
+    out = ["Rules (every rule evaluated, with what it did for the verdict)"]
+    for r in data["rules"]:
+        shadow = " (testing: reported only)" if r["shadow"] else ""
+        role = f" — {r['role']}" if r["role"] else ""
+        out.append(f"  {MARK[r['state']]} {r['rule']}: {r['title']}{shadow}{role}")
+        out += tree_lines(r["tree"], 3)
+        if r["missing"]:
+            out.append(f"      missing: {', '.join(r['missing'])}")
     return out
 
 
@@ -566,39 +879,60 @@ def _trend_lines(t: dict[str, Any] | None) -> list[str]:
     return out
 
 
-def explain_text(intake: Intake, a: Assessment, *, settings: Settings) -> str:
-    """The explanation for a terminal, the verdict first."""
-    data = explain_json(intake, a, settings=settings)
-    out = _verdict_lines(data["verdict"])
-    out += ["", *_partition_lines(data["partition"])]
-    out += ["", *_uncertain_lines(data["uncertain_inputs"])]
-    out += ["", *_response_lines(data["oxygen_response"])]
-    out += ["", *_trend_lines(data["trend"])]
-    out += ["", f"Rule set {data['ruleset']} (sha256 {data['ruleset_hash'][:16]}…)", "", "Read"]
-    for m in data["measurements"]:
-        sent = f"  (sent {_fmt(m['sent']['value'])} {m['sent']['unit']})" if "sent" in m else ""
-        specimen = f" [{m['specimen']}]" if "specimen" in m else ""
-        out.append(
-            f"  {m['quantity']:<26} {_fmt(m['value']):>8} {m['unit']:<7}{specimen} "
-            f"{m['time'] or 'no time'}  {m['source']}{sent}"
-        )
-    for issue in data["intake_issues"]:
-        out.append(f"  ! {issue['severity']} {issue['code']}: {issue['message']} ({issue['at']})")
-    out += [
-        "",
-        f"Index gas: {data['index_gas'] or 'none'}; barometric pressure "
-        f"{data['barometric_pressure_source']}; FiO2 {data['fio2_source'] or 'unknown'}",
-        "",
-        "Derived",
-    ]
-    for name, d in data["derived"].items():
-        out.append(f"  {name:<24} {_fmt(d['value']):>8} {d['unit']:<7} {d['method']}")
-    out += ["", "Rules"]
-    for r in data["rules"]:
-        shadow = " (testing: reported only)" if r["shadow"] else ""
-        out.append(f"  [{r['state']:<7}] {r['rule']} — {r['title']}{shadow}")
-        out += [f"      {line.split(': ', 1)[1]}" for line in r["conditions"]]
-        if r["missing"]:
-            out.append(f"      missing: {', '.join(r['missing'])}")
-    out += ["", CAUTION, ""]
+def _oxygen_lines(data: dict[str, Any]) -> list[str]:
+    """The response to oxygen and the trend, when the record holds them."""
+    out: list[str] = []
+    if data["oxygen_response"] is not None:
+        out += _response_lines(data["oxygen_response"])
+    if data["trend"] is not None:
+        out += ([""] if out else []) + _trend_lines(data["trend"])
+    return out
+
+
+SECTIONS: list[Section] = [
+    _verdict_lines,
+    _site_lines,
+    _deciding_lines,
+    _partition_lines,
+    _uncertain_lines,
+    _oxygen_lines,
+    _ruleset_lines,
+]
+"""What ``explain`` shows, in order; a section with nothing to say returns no lines."""
+FULL_SECTIONS: list[Section] = [_read_lines, _derived_lines, _all_rules_lines]
+"""What ``explain --full`` adds after them."""
+
+
+def explain_text(
+    intake: Intake,
+    a: Assessment,
+    *,
+    settings: Settings,
+    site: SiteView | None = None,
+    pressure_unit: PressureUnit | None = None,
+    full: bool = False,
+) -> str:
+    """The explanation for a terminal: the verdict first, the rest with ``full``."""
+    data = explain_json(intake, a, settings=settings, site=site, pressure_unit=pressure_unit)
+    out: list[str] = []
+    for section in SECTIONS + (FULL_SECTIONS if full else []):
+        lines = section(data)
+        if lines:
+            out += [*lines, ""]
+    if not full:
+        out += [
+            "(explain --full adds every value read, every derived value and every rule's tree)",
+            "",
+        ]
+    out += [CAUTION, ""]
     return "\n".join(out)
+
+
+__all__ = [
+    "FULL_SECTIONS",
+    "SECTIONS",
+    "explain_json",
+    "explain_text",
+    "tree_json",
+    "tree_lines",
+]

@@ -22,7 +22,7 @@ they run at every start and reload (all three: ~0.15 s on the shipped set).
 
 from __future__ import annotations
 
-from collections.abc import Callable, Iterable
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -61,8 +61,13 @@ class LintMessage:
 RuleSetCheck = Callable[[Path, Runtime], list["LintMessage"]]
 
 
-def lint(directory: Path, *, fixtures: Iterable[Path] = ()) -> list[LintMessage]:
-    """Every problem found in the rule set at ``directory`` (empty when clean)."""
+def lint(directory: Path, *, fixtures: Sequence[Path] | None = None) -> list[LintMessage]:
+    """Every problem found in the rule set at ``directory`` (empty when clean).
+
+    ``fixtures`` are the folders (or expected-outcome files) whose cases must cover every
+    active rule; None leaves coverage out on purpose. A folder that does not exist, or an
+    empty list, is an error: a coverage gate that checked nothing must not pass.
+    """
     try:
         runtime = Runtime.load(Settings(rules_dir=directory))
     except RuleSetError as error:
@@ -77,19 +82,19 @@ def lint(directory: Path, *, fixtures: Iterable[Path] = ()) -> list[LintMessage]
         ]
     # Totality is lint's alone: it generates fact states (about a second), too slow for every
     # start and reload; CI runs lint on every change to the rules.
-    return check_loaded(directory, runtime, fixtures=fixtures) + _totality(runtime)
-
-
-def check_loaded(
-    directory: Path, runtime: Runtime, *, fixtures: Iterable[Path] = ()
-) -> list[LintMessage]:
-    """What every check of ``CHECKS`` finds in a loaded rule set, then fixture coverage when
-    fixture directories are given. The one function lint and loading for service share."""
-    messages = [message for check in CHECKS for message in check(directory, runtime)]
-    fixture_dirs = [f for f in fixtures if f.exists()]
-    if fixture_dirs:
-        messages += _coverage(runtime.ruleset, runtime, fixture_dirs)
+    messages = check_loaded(directory, runtime) + _totality(runtime)
+    if fixtures is not None:
+        messages += _coverage_scope(fixtures)
+        present = [f for f in fixtures if f.exists()]
+        if present:
+            messages += _coverage(runtime.ruleset, runtime, present)
     return messages
+
+
+def check_loaded(directory: Path, runtime: Runtime) -> list[LintMessage]:
+    """What every check of ``CHECKS`` finds in a loaded rule set: the one function lint and
+    loading for service share (no fixtures needed)."""
+    return [message for check in CHECKS for message in check(directory, runtime)]
 
 
 class RuleSetRefused(ServiceError):
@@ -118,6 +123,45 @@ def verified_runtime(settings: Settings) -> Runtime:
     if errors:
         raise RuleSetRefused(settings.rules_dir, errors)
     return runtime
+
+
+NO_FIXTURES_FIX = (
+    "name the fixture folder with --fixtures DIR (or pass --no-coverage to leave the "
+    "coverage check out on purpose)"
+)
+
+
+def _coverage_scope(fixtures: Sequence[Path]) -> list[LintMessage]:
+    """An error for each fixture folder that is not there, or for none at all."""
+    if not fixtures:
+        return [
+            LintMessage(
+                "error",
+                "",
+                "",
+                "",
+                "no fixture folder found (none named, no fixtures/ here or beside the rule "
+                "set): fixture coverage was not checked",
+                NO_FIXTURES_FIX,
+            )
+        ]
+    return [
+        LintMessage(
+            "error",
+            str(path),
+            "",
+            "",
+            "this fixture folder does not exist: fixture coverage was not checked against it",
+            NO_FIXTURES_FIX,
+        )
+        for path in fixtures
+        if not path.exists()
+    ]
+
+
+def plural(count: int, word: str) -> str:
+    """``1 error``, ``2 errors``."""
+    return f"{count} {word}" + ("" if count == 1 else "s")
 
 
 def _lock(directory: Path, runtime: Runtime) -> list[LintMessage]:

@@ -576,6 +576,16 @@ def _case(result: CaseResult, runtime: Runtime, index: int) -> str:
     return "\n".join(parts)
 
 
+def _site(runtime: Runtime) -> str:
+    """The site file in force and what it changes (nothing without one)."""
+    view = runtime.site_view
+    if view is None:
+        return "<dt>Site file</dt><dd>none: the rule set as written</dd>"
+    changes = [str(c) for c in view.parameters] + [f"{n} {v}" for n, v in view.settings]
+    listed = "".join(f"<li>{_e(c)}</li>" for c in changes) or "<li>no change</li>"
+    return f"<dt>Site file</dt><dd>{_e(view.label)}<ul>{listed}</ul></dd>"
+
+
 def html_report(results: list[CaseResult], runtime: Runtime) -> str:
     """The report of one fixture run as one HTML document."""
     ruleset = runtime.ruleset
@@ -587,7 +597,8 @@ def html_report(results: list[CaseResult], runtime: Runtime) -> str:
         '<dl class="meta">'
         f"<dt>Rule set</dt><dd>{_e(ruleset.identity)} — {_e(ruleset.title)}</dd>"
         f'<dt>Content hash</dt><dd class="hash">sha256 {_e(ruleset.content_hash)}</dd>'
-        f"<dt>Service</dt><dd>oxyrule {_e(__version__)}</dd>"
+        + _site(runtime)
+        + f"<dt>Service</dt><dd>oxyrule {_e(__version__)}</dd>"
         f"<dt>Cases</dt><dd>{len(results)}</dd>"
         f"<dt>Run</dt><dd><strong>{_e(summary_line(results))}</strong></dd>"
         "</dl></header>"

@@ -10,7 +10,7 @@ Readable without colour: the two end bars are plain and named; a step that lower
 hatched and labelled "lowers N", one that raises it is dotted and labelled "raises N"; every
 bar has its name under it and its number on it.
 
-Drawn by hand rather than with matplotlib (which draws the oxygen cascade beside it): the chart
+Drawn by hand rather than with a plotting library (as the oxygen cascade beside it): the chart
 is a few rectangles and labels, so hand-written SVG is a few kB instead of tens, keeps every
 label as text, needs no layout engine and costs microseconds; the bytes are reproducible.
 """

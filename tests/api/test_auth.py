@@ -200,6 +200,9 @@ def test_a_required_scope_is_enforced_with_403(serve: Serve) -> None:
 
 
 V2_MESSAGE = (ROOT / "fixtures" / "hl7v2" / "post-operative-drowsiness.hl7").read_bytes()
+BENCH_JSON = {"Content-Type": "application/json"}
+BENCH_CASE = json.dumps({"input": ALTITUDE.read_text()}).encode()
+BENCH_EXPORT = json.dumps({"input": ALTITUDE.read_text(), "name": "x"}).encode()
 # Every route of the app: (method, path, body headers, body, whether it needs credentials).
 # Only liveness, readiness and the CapabilityStatement are public: FHIR and SMART clients read
 # the CapabilityStatement to learn how to authenticate before they hold a token.
@@ -213,6 +216,15 @@ ROUTES: list[tuple[str, str, dict[str, str], bytes, bool]] = [
     ("GET", "/openapi.json", {}, b"", True),
     ("POST", ASSESS, FHIR_JSON, ALTITUDE.read_bytes(), True),
     ("POST", "/hl7v2", {"Content-Type": "x-application/hl7-v2+er7"}, V2_MESSAGE, True),
+    # The rule owner's bench (on by default): its page, files and calls are never public.
+    ("GET", "/bench", {}, b"", True),
+    ("GET", "/bench/static/bench.js", {}, b"", True),
+    ("GET", "/bench/api/info", {}, b"", True),
+    ("GET", "/bench/api/scenario?name=altitude-visitor", {}, b"", True),
+    ("POST", "/bench/api/assess", BENCH_JSON, BENCH_CASE, True),
+    ("POST", "/bench/api/fixture", BENCH_JSON, BENCH_EXPORT, True),
+    ("GET", "/bench/api/fixtures", {}, b"", True),
+    ("GET", "/bench/api/fixture?name=demo/altitude-visitor", {}, b"", True),
 ]
 # The CDS Hooks routes answer to the EHR's signed JWT, not to these credentials (tests/cds/).
 CDS_ROUTES = [
@@ -222,6 +234,15 @@ CDS_ROUTES = [
 ]
 
 
+def _routes(routes: list[Any]) -> list[Any]:
+    """Every route, those of included routers too (FastAPI may wrap an included router)."""
+    found: list[Any] = []
+    for route in routes:
+        inner = getattr(route, "original_router", None)
+        found += _routes(list(inner.routes)) if inner is not None else [route]
+    return found
+
+
 def test_the_route_table_of_this_test_covers_every_route_of_the_app(make_app: AppFactory) -> None:
     app = make_app()
     documented = {
@@ -229,13 +250,15 @@ def test_the_route_table_of_this_test_covers_every_route_of_the_app(make_app: Ap
         for path, operations in app.openapi()["paths"].items()
         for method in operations
     }
-    undocumented = {  # the docs page and the OpenAPI document itself
+    undocumented = {  # the docs page, the OpenAPI document and the bench's routes
         (method, getattr(route, "path", ""))
-        for route in app.routes
+        for route in _routes(app.routes)
         for method in set(getattr(route, "methods", None) or ()) - {"HEAD"}
     }
     served = documented | undocumented
-    assert served == {(method, path) for method, path, *_ in ROUTES} | set(CDS_ROUTES)
+    listed = {(method, path.split("?")[0]) for method, path, *_ in ROUTES}
+    listed = (listed - {("GET", "/bench/static/bench.js")}) | {("GET", "/bench/static/{name}")}
+    assert served == listed | set(CDS_ROUTES)
 
 
 def test_the_service_credentials_do_not_open_the_cds_hooks_routes(secured: httpx.Client) -> None:

@@ -104,6 +104,8 @@ def test_the_wheel_carries_the_code_and_the_rule_set(installed: Path) -> None:
     assert module.startswith(str(installed)), module
     assert rules.startswith(str(installed)) and rules.endswith("_bundled/rules")
     assert (Path(rules) / "ruleset.yaml").is_file()
+    # The rule set's fixtures travel beside it (the bench's fixture panel, `oxyrule test`).
+    assert (Path(rules).parent / "fixtures" / "demo" / "altitude-visitor.bundle.json").is_file()
     assert not (installed / "bin" / "pip").exists()
 
 
@@ -137,6 +139,9 @@ def test_serve_from_the_installed_wheel_answers_and_passes_the_healthcheck(
             ALTITUDE.read_bytes(),
             {"Content-Type": "application/fhir+json"},
         )
+        for path in ("/bench", "/bench/static/bench.js", "/bench/static/bench.css"):
+            with urllib.request.urlopen(f"http://127.0.0.1:{port}{path}", timeout=10) as page:
+                assert page.status == 200, path  # the bench's files are in the wheel
         with urllib.request.urlopen(request, timeout=10) as answer:
             assert json.loads(answer.read())["resourceType"] == "Bundle"
         health = [str(installed / "bin" / "python"), *healthcheck_command()[1:]]

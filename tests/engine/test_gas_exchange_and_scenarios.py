@@ -258,7 +258,7 @@ def test_scenarios_the_data_refute_are_dropped() -> None:
     kept = Scenario("FiO2 1.0", _evaluation(fio2=1.0, inspired_po2=150.0, aa_gradient=230.0))
     verdict = combine(representative, [refuted, kept], [Uncertainty("FiO2", SETTLE)])
     assert verdict.grade(Mechanism.SHUNT) is Grade.LIKELY
-    assert not any(f.code.value == "pao2-exceeds-alveolar" for f in verdict.findings)
+    assert not any(f.code == "pao2-exceeds-alveolar" for f in verdict.findings)
 
 
 def test_a_missing_input_does_not_vote_when_the_representative_does_not_count() -> None:

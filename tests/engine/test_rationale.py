@@ -6,7 +6,7 @@ from service.assess.catalogue import DEFAULT_CATALOGUE
 from service.engine import evaluate
 from service.engine.facts import FactValue
 from service.engine.parameters import Parameter
-from service.engine.rationale import compile_template, format_quantity
+from service.engine.rationale import DisplayUnit, compile_template, format_quantity
 
 from .builders import build, rule
 
@@ -68,3 +68,26 @@ def test_rendered_rationale_uses_the_overridden_parameter_value() -> None:
     ruleset = build(rules=[data], overrides={"hypercapnia_threshold": 50})
     result = evaluate(ruleset, {"arterial_pco2": 51.04}).result("r")
     assert result.rationale == "PaCO2 51.0 mmHg above 50 mmHg."
+
+
+# UCUM: m[Hg] = 133.3220 kPa, so 1 mm[Hg] = 0.1333220 kPa (the factor FHIR payloads use).
+KPA = {"mm[Hg]": DisplayUnit("kPa", 0.1333220, extra_decimals=1)}
+
+
+def test_the_unit_of_a_sentence_is_a_rendering_choice() -> None:
+    ruleset = build(
+        rules=[
+            rule(
+                "hypercapnia-kpa",
+                when={"ref": "hypercapnia"},
+                rationale="PaCO2 {arterial_pco2} is above {hypercapnia_threshold} "
+                "(pH {arterial_ph}).",
+            )
+        ],
+    )
+    facts: dict[str, FactValue] = {"arterial_pco2": 65.0, "arterial_ph": 7.25}
+    result = evaluate(ruleset, facts).results[0]
+    assert result.rationale == "PaCO2 65.0 mmHg is above 45 mmHg (pH 7.25)."
+    # 65 × 0.133322 = 8.666 kPa; the threshold 45 mmHg = 5.9995 kPa, shown as written: 6.
+    assert result.rationale_in(KPA) == "PaCO2 8.67 kPa is above 6 kPa (pH 7.25)."
+    assert result.rationale_in({}) == result.rationale

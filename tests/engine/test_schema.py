@@ -82,7 +82,7 @@ def test_rule_rejects_conditions_that_are_not_all_any_not_ref_or_leaf(when: Any)
         {"finding": {"code": "fio2-missing", "severity": "warning"}, "priority": 3},
         {"mechanism": {"code": "shunt", "grade": "unknown"}, "priority": 3},
         {"mechanism": {"code": "dead-space", "grade": "likely"}, "priority": 3},
-        {"finding": {"code": "made-up", "severity": "warning"}},
+        {"finding": {"code": "Made Up", "severity": "warning"}},  # not a kebab-case code
         {"hypoxaemia": "unknown"},
         {"gas_exchange": "impaired"},
         {"gas_exchange": "defect", "hypoxaemia": "present"},

@@ -1,80 +1,22 @@
-"""The oxygen cascade: the normal line's numbers, the missing stages, and the SVG itself."""
+"""The oxygen cascade chart: the stages, the missing values, and the hand-drawn SVG itself."""
 
 from __future__ import annotations
 
 import xml.etree.ElementTree as ET
+from pathlib import Path
 
 import pytest
 
-from service.physiology.gas_exchange import aa_gradient_upper_limit_mmhg, alveolar_po2_mmhg
 from service.workbench.cascade import (
-    NORMAL_MIXED_VENOUS_PO2_MMHG,
     Cascade,
     CascadeInput,
     build_cascade,
     cascade_svg,
     describe,
-    normal_cascade,
     signed,
 )
 
 SVG = "{http://www.w3.org/2000/svg}"
-
-
-@pytest.mark.parametrize(
-    ("fio2", "pio2", "pao2"),
-    [
-        # Worked values [calc] of the alveolar gas equation: PB 760, PaCO2 40, R 0.8, PH2O 47 →
-        # FiO2 0.21: PIO2 149.7, PAO2 (full form) 101.8; 0.40: 285.2, 239.2; 1.00: 713.0, 673.0.
-        (0.21, 149.7, 101.8),
-        (0.40, 285.2, 239.2),
-        (1.00, 713.0, 673.0),
-    ],
-)
-def test_normal_line_matches_the_alveolar_gas_equation_worked_values(
-    fio2: float, pio2: float, pao2: float
-) -> None:
-    normal = normal_cascade(
-        fio2=fio2, barometric_mmhg=760.0, age_years=None, water_vapour_mmhg=47.0
-    )
-    assert normal.inspired == pytest.approx(pio2, abs=0.05)
-    assert normal.alveolar == pytest.approx(pao2, abs=0.05)
-
-
-def test_normal_arterial_is_normal_alveolar_minus_the_age_limit() -> None:
-    normal = normal_cascade(
-        fio2=0.21, barometric_mmhg=760.0, age_years=68.0, water_vapour_mmhg=47.0
-    )
-    # Age 68: max(2.5 + 0.21 × 68, 68/4 + 4) = max(16.78, 21.0) = 21.0 mmHg.
-    assert normal.aa_limit == pytest.approx(21.0)
-    assert normal.arterial == pytest.approx(101.8 - 21.0, abs=0.05)
-    assert normal.mixed_venous == NORMAL_MIXED_VENOUS_PO2_MMHG == 40.0
-
-
-def test_normal_line_breathes_the_same_gas_at_altitude() -> None:
-    # Same PB and FiO2 as the patient: at 570 mmHg the normal inspired PO2 is low too.
-    normal = normal_cascade(
-        fio2=0.21, barometric_mmhg=570.0, age_years=30.0, water_vapour_mmhg=47.0
-    )
-    assert normal.inspired == pytest.approx(0.21 * (570.0 - 47.0))
-    assert normal.alveolar == pytest.approx(
-        alveolar_po2_mmhg(fio2=0.21, paco2_mmhg=40.0, barometric_mmhg=570.0)
-    )
-    limit = aa_gradient_upper_limit_mmhg(age_years=30.0)
-    assert normal.alveolar is not None
-    assert normal.arterial == pytest.approx(normal.alveolar - limit)
-
-
-def test_no_age_no_normal_arterial_and_it_says_why() -> None:
-    normal = normal_cascade(fio2=0.21, barometric_mmhg=760.0, age_years=None)
-    assert normal.arterial is None
-    assert "age not known" in normal.missing["arterial"]
-
-
-def test_no_fio2_no_normal_line() -> None:
-    normal = normal_cascade(fio2=None, barometric_mmhg=760.0, age_years=50.0)
-    assert (normal.inspired, normal.alveolar, normal.arterial) == (None, None, None)
-    assert normal.missing["inspired"] == "FiO2 not known"
 
 
 def _room_air(**overrides: float | None) -> CascadeInput:
@@ -194,14 +136,44 @@ def test_signed_uses_a_true_minus_and_no_signed_zero() -> None:
 
 def test_no_normal_line_where_paco2_40_would_leave_no_alveolar_oxygen() -> None:
     # PB 272 mmHg (about 8,400 m), room air: 0.21 × (272 − 47) − 40 × 1.2 < 0.
-    normal = normal_cascade(
-        fio2=0.21, barometric_mmhg=272.0, age_years=36.0, water_vapour_mmhg=47.0
-    )
-    assert normal.inspired == pytest.approx(47.25)
-    assert normal.alveolar is None and normal.arterial is None
-    assert "no alveolar oxygen is left" in normal.missing["alveolar"]
     cascade = build_cascade(
         _room_air(barometric_mmhg=272.0, inspired_po2=47.25, alveolar_po2=31.3, arterial_po2=24.6)
     )
     assert any("no alveolar oxygen is left" in note for note in cascade.notes)
     assert all(s.normal is None or s.normal > 0 for s in cascade.stages)
+
+
+def test_the_chart_draws_each_line_at_its_values() -> None:
+    # The lines' plateaus sit where the numbers say: read the path back through the axis.
+    cascade = build_cascade(_room_air())
+    root = _parse(cascade_svg(cascade, title="t", chart_id="c"))
+    ticks = {
+        float(t.text or "nan"): float(t.get("y") or "nan") - 4
+        for t in root.iter(f"{SVG}text")
+        if t.get("text-anchor") == "end" and (t.text or "").replace(".", "").isdigit()
+    }
+    (low, y_low), (high, y_high) = sorted(ticks.items())[0], sorted(ticks.items())[-1]
+
+    def value(y: float) -> float:
+        return low + (y_low - y) * (high - low) / (y_low - y_high)
+
+    for cls, wanted in (
+        ("patient-line", [s.patient for s in cascade.stages]),
+        ("normal-line", [s.normal for s in cascade.stages]),
+    ):
+        path = next(e for e in root.iter(f"{SVG}path") if e.get("class") == cls)
+        ys = [float(point.split(",")[1]) for point in (path.get("d") or "").split()[1::2]]
+        drawn = [value(y) for y in ys]
+        assert drawn == pytest.approx([w for w in wanted if w is not None], abs=0.15), cls
+
+
+def test_the_service_needs_no_plotting_library() -> None:
+    import tomllib
+
+    from tests.test_import_direction import imported_modules
+
+    root = Path(__file__).resolve().parents[2]
+    project = tomllib.loads((root / "pyproject.toml").read_text())["project"]
+    assert not any(d.lower().startswith("matplotlib") for d in project["dependencies"])
+    for path in (root / "service").rglob("*.py"):
+        assert not any(m.split(".")[0] == "matplotlib" for m in imported_modules(path)), path

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import re
 import subprocess
 import sys
 import xml.etree.ElementTree as ET
@@ -113,12 +114,13 @@ def test_explain_shows_reads_equations_conditions_and_verdict(runtime: Runtime) 
     data = orjson.loads((DEMO / "post-operative-drowsiness.bundle.json").read_bytes())
     intake = read_bundle(data)
     assessment = runtime.assess_intake(intake)
-    text = explain_text(intake, assessment, settings=runtime.settings)
+    text = explain_text(intake, assessment, settings=runtime.settings, full=True)
     assert "Observation/g1-2019-8" in text  # the source of each value read
-    assert "(sent 91 %)" in text  # a unit conversion
+    # A saturation is shown as it was sent (91 %), not as the fraction used inside (0.91 1).
+    assert re.search(r"arterial_so2\s+91 %", text) and "0.91 1" not in text
     assert "alveolar gas equation, full form" in text  # the equation of a derived value
     # PaCO2 65 against the sea-level limit 45 (common practice) plus the site margin 0.
-    assert "paco2_above_limit 20 mm[Hg] > 0 mm[Hg] (paco2_margin) → true" in text
+    assert "[true]    paco2_above_limit 20 mm[Hg] > 0 mm[Hg] (paco2_margin)" in text
     assert "missing: mixed_venous_so2" in text  # an unknown condition names its missing fact
     assert "Verdict: single" in text
     as_json = explain_json(intake, assessment, settings=runtime.settings)

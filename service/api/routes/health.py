@@ -26,13 +26,18 @@ async def readyz(service: ServiceDep) -> Response:
     if service.draining:
         body = outcome("transient", "shutting down", "http.request", severity="error")
         return outcome_response(503, body)
-    ruleset = service.runtime.ruleset
-    body = {
+    runtime = service.runtime
+    ruleset = runtime.ruleset
+    ready: dict[str, object] = {
         "status": "ready",
         "ruleset": f"{ruleset.id}|{ruleset.version}",
         "ruleset_hash": ruleset.content_hash,  # what was loaded, byte for byte
     }
-    return Response(orjson.dumps(body), media_type="application/json")
+    if runtime.site_view is not None:
+        ready["site"] = runtime.site_view.label
+        ready["site_changes"] = runtime.site_view.summary()
+    ready["settings_hash"] = runtime.settings_hash
+    return Response(orjson.dumps(ready), media_type="application/json")
 
 
 @router.get("/metrics", response_class=Response)
