@@ -47,6 +47,7 @@ from .expectations import (
 )
 from .explain import explain_json
 from .report import MECHANISM_NAMES, cascade_input
+from .response_chart import chart_data, response_svg
 from .runner import CaseResult, run_cases, summary_line
 from .waterfall import waterfall_svg
 from .whatif import FIELDS, WhatIf, apply_what_if
@@ -249,6 +250,31 @@ def _cascade(done: Assessed, runtime: Runtime) -> dict[str, Any] | None:
     }
 
 
+def _response_charts(a: Assessment) -> list[dict[str, str]]:
+    """The fitted response to oxygen, drawn as the report draws it (saturation and PaO2
+    against FiO2), when the record holds a titration that was fitted; empty otherwise."""
+    t = a.titration
+    if t is None or t.fit is None:
+        return []
+    charts = []
+    for measure, words in (("saturation", "Saturation"), ("pao2", "PaO2")):
+        data = chart_data(t, age_years=a.index.number("age"), quantity=measure)
+        charts.append(
+            {
+                "svg": response_svg(
+                    data, title=f"{words} against FiO2", chart_id=f"bench-response-{measure}"
+                ),
+                "caption": (
+                    f"{words} against FiO2: the patient's points (circles SpO2, squares gases, "
+                    "crosses left out), the fitted curve (thick solid line, hatched 95 % range), "
+                    "a healthy lung of the same age (dashed) and named iso-shunt lines (dotted). "
+                    + " ".join(data.notes)
+                ),
+            }
+        )
+    return charts
+
+
 def _oxygen_response(result: dict[str, Any]) -> dict[str, Any]:
     """What the result says about the response to oxygen, read generically from its data:
     every assessed gas's values (FiO2, P/F, A-a gradient, admixture), and any parameter or
@@ -341,7 +367,7 @@ def view(
         "uncertain_inputs": explained["uncertain_inputs"],
         "partition": _partition(done, runtime, unit),
         "cascade": _cascade(done, runtime),
-        "oxygen_response": _oxygen_response(done.result),
+        "oxygen_response": {**_oxygen_response(done.result), "charts": _response_charts(a)},
         "numbers": _numbers(a, unit),
         "deciding": explained["deciding"],
         "blocks": explained["blocks"],

@@ -31,7 +31,6 @@ __all__ = [
     "signed",
 ]
 
-ROOM_AIR_LIMIT_MAX_FIO2 = 0.3  # above this the room-air A-a limit understates the normal gap
 # The sea-level room-air reference is drawn when the inspired PO2 is this far below it.
 LOW_INSPIRED_MARGIN_MMHG = 5.0
 # Gaps smaller than this are not annotated (the inspired gap is zero by construction).
@@ -181,17 +180,6 @@ def build_cascade(inp: CascadeInput) -> Cascade:
             notes.append(f"{stage.label}: no patient value ({stage.patient_missing}).")
         if stage.normal_missing:
             notes.append(f"{stage.label}: no normal value ({stage.normal_missing}).")
-    if (
-        inp.fio2 is not None
-        and inp.fio2 > ROOM_AIR_LIMIT_MAX_FIO2
-        and normal.aa_limit_mmhg is not None
-    ):
-        notes.append(
-            f"On FiO2 {inp.fio2:.2f} the room-air A-a limit for age "
-            f"({_fmt(normal.aa_limit_mmhg)} mmHg) "
-            "understates the normal gap, which widens with FiO2: the normal arterial value is "
-            "drawn too high, so the arterial gap overstates the loss."
-        )
     return Cascade(tuple(stages), tuple(notes), _conditions(inp, normal), _reference(inp))
 
 
@@ -207,7 +195,7 @@ def _conditions(inp: CascadeInput, normal: NormalCascade) -> str:
     parts.append(f"PH2O {_fmt(inp.water_vapour_mmhg)} mmHg")
     parts.append(f"R {inp.respiratory_quotient:g}")
     if normal.aa_limit_mmhg is not None:
-        parts.append(f"A-a limit {_fmt(normal.aa_limit_mmhg)} mmHg")
+        parts.append(f"A-a for age {_fmt(normal.aa_limit_mmhg)} mmHg")
     return ", ".join(parts)
 
 

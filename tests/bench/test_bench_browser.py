@@ -305,7 +305,7 @@ def test_gases_on_different_fio2_show_the_response_to_oxygen(page: Any, tmp_path
     chart = page.locator("#oxygen-body svg.oxygen-chart")
     # One mark per gas (the latest filled, the earlier open), placed from the result's numbers.
     assert chart.locator("rect").count() == 1 and chart.locator("circle").count() == 1
-    rows = page.locator("#oxygen-body table tbody tr")
+    rows = page.locator("#oxygen-body table.gases tbody tr")
     assert rows.count() == 2
     assert {rows.nth(i).locator("td").nth(2).inner_text() for i in range(2)} == {"0.50", "1.00"}
     page.locator("#oxygen-response").screenshot(path=str(tmp_path / "7-oxygen-response.png"))

@@ -38,7 +38,10 @@ def test_gap_is_patient_minus_normal_at_each_stage() -> None:
     inspired, alveolar, arterial = cascade.stages
     assert inspired.difference == pytest.approx(0.0, abs=0.05)  # same gas by construction
     assert alveolar.difference == pytest.approx(76.7 - 101.8, abs=0.05)
-    assert arterial.difference == pytest.approx(60.0 - (101.8 - 14.0), abs=0.05)
+    # A healthy 40-year-old's PaO2 on air (Cerveri I et al., Am J Respir Crit Care Med
+    # 1995;152:934): 143.6 - 0.39 x 40 - 0.56 x 25 - 0.57 x 40 = 91.2 mmHg.
+    cerveri = 143.6 - 0.39 * 40 - 0.56 * 25 - 0.57 * 40
+    assert arterial.difference == pytest.approx(60.0 - cerveri, abs=0.3)
 
 
 def test_missing_paco2_leaves_no_alveolar_point_and_a_note_says_why() -> None:
@@ -62,11 +65,16 @@ def test_mixed_venous_stage_only_when_measured() -> None:
     assert venous.difference == pytest.approx(-9.0)
 
 
-def test_caption_warns_that_the_room_air_limit_understates_the_gap_on_oxygen() -> None:
+def test_the_normal_gap_widens_on_oxygen_as_a_healthy_lung_s_does() -> None:
+    # On oxygen the normal A-a gradient widens (healthy men on 100 % oxygen: 48 (31-60) mmHg
+    # at 25 years, 93 (60-108) at 50, "Gas exchange in two male age groups...", Upsala J Med
+    # Sci): the normal line follows it, so no caveat about a room-air limit is needed.
     on_air = build_cascade(_room_air())
     on_oxygen = build_cascade(_room_air(fio2=0.5, inspired_po2=356.5, alveolar_po2=300.0))
-    assert not any("understates" in note for note in on_air.notes)
-    assert any("understates the normal gap" in note for note in on_oxygen.notes)
+    air_gap = on_air.stages[1].normal - on_air.stages[2].normal  # type: ignore[operator]
+    oxygen_gap = on_oxygen.stages[1].normal - on_oxygen.stages[2].normal  # type: ignore[operator]
+    assert oxygen_gap > air_gap
+    assert not any("understates" in note for note in on_oxygen.notes)
 
 
 def test_sea_level_reference_only_when_the_inspired_po2_is_low() -> None:
@@ -90,7 +98,7 @@ def test_svg_is_well_formed_and_labelled() -> None:
     desc = root.find(f"{SVG}desc")
     assert title is not None and title.text == "Case <a> & b"
     assert desc is not None and desc.text is not None
-    assert "Arterial PO2: patient 60.0, normal 87.8" in desc.text
+    assert "Arterial PO2: patient 60.0, normal 91.2" in desc.text  # Cerveri 1995 at 40
 
 
 def test_svg_ids_are_prefixed_unique_and_every_reference_resolves() -> None:
@@ -113,7 +121,7 @@ def test_svg_is_deterministic() -> None:
 def test_svg_states_the_numbers_as_text() -> None:
     svg = cascade_svg(build_cascade(_room_air()), title="t", chart_id="c")
     texts = "".join(_parse(svg).itertext())
-    for number in ("149.7", "101.8", "76.7", "60.0", "87.8", "−25.1", "−27.8"):
+    for number in ("149.7", "101.8", "76.7", "60.0", "91.2", "−25.1", "−31.2"):
         assert number in texts
 
 

@@ -267,7 +267,7 @@ function quantityText(q) {
 }
 
 function renderOxygen(o) {
-  const fits = o.parameters.length + o.observations.length;
+  const fits = o.parameters.length + o.observations.length + (o.charts || []).length;
   const box = $("oxygen-body");
   $("oxygen-response").hidden = false;
   if (o.gases.length < 2 && !fits) {
@@ -278,10 +278,13 @@ function renderOxygen(o) {
   const rows = o.gases.map((g) => [g.index ? "index (latest)" : "earlier", g.observation || "—",
     { num: quantityText(g.fio2) }, { num: quantityText(g["pf-ratio"]) },
     { num: quantityText(g["aa-gradient"]) }, { num: quantityText(g["venous-admixture"]) }]);
+  const gasTable = table(["Gas", "Observation", "FiO2", "P/F", "A-a gradient", "Venous admixture"],
+    rows, "Each arterial gas of the case, from the result.");
+  gasTable.classList.add("gases");
   fill(box,
     oxygenChart(o.gases),
-    table(["Gas", "Observation", "FiO2", "P/F", "A-a gradient", "Venous admixture"], rows,
-      "Each arterial gas of the case, from the result."),
+    gasTable,
+    ...(o.charts || []).map((c) => el("figure", {}, svgNode(c.svg), el("figcaption", {}, c.caption))),
     ...o.parameters.map((p) => el("div", {}, el("h3", {}, p.name),
       table(["Part", "Value"], (p.part || []).map((part) => [part.name, partValue(part)])))),
     ...o.observations.map((obs) => el("div", {}, el("h3", {}, obs.id),
