@@ -181,3 +181,19 @@ def test_a_derived_value_in_another_unit_stops_the_row(runtime: Runtime) -> None
     a.index.derived["pf-ratio"] = Derived(pf.value * 0.133322, "kPa", pf.method, pf.inputs)
     with pytest.raises(ValueError, match="pf-ratio is in kPa"):
         row(a)
+
+
+def test_a_fact_in_another_unit_than_its_column_stops_the_job(
+    monkeypatch: pytest.MonkeyPatch,
+) -> None:
+    from service.bulk import rows
+
+    rows._check_units()  # the shipped catalogue: every column in its fact's unit
+    wrong = (("response_pao2_change_kpa", "pao2_change", "kPa"),)
+    monkeypatch.setattr(rows, "SERIAL", wrong)
+    with pytest.raises(ValueError, match="pao2_change is in mm\\[Hg\\]"):
+        rows._check_units()
+    monkeypatch.setattr(rows, "SERIAL", ())
+    monkeypatch.setattr(rows, "DEFICIT", (("deficit_fall_kpa", "fall", "fio2"),))
+    with pytest.raises(ValueError, match="fact fio2 is in 1"):
+        rows._check_units()
