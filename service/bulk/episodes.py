@@ -344,7 +344,7 @@ def _read_all(
             blamed: dict[int, list[Problem]] = {}
             if not alone_done:
                 alone_done = True
-                blamed = _refused_alone(members, concept_map)
+                blamed = _refused_alone(members, concept_map, limits)
             if not blamed:
                 for problem in exc.problems:
                     match = _ENTRY.match(problem.expression)
@@ -366,14 +366,16 @@ def _read_all(
 
 
 def _refused_alone(
-    members: list[Entry], concept_map: LocalCodeMap | None
+    members: list[Entry], concept_map: LocalCodeMap | None, limits: ReadLimits
 ) -> dict[int, list[Problem]]:
     """The members the reader refuses when each is read alone, with their own problems
-    (located in the whole Bundle)."""
+    (located in the whole Bundle). A reference to another resource that is not there is no
+    problem to the reader (a specimen it cannot find is an issue), so reading alone refuses
+    only what the resource itself gets wrong."""
     found: dict[int, list[Problem]] = {}
     for index, entry in enumerate(members):
         try:
-            read_bundle(_bundle([entry.resource]), concept_map=concept_map)
+            read_bundle(_bundle([entry.resource]), concept_map=concept_map, limits=limits)
         except BundleError as exc:
             found[index] = [
                 Problem(

@@ -325,13 +325,22 @@ def test_the_patient_budget_counts_components_as_the_reader_does() -> None:
 
 def test_each_refused_resource_is_reported_with_its_own_problem(assessor: Assessor) -> None:
     """The reader lists one problem three times and counts the rest; each refused resource
-    still gets its own row, with its own problem, and the gas is assessed."""
+    still gets its own row, with its own problem, and the gas is assessed — its values too
+    that name a Specimen, which only the whole Bundle holds."""
+    specimen = {
+        "resourceType": "Specimen",
+        "id": "s1",
+        "type": {"coding": [{"system": "http://snomed.info/sct", "code": "122552005"}]},
+        "subject": {"reference": KEY},
+    }
+    po2 = obs("po2", "11556-8", 62, T0, specimen={"reference": "Specimen/s1"})
     bad = [obs(f"bad-{i}", "2019-8", 40, T0 - timedelta(hours=i + 1), unit="g") for i in range(7)]
-    outcome = assessor.patient(KEY, records(*gas("a", T0), *bad))
-    assert len(outcome.results) == 1
+    outcome = assessor.patient(KEY, records(specimen, po2, *bad))
     assert sorted(e.resource_id or "" for e in outcome.errors) == [
         f"Observation/bad-{i}" for i in range(7)
     ]
     messages = {e.message for e in outcome.errors}
     assert len(messages) == 1 and not next(iter(messages)).startswith("and ")
     assert {e.expression for e in outcome.errors} == {"Observation.valueQuantity.code"}
+    (row,) = outcome.results
+    assert (row["pao2_mmhg"], row["specimen"]) == (62.0, "arterial")
