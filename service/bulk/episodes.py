@@ -41,7 +41,10 @@ nearest one outside the window (``value-outside-window``, ``fio2-time-mismatch``
 altitude and residence, the latest. Each of those is the nearest before or after the gas, so
 the episode holds it, and a value the episode holds that the history also holds can never
 displace it: the service pairs the episode as it pairs the whole history. The windows are the
-service's own (``service.assess.assess.windows``), never restated here.
+service's own (``service.assess.assess.windows``), never restated here. One difference is
+kept on purpose: a finding the reader raises about a value it uses (a unit converted, a time
+taken from ``issued``) comes with that value, so an episode reports it for the values it holds,
+where the service given years of history would report every value's on every gas.
 
 A later gas is never in an episode, so the index gas of every episode is its own gas. Before
 episodes are cut, the patient's resources are read once, together, by the service's reader: a
