@@ -1,53 +1,85 @@
 """One patient's resources as gas episodes: one FHIR Bundle per arterial gas.
 
 The service assesses "one patient's recent data": the latest arterial gas is the index gas,
-earlier gases on another FiO2 show the response to oxygen, context is paired by time. A Bulk
-Data export holds years of a patient's data, so the job cuts it into episodes, one per sampling
-time ``t`` of an arterial PO2, each an ordinary collection Bundle that the service's reader and
-assessment take as they are. The episode of the gas sampled at ``t`` holds:
+each kind of value is paired with each gas within its own window (``service.assess.pairing``),
+and every two gases within the oxygen-response window show the response to oxygen. A Bulk Data
+export holds years of a patient's data, so the job cuts it into episodes, one per sampling time
+``t`` of an arterial PO2, each an ordinary collection Bundle that the service's reader and
+assessment take as they are.
 
-* **the sample and the samples beside it**: every blood-gas value (arterial, venous,
-  capillary) sampled within the pairing window of ``t``, so the sample's own specimen problems
-  and a venous gas drawn beside it are seen; never a later arterial PO2;
-* **earlier arterial gases** of the last ``lookback`` hours whose sample is known to be arterial,
-  for the response to oxygen (only when the gas at ``t`` is itself usable; a doubtful sample is
-  judged on its own, as ``oxyrule assess`` judges a Bundle holding only it);
-* **context** (FiO2, flow, device, SpO2, temperature, Hb, PEEP, mixed-venous values, ...) within
-  the pairing window of ``t`` or of an earlier gas it holds, and, for a kind of value with none
-  in the window of ``t``, the nearest one within ``lookback`` (the result then says it was out
-  of the window);
-* **patient-level values** (altitude, DLCO, walk-test oximetry): the latest of each kind up to
-  ``t`` + window; values sent with no time; the Patient; the Specimens the Observations name;
-  the Location of the gas's Encounter (``Observation.encounter`` → ``Encounter.location``, the
-  one whose period holds ``t``, else the last), whose altitude the reader uses.
+**What an episode must give.** The episode of the gas at ``t`` is assessed exactly as
+``oxyrule assess`` assesses *the history at that gas*: the patient's resources with these left
+out (``tests/bulk/test_history.py`` builds it literally and compares the two):
 
-Later gases are never in an episode, so the index gas of every episode is its own gas. Which
-values pair with which gas is still the service's pairing code, run on each episode Bundle.
+* every arterial PO2 sampled after ``t`` (it would be the index gas), and one with no time;
+* arterial gases sampled more than ``oxygen_response_window_hours`` before ``t``: a gas is
+  compared with the gases of that window only, which are the episode's *earlier gases*;
+* blood samples that are not arterial gases — venous, capillary and mixed-venous values, and
+  arterial-coded values of doubtful specimen — unless taken within the pairing window of a gas
+  of the episode: the service reads every such sample of a Bundle as sent beside its gas
+  (``specimen-not-arterial``, ``specimen-unknown``);
+* Observations the reader does not use (an ignored status, no value, an impossible value, a
+  code it does not read) unless within the pairing window of a gas of the episode: their
+  findings describe the moment they were taken;
+* every Location but the gas's (``Observation.encounter`` → ``Encounter.location``, the one
+  whose period holds ``t``, else the last listed), and every resource type the service does not
+  read.
 
-Before episodes are cut, the patient's resources are read once, together, by the service's
-reader: a resource the reader refuses (a bad dateTime, a unit a quantity cannot take) becomes
-an error row with its file, line and the located problem, and the rest are read again without
-it, so one bad line never costs a patient's other gases.
+Values with no time, the Patient and the Specimens stay. A gas whose sample is of doubtful
+specimen is not used as arterial by the service, which then anchors on the latest SpO2 (with
+none, the latest value of each kind): such a gas is judged on its own, so its history also
+leaves out every arterial gas known to be arterial, and ends at ``t`` plus the pairing window —
+as a Bundle sent at that moment would.
+
+**What an episode holds.** Not that whole history — years of values — but the part pairing
+can use: every gas of the episode (the gas at ``t`` and its earlier gases), the samples and
+unused Observations as above, the values with no time, and, for each gas and each kind of
+value the service pairs, the nearest value of that kind before the gas and the nearest after it
+(every value at those two instants). Pairing takes, for each kind, the nearest value within the
+kind's window, the setting charted last before the gas (the setting in force), or reports the
+nearest one outside the window (``value-outside-window``, ``fio2-time-mismatch``); for
+altitude and residence, the latest. Each of those is the nearest before or after the gas, so
+the episode holds it, and a value the episode holds that the history also holds can never
+displace it: the service pairs the episode as it pairs the whole history. The windows are the
+service's own (``service.assess.assess.windows``), never restated here. One difference is
+kept on purpose: a finding the reader raises about a value it uses (a unit converted, a time
+taken from ``issued``) comes with that value, so an episode reports it for the values it holds,
+where the service given years of history would report every value's on every gas.
+
+A later gas is never in an episode, so the index gas of every episode is its own gas. Before
+episodes are cut, the patient's resources are read once, together, by the service's reader: a
+resource the reader refuses (a bad dateTime, a unit a quantity cannot take) becomes an error
+row with its file, line and the located problem, and the rest are read without it, so one bad
+line never costs a patient's other gases.
+
+**Budgets.** The patient read counts an Observation's components as entries, as the service
+does, and holds at most ``OXYRULE_BULK_MAX_PATIENT_RESOURCES`` of them; each episode is read
+with ``OXYRULE_BULK_MAX_EPISODE_ENTRIES`` (``read_limits``), not the service's request limit:
+the job builds the episodes itself, and a long stay with frequent gases may need more than a
+request would send. Over either budget the patient or the gas is an error row that says which
+setting to raise, never a silent omission.
 """
 
 from __future__ import annotations
 
 import re
 from bisect import bisect_left, bisect_right
-from collections.abc import Iterable
+from collections.abc import Iterable, Iterator
 from dataclasses import dataclass, field
 from datetime import datetime, timedelta
 from enum import Enum
 
 import orjson
 
-from service.assess.pairing import ARTERIAL, PATIENT_LEVEL
+from service.assess.assess import windows as pairing_windows
+from service.assess.pairing import ARTERIAL, PAIRED, Windows
+from service.config import Settings
 from service.fhir.dates import effective_time, parse_date_time
 from service.fhir.extract import read_bundle
-from service.fhir.observation import identify
-from service.fhir.outcome import BundleError, Problem
+from service.fhir.outcome import BundleError, Problem, TooLargeError
 from service.fhir.references import FHIR_ID, type_and_id
 from service.fhir.shape import Collector
+from service.intake.limits import DEFAULT_READ_LIMITS, ReadLimits
 from service.intake.model import Intake, Measurement, Quantity, Specimen
 from service.terminology.local_codes import LocalCodeMap
 
@@ -55,7 +87,8 @@ from .errors import ErrorCode, ErrorRow, Stage
 from .pseudonym import Pseudonymiser
 from .records import Record
 
-OTHER_SAMPLE: frozenset[Quantity] = frozenset(
+# Values of blood that is not arterial: in an episode only when taken beside one of its gases.
+NOT_ARTERIAL_BLOOD: frozenset[Quantity] = frozenset(
     {
         Quantity.VENOUS_PO2,
         Quantity.VENOUS_PCO2,
@@ -65,18 +98,22 @@ OTHER_SAMPLE: frozenset[Quantity] = frozenset(
         Quantity.CAPILLARY_PO2,
         Quantity.CAPILLARY_PCO2,
         Quantity.CAPILLARY_PH,
+        Quantity.MIXED_VENOUS_PO2,
+        Quantity.MIXED_VENOUS_SO2,
     }
 )
+# The kinds of value chosen per gas by time: every kind the service pairs, but the blood samples.
+TIMED_KINDS: tuple[Quantity, ...] = tuple(sorted(PAIRED - NOT_ARTERIAL_BLOOD))
 _ENTRY = re.compile(r"^Bundle\.entry\[(\d+)\](?:\.resource)?")
 
 
 class Role(Enum):
     """How an Observation takes part in episodes."""
 
-    ARTERIAL = "arterial"  # a value of an arterial(-coded) sample
-    OTHER_SAMPLE = "other-sample"  # a venous or capillary sample's value
-    PATIENT_LEVEL = "patient-level"
-    CONTEXT = "context"
+    GAS = "gas"  # carries an arterial(-coded) PO2: anchors an episode
+    SAMPLE = "sample"  # not-arterial blood, or arterial-coded of doubtful specimen
+    CONTEXT = "context"  # values paired by time (settings, SpO2, Hb, DLCO, PaCO2, altitude...)
+    UNUSED = "unused"  # the reader took no value from it (its findings remain)
 
 
 @dataclass(slots=True)
@@ -89,10 +126,10 @@ class Entry:
     line: int
     ref: str | None  # Type/id
     time: datetime | None = None
-    role: Role = Role.CONTEXT
+    role: Role = Role.UNUSED
     quantities: frozenset[Quantity] = frozenset()
-    pao2: bool = False  # carries an arterial(-coded) PO2: anchors a gas
     usable: bool = True  # every arterial value's sample is known to be arterial (or unstated)
+    specimen: str | None = None  # a gas's: the specimen of its PO2, where known
 
 
 @dataclass(frozen=True, slots=True)
@@ -102,17 +139,36 @@ class Episode:
     time: datetime
     observation: str | None  # the gas's PO2 Observation, Type/id
     location: str | None  # Location/id of the gas's Encounter
+    specimen: str | None  # the specimen of the gas's PO2, where known
     earlier_gases: int
     bundle: dict[str, object]
 
 
 @dataclass(frozen=True, slots=True)
-class Windows:
-    """The time spans that cut episodes (from the settings)."""
+class EpisodeWindows:
+    """What cuts episodes: the service's pairing windows and its oxygen-response window."""
 
-    pairing: timedelta
-    same_sample: timedelta
-    lookback: timedelta
+    pairing: Windows
+    response: timedelta
+
+    @classmethod
+    def of(cls, settings: Settings) -> EpisodeWindows:
+        """The windows of the service's settings (the same ones ``oxyrule assess`` uses)."""
+        return cls(
+            pairing_windows(settings),
+            timedelta(hours=settings.oxygen_response_window_hours),
+        )
+
+    @property
+    def beside(self) -> timedelta:
+        """How far from a gas a sample is beside it: the pairing window of the moment."""
+        return self.pairing.context
+
+
+def read_limits(max_entries: int) -> ReadLimits:
+    """The reader's budget for one episode: ``max_entries`` entries and components, and the
+    issues listed as ``oxyrule assess`` lists them (so the findings are the same)."""
+    return ReadLimits(max_entries=max_entries, max_issues=DEFAULT_READ_LIMITS.max_issues)
 
 
 @dataclass(slots=True)
@@ -129,6 +185,12 @@ class PatientData:
     errors: list[ErrorRow] = field(default_factory=list)
 
 
+def _size(resource: dict[str, object]) -> int:
+    """Entries the reader counts for a resource: one, and one per component."""
+    components = resource.get("component")
+    return 1 + (len(components) if isinstance(components, list) else 0)
+
+
 def patient_data(
     key: str,
     records: Iterable[Record],
@@ -137,26 +199,22 @@ def patient_data(
     pseudonym: Pseudonymiser,
     max_resources: int,
 ) -> PatientData:
-    """Parse, sort and read a patient's records; what cannot be used becomes error rows."""
+    """Parse, sort and read a patient's records; what cannot be used becomes error rows.
+
+    ``max_resources`` bounds the resources of the patient, an Observation's components counted
+    as resources (as the service's reader counts them).
+    """
     data = PatientData(key)
     ordered = sorted(records, key=lambda r: (r.file, r.line))
-    if len(ordered) > max_resources:
-        data.errors.append(
-            ErrorRow(
-                None,
-                None,
-                Stage.PATIENT,
-                ErrorCode.TOO_MANY_RESOURCES,
-                "error",
-                f"{len(ordered)} resources for one patient, more than "
-                f"OXYRULE_BULK_MAX_PATIENT_RESOURCES ({max_resources}): not assessed",
-                patient=pseudonym(key),
-            )
-        )
-        return data
     observations: list[Entry] = []
+    size = 0
     for record in ordered:
         resource = orjson.loads(record.body)
+        size += _size(resource)
+        if size > max_resources:
+            data.errors = [_too_many(key, max_resources, pseudonym)]
+            data.patient, data.specimens, data.encounters = None, {}, {}
+            return data
         rid = resource.get("id")
         ref = f"{record.kind}/{rid}" if isinstance(rid, str) and FHIR_ID.fullmatch(rid) else None
         entry = Entry(record.kind, resource, record.file, record.line, ref)
@@ -183,10 +241,23 @@ def patient_data(
                 patient=pseudonym(key),
             )
         )
-    intake = _read_all(data, observations, concept_map, pseudonym)
+    intake = _read_all(data, observations, concept_map, pseudonym, max_resources)
     if intake is not None:
-        _describe(data, observations, intake, concept_map, pseudonym)
+        _describe(data, observations, intake, pseudonym)
     return data
+
+
+def _too_many(key: str, limit: int, pseudonym: Pseudonymiser) -> ErrorRow:
+    return ErrorRow(
+        None,
+        None,
+        Stage.PATIENT,
+        ErrorCode.TOO_MANY_RESOURCES,
+        "error",
+        f"more than {limit} resources and components for one patient "
+        "(OXYRULE_BULK_MAX_PATIENT_RESOURCES): not assessed",
+        patient=pseudonym(key),
+    )
 
 
 def _duplicate(entry: Entry, first: Entry, key: str, pseudonym: Pseudonymiser) -> ErrorRow:
@@ -248,25 +319,43 @@ def _read_all(
     observations: list[Entry],
     concept_map: LocalCodeMap | None,
     pseudonym: Pseudonymiser,
+    budget: int,
 ) -> Intake | None:
-    """Read every resource of the patient at once; drop and report each refused one."""
+    """Read every resource of the patient at once; drop and report each refused one.
+
+    The reader lists the same problem three times and then counts the rest in one line, so
+    when it refuses the whole, each resource is read alone to find every refused one with its
+    own problem; the others are read together again (a problem only the whole shows, such as
+    two patients in one group, falls back to dropping what the reader blames, round by round).
+    """
+    limits = ReadLimits(max_entries=budget, max_issues=max(budget, DEFAULT_READ_LIMITS.max_issues))
     members: list[Entry] = [
         *([data.patient] if data.patient else []),
         *data.specimens.values(),
         *observations,
     ]
+    alone_done = False
     while True:
         try:
-            intake = read_bundle(_bundle(e.resource for e in members), concept_map=concept_map)
+            intake = read_bundle(
+                _bundle(e.resource for e in members), concept_map=concept_map, limits=limits
+            )
+        except TooLargeError:  # counted before reading: should not happen; never fatal
+            data.errors.append(_too_many(data.key, budget, pseudonym))
+            return None
         except BundleError as exc:
             blamed: dict[int, list[Problem]] = {}
-            for problem in exc.problems:
-                match = _ENTRY.match(problem.expression)
-                if match is None or int(match[1]) >= len(members):
-                    data.errors.append(_patient_unreadable(data.key, problem, pseudonym))
-                    return None
-                blamed.setdefault(int(match[1]), []).append(problem)
-            for index, problems in blamed.items():
+            if not alone_done:
+                alone_done = True
+                blamed = _refused_alone(members, concept_map, limits)
+            if not blamed:
+                for problem in exc.problems:
+                    match = _ENTRY.match(problem.expression)
+                    if match is None or int(match[1]) >= len(members):
+                        data.errors.append(_patient_unreadable(data.key, problem, pseudonym))
+                        return None
+                    blamed.setdefault(int(match[1]), []).append(problem)
+            for index, problems in sorted(blamed.items()):
                 data.errors.append(_refused(members[index], problems, data.key, pseudonym))
             dropped = {id(members[i]) for i in blamed}
             members = [e for e in members if id(e) not in dropped]
@@ -277,6 +366,33 @@ def _read_all(
             continue
         data.entries = observations
         return intake
+
+
+def _refused_alone(
+    members: list[Entry], concept_map: LocalCodeMap | None, limits: ReadLimits
+) -> dict[int, list[Problem]]:
+    """The members the reader refuses when each is read alone, with their own problems
+    (located in the whole Bundle). A reference to another resource that is not there is no
+    problem to the reader (a specimen it cannot find is an issue), so reading alone refuses
+    only what the resource itself gets wrong."""
+    found: dict[int, list[Problem]] = {}
+    for index, entry in enumerate(members):
+        try:
+            read_bundle(_bundle([entry.resource]), concept_map=concept_map, limits=limits)
+        except BundleError as exc:
+            found[index] = [
+                Problem(
+                    p.severity,
+                    p.code,
+                    p.diagnostics,
+                    _ENTRY.sub(f"Bundle.entry[{index}].resource", p.expression, count=1),
+                )
+                for p in exc.problems
+                if _ENTRY.match(p.expression)
+            ]
+            if not found[index]:
+                del found[index]
+    return found
 
 
 def _relative(expression: str, kind: str) -> str:
@@ -314,32 +430,10 @@ def _patient_unreadable(key: str, problem: Problem, pseudonym: Pseudonymiser) ->
     )
 
 
-def _codings(resource: dict[str, object]) -> tuple[list[tuple[str, str]], list[str]]:
-    """(system, code) pairs of ``Observation.code`` and ``meta.profile``, where well formed.
-
-    Only to tell which kind of value an Observation the reader did not use (ignored status,
-    impossible value) would have been, so that its finding lands in the right episode.
-    """
-    code = resource.get("code")
-    items = code.get("coding") if isinstance(code, dict) else None
-    pairs = [
-        (c["system"], c["code"])
-        for c in (items if isinstance(items, list) else [])
-        if isinstance(c, dict)
-        and isinstance(c.get("system"), str)
-        and isinstance(c.get("code"), str)
-    ]
-    meta = resource.get("meta")
-    listed = meta.get("profile") if isinstance(meta, dict) else None
-    profiles = [p for p in listed if isinstance(p, str)] if isinstance(listed, list) else []
-    return pairs, profiles
-
-
 def _describe(
     data: PatientData,
     observations: list[Entry],
     intake: Intake,
-    concept_map: LocalCodeMap | None,
     pseudonym: Pseudonymiser,
 ) -> None:
     """Give each Observation its time, its quantities and its role in episodes."""
@@ -351,20 +445,24 @@ def _describe(
             by_entry.setdefault(int(match[1]) - offset, []).append(m)
     for index, entry in enumerate(observations):
         measurements = by_entry.get(index, [])
-        entry.time = effective_time(entry.resource, "Observation", Collector())
-        if measurements:
-            entry.quantities = frozenset(m.quantity for m in measurements)
-            entry.usable = all(
-                m.specimen in (None, Specimen.ARTERIAL)
+        timed = [m.time for m in measurements if m.time is not None]
+        entry.time = (
+            timed[0] if timed else effective_time(entry.resource, "Observation", Collector())
+        )
+        entry.quantities = frozenset(m.quantity for m in measurements)
+        entry.usable = all(
+            m.specimen in (None, Specimen.ARTERIAL) for m in measurements if m.quantity in ARTERIAL
+        )
+        entry.role = _role(entry)
+        entry.specimen = next(
+            (
+                m.specimen.value
                 for m in measurements
-                if m.quantity in ARTERIAL
-            )
-        else:
-            concept = identify(*_codings(entry.resource), concept_map)
-            entry.quantities = frozenset() if concept is None else frozenset({concept.quantity})
-        entry.pao2 = any(m.quantity is Quantity.ARTERIAL_PO2 for m in measurements)
-        entry.role = _role(entry.quantities)
-        if entry.pao2 and entry.time is None:
+                if m.quantity is Quantity.ARTERIAL_PO2 and m.specimen is not None
+            ),
+            None,
+        )
+        if entry.role is Role.GAS and entry.time is None:
             data.errors.append(
                 ErrorRow(
                     entry.file,
@@ -381,82 +479,121 @@ def _describe(
             )
 
 
-def _role(quantities: frozenset[Quantity]) -> Role:
-    if quantities & ARTERIAL:
-        return Role.ARTERIAL
-    if quantities & OTHER_SAMPLE:
-        return Role.OTHER_SAMPLE
-    if quantities and quantities <= PATIENT_LEVEL:
-        return Role.PATIENT_LEVEL
+def _role(entry: Entry) -> Role:
+    q = entry.quantities
+    if not q:
+        return Role.UNUSED
+    if Quantity.ARTERIAL_PO2 in q:
+        return Role.GAS
+    if q & NOT_ARTERIAL_BLOOD or (q & ARTERIAL and not entry.usable):
+        return Role.SAMPLE
     return Role.CONTEXT
 
 
 class _Timeline:
-    """Timed entries sorted by time, for range queries."""
+    """Timed entries sorted by time (file and line within a time), for range queries."""
 
     def __init__(self, entries: Iterable[Entry]) -> None:
-        timed = sorted(((e.time, e) for e in entries if e.time is not None), key=lambda p: p[0])
-        self.times: list[datetime] = [t for t, _ in timed]
-        self.entries: list[Entry] = [e for _, e in timed]
+        timed = sorted(
+            ((e.time, e.file, e.line, e) for e in entries if e.time is not None),
+            key=lambda p: p[:3],
+        )
+        self.times: list[datetime] = [p[0] for p in timed]
+        self.entries: list[Entry] = [p[3] for p in timed]
+
+    def __bool__(self) -> bool:
+        return bool(self.times)
 
     def between(self, start: datetime, end: datetime) -> list[Entry]:
         """Entries with start ≤ time ≤ end."""
         return self.entries[bisect_left(self.times, start) : bisect_right(self.times, end)]
 
-    def last_until(self, end: datetime) -> Entry | None:
-        """The latest entry with time ≤ end."""
-        high = bisect_right(self.times, end)
-        return self.entries[high - 1] if high else None
+    def at_or_before(self, when: datetime) -> list[Entry]:
+        """Every entry at the latest time ≤ ``when`` (none if there is none)."""
+        high = bisect_right(self.times, when)
+        if not high:
+            return []
+        return self.between(self.times[high - 1], self.times[high - 1])
+
+    def after(self, when: datetime, end: datetime | None) -> list[Entry]:
+        """Every entry at the earliest time > ``when`` (and ≤ ``end``, when given)."""
+        low = bisect_right(self.times, when)
+        if low == len(self.times) or (end is not None and self.times[low] > end):
+            return []
+        return self.between(self.times[low], self.times[low])
 
 
 @dataclass(frozen=True, slots=True)
 class _Timelines:
     """A patient's Observations by role, for cutting episodes."""
 
-    samples: _Timeline
-    context: _Timeline
-    levels: tuple[_Timeline, ...]
-    untimed: tuple[Entry, ...]
+    gases: _Timeline  # arterial PO2s with a time
+    beside: _Timeline  # samples and doubtful gases: in an episode beside one of its gases
+    unused: _Timeline
+    kinds: dict[Quantity, _Timeline]  # context values carrying each kind the service pairs
+    untimed: tuple[Entry, ...]  # every Observation but gases with no time
+
+
+def timelines(entries: list[Entry]) -> _Timelines:
+    """The patient's Observations sorted for cutting."""
+    context = [e for e in entries if e.role is Role.CONTEXT]
+    kinds = {q: _Timeline(e for e in context if q in e.quantities) for q in TIMED_KINDS}
+    return _Timelines(
+        gases=_Timeline(e for e in entries if e.role is Role.GAS),
+        beside=_Timeline(
+            e for e in entries if e.role is Role.SAMPLE or (e.role is Role.GAS and not e.usable)
+        ),
+        unused=_Timeline(e for e in entries if e.role is Role.UNUSED),
+        kinds={q: line for q, line in kinds.items() if line},
+        untimed=tuple(e for e in entries if e.time is None and e.role is not Role.GAS),
+    )
 
 
 def cut_episodes(
-    data: PatientData, *, windows: Windows, locations: dict[str, dict[str, object]]
-) -> list[Episode]:
-    """The patient's episodes, earliest gas first."""
-    entries = data.entries
-    lines = _Timelines(
-        samples=_Timeline(e for e in entries if e.role in (Role.ARTERIAL, Role.OTHER_SAMPLE)),
-        context=_Timeline(e for e in entries if e.role is Role.CONTEXT),
-        levels=tuple(
-            _Timeline(e for e in entries if e.role is Role.PATIENT_LEVEL and q in e.quantities)
-            for q in sorted(PATIENT_LEVEL)
-        ),
-        untimed=tuple(e for e in entries if e.time is None and not e.pao2),
-    )
-    anchors = sorted({e.time for e in entries if e.pao2 and e.time is not None})
-    return [_episode(data, t, windows, lines, locations) for t in anchors]
+    data: PatientData, *, windows: EpisodeWindows, locations: dict[str, dict[str, object]]
+) -> Iterator[Episode]:
+    """The patient's episodes, earliest gas first (built one at a time)."""
+    lines = timelines(data.entries)
+    for t in sorted(set(lines.gases.times)):
+        yield _episode(data, t, windows, lines, locations)
 
 
 def _episode(
     data: PatientData,
     t: datetime,
-    w: Windows,
+    w: EpisodeWindows,
     lines: _Timelines,
     locations: dict[str, dict[str, object]],
 ) -> Episode:
-    gas = [e for e in lines.samples.between(t, t) if e.pao2]
-    usable = any(e.usable for e in gas)
-    samples = _samples(t, usable, w, lines.samples)
-    gas_times = {e.time for e in samples if e.pao2 and e.usable and e.time is not None} | {t}
-    chosen: dict[int, Entry] = {id(e): e for e in [*samples, *lines.untimed]}
-    chosen.update((id(e), e) for e in _context(t, gas_times, w, lines.context))
-    for timeline in lines.levels:
-        latest = timeline.last_until(t + w.pairing)
-        if latest is not None:
-            chosen[id(latest)] = latest
+    at_t = lines.gases.between(t, t)
+    usable_at_t = [e for e in at_t if e.usable]
+    chosen: dict[int, Entry] = {id(e): e for e in lines.untimed}
+    end: datetime | None
+    if usable_at_t:
+        gases = [e for e in lines.gases.between(t - w.response, t) if e.usable]
+        scope = sorted({e.time for e in gases if e.time is not None})
+        anchors: list[datetime | None] = list(scope)
+        end = None
+    else:
+        # Judged on its own: the service anchors on the latest SpO2 by the end of the moment.
+        gases = at_t
+        scope = [t]
+        end = t + w.beside
+        spo2 = lines.kinds.get(Quantity.SPO2)
+        latest = spo2.at_or_before(end) if spo2 else []
+        chosen.update((id(e), e) for e in latest)
+        anchors = [latest[0].time if latest else None]
+    chosen.update((id(e), e) for e in gases)
+    for g in scope:
+        for e in lines.beside.between(g - w.beside, g + w.beside):
+            if not (e.role is Role.GAS and e.time is not None and e.time > t):
+                chosen[id(e)] = e
+        chosen.update((id(e), e) for e in lines.unused.between(g - w.beside, g + w.beside))
+    for anchor in anchors:
+        chosen.update((id(e), e) for e in _paired_candidates(anchor, end, w.pairing, lines))
     observations = sorted(chosen.values(), key=lambda e: (e.file, e.line))
-    anchor = min(gas, key=lambda e: (e.file, e.line))
-    location = _location(anchor, t, data.encounters)
+    anchor_entry = min(usable_at_t or at_t, key=lambda e: (e.file, e.line))
+    location = _location(anchor_entry, t, data.encounters)
     resources: list[dict[str, object]] = []
     if data.patient is not None:
         resources.append(data.patient.resource)
@@ -466,57 +603,30 @@ def _episode(
     resources.extend(e.resource for e in observations)
     return Episode(
         time=t,
-        observation=anchor.ref,
+        observation=anchor_entry.ref,
         location=location,
-        earlier_gases=len(gas_times) - 1,
+        specimen=anchor_entry.specimen,
+        earlier_gases=len(scope) - 1 if usable_at_t else 0,
         bundle=_bundle(resources),
     )
 
 
-def _samples(t: datetime, usable: bool, w: Windows, samples: _Timeline) -> list[Entry]:
-    """The gas at ``t``, the blood samples beside it and, for a usable gas, earlier gases."""
-
-    def beside(e: Entry) -> bool:
-        # Never a later PO2; for a doubtful sample, no other arterial PO2 that would be
-        # assessed in its place.
-        assert e.time is not None
-        if e.pao2 and e.time > t:
-            return False
-        return usable or not (e.pao2 and e.usable and e.time != t)
-
-    found = [e for e in samples.between(t - w.pairing, t + w.pairing) if beside(e)]
-    if usable:
-        found += [
-            e
-            for e in samples.between(t - w.lookback, t - w.pairing)
-            if e.role is Role.ARTERIAL and e.usable
-        ]
-    return found
-
-
-def _context(t: datetime, gas_times: set[datetime], w: Windows, context: _Timeline) -> list[Entry]:
-    """Context within the pairing window of any gas of the episode; for a kind of value with
-    none within the window of ``t``, the nearest one within ``lookback``."""
-    found: list[Entry] = []
-    near_t: set[Quantity] = set()
-    candidates = context.between(t - w.lookback - w.pairing, t + w.pairing)
-    for e in candidates:
-        assert e.time is not None
-        if abs(e.time - t) <= w.pairing:
-            found.append(e)
-            near_t |= e.quantities
-        elif any(abs(e.time - g) <= w.pairing for g in gas_times):
-            found.append(e)
-    nearest: dict[Quantity, tuple[timedelta, Entry]] = {}
-    for e in candidates:
-        assert e.time is not None
-        distance = abs(e.time - t)
-        if distance > w.lookback:
+def _paired_candidates(
+    anchor: datetime | None, end: datetime | None, w: Windows, lines: _Timelines
+) -> Iterator[Entry]:
+    """For each kind the service pairs: every value pairing could take or report for a gas
+    at ``anchor`` — the nearest before it and the nearest after it (no later than ``end``);
+    with no anchor time, or for a kind paired at any time, the latest."""
+    for quantity, line in lines.kinds.items():
+        if anchor is None or w.limit(quantity) is None:
+            yield from (
+                line.at_or_before(end)
+                if end is not None
+                else line.between(line.times[-1], line.times[-1])
+            )
             continue
-        for q in e.quantities - near_t:
-            if q not in nearest or distance < nearest[q][0]:
-                nearest[q] = (distance, e)
-    return found + [e for _, e in nearest.values()]
+        yield from line.at_or_before(anchor)
+        yield from line.after(anchor, end)
 
 
 def _specimens(observations: list[Entry], specimens: dict[str, Entry]) -> list[dict[str, object]]:

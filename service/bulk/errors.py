@@ -45,6 +45,7 @@ class ErrorCode(StrEnum):
     PATIENT_NOT_EXPORTED = "patient-not-exported"
     TOO_MANY_RESOURCES = "too-many-resources"
     EPISODE_UNREADABLE = "episode-unreadable"
+    EPISODE_TOO_LARGE = "episode-too-large"
 
 
 ERROR_COLUMNS: tuple[Column, ...] = (

@@ -13,14 +13,14 @@ from __future__ import annotations
 
 from collections.abc import Iterable
 from dataclasses import dataclass, field
-from datetime import datetime, timedelta
+from datetime import datetime
 
 from service.config import Settings
 from service.fhir.extract import read_bundle
-from service.fhir.outcome import BundleError
+from service.fhir.outcome import BundleError, TooLargeError
 from service.runtime import Runtime
 
-from .episodes import Windows, cut_episodes, patient_data
+from .episodes import EpisodeWindows, cut_episodes, patient_data, read_limits
 from .errors import ErrorCode, ErrorRow, Stage
 from .pseudonym import Pseudonymiser
 from .records import Record
@@ -38,12 +38,8 @@ class JobContext:
     now: datetime  # the job's clock: the same for every assessment of the run
     ruleset_hash: str  # the driver's rule set: every worker must assess with the same one
 
-    def windows(self) -> Windows:
-        return Windows(
-            pairing=timedelta(minutes=self.settings.pairing_window_minutes),
-            same_sample=timedelta(minutes=self.settings.same_sample_minutes),
-            lookback=timedelta(hours=self.bulk.lookback_hours),
-        )
+    def windows(self) -> EpisodeWindows:
+        return EpisodeWindows.of(self.settings)
 
 
 @dataclass(slots=True)
@@ -84,6 +80,7 @@ class Assessor:
             )
         self.locations = locations
         self.windows = context.windows()
+        self.limits = read_limits(context.bulk.max_episode_entries)
 
     def patient(self, key: str, records: Iterable[Record]) -> PatientOutcome:
         """Every gas episode of one patient, assessed; every problem, reported."""
@@ -101,7 +98,14 @@ class Assessor:
         assert patient is not None
         for episode in cut_episodes(data, windows=self.windows, locations=self.locations):
             try:
-                intake = read_bundle(episode.bundle, concept_map=self.runtime.concept_map)
+                intake = read_bundle(
+                    episode.bundle, concept_map=self.runtime.concept_map, limits=self.limits
+                )
+            except TooLargeError:
+                outcome.errors.append(
+                    _episode_too_large(patient, episode.observation, c.bulk, pseudonym)
+                )
+                continue
             except BundleError as exc:  # read once already: should not happen; never fatal
                 outcome.errors.append(_episode_error(patient, episode.observation, exc, pseudonym))
                 continue
@@ -109,15 +113,34 @@ class Assessor:
             outcome.results.append(
                 result_row(
                     assessment,
+                    settings=self.runtime.settings,
                     patient=patient,
                     observation=pseudonym(episode.observation),
                     time=episode.time,
                     location=episode.location,
+                    specimen=episode.specimen,
                     earlier_gases=episode.earlier_gases,
                     settings_hash=self.runtime.settings_hash,
                 )
             )
         return outcome
+
+
+def _episode_too_large(
+    patient: str, observation: str | None, bulk: BulkSettings, pseudonym: Pseudonymiser
+) -> ErrorRow:
+    return ErrorRow(
+        None,
+        None,
+        Stage.EPISODE,
+        ErrorCode.EPISODE_TOO_LARGE,
+        "error",
+        f"the episode of this gas holds more than {bulk.max_episode_entries} entries and "
+        "components (OXYRULE_BULK_MAX_EPISODE_ENTRIES): not assessed",
+        resource_type="Observation",
+        resource_id=pseudonym(observation),
+        patient=patient,
+    )
 
 
 def _episode_error(

@@ -1,17 +1,28 @@
 """Settings of the bulk job (``OXYRULE_BULK_*``), apart from the service's own ``Settings``.
 
 Kept apart because the service's settings enter the settings hash of every result, and one of
-these is a secret (the pseudonym key) that must never be hashed, written or shown. The episode
-settings decide which of a patient's data an assessment of one gas sees; they are written to
-``summary/run.json`` beside the counts.
+these is a secret (the pseudonym key) that must never be hashed, written or shown. These
+settings bound what the job holds and reads; which of a patient's data an assessment of one gas
+sees is decided by the service's own settings (its pairing windows and oxygen-response window,
+which enter the settings hash). The bulk settings are written to ``summary/run.json`` beside the
+counts.
 """
 
 from __future__ import annotations
 
-from pydantic import Field, SecretStr
+import os
+
+from pydantic import Field, SecretStr, model_validator
 from pydantic_settings import BaseSettings, SettingsConfigDict
 
 from service.exceptions import ServiceError
+
+# Settings an earlier version read, and what decides instead: refused rather than ignored.
+RETIRED = {
+    "OXYRULE_BULK_LOOKBACK_HOURS": "earlier gases are those within "
+    "OXYRULE_OXYGEN_RESPONSE_WINDOW_HOURS, and each kind of value is paired within the "
+    "service's own window (OXYRULE_PAIRING_WINDOW_MINUTES, OXYRULE_HAEMOGLOBIN_WINDOW_HOURS, …)",
+}
 
 
 class BulkLimitError(ServiceError):
@@ -34,11 +45,12 @@ class BulkSettings(BaseSettings):
     pseudonym_key: SecretStr | None = Field(
         None, description="secret key of --pseudonymise (HMAC-SHA-256); never written out"
     )
-    lookback_hours: float = Field(
-        12.0,
-        gt=0,
-        le=24 * 14,
-        description="earlier gases and context within this many hours belong to a gas's episode",
+    max_episode_entries: int = Field(
+        5000,
+        ge=100,
+        le=1_000_000,
+        description="entries and components of one gas's episode read at most (else an error "
+        "row); the service's request limit does not apply to episodes the job builds",
     )
     partition_mib: int = Field(
         32, ge=1, le=4096, description="local engine: raw input per partition held in memory"
@@ -52,6 +64,13 @@ class BulkSettings(BaseSettings):
     max_locations: int = Field(
         100_000, ge=1, le=10_000_000, description="Location resources kept for every worker"
     )
+
+    @model_validator(mode="after")
+    def _no_retired_settings(self) -> BulkSettings:
+        for name, instead in RETIRED.items():
+            if name in os.environ:
+                raise ValueError(f"{name} is no longer read: {instead}")
+        return self
 
     def public(self) -> dict[str, object]:
         """The settings that shape results, for ``run.json`` (never the key)."""

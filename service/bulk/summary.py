@@ -1,4 +1,4 @@
-"""Counts of patterns, grades and findings by month and location: the ``summary/`` tables.
+"""Counts of patterns, gas exchange, grades and findings by month and location (``summary/``).
 
 Each worker counts the result rows it writes into a ``Tally``; the tallies travel to the
 driver as small count rows (``COUNT_COLUMNS``) and are added up there, so the summary of a
@@ -29,6 +29,7 @@ COUNT_COLUMNS: tuple[Column, ...] = (
 TABLES: dict[str, tuple[str, ...]] = {
     "gases": (),
     "patterns": ("pattern",),
+    "gas_exchange": ("gas_exchange",),
     "grades": ("mechanism", "grade"),
     "findings": ("finding",),
 }
@@ -52,6 +53,7 @@ class Tally:
         c = self.counts
         c["gases", month, location, "", ""] += 1
         c["patterns", month, location, "", str(row["pattern"])] += 1
+        c["gas_exchange", month, location, "", str(row["gas_exchange"])] += 1
         for mechanism, column in GRADE_COLUMNS.items():
             c["grades", month, location, mechanism, str(row[column])] += 1
         findings = row["findings"]

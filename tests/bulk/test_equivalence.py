@@ -5,9 +5,9 @@ Bulk Data files.
 The single-bundle side is the real command line (``oxyrule assess`` on NDJSON of Bundles, one
 subprocess): its result Bundles' ``Parameters`` give the pattern, the five grades, the finding
 codes, the rule set, its hash and the settings hash. The bulk side is the ``results/`` rows.
-For a fixture with two gases, the earlier gas is compared with ``oxyrule assess`` on the
-fixture cut at that gas (its later PO2 and everything after the pairing window left out), as
-a clinician sending the data of that moment would have sent them.
+The latest gas of each fixture is compared with the fixture's Bundle as it is; an earlier gas
+with the history at that gas (``tests/bulk/history.py``: the fixture with its later PO2 left
+out, as ``service/bulk/episodes.py`` promises). Long histories: ``test_history.py``.
 """
 
 from __future__ import annotations
@@ -16,7 +16,6 @@ import json
 import subprocess
 import sys
 from collections.abc import Callable
-from datetime import datetime, timedelta
 from pathlib import Path
 from typing import Any
 
@@ -27,9 +26,7 @@ from service.bulk.rows import GRADE_COLUMNS, RESULT_COLUMNS
 from service.config import Settings
 from tests.bulk.conftest import read_table
 from tests.bulk.fixture_export import Exported, fixture_bundles
-
-WINDOW = timedelta(minutes=Settings().pairing_window_minutes)
-PO2_ARTERIAL = "2703-7"
+from tests.bulk.history import classify, history_at
 
 
 def assess_cli(bundles: list[dict[str, Any]]) -> list[dict[str, Any]]:
@@ -72,27 +69,6 @@ def _row_verdict(row: dict[str, Any]) -> dict[str, Any]:
         "ruleset-hash": row["ruleset_hash"],
         "settings-hash": row["settings_hash"],
     }
-
-
-def _time(resource: dict[str, Any]) -> datetime | None:
-    text = resource.get("effectiveDateTime")
-    return datetime.fromisoformat(text) if isinstance(text, str) else None
-
-
-def _is_arterial_po2(resource: dict[str, Any]) -> bool:
-    return any(c.get("code") == PO2_ARTERIAL for c in resource.get("code", {}).get("coding", []))
-
-
-def cut_at(bundle: dict[str, Any], t: datetime) -> dict[str, Any]:
-    """The Bundle as it stood for the gas at ``t``: no later PO2, nothing after the window."""
-    kept = []
-    for entry in bundle["entry"]:
-        r = entry["resource"]
-        when = _time(r) if r["resourceType"] == "Observation" else None
-        if when is not None and (when > t + WINDOW or (_is_arterial_po2(r) and when > t)):
-            continue
-        kept.append(entry)
-    return {**bundle, "entry": kept}
 
 
 @pytest.fixture(scope="module")
@@ -139,9 +115,10 @@ def test_an_earlier_gas_gets_the_verdict_of_its_own_moment(
     for path in fixture_bundles():
         rows = bulk_rows.get(exported.patients[path], [])
         bundle = json.loads(path.read_text(encoding="utf-8"))
+        classified = classify([e["resource"] for e in bundle["entry"]])
         for row in rows[:-1]:
             cases.append((path.name, row))
-            cut.append(cut_at(bundle, row["time"]))
+            cut.append(history_at(classified, row["time"], Settings()))
     assert len(cases) >= 5  # the serial fixtures and the two-FiO2 demo
     for (name, row), verdict in zip(cases, assess_cli(cut), strict=True):
         assert _row_verdict(row) == verdict, name

@@ -81,7 +81,9 @@ def test_a_progress_line_is_drawn_only_on_a_terminal(
     assert drawn.endswith("100.0%\n")
 
 
-@pytest.mark.parametrize("reason", ["missing export", "used output", "no key", "short key"])
+@pytest.mark.parametrize(
+    "reason", ["missing export", "used output", "no key", "short key", "retired setting"]
+)
 def test_the_command_refuses_to_start_and_writes_nothing(
     reason: str, synthetic_export: Path, tmp_path: Path
 ) -> None:
@@ -90,12 +92,16 @@ def test_the_command_refuses_to_start_and_writes_nothing(
         export = str(tmp_path / "nowhere")
     elif reason == "used output":
         (out / "results").mkdir(parents=True)
+    elif reason == "retired setting":
+        env = {"OXYRULE_BULK_LOOKBACK_HOURS": "12"}
     else:
         args = ["--pseudonymise"]
         env = {"OXYRULE_BULK_PSEUDONYM_KEY": "short" if reason == "short key" else ""}
     done = bulk_cli(export, str(out), *args, env=env)
     assert done.returncode == 2, done.stderr
     assert done.stdout == "" and done.stderr.startswith("oxyrule bulk: ")
+    if reason == "retired setting":
+        assert "OXYRULE_OXYGEN_RESPONSE_WINDOW_HOURS" in done.stderr
     written = sorted(p.name for p in out.rglob("*")) if out.exists() else []
     assert written == (["results"] if reason == "used output" else [])
 

@@ -40,6 +40,10 @@ def test_the_tables_count_every_result_row(
     assert Counter(r["pattern"] for r in results) == Counter(
         dict(_sum(patterns, "pattern").items())
     )
+    exchange = read_table(out / "summary" / "gas_exchange.parquet")
+    assert Counter(r["gas_exchange"] for r in results) == Counter(
+        dict(_sum(exchange, "gas_exchange").items())
+    )
     grades = read_table(out / "summary" / "grades.parquet")
     for mechanism, column in GRADE_COLUMNS.items():
         shown = {g: n for (m, g), n in _sum2(grades).items() if m == mechanism}

@@ -53,12 +53,30 @@ def test_every_record_is_invented_and_tagged_as_test_data(synthetic_export: Path
 def test_the_gases_cover_the_mechanisms_places_and_months(
     synthetic_export: Path, local_run: Callable[[Path, int], tuple[Path, JobReport]]
 ) -> None:
+    """What rule set 2.0 makes of the scenarios (``service/bulk/synth.py``): every pattern,
+    every mechanism likely somewhere, V/Q likely from the response to oxygen, a partition for
+    each residence where the residence was not sent."""
     out, _ = local_run(synthetic_export, 1)
     results = read_table(out / "results")
     patterns = Counter(r["pattern"] for r in results)
-    assert {"no-hypoxaemia", "single", "not-classifiable"} <= set(patterns)
+    assert set(patterns) == {
+        "no-hypoxaemia",
+        "single",
+        "mixed",
+        "indeterminate",
+        "not-classifiable",
+    }
     likely = {m for m, c in GRADE_COLUMNS.items() for r in results if r[c] == "likely"}
-    assert {"low-inspired-oxygen", "hypoventilation", "shunt"} <= likely
+    assert likely == set(GRADE_COLUMNS)
+    by_response = [
+        r
+        for r in results
+        if r["grade_vq_mismatch"] == "likely" and r["response_admixture_fall_least_percent"]
+    ]
+    assert by_response and all(r["response_fio2_step_fraction"] > 0 for r in by_response)
+    assert {r["gas_exchange"] for r in results} == {"defect", "normal", "unknown"}
+    assert any(r["deficit_partitions"] == 2 for r in results)
+    assert any(r["inputs_uncertain"] for r in results)
     assert len({r["location"] for r in results}) >= 4
     assert len({r["time"].strftime("%Y-%m") for r in results}) >= 4
     assert any(r["earlier_gases"] >= 1 for r in results)
