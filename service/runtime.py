@@ -6,6 +6,7 @@ only I/O; assessing is pure apart from the clock and the decision id.
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from dataclasses import dataclass
 from datetime import datetime
 from pathlib import Path
@@ -108,9 +109,14 @@ class Runtime:
         )
 
     def render(
-        self, assessment: Assessment, *, pressure_unit: PressureUnit | None = None
+        self,
+        assessment: Assessment,
+        *,
+        pressure_unit: PressureUnit | None = None,
+        addresses: Mapping[str, dict[str, object]] | None = None,
     ) -> dict[str, Any]:
-        """The result Bundle for an assessment (README, What it answers)."""
+        """The result Bundle for an assessment (README, What it answers); ``addresses`` are
+        the input's (``Intake.addresses``), for the references to what was sent."""
         codes = list(
             dict.fromkeys(
                 c for f in assessment.data_requested if (c := code_for_fact(f)) is not None
@@ -122,6 +128,7 @@ class Runtime:
             settings=self.settings,
             pressure_unit=pressure_unit or self.settings.pressure_unit,
             settings_hash=self.settings_hash,
+            addresses=addresses,
         )
 
     def assess_bundle(
@@ -141,4 +148,4 @@ class Runtime:
         """
         intake = self.read(data, limits=limits)
         assessment = self.assess_intake(intake, now=now, decision_id=decision_id)
-        return self.render(assessment, pressure_unit=pressure_unit)
+        return self.render(assessment, pressure_unit=pressure_unit, addresses=intake.addresses)

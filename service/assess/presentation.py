@@ -7,10 +7,13 @@ converted for display.
 
 from __future__ import annotations
 
-from typing import Any, Literal
+from typing import TYPE_CHECKING, Any, Literal
 
 from service.physiology.units import kpa_from_mmhg
 from service.terminology.codes import UCUM
+
+if TYPE_CHECKING:
+    from service.assess.derivation import Derived
 
 PressureUnit = Literal["mm[Hg]", "kPa"]
 Json = dict[str, Any]
@@ -57,3 +60,12 @@ def quantity(name: str, value: float, unit: str, pressure_unit: PressureUnit) ->
         "system": UCUM,
         "code": unit,
     }
+
+
+def shown_quantity(name: str, d: Derived, pressure_unit: PressureUnit) -> Json:
+    """A derived value's Quantity. S/F is SpO2 in % over FiO2 as a fraction, so its number
+    (e.g. 405) is in UCUM ``%``; unit ``1`` would make it 405, not 4.05 (UCUM: % = 10^-2)."""
+    if name == "sf-ratio":
+        shown = quantity(name, d.value, "1", pressure_unit)
+        return {**shown, "unit": "%", "code": "%"}
+    return quantity(name, d.value, d.unit, pressure_unit)

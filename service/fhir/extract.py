@@ -29,7 +29,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-from service.fhir import codes
+from service.fhir import addresses, codes
 from service.fhir.dates import parse_date
 from service.fhir.observation import ObservationReader
 from service.fhir.outcome import NotABundleError, Problem, TooLargeError, error
@@ -109,11 +109,60 @@ def read_bundle(
             else:
                 message = "resources of a type FHIR R4B does not define are not read"
             out.issue("resource-ignored", Severity.INFORMATION, message, entry.at)
+    if patient is None and subjects.first is not None and subjects.first.startswith("#"):
+        patient = _contained_patient(entries, subjects.first, subjects, out)
     out.raise_problems(limits.max_issues)
     if patient is None and subjects.first is not None:
         patient = Patient(reference=subjects.first, birth_date=None, gender=None)
     issues = out.listed_issues(limits.max_issues)
-    return Intake(patient=patient, measurements=measurements, issues=issues)
+    intake = Intake(patient=patient, measurements=measurements, issues=issues)
+    intake.addresses = _addresses(entries, subjects)
+    return intake
+
+
+def _addresses(entries: list[_Entry], subjects: _Subjects) -> dict[str, dict[str, object]]:
+    """How the result points at each resource read and each subject named
+    (``service.fhir.addresses``); the first entry with a reference wins."""
+    found: dict[str, dict[str, object]] = {}
+    for entry in entries:
+        if entry.reference and entry.reference not in found:
+            where = f"entry {entry.index} of the input Bundle"
+            found[entry.reference] = addresses.of_entry(
+                entry.kind, entry.full_url, entry.resource, where
+            )
+    for reference, (holder, contained) in subjects.unresolved.items():
+        if reference in found:
+            continue
+        if contained is not None:
+            where = f"contained in entry {holder.index} of the input Bundle"
+            found[reference] = addresses.of_entry("Patient", None, contained, where)
+        else:
+            found[reference] = addresses.of_reference(reference, holder.full_url, "Patient")
+    return found
+
+
+def _contained_patient(
+    entries: list[_Entry], reference: str, subjects: _Subjects, out: Collector
+) -> Patient | None:
+    """The Patient a ``#id`` subject names, read from the contained resources of the first
+    Observation that holds it (FHIR: a contained resource is known only to its container)."""
+    for entry in entries:
+        if entry.kind != "Observation" or subjects.plain_reference(entry.resource) != reference:
+            continue
+        contained = entry.resource.get("contained")
+        if not isinstance(contained, list):
+            continue
+        for j, item in enumerate(contained):
+            if (
+                isinstance(item, dict)
+                and item.get("resourceType") == "Patient"
+                and item.get("id") == reference[1:]
+            ):
+                at = f"{entry.at}.contained[{j}]"
+                subjects.unresolved[reference] = (entry, item)
+                inner = _Entry(entry.index, item, "Patient", None, reference, at)
+                return _read_patient(inner, out)
+    return None
 
 
 def _within_limits(bundle: JsonObject, limit: int) -> None:
@@ -248,6 +297,9 @@ class _Subjects:
     def __init__(self, index: BundleIndex, out: Collector) -> None:
         self.index, self.out = index, out
         self.first: str | None = None  # the first subject reference seen, for Intake.patient
+        # Subject references that name no entry: the entry holding each (the first seen) and,
+        # for a ``#id`` reference, the contained Patient once found.
+        self.unresolved: dict[str, tuple[_Entry, JsonObject | None]] = {}
         self._key: object = None
         # Subject reference -> what it points at; a Bundle repeats one reference many times.
         self._keys: dict[str, object] = {}
@@ -278,6 +330,8 @@ class _Subjects:
         key = self._keys.get(reference)
         if key is None:
             key = self._keys[reference] = self._key_of(reference)
+            if isinstance(key, tuple) and key[0] == "reference":
+                self.unresolved.setdefault(reference, (entry, None))
         if key is _NOT_READ:
             return
         if self.first is None:
@@ -319,6 +373,11 @@ def _patient(
     subjects.patient(entry)
     if previous is not None:
         return previous  # a second, different Patient was reported by _Subjects
+    return _read_patient(entry, out)
+
+
+def _read_patient(entry: _Entry, out: Collector) -> Patient:
+    """birthDate and gender of a Patient (never its name or identifiers)."""
     at = entry.at
     birth_date = None
     born = text(entry.resource, "birthDate", at, out)

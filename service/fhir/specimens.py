@@ -51,7 +51,7 @@ def _contained(
     for resource, path in objects(items, f"{at}.contained", out):
         if resource.get("id") == local_id:
             return resource, path
-    return {}, f"{at}.contained"
+    return {}, at
 
 
 def observation_specimen(
@@ -61,7 +61,7 @@ def observation_specimen(
     found = member_object(observation, "specimen", at, out)
     if found is None:
         reason = "the Observation names no specimen"
-        return SpecimenFinding(Specimen.UNKNOWN, reason, f"{at}.specimen")
+        return SpecimenFinding(Specimen.UNKNOWN, reason, at)
     ref_obj, ref_at = found
     ref_path = f"{ref_at}.reference"
     reference = text(ref_obj, "reference", ref_at, out)
@@ -79,5 +79,6 @@ def observation_specimen(
     specimen = specimen_type(target, target_at, out)
     if specimen is Specimen.UNKNOWN:
         reason = "the Specimen type has no arterial, venous or capillary blood code"
-        return SpecimenFinding(Specimen.UNKNOWN, reason, f"{target_at}.type")
+        where = f"{target_at}.type" if "type" in target else target_at
+        return SpecimenFinding(Specimen.UNKNOWN, reason, where)
     return SpecimenFinding(specimen, None, ref_path)

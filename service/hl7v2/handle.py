@@ -134,7 +134,8 @@ def _answer(
         return refusal(message, "AE", exc.errors, reply, now=now)
     assessment = runtime.assess_intake(intake, now=now)
     if reply == "fhir":
-        body = orjson.dumps(runtime.render(assessment, pressure_unit=unit))
+        bundle = runtime.render(assessment, pressure_unit=unit, addresses=intake.addresses)
+        body = orjson.dumps(bundle)
         return V2Response(200, FHIR_MEDIA_TYPE, body, "AA")
     if reply == "result":
         unit = unit or runtime.settings.pressure_unit

@@ -8,9 +8,10 @@ Layout (one order group, filled by us as the filler):
   OBR-4 our service code, OBR-7 the time of the index gas, OBR-25 ``F``; an order-level ``NTE``
   with the clinical caution;
 * one NM ``OBX`` per derived value of the index gas, in the result's order, coded with LOINC where
-  a term exists (A-a gradient 19991-9, P/F 50984-4, a/A 78354-8; 50984-4 is "Horowitz index in
-  Arterial blood", the other two from memory) and with our own code system otherwise; the A-a
-  gradient with its age limit (OBX-7) and flag (OBX-8 H or N); the equation in OBX-17;
+  a term exists (A-a gradient 19991-9 from memory, P/F 50984-4 "Horowitz index in Arterial
+  blood") and with our own code system otherwise (the a/A ratio among them: no LOINC term for it
+  could be confirmed); the A-a gradient with its age limit (OBX-7 ``<limit``, a range form
+  of the standard's) and flag (OBX-8 H or N); the equation in OBX-17;
 * the PaO2 deficit partition of the index gas (sub-id 3, or 3.1 and 3.2 when it is given for
   each residence at altitude, with an ``NTE`` naming the assumption): one NM ``OBX`` each for
   the expected PaO2, the fall and every part shown (positive lowers the PaO2), with the method
@@ -30,7 +31,7 @@ from datetime import UTC, datetime
 
 from service.assess.derive import Derived
 from service.assess.partition import ShownPartition, assessment_partitions
-from service.assess.presentation import QUANTITY_ORDER, PressureUnit, quantity
+from service.assess.presentation import QUANTITY_ORDER, PressureUnit, quantity, shown_quantity
 from service.assess.result import CAUTION, Assessment
 from service.config import Settings
 from service.hl7v2 import er7, tables
@@ -117,7 +118,7 @@ class _Writer:
 
 
 def _derived(w: _Writer, name: str, d: Derived, a: Assessment, unit: PressureUnit) -> None:
-    shown = quantity(name, d.value, d.unit, unit)
+    shown = shown_quantity(name, d, unit)
     loinc = OBSERVATION_CODES.get(name, (None, ""))[0]
     code = (
         er7.components(loinc, DISPLAYS[name], LOINC_V2)
@@ -131,7 +132,7 @@ def _derived(w: _Writer, name: str, d: Derived, a: Assessment, unit: PressureUni
     limit = a.index.derived.get("aa-gradient-upper-limit")
     if name == "aa-gradient" and limit is not None:
         bound = quantity("aa-gradient-upper-limit", limit.value, limit.unit, unit)
-        more["range"] = er7.escape(f"<={er7.number(bound['value'])}")
+        more["range"] = er7.escape(f"<{er7.number(bound['value'])}")
         more["flag"] = "H" if d.value > limit.value else "N"
     w.obx("NM", code, er7.number(shown["value"]), **more)
 

@@ -2,7 +2,7 @@
 
 ACK layout: HL7 v2.5.1 chapter 2 (MSH sender/receiver swapped, MSA-1 AA/AE/AR from table 0008,
 MSA-2 = MSH-10 of the message acknowledged, ERR-2 location, ERR-3 table 0357 code, ERR-4
-severity). Result codes: LOINC (A-a 19991-9 and a/A 78354-8 from memory; P/F 50984-4 "Horowitz index
+severity). Result codes: LOINC (A-a 19991-9 from memory; P/F 50984-4 "Horowitz index
 in Arterial blood").
 """
 
@@ -98,9 +98,11 @@ def test_the_result_carries_derived_values_grades_findings_and_the_caution(
     assert "not a diagnosis" in reply.unescape(str(reply.segment("NTE")[3]))
     by_code = {str(o[3][0][0]): o for o in reply.segments("OBX")}
     # LOINC terms for the derived values that have one, coding system LN (HL7 table 0396).
-    for loinc in ("19991-9", "50984-4", "78354-8"):
+    for loinc in ("19991-9", "50984-4"):
         assert str(by_code[loinc][3][0][2]) == "LN"
         assert str(by_code[loinc][2]) == "NM"
+    # No LOINC term for the a/A ratio could be confirmed: the project's code, never a guess.
+    assert str(by_code["a-a-ratio"][3][0][2]) == "99OXYDRV"
     aa = by_code["19991-9"]
     assert (str(aa[5]), str(aa[6][0][0]), str(aa[8])) == (f"{POST_OP_AA_MMHG:.1f}", "mm[Hg]", "N")
     assert str(by_code["alveolar-po2"][3][0][2]) == "99OXYDRV"
