@@ -40,7 +40,7 @@ def answer(
         data = json_body.loads(raw)
         return orjson.dumps(runtime.assess_bundle(data, pressure_unit=unit, limits=limits)), False
     except orjson.JSONDecodeError as exc:
-        problem = error("structure", f"{where}: not JSON ({exc.msg})", where)
+        problem = error("structure", f"{where}: not JSON ({exc.msg})", "")
         return orjson.dumps(operation_outcome([problem])), True
     except LocatedError as exc:
         problems = exc.problems

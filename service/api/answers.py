@@ -47,7 +47,7 @@ def answer_bundle(
     try:
         data = json_body.loads(raw)
     except orjson.JSONDecodeError as exc:
-        body = outcome("structure", f"the body is not JSON ({exc.msg})", "Bundle")
+        body = outcome("structure", f"the body is not JSON ({exc.msg})")
         return Answered(400, orjson.dumps(body), Tally(None, rejected_code="structure"))
     except BundleError as exc:
         return Answered(
@@ -74,7 +74,6 @@ def answer_line(
             "too-long",
             f"{where}: longer than the limit of {max_bytes} bytes per line "
             "(setting OXYRULE_MAX_BODY_BYTES)",
-            "Bundle",
         )
         return Answered(200, orjson.dumps(body), Tally(None, rejected_code="too-long"))
     text, _ = answer(runtime, line.data, where, unit, limits)

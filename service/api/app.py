@@ -58,13 +58,15 @@ async def _validation_error(_request: Request, exc: Exception) -> Response:
     for error in exc.errors():
         where, *path = (str(part) for part in error.get("loc", ()))
         name = ".".join(path) or where
-        prefix = "http." if where in ("query", "header", "path") else ""
+        # A query parameter, header or path part is an HTTP location (issue.location, FHIR's
+        # ``http.`` convention), not FHIRPath.
+        http = where in ("query", "header", "path")
         issues.append(
             {
                 "severity": "error",
                 "code": "invalid",
                 "diagnostics": f"{name}: {error.get('msg', 'invalid')}",
-                "expression": [prefix + name],
+                "location" if http else "expression": [("http." if http else "") + name],
             }
         )
     return outcome_response(400, {"resourceType": "OperationOutcome", "issue": issues})

@@ -195,6 +195,7 @@ def _within_limits(bundle: JsonObject, limit: int) -> None:
 
 
 def _bundle_object(data: object) -> JsonObject:
+    where = ""  # no FHIRPath names anything in a body that is not a resource
     if not isinstance(data, dict):
         found = f"JSON {json_type(data)}"
     elif data.get("resourceType") == "Bundle":
@@ -203,10 +204,11 @@ def _bundle_object(data: object) -> JsonObject:
         found = "an object without a FHIR resourceType"
     elif kind in codes.RESOURCE_TYPES:  # named only when FHIR defines it: never the sender's text
         found = f"a {kind} resource"
+        where = kind  # the resource sent, as FHIRPath
     else:
         found = "a resourceType FHIR R4B does not define"
     diagnostics = f"expected a FHIR Bundle resource (resourceType 'Bundle'), got {found}"
-    raise NotABundleError([error("structure", diagnostics, "Bundle")])
+    raise NotABundleError([error("structure", diagnostics, where)])
 
 
 def _entries(bundle: JsonObject, index: BundleIndex, out: Collector) -> list[_Entry]:

@@ -82,7 +82,9 @@ def _member(
     path = f"{at}.{key}"
     if key not in obj:
         if required:
-            out.problem("required", f"'{key}' is required here", path)
+            # Located at the element that lacks it: a path to the absent member would select
+            # nothing in the input (FHIRPath).
+            out.problem("required", f"'{key}' is required here", at)
         return None
     return obj[key], path
 

@@ -38,7 +38,7 @@ def _unit(
         return None
     if dimension is Dimension.PH:
         return "[pH]", f"{at}.code"  # pH has no unit; senders often leave it out
-    out.problem("required", "a unit is required: a UCUM code in valueQuantity.code", f"{at}.code")
+    out.problem("required", "a unit is required: a UCUM code in valueQuantity.code", at)
     return None
 
 

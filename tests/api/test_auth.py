@@ -87,7 +87,7 @@ def refused(response: httpx.Response, code: str, status: int = 401) -> str:
     assert response.headers["www-authenticate"].startswith('Bearer realm="oxyrule"')
     found = issue(response.json())
     assert found["code"] == code
-    assert found["expression"] == ["http.Authorization"]
+    assert found["location"] == ["http.Authorization"]
     diagnostics: str = found["diagnostics"]
     return diagnostics
 

@@ -140,7 +140,7 @@ async def _ndjson(
     lines = ndjson_lines(request.stream(), server.max_body_bytes, pace)
     first: Line | None = await anext(lines, None)
     if first is None:
-        raise ApiError(400, outcome("required", "the NDJSON body has no lines", "Bundle"))
+        raise ApiError(400, outcome("required", "the NDJSON body has no lines"))
     record.lines, record.rejected = 0, 0
 
     def on_line(result: Tally) -> None:
