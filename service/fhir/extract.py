@@ -359,14 +359,40 @@ class _Subjects:
     def _key_of(self, reference: str) -> object:
         """The patient a subject reference names, or ``_NOT_READ`` for another subject."""
         target = self.index.resolve(reference)
+        if target is None and "?" in reference:
+            target = self._conditional_target(reference)
         if target is not None:
             if self.index.resources[target].get("resourceType") != "Patient":
                 return _NOT_READ  # a Group, Device or Location subject says nothing about it
             return ("entry", target)
+        if "?" in reference and not reference.startswith("Patient?"):
+            return _NOT_READ
         typed = type_and_id(reference)
         if typed is not None and not typed.startswith("Patient/"):
             return _NOT_READ
         return ("reference", typed or reference)
+
+
+    def _conditional_target(self, reference: str) -> int | None:
+        """The entry a conditional reference (``Patient?identifier=system|value``, legal in a
+        transaction) names: the Patient of the Bundle with that identifier, as a server would
+        resolve it when processing the transaction; None when no entry has it."""
+        named = addresses.of_reference(reference, None)
+        identifier = named.get("identifier")
+        if named.get("type") != "Patient" or not isinstance(identifier, dict):
+            return None
+        for entry, resource in self.index.resources.items():
+            if resource.get("resourceType") != "Patient":
+                continue
+            identifiers = resource.get("identifier")
+            for item in identifiers if isinstance(identifiers, list) else ():
+                if (
+                    isinstance(item, dict)
+                    and item.get("value") == identifier.get("value")
+                    and item.get("system") == identifier.get("system")
+                ):
+                    return entry
+        return None
 
 
 def _patient(
