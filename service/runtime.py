@@ -22,6 +22,7 @@ from service.config import Settings
 from service.engine import RuleSet, load_ruleset
 from service.fhir.concept_map import read_concept_map
 from service.fhir.extract import read_bundle
+from service.fhir.operation import rebased_error, rebased_intake
 from service.fhir.outcome import BundleError
 from service.fhir.render import render_bundle
 from service.intake.limits import DEFAULT_READ_LIMITS, ReadLimits
@@ -139,13 +140,18 @@ class Runtime:
         now: datetime | None = None,
         decision_id: str | None = None,
         limits: ReadLimits = DEFAULT_READ_LIMITS,
+        root: str = "Bundle",
     ) -> dict[str, Any]:
-        """A parsed FHIR Bundle in, the result Bundle out.
+        """A parsed FHIR Bundle in, the result Bundle out; ``root`` is the FHIRPath of the
+        Bundle in what was sent (a Parameters body's ``resource``), for every location.
 
         Raises:
             BundleError: the input cannot be assessed; its ``operation_outcome()`` says where
                 (``TooLargeError``: over ``limits``).
         """
-        intake = self.read(data, limits=limits)
+        try:
+            intake = rebased_intake(self.read(data, limits=limits), root)
+        except BundleError as exc:
+            raise rebased_error(exc, root) from None
         assessment = self.assess_intake(intake, now=now, decision_id=decision_id)
         return self.render(assessment, pressure_unit=pressure_unit, addresses=intake.addresses)

@@ -14,7 +14,11 @@ from typing import Any
 
 from fastapi import FastAPI, Request, Response
 from fastapi.exceptions import RequestValidationError
+from fastapi.openapi.docs import get_swagger_ui_html
+from fastapi.responses import HTMLResponse
 from starlette.exceptions import HTTPException
+from starlette.staticfiles import StaticFiles
+from swagger_ui_bundle import swagger_ui_path
 
 from service import __version__
 from service.api.auth import Authenticator
@@ -103,6 +107,28 @@ def _openapi(app: FastAPI) -> dict[str, Any]:
     return app.openapi_schema
 
 
+DOCS_ASSETS = "/docs/assets"
+
+
+def _serve_docs(app: FastAPI) -> None:
+    """``GET /docs``: Swagger UI with its script, styles and icon served from the
+    swagger-ui-bundle-v2 package (FastAPI's documented self-hosting of the docs' static
+    files), so the page works in a network with no way out and pulls nothing from elsewhere."""
+    app.mount(DOCS_ASSETS, StaticFiles(directory=swagger_ui_path), name="docs-assets")
+
+    @app.get("/docs", include_in_schema=False)
+    async def docs() -> HTMLResponse:
+        return get_swagger_ui_html(
+            openapi_url="/openapi.json",
+            title="oxyrule: API",
+            swagger_js_url=f"{DOCS_ASSETS}/swagger-ui-bundle.js",
+            swagger_css_url=f"{DOCS_ASSETS}/swagger-ui.css",
+            swagger_favicon_url=f"{DOCS_ASSETS}/favicon-32x32.png",
+            # No validator badge: Swagger UI would ask an outside validator about the document.
+            swagger_ui_parameters={"validatorUrl": None},
+        )
+
+
 def mllp_limits(server: ServerSettings, message: V2Limits) -> MllpLimits:
     """The MLLP listener's budgets from the settings."""
     return MllpLimits(
@@ -179,7 +205,7 @@ def create_app(
         version=__version__,
         description=DESCRIPTION,
         lifespan=lifespan,
-        docs_url="/docs",
+        docs_url=None,  # served below, with the page's assets from the package
         redoc_url=None,
         # /healthz/ is not /healthz: a 404 saying so, not an empty 307 to follow.
         redirect_slashes=False,
@@ -187,6 +213,7 @@ def create_app(
     )
     app.state.service = service
     app.openapi = lambda: _openapi(app)  # type: ignore[method-assign]
+    _serve_docs(app)
     app.include_router(assess.router)
     app.include_router(conformance.router)
     app.include_router(hl7v2.router)

@@ -372,7 +372,6 @@ class _Subjects:
             return _NOT_READ
         return ("reference", typed or reference)
 
-
     def _conditional_target(self, reference: str) -> int | None:
         """The entry a conditional reference (``Patient?identifier=system|value``, legal in a
         transaction) names: the Patient of the Bundle with that identifier, as a server would

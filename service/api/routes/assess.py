@@ -17,7 +17,7 @@ from service.api.deps import (
     service_of,
 )
 from service.api.errors import FHIR_JSON, ApiError, outcome
-from service.api.media import BodyKind, answer_type, body_kind
+from service.api.media import BodyKind, body_kind, negotiate
 from service.api.middleware import ASSESS_PATH
 from service.api.ndjson import NdjsonAnswer
 from service.api.sending import PacedResponse
@@ -54,7 +54,8 @@ OPENAPI: dict[str, Any] = {
     "security": [{}, {"bearer": []}],
     "requestBody": {
         "required": True,
-        "description": "One FHIR R4/R4B Bundle, or NDJSON with one Bundle per line.",
+        "description": "One FHIR R4 Bundle, or a Parameters resource holding it (`resource`, "
+        "and `units` as a valueCode), or NDJSON with one of those per line.",
         "content": {
             "application/fhir+json": {"schema": {"type": "object"}},
             "application/json": {"schema": {"type": "object"}},
@@ -101,9 +102,9 @@ async def assess_hypoxaemia(request: Request) -> Response:
     caller_of(request)  # 401/403 before anything is read
     units = pressure_unit(request.query_params.get("units"))
     kind = body_kind(request.headers.get("content-type"))
-    media_type = answer_type(
+    media_type = negotiate(
         kind, request.query_params.get("_format"), request.headers.get("accept")
-    )
+    ).content_type
     if kind is BodyKind.NDJSON:
         return await _ndjson(request, service, record, units, media_type)
     server = service.server
