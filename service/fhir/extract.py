@@ -42,6 +42,7 @@ from service.fhir.shape import (
     member_list,
     member_number,
     member_object,
+    refuse_modifiers,
 )
 from service.fhir.shape import member_str as text
 from service.intake.limits import DEFAULT_READ_LIMITS, ReadLimits
@@ -85,6 +86,7 @@ def read_bundle(
     _within_limits(bundle, limits.max_entries)
     out = Collector()
     # Bundle.type is 1..1 in FHIR: a Bundle without one is refused, not guessed at.
+    refuse_modifiers(bundle, "Bundle", out, resource=True)
     kind = text(bundle, "type", "Bundle", out, required=True)
     if kind is not None and kind not in codes.BUNDLE_TYPES:
         out.problem("code-invalid", "not an R4 Bundle type", "Bundle.type")
@@ -216,10 +218,15 @@ def _entries(bundle: JsonObject, index: BundleIndex, out: Collector) -> list[_En
     items = member_list(bundle, "entry", "Bundle", out) or []
     found: list[_Entry] = []
     for i, item in enumerate(items):
+        if type(item) is dict and "modifierExtension" in item:
+            refuse_modifiers(item, f"Bundle.entry[{i}]", out)
+            continue
         entry = _plain_entry(i, item, index)
         if entry is None:
             entry = _entry(i, item, index, out)
         if entry is not None:
+            if entry.kind in ("Patient", "Location", "Specimen"):
+                refuse_modifiers(entry.resource, entry.at, out, resource=True)
             found.append(entry)
     return found
 
@@ -431,7 +438,7 @@ def _read_patient(entry: _Entry, out: Collector) -> Patient:
 def _altitude(entry: _Entry, out: Collector) -> list[Measurement]:
     """``Location.position.altitude`` (metres, per R4) as an ALTITUDE measurement."""
     position = member_object(entry.resource, "position", entry.at, out)
-    if position is None:
+    if position is None or refuse_modifiers(position[0], position[1], out):
         return []
     altitude = member_number(position[0], "altitude", position[1], out)
     if altitude is None:

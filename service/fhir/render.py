@@ -54,6 +54,7 @@ PROCESSING_ISSUE_TYPE = {
     "field-ignored": "not-supported",
     "observation-ignored": "not-supported",
     "unit-converted": "value",
+    "unit-not-ucum": "value",
     "time-imprecise": "value",
     "value-outside-window": "informational",
 }

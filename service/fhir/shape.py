@@ -176,3 +176,27 @@ def str_items(obj: JsonObject, key: str, at: str, out: Collector) -> list[str]:
         else:
             _wrong_type(out, "a string", item, f"{at}.{key}[{i}]")
     return found
+
+
+MODIFIER_MESSAGE = (
+    "a modifier extension the service does not understand changes what this element means "
+    "(FHIR: it must not be read as if absent); the Bundle is not assessed"
+)
+IMPLICIT_RULES_MESSAGE = (
+    "implicitRules: the resource was written under rules the service does not know (FHIR: it "
+    "must not be read as if absent); the Bundle is not assessed"
+)
+
+
+def refuse_modifiers(obj: JsonObject, at: str, out: Collector, *, resource: bool = False) -> bool:
+    """Record a problem for each ``modifierExtension`` (and, on a resource, ``implicitRules``)
+    of ``obj``: the service understands none, so what holds one cannot be used. True when
+    there was one."""
+    found = False
+    if "modifierExtension" in obj:
+        out.problem("not-supported", MODIFIER_MESSAGE, f"{at}.modifierExtension")
+        found = True
+    if resource and "implicitRules" in obj:
+        out.problem("not-supported", IMPLICIT_RULES_MESSAGE, f"{at}.implicitRules")
+        found = True
+    return found

@@ -12,7 +12,14 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 from service.fhir.references import BundleIndex
-from service.fhir.shape import Collector, JsonObject, member_list, member_object, objects
+from service.fhir.shape import (
+    Collector,
+    JsonObject,
+    member_list,
+    member_object,
+    objects,
+    refuse_modifiers,
+)
 from service.fhir.shape import member_str as text
 from service.intake.model import Specimen
 from service.terminology import codes
@@ -69,6 +76,8 @@ def observation_specimen(
         return SpecimenFinding(Specimen.UNKNOWN, "the specimen reference is empty", ref_path)
     if reference.startswith("#"):
         target, target_at = _contained(observation, at, reference[1:], out)
+        if target:
+            refuse_modifiers(target, target_at, out, resource=True)
     else:
         entry = index.resolve(reference)
         target = {} if entry is None else index.resources[entry]

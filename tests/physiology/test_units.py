@@ -116,3 +116,15 @@ def test_normalise_fio2_is_idempotent_on_its_own_output(fraction: float, unit: s
     sent = fraction * 100.0 if unit == "%" else fraction
     first = u.normalise_fio2(sent, unit)
     assert u.normalise_fio2(first.fraction, "1").fraction == pytest.approx(first.fraction)
+
+
+def test_the_units_read_as_ucum_are_ucum_and_the_others_are_named() -> None:
+    # ucumvert (a UCUM grammar from the registry) parses every code read as UCUM; the
+    # spellings read with a warning are not UCUM, but "pH", which UCUM reads as picohenry
+    # (p = pico, H = henry; UCUM 1.9 tables), so it is not [pH] either.
+    from service.physiology.units import KNOWN_UNITS, NOT_UCUM
+    from tests.conformance.validators import is_ucum
+
+    assert [u for u in KNOWN_UNITS - set(NOT_UCUM) if not is_ucum(u)] == []
+    assert [u for u in NOT_UCUM if is_ucum(u)] == ["pH"]
+    assert all(is_ucum(meant) for meant in NOT_UCUM.values())
