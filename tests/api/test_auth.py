@@ -201,12 +201,13 @@ def test_a_required_scope_is_enforced_with_403(serve: Serve) -> None:
 
 V2_MESSAGE = (ROOT / "fixtures" / "hl7v2" / "post-operative-drowsiness.hl7").read_bytes()
 # Every route of the app: (method, path, body headers, body, whether it needs credentials).
-# Only liveness, readiness and the CapabilityStatement are public: FHIR and SMART clients read
-# the CapabilityStatement to learn how to authenticate before they hold a token.
+# Only liveness, readiness, the CapabilityStatement and $versions are public: FHIR and SMART
+# clients read them to learn how to talk and authenticate before they hold a token.
 ROUTES: list[tuple[str, str, dict[str, str], bytes, bool]] = [
     ("GET", "/healthz", {}, b"", False),
     ("GET", "/readyz", {}, b"", False),
     ("GET", "/fhir/metadata", {}, b"", False),
+    ("GET", "/fhir/$versions", {}, b"", False),
     ("GET", "/fhir/OperationDefinition/assess-hypoxaemia", {}, b"", True),
     ("GET", "/metrics", {}, b"", True),
     ("GET", "/docs", {}, b"", True),

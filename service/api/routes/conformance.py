@@ -28,7 +28,7 @@ def _answer(request: Request, format_: str | None) -> Answer:
     return negotiate(BodyKind.BUNDLE, format_, request.headers.get("accept"))
 
 
-@router.api_route("/metadata", methods=["GET", "HEAD"])
+@router.get("/metadata")
 async def capability_statement(
     request: Request, service: ServiceDep, format_: FormatDep = None
 ) -> Response:
@@ -43,7 +43,7 @@ async def capability_statement(
     return _fhir(statement, answer)
 
 
-@router.api_route("/$versions", methods=["GET", "HEAD"])
+@router.get("/$versions")
 async def versions(request: Request, format_: FormatDep = None) -> Response:
     """The FHIR versions the service speaks (R4 and R4B) and its default (R4)."""
     answer = _answer(request, format_)
@@ -57,9 +57,18 @@ async def versions(request: Request, format_: FormatDep = None) -> Response:
     return _fhir(parameters, answer)
 
 
-@router.api_route("/OperationDefinition/assess-hypoxaemia", methods=["GET", "HEAD"])
+@router.get("/OperationDefinition/assess-hypoxaemia")
 async def operation_definition(
     request: Request, service: ServiceDep, format_: FormatDep = None
 ) -> Response:
     """The OperationDefinition of `$assess-hypoxaemia`: its parameters and what it returns."""
     return _fhir(service.conformance["OperationDefinition"], _answer(request, format_))
+
+
+# HEAD: the same handlers, left out of the OpenAPI document (one operation per GET there).
+for _path, _handler in (
+    ("/metadata", capability_statement),
+    ("/$versions", versions),
+    ("/OperationDefinition/assess-hypoxaemia", operation_definition),
+):
+    router.add_api_route(_path, _handler, methods=["HEAD"], include_in_schema=False)
