@@ -22,7 +22,7 @@ from service.fhir import json_body
 from service.fhir.operation import OperationInput, operation_input
 from service.fhir.outcome import BundleError, NotABundleError, TooLargeError, error
 from service.hl7v2.handle import Reply, V2Response, handle_v2
-from service.hl7v2.message import V2Limits
+from service.hl7v2.message import V2Limits, v2_text
 from service.intake.limits import ReadLimits
 from service.runtime import Runtime
 
@@ -111,6 +111,7 @@ def answer_v2(
     unit: PressureUnit | None,
     limits: V2Limits,
 ) -> V2Response:
-    """One HL7 v2 message (bytes as sent: decoded here, invalid UTF-8 replaced)."""
-    text = raw.decode("utf-8", errors="replace")
+    """One HL7 v2 message (bytes as sent: decoded here in the character set MSH-18 names,
+    UTF-8 otherwise, bytes that do not decode replaced), as the CLI and MLLP decode it."""
+    text = v2_text(bytes(raw)) or raw.decode("utf-8", errors="replace")
     return handle_v2(text, runtime, reply=reply, pressure_unit=unit, limits=limits)

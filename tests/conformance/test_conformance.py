@@ -75,3 +75,23 @@ def test_the_validators_bite() -> None:
     assert v.hl7_strict_errors("MSH|^~\\&|A|B|C|D|20260101||ACK^R01^ACK|1|P|2.5.1\rMSA|AA\r")
     assert v.non_ucum_units({"valueQuantity": {"system": v.UCUM, "code": "mmHg"}})
     assert not v.non_ucum_units({"valueQuantity": {"system": v.UCUM, "code": "mm[Hg]"}})
+
+
+def test_the_hl7apy_workarounds_are_needed_and_still_check_the_order() -> None:
+    """hl7apy 1.3.5 refuses a minimal, standard v2.8 ORU^R01 with two results in an order (its
+    group finder files the second OBX under COMMON_ORDER): so v2.8 ORU_R01 is parsed segment
+    by segment, strictly, and its segment order matched against hl7apy's own structure table.
+    A wrong order is still refused."""
+    from hl7apy.consts import VALIDATION_LEVEL
+    from hl7apy.parser import parse_message
+
+    from tests.conformance import validators as v
+
+    head = "MSH|^~\\&|A|B|C|D|20260105101500||ORU^R01^ORU_R01|1|T|2.8\rPID|1||X^^^Y^MR||DOE^J\r"
+    body = "OBR|1|A|B|C^D^99X\rOBX|1|NM|a^b^99X|1|1|1^1^UCUM|||||F\r"
+    standard = head + body + "OBX|2|NM|c^b^99X|1|1|1^1^UCUM|||||F\r"
+    with pytest.raises(Exception, match="ORDER_DOCUMENT"):
+        parse_message(standard, validation_level=VALIDATION_LEVEL.STRICT, find_groups=True)
+    assert v.hl7_strict_errors(standard) == []
+    out_of_order = head + "OBX|1|NM|a^b^99X|1|1|1^1^UCUM|||||F\rOBR|1|A|B|C^D^99X\r"
+    assert v.hl7_strict_errors(out_of_order)
