@@ -154,9 +154,11 @@ ANSWERS: dict[tuple[str, str], dict[str, Schema]] = {
     },
     ("post", V2_PATH): {
         "200": {
-            "description": "ACK with MSA-1 AA (or the FHIR result / ORU^R01 result on request)",
+            "description": "ACK with MSA-1 AA (or the FHIR result / ORU^R01 result on request); "
+            "in enhanced mode the commit ACK CA when only that is asked for",
             "content": V2_ANSWER,
         },
+        "204": {"description": "Enhanced mode (MSH-15/MSH-16) asked for no acknowledgment here"},
         "400": {
             "description": "ACK with MSA-1 AR (or an OperationOutcome): unsupported type, "
             "version or processing id, not a message; or a bad parameter",

@@ -91,12 +91,13 @@ def _count(service: ServiceState, result: Tally) -> None:
 async def assess_hypoxaemia(request: Request) -> Response:
     """Assess the likely mechanism of hypoxaemia of one Bundle (or of each NDJSON line).
 
-    Send the Bundle as the body (`application/fhir+json`). The answer is the result Bundle:
-    GuidanceResponse, Parameters with the verdict, OperationOutcome with findings and the
-    clinical caution, derived Observations. With `application/fhir+ndjson` each line is one
-    Bundle and the answer streams one line per input line, in order; a line that cannot be
-    assessed is answered by an OperationOutcome naming it. Decision support for qualified
-    clinicians, not a diagnosis.
+    Send the Bundle as the body (`application/fhir+json`), or a Parameters resource holding it
+    (`resource`, and `units` as a valueCode). The answer is the result Bundle: GuidanceResponse,
+    Parameters with the verdict and every finding, OperationOutcome with how the input was
+    processed and the clinical caution, a DetectedIssue per data-quality problem, derived
+    Observations. With `application/fhir+ndjson` each line is one Bundle and the answer streams
+    one line per input line, in order; a line that cannot be assessed is answered by an
+    OperationOutcome naming it. Decision support for qualified clinicians, not a diagnosis.
     """
     service, record = service_of(request), record_of(request)
     caller_of(request)  # 401/403 before anything is read
