@@ -97,3 +97,24 @@ def test_the_hl7apy_workarounds_are_needed_and_still_check_the_order() -> None:
     msh, pid = head.split("\r")[:2]
     out_of_order = f"{msh}\r{body}{pid}\r"
     assert v.hl7_strict_errors(out_of_order)
+
+
+def test_the_ehr_shaped_fixtures_are_valid_r4_inputs_of_invented_data() -> None:
+    """The inputs as EHRs send them are themselves valid FHIR R4 (so the service is tested on
+    what a conformant sender sends) and every resource is tagged as test data (HTEST)."""
+    import json
+
+    from tests.conformance import validators as v
+    from tests.conformance.corpus import FIXTURES
+
+    paths = sorted((FIXTURES / "ehr").glob("*.bundle.json"))
+    kinds = set()
+    for path in paths:
+        bundle = json.loads(path.read_bytes())
+        kinds.add(bundle["type"])
+        assert v.schema_errors(bundle) == [], path.name
+        for entry in bundle["entry"]:
+            if "resource" in entry:
+                tags = entry["resource"]["meta"]["tag"]
+                assert any(t["code"] == "HTEST" for t in tags), path.name
+    assert {"searchset", "transaction", "batch", "document", "message", "collection"} <= kinds
