@@ -20,6 +20,7 @@ import orjson
 from service.assess.presentation import PressureUnit
 from service.config import Settings
 from service.fhir import json_body
+from service.fhir.operation import operation_input
 from service.fhir.outcome import LocatedError, error, operation_outcome
 from service.intake.limits import DEFAULT_READ_LIMITS, ReadLimits
 from service.runtime import Runtime
@@ -37,16 +38,27 @@ def answer(
 ) -> tuple[bytes, bool]:
     """The output for one input (JSON bytes) and whether the input was rejected."""
     try:
-        data = json_body.loads(raw)
-        return orjson.dumps(runtime.assess_bundle(data, pressure_unit=unit, limits=limits)), False
+        sent = operation_input(json_body.loads(raw))
+        result = runtime.assess_bundle(
+            sent.bundle,
+            pressure_unit=_unit(sent.units) or unit,
+            limits=limits,
+            root=sent.root,
+        )
+        return orjson.dumps(result), False
     except orjson.JSONDecodeError as exc:
-        problem = error("structure", f"{where}: not JSON ({exc.msg})", where)
+        problem = error("structure", f"{where}: not JSON ({exc.msg})", "")
         return orjson.dumps(operation_outcome([problem])), True
     except LocatedError as exc:
         problems = exc.problems
         if where.startswith("line"):  # NDJSON: every issue names its line
             problems = tuple(replace(p, diagnostics=f"{where}: {p.diagnostics}") for p in problems)
         return orjson.dumps(operation_outcome(problems)), True
+
+
+def _unit(code: str | None) -> PressureUnit | None:
+    """A Parameters body's ``units`` when it is a unit offered (the CLI's --units otherwise)."""
+    return "kPa" if code == "kPa" else "mm[Hg]" if code == "mm[Hg]" else None
 
 
 def _init_worker(settings: Settings, unit: PressureUnit | None) -> None:

@@ -86,7 +86,9 @@ def _assess(args: argparse.Namespace) -> int:
 
             raw, runtime = stream.read(), Runtime.load(settings)
             # An HL7 v2 message (MSH first, or MLLP-framed) is told from a Bundle by content.
-            text, rejected = answer_v2(runtime, raw, unit) or answer(runtime, raw, "Bundle", unit)
+            text, rejected = answer_v2(runtime, raw, unit) or answer(
+                runtime, raw, "the input", unit
+            )
             out.write(text + b"\n")
             if rejected:  # said on stderr too: stdout may be going to a file
                 sys.stderr.write(

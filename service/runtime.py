@@ -6,6 +6,7 @@ only I/O; assessing is pure apart from the clock and the decision id.
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from dataclasses import dataclass
 from datetime import datetime
 from pathlib import Path
@@ -21,6 +22,7 @@ from service.config import Settings
 from service.engine import RuleSet, load_ruleset
 from service.fhir.concept_map import read_concept_map
 from service.fhir.extract import read_bundle
+from service.fhir.operation import rebased_error, rebased_intake
 from service.fhir.outcome import BundleError
 from service.fhir.render import render_bundle
 from service.intake.limits import DEFAULT_READ_LIMITS, ReadLimits
@@ -120,9 +122,14 @@ class Runtime:
         )
 
     def render(
-        self, assessment: Assessment, *, pressure_unit: PressureUnit | None = None
+        self,
+        assessment: Assessment,
+        *,
+        pressure_unit: PressureUnit | None = None,
+        addresses: Mapping[str, dict[str, object]] | None = None,
     ) -> dict[str, Any]:
-        """The result Bundle for an assessment (README, What it answers)."""
+        """The result Bundle for an assessment (README, What it answers); ``addresses`` are
+        the input's (``Intake.addresses``), for the references to what was sent."""
         codes = list(
             dict.fromkeys(
                 c for f in assessment.data_requested if (c := code_for_fact(f)) is not None
@@ -135,6 +142,7 @@ class Runtime:
             pressure_unit=pressure_unit or self.settings.pressure_unit,
             settings_hash=self.settings_hash,
             site=self.site,
+            addresses=addresses,
         )
 
     def assess_bundle(
@@ -145,15 +153,20 @@ class Runtime:
         now: datetime | None = None,
         decision_id: str | None = None,
         limits: ReadLimits = DEFAULT_READ_LIMITS,
+        root: str = "Bundle",
     ) -> dict[str, Any]:
-        """A parsed FHIR Bundle in, the result Bundle out.
+        """A parsed FHIR Bundle in, the result Bundle out; ``root`` is the FHIRPath of the
+        Bundle in what was sent (a Parameters body's ``resource``), for every location.
 
         Raises:
             BundleError: the input cannot be assessed; its ``operation_outcome()`` says where
                 (``TooLargeError``: over ``limits``).
         """
-        intake = self.read(data, limits=limits)
+        try:
+            intake = rebased_intake(self.read(data, limits=limits), root)
+        except BundleError as exc:
+            raise rebased_error(exc, root) from None
         assessment = self.assess_intake(
             intake, now=now, decision_id=decision_id, pressure_unit=pressure_unit
         )
-        return self.render(assessment, pressure_unit=pressure_unit)
+        return self.render(assessment, pressure_unit=pressure_unit, addresses=intake.addresses)

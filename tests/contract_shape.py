@@ -50,7 +50,9 @@ DEFICIT_NOT_PRESSURES = {
 UNITS = {
     "fio2": {"1"},
     "a-a-ratio": {"1"},
-    "sf-ratio": {"1"},
+    # SpO2 in % over FiO2 as a fraction: the number (e.g. 405) is in UCUM %, not 1 (UCUM
+    # `1` would make it 405, not 4.05).
+    "sf-ratio": {"%"},
     "arterial-o2-content": {"mL/dL"},
     "shunt-fraction": {"%"},
     "venous-admixture": {"%"},

@@ -29,7 +29,7 @@ def test_results_are_byte_identical_for_the_same_id_and_clock() -> None:
 def test_results_differ_only_in_decision_id_and_timestamps() -> None:
     runtime = Runtime.load()
     uuid = re.compile(rb"urn:uuid:[0-9a-f-]{36}")
-    stamp = re.compile(rb'"(timestamp|occurrenceDateTime)":"[^"]+"')
+    stamp = re.compile(rb'"(timestamp|occurrenceDateTime|identifiedDateTime)":"[^"]+"')
     for path in BUNDLES:
         data = orjson.loads(path.read_bytes())
         a, b = (orjson.dumps(runtime.assess_bundle(data)) for _ in range(2))

@@ -131,8 +131,10 @@ def _not_computed(deficit: dict[str, object]) -> bool:
 def _reference(deficit: dict[str, object]) -> object:
     parts = deficit["part"]
     assert isinstance(parts, list)
+    # A literal or a logical reference (service.fhir.addresses), as a comparable key.
     return next(
-        (p["valueReference"]["reference"] for p in parts if p["name"] == "observation"), None
+        (repr(sorted(p["valueReference"].items())) for p in parts if p["name"] == "observation"),
+        None,
     )
 
 

@@ -14,7 +14,11 @@ from typing import Any
 
 from fastapi import FastAPI, Request, Response
 from fastapi.exceptions import RequestValidationError
+from fastapi.openapi.docs import get_swagger_ui_html
+from fastapi.responses import HTMLResponse
 from starlette.exceptions import HTTPException
+from starlette.staticfiles import StaticFiles
+from swagger_ui_bundle import swagger_ui_path
 
 from service import __version__
 from service.api.auth import Authenticator
@@ -58,13 +62,15 @@ async def _validation_error(_request: Request, exc: Exception) -> Response:
     for error in exc.errors():
         where, *path = (str(part) for part in error.get("loc", ()))
         name = ".".join(path) or where
-        prefix = "http." if where in ("query", "header", "path") else ""
+        # A query parameter, header or path part is an HTTP location (issue.location, FHIR's
+        # ``http.`` convention), not FHIRPath.
+        http = where in ("query", "header", "path")
         issues.append(
             {
                 "severity": "error",
                 "code": "invalid",
                 "diagnostics": f"{name}: {error.get('msg', 'invalid')}",
-                "expression": [prefix + name],
+                "location" if http else "expression": [("http." if http else "") + name],
             }
         )
     return outcome_response(400, {"resourceType": "OperationOutcome", "issue": issues})
@@ -99,6 +105,28 @@ def _openapi(app: FastAPI) -> dict[str, Any]:
         }
         app.openapi_schema = schema
     return app.openapi_schema
+
+
+DOCS_ASSETS = "/docs/assets"
+
+
+def _serve_docs(app: FastAPI) -> None:
+    """``GET /docs``: Swagger UI with its script, styles and icon served from the
+    swagger-ui-bundle-v2 package (FastAPI's documented self-hosting of the docs' static
+    files), so the page works in a network with no way out and pulls nothing from elsewhere."""
+    app.mount(DOCS_ASSETS, StaticFiles(directory=swagger_ui_path), name="docs-assets")
+
+    @app.get("/docs", include_in_schema=False)
+    async def docs() -> HTMLResponse:
+        return get_swagger_ui_html(
+            openapi_url="/openapi.json",
+            title="oxyrule: API",
+            swagger_js_url=f"{DOCS_ASSETS}/swagger-ui-bundle.js",
+            swagger_css_url=f"{DOCS_ASSETS}/swagger-ui.css",
+            swagger_favicon_url=f"{DOCS_ASSETS}/favicon-32x32.png",
+            # No validator badge: Swagger UI would ask an outside validator about the document.
+            swagger_ui_parameters={"validatorUrl": None},
+        )
 
 
 def mllp_limits(server: ServerSettings, message: V2Limits) -> MllpLimits:
@@ -177,7 +205,7 @@ def create_app(
         version=__version__,
         description=DESCRIPTION,
         lifespan=lifespan,
-        docs_url="/docs",
+        docs_url=None,  # served below, with the page's assets from the package
         redoc_url=None,
         # /healthz/ is not /healthz: a 404 saying so, not an empty 307 to follow.
         redirect_slashes=False,
@@ -185,6 +213,7 @@ def create_app(
     )
     app.state.service = service
     app.openapi = lambda: _openapi(app)  # type: ignore[method-assign]
+    _serve_docs(app)
     app.include_router(assess.router)
     app.include_router(conformance.router)
     app.include_router(hl7v2.router)

@@ -54,7 +54,7 @@ def busy(budget: ByteBudget) -> ApiError:
     )
 
 
-def too_slow(timeout_s: float, what: str = "the body", expression: str = "Bundle") -> ApiError:
+def too_slow(timeout_s: float, what: str = "the body", expression: str = "") -> ApiError:
     """The 408 refusal of a body that did not arrive within the timeout."""
     return ApiError.issue(
         408,
@@ -83,7 +83,7 @@ def declared_length(request: Request) -> int | None:
 
 @asynccontextmanager
 async def bounded_body(
-    request: Request, limit: int, timeout_s: float, budget: ByteBudget, expression: str = "Bundle"
+    request: Request, limit: int, timeout_s: float, budget: ByteBudget, expression: str = ""
 ) -> AsyncIterator[bytearray]:
     """The whole body, held within ``budget`` until the ``with`` block ends.
 
@@ -155,7 +155,6 @@ class Pace:
             f"{self.grace_s:g} s at most and must arrive at {self.min_bytes_per_s:g} bytes/s on "
             f"average after its first {self.grace_s:g} s (settings OXYRULE_BODY_TIMEOUT_S, "
             "OXYRULE_BODY_MIN_BYTES_PER_S)",
-            "Bundle",
             headers={"Connection": "close"},
         )
 

@@ -15,7 +15,9 @@ from service.runtime import Runtime
 CANONICAL = "https://oxyrule.org/fhir"
 OPERATION = "assess-hypoxaemia"
 OPERATION_URL = f"{CANONICAL}/OperationDefinition/{OPERATION}"
-FHIR_VERSION = "4.3.0"  # R4B: what the result validates against; R4 input is read too
+FHIR_VERSION = "4.0.1"  # R4: what the service declares; its answers validate as R4B too
+# The fhirVersion MIME parameter's values the service speaks, with the release each names.
+FHIR_VERSIONS = {"4.0": "4.0.1", "4.3": "4.3.0"}
 FORMATS = [
     "json",
     "application/fhir+json",
@@ -40,9 +42,11 @@ def operation_definition() -> dict[str, Any]:
         "description": (
             "Reads one patient's recent blood gases, oximetry and oxygen settings (a FHIR "
             "Bundle of Observations), computes the gas-exchange physiology and grades five "
-            "mechanisms of hypoxaemia with the rule set's thresholds. The request body is the "
-            "Bundle itself; application/fhir+ndjson carries one Bundle per line and is answered "
-            "line by line, in order. " + CAUTION
+            "mechanisms of hypoxaemia with the rule set's thresholds. The request body is a "
+            "Parameters resource with the Bundle as the `resource` parameter (and `units` as "
+            "a valueCode), as FHIR operations take their input, or the Bundle itself; `units` "
+            "may also be a URL parameter. application/fhir+ndjson carries one Bundle (or one "
+            "such Parameters) per line and is answered line by line, in order. " + CAUTION
         ),
         "affectsState": False,
         "code": OPERATION,
@@ -56,7 +60,10 @@ def operation_definition() -> dict[str, Any]:
                 "min": 1,
                 "max": "1",
                 "type": "Bundle",
-                "documentation": "The input Bundle (any type), sent as the whole request body.",
+                "documentation": (
+                    "The input Bundle (any type): this parameter of a Parameters body, or the "
+                    "whole request body."
+                ),
             },
             {
                 "name": "units",
@@ -64,7 +71,10 @@ def operation_definition() -> dict[str, Any]:
                 "min": 0,
                 "max": "1",
                 "type": "code",
-                "documentation": "Pressure unit of the result: mm[Hg] (default) or kPa.",
+                "documentation": (
+                    "Pressure unit of the result: mm[Hg] (default) or kPa; a valueCode in a "
+                    "Parameters body, or the URL parameter units."
+                ),
             },
             {
                 "name": "return",
@@ -73,8 +83,11 @@ def operation_definition() -> dict[str, Any]:
                 "max": "1",
                 "type": "Bundle",
                 "documentation": (
-                    "A collection Bundle: GuidanceResponse, Parameters (the verdict), "
-                    "OperationOutcome (findings and the clinical caution), derived Observations."
+                    "A collection Bundle: GuidanceResponse, Parameters (the verdict and every "
+                    "finding), OperationOutcome (how the input was processed, and the clinical "
+                    "caution), a DetectedIssue per data-quality problem, derived Observations "
+                    "and the mechanism assessment. Returned as the body itself (one out "
+                    "parameter of type Bundle, FHIR R4 operations.html)."
                 ),
             },
         ],
@@ -95,17 +108,25 @@ def capability_statement(runtime: Runtime, auth_methods: list[str]) -> dict[str,
         ],
     }
     if auth_methods:
-        rest["security"] = {
-            "service": [
+        # restful-security-service has a code for OAuth (a JWT bearer token checked against
+        # the issuer's keys is one) but none for a static API key: that one is named in text.
+        services: list[dict[str, Any]] = []
+        if "jwt" in auth_methods:
+            services.append(
                 {
                     "coding": [
                         {
                             "system": "http://terminology.hl7.org/CodeSystem/restful-security-service",
                             "code": "OAuth",
                         }
-                    ]
+                    ],
+                    "text": "Bearer JWT checked against the issuer's JWK Set",
                 }
-            ],
+            )
+        if "api-key" in auth_methods:
+            services.append({"text": "Bearer static API key (no standard code exists)"})
+        rest["security"] = {
+            "service": services,
             "description": "Bearer token required for the operation: "
             + " or ".join(
                 {"api-key": "a static API key", "jwt": "a signed JWT"}[m] for m in auth_methods
@@ -126,8 +147,17 @@ def capability_statement(runtime: Runtime, auth_methods: list[str]) -> dict[str,
         "description": "Stateless decision support for blood-gas data. " + CAUTION,
         "kind": "instance",
         "software": {"name": "oxyrule", "version": __version__},
-        "implementation": {"description": "oxyrule rule service"},
+        "implementation": {"description": "oxyrule rule service"},  # url: with_installation
         "fhirVersion": FHIR_VERSION,
         "format": FORMATS,
         "rest": [rest],
     }
+
+
+def with_installation(
+    statement: dict[str, Any], base_url: str, fhir_version: str
+) -> dict[str, Any]:
+    """The CapabilityStatement of this installation: ``implementation.url`` its FHIR base
+    (``base_url`` is the service's public URL), ``fhirVersion`` the release asked for."""
+    implementation = {**statement["implementation"], "url": base_url.rstrip("/") + "/fhir"}
+    return {**statement, "implementation": implementation, "fhirVersion": fhir_version}

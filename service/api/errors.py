@@ -45,11 +45,18 @@ def outcome(
     *,
     severity: str = "error",
 ) -> dict[str, object]:
-    """An OperationOutcome with one issue."""
+    """An OperationOutcome with one issue. ``expression`` is a FHIRPath into the resource sent,
+    or a part of the HTTP request (``http.`` and a header or parameter name, FHIR's convention),
+    which goes to ``issue.location``: it is not FHIRPath. None or '': nothing to name."""
     issue: dict[str, object] = {"severity": severity, "code": code, "diagnostics": diagnostics}
-    if expression is not None:
+    if expression and expression.startswith(HTTP_LOCATION):
+        issue["location"] = [expression]
+    elif expression:
         issue["expression"] = [expression]
     return {"resourceType": "OperationOutcome", "issue": [issue]}
+
+
+HTTP_LOCATION = "http."
 
 
 class ApiError(Exception):

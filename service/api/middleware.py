@@ -50,7 +50,7 @@ CDS_FEEDBACK_PATHS = frozenset(f"{path}/feedback" for path in CDS_SERVICE_PATHS)
 # The routes that assess: counted in flight.
 LIMITED = frozenset({ASSESS_PATH, V2_PATH}) | CDS_SERVICE_PATHS
 # Open without credentials even when authentication is configured.
-PUBLIC = frozenset({"/healthz", "/readyz", "/fhir/metadata"})
+PUBLIC = frozenset({"/healthz", "/readyz", "/fhir/metadata", "/fhir/$versions"})
 CLIENT_CLOSED = 499  # the client closed the connection before the answer (proxies' convention)
 ROUTES = frozenset(
     {
@@ -60,6 +60,7 @@ ROUTES = frozenset(
         *CDS_SERVICE_PATHS,
         *CDS_FEEDBACK_PATHS,
         "/fhir/metadata",
+        "/fhir/$versions",
         "/fhir/OperationDefinition/assess-hypoxaemia",
         "/healthz",
         "/readyz",

@@ -126,7 +126,6 @@ class NdjsonAnswer(Response):
                     "exception",
                     f"line {line.number}: internal error; quote correlation id "
                     f"{self.record.correlation_id}",
-                    "Bundle",
                 )
             )
         self.on_line(answered.tally)

@@ -136,6 +136,11 @@ ANSWERS: dict[tuple[str, str], dict[str, Schema]] = {
         "400": _outcome("A bad parameter (OperationOutcome)"),
         "406": _outcome("No acceptable answer format (OperationOutcome)"),
     },
+    ("get", "/fhir/$versions"): {
+        "200": _fhir("The FHIR versions spoken and the default", _resource("Parameters")),
+        "400": _outcome("A bad parameter (OperationOutcome)"),
+        "406": _outcome("No acceptable answer format (OperationOutcome)"),
+    },
     ("get", "/fhir/OperationDefinition/assess-hypoxaemia"): {
         "200": _fhir("The OperationDefinition", _resource("OperationDefinition")),
         "400": _outcome("A bad parameter (OperationOutcome)"),
@@ -154,9 +159,11 @@ ANSWERS: dict[tuple[str, str], dict[str, Schema]] = {
     },
     ("post", V2_PATH): {
         "200": {
-            "description": "ACK with MSA-1 AA (or the FHIR result / ORU^R01 result on request)",
+            "description": "ACK with MSA-1 AA (or the FHIR result / ORU^R01 result on request); "
+            "in enhanced mode the commit ACK CA when only that is asked for",
             "content": V2_ANSWER,
         },
+        "204": {"description": "Enhanced mode (MSH-15/MSH-16) asked for no acknowledgment here"},
         "400": {
             "description": "ACK with MSA-1 AR (or an OperationOutcome): unsupported type, "
             "version or processing id, not a message; or a bad parameter",
@@ -327,6 +334,7 @@ def _body_limits(operation: Schema) -> None:
 FORMATS: dict[str, list[str]] = {
     ASSESS_PATH: ["json", FHIR_JSON, JSON, "ndjson", FHIR_NDJSON, NDJSON],
     "/fhir/metadata": ["json", FHIR_JSON, JSON],
+    "/fhir/$versions": ["json", FHIR_JSON, JSON],
     "/fhir/OperationDefinition/assess-hypoxaemia": ["json", FHIR_JSON, JSON],
 }
 

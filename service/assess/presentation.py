@@ -7,11 +7,14 @@ converted for display.
 
 from __future__ import annotations
 
-from typing import Any, Literal
+from typing import TYPE_CHECKING, Any, Literal
 
 from service.engine.rationale import NO_UNITS, DisplayUnit, Units
 from service.physiology.units import kpa_from_mmhg
 from service.terminology.codes import UCUM
+
+if TYPE_CHECKING:
+    from service.assess.derivation import Derived
 
 PressureUnit = Literal["mm[Hg]", "kPa"]
 Json = dict[str, Any]
@@ -86,3 +89,10 @@ def pressure_text(value_mmhg: float, unit: PressureUnit, decimals: int = 1) -> s
 def pressure_label(unit: PressureUnit) -> str:
     """The unit as a reader writes it: ``mmHg`` or ``kPa``."""
     return "mmHg" if unit == "mm[Hg]" else "kPa"
+def shown_quantity(name: str, d: Derived, pressure_unit: PressureUnit) -> Json:
+    """A derived value's Quantity. S/F is SpO2 in % over FiO2 as a fraction, so its number
+    (e.g. 405) is in UCUM ``%``; unit ``1`` would make it 405, not 4.05 (UCUM: % = 10^-2)."""
+    if name == "sf-ratio":
+        shown = quantity(name, d.value, "1", pressure_unit)
+        return {**shown, "unit": "%", "code": "%"}
+    return quantity(name, d.value, d.unit, pressure_unit)

@@ -102,7 +102,7 @@ def _read_target(mapped: JsonObject, at: str, out: Collector) -> tuple[str | Non
     elif "relationship" in mapped:  # R5 spelling
         equivalence = text(mapped, "relationship", at, out)
     else:
-        out.problem("required", "'equivalence' is required here", f"{at}.equivalence")
+        out.problem("required", "'equivalence' is required here", at)
         return None, True
     if equivalence not in USED_EQUIVALENCES:
         # A valid equivalence we do not use is "skipped"; a wrong type was already a problem.

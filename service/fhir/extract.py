@@ -29,7 +29,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-from service.fhir import codes
+from service.fhir import addresses, codes
 from service.fhir.dates import parse_date
 from service.fhir.observation import ObservationReader
 from service.fhir.outcome import NotABundleError, Problem, TooLargeError, error
@@ -42,6 +42,7 @@ from service.fhir.shape import (
     member_list,
     member_number,
     member_object,
+    refuse_modifiers,
 )
 from service.fhir.shape import member_str as text
 from service.intake.limits import DEFAULT_READ_LIMITS, ReadLimits
@@ -85,6 +86,7 @@ def read_bundle(
     _within_limits(bundle, limits.max_entries)
     out = Collector()
     # Bundle.type is 1..1 in FHIR: a Bundle without one is refused, not guessed at.
+    refuse_modifiers(bundle, "Bundle", out, resource=True)
     kind = text(bundle, "type", "Bundle", out, required=True)
     if kind is not None and kind not in codes.BUNDLE_TYPES:
         out.problem("code-invalid", "not an R4 Bundle type", "Bundle.type")
@@ -109,11 +111,60 @@ def read_bundle(
             else:
                 message = "resources of a type FHIR R4B does not define are not read"
             out.issue("resource-ignored", Severity.INFORMATION, message, entry.at)
+    if patient is None and subjects.first is not None and subjects.first.startswith("#"):
+        patient = _contained_patient(entries, subjects.first, subjects, out)
     out.raise_problems(limits.max_issues)
     if patient is None and subjects.first is not None:
         patient = Patient(reference=subjects.first, birth_date=None, gender=None)
     issues = out.listed_issues(limits.max_issues)
-    return Intake(patient=patient, measurements=measurements, issues=issues)
+    intake = Intake(patient=patient, measurements=measurements, issues=issues)
+    intake.addresses = _addresses(entries, subjects)
+    return intake
+
+
+def _addresses(entries: list[_Entry], subjects: _Subjects) -> dict[str, dict[str, object]]:
+    """How the result points at each resource read and each subject named
+    (``service.fhir.addresses``); the first entry with a reference wins."""
+    found: dict[str, dict[str, object]] = {}
+    for entry in entries:
+        if entry.reference and entry.reference not in found:
+            where = f"entry {entry.index} of the input Bundle"
+            found[entry.reference] = addresses.of_entry(
+                entry.kind, entry.full_url, entry.resource, where
+            )
+    for reference, (holder, contained) in subjects.unresolved.items():
+        if reference in found:
+            continue
+        if contained is not None:
+            where = f"contained in entry {holder.index} of the input Bundle"
+            found[reference] = addresses.of_entry("Patient", None, contained, where)
+        else:
+            found[reference] = addresses.of_reference(reference, holder.full_url, "Patient")
+    return found
+
+
+def _contained_patient(
+    entries: list[_Entry], reference: str, subjects: _Subjects, out: Collector
+) -> Patient | None:
+    """The Patient a ``#id`` subject names, read from the contained resources of the first
+    Observation that holds it (FHIR: a contained resource is known only to its container)."""
+    for entry in entries:
+        if entry.kind != "Observation" or subjects.plain_reference(entry.resource) != reference:
+            continue
+        contained = entry.resource.get("contained")
+        if not isinstance(contained, list):
+            continue
+        for j, item in enumerate(contained):
+            if (
+                isinstance(item, dict)
+                and item.get("resourceType") == "Patient"
+                and item.get("id") == reference[1:]
+            ):
+                at = f"{entry.at}.contained[{j}]"
+                subjects.unresolved[reference] = (entry, item)
+                inner = _Entry(entry.index, item, "Patient", None, reference, at)
+                return _read_patient(inner, out)
+    return None
 
 
 def _within_limits(bundle: JsonObject, limit: int) -> None:
@@ -146,6 +197,7 @@ def _within_limits(bundle: JsonObject, limit: int) -> None:
 
 
 def _bundle_object(data: object) -> JsonObject:
+    where = ""  # no FHIRPath names anything in a body that is not a resource
     if not isinstance(data, dict):
         found = f"JSON {json_type(data)}"
     elif data.get("resourceType") == "Bundle":
@@ -154,10 +206,11 @@ def _bundle_object(data: object) -> JsonObject:
         found = "an object without a FHIR resourceType"
     elif kind in codes.RESOURCE_TYPES:  # named only when FHIR defines it: never the sender's text
         found = f"a {kind} resource"
+        where = kind  # the resource sent, as FHIRPath
     else:
         found = "a resourceType FHIR R4B does not define"
     diagnostics = f"expected a FHIR Bundle resource (resourceType 'Bundle'), got {found}"
-    raise NotABundleError([error("structure", diagnostics, "Bundle")])
+    raise NotABundleError([error("structure", diagnostics, where)])
 
 
 def _entries(bundle: JsonObject, index: BundleIndex, out: Collector) -> list[_Entry]:
@@ -165,10 +218,15 @@ def _entries(bundle: JsonObject, index: BundleIndex, out: Collector) -> list[_En
     items = member_list(bundle, "entry", "Bundle", out) or []
     found: list[_Entry] = []
     for i, item in enumerate(items):
+        if type(item) is dict and "modifierExtension" in item:
+            refuse_modifiers(item, f"Bundle.entry[{i}]", out)
+            continue
         entry = _plain_entry(i, item, index)
         if entry is None:
             entry = _entry(i, item, index, out)
         if entry is not None:
+            if entry.kind in ("Patient", "Location", "Specimen"):
+                refuse_modifiers(entry.resource, entry.at, out, resource=True)
             found.append(entry)
     return found
 
@@ -248,6 +306,9 @@ class _Subjects:
     def __init__(self, index: BundleIndex, out: Collector) -> None:
         self.index, self.out = index, out
         self.first: str | None = None  # the first subject reference seen, for Intake.patient
+        # Subject references that name no entry: the entry holding each (the first seen) and,
+        # for a ``#id`` reference, the contained Patient once found.
+        self.unresolved: dict[str, tuple[_Entry, JsonObject | None]] = {}
         self._key: object = None
         # Subject reference -> what it points at; a Bundle repeats one reference many times.
         self._keys: dict[str, object] = {}
@@ -278,6 +339,8 @@ class _Subjects:
         key = self._keys.get(reference)
         if key is None:
             key = self._keys[reference] = self._key_of(reference)
+            if isinstance(key, tuple) and key[0] == "reference":
+                self.unresolved.setdefault(reference, (entry, None))
         if key is _NOT_READ:
             return
         if self.first is None:
@@ -303,14 +366,39 @@ class _Subjects:
     def _key_of(self, reference: str) -> object:
         """The patient a subject reference names, or ``_NOT_READ`` for another subject."""
         target = self.index.resolve(reference)
+        if target is None and "?" in reference:
+            target = self._conditional_target(reference)
         if target is not None:
             if self.index.resources[target].get("resourceType") != "Patient":
                 return _NOT_READ  # a Group, Device or Location subject says nothing about it
             return ("entry", target)
+        if "?" in reference and not reference.startswith("Patient?"):
+            return _NOT_READ
         typed = type_and_id(reference)
         if typed is not None and not typed.startswith("Patient/"):
             return _NOT_READ
         return ("reference", typed or reference)
+
+    def _conditional_target(self, reference: str) -> int | None:
+        """The entry a conditional reference (``Patient?identifier=system|value``, legal in a
+        transaction) names: the Patient of the Bundle with that identifier, as a server would
+        resolve it when processing the transaction; None when no entry has it."""
+        named = addresses.of_reference(reference, None)
+        identifier = named.get("identifier")
+        if named.get("type") != "Patient" or not isinstance(identifier, dict):
+            return None
+        for entry, resource in self.index.resources.items():
+            if resource.get("resourceType") != "Patient":
+                continue
+            identifiers = resource.get("identifier")
+            for item in identifiers if isinstance(identifiers, list) else ():
+                if (
+                    isinstance(item, dict)
+                    and item.get("value") == identifier.get("value")
+                    and item.get("system") == identifier.get("system")
+                ):
+                    return entry
+        return None
 
 
 def _patient(
@@ -319,6 +407,11 @@ def _patient(
     subjects.patient(entry)
     if previous is not None:
         return previous  # a second, different Patient was reported by _Subjects
+    return _read_patient(entry, out)
+
+
+def _read_patient(entry: _Entry, out: Collector) -> Patient:
+    """birthDate and gender of a Patient (never its name or identifiers)."""
     at = entry.at
     birth_date = None
     born = text(entry.resource, "birthDate", at, out)
@@ -345,7 +438,7 @@ def _patient(
 def _altitude(entry: _Entry, out: Collector) -> list[Measurement]:
     """``Location.position.altitude`` (metres, per R4) as an ALTITUDE measurement."""
     position = member_object(entry.resource, "position", entry.at, out)
-    if position is None:
+    if position is None or refuse_modifiers(position[0], position[1], out):
         return []
     altitude = member_number(position[0], "altitude", position[1], out)
     if altitude is None:

@@ -27,6 +27,7 @@ from service.fhir.shape import (
     member_list,
     member_object,
     objects,
+    refuse_modifiers,
     str_items,
 )
 from service.fhir.shape import member_str as text
@@ -34,6 +35,7 @@ from service.fhir.specimens import observation_specimen
 from service.fhir.values import plain_value, read_coded, read_quantity
 from service.intake.model import CODED, Measurement, Quantity, Severity, Source, Specimen
 from service.intake.reading import Reading, Settled
+from service.physiology.units import NOT_UCUM
 from service.terminology import codes
 from service.terminology.codes import Concept
 from service.terminology.local_codes import LocalCodeMap
@@ -43,8 +45,8 @@ from service.terminology.local_codes import LocalCodeMap
 # dataAbsentReason, an unknown or misspelt element) is left to the thorough reader.
 _PLAIN_ELEMENTS = frozenset(
     {
-        "resourceType", "id", "meta", "implicitRules", "language", "text", "contained",
-        "extension", "modifierExtension", "identifier", "basedOn", "partOf", "status",
+        "resourceType", "id", "meta", "language", "text", "contained",
+        "extension", "identifier", "basedOn", "partOf", "status",
         "category", "code", "subject", "focus", "encounter", "effectiveDateTime", "issued",
         "performer", "valueQuantity", "interpretation", "note", "bodySite", "method",
         "specimen", "device", "referenceRange", "hasMember", "derivedFrom",
@@ -134,6 +136,8 @@ class ObservationReader:
     def thorough(self, resource: JsonObject, at: str, reference: str) -> list[Measurement]:
         """The measurements of any Observation, every problem and issue located."""
         out = self.out
+        if refuse_modifiers(resource, at, out, resource=True):
+            return []
         if not self._status_allows_use(resource, at):
             return []
         code_found = member_object(resource, "code", at, out, required=True)
@@ -156,13 +160,9 @@ class ObservationReader:
                 self._add(measurements, resource, at, at, concept, time, reference)
             elif "component" not in resource:
                 out.issue("observation-ignored", Severity.INFORMATION, "no value sent", at)
-        components = member_list(resource, "component", at, out) or []
         unknown: list[str] = []
-        for component, comp_at in objects(components, f"{at}.component", out):
-            if self._component(measurements, resource, at, component, comp_at, time, reference):
-                used = True
-            else:
-                unknown.append(f"{comp_at}.code")
+        if self._components(measurements, resource, at, time, reference, unknown):
+            used = True
         if used:
             for comp_code_at in unknown:
                 message = "component: no code the service reads"
@@ -170,6 +170,27 @@ class ObservationReader:
         else:
             self._ignore_unknown(codings, at)
         return measurements
+
+    def _components(
+        self,
+        measurements: list[Measurement],
+        resource: JsonObject,
+        at: str,
+        time: datetime | None,
+        reference: str,
+        unknown: list[str],
+    ) -> bool:
+        """Read each component; whether one was used (the codes of the others in ``unknown``)."""
+        out, used = self.out, False
+        components = member_list(resource, "component", at, out) or []
+        for component, comp_at in objects(components, f"{at}.component", out):
+            if refuse_modifiers(component, comp_at, out):
+                continue
+            if self._component(measurements, resource, at, component, comp_at, time, reference):
+                used = True
+            else:
+                unknown.append(f"{comp_at}.code")
+        return used
 
     def _ignore_unknown(self, codings: list[tuple[str, str]], at: str) -> None:
         # The codes sent are not quoted (an error names the element, never what it holds).
@@ -266,6 +287,8 @@ class ObservationReader:
         assert concept.lower_limit is not None
         ranges = member_list(holder, "referenceRange", at, self.out) or []
         for item, item_at in objects(ranges, f"{at}.referenceRange", self.out):
+            if refuse_modifiers(item, item_at, self.out):
+                return
             low = member_object(item, "low", item_at, self.out)
             if low is not None:
                 limit = replace(concept, quantity=concept.lower_limit, lower_limit=None)
@@ -373,11 +396,10 @@ def _plain_quantity(q: object, concept: Concept) -> Settled | None:
             return None
     else:
         return None  # absent, null, a bool, a string: the thorough reader says which
-    if type(unit) is not str or not unit.strip():
+    if type(unit) is not str or not unit.strip() or unit in NOT_UCUM:
         return None
-    system = q.get("system")
-    if system != codes.UCUM and (system is not None or "system" in q):
-        return None
+    if q.get("system") != codes.UCUM:
+        return None  # no system (qty-3) or another one: the thorough reader says how it reads
     text_unit = q.get("unit")
     if text_unit is not None:
         if type(text_unit) is not str or not text_unit.strip():

@@ -109,15 +109,16 @@ def operation_outcome(problems: Iterable[Problem]) -> dict[str, object]:
     Raises:
         ValueError: no problems were given (an OperationOutcome needs at least one issue).
     """
-    issues: list[dict[str, object]] = [
-        {
+    issues: list[dict[str, object]] = []
+    for p in problems:
+        issue: dict[str, object] = {
             "severity": p.severity,
             "code": p.code,
             "diagnostics": p.diagnostics,
-            "expression": [p.expression],
         }
-        for p in problems
-    ]
+        if p.expression:  # '': the input has no element to name (not JSON, not a resource)
+            issue["expression"] = [p.expression]
+        issues.append(issue)
     if not issues:
         raise ValueError("an OperationOutcome needs at least one issue")
     return {"resourceType": "OperationOutcome", "issue": issues}

@@ -1,25 +1,34 @@
 """Render an ``Assessment`` as the result Bundle (plain dicts, no models; README, What it answers).
 
-Entries, in order: GuidanceResponse, Parameters (the machine-readable verdict), OperationOutcome
-(findings and the clinical caution), then derived Observations (among them the PaO2 deficit
-partition of the index gas, one component per part, and the oxygen-response fit,
-``oxygen_response``) and the mechanism-assessment Observation.
-Built as dicts for speed; the tests validate every produced Bundle with ``fhir.resources.R4B``.
-Pressures leave in mm[Hg] unless ``pressure_unit`` is ``kPa``: the one place where canonical
-units are converted for display.
+Entries, in order: GuidanceResponse, Parameters (the machine-readable verdict, every finding
+included), OperationOutcome (how the input was processed: what was not read, converted or
+used, and the clinical caution), one DetectedIssue per data-quality finding (a problem with
+the data sent), then derived Observations (among them the PaO2 deficit partition of the index
+gas, one component per part, and the oxygen-response fit, ``oxygen_response``) and the
+mechanism-assessment Observation (a component per mechanism, per clinical context finding and
+for the gas-exchange status).
+
+Entries have ``urn:uuid`` fullUrls and point at each other by them; input resources are pointed
+at as ``service.fhir.addresses`` says (a literal reference only where the receiver can resolve
+it). Built as dicts for speed; the tests validate every produced Bundle against the FHIR R4
+JSON Schema and the R4 and R4B models (tests/conformance). Pressures leave in mm[Hg] unless
+``pressure_unit`` is ``kPa``: the one place where canonical units are converted for display.
 """
 
 from __future__ import annotations
 
 import uuid
-from collections.abc import Iterable
+from collections.abc import Iterable, Mapping
 from typing import Any
+from urllib.parse import quote
 
 from service.assess.derive import Derived, GasFacts
 from service.assess.partition import GasPartitions, ShownPartition, assessment_partitions
-from service.assess.presentation import QUANTITY_ORDER, PressureUnit, quantity
+from service.assess.presentation import QUANTITY_ORDER, PressureUnit, quantity, shown_quantity
 from service.assess.result import CAUTION, Assessment, Finding, MechanismVerdict
 from service.config import Settings
+from service.engine import FindingCode
+from service.fhir.addresses import of_reference
 from service.fhir.oxygen_response import (
     oxygen_response_observation,
     oxygen_response_parameter,
@@ -41,9 +50,58 @@ PATTERN_SYSTEM = BASE + "hypoxaemia-pattern"
 DERIVED_SYSTEM = BASE + "derived"
 GAS_EXCHANGE_SYSTEM = BASE + "gas-exchange-status"
 INTERPRETATION = "http://terminology.hl7.org/CodeSystem/v3-ObservationInterpretation"
-CATEGORY = "http://terminology.hl7.org/CodeSystem/observation-category"
+CANONICAL = "https://oxyrule.org/fhir"
 
-ISSUE_CODE = {"error": "business-rule", "warning": "business-rule", "information": "informational"}
+# Findings about processing the input (what was not read, converted or used): issues of the
+# OperationOutcome, with the FHIRPath of the element in the input. The issue type says what
+# happened to it (http://hl7.org/fhir/issue-type).
+PROCESSING_ISSUE_TYPE = {
+    "resource-ignored": "not-supported",
+    "field-ignored": "not-supported",
+    "observation-ignored": "not-supported",
+    "unit-converted": "value",
+    "unit-not-ucum": "value",
+    "time-imprecise": "value",
+    "value-outside-window": "informational",
+}
+# Clinical context findings: about the patient, not about the data; carried by the verdict
+# (Parameters) and as components of the mechanism-assessment Observation.
+CONTEXT_FINDINGS = frozenset(
+    {
+        FindingCode.HYPOXAEMIA_MILD,
+        FindingCode.HYPOXAEMIA_MODERATE,
+        FindingCode.HYPOXAEMIA_SEVERE,
+        FindingCode.OXYGEN_MASKS_GAS_EXCHANGE_DEFECT,
+        FindingCode.OXYGEN_MASKS_HYPERCAPNIA,
+        FindingCode.HYPERCAPNIA,
+        FindingCode.SPO2_ABOVE_TARGET_BAND,
+        FindingCode.SPO2_BELOW_TARGET_BAND,
+        FindingCode.EXERTIONAL_DESATURATION,
+        FindingCode.METABOLIC_ALKALOSIS_COMPENSATION,
+        FindingCode.RESPIRATORY_COMPENSATION_INADEQUATE,
+        FindingCode.NORMAL_FOR_ALTITUDE,
+        FindingCode.LOW_MIXED_VENOUS_OXYGEN,
+        FindingCode.ACUTE_RESPIRATORY_ACIDOSIS,
+        FindingCode.CHRONIC_RESPIRATORY_ACIDOSIS,
+        FindingCode.FIO2_FOR_TARGET_PREDICTED,
+        FindingCode.TARGET_BAND_UNREACHABLE,
+    }
+)
+# DetectedIssue.severity (R4 detectedissue-severity) of a data-quality finding.
+DETECTED_ISSUE_SEVERITY = {"error": "high", "warning": "moderate", "information": "low"}
+# Derived values that take the FiO2: with an FiO2 estimated from the device and the flow, those
+# Observations are among their sources too.
+USES_FIO2 = frozenset(
+    {
+        "inspired-po2",
+        "alveolar-po2",
+        "aa-gradient",
+        "pf-ratio",
+        "sf-ratio",
+        "a-a-ratio",
+        "shunt-fraction",
+    }
+)
 
 # The PaO2 deficit partition: the parts' names in the ``deficit`` parameter, and the codes (our
 # CodeSystem .../derived, the names the derived values are filed under) and displays of the
@@ -66,8 +124,49 @@ DEFICIT_COMPONENTS = {
 RESIDENCE_COMPONENT = ("altitude-residence-assumed", "Residence at altitude assumed")
 
 
-def _ref(reference: str) -> Json:
-    return {"reference": reference}
+class _Links:
+    """The fullUrls of the result's entries and the References to the input's resources."""
+
+    def __init__(self, decision_id: str, addresses: Mapping[str, Json]) -> None:
+        # Entry URLs derive from the decision id (its last 12 hex digits replaced by the
+        # entry's number), so a result is reproducible apart from it and needs no hashing.
+        self.prefix = str(uuid.UUID(decision_id))[:24]
+        self.addresses = addresses
+        self.urls: dict[str, str] = {}
+
+    def entry(self, local_id: str) -> str:
+        """The fullUrl of the result entry ``local_id`` (numbered in order of first use)."""
+        url = self.urls.get(local_id)
+        if url is None:
+            url = self.urls[local_id] = f"urn:uuid:{self.prefix}{len(self.urls) + 1:012x}"
+        return url
+
+    def to_entry(self, local_id: str) -> Json:
+        return {"reference": self.entry(local_id)}
+
+    def to_input(self, reference: str) -> Json:
+        """The Reference to an input resource, as ``service.fhir.addresses`` says."""
+        found = self.addresses.get(reference)
+        return dict(found) if found is not None else of_reference(reference, None)
+
+
+def _relinked(value: Any, links: _Links) -> Any:
+    """``value`` with every Reference to an input resource (``{"reference": ...}`` naming an
+    input) pointed at as ``service.fhir.addresses`` says: for parts built by modules that do
+    not know the result's addressing (the oxygen-response fit)."""
+    if isinstance(value, list):
+        return [_relinked(v, links) for v in value]
+    if not isinstance(value, dict):
+        return value
+    reference = value.get("reference") if set(value) == {"reference"} else None
+    if isinstance(reference, str) and not reference.startswith(("urn:", "#")):
+        return links.to_input(reference)  # an input's "Type/id" (a result entry is a urn)
+    return {k: _relinked(v, links) for k, v in value.items()}
+
+
+def _finding_coding(f: Finding) -> Json:
+    """A finding's code: from the rule set's own code system when it declared one."""
+    return _coding(f.system or FINDING_SYSTEM, f.code, f.display)
 
 
 def _coding(system: str, code: str, display: str | None = None) -> Json:
@@ -90,14 +189,16 @@ def _mechanism_parameter(m: MechanismVerdict) -> Json:
     return {"name": "mechanism", "part": part}
 
 
-def _finding_parameter(f: Finding) -> Json:
+def _finding_parameter(f: Finding, links: _Links) -> Json:
     part: list[Json] = [
         {"name": "code", "valueCode": f.code},
         {"name": "severity", "valueCode": f.severity},
         {"name": "message", "valueString": f.message},
     ]
     if f.subject is not None:
-        part.append({"name": "subject", "valueReference": _ref(f.subject.reference)})
+        part.append({"name": "subject", "valueReference": links.to_input(f.subject.reference)})
+    if f.expression:
+        part.append({"name": "expression", "valueString": f.expression})
     return {"name": "finding", "part": part}
 
 
@@ -113,7 +214,7 @@ class _Quantities:
         key = (name, id(d))
         found = self.built.get(key)
         if found is None:
-            found = self.built[key] = quantity(name, d.value, d.unit, self.pressure_unit)
+            found = self.built[key] = shown_quantity(name, d, self.pressure_unit)
         return found
 
     def listed(self, derived: dict[str, Derived]) -> list[Json]:
@@ -124,19 +225,18 @@ class _Quantities:
         ]
 
 
-def _gas_parameter(gas: GasFacts, index: bool, quantities: _Quantities) -> Json:
+def _gas_parameter(gas: GasFacts, index: bool, quantities: _Quantities, links: _Links) -> Json:
     part: list[Json] = []
     if gas.gas.anchor is not None:
-        part.append(
-            {"name": "observation", "valueReference": _ref(gas.gas.anchor.source.reference)}
-        )
+        reference = links.to_input(gas.gas.anchor.source.reference)
+        part.append({"name": "observation", "valueReference": reference})
     part.append({"name": "index", "valueBoolean": index})
     part += quantities.listed(gas.derived)
-    part += _paired(gas)
+    part += _paired(gas, links)
     return {"name": "gas", "part": part}
 
 
-def _paired(gas: GasFacts) -> list[Json]:
+def _paired(gas: GasFacts, links: _Links) -> list[Json]:
     """Each value paired with the gas and how long before it (negative: after) it was taken,
     so a reader can judge whether an Hb of yesterday or a DLCO of last spring still holds."""
     out: list[Json] = []
@@ -147,7 +247,7 @@ def _paired(gas: GasFacts) -> list[Json]:
         offset = gas.gas.offset(quantity_)
         item: list[Json] = [
             {"name": "quantity", "valueCode": quantity_.value},
-            {"name": "observation", "valueReference": _ref(m.source.reference)},
+            {"name": "observation", "valueReference": links.to_input(m.source.reference)},
         ]
         if offset is not None:
             minutes = round(offset.total_seconds() / 60.0, 1)
@@ -170,12 +270,14 @@ def _pressure(name: str, value_mmhg: float, quantities: _Quantities) -> Json:
     return quantity(name, value_mmhg, "mm[Hg]", quantities.pressure_unit)
 
 
-def _deficit_parameter(gas: GasPartitions, shown: ShownPartition | None, q: _Quantities) -> Json:
+def _deficit_parameter(
+    gas: GasPartitions, shown: ShownPartition | None, q: _Quantities, links: _Links
+) -> Json:
     """One gas's partition (``shown``), or why it has none: parts in the requested pressure
     unit, positive where they lower the PaO2; absent parts are absent."""
     part: list[Json] = []
     if gas.reference is not None:
-        part.append({"name": "observation", "valueReference": _ref(gas.reference)})
+        part.append({"name": "observation", "valueReference": links.to_input(gas.reference)})
     part.append({"name": "index", "valueBoolean": gas.index})
     if shown is None:
         part.append({"name": "not-computed", "valueString": gas.absent or "not computable"})
@@ -199,11 +301,13 @@ def _deficit_parameter(gas: GasPartitions, shown: ShownPartition | None, q: _Qua
     return {"name": "deficit", "part": part}
 
 
-def _deficit_parameters(partitions: tuple[GasPartitions, ...], q: _Quantities) -> list[Json]:
+def _deficit_parameters(
+    partitions: tuple[GasPartitions, ...], q: _Quantities, links: _Links
+) -> list[Json]:
     out: list[Json] = []
     for gas in partitions:
         shown: tuple[ShownPartition | None, ...] = gas.shown or (None,)
-        out += [_deficit_parameter(gas, s, q) for s in shown]
+        out += [_deficit_parameter(gas, s, q, links) for s in shown]
     return out
 
 
@@ -212,6 +316,7 @@ def _parameters(
     quantities: _Quantities,
     settings_hash: str,
     partitions: tuple[GasPartitions, ...],
+    links: _Links,
     site: str | None = None,
 ) -> Json:
     params: list[Json] = [
@@ -225,16 +330,16 @@ def _parameters(
     params.append({"name": "pattern", "valueCode": a.pattern})
     params.append({"name": "gas-exchange", "valueCode": a.gas_exchange})
     params += [_mechanism_parameter(m) for m in a.mechanisms]
-    params += [_finding_parameter(f) for f in a.findings]
+    params += [_finding_parameter(f, links) for f in a.findings]
     params += [{"name": "uncertain-input", "valueString": what} for what in a.uncertain_inputs]
-    params += [_gas_parameter(g.facts, g.index, quantities) for g in a.gases]
-    params += _deficit_parameters(partitions, quantities)
+    params += [_gas_parameter(g.facts, g.index, quantities, links) for g in a.gases]
+    params += _deficit_parameters(partitions, quantities, links)
     for extra in (
         oxygen_response_parameter(a, quantities.pressure_unit),
         trend_parameter(a.trend),
     ):
         if extra is not None:
-            params.append(extra)
+            params.append(_relinked(extra, links))
     index = a.index
     params += quantities.listed(index.derived)
     if index.barometric_source:
@@ -244,14 +349,22 @@ def _parameters(
     return {"resourceType": "Parameters", "id": "result", "parameter": params}
 
 
+def is_processing(f: Finding) -> bool:
+    """Whether a finding is about processing the input (an OperationOutcome issue)."""
+    return f.code in PROCESSING_ISSUE_TYPE
+
+
+def is_context(f: Finding) -> bool:
+    """Whether a finding is clinical context (not about the data's quality)."""
+    return f.code in CONTEXT_FINDINGS
+
+
 def _issue(f: Finding) -> Json:
+    kind = "informational" if f.severity == "information" else PROCESSING_ISSUE_TYPE[f.code]
     issue: Json = {
         "severity": f.severity,
-        "code": ISSUE_CODE[f.severity],
-        "details": {
-            "coding": [_coding(f.system or FINDING_SYSTEM, f.code, f.display)],
-            "text": f.message,
-        },
+        "code": kind,
+        "details": {"coding": [_finding_coding(f)], "text": f.message},
         "diagnostics": f.message + (f" (rule {f.rule})" if f.rule else ""),
     }
     if f.expression:
@@ -260,9 +373,42 @@ def _issue(f: Finding) -> Json:
 
 
 def _operation_outcome(a: Assessment) -> Json:
-    issues = [_issue(f) for f in a.findings]
+    """How the input was processed, and the caution: never a clinical finding."""
+    issues = [_issue(f) for f in a.findings if is_processing(f)]
     issues.append({"severity": "information", "code": "informational", "diagnostics": CAUTION})
-    return {"resourceType": "OperationOutcome", "id": "messages", "issue": issues}
+    return {"resourceType": "OperationOutcome", "id": "processing", "issue": issues}
+
+
+def _implicated(f: Finding, a: Assessment, links: _Links) -> list[Json]:
+    """The input resources a data-quality finding is about: its subject, else the resource of
+    the entry its expression locates, else the index gas."""
+    if f.subject is not None:
+        return [links.to_input(f.subject.reference)]
+    anchor = a.index.gas.anchor
+    if f.expression is None and anchor is not None:
+        return [links.to_input(anchor.source.reference)]
+    return []
+
+
+def _detected_issue(f: Finding, n: int, a: Assessment, links: _Links) -> Json:
+    """A data-quality finding as a DetectedIssue: a problem with the data sent."""
+    issue: Json = {
+        "resourceType": "DetectedIssue",
+        "id": f"data-quality-{n}",
+        "status": "final",
+        "code": {"coding": [_finding_coding(f)], "text": f.message},
+        "severity": DETECTED_ISSUE_SEVERITY[f.severity],
+        "identifiedDateTime": a.timestamp.isoformat(),
+        "detail": f.message + (f" (in the input at {f.expression})" if f.expression else ""),
+    }
+    if (subject := _subject(a, links)) is not None:
+        issue["patient"] = subject
+    implicated = _implicated(f, a, links)
+    if implicated:
+        issue["implicated"] = implicated
+    if f.rule:
+        issue["reference"] = f"{CANONICAL}/rule/{quote(f.rule, safe='')}"
+    return issue
 
 
 def _data_requirements(codes: Iterable[tuple[str, str]]) -> list[Json]:
@@ -275,21 +421,31 @@ def _data_requirements(codes: Iterable[tuple[str, str]]) -> list[Json]:
     ]
 
 
-def _subject(a: Assessment) -> Json | None:
+def _subject(a: Assessment, links: _Links) -> Json | None:
     if a.patient is not None and a.patient.reference:
-        return _ref(a.patient.reference)
+        return links.to_input(a.patient.reference)
     return None
 
 
-def _about(a: Assessment) -> Json:
+def _about(a: Assessment, links: _Links) -> Json:
     """The subject and effective time every derived Observation shares."""
     about: Json = {}
-    if (subject := _subject(a)) is not None:
+    if (subject := _subject(a, links)) is not None:
         about["subject"] = subject
     time = a.index.gas.time
     if time is not None:
         about["effectiveDateTime"] = time.isoformat()
     return about
+
+
+def _derived_from(name: str, d: Derived, gas: GasFacts) -> list[str]:
+    """The input references behind a derived value: its own inputs, and with an FiO2
+    estimated from the device and the flow, the Observations of those."""
+    refs = [s.reference for s in d.inputs]
+    if name in USES_FIO2 and gas.fio2_source == "device-estimate":
+        for fact in ("fio2", "oxygen_device", "oxygen_flow"):
+            refs += [s.reference for s in gas.sources.get(fact, ())]
+    return [r for r in dict.fromkeys(refs) if r]
 
 
 def _observation(
@@ -298,14 +454,17 @@ def _observation(
     about: Json,
     aa_limit: Derived | None,
     quantities: _Quantities,
+    links: _Links,
+    gas: GasFacts,
 ) -> Json:
     loinc, display = OBSERVATION_CODES[name]
     code = _coding(LOINC, loinc, display) if loinc else _coding(DERIVED_SYSTEM, name, display)
+    # No category: observation-category has none for a value computed from others (laboratory
+    # would say a laboratory measured it).
     obs: Json = {
         "resourceType": "Observation",
         "id": name,
         "status": "final",
-        "category": [{"coding": [_coding(CATEGORY, "laboratory")]}],
         "code": {"coding": [code], "text": display},
         "valueQuantity": quantities.of(name, d),
         "method": {"text": d.method},
@@ -316,9 +475,9 @@ def _observation(
         obs["interpretation"] = [{"coding": [_coding(INTERPRETATION, "H" if raised else "N")]}]
         limit = quantities.of("aa-gradient-upper-limit", aa_limit)
         obs["referenceRange"] = [{"high": limit, "text": "room-air limit for age"}]
-    refs = list(dict.fromkeys(s.reference for s in d.inputs))
+    refs = _derived_from(name, d, gas)
     if refs:
-        obs["derivedFrom"] = [_ref(r) for r in refs]
+        obs["derivedFrom"] = [links.to_input(r) for r in refs]
     return obs
 
 
@@ -326,7 +485,7 @@ def _component(code: tuple[str, str], value: Json) -> Json:
     return {"code": {"coding": [_coding(DERIVED_SYSTEM, *code)], "text": code[1]}, **value}
 
 
-def _deficit_observation(shown: ShownPartition, about: Json, q: _Quantities) -> Json:
+def _deficit_observation(shown: ShownPartition, about: Json, q: _Quantities, links: _Links) -> Json:
     """The index gas's partition as an Observation: one component per part, in the requested
     pressure unit; ``derivedFrom`` the inputs; the method names the partition and sources."""
     code, display = DEFICIT_OBSERVATION
@@ -350,7 +509,6 @@ def _deficit_observation(shown: ShownPartition, about: Json, q: _Quantities) -> 
         "resourceType": "Observation",
         "id": identifier,
         "status": "final",
-        "category": [{"coding": [_coding(CATEGORY, "laboratory")]}],
         "code": {"coding": [_coding(DERIVED_SYSTEM, code, display)], "text": text},
         "method": {"text": shown.method},
         **about,
@@ -358,18 +516,30 @@ def _deficit_observation(shown: ShownPartition, about: Json, q: _Quantities) -> 
     }
     if shown.assumption is not None:
         obs["note"] = [{"text": f"Residence not sent: computed {shown.assumption}."}]
-    refs = list(dict.fromkeys(s.reference for s in shown.inputs))
+    refs = [r for r in dict.fromkeys(s.reference for s in shown.inputs) if r]
     if refs:
-        obs["derivedFrom"] = [_ref(r) for r in refs]
+        obs["derivedFrom"] = [links.to_input(r) for r in refs]
     return obs
 
 
-def _mechanism_observation(a: Assessment, about: Json, derived_ids: list[str]) -> Json:
+def _context_components(a: Assessment) -> list[Json]:
+    """One component per clinical context finding: the finding, present."""
+    return [
+        {
+            "code": {"coding": [_finding_coding(f)], "text": f.message},
+            "valueBoolean": True,
+        }
+        for f in {f.code: f for f in a.findings if is_context(f)}.values()
+    ]
+
+
+def _mechanism_observation(
+    a: Assessment, about: Json, derived_ids: list[str], links: _Links
+) -> Json:
     obs: Json = {
         "resourceType": "Observation",
         "id": "mechanism-assessment",
         "status": "final",
-        "category": [{"coding": [_coding(CATEGORY, "laboratory")]}],
         "code": {
             "coding": [_coding(DERIVED_SYSTEM, "hypoxaemia-mechanism-assessment")],
             "text": "Likely mechanism of hypoxaemia (decision support, not a diagnosis)",
@@ -392,11 +562,12 @@ def _mechanism_observation(a: Assessment, about: Json, derived_ids: list[str]) -
                     }
                 },
             )
-        ],
+        ]
+        + _context_components(a),
         **about,
     }
     if derived_ids:
-        obs["derivedFrom"] = [_ref(f"Observation/{i}") for i in derived_ids]
+        obs["derivedFrom"] = [links.to_entry(i) for i in derived_ids]
     return obs
 
 
@@ -407,64 +578,72 @@ def render_bundle(
     settings: Settings,
     pressure_unit: PressureUnit = "mm[Hg]",
     settings_hash: str = "",
+    addresses: Mapping[str, Json] | None = None,
     site: str | None = None,
 ) -> Json:
     """The result Bundle for ``a``. ``data_requirements`` are (system, code) pairs;
     ``settings`` are those ``a`` was assessed with (a partition that depends on an unknown
     residence is shown for each residence, derived again with them); ``settings_hash`` names
-    them, and ``site`` is the label of the site file they came from (None: none)."""
+    them; ``addresses`` say how to point at each input resource (``Intake.addresses``); ``site``
+    is the label of the site file they came from (None: none)."""
+    links = _Links(a.decision_id, addresses or {})
+    for first in ("guidance", "result", "processing"):  # numbered in entry order
+        links.entry(first)
     requirements = _data_requirements(data_requirements)
     # More data was asked for only if some of it can be named as a FHIR data requirement.
     status = "success" if a.status == "data-requested" and not requirements else a.status
+    quantities = _Quantities(pressure_unit)
+    partitions = assessment_partitions(a, settings)
+    parameters = _parameters(a, quantities, settings_hash, partitions, links, site)
+    outcome = _operation_outcome(a)
+    identity, _, version = a.ruleset_identity.partition("|")
     guidance: Json = {
         "resourceType": "GuidanceResponse",
         "id": "guidance",
         "identifier": [{"system": "urn:ietf:rfc:3986", "value": f"urn:uuid:{a.decision_id}"}],
-        "moduleUri": f"urn:oxyrule:ruleset:{a.ruleset_identity}#sha256:{a.ruleset_hash}",
+        # The rule set as a URL: id and version as path segments, the content hash as the
+        # fragment (also the ``ruleset-hash`` parameter).
+        "moduleUri": f"{CANONICAL}/ruleset/{quote(identity, safe='')}/{quote(version, safe='')}"
+        f"#sha256:{a.ruleset_hash}",
         "status": status,
         "occurrenceDateTime": a.timestamp.isoformat(),
-        "outputParameters": _ref("Parameters/result"),
-        "evaluationMessage": [_ref("OperationOutcome/messages")],
+        "outputParameters": links.to_entry(parameters["id"]),
+        "evaluationMessage": [links.to_entry(outcome["id"])],
+        "note": [{"text": CAUTION}],
     }
-    if (subject := _subject(a)) is not None:
+    if (subject := _subject(a, links)) is not None:
         guidance["subject"] = subject
     if requirements:
         guidance["dataRequirement"] = requirements
-    quantities = _Quantities(pressure_unit)
-    partitions = assessment_partitions(a, settings)
-    resources: list[Json] = [
-        guidance,
-        _parameters(a, quantities, settings_hash, partitions, site),
-        _operation_outcome(a),
+    resources: list[Json] = [guidance, parameters, outcome]
+    resources += [
+        _detected_issue(f, n, a, links)
+        for n, f in enumerate(
+            (f for f in a.findings if not is_processing(f) and not is_context(f)), start=1
+        )
     ]
     derived = a.index.derived
-    about = _about(a)
+    about = _about(a, links)
     limit = derived.get("aa-gradient-upper-limit")
     derived_ids: list[str] = []
     for name in OBSERVATION_CODES:
         if (d := derived.get(name)) is not None:
-            resources.append(_observation(name, d, about, limit, quantities))
+            resources.append(_observation(name, d, about, limit, quantities, links, a.index))
             derived_ids.append(name)
     index = next((g for g in partitions if g.index), None)
     for shown in index.shown if index is not None else ():
-        observation = _deficit_observation(shown, about, quantities)
+        observation = _deficit_observation(shown, about, quantities, links)
         resources.append(observation)
         derived_ids.append(observation["id"])
     response = oxygen_response_observation(a, about, pressure_unit)
     if response is not None:
-        resources.append(response)
+        resources.append(_relinked(response, links))
         derived_ids.append(response["id"])
-    resources.append(_mechanism_observation(a, about, derived_ids))
-    # Entry URLs derive from the decision id (its last 12 hex digits replaced by the entry's
-    # number), so a result is reproducible apart from it and needs no hashing per entry.
-    prefix = str(uuid.UUID(a.decision_id))[:24]
+    resources.append(_mechanism_observation(a, about, derived_ids, links))
     return {
         "resourceType": "Bundle",
         "type": "collection",
         "identifier": {"system": "urn:ietf:rfc:3986", "value": f"urn:uuid:{a.decision_id}"},
         "timestamp": a.timestamp.isoformat(),
-        "entry": [
-            {"fullUrl": f"urn:uuid:{prefix}{number:012x}", "resource": r}
-            for number, r in enumerate(resources, start=1)
-        ],
+        "entry": [{"fullUrl": links.entry(r["id"]), "resource": r} for r in resources],
     }

@@ -82,7 +82,9 @@ def _member(
     path = f"{at}.{key}"
     if key not in obj:
         if required:
-            out.problem("required", f"'{key}' is required here", path)
+            # Located at the element that lacks it: a path to the absent member would select
+            # nothing in the input (FHIRPath).
+            out.problem("required", f"'{key}' is required here", at)
         return None
     return obj[key], path
 
@@ -173,4 +175,28 @@ def str_items(obj: JsonObject, key: str, at: str, out: Collector) -> list[str]:
             found.append(item)
         else:
             _wrong_type(out, "a string", item, f"{at}.{key}[{i}]")
+    return found
+
+
+MODIFIER_MESSAGE = (
+    "a modifier extension the service does not understand changes what this element means "
+    "(FHIR: it must not be read as if absent); the Bundle is not assessed"
+)
+IMPLICIT_RULES_MESSAGE = (
+    "implicitRules: the resource was written under rules the service does not know (FHIR: it "
+    "must not be read as if absent); the Bundle is not assessed"
+)
+
+
+def refuse_modifiers(obj: JsonObject, at: str, out: Collector, *, resource: bool = False) -> bool:
+    """Record a problem for each ``modifierExtension`` (and, on a resource, ``implicitRules``)
+    of ``obj``: the service understands none, so what holds one cannot be used. True when
+    there was one."""
+    found = False
+    if "modifierExtension" in obj:
+        out.problem("not-supported", MODIFIER_MESSAGE, f"{at}.modifierExtension")
+        found = True
+    if resource and "implicitRules" in obj:
+        out.problem("not-supported", IMPLICIT_RULES_MESSAGE, f"{at}.implicitRules")
+        found = True
     return found

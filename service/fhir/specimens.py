@@ -12,7 +12,14 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 from service.fhir.references import BundleIndex
-from service.fhir.shape import Collector, JsonObject, member_list, member_object, objects
+from service.fhir.shape import (
+    Collector,
+    JsonObject,
+    member_list,
+    member_object,
+    objects,
+    refuse_modifiers,
+)
 from service.fhir.shape import member_str as text
 from service.intake.model import Specimen
 from service.terminology import codes
@@ -51,7 +58,7 @@ def _contained(
     for resource, path in objects(items, f"{at}.contained", out):
         if resource.get("id") == local_id:
             return resource, path
-    return {}, f"{at}.contained"
+    return {}, at
 
 
 def observation_specimen(
@@ -61,7 +68,7 @@ def observation_specimen(
     found = member_object(observation, "specimen", at, out)
     if found is None:
         reason = "the Observation names no specimen"
-        return SpecimenFinding(Specimen.UNKNOWN, reason, f"{at}.specimen")
+        return SpecimenFinding(Specimen.UNKNOWN, reason, at)
     ref_obj, ref_at = found
     ref_path = f"{ref_at}.reference"
     reference = text(ref_obj, "reference", ref_at, out)
@@ -69,6 +76,8 @@ def observation_specimen(
         return SpecimenFinding(Specimen.UNKNOWN, "the specimen reference is empty", ref_path)
     if reference.startswith("#"):
         target, target_at = _contained(observation, at, reference[1:], out)
+        if target:
+            refuse_modifiers(target, target_at, out, resource=True)
     else:
         entry = index.resolve(reference)
         target = {} if entry is None else index.resources[entry]
@@ -79,5 +88,6 @@ def observation_specimen(
     specimen = specimen_type(target, target_at, out)
     if specimen is Specimen.UNKNOWN:
         reason = "the Specimen type has no arterial, venous or capillary blood code"
-        return SpecimenFinding(Specimen.UNKNOWN, reason, f"{target_at}.type")
+        where = f"{target_at}.type" if "type" in target else target_at
+        return SpecimenFinding(Specimen.UNKNOWN, reason, where)
     return SpecimenFinding(specimen, None, ref_path)

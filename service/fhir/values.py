@@ -17,7 +17,13 @@ from service.fhir.shape import member_str as text
 from service.intake.model import Quantity, Severity
 from service.intake.plausibility import out_of_range
 from service.intake.reading import Reading, Settled, settle
-from service.physiology.units import FIO2_LIMITS, Dimension, unit_named
+from service.physiology.units import (
+    FIO2_LIMITS,
+    NOT_UCUM,
+    Dimension,
+    accepted_units,
+    unit_named,
+)
 from service.terminology import codes
 from service.terminology.codes import Concept
 
@@ -25,20 +31,53 @@ from service.terminology.codes import Concept
 def _unit(
     q: JsonObject, at: str, dimension: Dimension | None, out: Collector
 ) -> tuple[str, str] | None:
-    """The unit to convert from and where it was read, or None (a problem was recorded)."""
+    """The UCUM unit to convert from and where it was read, or None (a problem was recorded).
+
+    A UCUM ``code`` with the UCUM ``system`` is read as it is. What is unambiguous is read
+    with a warning that says how (``unit-not-ucum``): a well-known spelling that is not UCUM
+    (``mmHg``) under the UCUM system, a code without a system (FHIR qty-3 wants one), or only
+    the ``unit`` text, each when it names a unit this value takes. Anything else is refused:
+    a code of another unit system (a local ``mm[Hg]`` is not UCUM's), or a code or text that
+    names no unit of this value.
+    """
     system = text(q, "system", at, out)
     code = text(q, "code", at, out)
     unit = text(q, "unit", at, out)
-    if code is not None and (system is None or system == codes.UCUM):
+    if code is not None and system is not None and system != codes.UCUM:
+        out.problem(
+            "value",
+            f"the unit is coded in another system than UCUM ({codes.UCUM}); send the UCUM code",
+            f"{at}.system",
+        )
+        return None
+    if code is not None and system is not None:
+        if code in NOT_UCUM:
+            meant = NOT_UCUM[code]
+            message = f"{unit_named(code)} is not UCUM; read as UCUM '{meant}', the unit it spells"
+            out.issue("unit-not-ucum", Severity.WARNING, message, f"{at}.code")
+            return meant, f"{at}.code"
         return code, f"{at}.code"
-    if unit is not None:
-        return unit, f"{at}.unit"
-    if code is not None:
-        out.problem("value", f"the unit code is not from UCUM ({codes.UCUM})", f"{at}.system")
+    sent, sent_at, how = (
+        (code, f"{at}.code", "a unit code without a system (FHIR qty-3)")
+        if code is not None
+        else (unit, f"{at}.unit", "only the unit text")
+    )
+    if sent is not None:
+        meant = NOT_UCUM.get(sent, sent)
+        if dimension is not None and meant in accepted_units(dimension):
+            message = f"{how} was sent; read as UCUM '{meant}'"
+            out.issue("unit-not-ucum", Severity.WARNING, message, sent_at)
+            return meant, sent_at
+        out.problem(
+            "value",
+            f"{how} was sent, and it is no unit this value takes; send a UCUM code with "
+            f"system {codes.UCUM}",
+            sent_at,
+        )
         return None
     if dimension is Dimension.PH:
         return "[pH]", f"{at}.code"  # pH has no unit; senders often leave it out
-    out.problem("required", "a unit is required: a UCUM code in valueQuantity.code", f"{at}.code")
+    out.problem("required", "a unit is required: a UCUM code in valueQuantity.code", at)
     return None
 
 

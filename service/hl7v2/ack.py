@@ -25,7 +25,7 @@ from service.hl7v2.header import version_tuple
 from service.hl7v2.message import Header, V2Message
 from service.hl7v2.times import format_dtm
 
-AckCode = Literal["AA", "AE", "AR"]
+AckCode = Literal["AA", "AE", "AR", "CA", "CR"]
 TRIGGER_SHAPE = re.compile(r"[A-Z][A-Z0-9]{2}")
 MSA_TEXT_LIMIT = 80  # MSA-3 is ST(80)
 
@@ -48,13 +48,15 @@ def reply_header(
     version = version or tables.DEFAULT_VERSION
     processing = header.processing_id if header.processing_id in tables.PROCESSING_IDS else "P"
     segment = er7.msh(
-        er7.components(*(header.receiving_application or (tables.APPLICATION,))),
-        er7.components(*header.receiving_facility),
-        er7.components(*header.sending_application),
-        er7.components(*header.sending_facility),
+        # Already encoded (``Header.of``): echoed with their components and sub-components.
+        "^".join(header.receiving_application or (er7.escape(tables.APPLICATION),)),
+        "^".join(header.receiving_facility),
+        "^".join(header.sending_application),
+        "^".join(header.sending_facility),
         format_dtm(now or datetime.now(UTC)),
         "",
-        er7.components(*message_type),
+        # MSH-9 has the message structure (third component) from v2.3.1 on.
+        er7.components(*message_type[: 3 if version_tuple(version) >= (2, 3, 1) else 2]),
         er7.escape(control_id or new_control_id()),
         processing,
         version,
@@ -69,14 +71,19 @@ def reply_header(
 
 
 def err_segment(error: V2Error, version: str) -> str:
-    """One ERR segment for ``version`` (ERR-1 too when the version predates ERR-2)."""
+    """One ERR segment for ``version``: before v2.5 ERR has one field, ERR-1 (ELD: segment,
+    sequence, field, coded error); from v2.5 the location (ERR-2), code (ERR-3), severity
+    (ERR-4), our finding code (ERR-5) and the reason (ERR-8)."""
+    if version_tuple(version) < (2, 5):
+        coded = er7.subcomponents(str(int(error.code)), error.code.text, "HL70357")
+        segment_id, sequence, field = "", "", ""
+        if error.location is not None:
+            segment_id, sequence, *rest = error.location.erl()
+            field = rest[0] if rest else ""
+        return er7.segment("ERR", "^".join((segment_id, sequence, field, coded)))
     code = er7.components(str(int(error.code)), error.code.text, "HL70357")
     erl = er7.components(*error.location.erl()) if error.location is not None else ""
     eld = ""
-    if version_tuple(version) < (2, 5) and error.location is not None:
-        segment_id, sequence, *rest = error.location.erl()
-        coded = er7.subcomponents(str(int(error.code)), error.code.text, "HL70357")
-        eld = "^".join((segment_id, sequence, rest[0] if rest else "", coded))
     finding = er7.components(error.finding, "", tables.FINDING_SYSTEM) if error.finding else ""
     reason = er7.escape(error.reason)
     return er7.segment("ERR", eld, erl, code, error.severity, finding, "", "", reason)
@@ -103,8 +110,12 @@ def ack(
     msh, version = reply_header(header, ("ACK", trigger, "ACK"), now=now, control_id=control_id)
     old_text = version_tuple(version) < (2, 7)
     msa_text = er7.escape(text[:MSA_TEXT_LIMIT]) if text and old_text else ""
-    segments = [msh, er7.segment("MSA", code, er7.escape(header.control_id), msa_text)]
-    if text and not old_text:
+    # MSA-2 is required: with no MSH-10 to echo, HL7's explicit null ("").
+    acknowledged = er7.escape(header.control_id) if header.control_id else '""'
+    segments = [msh, er7.segment("MSA", code, acknowledged, msa_text)]
+    if text and not old_text and code in ("AA", "CA"):
+        # From v2.7 the outcome in words is an informational ERR, code 0 "Message accepted":
+        # only true of an accepted message (a refusal's ERRs say what is wrong).
         errors = [*errors, V2Error(None, ErrorCode.ACCEPTED, text, "I")]
     segments += [err_segment(e, version) for e in errors]
     return er7.message(segments)

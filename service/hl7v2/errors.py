@@ -187,7 +187,8 @@ def _more_errors(first: V2Error, count: int, same_kind: bool) -> V2Error:
 
 
 def operation_outcome(errors: Sequence[V2Error]) -> dict[str, object]:
-    """The errors as an R4 OperationOutcome; ``expression`` holds the v2 location."""
+    """The errors as an R4 OperationOutcome. The v2 location (``OBX[1]-5``) goes to
+    ``issue.location``: ``expression`` is FHIRPath, which has nothing to select in ER7."""
     issues: list[dict[str, object]] = []
     for e in errors:
         issue: dict[str, object] = {
@@ -196,7 +197,7 @@ def operation_outcome(errors: Sequence[V2Error]) -> dict[str, object]:
             "diagnostics": f"HL7 v2 error {int(e.code)} ({e.code.text}): {e.reason}",
         }
         if e.location is not None:
-            issue["expression"] = [str(e.location)]
+            issue["location"] = [str(e.location)]
         issues.append(issue)
     if not issues:
         raise ValueError("an OperationOutcome needs at least one issue")

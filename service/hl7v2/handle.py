@@ -135,7 +135,8 @@ def _answer(
         return refusal(message, "AE", exc.errors, reply, now=now)
     assessment = runtime.assess_intake(intake, now=now, pressure_unit=unit)
     if reply == "fhir":
-        body = orjson.dumps(runtime.render(assessment, pressure_unit=unit))
+        bundle = runtime.render(assessment, pressure_unit=unit, addresses=intake.addresses)
+        body = orjson.dumps(bundle)
         return V2Response(200, FHIR_MEDIA_TYPE, body, "AA")
     if reply == "result":
         unit = unit or runtime.settings.pressure_unit
@@ -177,9 +178,39 @@ def handle_v2(
             None, ErrorCode.INTERNAL, "the message could not be processed; send it again later"
         )
         response = refusal(read_header(text), "AR", [error], reply, status=500, now=now)
+    if reply == "ack":
+        response = enhanced_mode(read_header(text), response, now=now)
     elapsed = (time.perf_counter() - started) * 1000
     log.info("HL7 v2 message answered %s in %.1f ms", response.ack_code, elapsed)
     return response
+
+
+def _wanted(condition: str, error: bool) -> bool:
+    """Whether HL7 table 0155 asks for an acknowledgment in this case (empty: always)."""
+    return {"AL": True, "NE": False, "ER": error, "SU": not error}.get(condition, True)
+
+
+def enhanced_mode(
+    header: Header | None, response: V2Response, *, now: datetime | None = None
+) -> V2Response:
+    """The acknowledgment HL7's enhanced mode asks for (v2.5.1 ch. 2, MSH-15 and MSH-16).
+
+    Original mode (both empty): the application ACK, as made. Enhanced mode: the application
+    ACK (AA/AE/AR) when MSH-16 asks for one in this case; else the accept (commit) ACK when
+    MSH-15 asks for one: CA, or CR when the message was rejected (AR); else nothing at all
+    (status 204, an empty body: MLLP sends no frame). The service commits and applies a
+    message in one step, so one answer carries both: the application ACK when it is asked for.
+    """
+    if header is None or not (header.accept_ack or header.application_ack):
+        return response
+    code = response.ack_code
+    if _wanted(header.application_ack, error=code != "AA"):
+        return response
+    if _wanted(header.accept_ack, error=code == "AR"):
+        commit: AckCode = "CR" if code == "AR" else "CA"
+        body = ack(header, commit, text="received" if commit == "CA" else "rejected", now=now)
+        return V2Response(200 if commit == "CA" else 400, ER7_MEDIA_TYPE, body.encode(), commit)
+    return V2Response(204, ER7_MEDIA_TYPE, b"", code)
 
 
 def answer_v2(

@@ -25,16 +25,18 @@ message whose parts cannot all be used gives ``IntakeIssue``s and is assessed.
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 from service.hl7v2 import tables
 from service.hl7v2.errors import ErrorCode, Location, MessageInError, condensed_errors
 from service.hl7v2.message import SEGMENT_ID, Segment, V2Message
 from service.hl7v2.notes import Notes
 from service.hl7v2.observations import Clock, ObservationReader, Order, Result
-from service.hl7v2.patient import read_patient
+from service.hl7v2.patient import patient_address, read_patient
 from service.hl7v2.specimen import order_specimen
 from service.hl7v2.times import zone_of
 from service.intake.limits import DEFAULT_READ_LIMITS, condensed_issues
-from service.intake.model import Intake, IntakeIssue, Severity
+from service.intake.model import Intake, IntakeIssue, Measurement, Severity
 from service.terminology.local_codes import LocalCodeMap
 
 _E = ErrorCode
@@ -71,9 +73,31 @@ def read_oru(
         issues.append(IntakeIssue("time-zone-assumed", Severity.WARNING, message_text, "MSH[1]-7"))
     if notes.problems:
         raise MessageInError(condensed_errors(list(dict.fromkeys(notes.problems)), max_issues))
-    return Intake(
+    intake = Intake(
         patient=patient, measurements=measurements, issues=condensed_issues(issues, max_issues)
     )
+    intake.addresses = _addresses(message, measurements)
+    if pids and patient is not None:
+        reference, address = patient_address(pids[0], message.header.control_id)
+        if address is not None:
+            intake.patient = replace(patient, reference=reference)
+            intake.addresses[reference] = address
+    return intake
+
+
+def _addresses(message: V2Message, measurements: list[Measurement]) -> dict[str, dict[str, object]]:
+    """How the FHIR result points at each OBX read: no resource exists for it, so a logical
+    reference naming the segment (and the message, by its control id)."""
+    control = message.header.control_id
+    of = f" of message {control}" if control else ""
+    found: dict[str, dict[str, object]] = {}
+    for m in measurements:
+        where = m.source.expression.split("-", 1)[0]  # OBX[7]-5 -> OBX[7]
+        found.setdefault(
+            m.source.reference,
+            {"type": "Observation", "display": f"HL7 v2 {where}{of}"},
+        )
+    return found
 
 
 def _groups(message: V2Message, notes: Notes, clock: Clock) -> tuple[list[Segment], list[Order]]:

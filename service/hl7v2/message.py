@@ -92,6 +92,12 @@ class Segment:
         repetition = _child(self._field(field), rep)
         return [self.value(field, c, 1, rep) for c in range(1, _count(repetition) + 1)]
 
+    def subcomponents(self, field: int, component: int, rep: int = 1) -> list[str]:
+        """The un-escaped sub-components of one component (an HD's namespace, id and type
+        when it is sent inside a component)."""
+        node = _child(_child(self._field(field), rep), component)
+        return [self.value(field, component, s, rep) for s in range(1, _count(node) + 1)]
+
     def repetitions(self, field: int) -> int:
         """How many repetitions the field has (0 when empty)."""
         node = self._field(field)
@@ -148,11 +154,19 @@ class Header:
     processing_id: str = ""
     version: str = ""
     charset: str = ""
+    accept_ack: str = ""  # MSH-15, HL7 table 0155: AL, NE, ER, SU (empty: original mode)
+    application_ack: str = ""  # MSH-16, the same table
 
     @classmethod
     def of(cls, msh: Segment) -> Header:
         def hd(field: int) -> tuple[str, ...]:
-            parts = msh.components(field)
+            """Each component ER7-encoded with its sub-components (``LAB&1.2.3.4&ISO``), so
+            a reply names the application and facility exactly as they were sent."""
+            repetition = msh.components(field)
+            parts = [
+                "&".join(escape(s) for s in msh.subcomponents(field, c)).rstrip("&")
+                for c in range(1, len(repetition) + 1)
+            ]
             while parts and not parts[-1]:
                 parts.pop()
             return tuple(parts)
@@ -170,6 +184,8 @@ class Header:
             processing_id=msh.value(11),
             version=msh.value(12),
             charset=msh.value(18),
+            accept_ack=msh.value(15),
+            application_ack=msh.value(16),
         )
 
 

@@ -215,6 +215,9 @@ class _Connection:
             log.warning("%s: %s", self.peer, event.reason)
             await asyncio.sleep(0)  # made on the loop: let other peers in between refusals
         shared.hooks.message(code)
+        if not body:  # enhanced mode asked for no acknowledgment (MSH-15/16 NE, ER, SU)
+            log.debug("%s: no acknowledgment asked for", self.peer)
+            return
         self.writer.write(frame(body))
         await asyncio.wait_for(self.writer.drain(), self.idle_timeout_s)
         log.debug("%s: answered %s", self.peer, code)

@@ -2,8 +2,10 @@
 
 V2-to-FHIR (segment PID to Patient): PID-7 -> ``Patient.birthDate`` (the time part goes to an
 extension, unused here); PID-8 -> ``Patient.gender`` by table 0001 (F female, M male,
-O/A/N other, U unknown). Names and identifiers are never read into the intake; PID-3 is only
-compared between PID segments, to refuse a message that holds two patients.
+O/A/N other, U unknown). Names are never read; PID-3 is compared between PID segments, to
+refuse a message that holds two patients, and its first identifier names the patient in the
+FHIR result (``patient_address``: V2-to-FHIR maps PID-3 to ``Patient.identifier``), never in a
+log.
 """
 
 from __future__ import annotations
@@ -52,3 +54,25 @@ def read_patient(pids: Sequence[Segment], notes: Notes) -> Patient | None:
         message = "PID-8 is not an HL7 table 0001 sex code; sex is not used"
         notes.issue("field-ignored", Severity.INFORMATION, message, first.at(8))
     return Patient(reference=None, birth_date=birth_date, gender=gender)
+
+
+def patient_address(pid: Segment, control_id: str) -> tuple[str, dict[str, object] | None]:
+    """The key and the logical FHIR Reference of the message's patient: PID-3's first
+    identifier (CX-1), its system an ``urn:oid:`` when the assigning authority (CX-4) is an ISO
+    OID, else the authority's name as the assigner; None when PID-3 is empty."""
+    value = pid.value(3, 1)
+    if not value:
+        return "", None
+    identifier: dict[str, object] = {"value": value}
+    authority, universal, kind = (pid.value(3, 4, s) for s in (1, 2, 3))
+    if universal and kind == "ISO":
+        identifier["system"] = f"urn:oid:{universal}"
+    elif authority:
+        identifier["assigner"] = {"display": authority}
+    of = f" of message {control_id}" if control_id else ""
+    reference: dict[str, object] = {
+        "type": "Patient",
+        "identifier": identifier,
+        "display": f"HL7 v2 PID{of}",
+    }
+    return "Patient/pid-1", reference

@@ -7,14 +7,16 @@ Layout (one order group, filled by us as the filler):
 * ``OBR`` with OBR-2 the placer order number of the message assessed, OBR-3 the decision id,
   OBR-4 our service code, OBR-7 the time of the index gas, OBR-25 ``F``; an order-level ``NTE``
   with the clinical caution;
-* one NM ``OBX`` per derived value of the index gas, in the result's order, coded with LOINC where
-  a term exists (A-a gradient 19991-9, P/F 50984-4, a/A 78354-8; 50984-4 is "Horowitz index in
-  Arterial blood", the other two from memory) and with our own code system otherwise; the A-a
-  gradient with its age limit (OBX-7) and flag (OBX-8 H or N); the equation in OBX-17;
+* one NM ``OBX`` per derived value of the index gas (sub-id 0), in the result's order, coded
+  with LOINC where a term exists (A-a gradient 19991-9 from memory, P/F 50984-4 "Horowitz index
+  in Arterial blood") and with our own code system otherwise (the a/A ratio among them: no LOINC
+  term for it could be confirmed); the A-a gradient with its age limit (OBX-7 ``<limit``, a
+  range form of the standard's) and flag (OBX-8 H or N); the equation in OBX-17, or in an
+  ``NTE`` after the OBX when it is longer than OBX-17's text may be;
 * the PaO2 deficit partition of the index gas (sub-id 3, or 3.1 and 3.2 when it is given for
   each residence at altitude, with an ``NTE`` naming the assumption): one NM ``OBX`` each for
   the expected PaO2, the fall and every part shown (positive lowers the PaO2), with the method
-  in OBX-17; a gas without one gets an ``NTE`` saying why;
+  (OBX-17 or an ``NTE``, as above); a gas without one gets an ``NTE`` saying why;
 * the oxygen-response fit (sub-id 4): NM ``OBX``s for the fitted shunt and V/Q term (or the
   effective shunt when they are not separated) and the FiO2 predicted for the target band
   that applies, each with an ``NTE`` giving its range; an ``NTE`` with the model, any refusal
@@ -34,7 +36,7 @@ from datetime import UTC, datetime
 
 from service.assess.derive import Derived
 from service.assess.partition import ShownPartition, assessment_partitions
-from service.assess.presentation import QUANTITY_ORDER, PressureUnit, quantity
+from service.assess.presentation import QUANTITY_ORDER, PressureUnit, quantity, shown_quantity
 from service.assess.response_view import MODEL_WORDS, applicable_band, band_words
 from service.assess.result import CAUTION, Assessment
 from service.config import Settings
@@ -99,6 +101,10 @@ PATTERNS = {
 }
 
 
+METHOD_TEXT_LIMIT = 199  # CWE.2 / CE.2 (text) is ST(199) in HL7 v2.5.1
+DERIVED_SUB_ID = "0"  # OBX-4 of the derived values (some versions require a sub-id)
+
+
 class _Writer:
     """Numbers the OBX and NTE segments as they are added."""
 
@@ -109,12 +115,19 @@ class _Writer:
         self.nte_count = 0
 
     def obx(self, value_type: str, code: str, value: str, sub_id: str = "", **more: str) -> None:
+        """One OBX; ``method`` (plain text) goes to OBX-17's text when it fits (CE/CWE text is
+        ST(199) in v2.5.1), else to an NTE after the OBX: no field longer than its type."""
         self.obx_count += 1
         self.nte_count = 0
+        method = more.get("method", "")
+        fits = len(method) <= METHOD_TEXT_LIMIT
         fields = [str(self.obx_count), value_type, code, sub_id, value]
         fields += [more.get("unit", ""), more.get("range", ""), more.get("flag", "")]
-        fields += ["", "", "F", "", "", self.when, "", "", more.get("method", "")]
+        fields += ["", "", "F", "", "", self.when, "", ""]
+        fields.append(er7.components("", method) if method and fits else "")
         self.segments.append(er7.segment("OBX", *fields))
+        if method and not fits:
+            self.note(f"Method: {method}")
 
     def note(self, text: str) -> None:
         self.nte_count += 1
@@ -125,7 +138,7 @@ class _Writer:
 
 
 def _derived(w: _Writer, name: str, d: Derived, a: Assessment, unit: PressureUnit) -> None:
-    shown = quantity(name, d.value, d.unit, unit)
+    shown = shown_quantity(name, d, unit)
     loinc = OBSERVATION_CODES.get(name, (None, ""))[0]
     code = (
         er7.components(loinc, DISPLAYS[name], LOINC_V2)
@@ -134,14 +147,14 @@ def _derived(w: _Writer, name: str, d: Derived, a: Assessment, unit: PressureUni
     )
     more = {
         "unit": er7.components(shown["code"], shown["unit"], "UCUM"),
-        "method": er7.components("", d.method),
+        "method": d.method,
     }
     limit = a.index.derived.get("aa-gradient-upper-limit")
     if name == "aa-gradient" and limit is not None:
         bound = quantity("aa-gradient-upper-limit", limit.value, limit.unit, unit)
-        more["range"] = er7.escape(f"<={er7.number(bound['value'])}")
+        more["range"] = er7.escape(f"<{er7.number(bound['value'])}")
         more["flag"] = "H" if d.value > limit.value else "N"
-    w.obx("NM", code, er7.number(shown["value"]), **more)
+    w.obx("NM", code, er7.number(shown["value"]), DERIVED_SUB_ID, **more)
 
 
 def _deficit(w: _Writer, shown: ShownPartition, sub_id: str, unit: PressureUnit) -> None:
@@ -156,7 +169,7 @@ def _deficit(w: _Writer, shown: ShownPartition, sub_id: str, unit: PressureUnit)
             er7.number(shown_value["value"]),
             sub_id,
             unit=er7.components(shown_value["code"], shown_value["unit"], "UCUM"),
-            method=er7.components("", shown.method),
+            method=shown.method,
         )
         if n == 0 and shown.assumption is not None:
             w.note(f"Residence not sent: computed {shown.assumption}.")
@@ -260,6 +273,9 @@ def oru_result(
     service = er7.components(*SERVICE_CODE, tables.DERIVED_SYSTEM)
     obr = ["1", placer, er7.components(a.decision_id, tables.APPLICATION), service]
     obr += ["", "", when] + [""] * 14 + [format_dtm(now), "", "", "F"]
+    if version_tuple(version) < (2, 3, 1):
+        # v2.3's ORU requires OBR-27 (quantity/timing): one result, at the index gas's time.
+        obr += ["", "1^^^" + when]
     segments.append(er7.segment("OBR", *obr))
     segments.append(er7.segment("NTE", "1", "L", er7.escape(CAUTION)))
     w = _Writer(coded, when)

@@ -25,7 +25,13 @@ from service.hl7v2.notes import Notes
 from service.intake.model import Quantity, Severity
 from service.intake.plausibility import out_of_range
 from service.intake.reading import Reading, settle
-from service.physiology.units import FIO2_LIMITS, Dimension, unit_named
+from service.physiology.units import (
+    FIO2_LIMITS,
+    NOT_UCUM,
+    Dimension,
+    accepted_units,
+    unit_named,
+)
 from service.terminology import codes
 from service.terminology.codes import Concept
 
@@ -105,14 +111,43 @@ def _number(obx: Segment, value_type: str, quantity: Quantity, notes: Notes) -> 
     return None
 
 
-def _unit(obx: Segment, concept: Concept) -> str | None:
-    """The unit to convert from: a UCUM triplet of OBX-6 first, else its identifier as sent."""
+_NO_UNIT = ""  # a problem was recorded: the OBX cannot be read
+
+
+def _unit(obx: Segment, concept: Concept, notes: Notes) -> str | None:
+    """The UCUM unit to convert from, None when OBX-6 is empty, or ``_NO_UNIT`` (refused).
+
+    A UCUM triplet of OBX-6 (identifier with coding system UCUM, or the alternate one) is
+    read as it is. As in the FHIR adapter, what is unambiguous is read with a warning
+    (``unit-not-ucum``): a well-known spelling that is not UCUM (``mmHg``) under UCUM, or an
+    identifier with no coding system that names a unit this value takes. An identifier of
+    another coding system (``99LOCAL``, ``L``) with no UCUM alternate is refused: a local code
+    is not UCUM's, whatever it looks like.
+    """
     parts = obx.components(6) + [""] * 6
     for code, system in ((parts[0], parts[2]), (parts[3], parts[5])):
         if code and tables.fhir_system(system) == codes.UCUM:
+            if code in NOT_UCUM:
+                message = f"{unit_named(code)} is not UCUM; read as UCUM '{NOT_UCUM[code]}'"
+                notes.issue("unit-not-ucum", Severity.WARNING, message, obx.at(6))
+                return NOT_UCUM[code]
             return code
-    if parts[0]:
-        return parts[0]
+    code, system = parts[0], parts[2]
+    if code and system:
+        reason = (
+            "OBX-6 is coded in another system than UCUM; send the UCUM code (e.g. mm[Hg]^^UCUM)"
+        )
+        notes.problem(_E.TABLE_VALUE_NOT_FOUND, reason, obx.at(6))
+        return _NO_UNIT
+    if code:
+        meant = NOT_UCUM.get(code, code)
+        if concept.dimension is not None and meant in accepted_units(concept.dimension):
+            message = f"OBX-6 names no coding system; read as UCUM '{meant}'"
+            notes.issue("unit-not-ucum", Severity.WARNING, message, obx.at(6))
+            return meant
+        reason = "OBX-6 names no coding system and no unit this value takes; send a UCUM code"
+        notes.problem(_E.TABLE_VALUE_NOT_FOUND, reason, obx.at(6))
+        return _NO_UNIT
     return "[pH]" if concept.dimension is Dimension.PH else None  # pH has no unit
 
 
@@ -139,7 +174,9 @@ def _convert(
 
 def _quantity(obx: Segment, value: float, concept: Concept, notes: Notes) -> Reading | None:
     quantity = concept.quantity
-    unit = _unit(obx, concept)
+    unit = _unit(obx, concept, notes)
+    if unit == _NO_UNIT:
+        return None
     if unit is None:
         required = "a unit is required: a UCUM code in OBX-6 (e.g. mm[Hg]^^UCUM)"
         notes.problem(_E.REQUIRED_FIELD_MISSING, required, obx.at(6))

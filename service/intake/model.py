@@ -180,3 +180,7 @@ class Intake:
     patient: Patient | None
     measurements: list[Measurement] = field(default_factory=list)
     issues: list[IntakeIssue] = field(default_factory=list)
+    addresses: dict[str, dict[str, object]] = field(default_factory=dict)
+    """How the result points at each input resource, by its ``Source.reference`` (or
+    ``Patient.reference``): a FHIR Reference as JSON (``service.fhir.addresses``). A reference
+    with no entry here is written as the adapter's fallback says."""

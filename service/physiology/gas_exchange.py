@@ -172,7 +172,7 @@ def classify_aa_gradient(*, aa_gradient_mmhg: float, age_years: float) -> AaGrad
 
 
 def arterial_alveolar_ratio(*, arterial_po2_mmhg: float, alveolar_po2_mmhg: float) -> float:
-    """The a/A ratio, PaO2 / PAO2 (LOINC 78354-8); about 0.75 or more is normal (common practice).
+    """The a/A ratio, PaO2 / PAO2; about 0.75 or more is normal (common practice).
 
     Raises:
         ImpossibleValueError: PAO2 not positive (the ratio has no meaning).

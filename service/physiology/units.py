@@ -140,6 +140,17 @@ _CONVERTERS: dict[Dimension, dict[str, Callable[[float], float]]] = {
 # may name, because they come from this table and not from the sender.
 KNOWN_UNITS = frozenset(code for table in _CONVERTERS.values() for code in table)
 
+# The spellings above that are not the UCUM code of what they mean (a UCUM parser refuses
+# them, or, for pH, reads picohenry: tests/physiology/test_units.py), each with the UCUM code
+# it means. Read only with a warning that says so.
+NOT_UCUM: dict[str, str] = {
+    "mmHg": "mm[Hg]",
+    "cmH2O": "cm[H2O]",
+    "degF": "[degF]",
+    "mEq/L": "meq/L",
+    "pH": "[pH]",
+}
+
 
 def unit_named(unit: str) -> str:
     """How a message names a unit that was sent: the code itself only when it is one of the

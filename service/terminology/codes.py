@@ -292,6 +292,8 @@ DERIVED_OBSERVATION_CODES: dict[str, tuple[str | None, str]] = {
     ),
     "pf-ratio": ("50984-4", "Horowitz index in Arterial blood"),
     "sf-ratio": (None, "Oxygen saturation by pulse oximetry / inspired oxygen fraction"),
-    "a-a-ratio": ("78354-8", "Arterial-alveolar oxygen Partial pressure ratio"),
+    # No LOINC term for the a/A ratio could be confirmed (78354-8 was not found in LOINC's
+    # published tables): a code of the project's CodeSystem.
+    "a-a-ratio": (None, "Arterial-alveolar oxygen partial pressure ratio (PaO2 / PAO2)"),
     "shunt-fraction": (None, "Shunt fraction (venous admixture) estimate"),
 }

@@ -87,7 +87,7 @@ def refused(response: httpx.Response, code: str, status: int = 401) -> str:
     assert response.headers["www-authenticate"].startswith('Bearer realm="oxyrule"')
     found = issue(response.json())
     assert found["code"] == code
-    assert found["expression"] == ["http.Authorization"]
+    assert found["location"] == ["http.Authorization"]
     diagnostics: str = found["diagnostics"]
     return diagnostics
 
@@ -204,12 +204,13 @@ BENCH_JSON = {"Content-Type": "application/json"}
 BENCH_CASE = json.dumps({"input": ALTITUDE.read_text()}).encode()
 BENCH_EXPORT = json.dumps({"input": ALTITUDE.read_text(), "name": "x"}).encode()
 # Every route of the app: (method, path, body headers, body, whether it needs credentials).
-# Only liveness, readiness and the CapabilityStatement are public: FHIR and SMART clients read
-# the CapabilityStatement to learn how to authenticate before they hold a token.
+# Only liveness, readiness, the CapabilityStatement and $versions are public: FHIR and SMART
+# clients read them to learn how to talk and authenticate before they hold a token.
 ROUTES: list[tuple[str, str, dict[str, str], bytes, bool]] = [
     ("GET", "/healthz", {}, b"", False),
     ("GET", "/readyz", {}, b"", False),
     ("GET", "/fhir/metadata", {}, b"", False),
+    ("GET", "/fhir/$versions", {}, b"", False),
     ("GET", "/fhir/OperationDefinition/assess-hypoxaemia", {}, b"", True),
     ("GET", "/metrics", {}, b"", True),
     ("GET", "/docs", {}, b"", True),

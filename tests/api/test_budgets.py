@@ -122,7 +122,7 @@ def test_a_body_that_does_not_fit_the_buffered_budget_is_429_until_there_is_room
     assert response.status_code == 429
     assert response.headers["retry-after"] == "1"
     found = issue(response.json())
-    assert found["code"] == "throttled" and found["expression"] == ["http.Content-Length"]
+    assert found["code"] == "throttled" and found["location"] == ["http.Content-Length"]
     assert "OXYRULE_MAX_BUFFERED_BYTES" in found["diagnostics"]
     budget.give(10_000)
     assert client.post(ASSESS, content=ALTITUDE.read_bytes(), headers=FHIR_JSON).is_success
@@ -199,7 +199,7 @@ def test_a_request_that_is_not_valid_http_is_a_located_logged_counted_400(
     assert head.startswith(b"HTTP/1.1 400")
     assert b"content-type: application/fhir+json" in head.lower()
     found = issue(json.loads(body))
-    assert found["expression"] == ["http.request"] and found["diagnostics"] == MALFORMED
+    assert found["location"] == ["http.request"] and found["diagnostics"] == MALFORMED
     assert 'route="other",method="-",status="400"' in client.get("/metrics").text
     logged = [json.loads(line) for line in log_lines()]
     assert any(line.get("status") == 400 and line["route"] == "other" for line in logged)

@@ -17,7 +17,7 @@ def test_metadata_is_a_valid_r4b_capability_statement_naming_the_operation(
     assert response.headers["content-type"] == "application/fhir+json"
     statement = response.json()
     validate_resource(statement)
-    assert statement["fhirVersion"] == FHIR_VERSION == "4.3.0"
+    assert statement["fhirVersion"] == FHIR_VERSION == "4.0.1"  # R4, declared
     assert {"application/fhir+json", "application/fhir+ndjson"} <= set(statement["format"])
     operation = statement["rest"][0]["operation"][0]
     assert operation == {
@@ -67,6 +67,7 @@ def test_openapi_documents_every_route_with_its_docstring(client: TestClient) ->
     assert set(paths) == {
         "/fhir/$assess-hypoxaemia",
         "/fhir/metadata",
+        "/fhir/$versions",
         "/fhir/OperationDefinition/assess-hypoxaemia",
         "/healthz",
         "/readyz",

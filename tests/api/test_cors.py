@@ -36,4 +36,4 @@ def test_cors_allows_only_the_configured_origins(serve: Serve) -> None:
     other = client.options(ASSESS, headers=PREFLIGHT | {"Origin": "https://elsewhere.test"})
     assert "access-control-allow-origin" not in other.headers
     assert other.status_code == 400
-    assert issue(other.json())["expression"] == ["http.Origin"]
+    assert issue(other.json())["location"] == ["http.Origin"]

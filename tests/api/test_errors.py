@@ -49,10 +49,12 @@ def fhir_error(response: httpx.Response, status: int, code: str) -> dict[str, An
 @pytest.mark.parametrize(
     ("body", "status", "code", "expression"),
     [
-        (b"this is not json", 400, "structure", "Bundle"),
-        (b"", 400, "structure", "Bundle"),
-        (b'{"resourceType": "Patient"}', 400, "structure", "Bundle"),
-        (b"[1, 2, 3]", 400, "structure", "Bundle"),
+        # A body that is not a resource has no element to name: no expression (FHIRPath would
+        # select nothing); a resource of another type is named by its type.
+        (b"this is not json", 400, "structure", None),
+        (b"", 400, "structure", None),
+        (b'{"resourceType": "Patient"}', 400, "structure", "Patient"),
+        (b"[1, 2, 3]", 400, "structure", None),
         (
             bundle(observation(80, "psi")),
             422,
@@ -69,11 +71,11 @@ def fhir_error(response: httpx.Response, status: int, code: str) -> dict[str, An
     ids=["not-json", "empty", "not-a-bundle", "array", "unknown-unit", "string-for-number"],
 )
 def test_assess_refuses_bad_bodies_with_a_located_outcome(
-    live: httpx.Client, body: bytes, status: int, code: str, expression: str
+    live: httpx.Client, body: bytes, status: int, code: str, expression: str | None
 ) -> None:
     response = live.post(ASSESS, content=body, headers=FHIR_JSON)
     found = fhir_error(response, status, code)
-    assert found["expression"] == [expression]
+    assert found.get("expression") == (None if expression is None else [expression])
 
 
 @pytest.mark.parametrize(
@@ -85,14 +87,14 @@ def test_assess_refuses_other_media_types_with_415(live: httpx.Client, content_t
         ASSESS, content=ALTITUDE.read_bytes(), headers={"Content-Type": content_type}
     )
     found = fhir_error(response, 415, "not-supported")
-    assert found["expression"] == ["http.Content-Type"]
+    assert found["location"] == ["http.Content-Type"]
     assert "application/fhir+json" in found["diagnostics"]
 
 
 def test_assess_refuses_a_body_without_content_type(live: httpx.Client) -> None:
     response = live.post(ASSESS, content=ALTITUDE.read_bytes())  # httpx sends no Content-Type
     found = fhir_error(response, 415, "not-supported")
-    assert found["expression"] == ["http.Content-Type"]
+    assert found["location"] == ["http.Content-Type"]
 
 
 def test_assess_refuses_a_fhir_version_it_does_not_read(live: httpx.Client) -> None:
@@ -124,7 +126,7 @@ def test_assess_refuses_an_answer_format_it_cannot_give_with_406(
     response = live.post(
         ASSESS, params=params, content=ALTITUDE.read_bytes(), headers=FHIR_JSON | headers
     )
-    assert fhir_error(response, 406, "not-supported")["expression"] == [expression]
+    assert fhir_error(response, 406, "not-supported")["location"] == [expression]
 
 
 def test_assess_refuses_an_unknown_pressure_unit(live: httpx.Client) -> None:
@@ -132,7 +134,7 @@ def test_assess_refuses_an_unknown_pressure_unit(live: httpx.Client) -> None:
         ASSESS, params={"units": "psi"}, content=ALTITUDE.read_bytes(), headers=FHIR_JSON
     )
     found = fhir_error(response, 400, "value")
-    assert found["expression"] == ["http.units"]
+    assert found["location"] == ["http.units"]
     assert "kPa" in found["diagnostics"]
 
 
@@ -152,7 +154,7 @@ def test_assess_refuses_a_declared_length_over_the_limit_before_reading_the_body
     assert head.startswith("HTTP/1.1 413")
     body = json.loads(head.split("\r\n\r\n", 1)[1])
     assert issue(body)["code"] == "too-long"
-    assert issue(body)["expression"] == ["http.Content-Length"]
+    assert issue(body)["location"] == ["http.Content-Length"]
 
 
 def test_assess_refuses_a_streamed_body_once_it_passes_the_limit(serve: Serve) -> None:
@@ -164,7 +166,7 @@ def test_assess_refuses_a_streamed_body_once_it_passes_the_limit(serve: Serve) -
 
     response = client.post(ASSESS, content=chunks(), headers=FHIR_JSON)
     found = fhir_error(response, 413, "too-long")
-    assert found["expression"] == ["Bundle"]
+    assert "expression" not in found  # the body as a whole: no element of it to name
     assert "OXYRULE_MAX_BODY_BYTES" in found["diagnostics"]
 
 
@@ -240,8 +242,8 @@ def test_unknown_paths_and_methods_are_answered_as_fhir(live: httpx.Client) -> N
     found = fhir_error(live.get("/fhir/Patient/1"), 404, "not-found")
     assert "$assess-hypoxaemia" in found["diagnostics"]
     # Located like every other error (they had no expression before).
-    assert found["expression"] == ["http.path"]
-    assert fhir_error(live.get(ASSESS), 405, "not-supported")["expression"] == ["http.method"]
+    assert found["location"] == ["http.path"]
+    assert fhir_error(live.get(ASSESS), 405, "not-supported")["location"] == ["http.method"]
     fhir_error(live.delete("/fhir/metadata"), 405, "not-supported")
 
 
@@ -249,7 +251,7 @@ def test_a_trailing_slash_is_a_located_404_not_an_empty_redirect(live: httpx.Cli
     for path in ("/healthz/", "/fhir/metadata/", ASSESS + "/"):
         answer = live.get(path, follow_redirects=False)
         found = fhir_error(answer, 404, "not-found")  # it was an empty 307
-        assert found["expression"] == ["http.path"] and "slash" in found["diagnostics"]
+        assert found["location"] == ["http.path"] and "slash" in found["diagnostics"]
 
 
 def test_every_error_the_document_offers_is_located(live: httpx.Client) -> None:
@@ -258,12 +260,15 @@ def test_every_error_the_document_offers_is_located(live: httpx.Client) -> None:
         live.put("/healthz"),
         live.post(ASSESS, content=b"{}", headers={"Content-Type": "text/csv"}),
         live.post(ASSESS, content=b"{}", headers=FHIR_JSON, params={"units": "psi"}),
-        live.post(ASSESS, content=b"[", headers=FHIR_JSON),
+        live.post(ASSESS, content=b'{"resourceType": "Patient"}', headers=FHIR_JSON),
         live.get("/fhir/metadata", params={"_format": ""}),
     ]
     for answer in answers:
         assert answer.status_code >= 400
-        assert all(issue["expression"] for issue in answer.json()["issue"]), answer.text
+        # A FHIRPath into the body, or the part of the HTTP request at fault.
+        issues = answer.json()["issue"]
+        assert all(i.get("expression") or i.get("location") for i in issues), answer.text
+        assert not [e for i in issues for e in i.get("expression", []) if e.startswith("http.")]
 
 
 def test_the_document_offers_no_format_or_body_the_service_refuses(live: httpx.Client) -> None:

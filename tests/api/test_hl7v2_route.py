@@ -77,7 +77,7 @@ def test_garbage_is_answered_not_crashed() -> None:
 def test_other_media_types_are_refused_with_415() -> None:
     response = _client().post("/hl7v2", content=V2, headers={"Content-Type": "application/json"})
     assert response.status_code == 415
-    assert response.json()["issue"][0]["expression"] == ["http.Content-Type"]
+    assert response.json()["issue"][0]["location"] == ["http.Content-Type"]
 
 
 def test_authentication_applies_when_configured() -> None:

@@ -83,7 +83,7 @@ def test_a_slow_bundle_body_is_refused_408_after_the_timeout(live_app: LiveApp) 
         headers, _, body = rest.partition(b"\r\n\r\n")
         assert b"connection: close" in headers.lower()
         issue = json.loads(body)["issue"][0]
-        assert (issue["code"], issue["expression"]) == ("timeout", ["Bundle"])
+        assert issue["code"] == "timeout" and "expression" not in issue  # the body as a whole
         assert "OXYRULE_BODY_TIMEOUT_S" in issue["diagnostics"]
         assert 0.4 < took < 5, took
     assert 'status="408"' in metrics(port)

@@ -55,16 +55,17 @@ def edit(path: str, value: object) -> Callable[[Json], None]:
 @pytest.mark.parametrize(
     ("change", "expression"),
     [
-        (edit("group", ...), "ConceptMap.group"),
+        # A missing element is located at the element lacking it (FHIRPath selects that).
+        (edit("group", ...), "ConceptMap"),
         (edit("group", {}), "ConceptMap.group"),
-        (edit("group.0.source", ...), "ConceptMap.group[0].source"),
+        (edit("group.0.source", ...), "ConceptMap.group[0]"),
         (edit("group.0.target", "http://snomed.info/sct"), "ConceptMap.group[0].target"),
-        (edit("group.0.element", ...), "ConceptMap.group[0].element"),
+        (edit("group.0.element", ...), "ConceptMap.group[0]"),
         (edit("group.0.element.0.code", 5), "ConceptMap.group[0].element[0].code"),
-        (edit("group.0.element.0.target.0.equivalence", ...), f"{T}.equivalence"),
+        (edit("group.0.element.0.target.0.equivalence", ...), T),
         (edit("group.0.element.0.target.0.equivalence", "same"), f"{T}.equivalence"),
         (edit("group.0.element.0.target.0.code", "8867-4"), f"{T}.code"),  # not read here
-        (edit("group.0.element.0.target.0.code", ...), f"{T}.code"),
+        (edit("group.0.element.0.target.0.code", ...), T),
         (edit("group.0.element.1.code", "PO2-A"), "ConceptMap.group[0].element[1].target[0].code"),
     ],
 )

@@ -271,7 +271,8 @@ def test_unspecified_blood_without_specimen_is_flagged_unknown() -> None:
     assert m.specimen is Specimen.UNKNOWN
     [issue] = issues(intake, "specimen-unknown")
     assert issue.severity is Severity.WARNING
-    assert issue.expression == "Bundle.entry[0].resource.specimen"
+    # The element that lacks it: a FHIRPath to the absent `specimen` would select nothing.
+    assert issue.expression == "Bundle.entry[0].resource"
 
 
 def specimen(sid: str, system: str, code: str) -> Json:

@@ -49,11 +49,12 @@ def put(path: str, value: object) -> Callable[[Json], object]:
 
 # (what is broken, the change, the exact FHIRPath expected, the issue type expected)
 MALFORMED = [
-    ("status missing", put("status", ...), f"{R}.status", "required"),
+    # A missing element is located at the element that lacks it: FHIRPath to it selects nothing.
+    ("status missing", put("status", ...), R, "required"),
     ("status not a string", put("status", 5), f"{R}.status", "structure"),
     ("status empty", put("status", ""), f"{R}.status", "value"),
     ("status not R4", put("status", "bogus"), f"{R}.status", "code-invalid"),
-    ("code missing", put("code", ...), f"{R}.code", "required"),
+    ("code missing", put("code", ...), R, "required"),
     ("code not an object", put("code", "2703-7"), f"{R}.code", "structure"),
     ("coding not a list", put("code.coding", {}), f"{R}.code.coding", "structure"),
     ("coding item not an object", put("code.coding.0", "x"), f"{R}.code.coding[0]", "structure"),
@@ -64,7 +65,7 @@ MALFORMED = [
         "structure",
     ),
     ("value[x] not an object", put("valueQuantity", 80), f"{R}.valueQuantity", "structure"),
-    ("value missing", put("valueQuantity.value", ...), f"{R}.valueQuantity.value", "required"),
+    ("value missing", put("valueQuantity.value", ...), f"{R}.valueQuantity", "required"),
     ("value a string", put("valueQuantity.value", "80"), f"{R}.valueQuantity.value", "structure"),
     ("value a boolean", put("valueQuantity.value", True), f"{R}.valueQuantity.value", "structure"),
     ("value null", put("valueQuantity.value", None), f"{R}.valueQuantity.value", "structure"),
@@ -81,7 +82,7 @@ MALFORMED = [
         "value",
     ),
     ("unit not convertible", put("valueQuantity.code", "mg"), f"{R}.valueQuantity.code", "value"),
-    ("unit missing", put("valueQuantity", {"value": 80}), f"{R}.valueQuantity.code", "required"),
+    ("unit missing", put("valueQuantity", {"value": 80}), f"{R}.valueQuantity", "required"),
     (
         "unit text bad",
         put("valueQuantity", {"value": 80, "unit": "torr?"}),
@@ -132,7 +133,7 @@ MALFORMED = [
     (
         "component without code",
         put("component", [{"valueQuantity": {"value": 2}}]),
-        f"{R}.component[0].code",
+        f"{R}.component[0]",
         "required",
     ),
     ("meta.profile not a list", put("meta.profile", "x"), f"{R}.meta.profile", "structure"),
@@ -176,7 +177,7 @@ def test_unspecified_blood_specimen_reference_is_checked() -> None:
         ({"resourceType": "Bundle", "type": "collection", "entry": [[]]}, "Bundle.entry[0]"),
         (
             {"resourceType": "Bundle", "type": "collection", "entry": [{"fullUrl": "x"}]},
-            "Bundle.entry[0].resource",
+            "Bundle.entry[0]",
         ),
         (
             {"resourceType": "Bundle", "type": "collection", "entry": [{"resource": []}]},
@@ -184,7 +185,7 @@ def test_unspecified_blood_specimen_reference_is_checked() -> None:
         ),
         (
             {"resourceType": "Bundle", "type": "collection", "entry": [{"resource": {}}]},
-            "Bundle.entry[0].resource.resourceType",
+            "Bundle.entry[0].resource",
         ),
         (
             {
@@ -196,7 +197,7 @@ def test_unspecified_blood_specimen_reference_is_checked() -> None:
         ),
         ({"resourceType": "Bundle", "type": "bogus"}, "Bundle.type"),
         ({"resourceType": "Bundle", "type": 1}, "Bundle.type"),
-        ({"resourceType": "Bundle", "entry": []}, "Bundle.type"),  # 1..1: never guessed
+        ({"resourceType": "Bundle", "entry": []}, "Bundle"),  # type is 1..1: never guessed
     ],
 )
 def test_malformed_bundle_element_is_a_located_error(data: Json, expression: str) -> None:
@@ -226,24 +227,26 @@ def test_malformed_location_altitude_is_a_located_error() -> None:
 
 
 @pytest.mark.parametrize(
-    ("data", "found"),
+    ("data", "found", "expression"),
     [
-        ([], "JSON array"),
-        ("Bundle", "JSON string"),
-        (42, "JSON number"),
-        (None, "JSON null"),
-        (True, "JSON boolean"),
-        ({}, "an object without a FHIR resourceType"),
-        ({"resourceType": "Patient", "id": "pt-1"}, "a Patient resource"),
-        ({"resourceType": 7}, "an object without a FHIR resourceType"),
+        # Not a resource: nothing in it a FHIRPath could select, so no expression ('').
+        ([], "JSON array", ""),
+        ("Bundle", "JSON string", ""),
+        (42, "JSON number", ""),
+        (None, "JSON null", ""),
+        (True, "JSON boolean", ""),
+        ({}, "an object without a FHIR resourceType", ""),
+        # Another resource: named by its type, which selects it.
+        ({"resourceType": "Patient", "id": "pt-1"}, "a Patient resource", "Patient"),
+        ({"resourceType": 7}, "an object without a FHIR resourceType", ""),
     ],
 )
-def test_non_bundle_input_is_refused(data: object, found: str) -> None:
+def test_non_bundle_input_is_refused(data: object, found: str, expression: str) -> None:
     # A body that is not a Bundle is a 400, told apart from a fixable Bundle (a 422).
     with pytest.raises(NotABundleError):
         read_bundle(data)
     [problem] = refused(data)
-    assert (problem.expression, problem.code) == ("Bundle", "structure")
+    assert (problem.expression, problem.code) == (expression, "structure")
     assert problem.diagnostics.endswith(found)
 
 

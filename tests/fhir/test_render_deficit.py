@@ -19,6 +19,8 @@ DERIVED = "https://oxyrule.org/fhir/CodeSystem/derived"
 # Display precision: 0.1 mm[Hg], 0.01 kPa (each value rounded once).
 MMHG_TOLERANCE, KPA_TOLERANCE = 0.05 + 1e-9, 0.005 + 1e-9
 
+BASE = "https://example.org/fhir/"  # the base of the reference Bundle's fullUrls
+
 
 @pytest.fixture(scope="module")
 def runtime() -> Runtime:
@@ -66,7 +68,11 @@ def test_the_deficit_parameter_holds_the_independently_computed_partition(
     ref = reference()
     result = runtime.assess_bundle(reference_bundle(), pressure_unit=unit)  # type: ignore[arg-type]
     (deficit,) = _deficits(result)
-    assert deficit["observation"]["valueReference"] == {"reference": "Observation/pao2"}
+    # The input's entries have RESTful fullUrls: the result points at them absolutely.
+    assert deficit["observation"]["valueReference"] == {
+        "reference": f"{BASE}Observation/pao2",
+        "type": "Observation",
+    }
     assert deficit["index"]["valueBoolean"] is True
     assert deficit["pao2-basis"]["valueCode"] == "measured"
     expected = {
@@ -115,14 +121,15 @@ def test_the_partition_observation_has_a_component_per_part_and_its_inputs(
         assert quantity["code"] == "mm[Hg]"
         assert quantity["value"] == pytest.approx(mmhg, abs=MMHG_TOLERANCE), code
     assert {d["reference"] for d in obs["derivedFrom"]} == {
-        "Observation/pao2",
-        "Observation/paco2",
-        "Observation/fio2",
-        "Observation/pb",
+        f"{BASE}Observation/pao2",
+        f"{BASE}Observation/paco2",
+        f"{BASE}Observation/fio2",
+        f"{BASE}Observation/pb",
     }
     assert "Cerveri 1995" in obs["method"]["text"]
     assessment = _observation(result, "mechanism-assessment")
-    assert {"reference": "Observation/pao2-deficit-partition"} in assessment["derivedFrom"]
+    entry_url = next(e["fullUrl"] for e in result["entry"] if e["resource"] is obs)
+    assert {"reference": entry_url} in assessment["derivedFrom"]
     validate_resource(result)
     assert contract_problems(result) == []
 
@@ -203,10 +210,10 @@ def test_an_unknown_residence_at_altitude_gives_one_partition_per_residence(
         assert residence["valueCodeableConcept"]["coding"][0]["code"] == code
         assert "Residence not sent" in obs["note"][0]["text"]
         assert {d["reference"] for d in obs["derivedFrom"]} == {
-            "Observation/pao2",
-            "Observation/paco2",
-            "Observation/fio2",
-            "Observation/altitude",
+            f"{BASE}Observation/pao2",
+            f"{BASE}Observation/paco2",
+            f"{BASE}Observation/fio2",
+            f"{BASE}Observation/altitude",
         }
     validate_resource(result)
     assert contract_problems(result) == []

@@ -83,7 +83,7 @@ def gas(*extra: str, pao2: str = "62", paco2: str = "65") -> str:
 
 
 def fixture(name: str) -> str:
-    """A v2 fixture's text (stored with LF line ends for reading; the parser takes both)."""
+    """A v2 fixture's text (segments end with CR, as HL7 v2 says)."""
     return (FIXTURES / name).read_text(encoding="utf-8")
 
 

@@ -49,7 +49,7 @@ def test_assess_exits_2_with_an_operation_outcome_for_a_refused_message(tmp_path
     assert done.returncode == 2
     outcome = json.loads(done.stdout)
     assert outcome["resourceType"] == "OperationOutcome"
-    assert outcome["issue"][0]["expression"] == ["OBX[1]-5"]
+    assert outcome["issue"][0]["location"] == ["OBX[1]-5"]  # v2, not FHIRPath
 
 
 def test_mllp_subcommand_options() -> None:

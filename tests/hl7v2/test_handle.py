@@ -96,7 +96,9 @@ def test_fhir_reply_to_a_refused_message_is_an_operation_outcome(runtime: Runtim
     outcome = orjson.loads(response.body)
     assert outcome["resourceType"] == "OperationOutcome"
     (issue,) = outcome["issue"]
-    assert (issue["severity"], issue["code"], issue["expression"]) == (
+    # The v2 location is not FHIRPath: issue.location, never issue.expression.
+    assert "expression" not in issue
+    assert (issue["severity"], issue["code"], issue["location"]) == (
         "error",
         "code-invalid",
         ["OBX[1]-6"],

@@ -111,7 +111,14 @@ def test_patient_birth_date_and_sex_from_pid_7_and_pid_8() -> None:
     # V2F: PID-7 -> Patient.birthDate; PID-8 -> Patient.gender (F -> female).
     assert intake.patient.birth_date == date(1961, 4, 12)
     assert intake.patient.gender == "female"
-    assert intake.patient.reference is None  # no identifier is carried into the intake
+    # The patient is named in the FHIR result by PID-3 (V2F: PID-3 -> Patient.identifier),
+    # through a key of our own: the identifier is in the result's reference only.
+    assert intake.patient.reference == "Patient/pid-1"
+    assert intake.addresses["Patient/pid-1"]["identifier"] == {
+        "value": "TEST-0001",
+        "assigner": {"display": "INVENTED"},
+    }
+    assert "TEST-0001" not in repr(intake.patient)
 
 
 @pytest.mark.parametrize(

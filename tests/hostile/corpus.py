@@ -35,7 +35,9 @@ class Case:
     transport: str  # http (a Bundle), ndjson, hl7v2 (HTTP), mllp, jwt
     body: Callable[[], bytes]
     status: int  # HTTP status (mllp: 0)
-    where: str | None  # the expression (or HL7 v2 ERR-2) that must locate the refusal
+    # The expression, HTTP location (or HL7 v2 ERR-2) that must locate the refusal; '' when
+    # the body as a whole is at fault (no element of it can be named); None: not checked.
+    where: str | None
     seconds: float = 2.0  # bound on the answer's time (generous: shared machine, and tracing)
     mebibytes: float = 64.0  # bound on the peak of memory allocated while answering
     headers: dict[str, str] = field(default_factory=dict)
@@ -193,7 +195,7 @@ CASES: tuple[Case, ...] = (
         "http",
         without("type"),
         422,
-        "Bundle.type",
+        "Bundle",  # the element that lacks it: Bundle.type would select nothing
         headers={"Content-Type": FHIR_JSON},
     ),
     Case(
@@ -201,7 +203,7 @@ CASES: tuple[Case, ...] = (
         "http",
         lambda: dumps({"resourceType": MARKER}),
         400,
-        "Bundle",
+        "",
         headers={"Content-Type": FHIR_JSON},
     ),
     Case(
@@ -217,7 +219,7 @@ CASES: tuple[Case, ...] = (
         "http",
         lambda: b"[" * 5000 + b"]" * 5000,
         400,
-        "Bundle",
+        "",
         headers={"Content-Type": FHIR_JSON},
     ),
     Case(
@@ -225,7 +227,7 @@ CASES: tuple[Case, ...] = (
         "http",
         lambda: b"\xff\xfe\x00" + MARKER.encode(),
         400,
-        "Bundle",
+        "",
         headers={"Content-Type": FHIR_JSON},
     ),
     Case(
@@ -277,7 +279,7 @@ CASES: tuple[Case, ...] = (
         "ndjson",
         lambda: dumps({"resourceType": MARKER}) + b"\n" + NDJSON_LINE + b"\n",
         200,
-        "Bundle",
+        "",
         headers={"Content-Type": NDJSON},
     ),
     Case(
@@ -301,7 +303,7 @@ CASES: tuple[Case, ...] = (
         "ndjson",
         lambda: b'{"x": "' + b"a" * (5 * 1024 * 1024) + b'"}\n' + NDJSON_LINE + b"\n",
         200,
-        "Bundle",
+        "",
         mebibytes=96.0,
         headers={"Content-Type": NDJSON},
     ),

@@ -116,7 +116,7 @@ def test_aa_gradient_sign_convention() -> None:
 
 
 def test_arterial_alveolar_ratio() -> None:
-    # Definition (LOINC 78354-8, a/A = PaO2 / PAO2); 90 / 101.8 = 0.884.
+    # Definition (a/A = PaO2 / PAO2, common practice); 90 / 101.8 = 0.884.
     assert g.arterial_alveolar_ratio(
         arterial_po2_mmhg=90.0, alveolar_po2_mmhg=101.8
     ) == pytest.approx(0.884, abs=0.001)

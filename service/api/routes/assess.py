@@ -17,7 +17,7 @@ from service.api.deps import (
     service_of,
 )
 from service.api.errors import FHIR_JSON, ApiError, outcome
-from service.api.media import BodyKind, answer_type, body_kind
+from service.api.media import BodyKind, body_kind, negotiate
 from service.api.middleware import ASSESS_PATH
 from service.api.ndjson import NdjsonAnswer
 from service.api.sending import PacedResponse
@@ -54,7 +54,8 @@ OPENAPI: dict[str, Any] = {
     "security": [{}, {"bearer": []}],
     "requestBody": {
         "required": True,
-        "description": "One FHIR R4/R4B Bundle, or NDJSON with one Bundle per line.",
+        "description": "One FHIR R4 Bundle, or a Parameters resource holding it (`resource`, "
+        "and `units` as a valueCode), or NDJSON with one of those per line.",
         "content": {
             "application/fhir+json": {"schema": {"type": "object"}},
             "application/json": {"schema": {"type": "object"}},
@@ -90,20 +91,21 @@ def _count(service: ServiceState, result: Tally) -> None:
 async def assess_hypoxaemia(request: Request) -> Response:
     """Assess the likely mechanism of hypoxaemia of one Bundle (or of each NDJSON line).
 
-    Send the Bundle as the body (`application/fhir+json`). The answer is the result Bundle:
-    GuidanceResponse, Parameters with the verdict, OperationOutcome with findings and the
-    clinical caution, derived Observations. With `application/fhir+ndjson` each line is one
-    Bundle and the answer streams one line per input line, in order; a line that cannot be
-    assessed is answered by an OperationOutcome naming it. Decision support for qualified
-    clinicians, not a diagnosis.
+    Send the Bundle as the body (`application/fhir+json`), or a Parameters resource holding it
+    (`resource`, and `units` as a valueCode). The answer is the result Bundle: GuidanceResponse,
+    Parameters with the verdict and every finding, OperationOutcome with how the input was
+    processed and the clinical caution, a DetectedIssue per data-quality problem, derived
+    Observations. With `application/fhir+ndjson` each line is one Bundle and the answer streams
+    one line per input line, in order; a line that cannot be assessed is answered by an
+    OperationOutcome naming it. Decision support for qualified clinicians, not a diagnosis.
     """
     service, record = service_of(request), record_of(request)
     caller_of(request)  # 401/403 before anything is read
     units = pressure_unit(request.query_params.get("units"))
     kind = body_kind(request.headers.get("content-type"))
-    media_type = answer_type(
+    media_type = negotiate(
         kind, request.query_params.get("_format"), request.headers.get("accept")
-    )
+    ).content_type
     if kind is BodyKind.NDJSON:
         return await _ndjson(request, service, record, units, media_type)
     server = service.server
@@ -140,7 +142,7 @@ async def _ndjson(
     lines = ndjson_lines(request.stream(), server.max_body_bytes, pace)
     first: Line | None = await anext(lines, None)
     if first is None:
-        raise ApiError(400, outcome("required", "the NDJSON body has no lines", "Bundle"))
+        raise ApiError(400, outcome("required", "the NDJSON body has no lines"))
     record.lines, record.rejected = 0, 0
 
     def on_line(result: Tally) -> None:

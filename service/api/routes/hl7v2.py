@@ -18,7 +18,11 @@ V2_MEDIA_TYPES = ("x-application/hl7-v2+er7", "application/hl7-v2", "text/plain"
 NO_STORE = {"Cache-Control": "no-store"}
 
 RESPONSES: dict[int | str, dict[str, object]] = {
-    200: {"description": "ACK with MSA-1 AA (or the FHIR result / ORU^R01 result on request)"},
+    200: {
+        "description": "ACK with MSA-1 AA (or the FHIR result / ORU^R01 result on request); "
+        "in enhanced mode the commit ACK CA when only that is asked for"
+    },
+    204: {"description": "Enhanced mode (MSH-15/MSH-16) asked for no acknowledgment here"},
     400: {"description": "ACK with MSA-1 AR: unsupported type, version or processing id"},
     401: {"description": "Authentication required or failed (OperationOutcome)"},
     413: {"description": "Body over the size limit (OperationOutcome)"},
@@ -54,8 +58,10 @@ async def assess_v2(request: Request) -> Response:
 
     AA only once the message was fully assessed; AE (with ERR segments naming segment, field
     and reason) when it parsed but could not be assessed; AR for an unsupported message type,
-    version or processing id. MSA-2 echoes MSH-10. Decision support for qualified clinicians,
-    not a diagnosis.
+    version or processing id. MSA-2 echoes MSH-10. The reply uses the segments and fields of
+    the message's version. In enhanced mode (MSH-15/MSH-16: AL, NE, ER, SU) the application
+    ACK when asked for, else the commit ACK (CA, CR) when asked for, else no body (204).
+    Decision support for qualified clinicians, not a diagnosis.
     """
     service, record = service_of(request), record_of(request)
     caller_of(request)
