@@ -89,6 +89,8 @@ def pressure_text(value_mmhg: float, unit: PressureUnit, decimals: int = 1) -> s
 def pressure_label(unit: PressureUnit) -> str:
     """The unit as a reader writes it: ``mmHg`` or ``kPa``."""
     return "mmHg" if unit == "mm[Hg]" else "kPa"
+
+
 def shown_quantity(name: str, d: Derived, pressure_unit: PressureUnit) -> Json:
     """A derived value's Quantity. S/F is SpO2 in % over FiO2 as a fraction, so its number
     (e.g. 405) is in UCUM ``%``; unit ``1`` would make it 405, not 4.05 (UCUM: % = 10^-2)."""

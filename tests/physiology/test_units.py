@@ -128,6 +128,8 @@ def test_fio2_just_above_one_is_refused_whichever_way_it_is_read() -> None:
     assert u.normalise_fio2(1.0, "%") == u.Fio2(fraction=1.0, reinterpreted=True)
     assert u.normalise_fio2(100.0, "%") == u.Fio2(fraction=1.0, reinterpreted=False)
     assert u.FIO2_LIMITS == (0.10, 1.0)  # 10 % (hypoxic test gas) to pure oxygen
+
+
 def test_the_units_read_as_ucum_are_ucum_and_the_others_are_named() -> None:
     # ucumvert (a UCUM grammar from the registry) parses every code read as UCUM; the
     # spellings read with a warning are not UCUM, but "pH", which UCUM reads as picohenry
