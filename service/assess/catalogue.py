@@ -24,6 +24,7 @@ from service.intake.model import CODED, QUANTITY_UNITS, Quantity
 from service.intake.plausibility import POSSIBLE_RANGE
 from service.physiology.bounds import AGE_YEARS
 from service.physiology.oxygen_delivery import OxygenDevice
+from service.physiology.reference import Residence
 from service.physiology.units import to_fact_unit
 
 from .derivation import check_order
@@ -34,7 +35,7 @@ from .titration import FITTED_FACTS
 __all__ = ["AGE", "DEFAULT_CATALOGUE", "MEASURED", "OXYGEN_DEVICES", "PROVENANCE"]
 
 OXYGEN_DEVICES = frozenset(device.value for device in OxygenDevice)
-ALTITUDE_RESIDENCES = frozenset({"resident", "visitor"})
+ALTITUDE_RESIDENCES = frozenset(residence.value for residence in Residence)
 _CODES = {Quantity.OXYGEN_DEVICE: OXYGEN_DEVICES, Quantity.ALTITUDE_RESIDENCE: ALTITUDE_RESIDENCES}
 AGE = "age"
 

@@ -26,6 +26,7 @@ from types import MappingProxyType
 from service.exceptions import UnitError
 from service.intake.model import QUANTITY_UNITS, Fio2Source, Quantity, Specimen
 from service.physiology.oxygen_delivery import OxygenDevice
+from service.physiology.reference import Residence
 from service.physiology.units import Dimension, normalise_fio2, to_canonical, unit_named
 
 # --- Code system and profile URLs -----------------------------------------------------------
@@ -211,7 +212,7 @@ def concept_for(system: str, code: str) -> Concept | None:
 # --- Coded values (valueCodeableConcept, a coded OBX-5) ---------------------------------------
 
 OXYGEN_DEVICES = frozenset(device.value for device in OxygenDevice)
-ALTITUDE_RESIDENCES = frozenset({"resident", "visitor"})
+ALTITUDE_RESIDENCES = frozenset(residence.value for residence in Residence)
 
 # SNOMED CT physical-object concepts -> our device codes. Only codes that several independent
 # public code tables and HL7 IG ConceptMaps name the same way (secondary evidence, "2ry");

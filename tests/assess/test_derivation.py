@@ -81,23 +81,44 @@ def test_a_computation_takes_keyword_only_facts_and_none_defaults() -> None:
         table.quantity("y", "1", (0.0, 1.0), 2, "y")(defaulted)
 
 
-def test_shunt_fraction_without_haemoglobin_asks_for_haemoglobin() -> None:
-    # The shunt equation needs the haemoglobin; a data request must name it, not the shunt
-    # fraction (a number nobody can send).
-    assert "haemoglobin" in DEFAULT_CATALOGUE["shunt_fraction"].inputs
+def _needs(name: str) -> set[str]:
+    """Every fact a catalogue entry reads, through the derived facts it reads."""
+    spec = DEFAULT_CATALOGUE[name]
+    found = set(spec.inputs)
+    for input_name in spec.inputs:
+        found |= _needs(input_name)
+    return found
+
+
+@pytest.mark.parametrize(
+    ("fact", "fio2"),
+    [
+        # 2.0 (rules/CHANGELOG.md, "venous admixture labelled so below FiO2 0.9"): the shunt
+        # fraction is the venous admixture on near-pure oxygen and reads it, not the Hb
+        # directly, so the Hb is asked for through the admixture, on an FiO2 where the shunt
+        # fraction is defined.
+        ("shunt_fraction", 1.0),
+        ("venous_admixture", 0.6),
+        ("venous_admixture_least", 0.6),
+        ("venous_admixture_most", 0.6),
+    ],
+)
+def test_an_admixture_without_haemoglobin_asks_for_haemoglobin(fact: str, fio2: float) -> None:
+    # The shunt equation needs the haemoglobin (the content of end-capillary and arterial
+    # blood: 1.34 x Hb x S + 0.003 x PO2, common practice); a data request must name it, not
+    # the admixture or the shunt fraction (numbers nobody can send).
+    assert "haemoglobin" in _needs(fact)
     known = {
         "arterial_po2": 60.0,
         "arterial_pco2": 40.0,
-        "fio2": 0.6,
+        "fio2": fio2,
         "barometric_pressure": 760.0,
         "water_vapour_pressure": 47.1,
         "alveolar_po2": 380.0,
     }
     requests = DataRequests(known, DEFAULT_CATALOGUE)
-    requests.ask("shunt_fraction", "r@1")
-    assert [(r.fact, r.needed_for) for r in requests.collected()] == [
-        ("haemoglobin", ("shunt_fraction",))
-    ]
+    requests.ask(fact, "r@1")
+    assert [(r.fact, r.needed_for) for r in requests.collected()] == [("haemoglobin", (fact,))]
 
 
 def test_a_value_outside_its_range_is_a_problem_and_nothing_is_computed_from_it() -> None:

@@ -17,18 +17,21 @@ from service.assess.assess import assess
 from service.assess.catalogue import DEFAULT_CATALOGUE, MEASURED_FACTS
 from service.config import Settings
 from service.engine import FindingCode
-from service.intake.model import QUANTITY_UNITS, Intake, Patient, Quantity
+from service.engine.facts import FactKind
+from service.intake.model import CODED, QUANTITY_UNITS, Intake, Patient, Quantity
 from service.intake.plausibility import POSSIBLE_RANGE, out_of_range
 from service.physiology.units import to_fact_unit
 from service.runtime import Runtime
+from service.terminology.codes import CODE_SYSTEM_OF, coded_value
 
 from .builders import intake, m
 
 RUNTIME = Runtime.load()
 RULESET = RUNTIME.ruleset
-NUMERIC = [
-    measured for measured in MEASURED_FACTS if measured.quantity is not Quantity.OXYGEN_DEVICE
-]
+# Coded facts (the oxygen device; since 2.0 also the residence at altitude, resident or
+# visitor) have allowed codes, not a range: they are checked against the intake's codes below.
+NUMERIC = [measured for measured in MEASURED_FACTS if measured.quantity not in CODED]
+CODED_FACTS = [measured for measured in MEASURED_FACTS if measured.quantity in CODED]
 
 
 @pytest.mark.parametrize("measured", NUMERIC, ids=lambda measured: measured.name)
@@ -51,6 +54,22 @@ def test_every_intake_quantity_a_rule_reads_has_a_possible_range() -> None:
     for measured in NUMERIC:
         assert measured.quantity in POSSIBLE_RANGE
         assert QUANTITY_UNITS[measured.quantity] in ("1", measured.unit)
+
+
+def test_every_coded_fact_accepts_exactly_the_codes_the_intake_accepts() -> None:
+    assert {measured.quantity for measured in CODED_FACTS} == set(CODED)
+    for measured in CODED_FACTS:
+        spec = DEFAULT_CATALOGUE[measured.name]
+        assert spec.kind is FactKind.CODE and spec.unit is None
+        assert (spec.minimum, spec.maximum) == (None, None)
+        system = CODE_SYSTEM_OF[measured.quantity]
+        for code in spec.allowed:
+            assert coded_value(measured.quantity, system, code) == code, code
+            assert spec.problem(code) is None
+        assert coded_value(measured.quantity, system, "no-such-code") is None
+        assert spec.problem("no-such-code") is not None
+    residence = DEFAULT_CATALOGUE[Quantity.ALTITUDE_RESIDENCE.value]
+    assert residence.allowed == {"resident", "visitor"}
 
 
 def test_barometric_pressure_of_180_is_refused_at_intake_not_after_it() -> None:
@@ -95,6 +114,10 @@ def _values(quantity: Quantity) -> st.SearchStrategy[float]:
 def _intakes(draw: st.DrawFn) -> Intake:
     chosen = draw(st.lists(st.sampled_from(NUMERIC), unique=True, max_size=len(NUMERIC)))
     measurements = [m(measured.quantity, draw(_values(measured.quantity))) for measured in chosen]
+    for measured in CODED_FACTS:  # a code, when drawn, from the codes the intake accepts
+        codes = sorted(DEFAULT_CATALOGUE[measured.name].allowed)
+        if draw(st.booleans()):
+            measurements.append(m(measured.quantity, draw(st.sampled_from(codes))))
     if draw(st.booleans()):
         measurements.append(m(Quantity.ARTERIAL_PO2, draw(_values(Quantity.ARTERIAL_PO2))))
     born = draw(st.dates(min_value=date(1900, 1, 1), max_value=date(2026, 1, 1)))

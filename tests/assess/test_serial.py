@@ -140,3 +140,48 @@ def test_an_estimated_fio2_widens_the_least_fall() -> None:
     nominal = facts["admixture_at_lower_fio2"] - facts["admixture_at_higher_fio2"]
     assert facts["admixture_fall_least"] <= nominal + 1e-9
     assert facts["admixture_change_largest"] >= abs(nominal) - 1e-9
+
+
+def test_on_a_tie_in_fio2_step_the_later_pair_is_compared() -> None:
+    # Two pairs span the same FiO2 step (0.4 to 0.6): the pair with the later gas decides, the
+    # lung nearest the index gas (the module's rule). [calc] The later pair's PaO2 change is
+    # PaO2(0.6, 10 %) - PaO2(0.4, 10 %); the earlier pair's, PaO2(0.6, 30 %) - the same.
+    latest, middle = pao2_for_shunt(0.6, 0.1), pao2_for_shunt(0.4, 0.1)
+    earliest = pao2_for_shunt(0.6, 0.3)
+    data = intake(*gas(-120, 0.6, earliest), *gas(-60, 0.4, middle), *gas(0, 0.6, latest))
+    facts = serial_facts(facts_of(data), settings=Settings())
+    assert facts["fio2_step"] == pytest.approx(0.2)
+    assert facts["pao2_change"] == pytest.approx(latest - middle)
+    assert facts["admixture_at_higher_fio2"] == pytest.approx(10.0, abs=0.5)
+    # The same three gases in the other order: the 30 % gas is now the later one.
+    data = intake(*gas(-120, 0.6, latest), *gas(-60, 0.4, middle), *gas(0, 0.6, earliest))
+    facts = serial_facts(facts_of(data), settings=Settings())
+    assert facts["pao2_change"] == pytest.approx(earliest - middle)
+    assert facts["admixture_at_higher_fio2"] == pytest.approx(30.0, abs=0.5)
+
+
+def test_gases_on_one_fio2_give_no_comparison() -> None:
+    data = intake(*gas(-60, 0.4, pao2_for_shunt(0.4, 0.1)), *gas(0, 0.4, pao2_for_shunt(0.4, 0.2)))
+    assert serial_facts(facts_of(data), settings=Settings()) == {}
+
+
+def test_an_earlier_gas_without_admixture_gives_no_admixture_comparison() -> None:
+    # The earlier gas has no Hb within the site's (shortened) Hb window, so no admixture of
+    # its own: the step and the PaO2 change are still facts, no change of admixture is.
+    settings = Settings(haemoglobin_window_hours=1.0)
+    low, high = pao2_for_shunt(0.3, 0.2), pao2_for_shunt(0.6, 0.2)
+    data = intake(
+        m(Q.ARTERIAL_PO2, low, -120),
+        m(Q.ARTERIAL_PCO2, PACO2, -120),
+        m(Q.FIO2, 0.3, -120),
+        m(Q.BAROMETRIC_PRESSURE, PB, -120),
+        *gas(0, 0.6, high),  # with its Hb, paired with this gas only
+    )
+    pairing = pair_gases(data, windows=windows(settings))
+    gases = [
+        derive_gas_facts(g, patient=data.patient, settings=settings, today=date(2026, 11, 20))
+        for g in pairing.gases
+    ]
+    assert "venous_admixture" in gases[0].facts and "venous_admixture" not in gases[1].facts
+    facts = serial_facts(gases, settings=settings)
+    assert facts == {"fio2_step": pytest.approx(0.3), "pao2_change": pytest.approx(high - low)}

@@ -95,18 +95,6 @@ def test_methaemoglobin_carries_no_oxygen_in_the_content() -> None:
     assert plain.derived["arterial-o2-content"].value == pytest.approx(19.78, abs=0.005)
 
 
-def _serial(*fio2s: float) -> list[GasFacts]:
-    measurements = []
-    for position, fio2 in enumerate(fio2s):
-        minutes = -60.0 * position  # latest first
-        measurements += [
-            m(Q.ARTERIAL_PO2, 60.0 + 10 * position, minutes),
-            m(Q.ARTERIAL_PCO2, 40.0, minutes),
-            m(Q.FIO2, fio2, minutes),
-        ]
-    return gases(intake(*measurements))
-
-
 def test_the_reservoir_mask_estimate_is_mid_range() -> None:
     # BTS 2017 device table (via secondary summaries): a non-rebreather at 10-15 L/min gives
     # 0.60-0.90; the estimate is the middle, 0.75.
@@ -139,9 +127,19 @@ def test_the_flat_curve_switch_is_at_an_arterial_po2_of_150(
 
 
 def test_a_true_shunt_is_named_only_on_an_fio2_of_about_one() -> None:
+    # Below near-pure oxygen the shunt equation measures venous admixture (shunt plus low-V/Q
+    # units), which oxygen corrects (Benatar SR, Hewlett AM, Nunn JF, Br J Anaesth
+    # 1973;45:711). 2.0 (rules/CHANGELOG.md, docs/clinical-logic.md) files it as
+    # `venous-admixture` at every FiO2 and adds a `shunt-fraction` only on FiO2 >= 0.99.
     base = (m(Q.ARTERIAL_PO2, 200.0), m(Q.ARTERIAL_PCO2, 40.0), m(Q.HAEMOGLOBIN, 14.0))
     on_air = gas(*base, m(Q.FIO2, 0.6))
     on_oxygen = gas(*base, m(Q.FIO2, 0.99))
-    assert on_air.derived["shunt-fraction"].method.endswith("; venous admixture")
-    assert on_oxygen.derived["shunt-fraction"].method.endswith("; true shunt")
-    assert gas(*base, m(Q.FIO2, 0.95)).derived["shunt-fraction"].method.endswith("admixture")
+    assert on_air.derived["venous-admixture"].method.endswith("; venous admixture")
+    assert "shunt-fraction" not in on_air.derived and "shunt_fraction" not in on_air.facts
+    assert on_oxygen.derived["venous-admixture"].method.endswith("; shunt (on near-pure oxygen)")
+    assert on_oxygen.facts["shunt_fraction"] == on_oxygen.facts["venous_admixture"]
+    assert "shunt-fraction" in on_oxygen.derived
+    nearly = gas(*base, m(Q.FIO2, 0.95))
+    assert nearly.derived["venous-admixture"].method.endswith("; venous admixture")
+    assert "shunt_fraction" not in nearly.facts
+    assert c.TRUE_SHUNT_MIN_FIO2 == 0.99

@@ -41,3 +41,21 @@ def test_requests_come_out_in_catalogue_order() -> None:
     for fact in ("peep", "spo2", "arterial_po2"):
         requests.ask(fact, "r@1")
     assert [item.fact for item in requests.collected()] == ["arterial_po2", "spo2", "peep"]
+
+
+def test_a_derived_fact_whose_inputs_are_known_asks_for_its_missing_optional_inputs() -> None:
+    # 2.0 (rules/CHANGELOG.md, "Data requests name what a client can send"): the PaCO2 limit
+    # at a known pressure needs only the residence at altitude; a content with its Hb, PaO2
+    # and pH known asks for the saturation and dyshaemoglobins it could still use, not for
+    # the pH it has, nor for itself (the functional saturation, derived, becomes what can be
+    # sent: an SaO2 or a co-oximeter's O2Hb).
+    residence = DataRequests({"barometric_pressure": 600.0}, DEFAULT_CATALOGUE)
+    residence.ask("paco2_upper_limit", "r@1")
+    assert [(r.fact, r.needed_for) for r in residence.collected()] == [
+        ("altitude_residence", ("paco2_upper_limit",))
+    ]
+    known = {"haemoglobin": 14.0, "arterial_po2": 60.0, "arterial_ph": 7.4}
+    content = DataRequests(known, DEFAULT_CATALOGUE)
+    content.ask("arterial_o2_content", "r@1")
+    asked = {r.fact for r in content.collected()}
+    assert asked == {"arterial_so2", "arterial_o2hb", "carboxyhaemoglobin", "methaemoglobin"}

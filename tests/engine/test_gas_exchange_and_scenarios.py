@@ -122,7 +122,14 @@ def test_one_likely_ventilatory_cause_is_single_only_when_gas_exchange_is_normal
     assert verdict.pattern is pattern
     if status is GasExchangeStatus.DEFECT:
         assert verdict.gas_exchange_rules == ("defect@1.0.0",)
-        assert "vq-mismatch possible" in verdict.pattern_reason
+        assert verdict.pattern_reason == (
+            "hypoventilation is likely beside a gas-exchange defect of open type "
+            "(vq-mismatch possible)"
+        )
+    if status is GasExchangeStatus.UNKNOWN:
+        assert verdict.pattern_reason == (
+            "hypoventilation is likely; gas exchange could not be judged, so a second cause is open"
+        )
 
 
 def test_a_defect_wins_when_both_statuses_are_said() -> None:
@@ -165,46 +172,49 @@ def test_not_assessable_grades_come_from_rules() -> None:
     item = verdict.assessment(Mechanism.SHUNT)
     assert item.grade is Grade.NOT_ASSESSABLE
     assert item.rules == ("na@1.0.0",)
+    assert item.rationales == ("No FiO2.",)  # the rule's reason, not "no rule applied"
 
 
 # --- scenarios -------------------------------------------------------------------------------
 
 
 def _ruleset() -> Any:
-    return build(
-        rules=[
-            rule(
-                "low-inspired",
-                outcome=mechanism("low-inspired-oxygen", "likely", 10),
-                when=leaf("inspired_po2", "lt", 120, MMHG),
-                rationale="Low PIO2.",
-            ),
-            rule(
-                "low-inspired-no",
-                outcome=mechanism("low-inspired-oxygen", "unlikely", 20),
-                when=leaf("inspired_po2", "ge", 120, MMHG),
-                rationale="Normal PIO2.",
-            ),
-            rule(
-                "shunt",
-                outcome=mechanism("shunt", "likely", 10),
-                when=leaf("fio2", "ge", 0.9, "1"),
-                rationale="On near-pure oxygen.",
-            ),
-            rule(
-                "shunt-no",
-                outcome=mechanism("shunt", "unlikely", 20),
-                when=leaf("fio2", "lt", 0.9, "1"),
-                rationale="Less oxygen.",
-            ),
-            rule(
-                "bad",
-                outcome=finding("pao2-exceeds-alveolar", "error"),
-                when=leaf("aa_gradient", "lt", -10, MMHG),
-                rationale="Impossible.",
-            ),
-        ]
-    )
+    return build(rules=_base_rules())
+
+
+def _base_rules() -> list[dict[str, Any]]:
+    return [
+        rule(
+            "low-inspired",
+            outcome=mechanism("low-inspired-oxygen", "likely", 10),
+            when=leaf("inspired_po2", "lt", 120, MMHG),
+            rationale="Low PIO2.",
+        ),
+        rule(
+            "low-inspired-no",
+            outcome=mechanism("low-inspired-oxygen", "unlikely", 20),
+            when=leaf("inspired_po2", "ge", 120, MMHG),
+            rationale="Normal PIO2.",
+        ),
+        rule(
+            "shunt",
+            outcome=mechanism("shunt", "likely", 10),
+            when=leaf("fio2", "ge", 0.9, "1"),
+            rationale="On near-pure oxygen.",
+        ),
+        rule(
+            "shunt-no",
+            outcome=mechanism("shunt", "unlikely", 20),
+            when=leaf("fio2", "lt", 0.9, "1"),
+            rationale="Less oxygen.",
+        ),
+        rule(
+            "bad",
+            outcome=finding("pao2-exceeds-alveolar", "error"),
+            when=leaf("aa_gradient", "lt", -10, MMHG),
+            rationale="Impossible.",
+        ),
+    ]
 
 
 def _evaluation(**facts: FactValue) -> Evaluation:
@@ -274,3 +284,141 @@ def test_a_missing_input_does_not_vote_when_the_representative_does_not_count() 
     )
     assert verdict.grade(Mechanism.SHUNT) is Grade.LIKELY
     assert verdict.pattern is Pattern.SINGLE
+
+
+# --- combine(), part by part (the engine's own contract; invented rules) ----------------------
+
+_EXTRA = [
+    rule(
+        "low",
+        outcome={"hypoxaemia": "present"},
+        when=leaf("arterial_po2", "lt", 60, MMHG),
+        rationale="Low.",
+    ),
+    rule(
+        "fine",
+        outcome={"hypoxaemia": "absent"},
+        when=leaf("arterial_po2", "ge", 80, MMHG),
+        rationale="Fine.",
+    ),
+    rule(
+        "thin-air",
+        outcome=finding("pb-assumed-sea-level", "warning"),
+        when=leaf("inspired_po2", "lt", 120, MMHG),
+        rationale="Thin air.",
+    ),
+    rule(
+        "fast",
+        outcome=finding("fio2-time-mismatch", "warning"),
+        when=leaf("respiratory_rate", "gt", 30, "/min"),
+        rationale="Fast.",
+    ),
+    rule(
+        "venous",
+        outcome=mechanism("vq-mismatch", "likely", 10),
+        when=leaf("mixed_venous_po2", "lt", 30, MMHG),
+        rationale="Low venous PO2.",
+    ),
+]
+WIDER = build(rules=[*_base_rules(), *_EXTRA])
+SETTLE_PRESSURE = Discriminator("Send the pressure.", ("barometric_pressure",))
+
+
+def _wide(**facts: FactValue) -> Evaluation:
+    return evaluate(WIDER, {"arterial_po2": 55.0, "fio2": 0.95, "inspired_po2": 150.0, **facts})
+
+
+def _codes(verdict: Any) -> list[str]:
+    return [f.code.value for f in verdict.findings]
+
+
+def test_hypoxaemia_stands_only_where_every_scenario_agrees() -> None:
+    agreed = combine(_wide(), [Scenario("a", _wide()), Scenario("b", _wide(fio2=1.0))], [])
+    assert agreed.hypoxaemia is HypoxaemiaStatus.PRESENT
+    differing = combine(_wide(), [Scenario("a", _wide(arterial_po2=85.0))], [])
+    assert differing.hypoxaemia is HypoxaemiaStatus.UNKNOWN
+    # A scenario bearing on one mechanism only has no say on hypoxaemia.
+    narrow = Scenario(
+        "pressure", _wide(arterial_po2=85.0), only_for=frozenset({Mechanism.LOW_INSPIRED_OXYGEN})
+    )
+    assert combine(_wide(), [narrow], []).hypoxaemia is HypoxaemiaStatus.PRESENT
+
+
+def test_a_refuted_representative_gives_way_to_a_standing_scenario() -> None:
+    # The values as sent raise an error (FiO2 0.5 is refuted by the PaO2); both ends that
+    # stand grade shunt likely: the refuted values neither vote nor show their error.
+    representative = _wide(fio2=0.5, aa_gradient=-40.0)
+    assert representative.verdict.pattern is Pattern.NOT_CLASSIFIABLE
+    verdict = combine(
+        representative,
+        [Scenario("FiO2 0.95", _wide(aa_gradient=200.0)), Scenario("FiO2 1.0", _wide(fio2=1.0))],
+        [Uncertainty("FiO2", SETTLE)],
+    )
+    assert verdict.grade(Mechanism.SHUNT) is Grade.LIKELY
+    assert "pao2-exceeds-alveolar" not in _codes(verdict)
+    assert verdict.pattern is not Pattern.NOT_CLASSIFIABLE
+
+
+def test_a_scenario_that_cannot_assess_a_mechanism_says_nothing_against_the_others() -> None:
+    # At one end no shunt rule applies (not-assessable): the others, which agree, decide.
+    blind = evaluate(WIDER, {"arterial_po2": 55.0, "inspired_po2": 150.0})
+    assert blind.verdict.grade(Mechanism.SHUNT) is Grade.NOT_ASSESSABLE
+    verdict = combine(
+        _wide(), [Scenario("blind", blind), Scenario("FiO2 1.0", _wide(fio2=1.0))], []
+    )
+    assert verdict.grade(Mechanism.SHUNT) is Grade.LIKELY
+
+
+def test_only_the_uncertainties_bearing_on_a_mechanism_explain_it() -> None:
+    uncertainties = [
+        Uncertainty("FiO2 (estimated)", SETTLE),
+        Uncertainty(
+            "barometric pressure (assumed)",
+            SETTLE_PRESSURE,
+            frozenset({Mechanism.LOW_INSPIRED_OXYGEN}),
+        ),
+    ]
+    verdict = combine(_wide(), [Scenario("FiO2 0.85", _wide(fio2=0.85))], uncertainties)
+    shunt = verdict.assessment(Mechanism.SHUNT)
+    assert shunt.grade is Grade.POSSIBLE
+    assert shunt.uncertain_because is not None
+    assert "FiO2 (estimated)" in shunt.uncertain_because
+    assert "barometric" not in shunt.uncertain_because
+    assert shunt.settled_by == (SETTLE,)
+    assert "barometric_pressure" not in [r.fact for r in verdict.data_requested]
+
+
+def test_a_finding_raised_everywhere_is_shown_once_and_one_raised_somewhere_is_not() -> None:
+    thin = _wide(inspired_po2=100.0)
+    both = combine(thin, [Scenario("a", thin), Scenario("b", thin)], [])
+    assert _codes(both).count("pb-assumed-sea-level") == 1
+    # The representative lacks the input (does not count): a finding every scenario raises
+    # is shown; one raised by only one scenario is not, whatever the other raised instead.
+    missing = evaluate(WIDER, {"arterial_po2": 55.0, "fio2": 0.95})
+    everywhere = combine(
+        missing,
+        [Scenario("a", thin), Scenario("b", _wide(inspired_po2=110.0))],
+        [],
+        representative_counts=False,
+    )
+    assert _codes(everywhere) == ["pb-assumed-sea-level"]
+    somewhere = combine(
+        missing,
+        [Scenario("a", thin), Scenario("b", _wide(respiratory_rate=35.0))],
+        [],
+        representative_counts=False,
+    )
+    assert "pb-assumed-sea-level" not in _codes(somewhere)
+
+
+def test_a_request_the_missing_input_caused_is_dropped_only_then() -> None:
+    # FiO2 not sent: the representative asks for it (no shunt rule could apply), the scenarios
+    # have it and do not; the venous PO2 every evaluation asks for stands.
+    missing = evaluate(WIDER, {"arterial_po2": 55.0, "inspired_po2": 150.0})
+    assert {r.fact for r in missing.verdict.data_requested} == {"fio2", "mixed_venous_po2"}
+    scenarios = [Scenario("FiO2 0.9", _wide(fio2=0.9)), Scenario("FiO2 1.0", _wide(fio2=1.0))]
+    verdict = combine(missing, scenarios, [], representative_counts=False)
+    assert [r.fact for r in verdict.data_requested] == ["mixed_venous_po2"]
+    # When the representative counts, what it asks for stands even if a scenario has it.
+    counted = combine(_wide(), [Scenario("venous", _wide(mixed_venous_po2=35.0))], [])
+    assert [r.fact for r in counted.data_requested] == ["mixed_venous_po2"]

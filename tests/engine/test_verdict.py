@@ -201,6 +201,16 @@ def test_findings_are_listed_errors_first() -> None:
     assert verdict.findings[0].rationale == "PaCO2 is not known."
 
 
+def test_two_findings_are_listed_errors_first_too() -> None:
+    rules = [
+        # Rules run in the order of their ids: the warning's comes first.
+        rule("a-w", outcome=finding("fio2-missing", "warning"), when=_when_present("altitude")),
+        rule("z-e", outcome=finding("no-arterial-gas", "error"), when=_when_present("altitude")),
+    ]
+    verdict = _verdict(rules, {**OXYGENATED, "altitude": 2500.0})
+    assert [f.severity for f in verdict.findings] == [Severity.ERROR, Severity.WARNING]
+
+
 def test_a_testing_rule_is_reported_but_never_changes_the_verdict() -> None:
     rules = [
         _grading("candidate", "shunt", "likely", 1, "peep", status="testing"),

@@ -4,6 +4,7 @@
     python -m tests.mutation.run --area physiology    # one area (physiology, engine, assess)
     python -m tests.mutation.run --module service/physiology/units.py --list
     python -m tests.mutation.run --area assess --survivors survivors.txt
+    python -m tests.mutation.run --area assess --only survivors.txt   # those mutants again
 
 One mutant at a time, each in a forked process: the mutated module is served by an import
 hook from memory (the working tree is never written), then a targeted subset of the tests
@@ -58,6 +59,7 @@ ENGINE_EVALUATION = (
     "logic.py",
     "rationale.py",
     "results.py",
+    "scenarios.py",
     "verdict.py",
 )
 AREAS: dict[str, tuple[tuple[str, ...], tuple[str, ...]]] = {
@@ -210,8 +212,15 @@ def read_equivalent(path: Path = EQUIVALENT) -> dict[str, str]:
     return found
 
 
-def run(modules: Sequence[str], tests: Sequence[str], jobs: int, timeout: float) -> list[Outcome]:
-    """Mutate every module, one mutant at a time, and run ``tests`` against each."""
+def run(
+    modules: Sequence[str],
+    tests: Sequence[str],
+    jobs: int,
+    timeout: float,
+    only: frozenset[str] | None = None,
+) -> list[Outcome]:
+    """Mutate every module, one mutant at a time, and run ``tests`` against each (only the
+    mutants whose keys are in ``only``, when given)."""
     for name in PRELOAD:
         __import__(name)
     tests = [t for t in tests if (ROOT / t).exists()]
@@ -221,6 +230,8 @@ def run(modules: Sequence[str], tests: Sequence[str], jobs: int, timeout: float)
         raise SystemExit(f"the unmutated tests fail: {' '.join(tests)}")
     equivalent = read_equivalent()
     queue = [m for path in modules for m in mutants_of(ROOT / path, path)]
+    if only is not None:
+        queue = [m for m in queue if m.key in only]
     outcomes: list[Outcome] = []
     running: dict[int, tuple[Mutant, float]] = {}
     for mutant in queue:
@@ -271,6 +282,9 @@ def main(argv: Sequence[str] | None = None) -> int:
     parser.add_argument("--timeout", type=float, default=60.0, help="seconds per mutant")
     parser.add_argument("--list", action="store_true", help="list the mutants and stop")
     parser.add_argument("--survivors", type=Path, help="write surviving mutants here")
+    parser.add_argument(
+        "--only", type=Path, help="run only the mutants listed in this file (one key a line)"
+    )
     options = parser.parse_args(argv)
     selected: list[tuple[str, tuple[str, ...], tuple[str, ...]]] = []
     if options.module:
@@ -286,10 +300,17 @@ def main(argv: Sequence[str] | None = None) -> int:
                 for mutant in mutants_of(ROOT / path, path):
                     sys.stdout.write(f"{mutant.key}\n")
         return 0
+    only = None
+    if options.only is not None:
+        only = frozenset(
+            line.strip()
+            for line in options.only.read_text(encoding="utf-8").splitlines()
+            if line.strip()
+        )
     survivors: list[Outcome] = []
     for name, modules, tests in selected:
         started = time.monotonic()
-        outcomes = run(modules, tests, options.jobs, options.timeout)
+        outcomes = run(modules, tests, options.jobs, options.timeout, only)
         sys.stdout.write(report(name, outcomes, time.monotonic() - started) + "\n")
         sys.stdout.flush()
         survivors += [o for o in outcomes if o.status == "survived"]

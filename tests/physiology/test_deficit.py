@@ -9,6 +9,7 @@ from hypothesis import strategies as st
 from service.physiology import reference as r
 from service.physiology.deficit import alveolar_bracket, partition_pao2_deficit
 from service.physiology.gas_exchange import alveolar_po2_mmhg
+from tests import titration_reference as tr
 
 SEA_LEVEL = 760.0
 
@@ -146,3 +147,71 @@ def test_the_parts_always_add_up_to_the_fall(
     # The gas-exchange part is the A-a gradient above the normal at this PAO2 [calc].
     normal = r.normal_aa_gradient(age_years=age, alveolar_po2_mmhg=alveolar).expected
     assert d.gas_exchange == pytest.approx(alveolar - pao2 - normal, abs=1e-6)
+
+
+def _at_altitude_by_hand(paco2: float | None) -> dict[str, float]:
+    """A 64-year-old at PB 600 mm[Hg] on air, PaO2 50, expected PaCO2 36, worked out from the
+    published equations alone [calc]: Cerveri 1995 for the expected PaO2; PH2O at 37 °C from
+    the iapws package (IAPWS-IF97); PIO2 = FiO2 (PB − PH2O); the full alveolar gas equation,
+    R 0.8 (West); below the reference alveolar PO2 the normal a/A ratio holds (Gilbert &
+    Keighley 1974, from memory), so the normal gradient scales with the alveolar PO2."""
+    ph2o = tr.ph2o_37_mmhg()
+    expected = 143.6 - 0.39 * 64.0 - 0.56 * 25.0 - 0.57 * 40.0
+    k = 0.21 + 0.79 / 0.8
+    reference_alveolar = tr.alveolar(0.21, 40.0, 760.0, ph2o)
+    reference_normal = reference_alveolar - expected
+
+    def normal(alveolar: float) -> float:
+        return reference_normal * alveolar / reference_alveolar
+
+    setting_alveolar = tr.alveolar(0.21, 36.0, 600.0, ph2o)
+    inspired = (
+        (0.21 * (760.0 - ph2o) - 0.21 * (600.0 - ph2o))
+        + (36.0 * k - 40.0 * k)
+        + (normal(setting_alveolar) - reference_normal)
+    )
+    fall = expected - 50.0
+    if paco2 is None:
+        return {"inspired": inspired, "unattributed": fall - inspired}
+    alveolar = tr.alveolar(0.21, paco2, 600.0, ph2o)
+    ventilation = (paco2 - 36.0) * k + (normal(alveolar) - normal(setting_alveolar))
+    gas_exchange = (alveolar - 50.0) - normal(alveolar)
+    return {
+        "inspired": inspired,
+        "ventilation": ventilation,
+        "gas_exchange": gas_exchange,
+        "unattributed": fall - inspired - ventilation - gas_exchange,
+    }
+
+
+@pytest.mark.parametrize("paco2", [None, 34.0])
+def test_the_parts_at_altitude_are_the_worked_ones(paco2: float | None) -> None:
+    d = partition_pao2_deficit(
+        arterial_po2_mmhg=50.0,
+        age_years=64.0,
+        fio2=0.21,
+        barometric_mmhg=600.0,
+        expected_paco2_mmhg=36.0,
+        paco2_mmhg=paco2,
+    )
+    expected = _at_altitude_by_hand(paco2)
+    for name, value in expected.items():
+        assert getattr(d, name) == pytest.approx(value, abs=1e-4), name  # PH2O to 1e-5
+    if paco2 is not None:
+        assert d.unattributed == pytest.approx(0.0, abs=1e-9)
+
+
+def test_no_share_when_nothing_lowers_the_pao2() -> None:
+    # PaO2 300 on FiO2 0.5 at sea level, no PaCO2: every part is a credit (negative), so
+    # there is nothing to share out.
+    d = partition_pao2_deficit(
+        arterial_po2_mmhg=300.0,
+        age_years=64.0,
+        fio2=0.5,
+        barometric_mmhg=SEA_LEVEL,
+        expected_paco2_mmhg=40.0,
+        paco2_mmhg=None,
+    )
+    assert d.inspired < 0.0 and d.unattributed < 0.0
+    assert d.gross == 0.0
+    assert d.share(d.inspired) is None

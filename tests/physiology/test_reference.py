@@ -2,15 +2,19 @@
 
 from __future__ import annotations
 
+import math
+
 import pytest
 from hypothesis import given
 from hypothesis import strategies as st
+from scipy.optimize import brentq
 
 from service.exceptions import ImpossibleValueError
 from service.physiology import reference as r
 from service.physiology.atmosphere import barometric_pressure_west_mmhg
 from service.physiology.gas_exchange import alveolar_po2_mmhg
 from service.physiology.reference import Residence
+from tests import titration_reference as tr
 
 
 @pytest.mark.parametrize(
@@ -208,3 +212,147 @@ def test_acclimatised_climbers_at_8400_m() -> None:
     found = r.expected_paco2(barometric_mmhg=272.0, residence=Residence.VISITOR)
     assert found.mean_mmhg == pytest.approx(13.3, abs=0.5)
     assert found.upper_limit_mmhg == pytest.approx(15.7, abs=0.5)
+
+
+# --- The healthy lung, solved again independently ------------------------------------------
+# The same two published anchors (Cerveri 1995 on air; the two male age groups on 100 %
+# oxygen, mean 48 and 93 mmHg, ranges up to 60 and 108, at 25 and 50 years) met by a lung with
+# a shunt and a V/Q term, solved here with scipy's Brent method over the oxygen cascade of
+# tests/titration_reference.py (Severinghaus 1979 eq. 1, content 1.34 Hb S + 0.003 PO2,
+# the shunt equation with an a-v difference of 5 mL/dL, Hb 14 g/dL: Benatar, Hewlett & Nunn
+# 1973; water vapour from the iapws package), not with the service's bisections.
+
+
+def _cerveri_mean(age: float) -> float:
+    a = max(age, 18.0)
+    return 83.4 if a >= 75.0 else 143.6 - 0.39 * a - 0.56 * 25.0 - 0.57 * 40.0
+
+
+def _cerveri_fifth_centile(age: float) -> float:
+    a = max(age, 18.0)
+    return 68.4 if a >= 75.0 else _cerveri_mean(a) - 1.645 * 7.48
+
+
+def _oxygen_anchor(age: float, young: float, old: float) -> float:
+    a = min(max(age, 18.0), 50.0)  # a line through the groups at 25 and 50, held from 50
+    return young + (old - young) * (a - 25.0) / 25.0
+
+
+def _pao2_at(alveolar: float, shunt: float, drop: float) -> float:
+    hb, avd, p50 = 14.0, 5.0, tr.p50_eq1()
+    capillary = alveolar - drop
+    arterial_content = tr.content(capillary, hb, p50) - avd * shunt / (1.0 - shunt)
+    return tr.po2_for_content(arterial_content, hb, p50, capillary)
+
+
+def _independent_lung(age: float, limit: bool) -> tuple[float, float]:
+    """(shunt fraction, V/Q term in mm[Hg]) meeting both anchors; the room-air one alone,
+    with no V/Q term, where the oxygen anchor's shunt already lowers the room-air PaO2."""
+    ph2o = tr.ph2o_37_mmhg()
+    air, oxygen = tr.alveolar(0.21, 40.0, 760.0, ph2o), tr.alveolar(1.0, 40.0, 760.0, ph2o)
+    if limit:
+        air_target = _cerveri_fifth_centile(age)
+        oxygen_target = oxygen - _oxygen_anchor(age, 60.0, 108.0)
+    else:
+        air_target = _cerveri_mean(age)
+        oxygen_target = oxygen - _oxygen_anchor(age, 48.0, 93.0)
+
+    def shunt_for(alveolar: float, target: float, drop: float) -> float:
+        return float(brentq(lambda s: _pao2_at(alveolar, s, drop) - target, 0.0, 0.3, xtol=1e-14))
+
+    def air_excess(drop: float) -> float:
+        return _pao2_at(air, shunt_for(oxygen, oxygen_target, drop), drop) - air_target
+
+    if air_excess(0.0) <= 0.0:
+        return shunt_for(air, air_target, 0.0), 0.0
+    drop = float(brentq(air_excess, 0.0, air - air_target, xtol=1e-12))
+    return shunt_for(oxygen, oxygen_target, drop), drop
+
+
+@pytest.mark.parametrize("limit", [False, True])
+@pytest.mark.parametrize("age", [18, 25, 40, 50, 60, 74, 80])
+def test_the_healthy_lung_meets_both_anchors_as_an_independent_solve_does(
+    age: int, limit: bool
+) -> None:
+    shunt, drop = _independent_lung(float(age), limit)
+    lung = r.healthy_lung(age, limit, 0.8)
+    assert lung.shunt_odds / (1.0 + lung.shunt_odds) == pytest.approx(shunt, abs=1e-6)
+    assert lung.vq_drop_mmhg == pytest.approx(drop, abs=1e-3)
+    assert r.vq_drop_upper_limit_mmhg(age_years=float(age)) == pytest.approx(
+        _independent_lung(float(age), True)[1], abs=1e-3
+    )
+
+
+@pytest.mark.parametrize("fio2", [0.3, 0.6, 1.0])
+@pytest.mark.parametrize("age", [30.0, 50.0, 65.0])
+def test_the_normal_gradient_on_oxygen_is_the_independent_lungs(age: float, fio2: float) -> None:
+    alveolar = tr.alveolar(fio2, 40.0, 760.0, tr.ph2o_37_mmhg())
+    mean, limit = _independent_lung(age, False), _independent_lung(age, True)
+    normal = r.normal_aa_gradient(age_years=age, alveolar_po2_mmhg=alveolar)
+    assert normal.expected == pytest.approx(alveolar - _pao2_at(alveolar, *mean), abs=0.01)
+    assert normal.upper_limit == pytest.approx(alveolar - _pao2_at(alveolar, *limit), abs=0.01)
+
+
+@pytest.mark.parametrize(
+    ("age", "method"),
+    [
+        # Cerveri 1995 studied 40–74 years; from 75 a separate mean and centile; adults from 18.
+        (17.0, "Cerveri 1995 adult reference, age 18 used"),
+        (18.0, "Cerveri 1995 regression, extrapolated below 40 years"),
+        (38.0, "Cerveri 1995 regression, extrapolated below 40 years"),
+        (40.0, "Cerveri 1995 regression (40–74 years)"),
+        (42.0, "Cerveri 1995 regression (40–74 years)"),
+        (74.5, "Cerveri 1995 regression (40–74 years)"),
+        (75.0, "Cerveri 1995, 75 years and over"),
+    ],
+)
+def test_the_reference_method_names_the_age_band_cerveri_studied(age: float, method: str) -> None:
+    assert r.reference_method(age) == method
+
+
+def _west_mmhg(altitude_m: float) -> float:
+    # West JB, J Appl Physiol 1996;81:1850: PB = exp(6.63268 − 0.1112 h − 0.00149 h²), h in km.
+    h = altitude_m / 1000.0
+    return math.exp(6.63268 - 0.1112 * h - 0.00149 * h * h)
+
+
+def _between(pb: float, high: tuple[float, float, float], low: tuple[float, float, float]) -> float:
+    """Linear in barometric pressure between (altitude, mean, upper) anchors [calc]; the mean."""
+    t = (_west_mmhg(high[0]) - pb) / (_west_mmhg(high[0]) - _west_mmhg(low[0]))
+    return high[1] + t * (low[1] - high[1])
+
+
+def test_resident_paco2_between_and_beyond_the_published_towns() -> None:
+    # Mexico City 2,240 m, 30.2 (Cid-Juárez 2023); Cusco 3,350 m, 30.6 (Pereira-Victorio 2014),
+    # upper limit 36.1 (Moina Veloz 2023, Quito); held level to 4,500 m and beyond.
+    pb = _west_mmhg(2800.0)
+    found = r.expected_paco2(barometric_mmhg=pb, residence=Residence.RESIDENT)
+    assert found.mean_mmhg == pytest.approx(
+        _between(pb, (2240.0, 30.2, 0.0), (3350.0, 30.6, 0.0)), abs=1e-9
+    )
+    for altitude in (4000.0, 4500.0, 5200.0):
+        high = r.expected_paco2(barometric_mmhg=_west_mmhg(altitude), residence=Residence.RESIDENT)
+        assert (high.mean_mmhg, high.upper_limit_mmhg) == pytest.approx((30.6, 36.1), abs=1e-9)
+
+
+def test_visitor_paco2_stays_at_sea_level_to_3000_m_then_falls_towards_the_climbers() -> None:
+    # Rahn & Otis 1949 (from memory): little hyperventilation below about 3,000 m; Grocott
+    # 2009: 13.3 (upper 15.7) mmHg at 8,400 m; linear in pressure between [calc].
+    for altitude in (1500.0, 3000.0):
+        low = r.expected_paco2(barometric_mmhg=_west_mmhg(altitude), residence=Residence.VISITOR)
+        assert (low.mean_mmhg, low.upper_limit_mmhg) == pytest.approx((40.0, 45.0), abs=1e-9)
+    pb = _west_mmhg(6000.0)
+    found = r.expected_paco2(barometric_mmhg=pb, residence=Residence.VISITOR)
+    assert found.mean_mmhg == pytest.approx(
+        _between(pb, (3000.0, 40.0, 0.0), (8400.0, 13.3, 0.0)), abs=1e-9
+    )
+    summit = r.expected_paco2(barometric_mmhg=_west_mmhg(8400.0), residence=Residence.VISITOR)
+    assert (summit.mean_mmhg, summit.upper_limit_mmhg) == pytest.approx((13.3, 15.7), abs=1e-9)
+
+
+def test_the_method_names_the_anchor_a_pressure_falls_on() -> None:
+    sea = r.expected_paco2(barometric_mmhg=_west_mmhg(0.0), residence=Residence.RESIDENT)
+    assert sea.method == r.SEA_LEVEL_PACO2.source
+    mexico = r.expected_paco2(barometric_mmhg=_west_mmhg(2240.0), residence=Residence.RESIDENT)
+    assert mexico.mean_mmhg == pytest.approx(30.2, abs=1e-9)
+    assert mexico.method.endswith(r.RESIDENT_PACO2[1].source)
