@@ -29,6 +29,7 @@ from __future__ import annotations
 
 import bisect
 import math
+from collections.abc import Iterable
 from dataclasses import dataclass, replace
 from datetime import datetime, timedelta
 
@@ -76,14 +77,18 @@ from .sources import choose_inspired_oxygen
 
 __all__ = [
     "FITTED_FACTS",
+    "SETTING_QUANTITIES",
     "Bounds",
     "Titration",
     "TitrationRules",
     "assess_titration",
+    "point_times",
+    "window_end",
 ]
 
 _Q = Quantity
-_SETTINGS_QUANTITIES = frozenset({_Q.FIO2, _Q.OXYGEN_DEVICE, _Q.OXYGEN_FLOW})
+# The settings a point's FiO2 is known from (``sources.choose_inspired_oxygen``).
+SETTING_QUANTITIES = frozenset({_Q.FIO2, _Q.OXYGEN_DEVICE, _Q.OXYGEN_FLOW})
 _BLOOD_QUANTITIES = frozenset({_Q.ARTERIAL_PCO2, _Q.ARTERIAL_PH})
 _FIO2_SOURCES = {
     IntakeFio2Source.MEASURED.value: Fio2Source.MEASURED,
@@ -288,7 +293,7 @@ class _Settings:
         self.windows = windows
         self.timed: dict[Quantity, tuple[list[datetime], list[Measurement]]] = {}
         self.untimed: dict[Quantity, Measurement] = {}
-        for quantity in _SETTINGS_QUANTITIES:
+        for quantity in SETTING_QUANTITIES:
             found = by_quantity.get(quantity, [])
             timed = sorted(
                 ((m.time, m) for m in found if m.time is not None), key=lambda pair: pair[0]
@@ -426,10 +431,44 @@ def _one_setting(by_quantity: ByQuantity, settings: Settings) -> bool:
     """True when the record cannot hold two FiO2 levels: at most one moment of oxygen settings
     (or none, on a site that assumes room air). Checked before anything is paired."""
     times = {
-        m.time for q in _SETTINGS_QUANTITIES for m in by_quantity.get(q, []) if m.time is not None
+        m.time for q in SETTING_QUANTITIES for m in by_quantity.get(q, []) if m.time is not None
     }
-    untimed = any(m.time is None for q in _SETTINGS_QUANTITIES for m in by_quantity.get(q, []))
+    untimed = any(m.time is None for q in SETTING_QUANTITIES for m in by_quantity.get(q, []))
     return len(times) + untimed <= 1
+
+
+def _sorted_out(
+    grouped: ByQuantity, windows: Windows, settings: Settings, rules: TitrationRules
+) -> tuple[list[TitrationPoint], list[_Candidate], list[LeftOut]]:
+    """Every SpO2 and arterial PO2 of the record as a point (with its candidate) or left out
+    with the reason, before any window is chosen."""
+    unusable_spo2 = _dyshaemoglobin(grouped, rules)
+    kept: list[TitrationPoint] = []
+    kept_candidates: list[_Candidate] = []
+    left_out: list[LeftOut] = []
+    for candidate in _candidates(grouped, windows, settings, rules):
+        reason = candidate.reason
+        if reason is None and unusable_spo2 and candidate.measurement.quantity is _Q.SPO2:
+            reason = unusable_spo2
+        point = _point(candidate) if reason is None else reason
+        if isinstance(point, TitrationPoint):
+            kept.append(point)
+            kept_candidates.append(candidate)
+        else:
+            left_out.append(_dropped(candidate, point))
+    return kept, kept_candidates, left_out
+
+
+def point_times(
+    by_quantity: ByQuantity, *, windows: Windows, settings: Settings, rules: TitrationRules
+) -> list[datetime]:
+    """When the measurements of ``by_quantity`` (usable ones, by quantity) that a titration
+    takes as points were taken, earliest first: every SpO2 and arterial PO2 not left out for
+    a reason of its own (no FiO2, not settled, out of the oximeter's range or the model's) or
+    of the record (COHb or MetHb above the limit, among the values ``by_quantity`` holds).
+    These times decide where the window of a titration ends (``window_end``)."""
+    kept, _, _ = _sorted_out(by_quantity, windows, settings, rules)
+    return sorted(p.time for p in kept)
 
 
 # --- the fit and its facts --------------------------------------------------------------------
@@ -653,26 +692,13 @@ def assess_titration(
     spo2s, gases = grouped.get(_Q.SPO2, []), grouped.get(_Q.ARTERIAL_PO2, [])
     if len(spo2s) + len(gases) < 2 or _one_setting(grouped, settings):
         return None
-    candidates = _candidates(grouped, windows, settings, rules)
-    unusable_spo2 = _dyshaemoglobin(grouped, rules)
-    kept: list[TitrationPoint] = []
-    kept_candidates: list[_Candidate] = []
-    left_out: list[LeftOut] = []
-    for candidate in candidates:
-        reason = candidate.reason
-        if reason is None and unusable_spo2 and candidate.measurement.quantity is _Q.SPO2:
-            reason = unusable_spo2
-        point = _point(candidate) if reason is None else reason
-        if isinstance(point, TitrationPoint):
-            kept.append(point)
-            kept_candidates.append(candidate)
-        else:
-            reason = point
-            left_out.append(_dropped(candidate, reason))
+    kept, kept_candidates, left_out = _sorted_out(grouped, windows, settings, rules)
     if _levels(kept) < 2:
         return None
     window = timedelta(minutes=settings.titration_window_minutes)
-    anchor = index_time if ending_at_index else _anchor(kept, index_time, window)
+    anchor = (
+        index_time if ending_at_index else window_end((p.time for p in kept), index_time, window)
+    )
     series = _within_budget(
         select_titration_points(
             points=kept, window_min=settings.titration_window_minutes, anchor=anchor
@@ -744,15 +770,17 @@ def _within_budget(series: TitrationSeries) -> TitrationSeries:
     return replace(series, points=series.points[cut:], dropped=series.dropped + dropped)
 
 
-def _anchor(
-    points: list[TitrationPoint], index_time: datetime | None, window: timedelta
+def window_end(
+    times: Iterable[datetime], index_time: datetime | None, window: timedelta
 ) -> datetime | None:
-    """The end of the titration window: the latest point no later than one window after the
-    index gas (a titration may follow the gas), or the latest point without an index time."""
+    """The end of the titration window of the index gas taken at ``index_time``, from the
+    times of the record's points: the latest point no later than one window after the index
+    gas (a titration may follow the gas), the index gas's time when there is none, or None
+    without an index time (the series then ends at its latest point)."""
     if index_time is None:
         return None
-    times = [p.time for p in points if p.time <= index_time + window]
-    return max(times) if times else index_time
+    before = [t for t in times if t <= index_time + window]
+    return max(before) if before else index_time
 
 
 def _vq_limit(index: dict[str, FactValue], settings: Settings) -> tuple[float, float]:

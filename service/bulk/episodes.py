@@ -63,17 +63,13 @@ setting to raise, never a silent omission.
 from __future__ import annotations
 
 import re
-from bisect import bisect_left, bisect_right
 from collections.abc import Iterable, Iterator
 from dataclasses import dataclass, field
-from datetime import datetime, timedelta
-from enum import Enum
+from datetime import datetime
 
 import orjson
 
-from service.assess.assess import windows as pairing_windows
-from service.assess.pairing import ARTERIAL, PAIRED, Windows
-from service.config import Settings
+from service.assess.pairing import ARTERIAL, Windows
 from service.fhir.dates import effective_time, parse_date_time
 from service.fhir.extract import read_bundle
 from service.fhir.outcome import BundleError, Problem, TooLargeError
@@ -86,50 +82,27 @@ from service.terminology.local_codes import LocalCodeMap
 from .errors import ErrorCode, ErrorRow, Stage
 from .pseudonym import Pseudonymiser
 from .records import Record
-
-# Values of blood that is not arterial: in an episode only when taken beside one of its gases.
-NOT_ARTERIAL_BLOOD: frozenset[Quantity] = frozenset(
-    {
-        Quantity.VENOUS_PO2,
-        Quantity.VENOUS_PCO2,
-        Quantity.VENOUS_PH,
-        Quantity.VENOUS_SO2,
-        Quantity.CENTRAL_VENOUS_SO2,
-        Quantity.CAPILLARY_PO2,
-        Quantity.CAPILLARY_PCO2,
-        Quantity.CAPILLARY_PH,
-        Quantity.MIXED_VENOUS_PO2,
-        Quantity.MIXED_VENOUS_SO2,
-    }
+from .timeline import (
+    NOT_ARTERIAL_BLOOD,
+    Entry,
+    EpisodeWindows,
+    Role,
+    Timelines,
+    in_order,
+    timelines,
 )
-# The kinds of value chosen per gas by time: every kind the service pairs, but the blood samples.
-TIMED_KINDS: tuple[Quantity, ...] = tuple(sorted(PAIRED - NOT_ARTERIAL_BLOOD))
+from .titration import TitrationReach
+
+__all__ = [
+    "Episode",
+    "EpisodeWindows",
+    "PatientData",
+    "cut_episodes",
+    "patient_data",
+    "read_limits",
+]
+
 _ENTRY = re.compile(r"^Bundle\.entry\[(\d+)\](?:\.resource)?")
-
-
-class Role(Enum):
-    """How an Observation takes part in episodes."""
-
-    GAS = "gas"  # carries an arterial(-coded) PO2: anchors an episode
-    SAMPLE = "sample"  # not-arterial blood, or arterial-coded of doubtful specimen
-    CONTEXT = "context"  # values paired by time (settings, SpO2, Hb, DLCO, PaCO2, altitude...)
-    UNUSED = "unused"  # the reader took no value from it (its findings remain)
-
-
-@dataclass(slots=True)
-class Entry:
-    """One resource of the patient with what episode cutting needs."""
-
-    kind: str
-    resource: dict[str, object]
-    file: str
-    line: int
-    ref: str | None  # Type/id
-    time: datetime | None = None
-    role: Role = Role.UNUSED
-    quantities: frozenset[Quantity] = frozenset()
-    usable: bool = True  # every arterial value's sample is known to be arterial (or unstated)
-    specimen: str | None = None  # a gas's: the specimen of its PO2, where known
 
 
 @dataclass(frozen=True, slots=True)
@@ -142,27 +115,6 @@ class Episode:
     specimen: str | None  # the specimen of the gas's PO2, where known
     earlier_gases: int
     bundle: dict[str, object]
-
-
-@dataclass(frozen=True, slots=True)
-class EpisodeWindows:
-    """What cuts episodes: the service's pairing windows and its oxygen-response window."""
-
-    pairing: Windows
-    response: timedelta
-
-    @classmethod
-    def of(cls, settings: Settings) -> EpisodeWindows:
-        """The windows of the service's settings (the same ones ``oxyrule assess`` uses)."""
-        return cls(
-            pairing_windows(settings),
-            timedelta(hours=settings.oxygen_response_window_hours),
-        )
-
-    @property
-    def beside(self) -> timedelta:
-        """How far from a gas a sample is beside it: the pairing window of the moment."""
-        return self.pairing.context
 
 
 def read_limits(max_entries: int) -> ReadLimits:
@@ -450,6 +402,7 @@ def _describe(
             timed[0] if timed else effective_time(entry.resource, "Observation", Collector())
         )
         entry.quantities = frozenset(m.quantity for m in measurements)
+        entry.measurements = tuple(measurements)
         entry.usable = all(
             m.specimen in (None, Specimen.ARTERIAL) for m in measurements if m.quantity in ARTERIAL
         )
@@ -490,90 +443,34 @@ def _role(entry: Entry) -> Role:
     return Role.CONTEXT
 
 
-class _Timeline:
-    """Timed entries sorted by time (file and line within a time), for range queries."""
-
-    def __init__(self, entries: Iterable[Entry]) -> None:
-        timed = sorted(
-            ((e.time, e.file, e.line, e) for e in entries if e.time is not None),
-            key=lambda p: p[:3],
-        )
-        self.times: list[datetime] = [p[0] for p in timed]
-        self.entries: list[Entry] = [p[3] for p in timed]
-
-    def __bool__(self) -> bool:
-        return bool(self.times)
-
-    def between(self, start: datetime, end: datetime) -> list[Entry]:
-        """Entries with start ≤ time ≤ end."""
-        return self.entries[bisect_left(self.times, start) : bisect_right(self.times, end)]
-
-    def at_or_before(self, when: datetime) -> list[Entry]:
-        """Every entry at the latest time ≤ ``when`` (none if there is none)."""
-        high = bisect_right(self.times, when)
-        if not high:
-            return []
-        return self.between(self.times[high - 1], self.times[high - 1])
-
-    def after(self, when: datetime, end: datetime | None) -> list[Entry]:
-        """Every entry at the earliest time > ``when`` (and ≤ ``end``, when given)."""
-        low = bisect_right(self.times, when)
-        if low == len(self.times) or (end is not None and self.times[low] > end):
-            return []
-        return self.between(self.times[low], self.times[low])
-
-
-@dataclass(frozen=True, slots=True)
-class _Timelines:
-    """A patient's Observations by role, for cutting episodes."""
-
-    gases: _Timeline  # arterial PO2s with a time
-    beside: _Timeline  # samples and doubtful gases: in an episode beside one of its gases
-    unused: _Timeline
-    kinds: dict[Quantity, _Timeline]  # context values carrying each kind the service pairs
-    untimed: tuple[Entry, ...]  # every Observation but gases with no time
-
-
-def timelines(entries: list[Entry]) -> _Timelines:
-    """The patient's Observations sorted for cutting."""
-    context = [e for e in entries if e.role is Role.CONTEXT]
-    kinds = {q: _Timeline(e for e in context if q in e.quantities) for q in TIMED_KINDS}
-    return _Timelines(
-        gases=_Timeline(e for e in entries if e.role is Role.GAS),
-        beside=_Timeline(
-            e for e in entries if e.role is Role.SAMPLE or (e.role is Role.GAS and not e.usable)
-        ),
-        unused=_Timeline(e for e in entries if e.role is Role.UNUSED),
-        kinds={q: line for q, line in kinds.items() if line},
-        untimed=tuple(e for e in entries if e.time is None and e.role is not Role.GAS),
-    )
-
-
 def cut_episodes(
     data: PatientData, *, windows: EpisodeWindows, locations: dict[str, dict[str, object]]
 ) -> Iterator[Episode]:
     """The patient's episodes, earliest gas first (built one at a time)."""
     lines = timelines(data.entries)
+    reach = TitrationReach(lines, windows)
     for t in sorted(set(lines.gases.times)):
-        yield _episode(data, t, windows, lines, locations)
+        yield _episode(data, t, windows, lines, reach, locations)
 
 
 def _episode(
     data: PatientData,
     t: datetime,
     w: EpisodeWindows,
-    lines: _Timelines,
+    lines: Timelines,
+    reach: TitrationReach,
     locations: dict[str, dict[str, object]],
 ) -> Episode:
     at_t = lines.gases.between(t, t)
     usable_at_t = [e for e in at_t if e.usable]
     chosen: dict[int, Entry] = {id(e): e for e in lines.untimed}
     end: datetime | None
+    index_time: datetime | None
     if usable_at_t:
         gases = [e for e in lines.gases.between(t - w.response, t) if e.usable]
         scope = sorted({e.time for e in gases if e.time is not None})
         anchors: list[datetime | None] = list(scope)
-        end = None
+        end, index_time = None, t
     else:
         # Judged on its own: the service anchors on the latest SpO2 by the end of the moment.
         gases = at_t
@@ -583,6 +480,7 @@ def _episode(
         latest = spo2.at_or_before(end) if spo2 else []
         chosen.update((id(e), e) for e in latest)
         anchors = [latest[0].time if latest else None]
+        index_time = anchors[0]
     chosen.update((id(e), e) for e in gases)
     for g in scope:
         for e in lines.beside.between(g - w.beside, g + w.beside):
@@ -591,7 +489,13 @@ def _episode(
         chosen.update((id(e), e) for e in lines.unused.between(g - w.beside, g + w.beside))
     for anchor in anchors:
         chosen.update((id(e), e) for e in _paired_candidates(anchor, end, w.pairing, lines))
-    observations = sorted(chosen.values(), key=lambda e: (e.file, e.line))
+    titration = reach.entries(
+        chosen.values(),
+        index_time=index_time,
+        end=end,
+        gas_times=scope if usable_at_t else [],
+    )
+    observations = in_order([*chosen.values(), *titration])
     anchor_entry = min(usable_at_t or at_t, key=lambda e: (e.file, e.line))
     location = _location(anchor_entry, t, data.encounters)
     resources: list[dict[str, object]] = []
@@ -612,7 +516,7 @@ def _episode(
 
 
 def _paired_candidates(
-    anchor: datetime | None, end: datetime | None, w: Windows, lines: _Timelines
+    anchor: datetime | None, end: datetime | None, w: Windows, lines: Timelines
 ) -> Iterator[Entry]:
     """For each kind the service pairs: every value pairing could take or report for a gas
     at ``anchor`` — the nearest before it and the nearest after it (no later than ``end``);

@@ -16,6 +16,7 @@ from dataclasses import dataclass, field
 from datetime import datetime
 
 from service.config import Settings
+from service.engine.ruleset import RuleSet
 from service.fhir.extract import read_bundle
 from service.fhir.outcome import BundleError, TooLargeError
 from service.runtime import Runtime
@@ -38,8 +39,9 @@ class JobContext:
     now: datetime  # the job's clock: the same for every assessment of the run
     ruleset_hash: str  # the driver's rule set: every worker must assess with the same one
 
-    def windows(self) -> EpisodeWindows:
-        return EpisodeWindows.of(self.settings)
+    def windows(self, ruleset: RuleSet) -> EpisodeWindows:
+        """The windows of these settings and the worker's rule set (the driver's: checked)."""
+        return EpisodeWindows.of(self.settings, ruleset)
 
 
 @dataclass(slots=True)
@@ -79,7 +81,7 @@ class Assessor:
                 f"({self.runtime.ruleset.identity}); ship the same rule directory to every node"
             )
         self.locations = locations
-        self.windows = context.windows()
+        self.windows = context.windows(self.runtime.ruleset)
         self.limits = read_limits(context.bulk.max_episode_entries)
 
     def patient(self, key: str, records: Iterable[Record]) -> PatientOutcome:

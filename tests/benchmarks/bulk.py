@@ -146,7 +146,9 @@ def write_episodes(export: Path, path: Path) -> int:
                 pseudonym=Pseudonymiser(),
                 max_resources=10**7,
             )
-            for episode in cut_episodes(data, windows=context.windows(), locations=locations):
+            for episode in cut_episodes(
+                data, windows=context.windows(runtime.ruleset), locations=locations
+            ):
                 out.write(orjson.dumps(episode.bundle) + b"\n")
                 count += 1
     return count

@@ -103,7 +103,8 @@ def test_every_fixture_gets_the_verdict_of_oxyrule_assess_on_its_bundle(
             continue
         assert _row_verdict(rows[-1]) == verdict, path.name
         compared += 1
-    assert compared >= 35 and without_gas <= 5
+    # Without a gas: SpO2 alone (two of them titrations), a venous gas alone.
+    assert compared >= 80 and without_gas <= 6
 
 
 def test_an_earlier_gas_gets_the_verdict_of_its_own_moment(
@@ -119,18 +120,19 @@ def test_an_earlier_gas_gets_the_verdict_of_its_own_moment(
         for row in rows[:-1]:
             cases.append((path.name, row))
             cut.append(history_at(classified, row["time"], Settings()))
-    assert len(cases) >= 5  # the serial fixtures and the two-FiO2 demo
+    assert len(cases) >= 5  # the serial fixtures, the two-FiO2 demo, titrations with gases
     for (name, row), verdict in zip(cases, assess_cli(cut), strict=True):
         assert _row_verdict(row) == verdict, name
-        assert row["earlier_gases"] == 0, name
 
 
-def test_a_later_gas_sees_the_earlier_one(
+def test_a_later_gas_sees_the_earlier_ones(
     bulk_rows: dict[str, list[dict[str, Any]]],
 ) -> None:
-    serial = [rows for rows in bulk_rows.values() if len(rows) == 2]
-    assert serial
-    assert all(rows[1]["earlier_gases"] == 1 for rows in serial)
+    """A fixture's gases are hours apart at most: each sees every one before it."""
+    serial = [rows for rows in bulk_rows.values() if len(rows) >= 2]
+    assert len(serial) >= 5 and any(len(rows) >= 3 for rows in serial)
+    for rows in serial:
+        assert [row["earlier_gases"] for row in rows] == list(range(len(rows)))
 
 
 def test_one_and_two_workers_write_the_same_rows(

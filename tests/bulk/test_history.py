@@ -20,7 +20,8 @@ from __future__ import annotations
 
 import json
 import random
-from collections.abc import Callable
+from collections import Counter
+from collections.abc import Callable, Iterator
 from datetime import UTC, datetime, timedelta
 from pathlib import Path
 from typing import Any
@@ -41,12 +42,14 @@ from tests.bulk.conftest import read_table
 from tests.bulk.fixture_export import export_fixtures
 from tests.bulk.history import classify, gas_times, history_at
 from tests.bulk.test_equivalence import _row_verdict, assess_cli
+from tests.titration_reference import arterial, ph2o_37_mmhg
 
 SEEDS = (1, 2, 3, 4, 5)
 START = datetime(2026, 5, 4, 0, 0, tzinfo=UTC)
 GRID = timedelta(minutes=5)
 DAYS = 3
 NOW = datetime(2027, 1, 1, tzinfo=UTC)
+PH2O_MMHG = ph2o_37_mmhg()
 WIDE = ReadLimits(max_entries=100_000, max_issues=100)  # the history is read whole in process
 
 
@@ -61,6 +64,7 @@ class _Stay:
         self.rng = random.Random(seed)
         self.seed = seed
         self.count = 0
+        self.lung = (self.rng.uniform(0.03, 0.25), self.rng.uniform(0.0, 60.0))
         self.resources: list[dict[str, Any]] = [
             {
                 "resourceType": "Patient",
@@ -97,6 +101,7 @@ class _Stay:
         system: str = codes.LOINC,
         coded: tuple[str, str] | None = None,
         status: str = "final",
+        components: tuple[tuple[str, float, str], ...] = (),
     ) -> None:
         self.count += 1
         r: dict[str, Any] = {
@@ -113,11 +118,20 @@ class _Stay:
             r["valueCodeableConcept"] = {"coding": [{"system": coded[0], "code": coded[1]}]}
         elif value is not None:
             r["valueQuantity"] = {"value": value, "system": codes.UCUM, "code": unit}
+        if components:
+            r["component"] = [
+                {
+                    "code": {"coding": [{"system": codes.LOINC, "code": c}]},
+                    "valueQuantity": {"value": v, "system": codes.UCUM, "code": u},
+                }
+                for c, v, u in components
+            ]
         self.resources.append(r)
 
 
 def invented_stay(seed: int) -> list[dict[str, Any]]:
-    """Three invented days of one patient: gases on changing oxygen and their context."""
+    """Three invented days of one patient: gases on changing oxygen and their context, oxygen
+    titrations; then a few moments the titration must be followed into."""
     s = _Stay(seed)
     gases = _gases(s)
     _oxygen(s, gases)
@@ -125,11 +139,14 @@ def invented_stay(seed: int) -> list[dict[str, Any]]:
     _other_blood(s, gases)
     _patient_level(s)
     _unused(s, gases)
+    _titrations(s, gases)
+    _after_the_stay(s)
     return s.resources
 
 
 def _gases(s: _Stay) -> list[datetime]:
-    """Runs of gases (each run on changing oxygen), and two blood PO2s of unstated specimen."""
+    """Runs of gases (each run on changing oxygen; now and then the analyser charts the FiO2
+    with the PO2), and two blood PO2s of unstated specimen."""
     rng = s.rng
     gases: list[datetime] = []
     for _ in range(rng.randint(3, 5)):
@@ -137,7 +154,8 @@ def _gases(s: _Stay) -> list[datetime]:
         gases += [first + GRID * rng.choice((0, 6, 9, 12, 36, 48)) * k for k in range(3)]
     gases = sorted(set(gases))
     for g in gases:
-        s.obs(g, "2703-7", rng.uniform(45, 140), "mm[Hg]")
+        fio2 = (("3150-0", rng.choice((28.0, 35.0, 50.0)), "%"),) if rng.random() < 0.3 else ()
+        s.obs(g, "2703-7", rng.uniform(45, 140), "mm[Hg]", components=fio2)
         if rng.random() < 0.85:
             s.obs(g + GRID * rng.choice((0, 0, 0, 1, 2)), "2019-8", rng.uniform(32, 62), "mm[Hg]")
         if rng.random() < 0.7:
@@ -170,7 +188,9 @@ def _context(s: _Stay) -> None:
     rng = s.rng
     for when in sorted(_when(rng) for _ in range(rng.randint(15, 30))):
         for _ in range(rng.choice((1, 1, 1, 2))):  # two probes at once, now and then
-            s.obs(when, "59408-5", rng.randint(86, 99))
+            # Now and then charted with the oxygen it was read on, as one Observation.
+            on = (("3150-0", rng.choice((24.0, 40.0)), "%"),) if rng.random() < 0.2 else ()
+            s.obs(when, "59408-5", rng.randint(86, 99), components=on)
     for when in sorted(_when(rng) for _ in range(rng.randint(1, 4))):
         s.obs(when, "718-7", rng.uniform(8.5, 15.5), "g/dL")
     for when in sorted(_when(rng) for _ in range(rng.randint(0, 4))):
@@ -186,7 +206,8 @@ def _other_blood(s: _Stay, gases: list[datetime]) -> None:
     rng = s.rng
     for _ in range(rng.randint(1, 3)):
         when = rng.choice(gases) + GRID * rng.choice((-7, -2, 0, 3, 6, 40))
-        s.obs(when, "2705-2", rng.uniform(30, 45), "mm[Hg]")
+        fio2 = (("3150-0", rng.choice((30.0, 45.0)), "%"),) if rng.random() < 0.5 else ()
+        s.obs(when, "2705-2", rng.uniform(30, 45), "mm[Hg]", components=fio2)
         s.obs(when, "2021-4", rng.uniform(42, 60), "mm[Hg]")
     if rng.random() < 0.5:
         s.obs(rng.choice(gases) + GRID * rng.choice((-6, 0, 6, 7)), "19224-5", rng.uniform(55, 75))
@@ -220,6 +241,84 @@ def _unused(s: _Stay, gases: list[datetime]) -> None:
     s.obs(rng.choice(gases), "718-7", 12.0, "g/dL", status="entered-in-error")
     if rng.random() < 0.5:
         s.obs(None, "718-7", 13.1, "g/dL")  # used only when no timed Hb qualifies
+
+
+def _spo2_on(s: _Stay, fio2: float) -> float:
+    """An invented SpO2 (%) on ``fio2``: the two-parameter lung of this stay (a shunt and a V/Q
+    term), written out independently of the service (``tests.titration_reference``), at sea
+    level with PaCO2 40 mmHg, charted to a whole percent with a reader's scatter."""
+    shunt, drop = s.lung
+    found = arterial(shunt=shunt, drop=drop, fio2=fio2, paco2=40.0, pb=760.0, ph2o=PH2O_MMHG)
+    return float(min(100, max(60, round(100 * found.sao2 + s.rng.choice((-1, 0, 0, 1))))))
+
+
+def _steps(s: _Stay, start: datetime, fio2s: list[float], step: int) -> datetime:
+    """FiO2 steps charted from ``start``, ``step`` grid points apart, SpO2 read on each: at the
+    change itself (not yet settled), on the settling edge and after it. The end of the last."""
+    for k, fio2 in enumerate(fio2s):
+        when = start + GRID * step * k
+        s.obs(when, "3150-0", round(100 * fio2))
+        for after in sorted(s.rng.sample(range(step), 3)):
+            s.obs(when + GRID * after, "59408-5", _spo2_on(s, fio2))
+    return start + GRID * step * len(fio2s)
+
+
+def _titrations(s: _Stay, gases: list[datetime]) -> None:
+    """Oxygen titrations within two hours: SpO2 on three or four FiO2 steps on their own, and
+    steps that end at a gas of the stay (a mixed titration: the gas is a point too)."""
+    rng = s.rng
+    levels = [0.21, 0.24, 0.28, 0.35, 0.40, 0.50, 0.60]
+    for _ in range(rng.randint(1, 3)):  # oximetry alone, anywhere in the stay
+        start = _when(rng)
+        _steps(s, start, sorted(rng.sample(levels, rng.choice((3, 4)))), rng.choice((4, 5, 6)))
+    for g in rng.sample(gases, 2):  # ending at a gas
+        fio2s = sorted(rng.sample(levels, 3), reverse=rng.random() < 0.5)
+        step = rng.choice((4, 6))
+        _steps(s, g - GRID * step * len(fio2s) + GRID, fio2s, step)
+
+
+def _after_the_stay(s: _Stay) -> None:
+    """Moments after the three days, each a day apart so that nothing else reaches them.
+
+    Day 4: a titration by oximetry, then, hours after the last setting went out of force, SpO2
+    on no known oxygen and a gas with none: the service's titration for that gas is the one of
+    the morning (the latest points it can use before it). Day 5: the last FiO2 of the record
+    charted, SpO2 on it three hours later, then SpO2 and a gas after it went out of force: two
+    levels where a site assumes room air, with one moment of settings near them. Day 4 also
+    has a later gas charted with its FiO2, just after SpO2 on no known oxygen: not in the
+    history of the first gas, whose SpO2 it would otherwise place on that FiO2. Day 6: two gases
+    whose FiO2 the analyser charted with the PO2 and SpO2 on each, then, hours later, a gas with
+    no FiO2: its titration is on the settings of the earlier gases, nothing charted alone. One
+    stay: a COHb of 9 % a week later, which leaves out every SpO2 of the record from the
+    titration.
+    """
+    rng = s.rng
+    day4 = START + timedelta(days=4, hours=1)
+    done = _steps(s, day4, [0.28, 0.35, 0.50], 5)
+    gas = done + timedelta(hours=4, minutes=40)
+    s.obs(gas - timedelta(hours=1), "59408-5", _spo2_on(s, 0.21))
+    s.obs(gas, "2703-7", rng.uniform(55, 80), "mm[Hg]")
+    s.obs(gas, "2019-8", 40.0, "mm[Hg]")
+    s.obs(gas + timedelta(minutes=40), "59408-5", _spo2_on(s, 0.50))
+    later = (("3150-0", 50.0, "%"),)
+    s.obs(gas + timedelta(minutes=60), "2703-7", rng.uniform(70, 120), "mm[Hg]", components=later)
+    day5 = START + timedelta(days=5, hours=2)
+    s.obs(day5, "3150-0", 35)
+    s.obs(day5 + timedelta(hours=3), "59408-5", _spo2_on(s, 0.35))
+    s.obs(day5 + timedelta(hours=4, minutes=20), "59408-5", _spo2_on(s, 0.21))
+    s.obs(day5 + timedelta(hours=4, minutes=30), "2703-7", rng.uniform(60, 90), "mm[Hg]")
+    day6 = START + timedelta(days=6, hours=3)
+    for k, fio2 in enumerate((0.28, 0.40)):
+        panel = day6 + timedelta(minutes=40 * k)
+        on = (("3150-0", 100 * fio2, "%"),)
+        s.obs(panel, "2703-7", rng.uniform(55, 110), "mm[Hg]", components=on)
+        for minutes in (10, 20):
+            s.obs(panel + timedelta(minutes=minutes), "59408-5", _spo2_on(s, fio2))
+    alone = day6 + timedelta(hours=5, minutes=40)
+    s.obs(alone - timedelta(hours=1), "59408-5", _spo2_on(s, 0.21))
+    s.obs(alone, "2703-7", rng.uniform(55, 80), "mm[Hg]")
+    if s.seed == 4:
+        s.obs(START + timedelta(days=12), "20563-3", 9.0)
 
 
 def _bundle_file(folder: Path, seed: int, resources: list[dict[str, Any]]) -> Path:
@@ -275,14 +374,37 @@ def summary(a: Assessment) -> dict[str, Any]:
         "index": pairing(a.index),
         "gases": [pairing(g.facts) for g in a.gases],
         "facts": a.index.facts,
+        "titration": titration(a),
+        "trend": a.trend,
     }
 
 
-def test_every_episode_is_assessed_as_the_whole_history_at_its_gas() -> None:
-    settings = Settings()
+def titration(a: Assessment) -> dict[str, Any] | None:
+    """The response to oxygen as fitted: its points (each with the Observation it came from),
+    window, fit, predictions, bounds and facts. Not the list of measurements left out: the
+    service lists every SpO2 of what it is sent, years of them in a whole history."""
+    t = a.titration
+    if t is None:
+        return None
+    return {
+        "points": t.series.points,
+        "window": (t.series.window_start, t.series.window_end),
+        "response": t.response,
+        "prediction": t.prediction,
+        "bounds": (t.shunt, t.vq_drop, t.effective_shunt, t.vq_drop_limit_mmhg),
+        "levels": (t.fio2_levels, t.fio2_known_levels),
+        "sources": sorted({source.reference for source in t.sources}),
+        "facts": t.facts,
+    }
+
+
+@pytest.mark.parametrize("room_air", [False, True], ids=["charted-oxygen", "room-air-assumed"])
+def test_every_episode_is_assessed_as_the_whole_history_at_its_gas(room_air: bool) -> None:
+    settings = Settings(assume_room_air=room_air)
     runtime = Runtime.load(settings)
-    windows = EpisodeWindows.of(settings)
-    compared = doubtful = serial = outside = 0
+    windows = EpisodeWindows.of(settings, runtime.ruleset)
+    span = timedelta(minutes=settings.titration_window_minutes)
+    seen: Counter[str] = Counter()
     for seed, resources in STAYS.items():
         data = patient_data(
             "Patient/pt",
@@ -304,12 +426,42 @@ def test_every_episode_is_assessed_as_the_whole_history_at_its_gas() -> None:
             reference = runtime.assess_intake(read_bundle(whole, limits=WIDE), now=NOW)
             assert summary(cut) == summary(reference), (seed, episode.time)
             assert len(episode.bundle["entry"]) < len(whole["entry"])  # type: ignore[arg-type]
-            compared += 1
-            doubtful += not cut.gases
-            serial += bool(cut.serial)
-            outside += any(f.code == "value-outside-window" for f in cut.findings)
+            seen.update(_reached(cut, episode.time, span))
     # The stays reach what the cut must get right.
-    assert compared >= 40 and doubtful >= 3 and serial >= 10 and outside >= 10
+    assert seen["compared"] >= 80 and seen["doubtful"] >= 3, seen
+    assert seen["serial"] >= 10 and seen["outside"] >= 10, seen
+    assert seen["oximetry alone"] >= 5 and seen["gases and oximetry"] >= 20, seen
+    assert seen["target predicted"] >= 3 and seen["trend fitted"] >= 10, seen
+    if room_air:
+        assert seen["room air assumed"] >= 10, seen
+    else:
+        assert seen["window ends before the gas"] >= 4, seen
+
+
+def _reached(a: Assessment, t: datetime, span: timedelta) -> Iterator[str]:
+    """What one assessment shows of the cases the cut must get right."""
+    yield "compared"
+    if not a.gases:
+        yield "doubtful"
+    if a.serial:
+        yield "serial"
+    if any(f.code == "value-outside-window" for f in a.findings):
+        yield "outside"
+    t9n = a.titration
+    if t9n is not None:
+        gas = any(p.pao2_mmhg is not None for p in t9n.series.points)
+        yield "gases and oximetry" if gas else "oximetry alone"
+        if any(f.code.startswith("fio2-for-") for f in a.findings):
+            yield "target predicted"
+        end = t9n.series.window_end
+        if end is not None and end < t - span:
+            yield "window ends before the gas"
+        if any(p.inspired.source.value == "site-setting" for p in t9n.series.points):
+            yield "room air assumed"
+    if a.trend is not None and any(
+        m.measure in ("shunt", "vq_drop") and m.series for m in a.trend.measures
+    ):
+        yield "trend fitted"
 
 
 def test_the_rows_equal_oxyrule_assess_on_the_history_at_each_gas(
