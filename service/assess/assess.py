@@ -293,6 +293,7 @@ def assess(
             rule=f.rule,
             system=d.system if (d := declared.get(f.code)) is not None else None,
             display=d.display if d is not None else None,
+            about_data=d.about == "data" if d is not None else None,
         )
         for f in verdict.findings
     ]

@@ -51,6 +51,9 @@ class Finding:
     """The code system of a code the rule set declares (None: the project's built-in codes)."""
     display: str | None = None
     """The declared code's display (built-in codes have none)."""
+    about_data: bool | None = None
+    """For a declared code, whether it is about the data's quality (True) or the patient
+    (False); None for built-in codes, whose kind the renderers know."""
 
 
 @dataclass(frozen=True, slots=True)

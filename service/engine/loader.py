@@ -163,7 +163,9 @@ def _declared_findings(
                 )
             )
             continue
-        declared[code] = FindingDeclaration(code, model.display, model.description, system)
+        declared[code] = FindingDeclaration(
+            code, model.display, model.description, system, model.about
+        )
     return declared, problems
 
 

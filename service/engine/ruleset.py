@@ -63,6 +63,7 @@ class FindingDeclaration:
     display: str
     description: str
     system: str
+    about: str = "patient"  # "patient": clinical context; "data": the data's quality
 
 
 @dataclass(frozen=True, slots=True)

@@ -267,6 +267,9 @@ class FindingDeclarationModel(_Strict):
     """A few words, shown beside the code (FHIR ``Coding.display``)."""
     description: Text
     """What the finding means and when it is raised."""
+    about: Literal["patient", "data"] = "patient"
+    """What the finding is about: ``patient`` (clinical context, carried with the verdict) or
+    ``data`` (a problem with the data sent, reported as a data-quality issue)."""
 
 
 class ManifestModel(_Strict):

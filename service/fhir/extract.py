@@ -294,7 +294,10 @@ def _entry(i: int, item: object, index: BundleIndex, out: Collector) -> _Entry |
 
 def _request_only(entry: JsonObject) -> bool:
     request = entry.get("request")
-    return isinstance(request, dict) and request.get("method") in _REQUEST_WITHOUT_RESOURCE
+    if not isinstance(request, dict):
+        return False
+    method = request.get("method")
+    return isinstance(method, str) and method in _REQUEST_WITHOUT_RESOURCE
 
 
 _NOT_READ = object()  # a subject reference that says nothing about the patient

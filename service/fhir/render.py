@@ -356,6 +356,8 @@ def is_processing(f: Finding) -> bool:
 
 def is_context(f: Finding) -> bool:
     """Whether a finding is clinical context (not about the data's quality)."""
+    if f.about_data is not None:  # a code the rule set declares says what it is about
+        return not f.about_data
     return f.code in CONTEXT_FINDINGS
 
 

@@ -275,6 +275,15 @@ def _response_charts(a: Assessment) -> list[dict[str, str]]:
     return charts
 
 
+def _reference_text(reference: dict[str, Any]) -> str:
+    """A Reference as one line: its address, else its identifier's value, else its display
+    (service.fhir.addresses: an input entry without a resolvable address has one of those)."""
+    identifier = reference.get("identifier") or {}
+    return str(
+        reference.get("reference") or identifier.get("value") or reference.get("display", "")
+    )
+
+
 def _oxygen_response(result: dict[str, Any]) -> dict[str, Any]:
     """What the result says about the response to oxygen, read generically from its data:
     every assessed gas's values (FiO2, P/F, A-a gradient, admixture), and any parameter or
@@ -293,7 +302,7 @@ def _oxygen_response(result: dict[str, Any]) -> dict[str, Any]:
             if part["name"] == "index":
                 row["index"] = part["valueBoolean"]
             elif part["name"] == "observation":
-                row["observation"] = part["valueReference"]["reference"]
+                row["observation"] = _reference_text(part["valueReference"])
             elif part["name"] in wanted and "valueQuantity" in part:
                 row[part["name"]] = part["valueQuantity"]
         gases.append(row)

@@ -71,13 +71,16 @@ def test_the_built_in_codes_are_all_still_accepted() -> None:
         build(rules=[rule("r", outcome=finding(code, "information"))])
 
 
-def _site_rules(tmp_path: Path, *, declare: bool) -> Path:
+def _site_rules(tmp_path: Path, *, declare: bool, about: str | None = None) -> Path:
     rules = tmp_path / "rules"
     shutil.copytree(ROOT / "rules", rules)
     manifest_path = rules / "ruleset.yaml"
     data: dict[str, Any] = yaml.safe_load(manifest_path.read_text())
     if declare:
-        data["findings"] = DECLARATION
+        data["findings"] = {
+            code: {**declared, **({"about": about} if about else {})}
+            for code, declared in DECLARATION.items()
+        }
         data["finding_system"] = "https://invented-district-hospital.example/findings"
     manifest_path.write_text(yaml.safe_dump(data, sort_keys=False))
     (rules / "context" / f"{CODE}.yaml").write_text(
@@ -123,22 +126,47 @@ def test_a_site_code_reaches_the_fhir_and_hl7_results(tmp_path: Path) -> None:
         if f["name"] == "finding"
     ]
     assert CODE in codes
-    (coding,) = [
-        i["details"]["coding"][0]
-        for i in resources["OperationOutcome"]["issue"]
-        if "details" in i and i["details"]["coding"][0]["code"] == CODE
-    ]
+    # A declared code is about the patient unless it says otherwise: clinical context,
+    # carried as a component of the mechanism assessment beside the built-in ones.
+    mechanism = next(
+        e["resource"] for e in result["entry"] if e["resource"].get("id") == "mechanism-assessment"
+    )
+    components = [c["code"]["coding"][0] for c in mechanism.get("component", [])]
+    (coding,) = [c for c in components if c["code"] == CODE]
     assert coding == {
         "system": "https://invented-district-hospital.example/findings",
         "code": CODE,
         "display": DECLARATION[CODE]["display"],
     }
-    hypercapnia = next(
-        i["details"]["coding"][0]
-        for i in resources["OperationOutcome"]["issue"]
-        if "details" in i and i["details"]["coding"][0]["code"] == "hypercapnia"
-    )
+    hypercapnia = next(c for c in components if c["code"] == "hypercapnia")
     assert hypercapnia["system"] == "https://oxyrule.org/fhir/CodeSystem/finding"
+    assert "DetectedIssue" not in resources  # not a problem with the data
     message = (ROOT / "fixtures" / "hl7v2" / "post-operative-drowsiness.hl7").read_text()
     reply = handle_v2(message, runtime, reply="result").body.decode()
     assert f"{CODE}^Review against the ward escalation plan^99OXYSFN" in reply
+
+
+def test_a_site_code_about_the_data_is_a_data_quality_issue(tmp_path: Path) -> None:
+    runtime = Runtime.load(Settings(rules_dir=_site_rules(tmp_path, declare=True, about="data")))
+    case = ROOT / "fixtures" / "demo" / "post-operative-drowsiness.bundle.json"
+    result = runtime.assess_bundle(orjson.loads(case.read_bytes()))
+    assert contract_problems(result) == []
+    validate_resource(result)
+    issues = [
+        e["resource"] for e in result["entry"] if e["resource"]["resourceType"] == "DetectedIssue"
+    ]
+    (issue,) = [i for i in issues if i["code"]["coding"][0]["code"] == CODE]
+    assert issue["code"]["coding"][0]["system"] == (
+        "https://invented-district-hospital.example/findings"
+    )
+    assert issue["severity"] == "moderate"  # a warning (R4 detectedissue-severity)
+    mechanism = next(
+        e["resource"] for e in result["entry"] if e["resource"].get("id") == "mechanism-assessment"
+    )
+    assert CODE not in [c["code"]["coding"][0]["code"] for c in mechanism.get("component", [])]
+
+
+def test_a_declaration_says_patient_or_data_and_nothing_else() -> None:
+    bad = {CODE: {**DECLARATION[CODE], "about": "analyser"}}
+    (problem,) = problems(manifest(findings=bad), [])
+    assert problem.field == f"findings.{CODE}.about"

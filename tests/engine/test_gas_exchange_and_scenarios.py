@@ -329,7 +329,7 @@ def _wide(**facts: FactValue) -> Evaluation:
 
 
 def _codes(verdict: Any) -> list[str]:
-    return [f.code.value for f in verdict.findings]
+    return [str(f.code) for f in verdict.findings]
 
 
 def test_hypoxaemia_stands_only_where_every_scenario_agrees() -> None:

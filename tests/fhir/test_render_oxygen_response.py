@@ -109,7 +109,9 @@ def test_the_observation_carries_the_fit_the_target_fio2_and_the_caution(runtime
     assert len(obs["derivedFrom"]) >= 6
     mechanism = _observation(result, "mechanism-assessment")
     assert mechanism is not None
-    assert {"reference": "Observation/oxygen-response"} in mechanism["derivedFrom"]
+    # Entries reference each other by fullUrl (urn:uuid, resolvable inside the Bundle).
+    (address,) = [e["fullUrl"] for e in result["entry"] if e["resource"] is obs]
+    assert {"reference": address} in mechanism["derivedFrom"]
 
 
 def test_pressures_follow_the_requested_unit(runtime: Runtime) -> None:
