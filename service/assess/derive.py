@@ -18,12 +18,13 @@ from service.intake.model import Patient, Quantity, Source
 from service.physiology.units import to_fact_unit
 
 from .catalogue import AGE, DEFAULT_CATALOGUE, MEASURED_FACTS
-from .derivation import Derived, FactValue, compute_derived
+from .derivation import Derived, FactValue, compute_derived, derive_changed
 from .derived import DERIVED_FACTS
 from .pairing import PairedGas
 from .sources import barometric_pressure, inspired_oxygen_fraction
 
 __all__ = [
+    "Derivation",
     "Derived",
     "FactValue",
     "GasFacts",
@@ -32,6 +33,21 @@ __all__ = [
     "derive_gas_facts",
     "with_fio2_raised",
 ]
+
+
+@dataclass(frozen=True, slots=True)
+class Derivation:
+    """The derived facts set from a gas's measured facts, and the settings used."""
+
+    settings: Settings
+    facts: dict[str, FactValue]
+
+
+_DERIVED_NAMES = tuple(entry.name for entry in DERIVED_FACTS)
+
+
+def _derivation(facts: dict[str, FactValue], settings: Settings) -> Derivation:
+    return Derivation(settings, {name: facts[name] for name in _DERIVED_NAMES if name in facts})
 
 
 @dataclass(slots=True)
@@ -51,6 +67,9 @@ class GasFacts:
     """The facts before derivation (measured, PB and FiO2 with their flags): what a scenario
     with other inputs derives from again."""
     measured_sources: dict[str, tuple[Source, ...]] = field(default_factory=dict)
+    base: Derivation | None = None
+    """What the derivation from ``measured`` set, for a scenario to derive only what its
+    changes touch (None: derive everything again)."""
 
     def number(self, name: str) -> float | None:
         value = self.facts.get(name)
@@ -104,6 +123,7 @@ def derive_gas_facts(
     )
     out.derived.update(filed)
     out.problems += problems
+    out.base = _derivation(out.facts, settings)
     return out
 
 
@@ -113,10 +133,14 @@ def derive_again(
     """The facts of ``gas`` derived again with some inputs changed (a scenario): ``changes``
     are facts in catalogue units (``fio2``, ``barometric_pressure``, ``age``,
     ``altitude_residence``). Problems met are not reported again."""
-    facts = {**gas.measured, **changes}
-    sources = dict(gas.measured_sources)
-    compute_derived(DERIVED_FACTS, facts, sources, DEFAULT_CATALOGUE, settings)
-    return facts
+    base = gas.base
+    if base is None or not (base.settings is settings or base.settings == settings):
+        facts = {**gas.measured, **changes}
+        compute_derived(DERIVED_FACTS, facts, {}, DEFAULT_CATALOGUE, settings)
+        return facts
+    return derive_changed(
+        DERIVED_FACTS, gas.measured, base.facts, changes, DEFAULT_CATALOGUE, settings
+    )
 
 
 def with_fio2_raised(gas: GasFacts, fio2: float, *, settings: Settings) -> GasFacts:
@@ -135,6 +159,7 @@ def with_fio2_raised(gas: GasFacts, fio2: float, *, settings: Settings) -> GasFa
     out.facts = dict(out.measured)
     out.sources = dict(out.measured_sources)
     filed, _ = compute_derived(DERIVED_FACTS, out.facts, out.sources, DEFAULT_CATALOGUE, settings)
+    out.base = _derivation(out.facts, settings)
     out.derived = {**gas.derived, **filed}
     before = gas.derived.get("fio2")
     method = (before.method + "; " if before is not None else "") + (

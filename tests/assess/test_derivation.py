@@ -11,16 +11,23 @@ from __future__ import annotations
 import ast
 import inspect
 import textwrap
+from datetime import date
+from pathlib import Path
 
+import orjson
 import pytest
 
 from service.assess import derivation
+from service.assess.assess import windows
 from service.assess.catalogue import DEFAULT_CATALOGUE, MEASURED_FACTS
 from service.assess.derivation import DerivedTable, FactValue, check_order
+from service.assess.derive import GasFacts, derive_again, derive_gas_facts
 from service.assess.derived import DERIVED_FACTS
+from service.assess.pairing import pair_gases
 from service.config import Settings
 from service.engine.data_requests import DataRequests
 from service.engine.facts import FactOrigin
+from service.fhir.extract import read_bundle
 from service.intake.model import Source
 
 ENTRIES = {entry.name: entry for entry in DERIVED_FACTS}
@@ -130,3 +137,74 @@ def test_a_value_outside_its_range_is_a_problem_and_nothing_is_computed_from_it(
     )
     assert "a_a_ratio" not in facts and filed == {}
     assert problems == ["a_a_ratio: outside the accepted range 0 to 5 1; not used"]
+
+
+# Deriving only what a scenario's changes touch (``derive_changed``) against deriving
+# everything again: the same facts, values, types and order, on every fixture's gases. The
+# changes are the inputs a scenario varies (``service.assess.uncertainty``): FiO2, pressure,
+# age, residence, and the flag saying the FiO2 was raised by the PaO2.
+FIXTURES = sorted((Path(__file__).resolve().parents[2] / "fixtures").rglob("*.bundle.json"))
+CHANGES: list[dict[str, FactValue]] = [
+    {},
+    {"altitude_residence": "resident"},
+    {"altitude_residence": "visitor"},
+    {"fio2": 0.21},
+    {"fio2": 0.6, "fio2_raised_by_pao2": True},
+    {"fio2": 1.0},
+    {"barometric_pressure": 560.0},
+    {"barometric_pressure": 760.0, "altitude_residence": "visitor"},
+    {"age": 30.0},
+    {"age": 85.0, "fio2": 0.35, "barometric_pressure": 640.0},
+    {"arterial_pco2": 80.0},
+    {"haemoglobin": 4.0},
+    {"fio2": 3.0},  # refused by the table's checks: everything read from it goes
+]
+
+
+def _again_in_full(gas: GasFacts, changes: dict[str, FactValue]) -> dict[str, FactValue]:
+    facts = {**gas.measured, **changes}
+    derivation.compute_derived(DERIVED_FACTS, facts, {}, DEFAULT_CATALOGUE, Settings())
+    return facts
+
+
+def _gases(path: Path, settings: Settings) -> list[GasFacts]:
+    data = read_bundle(orjson.loads(path.read_bytes()))
+    pairing = pair_gases(data, windows=windows(settings))
+    today = date(2026, 12, 1)
+    return [
+        derive_gas_facts(g, patient=data.patient, settings=settings, today=today)
+        for g in pairing.gases
+    ]
+
+
+@pytest.mark.parametrize("path", FIXTURES, ids=lambda p: p.name)
+def test_deriving_only_what_changes_touch_is_deriving_everything_again(path: Path) -> None:
+    settings = Settings()
+    for gas in _gases(path, settings):
+        assert gas.base is not None
+        for changes in CHANGES:
+            full = _again_in_full(gas, changes)
+            part = derive_again(gas, changes, settings=settings)
+            assert list(part.items()) == list(full.items()), (path.name, changes)
+            assert [type(v) for v in part.values()] == [type(v) for v in full.values()]
+
+
+def test_derived_facts_reused_only_for_the_settings_they_were_derived_with() -> None:
+    # The alveolar gas equation reads the respiratory quotient from the settings: a scenario
+    # derived with another quotient must compute the alveolar PO2 again, not reuse it.
+    path = next(p for p in FIXTURES if p.name == "altitude-visitor.bundle.json")
+    (gas, *_) = _gases(path, Settings())
+    other = Settings(respiratory_quotient=0.9)
+    facts = derive_again(gas, {"altitude_residence": "resident"}, settings=other)
+    assert facts["alveolar_po2"] != gas.facts["alveolar_po2"]
+    full = {**gas.measured, "altitude_residence": "resident"}
+    derivation.compute_derived(DERIVED_FACTS, full, {}, DEFAULT_CATALOGUE, other)
+    assert facts == full
+
+
+def test_a_changed_fact_that_equals_the_measured_one_changes_nothing() -> None:
+    # The same value is no change; a number of another type (True against 1.0) or of the other
+    # sign of zero is.
+    assert derivation._same(0.21, 0.21) and derivation._same("resident", "resident")
+    assert not derivation._same(True, 1.0) and not derivation._same(0.0, -0.0)
+    assert not derivation._same(float("nan"), float("nan"))
