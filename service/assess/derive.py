@@ -43,6 +43,7 @@ class Derivation:
     facts: dict[str, FactValue]
 
 
+_KEPT_SCENARIOS = 32  # per gas: the product of a few ranges' ends, with room to spare
 _DERIVED_NAMES = tuple(entry.name for entry in DERIVED_FACTS)
 
 
@@ -70,6 +71,11 @@ class GasFacts:
     base: Derivation | None = None
     """What the derivation from ``measured`` set, for a scenario to derive only what its
     changes touch (None: derive everything again)."""
+    again: dict[tuple[tuple[str, str, str], ...], dict[str, FactValue]] = field(
+        default_factory=dict, repr=False, compare=False
+    )
+    """The facts of each scenario derived so far (with ``base``'s settings), by its changes:
+    the verdict and the deficit partition ask for the same ones."""
 
     def number(self, name: str) -> float | None:
         value = self.facts.get(name)
@@ -138,9 +144,18 @@ def derive_again(
         facts = {**gas.measured, **changes}
         compute_derived(DERIVED_FACTS, facts, {}, DEFAULT_CATALOGUE, settings)
         return facts
-    return derive_changed(
-        DERIVED_FACTS, gas.measured, base.facts, changes, DEFAULT_CATALOGUE, settings
-    )
+    # The key tells apart what equality would not (1.0 and True, 0.0 and -0.0); the order of
+    # the changes is the order of the facts they add.
+    key = tuple((name, type(value).__name__, repr(value)) for name, value in changes.items())
+    found = gas.again.get(key)
+    if found is None:
+        found = derive_changed(
+            DERIVED_FACTS, gas.measured, base.facts, changes, DEFAULT_CATALOGUE, settings
+        )
+        if len(gas.again) >= _KEPT_SCENARIOS:
+            gas.again.clear()
+        gas.again[key] = found
+    return dict(found)
 
 
 def with_fio2_raised(gas: GasFacts, fio2: float, *, settings: Settings) -> GasFacts:

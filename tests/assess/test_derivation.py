@@ -208,3 +208,18 @@ def test_a_changed_fact_that_equals_the_measured_one_changes_nothing() -> None:
     assert derivation._same(0.21, 0.21) and derivation._same("resident", "resident")
     assert not derivation._same(True, 1.0) and not derivation._same(0.0, -0.0)
     assert not derivation._same(float("nan"), float("nan"))
+
+
+def test_a_scenario_asked_for_again_is_the_same_facts_in_a_fresh_mapping() -> None:
+    path = next(p for p in FIXTURES if p.name == "altitude-visitor.bundle.json")
+    (gas, *_) = _gases(path, Settings())
+    settings = gas.base.settings if gas.base is not None else Settings()
+    first = derive_again(gas, {"altitude_residence": "visitor"}, settings=settings)
+    first["paco2_expected"] = -1.0  # a caller's edit must not reach the next caller
+    second = derive_again(gas, {"altitude_residence": "visitor"}, settings=settings)
+    assert second == _again_in_full(gas, {"altitude_residence": "visitor"})
+    # True and 1.0 are equal in Python but not the same change.
+    flag = derive_again(gas, {"fio2_raised_by_pao2": True}, settings=settings)
+    number = derive_again(gas, {"fio2_raised_by_pao2": 1.0}, settings=settings)
+    assert type(flag["fio2_raised_by_pao2"]) is bool
+    assert type(number["fio2_raised_by_pao2"]) is float
