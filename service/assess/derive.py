@@ -68,7 +68,7 @@ class GasFacts:
     """The facts before derivation (measured, PB and FiO2 with their flags): what a scenario
     with other inputs derives from again."""
     measured_sources: dict[str, tuple[Source, ...]] = field(default_factory=dict)
-    base: Derivation | None = None
+    base: Derivation | None = field(default=None, repr=False)
     """What the derivation from ``measured`` set, for a scenario to derive only what its
     changes touch (None: derive everything again)."""
     again: dict[tuple[tuple[str, str, str], ...], dict[str, FactValue]] = field(
@@ -138,7 +138,10 @@ def derive_again(
 ) -> dict[str, FactValue]:
     """The facts of ``gas`` derived again with some inputs changed (a scenario): ``changes``
     are facts in catalogue units (``fio2``, ``barometric_pressure``, ``age``,
-    ``altitude_residence``). Problems met are not reported again."""
+    ``altitude_residence``). Problems met are not reported again.
+
+    Only the facts that read what the changes touch are computed again (``derive_changed``),
+    and each set of changes once per gas; the caller gets its own mapping."""
     base = gas.base
     if base is None or not (base.settings is settings or base.settings == settings):
         facts = {**gas.measured, **changes}
