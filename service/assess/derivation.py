@@ -261,7 +261,8 @@ def _arguments(
 ) -> dict[str, Any]:
     """The known facts ``step`` reads, in canonical units (``units.from_fact_unit``)."""
     if step.unknown and not step.unknown.isdisjoint(facts):
-        raise KeyError(min(step.unknown.intersection(facts)))
+        # The first known one the table reads that the catalogue lacks, as a lookup would.
+        raise KeyError(next(n for n in step.reads if n in step.unknown and n in facts))
     arguments: dict[str, Any] = {}
     for name, percent in step.marked:
         if name in facts:

@@ -20,15 +20,18 @@ import pytest
 from service.assess import derivation
 from service.assess.assess import windows
 from service.assess.catalogue import DEFAULT_CATALOGUE, MEASURED_FACTS
-from service.assess.derivation import DerivedTable, FactValue, check_order
+from service.assess.derivation import DerivedFact, DerivedTable, FactValue, check_order
 from service.assess.derive import GasFacts, derive_again, derive_gas_facts
 from service.assess.derived import DERIVED_FACTS
 from service.assess.pairing import pair_gases
 from service.config import Settings
 from service.engine.data_requests import DataRequests
-from service.engine.facts import FactOrigin
+from service.engine.facts import FactKind, FactOrigin, FactSpec
 from service.fhir.extract import read_bundle
+from service.intake.model import Quantity as Q
 from service.intake.model import Source
+
+from .builders import intake, m
 
 ENTRIES = {entry.name: entry for entry in DERIVED_FACTS}
 
@@ -223,3 +226,124 @@ def test_a_scenario_asked_for_again_is_the_same_facts_in_a_fresh_mapping() -> No
     number = derive_again(gas, {"fio2_raised_by_pao2": 1.0}, settings=settings)
     assert type(flag["fio2_raised_by_pao2"]) is bool
     assert type(number["fio2_raised_by_pao2"]) is float
+
+
+# A small table of our own, to watch what ``derive_changed`` computes. Facts a and b are
+# measured; w needs both, x reads a, y reads b, z reads x.
+_SMALL_SPECS = {
+    name: FactSpec(name, FactKind.QUANTITY, "1", name, 0.0, 100.0) for name in ("a", "b")
+}
+
+
+def _small_table(calls: list[str]) -> tuple[DerivedFact, ...]:
+    table = DerivedTable()
+
+    @table.quantity("w", "1", (0.0, 100.0), 2, "a plus b")
+    def w(*, a: float, b: float) -> float:
+        calls.append("w")
+        return a + b
+
+    @table.quantity("x", "1", (0.0, 100.0), 2, "twice a")
+    def x(*, a: float) -> float:
+        calls.append("x")
+        return 2.0 * a
+
+    @table.quantity("y", "1", (0.0, 100.0), 2, "twice b")
+    def y(*, b: float) -> float:
+        calls.append("y")
+        return 2.0 * b
+
+    @table.quantity("z", "1", (0.0, 100.0), 2, "x plus one")
+    def z(*, x: float) -> float:
+        calls.append("z")
+        return x + 1.0
+
+    return tuple(table.facts)
+
+
+def test_a_change_computes_again_only_what_reads_it_directly_or_through_another() -> None:
+    calls: list[str] = []
+    entries = _small_table(calls)
+    specs = {**_SMALL_SPECS, **{e.name: e.spec for e in entries}}
+    measured: dict[str, FactValue] = {"a": 1.0, "b": 2.0}
+    base = dict(measured)
+    derivation.compute_derived(entries, base, {}, specs, Settings())
+    derived = {k: v for k, v in base.items() if k not in measured}
+    calls.clear()
+    again = derivation.derive_changed(entries, measured, derived, {"a": 3.0}, specs, Settings())
+    assert calls == ["w", "x", "z"]  # y reads only b, which did not change
+    assert again == {"a": 3.0, "b": 2.0, "w": 5.0, "x": 6.0, "y": 4.0, "z": 7.0}
+    calls.clear()
+    same = derivation.derive_changed(entries, measured, derived, {"a": 1.0}, specs, Settings())
+    assert calls == [] and same == base  # the measured value again is no change
+
+
+def test_a_table_with_two_entries_of_one_name_is_derived_again_in_full() -> None:
+    # The second "x" has nothing to say here, so the first one's value stands: reusing the
+    # kept value after computing the first again would be wrong, so nothing is reused.
+    table = DerivedTable()
+
+    @table.quantity("x", "1", (0.0, 100.0), 2, "twice a")
+    def first(*, a: float) -> float:
+        return 2.0 * a
+
+    @table.quantity("x", "1", (0.0, 100.0), 2, "not applicable")
+    def second(*, b: float) -> float | None:
+        return None
+
+    entries = tuple(table.facts)
+    specs = {**_SMALL_SPECS, "x": entries[0].spec}
+    measured: dict[str, FactValue] = {"a": 1.0, "b": 2.0}
+    again = derivation.derive_changed(entries, measured, {"x": 2.0}, {"a": 3.0}, specs, Settings())
+    assert again == {"a": 3.0, "b": 2.0, "x": 6.0}
+
+
+def test_a_table_is_planned_once_and_a_list_every_time() -> None:
+    plan = derivation._plan_of(DERIVED_FACTS, DEFAULT_CATALOGUE)
+    assert derivation._plan_of(DERIVED_FACTS, DEFAULT_CATALOGUE) is plan
+    listed = list(DERIVED_FACTS[:3])
+    first = derivation._plan_of(listed, DEFAULT_CATALOGUE)
+    listed.pop()  # a list may change between calls: its plan is never kept
+    assert len(derivation._plan_of(listed, DEFAULT_CATALOGUE).steps) == 2
+    assert len(first.steps) == 3
+
+
+def test_a_fact_read_but_missing_from_the_catalogue_is_an_error_only_when_known() -> None:
+    calls: list[str] = []
+    entries = _small_table(calls)
+    specs = {e.name: e.spec for e in entries}  # no a, no b
+    # Neither a nor b known: nothing is read, nothing is wrong (and nothing is computed).
+    assert derivation.compute_derived(entries, {}, {}, specs, Settings()) == ({}, [])
+    with pytest.raises(KeyError, match="'a'"):  # the first one read, as a lookup would say
+        derivation.compute_derived(entries, {"a": 1.0, "b": 2.0}, {}, specs, Settings())
+
+
+def test_a_derived_value_names_the_observations_it_was_computed_from() -> None:
+    # The alveolar gas equation reads the PaCO2 and the FiO2 (and the pressure): the value
+    # filed in the result is derived from those Observations, not from the PaO2.
+    paco2, fio2, pao2 = m(Q.ARTERIAL_PCO2, 40.0), m(Q.FIO2, 0.21), m(Q.ARTERIAL_PO2, 90.0)
+    data = intake(pao2, paco2, fio2)
+    settings = Settings(site_altitude_m=None)
+    (gas,) = [
+        derive_gas_facts(g, patient=data.patient, settings=settings, today=date(2026, 11, 20))
+        for g in pair_gases(data, windows=windows(settings)).gases
+    ]
+    inputs = gas.derived["alveolar-po2"].inputs
+    assert paco2.source in inputs and fio2.source in inputs and pao2.source not in inputs
+    assert len(set(inputs)) == len(inputs)
+    assert pao2.source in gas.derived["aa-gradient"].inputs
+
+
+def test_an_optional_fact_missing_from_the_catalogue_matters_only_when_known() -> None:
+    table = DerivedTable()
+
+    @table.quantity("v", "1", (0.0, 100.0), 2, "a, plus d when known")
+    def v(*, a: float, d: float | None = None) -> float:
+        return a + (d or 0.0)
+
+    specs = {"a": _SMALL_SPECS["a"], "v": table.facts[0].spec}  # d is not in it
+    facts: dict[str, FactValue] = {"a": 1.0}
+    derivation.compute_derived(table.facts, facts, {}, specs, Settings())
+    assert facts == {"a": 1.0, "v": 1.0}
+    with pytest.raises(KeyError, match="'d'"):  # d, not a (read first, and in the catalogue)
+        derivation.compute_derived(table.facts, {"a": 1.0, "d": 2.0}, {}, specs, Settings())
