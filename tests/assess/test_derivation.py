@@ -347,3 +347,18 @@ def test_an_optional_fact_missing_from_the_catalogue_matters_only_when_known() -
     assert facts == {"a": 1.0, "v": 1.0}
     with pytest.raises(KeyError, match="'d'"):  # d, not a (read first, and in the catalogue)
         derivation.compute_derived(table.facts, {"a": 1.0, "d": 2.0}, {}, specs, Settings())
+
+
+def test_a_scenario_reuses_the_values_its_changes_do_not_touch() -> None:
+    # The alveolar PO2 does not read the residence: a residence scenario hands back the very
+    # number the gas's own derivation made (computing it again would make a new one), also
+    # under settings equal to the gas's but not the same object.
+    path = next(p for p in FIXTURES if p.name == "altitude-visitor.bundle.json")
+    (gas, *_) = _gases(path, Settings())
+    assert gas.base is not None
+    kept = gas.base.facts["alveolar_po2"]
+    for settings in (gas.base.settings, Settings()):
+        gas.again.clear()
+        facts = derive_again(gas, {"altitude_residence": "visitor"}, settings=settings)
+        assert facts["alveolar_po2"] is kept
+        assert facts["paco2_expected"] is not gas.facts.get("paco2_expected")
