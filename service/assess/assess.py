@@ -250,7 +250,8 @@ def assess(
     now = now or datetime.now(UTC)
     unit: PressureUnit = pressure_unit or settings.pressure_unit
     units = display_units(unit)
-    pairing = pair_gases(intake, windows=windows(settings))
+    paired_within = windows(settings)
+    pairing = pair_gases(intake, windows=paired_within)
     gases = [
         derive_gas_facts(g, patient=intake.patient, settings=settings, today=now.date())
         for g in pairing.gases
@@ -264,7 +265,7 @@ def assess(
         intake,
         index=index.facts,
         index_time=index.gas.time,
-        windows=windows(settings),
+        windows=paired_within,
         settings=settings,
         rules=chosen,
         by_quantity=pairing.by_quantity,
@@ -305,7 +306,7 @@ def assess(
     findings = (
         _merge(rule_findings, intake_findings)
         + physiology
-        + _outside_window(pairing.index, windows(settings))
+        + _outside_window(pairing.index, paired_within)
     )
     findings.sort(key=lambda f: SEVERITY_RANK[f.severity])  # stable: the engine's order within
     return Assessment(
@@ -335,7 +336,7 @@ def assess(
             gases,
             titration=titration,
             intake=intake,
-            windows=windows(settings),
+            windows=paired_within,
             settings=settings,
             rules=chosen,
         ),

@@ -21,6 +21,7 @@ and neither is anything computed from it.
 from __future__ import annotations
 
 import inspect
+import math
 from collections.abc import Callable, Iterable, Mapping
 from dataclasses import dataclass, field
 from typing import Any
@@ -38,6 +39,7 @@ __all__ = [
     "DerivedTable",
     "FactValue",
     "compute_derived",
+    "derive_changed",
 ]
 
 SETTINGS = "settings"
@@ -181,11 +183,122 @@ def check_order(entries: Iterable[DerivedFact], known: Iterable[str]) -> None:
         available.add(entry.name)
 
 
-def _canonical(value: FactValue, spec: FactSpec) -> FactValue:
-    if isinstance(value, float):
-        assert spec.unit is not None  # a quantity has a unit (FactSpec checks)
-        return from_fact_unit(value, spec.unit)
-    return value
+@dataclass(frozen=True, slots=True)
+class _Step:
+    """One entry as the loop runs it, with everything looked up once: which facts it needs
+    and reads, which of those the catalogue presents as percentages (divided by 100 on the
+    way in: ``units.from_fact_unit``), and whether its value goes out as one."""
+
+    entry: DerivedFact
+    name: str
+    needed: frozenset[str]
+    reads: tuple[str, ...]
+    marked: tuple[tuple[str, bool], ...]
+    """Each fact read, and whether its catalogue unit is ``%``."""
+    unknown: frozenset[str]
+    """Facts read that the catalogue lacks (an error when one of them is known)."""
+    read_set: frozenset[str]
+    quantity: bool
+    out_percent: bool
+
+
+@dataclass(frozen=True, slots=True)
+class _Plan:
+    """The steps of one table against one catalogue."""
+
+    steps: tuple[_Step, ...]
+    names: frozenset[str]
+    distinct: bool
+    """Whether no two entries share a name (what re-deriving part of a table relies on)."""
+
+
+def _plan(entries: tuple[DerivedFact, ...], specs: Mapping[str, FactSpec]) -> _Plan:
+    steps = []
+    for entry in entries:
+        spec = entry.spec
+        unknown = frozenset(name for name in entry.reads if name not in specs)
+        marked = tuple(
+            (name, name not in unknown and specs[name].unit == "%") for name in entry.reads
+        )
+        steps.append(
+            _Step(
+                entry=entry,
+                name=spec.name,
+                needed=frozenset(spec.inputs),
+                reads=entry.reads,
+                marked=marked,
+                unknown=unknown,
+                read_set=frozenset(entry.reads),
+                quantity=spec.kind is FactKind.QUANTITY,
+                out_percent=spec.kind is FactKind.QUANTITY and spec.unit == "%",
+            )
+        )
+    names = [step.name for step in steps]
+    return _Plan(tuple(steps), frozenset(names), len(set(names)) == len(names))
+
+
+# Plans of the tables in use, by the identity of the table (a tuple) and the catalogue, each
+# kept with both so that an identity is never reused for another table.
+_PLANS: dict[tuple[int, int], tuple[object, object, _Plan]] = {}
+
+
+def _plan_of(entries: Iterable[DerivedFact], specs: Mapping[str, FactSpec]) -> _Plan:
+    if not isinstance(entries, tuple):
+        return _plan(tuple(entries), specs)
+    key = (id(entries), id(specs))
+    found = _PLANS.get(key)
+    if found is not None and found[0] is entries and found[1] is specs:
+        return found[2]
+    plan = _plan(entries, specs)
+    if len(_PLANS) > 16:  # tables built many times (tests): start afresh
+        _PLANS.clear()
+    _PLANS[key] = (entries, specs, plan)
+    return plan
+
+
+def _arguments(
+    step: _Step, facts: Mapping[str, FactValue], specs: Mapping[str, FactSpec]
+) -> dict[str, Any]:
+    """The known facts ``step`` reads, in canonical units (``units.from_fact_unit``)."""
+    if step.unknown and not step.unknown.isdisjoint(facts):
+        # The first known one the table reads that the catalogue lacks, as a lookup would.
+        raise KeyError(next(n for n in step.reads if n in step.unknown and n in facts))
+    arguments: dict[str, Any] = {}
+    for name, percent in step.marked:
+        if name in facts:
+            value = facts[name]
+            arguments[name] = (
+                from_fact_unit(value, "%") if percent and isinstance(value, float) else value
+            )
+    return arguments
+
+
+def _outcome(
+    step: _Step,
+    facts: Mapping[str, FactValue],
+    specs: Mapping[str, FactSpec],
+    settings: Settings,
+) -> tuple[FactValue | None, str, str | None]:
+    """(value in the catalogue unit or None, method, problem) of ``step`` on ``facts``,
+    whose needed facts are all known."""
+    arguments = _arguments(step, facts, specs)
+    entry = step.entry
+    if entry.wants_settings:
+        arguments[SETTINGS] = settings
+    try:
+        out = entry.compute(**arguments)
+    except PhysiologyError as error:
+        return None, "", str(error)
+    if out is None:
+        return None, "", None
+    value, method = (out.value, out.method) if isinstance(out, Computed) else (out, "")
+    if step.quantity:
+        assert not isinstance(value, bool)
+        value = to_fact_unit(float(value), "%" if step.out_percent else "")
+    problem = entry.spec.problem(value)
+    if problem is not None:
+        return None, method, f"{problem}; not used"
+    return value, method, None
 
 
 def compute_derived(
@@ -201,35 +314,95 @@ def compute_derived(
     derived fact (the union over what it read). Returns the values filed in the result and
     the problems met (each ``fact: why``).
     """
+    return _compute(_plan_of(entries, specs), facts, sources, specs, settings)
+
+
+def _compute(
+    plan: _Plan,
+    facts: dict[str, FactValue],
+    sources: dict[str, tuple[Source, ...]],
+    specs: Mapping[str, FactSpec],
+    settings: Settings,
+) -> tuple[dict[str, Derived], list[str]]:
     filed: dict[str, Derived] = {}
     problems: list[str] = []
-    for entry in entries:
-        if any(name not in facts for name in entry.inputs):
+    known = facts.keys()
+    for step in plan.steps:
+        if not step.needed <= known:
             continue
-        read = [name for name in entry.reads if name in facts]
-        arguments: dict[str, Any] = {name: _canonical(facts[name], specs[name]) for name in read}
-        if entry.wants_settings:
-            arguments[SETTINGS] = settings
-        try:
-            out = entry.compute(**arguments)
-        except PhysiologyError as error:
-            problems.append(f"{entry.name}: {error}")
-            continue
-        if out is None:
-            continue
-        value, method = (out.value, out.method) if isinstance(out, Computed) else (out, "")
-        spec = entry.spec
-        if spec.kind is FactKind.QUANTITY:
-            assert spec.unit is not None and not isinstance(value, bool)
-            value = to_fact_unit(float(value), spec.unit)
-        problem = spec.problem(value)
+        value, method, problem = _outcome(step, facts, specs, settings)
         if problem is not None:
-            problems.append(f"{entry.name}: {problem}; not used")
+            problems.append(f"{step.name}: {problem}")
             continue
-        facts[entry.name] = value
-        used = tuple(dict.fromkeys(s for name in read for s in sources.get(name, ())))
-        sources[entry.name] = used
-        if entry.result is not None:  # only quantities are filed (see DerivedTable.flag)
-            assert spec.unit is not None and not isinstance(value, bool)
-            filed[entry.result] = Derived(value, spec.unit, method, used)
+        if value is None:
+            continue
+        found: tuple[Source, ...] = ()
+        for name in step.reads:
+            if name in facts:
+                found += sources.get(name, ())
+        used = tuple(dict.fromkeys(found))
+        facts[step.name] = value
+        sources[step.name] = used
+        result = step.entry.result
+        if result is not None:  # only quantities are filed (see DerivedTable.flag)
+            spec = step.entry.spec
+            assert spec.unit is not None and isinstance(value, float)
+            filed[result] = Derived(value, spec.unit, method, used)
     return filed, problems
+
+
+_MISSING = object()
+
+
+def _same(a: object, b: object) -> bool:
+    """Whether two fact values are the same value: the same type and equal, and for numbers
+    the same sign of zero (a NaN is never the same, which only costs a recomputation)."""
+    if type(a) is not type(b) or a != b:
+        return False
+    return not isinstance(a, float) or math.copysign(1.0, a) == math.copysign(
+        1.0,
+        b,  # type: ignore[arg-type]
+    )
+
+
+def derive_changed(
+    entries: Iterable[DerivedFact],
+    measured: Mapping[str, FactValue],
+    derived: Mapping[str, FactValue],
+    changes: Mapping[str, FactValue],
+    specs: Mapping[str, FactSpec],
+    settings: Settings,
+) -> dict[str, FactValue]:
+    """The facts ``compute_derived`` gives from ``measured`` with ``changes`` applied, given
+    ``derived``, the facts it set from ``measured`` alone; problems are not reported.
+
+    Each entry's outcome is a pure function of the facts it reads (and the settings), so only
+    an entry that reads a fact whose value or presence changed is computed again; every other
+    one keeps its value from ``derived``. Computing everything again gives the same facts
+    (``tests/assess/test_derivation.py`` compares the two).
+    """
+    plan = _plan_of(entries, specs)
+    facts = {**measured, **changes}
+    if not plan.distinct or not plan.names.isdisjoint(facts):
+        # An entry that overwrites an input or another entry: no shortcut, all again.
+        _compute(plan, facts, {}, specs, settings)
+        return facts
+    changed = {
+        name for name, value in changes.items() if not _same(measured.get(name, _MISSING), value)
+    }
+    known = facts.keys()
+    for step in plan.steps:
+        name = step.name
+        if changed.isdisjoint(step.read_set):
+            if name in derived:
+                facts[name] = derived[name]
+            continue
+        before = derived.get(name, _MISSING)
+        value = None
+        if step.needed <= known:
+            value, _, _ = _outcome(step, facts, specs, settings)
+        if value is not None:
+            facts[name] = value
+        if not _same(_MISSING if value is None else value, before):
+            changed.add(name)
+    return facts

@@ -18,12 +18,13 @@ from service.intake.model import Patient, Quantity, Source
 from service.physiology.units import to_fact_unit
 
 from .catalogue import AGE, DEFAULT_CATALOGUE, MEASURED_FACTS
-from .derivation import Derived, FactValue, compute_derived
+from .derivation import Derived, FactValue, compute_derived, derive_changed
 from .derived import DERIVED_FACTS
 from .pairing import PairedGas
 from .sources import barometric_pressure, inspired_oxygen_fraction
 
 __all__ = [
+    "Derivation",
     "Derived",
     "FactValue",
     "GasFacts",
@@ -32,6 +33,22 @@ __all__ = [
     "derive_gas_facts",
     "with_fio2_raised",
 ]
+
+
+@dataclass(frozen=True, slots=True)
+class Derivation:
+    """The derived facts set from a gas's measured facts, and the settings used."""
+
+    settings: Settings
+    facts: dict[str, FactValue]
+
+
+_KEPT_SCENARIOS = 32  # per gas: the product of a few ranges' ends, with room to spare
+_DERIVED_NAMES = tuple(entry.name for entry in DERIVED_FACTS)
+
+
+def _derivation(facts: dict[str, FactValue], settings: Settings) -> Derivation:
+    return Derivation(settings, {name: facts[name] for name in _DERIVED_NAMES if name in facts})
 
 
 @dataclass(slots=True)
@@ -51,6 +68,14 @@ class GasFacts:
     """The facts before derivation (measured, PB and FiO2 with their flags): what a scenario
     with other inputs derives from again."""
     measured_sources: dict[str, tuple[Source, ...]] = field(default_factory=dict)
+    base: Derivation | None = field(default=None, repr=False)
+    """What the derivation from ``measured`` set, for a scenario to derive only what its
+    changes touch (None: derive everything again)."""
+    again: dict[tuple[tuple[str, str, str], ...], dict[str, FactValue]] = field(
+        default_factory=dict, repr=False, compare=False
+    )
+    """The facts of each scenario derived so far (with ``base``'s settings), by its changes:
+    the verdict and the deficit partition ask for the same ones."""
 
     def number(self, name: str) -> float | None:
         value = self.facts.get(name)
@@ -104,6 +129,7 @@ def derive_gas_facts(
     )
     out.derived.update(filed)
     out.problems += problems
+    out.base = _derivation(out.facts, settings)
     return out
 
 
@@ -112,11 +138,27 @@ def derive_again(
 ) -> dict[str, FactValue]:
     """The facts of ``gas`` derived again with some inputs changed (a scenario): ``changes``
     are facts in catalogue units (``fio2``, ``barometric_pressure``, ``age``,
-    ``altitude_residence``). Problems met are not reported again."""
-    facts = {**gas.measured, **changes}
-    sources = dict(gas.measured_sources)
-    compute_derived(DERIVED_FACTS, facts, sources, DEFAULT_CATALOGUE, settings)
-    return facts
+    ``altitude_residence``). Problems met are not reported again.
+
+    Only the facts that read what the changes touch are computed again (``derive_changed``),
+    and each set of changes once per gas; the caller gets its own mapping."""
+    base = gas.base
+    if base is None or not (base.settings is settings or base.settings == settings):
+        facts = {**gas.measured, **changes}
+        compute_derived(DERIVED_FACTS, facts, {}, DEFAULT_CATALOGUE, settings)
+        return facts
+    # The key tells apart what equality would not (1.0 and True, 0.0 and -0.0); the order of
+    # the changes is the order of the facts they add.
+    key = tuple((name, type(value).__name__, repr(value)) for name, value in changes.items())
+    found = gas.again.get(key)
+    if found is None:
+        found = derive_changed(
+            DERIVED_FACTS, gas.measured, base.facts, changes, DEFAULT_CATALOGUE, settings
+        )
+        if len(gas.again) >= _KEPT_SCENARIOS:
+            gas.again.clear()
+        gas.again[key] = found
+    return dict(found)
 
 
 def with_fio2_raised(gas: GasFacts, fio2: float, *, settings: Settings) -> GasFacts:
@@ -135,6 +177,7 @@ def with_fio2_raised(gas: GasFacts, fio2: float, *, settings: Settings) -> GasFa
     out.facts = dict(out.measured)
     out.sources = dict(out.measured_sources)
     filed, _ = compute_derived(DERIVED_FACTS, out.facts, out.sources, DEFAULT_CATALOGUE, settings)
+    out.base = _derivation(out.facts, settings)
     out.derived = {**gas.derived, **filed}
     before = gas.derived.get("fio2")
     method = (before.method + "; " if before is not None else "") + (

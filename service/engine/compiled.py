@@ -7,7 +7,7 @@ keep it undecided. Parts that are already true or false do not count, so "data
 requested" never asks for a fact that could not change the answer.
 """
 
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass, replace
 from operator import itemgetter
 
@@ -15,6 +15,7 @@ from service.engine.logic import TruthValue
 
 __all__ = [
     "BROKEN",
+    "BlockStates",
     "CompiledCondition",
     "StateVector",
     "all_of",
@@ -26,6 +27,22 @@ __all__ = [
 ]
 
 StateVector = Sequence[TruthValue]
+
+
+class BlockStates(tuple[TruthValue, ...]):
+    """A state vector that keeps, for the one evaluation it belongs to, the truth and the
+    undecided leaves of each named block once they are first read: a block that ninety rules
+    refer to is worked out once, not ninety times. Both are functions of the vector alone, so
+    keeping them changes no answer; any other vector (a plain tuple) is read as before."""
+
+    truths: dict[object, TruthValue]
+    undecided: dict[object, frozenset[int]]
+
+    def __new__(cls, states: Iterable[TruthValue]) -> "BlockStates":
+        made = super().__new__(cls, states)
+        made.truths = {}
+        made.undecided = {}
+        return made
 
 
 @dataclass(frozen=True, slots=True)
@@ -157,9 +174,33 @@ def definitely_of(part: CompiledCondition) -> CompiledCondition:
 
 
 def named(name: str, block: CompiledCondition) -> CompiledCondition:
-    """A reference to the block ``name``: the block's own closures (evaluation is unchanged,
-    a single-leaf block is still read straight from the vector), marked for traces."""
-    return replace(block, kind="ref", parts=(block,), name=name)
+    """A reference to the block ``name``, marked for traces: a single-leaf block is still read
+    straight from the vector; any other is the block's own closures, their answers kept in a
+    ``BlockStates`` vector for the rest of its evaluation."""
+    if block.leaf is not None:
+        return replace(block, kind="ref", parts=(block,), name=name)
+    block_truth, block_undecided = block.truth, block.undecided
+    key = object()  # this reference's own entry in a vector's kept answers
+
+    def truth(states: StateVector) -> TruthValue:
+        if not isinstance(states, BlockStates):
+            return block_truth(states)
+        kept = states.truths
+        if key in kept:
+            return kept[key]
+        value = kept[key] = block_truth(states)
+        return value
+
+    def undecided(states: StateVector) -> frozenset[int]:
+        if not isinstance(states, BlockStates):
+            return block_undecided(states)
+        kept = states.undecided
+        found = kept.get(key)
+        if found is None:
+            found = kept[key] = block_undecided(states)
+        return found
+
+    return replace(block, truth=truth, undecided=undecided, kind="ref", parts=(block,), name=name)
 
 
 def leaf_node(index: int) -> CompiledCondition:

@@ -38,6 +38,7 @@ class DataRequests:
         self._facts = facts
         self._catalogue = catalogue
         self._asked: dict[str, tuple[set[str], set[str]]] = {}
+        self._turned: dict[str, tuple[str, ...]] = {}
 
     def ask(
         self, fact: str, rule: str, *, even_if_known: bool = False, wanted: str | None = None
@@ -54,20 +55,38 @@ class DataRequests:
                 if rule:
                     requested_by.add(rule)
             return
-        spec = self._catalogue[fact]
-        missing_inputs = [name for name in spec.inputs if name not in self._facts]
-        if not missing_inputs:
-            missing_inputs = [name for name in spec.optional_inputs if name not in self._facts]
-        if missing_inputs:
-            for name in missing_inputs:
-                self.ask(name, rule, wanted=wanted or fact)
-            return
-        # All inputs known (or none declared): the fact itself is what is missing.
-        requested_by, needed_for = self._entry(fact)
-        if rule:
-            requested_by.add(rule)
-        if wanted is not None:
-            needed_for.add(wanted)
+        for name in self._requested(fact):
+            requested_by, needed_for = self._entry(name)
+            if rule:
+                requested_by.add(rule)
+            # The fact itself is asked for the derived fact it was wanted for (if any); an
+            # input it stands in for, for the fact (or what the fact was wanted for).
+            feeds = wanted if name == fact else (wanted or fact)
+            if feeds is not None:
+                needed_for.add(feeds)
+
+    def _requested(self, fact: str) -> tuple[str, ...]:
+        """What a request for the missing ``fact`` asks for: its missing inputs, recursively,
+        or the missing optional inputs when every needed one is known, or itself. The same
+        whoever asks, so worked out once per fact."""
+        found = self._turned.get(fact)
+        if found is None:
+            spec = self._catalogue[fact]
+            facts = self._facts
+            missing_inputs = [name for name in spec.inputs if name not in facts]
+            if not missing_inputs:
+                missing_inputs = [name for name in spec.optional_inputs if name not in facts]
+            found = (
+                tuple(
+                    dict.fromkeys(
+                        asked for name in missing_inputs for asked in self._requested(name)
+                    )
+                )
+                if missing_inputs
+                else (fact,)
+            )
+            self._turned[fact] = found
+        return found
 
     def _entry(self, fact: str) -> tuple[set[str], set[str]]:
         entry = self._asked.get(fact)

@@ -12,6 +12,7 @@ it cites or asks about, `Evaluation.results` makes the rest when it is first rea
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 
+from service.engine.compiled import BlockStates
 from service.engine.facts import FactValue
 from service.engine.logic import TruthValue, truth_of
 from service.engine.results import EvaluationContext, RuleResult
@@ -98,7 +99,7 @@ def evaluate(
     # A private copy (results render text later and must not see the caller's edits), with
     # every number at its stated precision: rules compare values as stated.
     known: dict[str, FactValue] = ruleset.catalogue.as_stated(facts)  # type: ignore[assignment]
-    states = tuple([test(known) for test in ruleset.leaf_tests])
+    states = BlockStates([test(known) for test in ruleset.leaf_tests])
     rule_states = [truth(states) for truth in ruleset.rule_truths]
     results = _Results(
         ruleset.evaluated, rule_states, EvaluationContext(known, states, ruleset.leaves)

@@ -19,6 +19,9 @@ from service.engine.ruleset import Outcome, Rule
 
 __all__ = ["EvaluationContext", "LeafTrace", "RuleResult", "TraceNode"]
 
+# A state as a trace line spells it (``Truth``'s values), without an enum lookup per line.
+_STATE_TEXT: dict[TruthValue, str] = {value: truth_of(value).value for value in (True, False, None)}
+
 
 @dataclass(frozen=True, slots=True)
 class EvaluationContext:
@@ -151,7 +154,7 @@ class RuleResult:
             leaf = leaves[index]
             value = facts.get(leaf.fact)
             seen = "missing" if value is None else f"{shown_value(value)}{leaf.shown_unit}"
-            state = truth_of(states[index]).value
+            state = _STATE_TEXT[states[index]]
             lines.append(f"{ref}: {leaf.fact} {seen} {leaf.shown_test} → {state}")
         return tuple(lines)
 

@@ -155,13 +155,17 @@ def _relinked(value: Any, links: _Links) -> Any:
     input) pointed at as ``service.fhir.addresses`` says: for parts built by modules that do
     not know the result's addressing (the oxygen-response fit)."""
     if isinstance(value, list):
-        return [_relinked(v, links) for v in value]
+        return [_relinked(v, links) if isinstance(v, _CONTAINERS) else v for v in value]
     if not isinstance(value, dict):
         return value
-    reference = value.get("reference") if set(value) == {"reference"} else None
+    reference = value.get("reference") if len(value) == 1 else None
     if isinstance(reference, str) and not reference.startswith(("urn:", "#")):
         return links.to_input(reference)  # an input's "Type/id" (a result entry is a urn)
-    return {k: _relinked(v, links) for k, v in value.items()}
+    # Numbers and strings are most of the tree and come back as they are: no call for them.
+    return {k: _relinked(v, links) if isinstance(v, _CONTAINERS) else v for k, v in value.items()}
+
+
+_CONTAINERS = (dict, list)
 
 
 def _finding_coding(f: Finding) -> Json:

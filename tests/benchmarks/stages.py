@@ -1,11 +1,14 @@
-"""Stage benchmark of the FHIR adapter and the engine (a separate command, not a test).
+"""Stage benchmark of the assess path (a separate command, not a test).
 
     python -m tests.benchmarks.stages [--rounds N] [--repeats N]
 
 Prints, measured in the same run on the demo Bundle: the median time of ``orjson.loads`` (the
 floor), of ``read_bundle`` on the parsed Bundle, and of ``evaluate`` (including ``decide``) on
-the facts the assess path hands the engine for that Bundle, each as a ratio to the floor.
-Each figure is the median of ``--repeats`` interleaved runs of ``--rounds`` batches of 10.
+the facts the assess path hands the engine for that Bundle, each as a ratio to the floor; then
+the rest of the path, stage by stage: pairing, deriving every gas's facts, the whole
+assessment (which evaluates the rules once per scenario of its uncertain inputs), rendering
+the result Bundle and ``orjson.dumps`` of it. Each figure is the median of ``--repeats``
+interleaved runs of ``--rounds`` batches of 10.
 """
 
 from __future__ import annotations
@@ -17,6 +20,9 @@ from pathlib import Path
 
 import orjson
 
+from service.assess.assess import windows
+from service.assess.derive import derive_gas_facts
+from service.assess.pairing import pair_gases
 from service.engine import evaluate
 from service.engine.facts import FactValue
 from service.fhir.extract import read_bundle
@@ -45,11 +51,28 @@ def main() -> None:
     facts = engine_facts(runtime, data)
     ruleset = runtime.ruleset
     concept_map = runtime.concept_map
+    settings = runtime.settings
+    intake = read_bundle(data, concept_map=concept_map)
+    pairing = pair_gases(intake, windows=windows(settings))
+    assessment = runtime.assess_intake(intake)
+    result = runtime.render(assessment, addresses=intake.addresses)
+    today = assessment.timestamp.date()
+
+    def derive() -> object:
+        return [
+            derive_gas_facts(g, patient=intake.patient, settings=settings, today=today)
+            for g in pairing.gases
+        ]
 
     stages: dict[str, Callable[[], object]] = {
         "orjson.loads (floor)": lambda: orjson.loads(raw),
         "read_bundle": lambda: read_bundle(data, concept_map=concept_map),
         "evaluate (with decide)": lambda: evaluate(ruleset, facts),
+        "pair_gases": lambda: pair_gases(intake, windows=windows(settings)),
+        "derive every gas": derive,
+        "assess (all of it)": lambda: runtime.assess_intake(intake),
+        "render": lambda: runtime.render(assessment, addresses=intake.addresses),
+        "orjson.dumps (result)": lambda: orjson.dumps(result),
     }
     runs: dict[str, list[float]] = {name: [] for name in stages}
     for _ in range(args.repeats):
