@@ -45,6 +45,9 @@ class Derivation:
 
 _KEPT_SCENARIOS = 32  # per gas: the product of a few ranges' ends, with room to spare
 _DERIVED_NAMES = tuple(entry.name for entry in DERIVED_FACTS)
+# The names the derived-fact table files in the result: on a new FiO2 each is either computed
+# again or gone, never kept from the old FiO2.
+_FILED_NAMES = frozenset(entry.result for entry in DERIVED_FACTS if entry.result is not None)
 
 
 def _derivation(facts: dict[str, FactValue], settings: Settings) -> Derivation:
@@ -178,7 +181,8 @@ def with_fio2_raised(gas: GasFacts, fio2: float, *, settings: Settings) -> GasFa
     out.sources = dict(out.measured_sources)
     filed, _ = compute_derived(DERIVED_FACTS, out.facts, out.sources, DEFAULT_CATALOGUE, settings)
     out.base = _derivation(out.facts, settings)
-    out.derived = {**gas.derived, **filed}
+    kept = {name: d for name, d in gas.derived.items() if name not in _FILED_NAMES}
+    out.derived = {**kept, **filed}
     before = gas.derived.get("fio2")
     method = (before.method + "; " if before is not None else "") + (
         f"raised to {fio2:.2f}, the least FiO2 that gives this PaO2"

@@ -2,14 +2,19 @@
 
 from __future__ import annotations
 
+import dataclasses
 from datetime import date
+from pathlib import Path
 
+import orjson
 import pytest
 
 from service.assess.assess import windows
-from service.assess.derive import GasFacts, age_years, derive_gas_facts
+from service.assess.derivation import Derived
+from service.assess.derive import GasFacts, age_years, derive_gas_facts, with_fio2_raised
 from service.assess.pairing import pair_gases
 from service.config import Settings
+from service.fhir.extract import read_bundle
 from service.intake.model import Fio2Source, Intake
 from service.intake.model import Quantity as Q
 
@@ -118,3 +123,28 @@ def test_spo2_only_gives_sf_ratio_and_an_imputed_pao2() -> None:
 def test_age_is_counted_in_whole_years_at_the_time_of_the_gas() -> None:
     assert age_years(date(1960, 5, 1), date(2026, 4, 30)) == 65.0
     assert age_years(date(1960, 5, 1), date(2026, 5, 1)) == 66.0
+
+
+def test_a_raised_fio2_recomputes_every_filed_value_and_keeps_none_from_the_old_fio2() -> None:
+    """A PaO2 that proves a higher FiO2 than the device estimate: every value the result files
+    is computed again on the new FiO2 (alveolar gas equation, West JB, Respiratory Physiology,
+    10th ed., 2016: PIO2 = FiO2 × (PB − PH2O), so it scales with the FiO2), and one that can
+    no longer be computed is gone, not kept from the old FiO2."""
+    settings = Settings()
+    bundle = Path(__file__).resolve().parents[2] / "fixtures/demo/altitude-visitor.bundle.json"
+    intake = read_bundle(orjson.loads(bundle.read_bytes()))
+    gas = derive_gas_facts(
+        pair_gases(intake, windows=windows(settings)).index,
+        patient=intake.patient,
+        settings=settings,
+        today=date(2026, 12, 5),
+    )
+    assert "shunt-fraction" not in gas.derived  # no Hb on this record
+    stale = Derived(12.0, "%", "computed on the old FiO2", ())
+    gas = dataclasses.replace(gas, derived={**gas.derived, "shunt-fraction": stale})
+    raised = with_fio2_raised(gas, 0.42, settings=settings)
+    assert raised.derived["fio2"].value == 0.42
+    assert "shunt-fraction" not in raised.derived
+    before, after = gas.derived["inspired-po2"].value, raised.derived["inspired-po2"].value
+    assert after == pytest.approx(before * 0.42 / gas.facts["fio2"], rel=1e-9)
+    assert raised.derived["barometric-pressure"] == gas.derived["barometric-pressure"]
