@@ -8,7 +8,7 @@ from service.engine.facts import FactValue
 from service.engine.parameters import Parameter
 from service.engine.rationale import DisplayUnit, compile_template, format_quantity
 
-from .builders import build, rule
+from .builders import build, manifest, rule
 
 
 @pytest.mark.parametrize(
@@ -91,3 +91,58 @@ def test_the_unit_of_a_sentence_is_a_rendering_choice() -> None:
     # 65 × 0.133322 = 8.666 kPa; the threshold 45 mmHg = 5.9995 kPa, shown as written: 6.
     assert result.rationale_in(KPA) == "PaCO2 8.67 kPa is above 6 kPa (pH 7.25)."
     assert result.rationale_in({}) == result.rationale
+
+
+def test_a_converted_parameter_keeps_two_decimals_and_never_reads_minus_zero() -> None:
+    # UCUM factor 0.1333220: 10 mmHg = 1.33322 kPa, shown to two decimals (1.33, not 1.3);
+    # a value that rounds to zero reads 0, not -0.
+    for value, shown in ((10.0, "1.33 kPa"), (-0.001, "0 kPa"), (45.0, "6 kPa")):
+        data = manifest()
+        data["parameters"]["margin"] = {
+            "value": value,
+            "unit": "mm[Hg]",
+            "description": "Invented for tests.",
+            "minimum": -5,
+            "maximum": 50,
+            "source": "Invented for tests.",
+        }
+        ruleset = build(
+            data, [rule("r", when={"ref": "hypercapnia"}, rationale="Margin {margin}.")]
+        )
+        result = evaluate(ruleset, {"arterial_pco2": 65.0}).results[0]
+        assert result.rationale_in(KPA) == f"Margin {shown}."
+
+
+def test_the_tree_shows_each_leaf_with_its_text_and_each_block_by_name_with_its_parts() -> None:
+    ruleset = build(
+        rules=[
+            rule(
+                "tree",
+                when={
+                    "all": [
+                        {"ref": "hypercapnia"},
+                        {"fact": "arterial_ph", "lt": 7.35, "unit": "[pH]"},
+                    ]
+                },
+                rationale="PaCO2 {arterial_pco2}.",
+            )
+        ]
+    )
+    tree = evaluate(ruleset, {"arterial_pco2": 65.0, "arterial_ph": 7.25}).results[0].tree
+    assert tree.kind == "all"
+    block, leaf = tree.children
+    assert (block.kind, block.name) == ("ref", "hypercapnia")
+    (inner,) = block.children
+    assert inner.kind == "leaf" and inner.leaf is not None
+    assert inner.text.startswith("arterial_pco2 65")
+    assert leaf.kind == "leaf" and leaf.leaf is not None and leaf.text.startswith("arterial_ph")
+    # A block met twice in one evaluation is the same node (worked out once).
+    twice = build(
+        rules=[
+            rule("a", when={"ref": "hypercapnia"}, rationale="a"),
+            rule("b", when={"ref": "hypercapnia"}, rationale="b"),
+        ]
+    )
+    first, second = evaluate(twice, {"arterial_pco2": 65.0}).results
+    assert first.tree is not None and first.tree.kind == "ref"
+    assert second.tree.children == first.tree.children
