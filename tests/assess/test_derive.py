@@ -146,5 +146,7 @@ def test_a_raised_fio2_recomputes_every_filed_value_and_keeps_none_from_the_old_
     assert raised.derived["fio2"].value == 0.42
     assert "shunt-fraction" not in raised.derived
     before, after = gas.derived["inspired-po2"].value, raised.derived["inspired-po2"].value
-    assert after == pytest.approx(before * 0.42 / gas.facts["fio2"], rel=1e-9)
+    fio2_before = gas.facts["fio2"]
+    assert isinstance(fio2_before, float)
+    assert after == pytest.approx(before * 0.42 / fio2_before, rel=1e-9)
     assert raised.derived["barometric-pressure"] == gas.derived["barometric-pressure"]
