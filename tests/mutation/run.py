@@ -81,7 +81,15 @@ AREAS: dict[str, tuple[tuple[str, ...], tuple[str, ...]]] = {
             for p in sorted((ROOT / "service/assess").glob("*.py"))
             if p.name not in ("__init__.py", "summary.py", "presentation.py")
         ),
-        ("tests/assess", "tests/test_fixtures.py", "tests/engine/test_catalogue.py"),
+        (
+            "tests/assess",
+            "tests/test_fixtures.py",
+            "tests/engine/test_catalogue.py",
+            # the partition and the admixture are checked end to end where they are shown
+            "tests/fhir/test_render_deficit.py",
+            "tests/physiology/test_deficit.py",
+            "tests/physiology/test_deficit_steps.py",
+        ),
     ),
 }
 # Heavy third-party imports done once in the parent, before any fork (never `service`).
