@@ -144,6 +144,10 @@ def test_a_raised_fio2_recomputes_every_filed_value_and_keeps_none_from_the_old_
     gas = dataclasses.replace(gas, derived={**gas.derived, "shunt-fraction": stale})
     raised = with_fio2_raised(gas, 0.42, settings=settings)
     assert raised.derived["fio2"].value == 0.42
+    # The FiO2 keeps how it was first estimated, and its sources, and says why it was raised.
+    first = gas.derived["fio2"]
+    assert raised.derived["fio2"].method.startswith(first.method + "; raised to 0.42")
+    assert raised.derived["fio2"].inputs == first.inputs
     assert "shunt-fraction" not in raised.derived
     before, after = gas.derived["inspired-po2"].value, raised.derived["inspired-po2"].value
     fio2_before = gas.facts["fio2"]
