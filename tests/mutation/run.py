@@ -69,7 +69,15 @@ AREAS: dict[str, tuple[tuple[str, ...], tuple[str, ...]]] = {
             for p in sorted((ROOT / "service/physiology").glob("*.py"))
             if p.name != "__init__.py"
         ),
-        ("tests/physiology", "tests/assess", "tests/test_units_ucum.py"),
+        (
+            "tests/physiology",
+            "tests/assess",
+            "tests/test_units_ucum.py",
+            # the titration fixtures' numbers checked against the model written again
+            # independently (tests/titration_reference.py), and every fixture's grades
+            "tests/test_titration_fixtures.py",
+            "tests/test_fixtures.py",
+        ),
     ),
     "engine": (
         tuple(f"service/engine/{name}" for name in ENGINE_EVALUATION),
@@ -282,7 +290,15 @@ def report(area: str, outcomes: Sequence[Outcome], seconds: float) -> str:
     return "\n".join(lines)
 
 
-def main(argv: Sequence[str] | None = None) -> int:
+def _own_tests_first(module: str, tests: tuple[str, ...]) -> tuple[str, ...]:
+    """The module's own test file (``tests/<package>/test_<stem>.py``) ahead of the rest, so
+    that most mutants fail in the first seconds; pytest collects a file named twice once."""
+    package, stem = Path(module).parent.name, Path(module).stem
+    own = f"tests/{package}/test_{stem}.py"
+    return (own, *tests) if (ROOT / own).is_file() else tests
+
+
+def _parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(description=(__doc__ or "").splitlines()[0])
     parser.add_argument("--area", choices=sorted(AREAS), action="append")
     parser.add_argument("--module", action="append", help="one module (path from the root)")
@@ -293,15 +309,36 @@ def main(argv: Sequence[str] | None = None) -> int:
     parser.add_argument(
         "--only", type=Path, help="run only the mutants listed in this file (one key a line)"
     )
-    options = parser.parse_args(argv)
+    parser.add_argument(
+        "--tests",
+        action="append",
+        help=(
+            "run these tests instead of the area's subset (a quick check while writing tests;"
+            " a mutant a narrower subset kills, the area's subset kills too when it holds"
+            " these tests; the kill rate is measured with the area's subset)"
+        ),
+    )
+    return parser
+
+
+def _selected(options: argparse.Namespace) -> list[tuple[str, tuple[str, ...], tuple[str, ...]]]:
+    """(name, modules, tests) for each module or area asked for."""
     selected: list[tuple[str, tuple[str, ...], tuple[str, ...]]] = []
     if options.module:
         for path in options.module:
             area = next(a for a, (mods, _) in AREAS.items() if path in mods)
-            selected.append((path, (path,), AREAS[area][1]))
+            selected.append((path, (path,), _own_tests_first(path, AREAS[area][1])))
     else:
         for area in options.area or sorted(AREAS):
             selected.append((area, *AREAS[area]))
+    if options.tests:
+        selected = [(name, modules, tuple(options.tests)) for name, modules, _ in selected]
+    return selected
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    options = _parser().parse_args(argv)
+    selected = _selected(options)
     if options.list:
         for _, modules, _tests in selected:
             for path in modules:
@@ -310,8 +347,9 @@ def main(argv: Sequence[str] | None = None) -> int:
         return 0
     only = None
     if options.only is not None:
+        # a survivors listing as this runner prints it ("survived: key") is read too
         only = frozenset(
-            line.strip()
+            line.strip().removeprefix("survived: ")
             for line in options.only.read_text(encoding="utf-8").splitlines()
             if line.strip()
         )
