@@ -25,11 +25,13 @@ with the analytic second derivatives (the adaptive choice of NL2SOL: Dennis JE, 
 Welsch RE, ACM Trans Math Softw 1981;7:348, from memory): Gauss–Newton alone crawls when the
 residuals stay large, as in a poor fit or the effective shunt of a lung with a V/Q term. A
 two-parameter search that ends at a local minimum fitting worse than the effective shunt
-(the same model at ΔPO2 = 0) is run again from it. Written by hand, not with scipy: scipy is not a runtime dependency
-(tens of MB, and importing ``scipy.optimize`` took 0.7–1.4 s here), and one
-``scipy.optimize.least_squares`` call on the same residuals and Jacobian takes about three
-times as long as this whole fit, ranges included (``python -m tests.benchmarks.oxygen_response``
-measures both); the tests check that this solver reaches scipy's minimum.
+(the same model at ΔPO2 = 0) is run again from it.
+
+Written by hand, not with scipy: scipy is not a runtime dependency (tens of MB, and importing
+``scipy.optimize`` took 0.7–1.4 s here), and one ``scipy.optimize.least_squares`` call on the
+same residuals and Jacobian takes about three times as long as this whole fit, ranges
+included (``python -m tests.benchmarks.oxygen_response`` measures both); the tests check that
+this solver reaches scipy's minimum.
 
 Confidence ranges, 95 %. Two-parameter fit: profile-likelihood ranges (Venzon DJ & Moolgavkar
 SH, Appl Stat 1988;37:87, from memory), the values of each parameter for which the best χ²
@@ -543,29 +545,34 @@ class _ContentSpace:
         """(odds_u, χ²_u, A, the largest odds with a steady state) at ``drop``; None where
         some point has no steady state even without a shunt."""
         kh, alpha, avd = self.kh, c.O2_SOLUBILITY_ML_DL_PER_MMHG, self.avd
+        floor = MIN_END_CAPILLARY_PO2_MMHG
         sw = swg = swgg = 0.0
-        odds_max = _MAX_SHUNT_ODDS
+        least = math.inf  # the least end-capillary content
         for alveolar, scale, content, variance, alveolar_sd in self.rows:
             cap = alveolar - drop
-            if cap < MIN_END_CAPILLARY_PO2_MMHG:
+            if cap < floor:
                 return None
             # Severinghaus eq. 1 and its slope, inlined: this loop runs some 40 times a fit.
             p_std = scale * cap
             x = p_std * (p_std * p_std + 150.0)
             d = x + 23400.0
             c_cap = kh * x / d + alpha * cap
-            if c_cap <= avd:
-                return None
-            odds_max = min(odds_max, (c_cap - avd) / avd)
+            if c_cap < least:
+                least = c_cap
             if alveolar_sd > 0.0:
                 slope = kh * scale * 23400.0 * (3.0 * p_std * p_std + 150.0) / (d * d) + alpha
-                variance = variance + (slope * alveolar_sd) ** 2
+                spread = slope * alveolar_sd
+                variance = variance + spread * spread
             w = 1.0 / variance
             g = c_cap - content
             sw += w
-            swg += w * g
-            swgg += w * g * g
+            wg = w * g
+            swg += wg
+            swgg += wg * g
+        if least <= avd:
+            return None
         odds_u = swg / (avd * sw)
+        odds_max = min(_MAX_SHUNT_ODDS, (least - avd) / avd)
         return odds_u, max(0.0, swgg - swg * swg / sw), avd * avd * sw, odds_max
 
     def profile(self, drop: float) -> tuple[float, float] | None:
@@ -845,15 +852,22 @@ def _local_model(
     )
     for obs, state, r, sd, j_o, j_d in rows:
         scale = obs.scale
-        s2_art = scale * scale * _saturation_curvature(scale * state.arterial_po2_mmhg)
+        # S'' of Severinghaus 1979 eq. 1, S = x / (x + 23400) with x = q³ + 150 q (q the
+        # standard-curve PO2): 23400 (x'' (x + 23400) − 2 x'²) / (x + 23400)³, x'' = 6 q.
+        q = scale * state.arterial_po2_mmhg
+        x1 = 3.0 * q * q + 150.0
+        d = q * (q * q + 150.0) + 23400.0
+        s2_art = scale * scale * 23400.0 * (6.0 * q * d - 2.0 * x1 * x1) / (d * d * d)
         c1_art = state.content_slope_arterial
         c1_cap = state.content_slope_capillary
         c2_art = kh * s2_art
-        c2_cap = (
-            kh * scale * scale * _saturation_curvature(scale * state.end_capillary_po2_mmhg)
-            if fit_drop or obs.fio2_sd > 0.0
-            else 0.0
-        )
+        if fit_drop or obs.fio2_sd > 0.0:
+            q = scale * state.end_capillary_po2_mmhg
+            x1 = 3.0 * q * q + 150.0
+            d = q * (q * q + 150.0) + 23400.0
+            c2_cap = kh * scale * scale * 23400.0 * (6.0 * q * d - 2.0 * x1 * x1) / (d * d * d)
+        else:
+            c2_cap = 0.0
         pa_o = -avd / c1_art
         pa_d = -c1_cap / c1_art
         pa_oo = -c2_art * pa_o * pa_o / c1_art
@@ -901,17 +915,6 @@ def _positive_definite(
     if a > 1e-6 * h[0] and d > 1e-6 * h[2] and a * d - b * b > 1e-6 * (h[0] * h[2] - h[1] * h[1]):
         return (a, b, d)
     return None
-
-
-def _saturation_curvature(po2_mmhg: float) -> float:
-    """d²S/dPO2² of Severinghaus 1979 eq. 1 on the standard curve: with x = PO2³ + 150 PO2
-    and S = x / (x + 23400), S'' = 23400 (x'' (x + 23400) − 2 x'²) / (x + 23400)³."""
-    if po2_mmhg <= 0.0:
-        return 0.0
-    x = po2_mmhg * (po2_mmhg * po2_mmhg + 150.0)
-    x1 = 3.0 * po2_mmhg * po2_mmhg + 150.0
-    d = x + 23400.0
-    return 23400.0 * (6.0 * po2_mmhg * d - 2.0 * x1 * x1) / (d * d * d)
 
 
 def _covariance(j_odds: list[float], j_drop: list[float] | None) -> tuple[float, float, float]:
