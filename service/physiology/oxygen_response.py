@@ -454,6 +454,7 @@ def _evaluate(
     drop: float,
     conditions: ExchangeConditions,
     near: _Evaluation | None = None,
+    starts: Sequence[float] | None = None,
 ) -> _Evaluation | None:
     """The model at every used point; None where it has no steady state at some point.
 
@@ -461,7 +462,8 @@ def _evaluate(
         dPaO2/d odds = −avd / C'(PaO2);  dPaO2/dΔPO2 = −C'(Pc'O2) / C'(PaO2);
         dPaO2/dFiO2 = C'(Pc'O2) dPAO2/dFiO2 / C'(PaO2);  dSaO2 = S'(PaO2) dPaO2.
     Each residual is divided by √(measurement SD² + (dy/dFiO2 × FiO2 SD)²). ``near``, an
-    evaluation at nearby parameters, starts each point's PaO2 solve from its answer there.
+    evaluation at nearby parameters, starts each point's PaO2 solve from its answer there;
+    ``starts``, when there is none, gives PaO2s to start from (the observed ones).
     """
     kh = conditions.carrying_capacity_ml_dl
     avd = conditions.av_difference_ml_dl
@@ -471,7 +473,8 @@ def _evaluate(
     sds: list[float] = []
     states: list[ExchangeState] = []
     chi2 = 0.0
-    starts = [st.arterial_po2_mmhg for st in near.states] if near is not None else None
+    if near is not None:
+        starts = [st.arterial_po2_mmhg for st in near.states]
     for i, obs in enumerate(used):
         start = starts[i] if starts is not None else 0.0
         state = exchange_state(obs.alveolar_po2_mmhg, drop, odds, kh, avd, obs.scale, start)
@@ -520,6 +523,7 @@ class _ContentSpace:
         self.avd = conditions.av_difference_ml_dl
         alpha = c.O2_SOLUBILITY_ML_DL_PER_MMHG
         self.rows: list[tuple[float, float, float, float, float]] = []
+        self.po2s: list[float] = []  # the observed PaO2s, or those of the observed saturations
         for obs in used:
             if obs.is_pressure:
                 p = obs.observed
@@ -531,6 +535,7 @@ class _ContentSpace:
                 p = standard_po2(s) / obs.scale
                 ds_dp = obs.scale * standard_saturation_slope(obs.scale * p)
                 sd_content = (self.kh + alpha / ds_dp) * obs.measurement_sd
+            self.po2s.append(p)
             self.rows.append(
                 (
                     obs.alveolar_po2_mmhg,
@@ -695,10 +700,10 @@ def _solve(
         odds, drop, current = start.odds, start.drop, start.evaluation
     else:
         odds, drop = space.best(_START_DROPS_MMHG if fit_drop else (0.0,), max_drop)
-        current = _evaluate(used, odds, drop, conditions)
+        current = _evaluate(used, odds, drop, conditions, starts=space.po2s)
         while current is None and odds > 1e-9:  # pull a start with no steady state back in
             odds *= 0.5
-            current = _evaluate(used, odds, drop, conditions)
+            current = _evaluate(used, odds, drop, conditions, starts=space.po2s)
     if current is None:
         return _Solution(odds, drop, None, (math.inf, 0.0, math.inf), False, 0, None)
     lows = (0.0, 0.0)
