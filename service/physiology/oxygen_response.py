@@ -696,6 +696,7 @@ def _solve(
     """
     max_drop = _max_drop(used, conditions) if fit_drop else 0.0
     space = _ContentSpace(used, conditions)
+    current: _Evaluation | None
     if start is not None and start.evaluation is not None:
         odds, drop, current = start.odds, start.drop, start.evaluation
     else:
