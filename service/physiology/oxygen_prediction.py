@@ -21,7 +21,7 @@ from dataclasses import dataclass
 from enum import StrEnum
 
 from service.physiology.bounds import require_possible
-from service.physiology.oxygen_exchange import ExchangeState, alveolar_terms, exchange_state
+from service.physiology.oxygen_exchange import ExchangeState, exchange_state
 from service.physiology.oxygen_response import Z_95, FitModel, ModelFit, OxygenResponse
 from service.physiology.units import FIO2_LIMITS
 
@@ -156,9 +156,13 @@ class _FittedCurve:
             self.conditions.av_difference_ml_dl,
             self.scale,
         )
+        self._dry_mmhg = self.conditions.dry_pressure_mmhg
+        self._quotient = self.conditions.respiratory_quotient
 
     def state(self, fio2: float, start_po2: float = 0.0) -> ExchangeState | None:
-        alveolar, _, _ = alveolar_terms(fio2, self.paco2, self.conditions)
+        # The alveolar gas equation as in ``alveolar_terms``, the same arithmetic.
+        bracket = fio2 + (1.0 - fio2) / self._quotient
+        alveolar = fio2 * self._dry_mmhg - self.paco2 * bracket
         return exchange_state(alveolar, *self._fixed, start_po2)
 
     def values(self, fio2: float, start_po2: float = 0.0) -> _Values | None:
