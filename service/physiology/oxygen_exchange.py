@@ -49,7 +49,6 @@ from service.physiology.oxygen_affinity import (
     OxygenAffinity,
     standard_po2,
     standard_saturation,
-    standard_saturation_slope,
 )
 from service.physiology.oxygen_content import AV_DIFFERENCE_RANGE_ML_DL, HUFNER_RANGE_ML_PER_G
 from service.physiology.units import FIO2_LIMITS
@@ -73,6 +72,7 @@ MIN_END_CAPILLARY_PO2_MMHG = 5.0
 _NEWTON_TOLERANCE = 1e-12  # relative to the content: PaO2 within 1e-8 mmHg
 _NEWTON_MAX_STEPS = 60
 _FLAT_SATURATION = 0.97  # above it, Newton runs on PO2 rather than on saturation
+_NEAR_MAX_STEPS = 4  # Halley steps from a nearby answer before the general solve takes over
 
 
 @dataclass(frozen=True, slots=True)
@@ -210,21 +210,34 @@ def exchange_state(
         return None
     kh = carrying_capacity_ml_dl
     alpha = c.O2_SOLUBILITY_ML_DL_PER_MMHG
-    s_cap = standard_saturation(affinity_scale * capillary)
+    scale = affinity_scale
+    # Severinghaus eq. 1 and its slope at both PO2s, inlined (the fit's hot loop; the same
+    # arithmetic as oxygen_affinity.standard_saturation and standard_saturation_slope).
+    q = scale * capillary
+    x = q * (q * q + 150.0)
+    d = x + 23400.0
+    s_cap = x / d
+    slope_s_cap = scale * 23400.0 * (3.0 * q * q + 150.0) / (d * d)
     c_cap = kh * s_cap + alpha * capillary
     c_art = c_cap - shunt_odds * av_difference_ml_dl
     if c_art <= av_difference_ml_dl:
         return None
-    p_art = _po2_from_content(c_art, kh, alpha, affinity_scale, capillary, s_cap, start_po2)
-    slope_s_art = affinity_scale * standard_saturation_slope(affinity_scale * p_art)
-    slope_s_cap = affinity_scale * standard_saturation_slope(affinity_scale * capillary)
+    p_art = -1.0
+    if start_po2 > 0.0:
+        p_art = _po2_near(c_art, kh, alpha, scale, capillary, start_po2)
+    if p_art < 0.0:
+        p_art = _po2_from_content(c_art, kh, alpha, scale, capillary, s_cap, start_po2)
+    q = scale * p_art
+    x = q * (q * q + 150.0)
+    d = x + 23400.0
+    slope_s_art = scale * 23400.0 * (3.0 * q * q + 150.0) / (d * d)
     return ExchangeState(
         capillary,
         s_cap,
         c_cap,
         c_art,
         p_art,
-        standard_saturation(affinity_scale * p_art),
+        x / d,
         slope_s_art,
         kh * slope_s_art + alpha,
         kh * slope_s_cap + alpha,
@@ -240,6 +253,46 @@ def alveolar_terms(
     bracket = fio2 + (1.0 - fio2) / r
     alveolar = fio2 * conditions.dry_pressure_mmhg - paco2_mmhg * bracket
     return alveolar, conditions.dry_pressure_mmhg - paco2_mmhg * (1.0 - 1.0 / r), bracket
+
+
+def _po2_near(
+    content: float, kh: float, alpha: float, scale: float, upper: float, start: float
+) -> float:
+    """The PO2 in (0, upper] at which k Hb S(PO2) + 0.003 PO2 = content, by Halley's method
+    on PO2 from ``start``, a nearby answer (the fit's previous step, the prediction's previous
+    FiO2); −1 when it does not settle within a few steps (the caller then uses
+    ``_po2_from_content``).
+
+    Halley's step, −2 f f′ / (2 f′² − f f″), uses the curve's second derivative, analytic like
+    the first (Severinghaus 1979 eq. 1, S = x / (x + 23400), x = P³ + 150 P:
+    S′ = 23400 x′ / (x + 23400)², S″ = 23400 (x″ (x + 23400) − 2 x′²) / (x + 23400)³); from a
+    start within a few percent of the root it converges cubically, so one or two steps reach
+    the same 1e-12 of the content as ``_po2_from_content``, with no cube roots. The iterates
+    are kept inside the bracket the function's signs give, 0 < PO2 ≤ upper.
+    """
+    p = start if start < upper else upper
+    low, high = 0.0, upper
+    tolerance = _NEWTON_TOLERANCE * content
+    for _ in range(_NEAR_MAX_STEPS):
+        q = scale * p
+        q2 = q * q
+        x = q * (q2 + 150.0)
+        d = x + 23400.0
+        f = kh * x / d + alpha * p - content
+        if -tolerance <= f <= tolerance:
+            return p
+        if f > 0.0:
+            high = p
+        else:
+            low = p
+        x1 = 3.0 * q2 + 150.0
+        slope = kh * scale * 23400.0 * x1 / (d * d) + alpha
+        bend = kh * scale * scale * 23400.0 * (6.0 * q * d - 2.0 * x1 * x1) / (d * d * d)
+        nxt = p - 2.0 * f * slope / (2.0 * slope * slope - f * bend)
+        if not low < nxt < high:
+            return -1.0
+        p = nxt
+    return -1.0
 
 
 def _po2_from_content(

@@ -21,7 +21,7 @@ from dataclasses import dataclass
 from enum import StrEnum
 
 from service.physiology.bounds import require_possible
-from service.physiology.oxygen_exchange import ExchangeState, alveolar_terms, exchange_state
+from service.physiology.oxygen_exchange import ExchangeState, exchange_state
 from service.physiology.oxygen_response import Z_95, FitModel, ModelFit, OxygenResponse
 from service.physiology.units import FIO2_LIMITS
 
@@ -148,18 +148,22 @@ class _FittedCurve:
         self.conditions = response.conditions
         self.paco2 = response.prediction_paco2_mmhg
         self.scale = response.prediction_affinity.scale
-
-    def state(self, fio2: float, start_po2: float = 0.0) -> ExchangeState | None:
-        alveolar, _, _ = alveolar_terms(fio2, self.paco2, self.conditions)
-        return exchange_state(
-            alveolar,
-            self.fit.vq_drop_mmhg.value,
-            self.fit.shunt_odds,
+        # What every FiO2 shares, looked up once (``values`` runs some 40 times a prediction).
+        self._fixed = (
+            fit.vq_drop_mmhg.value,
+            fit.shunt_odds,
             self.conditions.carrying_capacity_ml_dl,
             self.conditions.av_difference_ml_dl,
             self.scale,
-            start_po2,
         )
+        self._dry_mmhg = self.conditions.dry_pressure_mmhg
+        self._quotient = self.conditions.respiratory_quotient
+
+    def state(self, fio2: float, start_po2: float = 0.0) -> ExchangeState | None:
+        # The alveolar gas equation as in ``alveolar_terms``, the same arithmetic.
+        bracket = fio2 + (1.0 - fio2) / self._quotient
+        alveolar = fio2 * self._dry_mmhg - self.paco2 * bracket
+        return exchange_state(alveolar, *self._fixed, start_po2)
 
     def values(self, fio2: float, start_po2: float = 0.0) -> _Values | None:
         """(SaO2, its 95 % low, high, PaO2, its low, high) at ``fio2``; None where the model

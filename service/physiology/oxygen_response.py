@@ -17,13 +17,21 @@ S/F, Rice TW et al., Chest 2007;132:410; Matthay MA et al., Am J Respir Crit Car
 2024;209:37). Left-out points are still checked against the fitted curve and reported.
 
 Solver. A projected Levenberg–Marquardt on (shunt odds = shunt / (1 − shunt), ΔPO2) with the
-analytic Jacobian (the model's slopes by implicit differentiation of the content balance),
-started from the best of a grid over ΔPO2 on which the shunt odds have a closed form (the mass
-balance is linear in them). Written by hand, not with scipy: scipy is not a runtime dependency
-(tens of MB, and importing ``scipy.optimize`` took 0.7–1.4 s here), and one
-``scipy.optimize.least_squares`` call on the same residuals and Jacobian takes about three
-times as long as this whole fit, ranges included (``python -m tests.benchmarks.oxygen_response``
-measures both); the tests check that this solver reaches scipy's minimum.
+analytic Jacobian (the model's slopes by implicit differentiation of the content balance,
+including how a point's expected error moves with them), started from the best of a grid over
+ΔPO2 on which the shunt odds have a closed form (the mass balance is linear in them). Each step
+uses the Gauss–Newton Hessian JᵀJ or, where it foretold the last step better, the full Hessian
+with the analytic second derivatives (the adaptive choice of NL2SOL: Dennis JE, Gay DM &
+Welsch RE, ACM Trans Math Softw 1981;7:348, from memory): Gauss–Newton alone crawls when the
+residuals stay large, as in a poor fit or the effective shunt of a lung with a V/Q term. A
+two-parameter search that ends at a local minimum fitting worse than the effective shunt
+(the same model at ΔPO2 = 0) is run again from it.
+
+Written by hand, not with scipy: scipy is not a runtime dependency (tens of MB, and importing
+``scipy.optimize`` took 0.7–1.4 s here), and one ``scipy.optimize.least_squares`` call on the
+same residuals and Jacobian takes about three times as long as this whole fit, ranges
+included (``python -m tests.benchmarks.oxygen_response`` measures both); the tests check that
+this solver reaches scipy's minimum.
 
 Confidence ranges, 95 %. Two-parameter fit: profile-likelihood ranges (Venzon DJ & Moolgavkar
 SH, Appl Stat 1988;37:87, from memory), the values of each parameter for which the best χ²
@@ -377,7 +385,7 @@ def fit_oxygen_response(
     two: ModelFit | None = None
     two_solution: _Solution | None = None
     if refusal is None:
-        two_solution = _solve(used, conditions, fit_drop=True)
+        two_solution = _solve(used, conditions, fit_drop=True, effective=one_solution)
         two = _model_fit(used, left_out, conditions, two_solution, fit_drop=True)
         refusal = _refusal_after_fit(two, limits)
     if refusal is not None or two is None or two_solution is None:
@@ -446,6 +454,7 @@ def _evaluate(
     drop: float,
     conditions: ExchangeConditions,
     near: _Evaluation | None = None,
+    starts: Sequence[float] | None = None,
 ) -> _Evaluation | None:
     """The model at every used point; None where it has no steady state at some point.
 
@@ -453,7 +462,8 @@ def _evaluate(
         dPaO2/d odds = −avd / C'(PaO2);  dPaO2/dΔPO2 = −C'(Pc'O2) / C'(PaO2);
         dPaO2/dFiO2 = C'(Pc'O2) dPAO2/dFiO2 / C'(PaO2);  dSaO2 = S'(PaO2) dPaO2.
     Each residual is divided by √(measurement SD² + (dy/dFiO2 × FiO2 SD)²). ``near``, an
-    evaluation at nearby parameters, starts each point's PaO2 solve from its answer there.
+    evaluation at nearby parameters, starts each point's PaO2 solve from its answer there;
+    ``starts``, when there is none, gives PaO2s to start from (the observed ones).
     """
     kh = conditions.carrying_capacity_ml_dl
     avd = conditions.av_difference_ml_dl
@@ -463,7 +473,8 @@ def _evaluate(
     sds: list[float] = []
     states: list[ExchangeState] = []
     chi2 = 0.0
-    starts = [st.arterial_po2_mmhg for st in near.states] if near is not None else None
+    if near is not None:
+        starts = [st.arterial_po2_mmhg for st in near.states]
     for i, obs in enumerate(used):
         start = starts[i] if starts is not None else 0.0
         state = exchange_state(obs.alveolar_po2_mmhg, drop, odds, kh, avd, obs.scale, start)
@@ -512,6 +523,7 @@ class _ContentSpace:
         self.avd = conditions.av_difference_ml_dl
         alpha = c.O2_SOLUBILITY_ML_DL_PER_MMHG
         self.rows: list[tuple[float, float, float, float, float]] = []
+        self.po2s: list[float] = []  # the observed PaO2s, or those of the observed saturations
         for obs in used:
             if obs.is_pressure:
                 p = obs.observed
@@ -523,6 +535,7 @@ class _ContentSpace:
                 p = standard_po2(s) / obs.scale
                 ds_dp = obs.scale * standard_saturation_slope(obs.scale * p)
                 sd_content = (self.kh + alpha / ds_dp) * obs.measurement_sd
+            self.po2s.append(p)
             self.rows.append(
                 (
                     obs.alveolar_po2_mmhg,
@@ -537,29 +550,34 @@ class _ContentSpace:
         """(odds_u, χ²_u, A, the largest odds with a steady state) at ``drop``; None where
         some point has no steady state even without a shunt."""
         kh, alpha, avd = self.kh, c.O2_SOLUBILITY_ML_DL_PER_MMHG, self.avd
+        floor = MIN_END_CAPILLARY_PO2_MMHG
         sw = swg = swgg = 0.0
-        odds_max = _MAX_SHUNT_ODDS
+        least = math.inf  # the least end-capillary content
         for alveolar, scale, content, variance, alveolar_sd in self.rows:
             cap = alveolar - drop
-            if cap < MIN_END_CAPILLARY_PO2_MMHG:
+            if cap < floor:
                 return None
             # Severinghaus eq. 1 and its slope, inlined: this loop runs some 40 times a fit.
             p_std = scale * cap
             x = p_std * (p_std * p_std + 150.0)
             d = x + 23400.0
             c_cap = kh * x / d + alpha * cap
-            if c_cap <= avd:
-                return None
-            odds_max = min(odds_max, (c_cap - avd) / avd)
+            if c_cap < least:
+                least = c_cap
             if alveolar_sd > 0.0:
                 slope = kh * scale * 23400.0 * (3.0 * p_std * p_std + 150.0) / (d * d) + alpha
-                variance = variance + (slope * alveolar_sd) ** 2
+                spread = slope * alveolar_sd
+                variance = variance + spread * spread
             w = 1.0 / variance
             g = c_cap - content
             sw += w
-            swg += w * g
-            swgg += w * g * g
+            wg = w * g
+            swg += wg
+            swgg += wg * g
+        if least <= avd:
+            return None
         odds_u = swg / (avd * sw)
+        odds_max = min(_MAX_SHUNT_ODDS, (least - avd) / avd)
         return odds_u, max(0.0, swgg - swg * swg / sw), avd * avd * sw, odds_max
 
     def profile(self, drop: float) -> tuple[float, float] | None:
@@ -656,7 +674,12 @@ def _max_drop(used: list[_Observation], conditions: ExchangeConditions) -> float
 
 
 def _solve(
-    used: list[_Observation], conditions: ExchangeConditions, *, fit_drop: bool
+    used: list[_Observation],
+    conditions: ExchangeConditions,
+    *,
+    fit_drop: bool,
+    effective: _Solution | None = None,
+    start: _Solution | None = None,
 ) -> _Solution:
     """Projected Levenberg–Marquardt on (odds, ΔPO2) within their limits.
 
@@ -665,14 +688,23 @@ def _solve(
     damping raised. Converged when a full Gauss–Newton step would lower χ² by less than 1e-6
     (the estimate is within 0.001 standard errors of the minimum), when χ² stops falling (1e-9
     relative) or when the step is below 1e-6 in the odds and 1e-4 mmHg in ΔPO2.
+
+    Started from ``start`` when given, else from the best of the content-space grid.
+    ``effective``, the effective-shunt solution, is this model at ΔPO2 = 0: a two-parameter
+    search that ends at a local minimum fitting worse than it is run again from it (rare), so
+    that the two-parameter fit never fits worse than the one-parameter one.
     """
     max_drop = _max_drop(used, conditions) if fit_drop else 0.0
     space = _ContentSpace(used, conditions)
-    odds, drop = space.best(_START_DROPS_MMHG if fit_drop else (0.0,), max_drop)
-    current = _evaluate(used, odds, drop, conditions)
-    while current is None and odds > 1e-9:  # pull a start with no steady state back in
-        odds *= 0.5
-        current = _evaluate(used, odds, drop, conditions)
+    current: _Evaluation | None
+    if start is not None and start.evaluation is not None:
+        odds, drop, current = start.odds, start.drop, start.evaluation
+    else:
+        odds, drop = space.best(_START_DROPS_MMHG if fit_drop else (0.0,), max_drop)
+        current = _evaluate(used, odds, drop, conditions, starts=space.po2s)
+        while current is None and odds > 1e-9:  # pull a start with no steady state back in
+            odds *= 0.5
+            current = _evaluate(used, odds, drop, conditions, starts=space.po2s)
     if current is None:
         return _Solution(odds, drop, None, (math.inf, 0.0, math.inf), False, 0, None)
     lows = (0.0, 0.0)
@@ -680,11 +712,11 @@ def _solve(
     damping = 1e-3
     converged = False
     iterations = 0
+    use_newton = False
     while iterations < _MAX_ITERATIONS:
         iterations += 1
-        r, j_odds, j_drop, chi2 = current.residuals, current.d_odds, current.d_drop, current[3]
-        g = (_dot(j_odds, r), _dot(j_drop, r) if fit_drop else 0.0)
-        h = (_dot(j_odds, j_odds), _dot(j_odds, j_drop), _dot(j_drop, j_drop))
+        chi2 = current.chi_square
+        g, h, second = _local_model(used, current, conditions, fit_drop)
         params = (odds, drop)
         free = [
             k
@@ -695,7 +727,9 @@ def _solve(
         if not free or _decrement(free, g, h) < _DECREMENT_TOLERANCE:
             converged = True
             break
-        step = _damped_step(free, g, h, damping)
+        full = _positive_definite(free, h, second)
+        newton = full if use_newton else None
+        step = _damped_step(free, g, h if newton is None else newton, damping, h)
         trial_odds = min(max(odds + step[0], lows[0]), highs[0])
         trial_drop = min(max(drop + step[1], lows[1]), highs[1])
         trial = _evaluate(used, trial_odds, trial_drop, conditions, current)
@@ -704,15 +738,31 @@ def _solve(
                 trial_drop - drop
             ) <= 1e-4 * (1.0 + drop)
             flat = chi2 - trial.chi_square <= 1e-9 * (1.0 + chi2)
+            # The next step follows whichever quadratic model foretold this step's fall in
+            # χ² better: Gauss–Newton's or the full Hessian's (the adaptive choice of Dennis
+            # JE, Gay DM & Welsch RE, ACM Trans Math Softw 1981;7:348, from memory).
+            taken = (trial_odds - odds, trial_drop - drop)
+            fall = chi2 - trial.chi_square
+            use_newton = full is not None and abs(fall - _predicted_fall(g, full, taken)) < abs(
+                fall - _predicted_fall(g, h, taken)
+            )
             odds, drop, current = trial_odds, trial_drop, trial
             damping = max(damping / 3.0, 1e-12)
             if small or flat:
                 converged = True
                 break
+        elif newton is not None:
+            use_newton = False  # the full Hessian misled: Gauss–Newton for the next try
         else:
             damping *= 4.0
             if damping > 1e12:
                 break
+    if (
+        effective is not None
+        and effective.evaluation is not None
+        and effective.chi_square < current.chi_square
+    ):
+        return _solve(used, conditions, fit_drop=fit_drop, start=effective)
     covariance = _covariance(current.d_odds, current.d_drop if fit_drop else None)
     ranges = None
     if fit_drop:
@@ -738,20 +788,139 @@ def _decrement(free: list[int], g: tuple[float, float], h: tuple[float, float, f
 
 
 def _damped_step(
-    free: list[int], g: tuple[float, float], h: tuple[float, float, float], damping: float
+    free: list[int],
+    g: tuple[float, float],
+    h: tuple[float, float, float],
+    damping: float,
+    gauss_newton: tuple[float, float, float] | None = None,
 ) -> tuple[float, float]:
-    """Solve (H + λ diag H) δ = −g over the free parameters (one or two)."""
+    """Solve (H + λ diag D) δ = −g over the free parameters (one or two); D is
+    ``gauss_newton`` (JᵀJ) when H is the full Hessian, else H itself."""
+    d_of = h if gauss_newton is None else gauss_newton
     if len(free) == 1:
         k = free[0]
-        delta = -g[k] / ((h[0] if k == 0 else h[2]) * (1.0 + damping) + 1e-300)
+        curvature = h[0] + damping * d_of[0] if k == 0 else h[2] + damping * d_of[2]
+        delta = -g[k] / (curvature + 1e-300)
         return (delta, 0.0) if k == 0 else (0.0, delta)
-    a = h[0] * (1.0 + damping) + 1e-300
-    d = h[2] * (1.0 + damping) + 1e-300
+    a = h[0] + damping * d_of[0] + 1e-300
+    d = h[2] + damping * d_of[2] + 1e-300
     b = h[1]
     det = a * d - b * b
     if det <= 0.0:
         return (-g[0] / a, -g[1] / d)
     return ((-g[0] * d + g[1] * b) / det, (-g[1] * a + g[0] * b) / det)
+
+
+def _predicted_fall(
+    g: tuple[float, float], h: tuple[float, float, float], step: tuple[float, float]
+) -> float:
+    """The fall in χ² = Σ r² that the quadratic model with gradient g = Jᵀr and Hessian H
+    (both of ½χ²) foretells for ``step`` δ: −2 gᵀδ − δᵀHδ."""
+    s0, s1 = step
+    return -2.0 * (g[0] * s0 + g[1] * s1) - (h[0] * s0 * s0 + 2.0 * h[1] * s0 * s1 + h[2] * s1 * s1)
+
+
+def _local_model(
+    used: list[_Observation],
+    evaluation: _Evaluation,
+    conditions: ExchangeConditions,
+    fit_drop: bool,
+) -> tuple[tuple[float, float], tuple[float, float, float], tuple[float, float, float]]:
+    """The quadratic model of ½χ² at ``evaluation``: its gradient g = Jᵀr, the Gauss–Newton
+    Hessian JᵀJ, and the second-order term Σ rᵢ ∇²yᵢ / sdᵢ that Gauss–Newton leaves out.
+
+    J here is the whole derivative of the standardised residuals rᵢ = (yᵢ − observedᵢ) / sdᵢ,
+    including that of a point's expected error where its FiO2 is uncertain (sdᵢ grows with the
+    model's slope dyᵢ/dFiO2, which moves with the parameters): ∂rᵢ = (∂yᵢ − rᵢ ∂sdᵢ) / sdᵢ,
+    ∂sdᵢ = qᵢ σᵢ² ∂qᵢ / sdᵢ with qᵢ = dyᵢ/dFiO2 and σᵢ the FiO2 SD. Without that term the
+    gradient is not the gradient of the χ² being minimised, and the solver can stall short of
+    the minimum. (The reported covariance keeps the usual form, with each sd held fixed.)
+
+    Second derivatives by differentiating CaO2(PaO2) = Cc'O2(PAO2 − ΔPO2) − odds × avd
+    twice (C', C'' the content curve's slopes; Pa_o = dPaO2/d odds, Pa_d = dPaO2/dΔPO2):
+        Pa_oo = −C''(Pa) Pa_o² / C'(Pa);  Pa_od = −C''(Pa) Pa_o Pa_d / C'(Pa);
+        Pa_dd = (C''(Pc') − C''(Pa) Pa_d²) / C'(Pa);
+    for a saturation y = S(Pa), y_θφ = S''(Pa) Pa_θ Pa_φ + S'(Pa) Pa_θφ; and for q, with
+    T = (dy/dPaO2) / C'(Pa): q = T C'(Pc') dPAO2/dFiO2, ∂q = (T' Pa_θ C'(Pc') − T C''(Pc')
+    ∂Pc'_θ) dPAO2/dFiO2.
+    """
+    kh = conditions.carrying_capacity_ml_dl
+    avd = conditions.av_difference_ml_dl
+    g0 = g1 = h00 = h01 = h11 = t00 = t01 = t11 = 0.0
+    rows = zip(
+        used,
+        evaluation.states,
+        evaluation.residuals,
+        evaluation.sds,
+        evaluation.d_odds,
+        evaluation.d_drop,
+        strict=True,
+    )
+    for obs, state, r, sd, j_o, j_d in rows:
+        scale = obs.scale
+        # S'' of Severinghaus 1979 eq. 1, S = x / (x + 23400) with x = q³ + 150 q (q the
+        # standard-curve PO2): 23400 (x'' (x + 23400) − 2 x'²) / (x + 23400)³, x'' = 6 q.
+        q = scale * state.arterial_po2_mmhg
+        x1 = 3.0 * q * q + 150.0
+        d = q * (q * q + 150.0) + 23400.0
+        s2_art = scale * scale * 23400.0 * (6.0 * q * d - 2.0 * x1 * x1) / (d * d * d)
+        c1_art = state.content_slope_arterial
+        c1_cap = state.content_slope_capillary
+        c2_art = kh * s2_art
+        if fit_drop or obs.fio2_sd > 0.0:
+            q = scale * state.end_capillary_po2_mmhg
+            x1 = 3.0 * q * q + 150.0
+            d = q * (q * q + 150.0) + 23400.0
+            c2_cap = kh * scale * scale * 23400.0 * (6.0 * q * d - 2.0 * x1 * x1) / (d * d * d)
+        else:
+            c2_cap = 0.0
+        pa_o = -avd / c1_art
+        pa_d = -c1_cap / c1_art
+        pa_oo = -c2_art * pa_o * pa_o / c1_art
+        pa_od = -c2_art * pa_o * pa_d / c1_art
+        pa_dd = (c2_cap - c2_art * pa_d * pa_d) / c1_art
+        if obs.is_pressure:
+            to_observed, to_observed_slope = 1.0, 0.0
+            y_oo, y_od, y_dd = pa_oo, pa_od, pa_dd
+        else:
+            to_observed, to_observed_slope = state.saturation_slope, s2_art
+            y_oo = s2_art * pa_o * pa_o + to_observed * pa_oo
+            y_od = s2_art * pa_o * pa_d + to_observed * pa_od
+            y_dd = s2_art * pa_d * pa_d + to_observed * pa_dd
+        if obs.fio2_sd > 0.0:
+            per_pao2 = to_observed / c1_art
+            per_pao2_slope = (to_observed_slope * c1_art - to_observed * c2_art) / (c1_art * c1_art)
+            q = per_pao2 * c1_cap * obs.alveolar_slope_fio2
+            q_o = per_pao2_slope * pa_o * c1_cap * obs.alveolar_slope_fio2
+            q_d = (per_pao2_slope * pa_d * c1_cap - per_pao2 * c2_cap) * obs.alveolar_slope_fio2
+            spread = r * q * obs.fio2_sd * obs.fio2_sd / (sd * sd)
+            j_o -= spread * q_o
+            j_d -= spread * q_d
+        g0 += j_o * r
+        h00 += j_o * j_o
+        weight = r / sd
+        t00 += weight * y_oo
+        if fit_drop:
+            g1 += j_d * r
+            h01 += j_o * j_d
+            h11 += j_d * j_d
+            t01 += weight * y_od
+            t11 += weight * y_dd
+    return (g0, g1), (h00, h01, h11), (t00, t01, t11)
+
+
+def _positive_definite(
+    free: list[int], h: tuple[float, float, float], second: tuple[float, float, float]
+) -> tuple[float, float, float] | None:
+    """The full Hessian h + ``second`` when it is positive definite (with a margin) over the
+    free parameters, else None."""
+    a, b, d = h[0] + second[0], h[1] + second[1], h[2] + second[2]
+    if len(free) == 1:
+        curvature, base = (a, h[0]) if free[0] == 0 else (d, h[2])
+        return (a, b, d) if curvature > 1e-6 * base else None
+    if a > 1e-6 * h[0] and d > 1e-6 * h[2] and a * d - b * b > 1e-6 * (h[0] * h[2] - h[1] * h[1]):
+        return (a, b, d)
+    return None
 
 
 def _covariance(j_odds: list[float], j_drop: list[float] | None) -> tuple[float, float, float]:
