@@ -31,6 +31,9 @@ MIN_POINTS = 3
 FIO2_VARIED = 0.10  # FiO2 range across the gases above which P/F and a/A are confounded
 _FIO2_BOUND = frozenset({"pf_ratio", "arterial_alveolar_ratio"})
 VQ_DROP_CHANGE_MMHG = mmhg_from_kpa(3.0)  # Rowe 2010 (module docstring)
+# Changes and FiO2 ranges are compared with their thresholds at this many decimals: far below
+# any shown decimal, far above floating-point rests.
+_DECIMALS = 9
 
 
 class Direction(StrEnum):
@@ -136,15 +139,17 @@ def oxygenation_trend(
         for name, unit, get, better in _MEASURES
     )
     fio2s = [g.fio2 for g in ordered]
-    fio2_range = max(fio2s) - min(fio2s) if fio2s else 0.0
+    # Rounded so that FiO2 0.30 to 0.40 varied by 0.10, not by 0.10000000000000003.
+    fio2_range = round(max(fio2s) - min(fio2s), _DECIMALS) if fio2s else 0.0
+    varied = fio2_range > FIO2_VARIED
     # P/F and a/A move with FiO2 alone: when it varied they are shown but do not decide.
-    deciding = [t for t in trends if not (fio2_range > FIO2_VARIED and t.measure in _FIO2_BOUND)]
+    deciding = [t for t in trends if not (varied and t.measure in _FIO2_BOUND)]
     judged = [t.direction for t in deciding if t.direction is not Direction.UNCLEAR]
     if not judged:
         overall = Direction.UNCLEAR
         note = (
             "no measure that FiO2 does not move has enough values"
-            if fio2_range > FIO2_VARIED
+            if varied
             else f"fewer than {MIN_POINTS} values of every measure"
         )
     elif Direction.WORSENING in judged and Direction.IMPROVING in judged:
@@ -156,7 +161,7 @@ def oxygenation_trend(
         overall, note = Direction.IMPROVING, "the measures that changed all improved"
     else:
         overall, note = Direction.STABLE, "no measure changed beyond its threshold"
-    if fio2_range > FIO2_VARIED:
+    if varied:
         note += (
             f"; FiO2 varied by {fio2_range:.2f}, and P/F and a/A move with FiO2 alone "
             "(Karbing 2007): they are shown but do not decide the course; the fitted shunt "
@@ -180,7 +185,9 @@ def _measure_trend(
         )
     change, start = _fitted_change(series)
     limit = threshold.size * abs(start) if threshold.relative else threshold.size
-    if abs(change) < limit:
+    # Rounded so that a change of exactly the threshold counts as one whatever the
+    # floating-point rest (0.15 − 0.10 is 0.04999999999999999); no change is never a change.
+    if change == 0.0 or round(abs(change), _DECIMALS) < round(limit, _DECIMALS):
         direction = Direction.STABLE
     elif (change > 0) == higher_is_better:
         direction = Direction.IMPROVING

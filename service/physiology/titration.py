@@ -21,6 +21,7 @@ from enum import StrEnum
 from service.exceptions import ImpossibleValueError
 from service.physiology.bounds import (
     BODY_TEMPERATURE_CEL,
+    CARBON_DIOXIDE_MMHG,
     FRACTION,
     PARTIAL_PRESSURE_MMHG,
     PH,
@@ -32,8 +33,11 @@ from service.physiology.units import FIO2_LIMITS
 # for a stepped titration or a repeat gas after a change of mask, short enough that the lung
 # itself has not changed (our default; a setting of the caller).
 DEFAULT_TITRATION_WINDOW_MIN = 120.0
-# Oximeter readings whose FiO2 differs by no more than this belong to one step.
+# Oximeter readings whose FiO2 differs by no more than this belong to one step: half a point of
+# an FiO2 charted in whole percent.
 SAME_STEP_FIO2 = 0.005
+# The longest titration window taken (a week): longer is a slip in the caller's setting.
+MAX_TITRATION_WINDOW_MIN = 7 * 24 * 60.0
 
 
 class Fio2Source(StrEnum):
@@ -112,7 +116,7 @@ class TitrationPoint:
         if self.pao2_mmhg is not None:
             require_possible("pao2_mmhg", self.pao2_mmhg, 1.0, PARTIAL_PRESSURE_MMHG[1], "mm[Hg]")
         if self.paco2_mmhg is not None:
-            require_possible("paco2_mmhg", self.paco2_mmhg, 1.0, 250.0, "mm[Hg]")
+            require_possible("paco2_mmhg", self.paco2_mmhg, 1.0, CARBON_DIOXIDE_MMHG[1], "mm[Hg]")
         if self.ph is not None:
             require_possible("ph", self.ph, *PH, "[pH]")
         if self.temperature_cel is not None:
@@ -188,10 +192,15 @@ def select_titration_points(
     Every other point is kept, gases and oximetry alike, so that more than two points are used.
 
     Raises:
-        ImpossibleValueError: ``window_min`` not positive.
+        ImpossibleValueError: ``window_min`` not positive, or longer than a week.
         ValueError: ``anchor`` not timezone-aware.
     """
-    require_possible("window_min", window_min, 1e-9, 7 * 24 * 60.0, "min")
+    if not 0.0 < window_min <= MAX_TITRATION_WINDOW_MIN:
+        raise ImpossibleValueError(
+            "window_min",
+            window_min,
+            f"must be positive and at most {MAX_TITRATION_WINDOW_MIN:g} min",
+        )
     if anchor is not None and anchor.tzinfo is None:
         raise ValueError("anchor must be timezone-aware")
     ordered = sorted(points, key=lambda p: p.time)
@@ -238,8 +247,9 @@ def _merge_oximetry_steps(points: list[TitrationPoint]) -> list[TitrationPoint]:
 
 
 def _same_step(a: TitrationPoint, b: TitrationPoint) -> bool:
+    # Rounded: 0.405 - 0.40 is 0.0050000000000000044 in binary floating point.
     return (
-        abs(a.inspired.fio2 - b.inspired.fio2) <= SAME_STEP_FIO2
+        round(abs(a.inspired.fio2 - b.inspired.fio2), 9) <= SAME_STEP_FIO2
         and a.inspired.source == b.inspired.source
     )
 
