@@ -53,13 +53,15 @@ def _reference(
 # content inversion changes method or works hardest: anaemia with a right-shifted curve, where
 # dissolved oxygen outweighs the last few percent of saturation (Hb 3-8 g/dL, P50 40-45, both
 # inside the accepted ranges), a left-shifted curve (P50 18-20, near foetal blood's) with a
-# low cardiac output (a-v difference 12 mL/dL), and a plain adult lung.
+# low cardiac output (a-v difference 12 mL/dL), blood leaving the lung at the foot of the
+# curve (SaO2 about 5 %, P50 60 mmHg, the accepted limit), and a plain adult lung.
 CORNERS = [
     (0.01, 36.0, 0.30, 8.0, 3.5, 40.0),
     (0.01, 20.0, 0.30, 3.0, 0.5, 44.8),
     (0.10, 20.0, 0.30, 3.0, 0.5, 44.8),
     (0.10, 400.0, 0.80, 26.0, 12.0, 17.9),
     (0.05, 200.0, 0.50, 14.0, 12.0, 17.9),
+    (0.20, 150.0, 0.30, 8.0, 0.5, 60.0),
     (0.05, 0.0, 0.35, 14.0, 5.0, STANDARD_P50_MMHG),
     (0.30, 10.0, 1.00, 14.0, 5.0, STANDARD_P50_MMHG),
     (0.02, 0.0, 1.00, 14.0, 5.0, STANDARD_P50_MMHG),
