@@ -255,3 +255,20 @@ def test_a_band_edge_out_of_range_is_named() -> None:
             band_limits={TargetBand.STANDARD: (1.05, 1.05)},
         )
     assert "lower edge" in refused.value.quantity
+
+
+def test_a_band_crossed_within_one_step_is_said_to_be_passed() -> None:
+    # A band narrower than what one step of 0.001 in FiO2 does to the saturation: reached at
+    # FiO2 0.300 and passed at 0.301, one step later, which the note must say.
+    response = _response(0.12, 55.0)
+    fine = {round(p.fio2, 3): p.saturation for p in _predicted(response, 0.001).curve}
+    low, high = (fine[0.299] + fine[0.3]) / 2.0, fine[0.3] + 1e-12  # past rounding noise
+    found = predict_oxygen_response(
+        response=response,
+        bands=(TargetBand.STANDARD,),
+        band_limits={TargetBand.STANDARD: (low, high)},
+    )
+    assert found is not None
+    (target,) = found.targets
+    assert (target.fio2, target.fio2_ceiling) == pytest.approx((0.3, 0.301), abs=1e-9)
+    assert "passes" in target.note
