@@ -316,7 +316,8 @@ def _po2_from_content(
     (Newton on PO2 alone crawls on the steep-to-flat shoulder, where its slope drops a
     hundredfold; on u alone it crawls on the flat part.) Two to four steps reach 1e-12 of the
     content; one or two from ``start_po2``, a nearby answer when there is one (a step left of
-    the root first overshoots it, then the iterates fall monotonically as before).
+    the root first overshoots it, capped at the cold start, then the iterates fall monotonically
+    as before).
     """
     if kh * s_upper + alpha * upper - content <= 0.0:
         return upper
@@ -324,7 +325,7 @@ def _po2_from_content(
     if bound >= _FLAT_SATURATION and s_upper >= _FLAT_SATURATION:
         start = min(start_po2, upper) if start_po2 > 0.0 else upper
         return _po2_from_content_flat(content, kh, alpha, scale, upper, start)
-    u = min(bound, s_upper)
+    u = high = min(bound, s_upper)  # right of the root
     if 0.0 < start_po2 < upper:  # a nearby answer (the fit's previous step) starts closer
         u = min(u, standard_saturation(scale * start_po2))
     low = 0.0
@@ -341,6 +342,8 @@ def _po2_from_content(
         nxt = u - f / slope
         if nxt <= low:
             nxt = 0.5 * (low + u)
+        elif nxt > high:  # a step from far left of the root can pass saturation 1
+            nxt = high
         if nxt == u:
             break
         u = nxt

@@ -209,14 +209,26 @@ def _lowest_fio2_reaching(
             if previous is None:
                 return fio2
             above = (fio2, values[which])
-            return _up_to_tolerance(_refine(curve, previous, above, target, which, values[3]))
+            reaching = _refine(curve, previous, above, target, which, values[3])
+            return _up_to_tolerance(curve, reaching, previous[0], target, which, values[3])
         previous = (fio2, values[which])
     return None
 
 
-def _up_to_tolerance(fio2: float) -> float:
-    """Round up to the next 0.001, so that the FiO2 given still reaches the target."""
-    return min(FIO2_LIMITS[1], math.ceil(round(fio2 / _FIO2_TOLERANCE, 6)) * _FIO2_TOLERANCE)
+def _up_to_tolerance(
+    curve: _FittedCurve, reaching: float, below: float, target: float, which: int, pao2: float
+) -> float:
+    """Round ``reaching`` (a FiO2 that reaches the target, near the root) up to the next 0.001,
+    so that the FiO2 given still reaches the target, then step down by 0.001 while the step
+    under it reaches the target too (the refinement stops up to half a step above the root):
+    the answer is the lowest FiO2 on the 0.001 grid that reaches it. ``below``: a FiO2 that
+    does not."""
+    steps = math.ceil(round(reaching / _FIO2_TOLERANCE, 6))
+    while (lower := (steps - 1) * _FIO2_TOLERANCE) > below:
+        if curve.saturation(lower, which, pao2)[0] < target:
+            break
+        steps -= 1
+    return min(FIO2_LIMITS[1], steps * _FIO2_TOLERANCE)
 
 
 def _refine(
