@@ -218,12 +218,15 @@ class ContentProfile:
         return low, high
 
 
-def max_drop(obs: Sequence[Obs]) -> float:
+def max_drop(obs: Sequence[Obs], hb: float = HB) -> float:
     """The largest ΔPO2 with a steady state at every point without a shunt (the saturation
     alone carrying the a-v difference, the end-capillary PO2 at least 5 mmHg), less 1 mmHg,
     within 0 … 700 mmHg (the module's definition)."""
     needed: float = brentq(
-        lambda p: ref.saturation_eq1(p) - min(0.999, AVD / KH), 1e-6, 2000.0, xtol=1e-13
+        lambda p: ref.saturation_eq1(p) - min(0.999, AVD / (ref.HUFNER * hb)),
+        1e-6,
+        2000.0,
+        xtol=1e-13,
     )
     room = min(o.alveolar - max(5.0, needed) for o in obs)
     return max(0.0, min(700.0, room - 1.0))
