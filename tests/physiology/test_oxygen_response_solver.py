@@ -10,6 +10,7 @@ from functools import cache
 
 import numpy as np
 import pytest
+from scipy.optimize import brentq
 
 from service.physiology.oxygen_response import ModelFit, OxygenResponse, fit_oxygen_response
 from service.physiology.titration import TitrationPoint
@@ -17,11 +18,15 @@ from tests import titration_reference as model
 from tests.physiology import oxygen_fit_reference as ref
 from tests.physiology.oxygen_points import START, generated_points, inspired
 
+GAS_FIO2S = (0.25, 0.3, 0.4, 0.6, 0.8)
 # Seeded noisy titrations (the fit's usual inputs): gases; oximetry on the steep part of the
 # curve; oximetry and gases mixed. Seeds chosen so that one fit is worse than its stated
 # errors (χ²/ν > 1, the ranges scaled up) and one better.
 SCENARIOS: dict[str, tuple[float, float, tuple[float, ...], tuple[str, ...], int]] = {
-    "gases": (0.12, 30.0, (0.25, 0.3, 0.4, 0.6, 0.8), ("pao2",), 6),
+    "gases": (0.12, 30.0, GAS_FIO2S, ("pao2",), 6),
+    "gases-small-vq": (0.1, 10.0, GAS_FIO2S, ("pao2",), 0),
+    "gases-large-vq": (0.16, 30.0, GAS_FIO2S, ("pao2",), 2),
+    "gases-shunt": (0.19, 40.0, GAS_FIO2S, ("pao2",), 3),
     "oximetry": (0.15, 50.0, (0.21, 0.25, 0.3, 0.35, 0.4, 0.5), ("spo2",), 101),
     "mixed": (0.2, 40.0, (0.25, 0.3, 0.4, 0.6), ("spo2", "pao2"), 8),
 }
@@ -210,3 +215,50 @@ def test_a_fit_out_of_iterations_is_refused_as_not_converged(
     assert response.two_parameter is None
     assert response.refusal_reason is Refusal.NOT_CONVERGED
     assert response.effective_shunt is not None and not response.effective_shunt.converged
+
+
+def test_one_oximetry_point_gives_the_shunt_equations_effective_shunt() -> None:
+    # One SpO2 of 0.90 on FiO2 0.30: the effective shunt solves CaO2 = Cc'O2 − odds × avd
+    # exactly (Berggren 1942), CaO2 from the saturation and its PO2 on the eq. 1 curve.
+    point = TitrationPoint(START, inspired(0.3), spo2=0.90)
+    fit = fit_oxygen_response(points=[point]).effective_shunt
+    assert fit is not None and fit.converged and fit.chi_square < 1e-12
+    alveolar = model.alveolar(0.3, ref.ASSUMED_PACO2, ref.PB, ref.PH2O)
+    po2 = brentq(lambda p: model.saturation_eq1(p) - 0.90, 1.0, 200.0, xtol=1e-12)
+    arterial = ref.KH * 0.90 + model.ALPHA * po2
+    odds = (model.content(alveolar, ref.HB, model.p50_eq1()) - arterial) / ref.AVD
+    assert fit.shunt_odds == pytest.approx(odds, rel=1e-6)
+
+
+@pytest.mark.parametrize(
+    ("fio2s", "shunt", "drop"),
+    [
+        # Gases on high FiO2 only: the end-capillary blood is saturated whatever ΔPO2 is, so
+        # the two parameters' effects on PaO2 coincide (Sapsford & Jones 1995).
+        ((0.8, 0.9, 1.0), 0.1, 0.0),
+        ((0.6, 1.0), 0.3, 10.0),
+        ((0.5, 0.7, 1.0), 0.3, 10.0),
+        # From FiO2 0.5 a lung without shunt is only just separable (and then refused for the
+        # width of its ΔPO2 range).
+        ((0.5, 0.7, 1.0), 0.1, 0.0),
+        ((0.5, 0.7, 1.0), 0.05, 5.0),
+    ],
+)
+def test_points_that_cannot_separate_the_parameters_are_refused(
+    fio2s: tuple[float, ...], shunt: float, drop: float
+) -> None:
+    # Not separable: the reciprocal condition number of JᵀJ (numpy's, from the eigenvalues)
+    # below 1e-10 at the estimate.
+    import service.physiology.oxygen_response as fitting
+    from service.physiology.oxygen_exchange import STANDARD_CONDITIONS
+    from service.physiology.oxygen_response import Refusal
+
+    points = generated_points(shunt=shunt, vq_drop_mmhg=drop, fio2s=fio2s)
+    response = fit_oxygen_response(points=points)
+    used = [fitting._observation(p, STANDARD_CONDITIONS, 0.02, 0.01) for p in points]
+    solution = fitting._solve(used, STANDARD_CONDITIONS, fit_drop=True)
+    assert solution.evaluation is not None
+    jac = np.column_stack([solution.evaluation.d_odds, solution.evaluation.d_drop])
+    eigenvalues = np.linalg.eigvalsh(jac.T @ jac)
+    singular = eigenvalues[0] / eigenvalues[1] < 1e-10
+    assert (response.refusal_reason is Refusal.NOT_SEPARABLE) == singular
