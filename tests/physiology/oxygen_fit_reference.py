@@ -130,9 +130,11 @@ def minimum(obs: Sequence[Obs], start: tuple[float, float], *, fit_drop: bool = 
 
 def covariance(obs: Sequence[Obs], odds: float, drop: float, *, fit_drop: bool) -> np.ndarray:
     """(JᵀJ)⁻¹ at (odds, ΔPO2), the Jacobian by central differences."""
-    columns = [_derivative(lambda h: residuals(obs, odds + h, drop), 1e-6)]
+    # Central differences, moved inwards from a lower limit (odds or ΔPO2 at 0).
+    o, d = max(odds, 1e-6), max(drop, 1e-4)
+    columns = [_derivative(lambda h: residuals(obs, o + h, drop), 1e-6)]
     if fit_drop:
-        columns.append(_derivative(lambda h: residuals(obs, odds, drop + h), 1e-4))
+        columns.append(_derivative(lambda h: residuals(obs, odds, d + h), 1e-4))
     jac = np.column_stack(columns)
     return np.asarray(np.linalg.inv(jac.T @ jac))
 

@@ -228,6 +228,11 @@ def test_one_oximetry_point_gives_the_shunt_equations_effective_shunt() -> None:
     arterial = ref.KH * 0.90 + model.ALPHA * po2
     odds = (model.content(alveolar, ref.HB, model.p50_eq1()) - arterial) / ref.AVD
     assert fit.shunt_odds == pytest.approx(odds, rel=1e-6)
+    # No spare degree of freedom: the linearised SE is not scaled by χ²/ν.
+    var = ref.covariance(ref.observations([point]), fit.shunt_odds, 0.0, fit_drop=False)
+    se_shunt = math.sqrt(var[0, 0]) / (1.0 + fit.shunt_odds) ** 2
+    assert fit.degrees_of_freedom == 0 and fit.fit_probability is None
+    assert fit.shunt.standard_error == pytest.approx(se_shunt, rel=1e-4)
 
 
 @pytest.mark.parametrize(
@@ -262,3 +267,42 @@ def test_points_that_cannot_separate_the_parameters_are_refused(
     eigenvalues = np.linalg.eigvalsh(jac.T @ jac)
     singular = eigenvalues[0] / eigenvalues[1] < 1e-10
     assert (response.refusal_reason is Refusal.NOT_SEPARABLE) == singular
+
+
+@pytest.mark.parametrize("seed", [0, 1, 4])
+def test_a_parameter_at_its_limit_is_still_scipys_bounded_minimum(seed: int) -> None:
+    # A lung without shunt, oximetry and gases mixed: the least-squares shunt (seeds 0, 4)
+    # or ΔPO2 (seed 1) sits at its lower limit, 0, and the solver holds it there while it
+    # fits the other (an active set); scipy's bounded trust-region method agrees.
+    points = generated_points(
+        shunt=0.0,
+        vq_drop_mmhg=35.0,
+        fio2s=(0.24, 0.33, 0.36, 0.48, 0.6),
+        kinds=("spo2", "pao2"),
+        rng=random.Random(seed),
+        spo2_noise=0.01,
+        pao2_relative_noise=0.05,
+    )
+    fit = fit_oxygen_response(points=points).two_parameter
+    assert fit is not None and fit.converged
+    used = [o for o in ref.observations(points) if o.kind != "spo2" or o.value <= 0.97]
+    best = ref.minimum(used, (0.01, 35.0))
+    assert min(best.odds, best.drop) < 1e-9  # one parameter at its limit
+    assert fit.chi_square == pytest.approx(best.chi_square, abs=1e-6 * (1.0 + best.chi_square))
+    se_odds, se_drop = np.sqrt(np.diag(best.covariance))
+    assert abs(fit.shunt_odds - best.odds) <= 0.003 * se_odds
+    assert abs(fit.vq_drop_mmhg.value - best.drop) <= 0.003 * se_drop
+
+
+@pytest.mark.parametrize("name", SCENARIOS)
+def test_fit_probabilities_are_chi_square_tail_probabilities(name: str) -> None:
+    # ν = points − parameters: n − 2 for shunt and ΔPO2, n − 1 for the effective shunt;
+    # the probability is the χ²(ν) upper tail (scipy.stats.chi2.sf).
+    from scipy.stats import chi2
+
+    n = len(_used(name))
+    for fit, parameters in ((_two(name), 2), (_one(name), 1)):
+        assert fit.degrees_of_freedom == n - parameters
+        assert fit.fit_probability == pytest.approx(
+            chi2.sf(fit.chi_square, n - parameters), rel=1e-6
+        )
