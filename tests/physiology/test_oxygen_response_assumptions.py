@@ -14,7 +14,7 @@ from functools import cache
 
 import pytest
 
-from service.physiology.oxygen_exchange import exchange_conditions
+from service.physiology.oxygen_exchange import ExchangeConditions, exchange_conditions
 from service.physiology.oxygen_response import (
     IdentifiabilityLimits,
     ModelFit,
@@ -36,7 +36,7 @@ POINTS = tuple(
 STEPS = {"haemoglobin_g_dl": 0.02, "paco2_mmhg": 0.05}
 
 
-def _conditions(name: str, value: float) -> object:
+def _conditions(name: str, value: float) -> ExchangeConditions:
     if name == "haemoglobin_g_dl":
         return exchange_conditions(haemoglobin_g_dl=value)
     return exchange_conditions(assumed_paco2_mmhg=value)
@@ -45,7 +45,7 @@ def _conditions(name: str, value: float) -> object:
 @cache
 def _fit(points: tuple[TitrationPoint, ...], name: str = "", value: float = 0.0) -> ModelFit:
     if name:
-        response = fit_oxygen_response(points=points, conditions=_conditions(name, value))  # type: ignore[arg-type]
+        response = fit_oxygen_response(points=points, conditions=_conditions(name, value))
     else:
         response = fit_oxygen_response(points=points)
     assert response.two_parameter is not None, response.refusal
@@ -114,7 +114,7 @@ def test_a_range_exactly_as_wide_as_its_limit_is_accepted() -> None:
     # "wider than" the limit is refused; as wide as it is not.
     fit = _fit(SPAN_POINTS)
     shunt_width, vq_width = fit.shunt.width, fit.vq_drop_mmhg.width
-    assert 0.01 <= shunt_width and 1.0 <= vq_width
+    assert shunt_width >= 0.01 and vq_width >= 1.0
     exact = IdentifiabilityLimits(
         max_shunt_range_width=shunt_width, max_vq_drop_range_width_mmhg=vq_width
     )

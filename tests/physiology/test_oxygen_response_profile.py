@@ -21,7 +21,11 @@ import pytest
 from scipy.optimize import brentq
 
 import service.physiology.oxygen_response as fitting
-from service.physiology.oxygen_exchange import STANDARD_CONDITIONS, exchange_conditions
+from service.physiology.oxygen_exchange import (
+    STANDARD_CONDITIONS,
+    ExchangeConditions,
+    exchange_conditions,
+)
 from service.physiology.titration import TitrationPoint
 from tests import titration_reference as model
 from tests.physiology import oxygen_fit_reference as ref
@@ -158,7 +162,7 @@ def test_the_reported_ranges_are_the_profile_ranges(name: str) -> None:
 
 
 def _observations(
-    points: list[TitrationPoint], conditions: fitting.ExchangeConditions
+    points: list[TitrationPoint], conditions: ExchangeConditions
 ) -> list[fitting._Observation]:
     return [fitting._observation(p, conditions, 0.02, 0.01) for p in points]
 
