@@ -247,6 +247,10 @@ def test_one_oximetry_point_gives_the_shunt_equations_effective_shunt() -> None:
         # width of its ΔPO2 range).
         ((0.5, 0.7, 1.0), 0.1, 0.0),
         ((0.5, 0.7, 1.0), 0.05, 5.0),
+        # Either side of the limit, within 10 to 15 %: reciprocal condition numbers of
+        # 0.91e-10 (refused) and 1.13e-10 (not refused as inseparable).
+        ((0.5, 0.7, 1.0), 0.15, 0.0),
+        ((0.5, 0.7, 1.0), 0.15, 10.0),
     ],
 )
 def test_points_that_cannot_separate_the_parameters_are_refused(
