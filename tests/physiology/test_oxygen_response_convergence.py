@@ -1,4 +1,5 @@
-"""A known defect of the oxygen-response solver, kept as an expected failure until fixed.
+"""Known defects of the oxygen-response solver, kept as expected failures (not strict) until
+the solver is reworked.
 
 With a device-estimated FiO2 each point's expected error depends on the parameters (the
 "effective variance" of an uncertain abscissa; Orear J, Am J Phys 1982;50:912, from memory),
@@ -7,6 +8,9 @@ uses is not the χ²'s (here −0.12 against a central-difference 0.034 at the p
 stops), no step lowers the χ², the damping runs out and the fit is reported "not converged":
 for the two-parameter fit a refusal, for the effective shunt an unconverged estimate. A least-
 squares problem in one smooth parameter always has a minimum to converge to.
+
+Second: the solver bounds the parameters by boxes only, so a minimum on the curved limit of
+the model's steady state (mixed venous content zero) can be missed (second test).
 """
 
 from __future__ import annotations
@@ -34,3 +38,26 @@ GASES = [
 def test_the_effective_shunt_converges_with_device_estimated_fio2s() -> None:
     fit = fit_oxygen_response(points=GASES).effective_shunt
     assert fit is not None and fit.converged
+
+
+@pytest.mark.xfail(
+    reason="the solver stops on the curved steady-state limit short of the minimum", strict=False
+)
+def test_the_two_parameter_fit_is_never_worse_than_its_nested_effective_shunt() -> None:
+    # The effective shunt is the two-parameter model with ΔPO2 held at 0, so the two-parameter
+    # least χ² can only be lower or equal. A wide measured a-v difference (10 mL/dL) and
+    # saturations of 0.50 and 0.62 on FiO2 0.21 and 0.30 put the minimum on the limit where
+    # the mixed venous content reaches zero; the solver, bounded only by boxes, crawls along
+    # that curved limit and stops (small steps) at χ² 72.6 against 43.6 for the nested fit.
+    from service.physiology.oxygen_exchange import exchange_conditions
+
+    points = [
+        TitrationPoint(START, inspired(0.21), sao2=0.50, paco2_mmhg=40.0),
+        TitrationPoint(START + timedelta(minutes=10), inspired(0.30), sao2=0.62, paco2_mmhg=40.0),
+    ]
+    response = fit_oxygen_response(
+        points=points, conditions=exchange_conditions(av_difference_ml_dl=10.0)
+    )
+    two, one = response.two_parameter, response.effective_shunt
+    assert two is not None and one is not None
+    assert two.chi_square <= one.chi_square + 1e-6
