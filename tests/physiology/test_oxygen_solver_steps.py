@@ -196,3 +196,49 @@ def test_the_vq_terms_range_ends_where_the_profile_chi_square_crosses_its_thresh
     threshold = fit.chi_square + fitting.DELTA_CHI_SQUARE_95 * max(1.0, fit.chi_square / dof)
     for end in (fit.vq_drop_mmhg.low, fit.vq_drop_mmhg.high):
         assert _profile_chi_square(used, end) == pytest.approx(threshold, abs=2.0)
+
+
+@pytest.mark.parametrize("kinds", [("pao2",), ("spo2",)])
+def test_the_second_order_term_is_what_jtj_leaves_out_of_the_hessian(
+    kinds: tuple[str, ...],
+) -> None:
+    # Where the residuals are large (a poor fit) the second-order term Σ rᵢ ∇²yᵢ / sdᵢ is a
+    # large part of the Hessian: the finite-difference Hessian of ½χ² minus JᵀJ must be it,
+    # entry by entry, to 1e-4 of its own size (measured FiO2: the full Hessian is exact).
+    rng = random.Random(43)
+    for _ in range(4):
+        points = generated_points(
+            shunt=rng.uniform(0.1, 0.3),
+            vq_drop_mmhg=rng.uniform(10.0, 50.0),
+            fio2s=(0.25, 0.3, 0.4, 0.5),
+            kinds=kinds,
+            rng=rng,
+            spo2_noise=0.08,
+            pao2_relative_noise=0.4,
+        )
+        used = _used(points)
+        odds, drop = rng.uniform(0.1, 0.3), rng.uniform(10.0, 30.0)
+        evaluation = fitting._evaluate(used, odds, drop, STANDARD_CONDITIONS)
+        assert evaluation is not None
+        _, h, second = fitting._local_model(used, evaluation, STANDARD_CONDITIONS, True)
+        so, sd = 1e-4, 1e-2
+        centre = _half_chi_square(used, odds, drop)
+        h_oo = (
+            _half_chi_square(used, odds + so, drop)
+            - 2 * centre
+            + _half_chi_square(used, odds - so, drop)
+        ) / so**2
+        h_dd = (
+            _half_chi_square(used, odds, drop + sd)
+            - 2 * centre
+            + _half_chi_square(used, odds, drop - sd)
+        ) / sd**2
+        h_od = (
+            _half_chi_square(used, odds + so, drop + sd)
+            - _half_chi_square(used, odds + so, drop - sd)
+            - _half_chi_square(used, odds - so, drop + sd)
+            + _half_chi_square(used, odds - so, drop - sd)
+        ) / (4.0 * so * sd)
+        assert second[0] == pytest.approx(h_oo - h[0], rel=1e-4)
+        assert second[1] == pytest.approx(h_od - h[1], rel=1e-4)
+        assert second[2] == pytest.approx(h_dd - h[2], rel=1e-4)
