@@ -1,0 +1,42 @@
+"""With a device-estimated FiO2 the fit's weights depend on the parameters (effective variance;
+Orear J, Am J Phys 1982;50:912, from memory): does the solver still reach the least χ²?
+
+Known defect, kept as a strict expected failure until the solver is fixed: the analytic
+Jacobian treats each point's expected error as a constant, so where the FiO2 term counts the
+projected Levenberg–Marquardt stops short of the minimum of the χ² it reports (0.934 against
+scipy's 0.896 below; the shunt 0.4 points and ΔPO2 4 mmHg away), and from other starts of its
+grid it stalls and refuses the fit as not converged. Measured FiO2s are not affected
+(``test_oxygen_response.py`` checks those against scipy).
+"""
+
+from __future__ import annotations
+
+import random
+
+import pytest
+
+from service.physiology.oxygen_response import IdentifiabilityLimits, fit_oxygen_response
+from tests.physiology import weighted_fit_reference as ref
+from tests.physiology.oxygen_points import generated_points
+
+LOOSE = IdentifiabilityLimits(max_shunt_range_width=0.95, max_vq_drop_range_width_mmhg=700.0)
+
+
+@pytest.mark.xfail(
+    strict=True,
+    reason="the Jacobian omits the derivative of the effective-variance weights",
+)
+def test_with_a_device_fio2_the_fit_reaches_the_least_chi_square_scipy_finds() -> None:
+    points = generated_points(
+        shunt=0.18,
+        vq_drop_mmhg=40.0,
+        fio2s=(0.24, 0.28, 0.32, 0.4, 0.5),
+        kinds=("spo2", "sao2"),
+        rng=random.Random(8),
+        spo2_noise=0.01,
+        fio2_half_range=0.04,
+    )
+    fit = fit_oxygen_response(points=points, limits=LOOSE).two_parameter
+    assert fit is not None
+    theirs = ref.fit(ref.rows_of(points), fit_drop=True, starts=((0.2, 20.0), (0.05, 60.0)))
+    assert fit.chi_square <= theirs.chi_square + 1e-6 * (1.0 + theirs.chi_square)
