@@ -4,8 +4,10 @@ possible ranges of the fit's settings."""
 
 from __future__ import annotations
 
+import math
 import random
 
+import numpy as np
 import pytest
 
 from service.exceptions import ImpossibleValueError
@@ -136,3 +138,40 @@ def test_a_shunt_above_the_odds_of_0_86_is_fitted_up_to_the_models_limit() -> No
     one = response.effective_shunt
     assert one is not None
     assert one.shunt.value == pytest.approx(0.9, abs=1e-4)
+
+
+def test_a_co_oximeter_reading_full_saturation_is_fitted() -> None:
+    # An SaO2 of 100 % is a possible co-oximeter reading on oxygen (intake accepts saturations
+    # up to 1.0); only SpO2 above 97 % is left out of the fit. It must be fitted, and sit on
+    # the flat top of the curve within its 0.01.
+    points = [
+        TitrationPoint(START, inspired(0.3), sao2=0.85, paco2_mmhg=40.0),
+        TitrationPoint(START.replace(minute=10), inspired(0.6), sao2=0.97, paco2_mmhg=40.0),
+        TitrationPoint(START.replace(minute=20), inspired(1.0), sao2=1.0, paco2_mmhg=40.0),
+    ]
+    response = fit_oxygen_response(points=points)
+    assert response.points_used == 3 and response.two_parameter is not None
+    top = response.two_parameter.points[-1]
+    assert top.used and abs(top.residual) < 0.01
+
+
+@pytest.mark.parametrize(
+    ("reciprocal_condition", "separable"), [(1.05e-10, True), (0.95e-10, False)]
+)
+def test_the_information_matrix_counts_as_singular_below_a_reciprocal_condition_of_1e_10(
+    reciprocal_condition: float, separable: bool
+) -> None:
+    # docs/oxygen-response.md §3 rule 3: refused as not separable when the reciprocal
+    # condition number of JᵀJ is below 1e-10. Jacobian columns (1, ∓√r, 0), whose JᵀJ has the
+    # eigenvalues 2 and 2r; its condition checked with numpy.
+    from service.physiology.oxygen_response import _covariance
+
+    small = math.sqrt(reciprocal_condition)
+    j_odds = [1.0, -small, 0.0]
+    j_drop = [1.0, small, 0.0]
+    jacobian = np.column_stack([j_odds, j_drop])
+    jtj = jacobian.T @ jacobian
+    assert 1.0 / np.linalg.cond(jtj) == pytest.approx(reciprocal_condition, rel=1e-4)
+    var_odds, _, var_drop = _covariance(j_odds, j_drop)
+    assert math.isfinite(var_odds) is separable
+    assert math.isfinite(var_drop) is separable
