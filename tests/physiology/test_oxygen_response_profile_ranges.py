@@ -172,3 +172,47 @@ def test_the_profile_ranges_are_the_region_where_chi_square_rises_by_3_84(name: 
     assert fit.shunt.high == pytest.approx(shunt_high, abs=SHUNT_END_TOLERANCE)
     assert fit.shunt.low <= fit.shunt.value <= fit.shunt.high
     assert fit.vq_drop_mmhg.low <= drop <= fit.vq_drop_mmhg.high
+
+
+# Oximetry and gases on a device-estimated FiO2 (± 0.05) whose region runs to a tip at its
+# upper ΔPO2 end (the shunt's least value there; the ΔPO2 end's bisection then bounds the
+# shunt's to about 1e-4), or to the largest ΔPO2 that leaves a steady state.
+DEVICE = 0.05
+SHUNT_CASES = {
+    "oximetry-region-tip": [
+        TitrationPoint(START, inspired(0.25, DEVICE), spo2=0.7699),
+        TitrationPoint(START + timedelta(minutes=10), inspired(0.33, DEVICE), sao2=0.8513),
+        TitrationPoint(START + timedelta(minutes=20), inspired(0.35, DEVICE), spo2=0.8701),
+    ],
+    "two-gases-to-the-steady-state-edge": [
+        TitrationPoint(START, inspired(0.25, DEVICE), pao2_mmhg=45.9934, paco2_mmhg=40.0),
+        TitrationPoint(
+            START + timedelta(minutes=10),
+            inspired(0.32, DEVICE),
+            pao2_mmhg=81.9247,
+            paco2_mmhg=40.0,
+        ),
+    ],
+}
+
+
+@pytest.mark.parametrize("name", list(SHUNT_CASES))
+def test_the_shunt_range_ends_are_the_regions_between_and_beyond_its_slices(name: str) -> None:
+    points = SHUNT_CASES[name]
+    fit = fit_oxygen_response(points=points).two_parameter
+    assert fit is not None
+    rows = ref.content_rows(points)
+    dof = fit.degrees_of_freedom
+    inflation = max(1.0, fit.chi_square / dof) if dof > 0 else 1.0
+    drop = fit.vq_drop_mmhg.value
+    threshold = ref.content_profile_over_odds(rows, drop) + DELTA_95 * inflation
+    # the largest ΔPO2 with a steady state at no shunt
+    edge = float(brentq(lambda d: ref.largest_odds(rows, d), drop, drop + 200.0, xtol=1e-9))
+
+    def above_odds(o: float) -> float:
+        return ref.content_profile_over_drop(rows, o, edge) - threshold
+
+    odds_low = 0.0 if above_odds(0.0) <= 0.0 else float(brentq(above_odds, 0.0, fit.shunt_odds))
+    odds_high = float(brentq(above_odds, fit.shunt_odds, 4.0, xtol=1e-12))
+    assert fit.shunt.low == pytest.approx(odds_low / (1.0 + odds_low), abs=1e-4)
+    assert fit.shunt.high == pytest.approx(odds_high / (1.0 + odds_high), abs=1e-4)
