@@ -57,7 +57,7 @@ bronchopulmonary dysplasia (16.5 kPa; Quine D et al., Arch Dis Child Fetal Neona
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, replace
 from enum import StrEnum
 from typing import NamedTuple
@@ -608,8 +608,8 @@ class _ContentSpace:
 
         From the least-squares ``estimate`` (odds, ΔPO2) the ΔPO2 range is bracketed by steps
         that double from 5 mmHg, each end then bisected to within 1/64 of its bracket; the
-        odds range is the hull of the parabola slices at evenly spaced ΔPO2 in the range.
-        Both ranges hold the estimate.
+        odds range is the hull of parabola slices across it, each end refined between slices
+        (``_refined_odds``). Both ranges hold the estimate.
         """
         odds_est, drop_est = estimate
         drop_low = self._edge(threshold, drop_est, 0.0)
@@ -625,7 +625,7 @@ class _ContentSpace:
             half = math.sqrt((threshold - chi2_u) / curvature)
             odds_low = min(odds_low, max(0.0, odds_u - half))
             odds_high = max(odds_high, min(odds_max, odds_u + half))
-        return (odds_low, odds_high), (drop_low, drop_high)
+        return _refined_odds(self, threshold, (drop_low, drop_high), (odds_low, odds_high))
 
     def _inside(self, drop: float, threshold: float) -> bool:
         values = self.profile(drop)
@@ -1173,3 +1173,82 @@ def _moved(
         shunt_from_odds(min(max(odds + d_odds * delta, 0.0), _MAX_SHUNT_ODDS)),
         max(0.0, drop + d_drop * delta),
     )
+
+
+# --- the odds range between slices -------------------------------------------------------------
+
+_GOLDEN_SECTION = (math.sqrt(5.0) - 1.0) / 2.0
+_REFINE_STEPS = 12  # golden-section steps: two slice intervals shrink to 0.3 % of themselves
+
+
+def _refined_odds(
+    space: _ContentSpace,
+    threshold: float,
+    drops: tuple[float, float],
+    odds: tuple[float, float],
+) -> tuple[tuple[float, float], tuple[float, float]]:
+    """The odds range of ``_ContentSpace.ranges`` with each end refined between slices.
+
+    The hull of evenly spaced slices misses an end that lies between two of them: where the
+    region is tilted its extreme odds sit near a narrow tip, and the slices' hull was up to a
+    point of shunt too narrow (two co-oximetry steps, tests). So each end is searched for by
+    golden section over the two slice intervals beside the slice that holds it.
+    """
+    drop_low, drop_high = drops
+    odds_low, odds_high = odds
+    step = (drop_high - drop_low) / _RANGE_SLICES
+    if step <= 0.0:
+        return odds, drops
+
+    def ends(drop: float) -> tuple[float, float] | None:
+        """(low, high) odds of the region's slice at ``drop``; None off the region."""
+        values = space.at(drop)
+        if values is None or values[1] > threshold:
+            return None
+        odds_u, chi2_u, curvature, odds_max = values
+        half = math.sqrt((threshold - chi2_u) / curvature)
+        return max(0.0, odds_u - half), min(odds_max, odds_u + half)
+
+    cached: dict[float, tuple[float, float]] = {}
+    for i in range(_RANGE_SLICES + 1):
+        slice_ends = ends(drop_low + step * i)
+        if slice_ends is not None:
+            cached[drop_low + step * i] = slice_ends
+    for k in (0, 1):
+        sign = 1.0 if k else -1.0  # outwards: the low end down, the high end up
+
+        def outward(drop: float, k: int = k, sign: float = sign) -> float:
+            found = ends(drop)
+            return -math.inf if found is None else sign * found[k]
+
+        def reach(drop: float, k: int = k, sign: float = sign) -> float:
+            return sign * cached[drop][k]
+
+        best = max(cached, key=reach, default=None)
+        if best is None:
+            continue
+        found = _golden_section_max(
+            outward, max(drop_low, best - step), min(drop_high, best + step)
+        )
+        if math.isfinite(found) and k == 0:
+            odds_low = min(odds_low, -found)
+        elif math.isfinite(found):
+            odds_high = max(odds_high, found)
+    return (odds_low, odds_high), drops
+
+
+def _golden_section_max(function: Callable[[float], float], low: float, high: float) -> float:
+    """The largest value of ``function`` found by golden section over [low, high]."""
+    a, b = low, high
+    c, d = b - _GOLDEN_SECTION * (b - a), a + _GOLDEN_SECTION * (b - a)
+    fc, fd = function(c), function(d)
+    for _ in range(_REFINE_STEPS):
+        if fc > fd:
+            b, d, fd = d, c, fc
+            c = b - _GOLDEN_SECTION * (b - a)
+            fc = function(c)
+        else:
+            a, c, fc = c, d, fd
+            d = a + _GOLDEN_SECTION * (b - a)
+            fd = function(d)
+    return max(fc, fd)

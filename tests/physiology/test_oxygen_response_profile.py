@@ -134,7 +134,9 @@ def test_the_cases_reach_both_limits_and_neither() -> None:
 
 
 @pytest.mark.parametrize("name", CASES)
-def test_the_shunt_range_is_the_hull_of_the_profile_regions_odds(name: str) -> None:
+def test_the_shunt_range_holds_the_hull_of_the_profile_regions_odds(name: str) -> None:
+    # The slices' hull is an inner bound of the region; the refinement beside the best slice
+    # (its exact ends: test_oxygen_response_profile_ranges.py) can only widen it, and by little.
     solution, used = _solution(name), _used(CASES[name])
     assert solution.ranges is not None
     (odds_low, odds_high), (low, high) = solution.ranges
@@ -145,8 +147,8 @@ def test_the_shunt_range_is_the_hull_of_the_profile_regions_odds(name: str) -> N
         interval = profile.odds_interval(low + (high - low) * i / SLICES, threshold)
         if interval is not None:
             hull_low, hull_high = min(hull_low, interval[0]), max(hull_high, interval[1])
-    assert odds_low == pytest.approx(hull_low, abs=1e-7)
-    assert odds_high == pytest.approx(hull_high, abs=1e-7)
+    assert hull_low - 0.01 < odds_low <= hull_low + 1e-9
+    assert hull_high - 1e-9 <= odds_high < hull_high + 0.01
 
 
 @pytest.mark.parametrize("name", SCENARIOS)
