@@ -71,7 +71,9 @@ def test_an_imputed_pao2_at_altitude_gets_one_partition_per_residence() -> None:
 def test_why_a_gas_has_no_partition() -> None:
     # An imputed PaO2 without an age: the reason is the age, not a missing PaO2.
     no_age = gas(m(Q.SPO2, 0.90), m(Q.FIO2, 0.21))
-    no_age = dataclasses.replace(no_age, facts={k: v for k, v in no_age.facts.items() if k != "age"})
+    no_age = dataclasses.replace(
+        no_age, facts={k: v for k, v in no_age.facts.items() if k != "age"}
+    )
     assert p.absent_reason(no_age).startswith("age not known")
     # A barometric pressure refused as impossible (100 mmHg is far above any summit).
     no_pb = gas(m(Q.ARTERIAL_PO2, 60.0), m(Q.FIO2, 0.21), m(Q.BAROMETRIC_PRESSURE, 100.0))
