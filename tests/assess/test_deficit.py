@@ -12,6 +12,10 @@ from service.assess import deficit
 from service.assess.catalogue import DEFAULT_CATALOGUE
 from service.assess.derivation import FactValue, compute_derived
 from service.config import Settings
+from service.intake.model import Quantity as Q
+
+from .builders import m
+from .test_slips import gas
 
 SHARES = tuple(e for e in deficit.FACTS if e.name.startswith("share_"))
 
@@ -55,3 +59,18 @@ def test_a_credit_lowers_nothing_and_one_cause_is_the_whole() -> None:
 def test_no_share_when_nothing_lowers_the_pao2() -> None:
     # Every part a credit or nothing (on oxygen, a healthy lung): no fraction of zero.
     assert _shares(-30.0, 0.0, -1.0, 0.0) == {}
+
+
+def test_an_imputed_pao2_is_not_split_by_a_paco2_of_another_sample() -> None:
+    # Without an arterial PO2 the PaO2 is imputed from SpO2 (Brown 2016); the PaCO2 sent
+    # beside it does not belong to that PaO2, so ventilation and gas exchange stay together.
+    imputed = gas(m(Q.SPO2, 0.90), m(Q.ARTERIAL_PCO2, 40.0), m(Q.FIO2, 0.21))
+    assert "arterial_po2" not in imputed.facts and "arterial_pco2" in imputed.facts
+    assert "deficit_ventilation" not in imputed.facts
+    assert "deficit_gas_exchange" not in imputed.facts
+    assert "deficit_unattributed" in imputed.facts
+    assert "imputed from SpO2 (Brown 2016)" in imputed.derived["pao2-fall"].method
+    measured = gas(m(Q.ARTERIAL_PO2, 60.0), m(Q.ARTERIAL_PCO2, 40.0), m(Q.FIO2, 0.21))
+    assert "deficit_ventilation" in measured.facts and "deficit_gas_exchange" in measured.facts
+    method = measured.derived["pao2-fall"].method
+    assert "fall of PaO2 below" in method and "imputed" not in method
