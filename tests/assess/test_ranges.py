@@ -131,11 +131,3 @@ def test_any_accepted_input_gives_facts_the_catalogue_accepts(data: Intake) -> N
     # and no value is silently dropped between the intake and the rules.
     result = assess(data, ruleset=RULESET, settings=Settings())
     DEFAULT_CATALOGUE.check(result.index.facts)
-
-
-def test_the_lowest_possible_fio2_is_an_fio2() -> None:
-    # The least FiO2 a PaO2 allows is a fraction of inspired oxygen like the one sent: up to
-    # pure oxygen (a device estimate's high end may be 1.0), never above.
-    lowest, sent = DEFAULT_CATALOGUE["fio2_lowest_possible"], DEFAULT_CATALOGUE["fio2"]
-    assert lowest.maximum == sent.maximum == 1.0
-    assert lowest.problem(0.95) is None and lowest.problem(1.05) is not None
