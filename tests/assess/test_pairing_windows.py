@@ -25,5 +25,6 @@ def test_a_context_value_exactly_one_pairing_window_away_belongs_to_the_gas() ->
     minutes = SETTINGS.pairing_window_minutes
     found = gas(m(Q.ARTERIAL_PO2, 70.0), m(Q.SPO2, 0.93, minutes))
     assert found.gas.get(Q.SPO2) is not None
+    assert found.gas.untimed == []  # a timed value is never reported as untimed
     beyond = gas(m(Q.ARTERIAL_PO2, 70.0), m(Q.SPO2, 0.93, minutes + 1.0))
     assert beyond.gas.get(Q.SPO2) is None
