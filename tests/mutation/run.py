@@ -175,6 +175,7 @@ def _child(mutant: Mutant | None, tests: Sequence[str]) -> None:
         "mutation", max_examples=HYPOTHESIS_EXAMPLES, database=None, deadline=None
     )
     hypothesis.settings.load_profile("mutation")
+    os.environ["OXYRULE_HYPOTHESIS_PROFILE"] = "mutation"  # tests/conftest.py keeps it
     if mutant is not None:
         sys.meta_path.insert(
             0, _MutatedModule(_module_name(mutant.path), mutant.file, mutant.code())
