@@ -11,8 +11,8 @@ from service.assess.assess import _duration, _specimen_flags, windows
 from service.assess.pairing import pair_gases
 from service.assess.result import ResultStatus
 from service.config import Settings
-from service.intake.model import Quantity as Q
 from service.intake.model import Measurement, Specimen
+from service.intake.model import Quantity as Q
 from service.runtime import Runtime
 
 from .builders import intake, m
