@@ -93,6 +93,8 @@ AREAS: dict[str, tuple[tuple[str, ...], tuple[str, ...]]] = {
             "tests/assess",
             "tests/test_fixtures.py",
             "tests/engine/test_catalogue.py",
+            # a site's declared finding codes, whose `about` the assessment maps (about_data)
+            "tests/engine/test_declared_findings.py",
             # the partition and the admixture are checked end to end where they are shown
             "tests/fhir/test_render_deficit.py",
             "tests/physiology/test_deficit.py",
