@@ -6,6 +6,7 @@ import random
 from collections.abc import Sequence
 from datetime import UTC, datetime, timedelta
 
+from service.physiology import oxygen_response as fitting
 from service.physiology.oxygen_exchange import (
     STANDARD_CONDITIONS,
     ExchangeConditions,
@@ -68,3 +69,20 @@ def generated_points(
             else:
                 points.append(TitrationPoint(time, where, sao2=value, paco2_mmhg=paco2_mmhg))
     return points
+
+
+def used_observations(points: list[TitrationPoint]) -> list[fitting._Observation]:
+    """The points the fit weighs (SpO2 above the informative ceiling left out), on the
+    standard conditions."""
+    return [
+        fitting._observation(p, STANDARD_CONDITIONS, fitting.SPO2_SD, fitting.SAO2_SD)
+        for p in points
+        if p.spo2 is None or p.spo2 <= fitting.SPO2_INFORMATIVE_MAX
+    ]
+
+
+def half_chi_square(used: list[fitting._Observation], odds: float, drop: float) -> float:
+    """½χ², the objective the solver accepts its steps by."""
+    evaluation = fitting._evaluate(used, odds, drop, STANDARD_CONDITIONS)
+    assert evaluation is not None
+    return evaluation.chi_square / 2.0

@@ -13,8 +13,7 @@ from service.physiology import oxygen_response as fitting
 from service.physiology.oxygen_exchange import STANDARD_CONDITIONS, exchange_state
 from service.physiology.oxygen_response import fit_oxygen_response
 from service.physiology.saturation import saturation_from_po2
-from service.physiology.titration import TitrationPoint
-from tests.physiology.oxygen_points import generated_points
+from tests.physiology.oxygen_points import generated_points, half_chi_square, used_observations
 
 SOLUBILITY = 0.003  # mL/dL per mmHg at 37 °C (common practice)
 
@@ -60,20 +59,6 @@ def test_the_pao2_solve_from_a_nearby_answer_matches_an_independent_root_finder(
         checked += 1
 
 
-def _used(points: list[TitrationPoint]) -> list[fitting._Observation]:
-    return [
-        fitting._observation(p, STANDARD_CONDITIONS, fitting.SPO2_SD, fitting.SAO2_SD)
-        for p in points
-        if p.spo2 is None or p.spo2 <= fitting.SPO2_INFORMATIVE_MAX
-    ]
-
-
-def _half_chi_square(used: list[fitting._Observation], odds: float, drop: float) -> float:
-    evaluation = fitting._evaluate(used, odds, drop, STANDARD_CONDITIONS)
-    assert evaluation is not None
-    return evaluation.chi_square / 2.0
-
-
 @pytest.mark.parametrize("half_range", [0.0, 0.05])
 def test_the_solvers_gradient_and_hessian_are_those_of_the_chi_square(half_range: float) -> None:
     # Central finite differences of ½χ² (the objective the solver accepts steps by) as the
@@ -92,35 +77,33 @@ def test_the_solvers_gradient_and_hessian_are_those_of_the_chi_square(half_range
             pao2_relative_noise=0.1,
             fio2_half_range=half_range,
         )
-        used = _used(points)
+        used = used_observations(points)
         odds, drop = rng.uniform(0.05, 0.4), rng.uniform(5.0, 30.0)
         evaluation = fitting._evaluate(used, odds, drop, STANDARD_CONDITIONS)
         assert evaluation is not None
         g, h, second = fitting._local_model(used, evaluation, STANDARD_CONDITIONS, True)
         step_o, step_d = 1e-6, 1e-4
         g_odds = (
-            _half_chi_square(used, odds + step_o, drop)
-            - _half_chi_square(used, odds - step_o, drop)
+            half_chi_square(used, odds + step_o, drop) - half_chi_square(used, odds - step_o, drop)
         ) / (2 * step_o)
         g_drop = (
-            _half_chi_square(used, odds, drop + step_d)
-            - _half_chi_square(used, odds, drop - step_d)
+            half_chi_square(used, odds, drop + step_d) - half_chi_square(used, odds, drop - step_d)
         ) / (2 * step_d)
         assert g[0] == pytest.approx(g_odds, rel=1e-5, abs=1e-4)
         assert g[1] == pytest.approx(g_drop, rel=1e-5, abs=1e-6)
         if half_range:
             continue
         step_o, step_d = 1e-4, 1e-2
-        centre = _half_chi_square(used, odds, drop)
+        centre = half_chi_square(used, odds, drop)
         h_oo = (
-            _half_chi_square(used, odds + step_o, drop)
+            half_chi_square(used, odds + step_o, drop)
             - 2 * centre
-            + _half_chi_square(used, odds - step_o, drop)
+            + half_chi_square(used, odds - step_o, drop)
         ) / step_o**2
         h_dd = (
-            _half_chi_square(used, odds, drop + step_d)
+            half_chi_square(used, odds, drop + step_d)
             - 2 * centre
-            + _half_chi_square(used, odds, drop - step_d)
+            + half_chi_square(used, odds, drop - step_d)
         ) / step_d**2
         assert h[0] + second[0] == pytest.approx(h_oo, rel=1e-3)
         assert h[2] + second[2] == pytest.approx(h_dd, rel=1e-3)
@@ -151,7 +134,7 @@ def test_fits_on_device_estimated_fio2_converge_and_never_fit_worse_than_one_par
             )
         except ValueError:
             continue  # no steady state on the lowest FiO2
-        used = _used(points)
+        used = used_observations(points)
         if len({o.point.inspired.fio2 for o in used}) < 2:
             continue
         one = fitting._solve(used, STANDARD_CONDITIONS, fit_drop=False)

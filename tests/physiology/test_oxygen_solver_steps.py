@@ -22,21 +22,13 @@ from scipy.optimize import least_squares, minimize_scalar
 from service.physiology import oxygen_response as fitting
 from service.physiology.oxygen_exchange import STANDARD_CONDITIONS
 from service.physiology.titration import TitrationPoint
-from tests.physiology.oxygen_points import START, generated_points, inspired
-
-
-def _used(points: list[TitrationPoint]) -> list[fitting._Observation]:
-    return [
-        fitting._observation(p, STANDARD_CONDITIONS, fitting.SPO2_SD, fitting.SAO2_SD)
-        for p in points
-        if p.spo2 is None or p.spo2 <= fitting.SPO2_INFORMATIVE_MAX
-    ]
-
-
-def _half_chi_square(used: list[fitting._Observation], odds: float, drop: float) -> float:
-    evaluation = fitting._evaluate(used, odds, drop, STANDARD_CONDITIONS)
-    assert evaluation is not None
-    return evaluation.chi_square / 2.0
+from tests.physiology.oxygen_points import (
+    START,
+    generated_points,
+    half_chi_square,
+    inspired,
+    used_observations,
+)
 
 
 @pytest.mark.parametrize("kinds", [("pao2",), ("spo2",), ("spo2", "pao2")])
@@ -55,17 +47,17 @@ def test_the_full_hessians_cross_term_is_that_of_the_chi_square(kinds: tuple[str
             spo2_noise=0.03,
             pao2_relative_noise=0.1,
         )
-        used = _used(points)
+        used = used_observations(points)
         odds, drop = rng.uniform(0.05, 0.4), rng.uniform(5.0, 30.0)
         evaluation = fitting._evaluate(used, odds, drop, STANDARD_CONDITIONS)
         assert evaluation is not None
         _, h, second = fitting._local_model(used, evaluation, STANDARD_CONDITIONS, True)
         so, sd = 1e-4, 1e-2
         h_od = (
-            _half_chi_square(used, odds + so, drop + sd)
-            - _half_chi_square(used, odds + so, drop - sd)
-            - _half_chi_square(used, odds - so, drop + sd)
-            + _half_chi_square(used, odds - so, drop - sd)
+            half_chi_square(used, odds + so, drop + sd)
+            - half_chi_square(used, odds + so, drop - sd)
+            - half_chi_square(used, odds - so, drop + sd)
+            + half_chi_square(used, odds - so, drop - sd)
         ) / (4.0 * so * sd)
         assert h[1] + second[1] == pytest.approx(h_od, rel=1e-3, abs=1e-6 * abs(h[1]))
 
@@ -144,7 +136,7 @@ def test_both_searches_end_within_a_few_thousandths_of_a_standard_error_of_the_m
 ) -> None:
     # The stopping rule promises 0.001 SE; 0.005 leaves room for the estimate of that
     # distance (on 323 fits of random and fixture titrations the solver's worst was 0.0024).
-    used = _used(HARD[name])
+    used = used_observations(HARD[name])
     one = fitting._solve(used, STANDARD_CONDITIONS, fit_drop=False)
     two = fitting._solve(used, STANDARD_CONDITIONS, fit_drop=True, effective=one)
     max_drop = fitting._max_drop(used, STANDARD_CONDITIONS)
@@ -216,7 +208,7 @@ def test_the_vq_terms_range_ends_where_the_profile_chi_square_crosses_its_thresh
     response = fitting.fit_oxygen_response(points=points)
     fit = response.two_parameter
     assert fit is not None and fit.vq_drop_mmhg.profile
-    used = _used(points)
+    used = used_observations(points)
     dof = len(used) - 2
     threshold = fit.chi_square + fitting.DELTA_CHI_SQUARE_95 * max(1.0, fit.chi_square / dof)
     for end in (fit.vq_drop_mmhg.low, fit.vq_drop_mmhg.high):
@@ -244,29 +236,29 @@ def test_the_second_order_term_is_what_jtj_leaves_out_of_the_hessian(
             pao2_relative_noise=0.4,
         )
         # an acidaemic pH moves each point's curve (affinity scale below 1)
-        used = _used([replace(p, ph=ph) for p in points])
+        used = used_observations([replace(p, ph=ph) for p in points])
         assert all((o.scale == 1.0) == (ph is None) for o in used)
         odds, drop = rng.uniform(0.1, 0.3), rng.uniform(10.0, 30.0)
         evaluation = fitting._evaluate(used, odds, drop, STANDARD_CONDITIONS)
         assert evaluation is not None
         _, h, second = fitting._local_model(used, evaluation, STANDARD_CONDITIONS, True)
         so, sd = 1e-4, 1e-2
-        centre = _half_chi_square(used, odds, drop)
+        centre = half_chi_square(used, odds, drop)
         h_oo = (
-            _half_chi_square(used, odds + so, drop)
+            half_chi_square(used, odds + so, drop)
             - 2 * centre
-            + _half_chi_square(used, odds - so, drop)
+            + half_chi_square(used, odds - so, drop)
         ) / so**2
         h_dd = (
-            _half_chi_square(used, odds, drop + sd)
+            half_chi_square(used, odds, drop + sd)
             - 2 * centre
-            + _half_chi_square(used, odds, drop - sd)
+            + half_chi_square(used, odds, drop - sd)
         ) / sd**2
         h_od = (
-            _half_chi_square(used, odds + so, drop + sd)
-            - _half_chi_square(used, odds + so, drop - sd)
-            - _half_chi_square(used, odds - so, drop + sd)
-            + _half_chi_square(used, odds - so, drop - sd)
+            half_chi_square(used, odds + so, drop + sd)
+            - half_chi_square(used, odds + so, drop - sd)
+            - half_chi_square(used, odds - so, drop + sd)
+            + half_chi_square(used, odds - so, drop - sd)
         ) / (4.0 * so * sd)
         assert second[0] == pytest.approx(h_oo - h[0], rel=1e-4)
         assert second[1] == pytest.approx(h_od - h[1], rel=1e-4)
