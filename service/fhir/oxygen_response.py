@@ -15,6 +15,7 @@ Pressures leave in the requested unit; saturations and shunts in %, FiO2 as a fr
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from typing import Any
 
 from service.assess.presentation import PressureUnit, quantity
@@ -33,6 +34,8 @@ from service.physiology.oxygenation_trend import OxygenationTrend
 from service.physiology.titration import MeasuredKind
 
 Json = dict[str, Any]
+Refer = Callable[[str], Json]
+"""How a Reference to an input resource is written (the renderer knows the result's addressing)."""
 DERIVED_SYSTEM = "https://oxyrule.org/fhir/CodeSystem/derived"
 MODEL_SYSTEM = "https://oxyrule.org/fhir/CodeSystem/oxygen-response-model"
 CATEGORY = "http://terminology.hl7.org/CodeSystem/observation-category"
@@ -86,7 +89,7 @@ def _point_value(kind: MeasuredKind, value: float, unit: PressureUnit) -> Json:
     return _percent("spo2", value, unit)
 
 
-def _point(fit: PointFit, unit: PressureUnit) -> Json:
+def _point(fit: PointFit, unit: PressureUnit, refer: Refer) -> Json:
     p = fit.point
     parts = [
         _part("time", valueDateTime=p.time.isoformat()),
@@ -106,7 +109,7 @@ def _point(fit: PointFit, unit: PressureUnit) -> Json:
         _part("standardised-residual", valueDecimal=_decimal(fit.standardised_residual, 2)),
     ]
     if p.reference:
-        parts.insert(0, _part("observation", valueReference={"reference": p.reference}))
+        parts.insert(0, _part("observation", valueReference=refer(p.reference)))
     if p.readings > 1:
         parts.append(_part("readings", valueInteger=p.readings))
     if fit.paco2_assumed:
@@ -116,9 +119,9 @@ def _point(fit: PointFit, unit: PressureUnit) -> Json:
     return _part("point", part=parts)
 
 
-def _left_out(d: LeftOut, unit: PressureUnit) -> Json:
+def _left_out(d: LeftOut, unit: PressureUnit, refer: Refer) -> Json:
     parts = [
-        _part("observation", valueReference={"reference": d.reference}),
+        _part("observation", valueReference=refer(d.reference)),
         _part("time", valueDateTime=d.time.isoformat()),
         _part("kind", valueCode=d.kind.value),
         _part("value", valueQuantity=_point_value(d.kind, d.value, unit)),
@@ -260,15 +263,16 @@ def _prediction_parts(a: Assessment, t: Titration, unit: PressureUnit) -> list[J
     return parts + [_target(target, choice.band) for target in prediction.targets]
 
 
-def oxygen_response_parameter(a: Assessment, unit: PressureUnit) -> Json | None:
-    """The ``oxygen-response`` parameter, or None without a titration."""
+def oxygen_response_parameter(a: Assessment, unit: PressureUnit, refer: Refer) -> Json | None:
+    """The ``oxygen-response`` parameter, or None without a titration; ``refer`` makes the
+    Reference to an input resource as the result's addressing says."""
     t = a.titration
     if t is None:
         return None
     parts = _model_parts(t) + _fitted_parts(t, unit) + _condition_parts(t, unit)
     if t.fit is not None:
-        parts += [_point(p, unit) for p in t.fit.points]
-    parts += [_left_out(d, unit) for d in t.dropped]
+        parts += [_point(p, unit, refer) for p in t.fit.points]
+    parts += [_left_out(d, unit, refer) for d in t.dropped]
     parts += _prediction_parts(a, t, unit)
     parts.append(_part("caution", valueString=CAUTION))
     return {"name": "oxygen-response", "part": parts}
@@ -287,8 +291,11 @@ def _fraction(value: float) -> Json:
     return {"value": _decimal(value, 2), "unit": "1", "system": UCUM, "code": "1"}
 
 
-def oxygen_response_observation(a: Assessment, about: Json, unit: PressureUnit) -> Json | None:
-    """The ``oxygen-response`` Observation, or None without a fit."""
+def oxygen_response_observation(
+    a: Assessment, about: Json, unit: PressureUnit, refer: Refer
+) -> Json | None:
+    """The ``oxygen-response`` Observation, or None without a fit (``refer`` as in
+    ``oxygen_response_parameter``)."""
     t = a.titration
     if t is None or t.fit is None:
         return None
@@ -399,7 +406,7 @@ def oxygen_response_observation(a: Assessment, about: Json, unit: PressureUnit) 
     }
     refs = list(dict.fromkeys(s.reference for s in t.sources))
     if refs:
-        obs["derivedFrom"] = [{"reference": r} for r in refs]
+        obs["derivedFrom"] = [refer(r) for r in refs]
     return obs
 
 

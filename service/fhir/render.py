@@ -149,23 +149,13 @@ class _Links:
         found = self.addresses.get(reference)
         return dict(found) if found is not None else of_reference(reference, None)
 
-
-def _relinked(value: Any, links: _Links) -> Any:
-    """``value`` with every Reference to an input resource (``{"reference": ...}`` naming an
-    input) pointed at as ``service.fhir.addresses`` says: for parts built by modules that do
-    not know the result's addressing (the oxygen-response fit)."""
-    if isinstance(value, list):
-        return [_relinked(v, links) if isinstance(v, _CONTAINERS) else v for v in value]
-    if not isinstance(value, dict):
-        return value
-    reference = value.get("reference") if len(value) == 1 else None
-    if isinstance(reference, str) and not reference.startswith(("urn:", "#")):
-        return links.to_input(reference)  # an input's "Type/id" (a result entry is a urn)
-    # Numbers and strings are most of the tree and come back as they are: no call for them.
-    return {k: _relinked(v, links) if isinstance(v, _CONTAINERS) else v for k, v in value.items()}
-
-
-_CONTAINERS = (dict, list)
+    def to_source(self, reference: str) -> Json:
+        """The Reference to a point's source as a module that does not know the result's
+        addressing recorded it (the oxygen-response fit): an input's "Type/id" pointed at as
+        ``service.fhir.addresses`` says; a urn or a contained "#id" as it is."""
+        if reference.startswith(("urn:", "#")):
+            return {"reference": reference}
+        return self.to_input(reference)
 
 
 def _finding_coding(f: Finding) -> Json:
@@ -339,11 +329,11 @@ def _parameters(
     params += [_gas_parameter(g.facts, g.index, quantities, links) for g in a.gases]
     params += _deficit_parameters(partitions, quantities, links)
     for extra in (
-        oxygen_response_parameter(a, quantities.pressure_unit),
+        oxygen_response_parameter(a, quantities.pressure_unit, links.to_source),
         trend_parameter(a.trend),
     ):
         if extra is not None:
-            params.append(_relinked(extra, links))
+            params.append(extra)
     index = a.index
     params += quantities.listed(index.derived)
     if index.barometric_source:
@@ -641,9 +631,9 @@ def render_bundle(
         observation = _deficit_observation(shown, about, quantities, links)
         resources.append(observation)
         derived_ids.append(observation["id"])
-    response = oxygen_response_observation(a, about, pressure_unit)
+    response = oxygen_response_observation(a, about, pressure_unit, links.to_source)
     if response is not None:
-        resources.append(_relinked(response, links))
+        resources.append(response)
         derived_ids.append(response["id"])
     resources.append(_mechanism_observation(a, about, derived_ids, links))
     return {
