@@ -7,6 +7,7 @@ converted for display.
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from typing import TYPE_CHECKING, Any, Literal
 
 from service.engine.rationale import NO_UNITS, DisplayUnit, Units
@@ -51,18 +52,31 @@ DECIMALS = {"fio2": 2, "a-a-ratio": 2, "pf-ratio": 0, "sf-ratio": 0}
 
 def quantity(name: str, value: float, unit: str, pressure_unit: PressureUnit) -> Json:
     """A UCUM Quantity, converting pressures to kPa when asked, rounded for display."""
+    return quantity_of(name, unit, pressure_unit)(value)
+
+
+def quantity_of(name: str, unit: str, pressure_unit: PressureUnit) -> Callable[[float], Json]:
+    """``quantity`` for one name and unit, its decimals and conversion looked up once (for a
+    series of values of one kind: the oxygen-response prediction curve)."""
     decimals = DECIMALS.get(name, 1)
-    if unit == "mm[Hg]" and pressure_unit == "kPa":
-        value, unit = kpa_from_mmhg(value), "kPa"
+    convert = unit == "mm[Hg]" and pressure_unit == "kPa"
+    if convert:
+        unit = "kPa"
         decimals = 2 if name != "pf-ratio" else 1
-    # + 0.0 turns a negative zero (a part that rounds to nothing) into 0.0.
-    rounded = round(value, decimals) + 0.0
-    return {
-        "value": rounded if decimals else float(int(rounded)),
-        "unit": unit,
-        "system": UCUM,
-        "code": unit,
-    }
+
+    def of(value: float) -> Json:
+        if convert:
+            value = kpa_from_mmhg(value)
+        # + 0.0 turns a negative zero (a part that rounds to nothing) into 0.0.
+        rounded = round(value, decimals) + 0.0
+        return {
+            "value": rounded if decimals else float(int(rounded)),
+            "unit": unit,
+            "system": UCUM,
+            "code": unit,
+        }
+
+    return of
 
 
 KPA_PER_MMHG_SHOWN = kpa_from_mmhg(1.0)

@@ -18,7 +18,7 @@ from __future__ import annotations
 from collections.abc import Callable
 from typing import Any
 
-from service.assess.presentation import PressureUnit, quantity
+from service.assess.presentation import PressureUnit, quantity, quantity_of
 from service.assess.response_view import (
     CAUTION,
     MODEL_WORDS,
@@ -243,19 +243,21 @@ def _prediction_parts(a: Assessment, t: Titration, unit: PressureUnit) -> list[J
     prediction = t.prediction
     if prediction is None:
         return []
+    spo2 = quantity_of("spo2", "%", unit)
+    pao2 = quantity_of("pao2", "mm[Hg]", unit)
     parts = [
-        _part(
-            "prediction",
-            part=[
-                _part("fio2", valueDecimal=_decimal(p.fio2)),
-                _part("spo2", valueQuantity=_percent("spo2", p.saturation, unit)),
-                _part("spo2-low", valueQuantity=_percent("spo2", p.saturation_low, unit)),
-                _part("spo2-high", valueQuantity=_percent("spo2", p.saturation_high, unit)),
-                _part("pao2", valueQuantity=_pressure("pao2", p.pao2_mmhg, unit)),
-                _part("pao2-low", valueQuantity=_pressure("pao2", p.pao2_low_mmhg, unit)),
-                _part("pao2-high", valueQuantity=_pressure("pao2", p.pao2_high_mmhg, unit)),
+        {
+            "name": "prediction",
+            "part": [
+                {"name": "fio2", "valueDecimal": _decimal(p.fio2)},
+                {"name": "spo2", "valueQuantity": spo2(100.0 * p.saturation)},
+                {"name": "spo2-low", "valueQuantity": spo2(100.0 * p.saturation_low)},
+                {"name": "spo2-high", "valueQuantity": spo2(100.0 * p.saturation_high)},
+                {"name": "pao2", "valueQuantity": pao2(p.pao2_mmhg)},
+                {"name": "pao2-low", "valueQuantity": pao2(p.pao2_low_mmhg)},
+                {"name": "pao2-high", "valueQuantity": pao2(p.pao2_high_mmhg)},
             ],
-        )
+        }
         for p in prediction.curve
     ]
     choice = applicable_band(a)
