@@ -93,7 +93,8 @@ class Settings(BaseSettings):
         (18.0, 100.0), description="the ages considered when the birth date is not known"
     )
     av_difference_range_ml_dl: tuple[float, float] = Field(
-        (3.5, 7.0), description="a-v content difference range when none is measured"
+        c.ASSUMED_AV_DIFFERENCE_RANGE_ML_DL,
+        description="a-v content difference range when none is measured",
     )
     pressure_unit: Literal["mm[Hg]", "kPa"] = "mm[Hg]"
     site_altitude_m: float | None = Field(None, ge=ALTITUDE_M[0], le=ALTITUDE_M[1])

@@ -499,6 +499,7 @@ def _conditions(index: dict[str, FactValue], settings: Settings) -> ExchangeCond
         barometric_mmhg=number("barometric_pressure") or c.SEA_LEVEL_PRESSURE_MMHG,
         haemoglobin_g_dl=hb,
         av_difference_ml_dl=avd if avd is not None else settings.assumed_av_difference_ml_dl,
+        av_difference_range_ml_dl=settings.av_difference_range_ml_dl,
         hufner_ml_per_g=settings.hufner_ml_per_g,
         respiratory_quotient=settings.respiratory_quotient,
         water_vapour_mmhg=number("water_vapour_pressure") or c.WATER_VAPOUR_TEXTBOOK_MMHG,

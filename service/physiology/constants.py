@@ -52,6 +52,10 @@ NORMAL_BODY_TEMPERATURE_CEL = 37.0
 HUFNER_CONVENTIONAL_ML_PER_G = 1.34  # common practice; 1.39 theoretical, 1.368 measured
 O2_SOLUBILITY_ML_DL_PER_MMHG = 0.003  # dissolved O2, mL/dL per mmHg at 37 °C (common practice)
 ASSUMED_AV_DIFFERENCE_ML_DL = 5.0  # normal resting a-v content difference (common practice)
+# The range an assumed a-v content difference is varied over, to show what it does to a shunt:
+# from the 3.5 mL/dL of the "estimated shunt" equations for the critically ill to a low-output
+# 7 mL/dL (common practice). A site may set its own (``Settings.av_difference_range_ml_dl``).
+ASSUMED_AV_DIFFERENCE_RANGE_ML_DL = (3.5, 7.0)
 # Mixed-venous PO2 taken when a mixed-venous saturation comes without its PO2: its dissolved
 # oxygen is 0.12 mL/dL, so the choice barely matters (normal resting value, common practice).
 NORMAL_MIXED_VENOUS_PO2_MMHG = 40.0

@@ -57,10 +57,9 @@ from service.physiology.units import FIO2_LIMITS
 # (Benatar, Hewlett & Nunn 1973). Its sensitivity is reported with every fit.
 ASSUMED_HAEMOGLOBIN_G_DL = 14.0
 # Ranges over which an assumed value is varied to show its effect on a fit: Hb from anaemia
-# to the upper normal (common practice); a-v difference from the 3.5 mL/dL of the "estimated
-# shunt" equations for the critically ill to a low-output 6.5 mL/dL (common practice).
+# to the upper normal (common practice); the a-v difference over the conditions' range
+# (``ExchangeConditions.av_difference_range_ml_dl``).
 HAEMOGLOBIN_SENSITIVITY_G_DL = (8.0, 17.0)
-AV_DIFFERENCE_SENSITIVITY_ML_DL = (3.5, 6.5)
 PACO2_SENSITIVITY_MMHG = 10.0  # an assumed PaCO2 varied by ± this (common practice)
 
 SHUNT_LIMITS = (0.0, 0.95)
@@ -85,6 +84,8 @@ class ExchangeConditions:
     haemoglobin_measured: bool = False
     av_difference_ml_dl: float = c.ASSUMED_AV_DIFFERENCE_ML_DL
     av_difference_measured: bool = False
+    # The range an assumed a-v difference is varied over (its sensitivity, the rules' ranges).
+    av_difference_range_ml_dl: tuple[float, float] = c.ASSUMED_AV_DIFFERENCE_RANGE_ML_DL
     assumed_paco2_mmhg: float = c.NORMAL_PACO2_MMHG  # for points without a PaCO2
     affinity: OxygenAffinity = STANDARD_AFFINITY  # for points without their own
     hufner_ml_per_g: float = c.HUFNER_CONVENTIONAL_ML_PER_G
@@ -107,6 +108,7 @@ def exchange_conditions(
     barometric_mmhg: float = c.SEA_LEVEL_PRESSURE_MMHG,
     haemoglobin_g_dl: float | None = None,
     av_difference_ml_dl: float | None = None,
+    av_difference_range_ml_dl: tuple[float, float] = c.ASSUMED_AV_DIFFERENCE_RANGE_ML_DL,
     assumed_paco2_mmhg: float = c.NORMAL_PACO2_MMHG,
     affinity: OxygenAffinity = STANDARD_AFFINITY,
     hufner_ml_per_g: float = c.HUFNER_CONVENTIONAL_ML_PER_G,
@@ -114,10 +116,12 @@ def exchange_conditions(
     water_vapour_mmhg: float = c.WATER_VAPOUR_TEXTBOOK_MMHG,
 ) -> ExchangeConditions:
     """Checked conditions. ``None`` for Hb or the a-v difference means "not measured": the
-    assumed value (Hb 14 g/dL; avd 5 mL/dL, common practice) is used and marked assumed.
+    assumed value (Hb 14 g/dL; avd 5 mL/dL, common practice) is used and marked assumed, and
+    ``av_difference_range_ml_dl`` is the range its sensitivity is shown over.
 
     Raises:
-        ImpossibleValueError: a value outside its possible range.
+        ImpossibleValueError: a value outside its possible range, or a range whose ends are
+            out of order.
     """
     require_possible("barometric_mmhg", barometric_mmhg, *PRESSURE_BAROMETRIC_MMHG, "mm[Hg]")
     require_possible("water_vapour_mmhg", water_vapour_mmhg, 0.0, barometric_mmhg / 2, "mm[Hg]")
@@ -130,6 +134,11 @@ def exchange_conditions(
         require_possible(
             "av_difference_ml_dl", av_difference_ml_dl, *AV_DIFFERENCE_RANGE_ML_DL, "mL/dL"
         )
+    avd_low, avd_high = av_difference_range_ml_dl
+    require_possible("av_difference_range_ml_dl[0]", avd_low, *AV_DIFFERENCE_RANGE_ML_DL, "mL/dL")
+    require_possible(
+        "av_difference_range_ml_dl[1]", avd_high, avd_low, AV_DIFFERENCE_RANGE_ML_DL[1], "mL/dL"
+    )
     return ExchangeConditions(
         barometric_mmhg=barometric_mmhg,
         haemoglobin_g_dl=ASSUMED_HAEMOGLOBIN_G_DL if haemoglobin_g_dl is None else haemoglobin_g_dl,
@@ -138,6 +147,7 @@ def exchange_conditions(
             c.ASSUMED_AV_DIFFERENCE_ML_DL if av_difference_ml_dl is None else av_difference_ml_dl
         ),
         av_difference_measured=av_difference_ml_dl is not None,
+        av_difference_range_ml_dl=(avd_low, avd_high),
         assumed_paco2_mmhg=assumed_paco2_mmhg,
         affinity=affinity,
         hufner_ml_per_g=hufner_ml_per_g,

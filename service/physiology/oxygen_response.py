@@ -73,7 +73,6 @@ from service.physiology.oxygen_affinity import (
     standard_saturation_slope,
 )
 from service.physiology.oxygen_exchange import (
-    AV_DIFFERENCE_SENSITIVITY_ML_DL,
     HAEMOGLOBIN_SENSITIVITY_G_DL,
     MIN_END_CAPILLARY_PO2_MMHG,
     PACO2_SENSITIVITY_MMHG,
@@ -1106,7 +1105,7 @@ def _sensitivities(
     odds, drop = solution.odds, solution.drop
     avd = conditions.av_difference_ml_dl
     if not conditions.av_difference_measured:
-        low, high = AV_DIFFERENCE_SENSITIVITY_ML_DL
+        low, high = conditions.av_difference_range_ml_dl
         out.append(
             Sensitivity(
                 "av_difference_ml_dl",

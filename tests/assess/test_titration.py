@@ -216,6 +216,22 @@ def test_the_shunt_range_is_widened_exactly_over_the_assumed_av_difference() -> 
     assert "a-v difference" in bounds.widened_by[0] and len(bounds.widened_by) == 1  # Hb sent
 
 
+def test_a_sites_av_difference_range_is_the_one_the_fit_states_and_the_rules_read() -> None:
+    # One range, one owner: the sensitivity shown with the fit and the widened range the
+    # rules grade on both vary the assumed a-v difference over the site's range.
+    record = intake(*_steps(0.20, 10.0, (0.21, 0.28, 0.35, 0.50, 0.60), gas_at=(0, 2, 4)))
+    for site_range in ((4.0, 6.0), (3.0, 8.0)):
+        settings = Settings(av_difference_range_ml_dl=site_range)
+        found = _titration(record, settings=settings)
+        assert found is not None and found.response.two_parameter is not None
+        fit, bounds = found.response.two_parameter, found.shunt
+        (avd,) = [s for s in fit.sensitivities if s.assumption == "av_difference_ml_dl"]
+        assert (avd.low_value, avd.high_value) == site_range
+        assert bounds is not None
+        assert bounds.most >= avd.shunt_at_low and bounds.least <= avd.shunt_at_high
+        assert f"a-v difference {site_range[0]:g}–{site_range[1]:g} mL/dL" in bounds.widened_by
+
+
 def test_the_vq_term_is_compared_with_the_healthy_lung_of_the_age_or_every_age() -> None:
     record = intake(*_steps(0.05, 60.0, (0.21, 0.24, 0.28, 0.31), gas_at=(0, 3)))
     known = _titration(record)

@@ -10,6 +10,7 @@ import numpy as np
 import pytest
 from scipy.optimize import least_squares
 
+from service.exceptions import ImpossibleValueError
 from service.physiology.gas_exchange import alveolar_po2_mmhg
 from service.physiology.oxygen_content import (
     end_capillary_content_ml_dl,
@@ -18,6 +19,7 @@ from service.physiology.oxygen_content import (
 )
 from service.physiology.oxygen_exchange import (
     STANDARD_CONDITIONS,
+    ExchangeConditions,
     exchange_conditions,
     predict_arterial_oxygen,
 )
@@ -357,8 +359,8 @@ def test_points_with_their_own_blood_gas_chemistry_use_their_own_curve() -> None
 
 
 def test_the_av_difference_assumption_moves_the_shunt_exactly_as_stated() -> None:
-    # The a-v difference enters only as odds × avd: refitting with avd 3.5 and 6.5 gives the
-    # shunts the sensitivity states, and the same ΔPO2.
+    # The a-v difference enters only as odds × avd: refitting with avd at the range's ends
+    # (3.5 and 7 mL/dL) gives the shunts the sensitivity states, and the same ΔPO2.
     points = generated_points(shunt=0.15, vq_drop_mmhg=40.0, fio2s=GAS_FIO2S)
     fit = fit_oxygen_response(points=points).two_parameter
     assert fit is not None
@@ -371,6 +373,23 @@ def test_the_av_difference_assumption_moves_the_shunt_exactly_as_stated() -> Non
         assert refit is not None
         assert refit.shunt.value == pytest.approx(stated, abs=1e-5)
         assert refit.vq_drop_mmhg.value == pytest.approx(fit.vq_drop_mmhg.value, abs=0.01)
+
+
+def test_the_av_difference_is_varied_over_the_conditions_range_and_a_bad_range_refused() -> None:
+    points = generated_points(shunt=0.15, vq_drop_mmhg=40.0, fio2s=GAS_FIO2S)
+    conditions = exchange_conditions(av_difference_range_ml_dl=(4.0, 6.0))
+    fit = fit_oxygen_response(points=points, conditions=conditions).two_parameter
+    assert fit is not None
+    (avd,) = [s for s in fit.sensitivities if s.assumption == "av_difference_ml_dl"]
+    assert (avd.low_value, avd.high_value) == (4.0, 6.0)
+    # The shunt equation: odds' = odds x avd / avd' (exact), checked without the code's helper.
+    odds = fit.shunt.value / (1.0 - fit.shunt.value)
+    assert avd.shunt_at_low == pytest.approx(odds * 5.0 / 4.0 / (1.0 + odds * 5.0 / 4.0))
+    assert avd.shunt_at_high == pytest.approx(odds * 5.0 / 6.0 / (1.0 + odds * 5.0 / 6.0))
+    assert ExchangeConditions().av_difference_range_ml_dl == (3.5, 7.0)  # common practice
+    for bad in ((6.0, 4.0), (0.1, 5.0), (4.0, 20.0)):
+        with pytest.raises(ImpossibleValueError, match="av_difference_range_ml_dl"):
+            exchange_conditions(av_difference_range_ml_dl=bad)
 
 
 def test_the_haemoglobin_and_paco2_assumptions_are_linearised_faithfully() -> None:
@@ -431,7 +450,6 @@ def test_the_model_itself_round_trips_through_the_fit() -> None:
 
 
 def test_impossible_fit_settings_are_refused() -> None:
-    from service.exceptions import ImpossibleValueError
 
     with pytest.raises(ImpossibleValueError, match="spo2_sd"):
         fit_oxygen_response(points=[], spo2_sd=0.0)
@@ -465,7 +483,6 @@ def test_a_points_curve_moves_with_its_ph_from_the_bloods_own_standard_p50() -> 
 
 
 def test_a_rule_set_may_tighten_the_identifiability_limits() -> None:
-    from service.exceptions import ImpossibleValueError
     from service.physiology.oxygen_response import IdentifiabilityLimits
 
     points = generated_points(
