@@ -200,69 +200,72 @@ class _FittedCurve:
 def _lowest_fio2_reaching(
     curve: _FittedCurve, grid: list[tuple[float, _Values]], target: float, which: int
 ) -> float | None:
-    """The lowest FiO2 in 0.21–1.0 whose predicted saturation (``which``) reaches ``target``:
-    bracketed on the grid, refined by false position (Illinois variant) and rounded up to the
-    next 0.001. None if FiO2 1.0 does not reach it."""
-    previous: tuple[float, float] | None = None
-    for fio2, values in grid:
+    """The lowest FiO2 in 0.21–1.0 whose predicted saturation (``which``) reaches ``target``,
+    on the 0.001 grid the answer is given to (rounded up, so that the FiO2 given still reaches
+    it); None if FiO2 1.0 does not. Bracketed on the curve's grid, then searched for on the
+    0.001 grid (``_lowest_step_reaching``)."""
+    for i, (fio2, values) in enumerate(grid):
         if values[which] >= target:
-            if previous is None:
+            if i == 0:
                 return fio2
-            above = (fio2, values[which])
-            reaching = _refine(curve, previous, above, target, which, values[3])
-            return _up_to_tolerance(curve, reaching, previous[0], target, which, values[3])
-        previous = (fio2, values[which])
+            return _lowest_step_reaching(curve, grid, i, target, which)
     return None
 
 
-def _up_to_tolerance(
-    curve: _FittedCurve, reaching: float, below: float, target: float, which: int, pao2: float
-) -> float:
-    """Round ``reaching`` (a FiO2 that reaches the target, near the root) up to the next 0.001,
-    so that the FiO2 given still reaches the target, then step down by 0.001 while the step
-    under it reaches the target too (the refinement stops up to half a step above the root):
-    the answer is the lowest FiO2 on the 0.001 grid that reaches it. ``below``: a FiO2 that
-    does not."""
-    steps = math.ceil(round(reaching / _FIO2_TOLERANCE, 6))
-    while (lower := (steps - 1) * _FIO2_TOLERANCE) > below:
-        if curve.saturation(lower, which, pao2)[0] < target:
-            break
-        steps -= 1
-    return min(FIO2_LIMITS[1], steps * _FIO2_TOLERANCE)
+def _logit(saturation: float) -> float:
+    """ln(S / (1 − S)): the saturation on a scale where its rise with FiO2 is nearly straight
+    (the Hill plot's); ±inf at a saturation of 1 or 0."""
+    if saturation <= 0.0 or saturation >= 1.0:
+        return math.copysign(math.inf, saturation - 0.5)
+    return math.log(saturation / (1.0 - saturation))
 
 
-def _refine(
-    curve: _FittedCurve,
-    below: tuple[float, float],
-    above: tuple[float, float],
-    target: float,
-    which: int,
-    pao2: float,
+def _lowest_step_reaching(
+    curve: _FittedCurve, grid: list[tuple[float, _Values]], i: int, target: float, which: int
 ) -> float:
-    (f_lo, s_lo), (f_hi, s_hi) = below, above
-    g_lo, g_hi = s_lo - target, s_hi - target
+    """The lowest multiple of 0.001 between grid points i − 1 (which does not reach
+    ``target``) and i (which does) whose saturation reaches it.
+
+    Steps are counted as whole numbers: ``low`` does not reach, ``high`` does, and the search
+    ends when they are neighbours, so the answer is exact whatever the probes. Each probe is
+    the step at or above where the straight line between the two ends reaches the target
+    (false position, Illinois variant: an end kept twice running has its distance from the
+    target halved; Dowell M & Jarratt P, BIT 1971;11:168), kept strictly between them, so that
+    a probe just below a reaching end checks it in one solve. The line is drawn on the logit
+    of the saturation, where its rise with FiO2 is nearly straight, or on the saturation
+    itself where a logit is not finite (a range edge held at full or no saturation). Two or
+    three solves, mostly, against seven for bisection.
+    """
+    (below, lower), (above, upper) = grid[i - 1], grid[i]
+    low = math.floor(round(below / _FIO2_TOLERANCE, 6))
+    high = math.ceil(round(above / _FIO2_TOLERANCE, 6))
+    scale = _logit if math.isfinite(_logit(lower[which]) + _logit(upper[which])) else _same
+    goal = scale(target)
+    if not math.isfinite(goal):
+        scale, goal = _same, target
+    x_low, x_high = below / _FIO2_TOLERANCE, above / _FIO2_TOLERANCE
+    g_low, g_high = scale(lower[which]) - goal, scale(upper[which]) - goal
+    pao2 = upper[3]
     side = 0
-    for _ in range(30):
-        if f_hi - f_lo <= _FIO2_TOLERANCE / 2.0:
-            break
-        f_new = (f_lo * g_hi - f_hi * g_lo) / (g_hi - g_lo)
-        if not f_lo < f_new < f_hi:
-            f_new = (f_lo + f_hi) / 2.0
-        saturation, pao2 = curve.saturation(f_new, which, pao2)
-        g_new = saturation - target
-        if g_new >= 0.0:
-            f_hi, g_hi = f_new, g_new
+    while high - low > 1:
+        guess = x_low - g_low * (x_high - x_low) / (g_high - g_low)
+        step = min(max(math.ceil(round(guess, 6)), low + 1), high - 1)
+        saturation, pao2 = curve.saturation(step * _FIO2_TOLERANCE, which, pao2)
+        if saturation >= target:
+            high, x_high, g_high = step, step, scale(saturation) - goal
             if side == -1:
-                g_lo /= 2.0
+                g_low /= 2.0
             side = -1
         else:
-            f_lo, g_lo = f_new, g_new
+            low, x_low, g_low = step, step, scale(saturation) - goal
             if side == 1:
-                g_hi /= 2.0
+                g_high /= 2.0
             side = 1
-        if abs(g_new) < 1e-7:
-            return f_new if g_new >= 0.0 else f_hi
-    return f_hi
+    return min(FIO2_LIMITS[1], high * _FIO2_TOLERANCE)
+
+
+def _same(saturation: float) -> float:
+    return saturation
 
 
 def _fio2_for_target(
