@@ -31,7 +31,7 @@ from .pairing import SETTINGS, PairedGas, Pairing, Windows, pair_gases
 from .presentation import PressureUnit, display_units
 from .result import Assessment, Finding, GasResult, MechanismVerdict, ResultStatus
 from .serial import serial_facts
-from .titration import TitrationRules, assess_titration
+from .titration import TitrationRules, assess_titration, record_points
 from .trend import assessment_trend
 from .uncertainty import input_ranges
 
@@ -261,14 +261,25 @@ def assess(
     if raised is not None:
         index = gases[0] = with_fio2_raised(index, raised, settings=settings)
     chosen = titration_rules(ruleset)
-    titration = assess_titration(
+    points = record_points(
         intake,
-        index=index.facts,
-        index_time=index.gas.time,
         windows=paired_within,
         settings=settings,
         rules=chosen,
         by_quantity=pairing.by_quantity,
+    )
+    titration = (
+        assess_titration(
+            intake,
+            index=index.facts,
+            index_time=index.gas.time,
+            windows=paired_within,
+            settings=settings,
+            rules=chosen,
+            points=points,
+        )
+        if points is not None
+        else None
     )
     intake_findings = [
         Finding(i.code, Severity(i.severity.value), i.message, expression=i.expression)
@@ -339,5 +350,6 @@ def assess(
             windows=paired_within,
             settings=settings,
             rules=chosen,
+            points=points,
         ),
     )

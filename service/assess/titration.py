@@ -79,10 +79,12 @@ __all__ = [
     "FITTED_FACTS",
     "SETTING_QUANTITIES",
     "Bounds",
+    "RecordPoints",
     "Titration",
     "TitrationRules",
     "assess_titration",
     "point_times",
+    "record_points",
     "window_end",
 ]
 
@@ -289,8 +291,13 @@ class _Settings:
     titration asks this twice per point; pairing each point like a gas would sort every
     kind of value each time."""
 
-    def __init__(self, by_quantity: ByQuantity, windows: Windows) -> None:
+    def __init__(self, by_quantity: ByQuantity, windows: Windows, settings: Settings) -> None:
         self.windows = windows
+        self.settings = settings
+        # The FiO2 each combination of settings in force gives, worked out once: a titration
+        # asks for it twice per point, mostly of the same few settings. Keyed by the identity
+        # of the measurements chosen, which this object's lists keep alive while it lives.
+        self._inspired: dict[tuple[int, ...], tuple[InspiredOxygen | None, tuple[Source, ...]]] = {}
         self.timed: dict[Quantity, tuple[list[datetime], list[Measurement]]] = {}
         self.untimed: dict[Quantity, Measurement] = {}
         for quantity in SETTING_QUANTITIES:
@@ -322,6 +329,14 @@ class _Settings:
                 gas.values[quantity] = chosen
         return gas
 
+    def inspired(self, gas: PairedGas) -> tuple[InspiredOxygen | None, tuple[Source, ...]]:
+        """``_inspired`` of settings in force (``at``), with the sources it was read from."""
+        key = tuple(map(id, gas.values.values()))
+        found = self._inspired.get(key)
+        if found is None:
+            found = self._inspired[key] = _inspired(gas, self.settings)
+        return found
+
 
 def _number(m: Measurement | None) -> float | None:
     return m.value if m is not None and isinstance(m.value, float) else None
@@ -349,7 +364,7 @@ def _settled(
     settle = timedelta(minutes=settings.titration_settle_minutes)
     if settle <= timedelta(0):
         return None
-    before, _ = _inspired(index.at(time - settle), settings)
+    before, _ = index.inspired(index.at(time - settle))
     if before is None or abs(before.fio2 - inspired.fio2) <= SAME_STEP_FIO2:
         return None
     return (
@@ -362,17 +377,17 @@ def _candidates(
     by_quantity: ByQuantity, windows: Windows, settings: Settings, rules: TitrationRules
 ) -> list[_Candidate]:
     found: list[_Candidate] = []
-    index = _Settings(by_quantity, windows)
+    index = _Settings(by_quantity, windows, settings)
     for quantity in (_Q.ARTERIAL_PO2, _Q.SPO2):
         for m in by_quantity.get(quantity, []):
             if m.time is None or not isinstance(m.value, float):
                 continue
             paired = index.at(m.time)
             paired.anchor = m
+            inspired, inputs = index.inspired(paired)
             if quantity is _Q.ARTERIAL_PO2:
                 blood = pair_at(m, by_quantity, windows, only=_BLOOD_QUANTITIES)
                 paired.values.update(blood.values)
-            inspired, inputs = _inspired(paired, settings)
             reason: str | None = None
             if inspired is None:
                 reason = "no FiO2 known for it"
@@ -402,21 +417,28 @@ def _point(candidate: _Candidate) -> TitrationPoint | str:
     takes). A gas's PaCO2 or pH outside it is left aside, the PaO2 kept."""
     m, inspired = candidate.measurement, candidate.inspired
     assert inspired is not None and m.time is not None and isinstance(m.value, float)
-    try:
-        if m.quantity is _Q.SPO2:
-            return TitrationPoint(m.time, inspired, spo2=m.value, reference=m.source.reference)
-        bare = TitrationPoint(m.time, inspired, pao2_mmhg=m.value, reference=m.source.reference)
-    except ValueError as error:  # ImpossibleValueError among them
-        return f"outside what the model takes ({error})"
+    reference = m.source.reference
+    if m.quantity is _Q.SPO2:
+        try:
+            return TitrationPoint(m.time, inspired, spo2=m.value, reference=reference)
+        except ValueError as error:  # ImpossibleValueError among them
+            return f"outside what the model takes ({error})"
     paired = candidate.paired
     try:
-        return replace(
-            bare,
+        return TitrationPoint(
+            m.time,
+            inspired,
+            pao2_mmhg=m.value,
             paco2_mmhg=_number(paired.get(_Q.ARTERIAL_PCO2)),
             ph=_number(paired.get(_Q.ARTERIAL_PH)),
+            reference=reference,
         )
-    except ValueError:
-        return bare
+    except ValueError:  # a PaCO2 or pH the model does not take is left aside (or the PaO2:
+        pass  # the bare point says which)
+    try:
+        return TitrationPoint(m.time, inspired, pao2_mmhg=m.value, reference=reference)
+    except ValueError as error:
+        return f"outside what the model takes ({error})"
 
 
 def _dropped(candidate: _Candidate, reason: str) -> LeftOut:
@@ -457,6 +479,35 @@ def _sorted_out(
         else:
             left_out.append(_dropped(candidate, point))
     return kept, kept_candidates, left_out
+
+
+@dataclass(frozen=True, slots=True)
+class RecordPoints:
+    """The record's SpO2 and arterial PO2 sorted out as titration points once (kept, with
+    their candidates, and left out), for every titration of one assessment to start from:
+    the index gas's and the trend's, one per gas."""
+
+    kept: list[TitrationPoint]
+    candidates: list[_Candidate]
+    left_out: list[LeftOut]
+
+
+def record_points(
+    intake: Intake,
+    *,
+    windows: Windows,
+    settings: Settings,
+    rules: TitrationRules,
+    by_quantity: ByQuantity | None = None,
+) -> RecordPoints | None:
+    """The record's points (``RecordPoints``); None, with nothing paired, when the record
+    cannot hold a titration: fewer than two SpO2 and PaO2 values, or one oxygen setting.
+    ``by_quantity``: the intake's usable measurements by quantity, when the caller has them."""
+    grouped = by_quantity if by_quantity is not None else group_measurements(intake)[0]
+    spo2s, gases = grouped.get(_Q.SPO2, []), grouped.get(_Q.ARTERIAL_PO2, [])
+    if len(spo2s) + len(gases) < 2 or _one_setting(grouped, settings):
+        return None
+    return RecordPoints(*_sorted_out(grouped, windows, settings, rules))
 
 
 def point_times(
@@ -680,6 +731,7 @@ def assess_titration(
     by_quantity: ByQuantity | None = None,
     ending_at_index: bool = False,
     predict: bool = True,
+    points: RecordPoints | None = None,
 ) -> Titration | None:
     """The titration in ``intake`` around the index gas (facts ``index``, taken at
     ``index_time``), fitted; None when its points do not lie on two or more FiO2 levels.
@@ -687,13 +739,16 @@ def assess_titration(
     ``by_quantity``: the intake's usable measurements by quantity, when the caller has them.
     ``ending_at_index``: the window ends at the index gas (for the trend, one titration per
     gas) rather than at the latest point up to one window after it. ``predict``: whether to
-    compute the predictions.
+    compute the predictions. ``points``: the record's points (``record_points``), when the
+    caller has them (then ``intake`` and ``by_quantity`` are not read).
     """
-    grouped = by_quantity if by_quantity is not None else group_measurements(intake)[0]
-    spo2s, gases = grouped.get(_Q.SPO2, []), grouped.get(_Q.ARTERIAL_PO2, [])
-    if len(spo2s) + len(gases) < 2 or _one_setting(grouped, settings):
-        return None
-    kept, kept_candidates, left_out = _sorted_out(grouped, windows, settings, rules)
+    if points is None:
+        points = record_points(
+            intake, windows=windows, settings=settings, rules=rules, by_quantity=by_quantity
+        )
+        if points is None:
+            return None
+    kept, kept_candidates, left_out = points.kept, points.candidates, points.left_out
     if _levels(kept) < 2:
         return None
     window = timedelta(minutes=settings.titration_window_minutes)

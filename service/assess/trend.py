@@ -25,7 +25,7 @@ from service.physiology.oxygenation_trend import (
 
 from .derive import GasFacts
 from .pairing import Windows
-from .titration import Titration, TitrationRules, assess_titration
+from .titration import RecordPoints, Titration, TitrationRules, assess_titration
 
 __all__ = ["assessment_trend"]
 
@@ -38,11 +38,15 @@ def _fitted(
     rules: TitrationRules,
     index: Titration | None,
     is_index: bool,
+    points: RecordPoints | None,
 ) -> tuple[float | None, float | None]:
     """(shunt, ΔPO2) of the two-parameter fit of the titration ending at ``gas`` (None, None
-    when there is none or it is refused)."""
+    when there is none or it is refused); ``points``: the record's points, None when it cannot
+    hold a titration."""
     if is_index:  # the assessment's own titration, around the index gas
         titration: Titration | None = index
+    elif points is None:
+        titration = None
     else:
         titration = assess_titration(
             intake,
@@ -53,6 +57,7 @@ def _fitted(
             rules=rules,
             ending_at_index=True,
             predict=False,
+            points=points,
         )
     fit = titration.response.two_parameter if titration is not None else None
     if fit is None:
@@ -68,9 +73,12 @@ def assessment_trend(
     windows: Windows,
     settings: Settings,
     rules: TitrationRules,
+    points: RecordPoints | None,
 ) -> OxygenationTrend | None:
     """The trend of the arterial gases (index first in ``gases``), or None with fewer than
-    three gases on a known FiO2."""
+    three gases on a known FiO2. ``points``: the record's titration points
+    (``titration.record_points``: sorted out once for every fit; None when the record cannot
+    hold a titration)."""
     arterial = [
         g
         for g in gases
@@ -90,7 +98,7 @@ def assessment_trend(
         admixture = g.number("venous_admixture")
         shunt = drop = None
         if last_fitted is None or last_fitted - time > window:
-            shunt, drop = _fitted(g, intake, windows, settings, rules, titration, i == 0)
+            shunt, drop = _fitted(g, intake, windows, settings, rules, titration, i == 0, points)
             last_fitted = time
         summaries.append(
             GasSummary(

@@ -18,7 +18,7 @@ import pytest
 from service.assess import trend
 from service.assess.assess import windows
 from service.assess.derive import GasFacts
-from service.assess.titration import TitrationRules
+from service.assess.titration import TitrationRules, record_points
 from service.config import Settings
 from service.intake.model import Intake
 from service.intake.model import Quantity as Q
@@ -93,6 +93,10 @@ def test_fitted_values_come_from_windows_that_do_not_overlap(
     assert _at(260.0) - _at(140.0) == timedelta(minutes=WINDOW_MINUTES)
     assert [g.number("fio2") is None for g in _latest_first(record)][-1]
     recorder = Recorder({_at(60.0): _fit(0.10, 20.0), _at(140.0): _fit(0.30, 60.0)})
+    points = record_points(
+        record, windows=windows(SETTINGS), settings=SETTINGS, rules=TitrationRules()
+    )
+    assert points is not None
     monkeypatch.setattr(trend, "assess_titration", recorder)
     found = trend.assessment_trend(
         _latest_first(record),
@@ -101,6 +105,7 @@ def test_fitted_values_come_from_windows_that_do_not_overlap(
         windows=windows(SETTINGS),
         settings=SETTINGS,
         rules=TitrationRules(),
+        points=points,
     )
     assert found is not None
     # One titration fitted beside the index's own, ending at its gas, without predictions.
@@ -113,6 +118,7 @@ def test_fitted_values_come_from_windows_that_do_not_overlap(
             "rules": TitrationRules(),
             "ending_at_index": True,
             "predict": False,
+            "points": points,  # the record's points, sorted out once for every fit
         }
     ]
     assert _measure(found, "shunt").series == ((_at(60.0), 0.10), (_at(260.0), 0.20))
@@ -146,5 +152,8 @@ def test_a_course_needs_three_arterial_gases(
         windows=windows(SETTINGS),
         settings=SETTINGS,
         rules=TitrationRules(),
+        points=record_points(
+            record, windows=windows(SETTINGS), settings=SETTINGS, rules=TitrationRules()
+        ),
     )
     assert (found is not None) is shown
