@@ -92,6 +92,8 @@ AREAS: dict[str, tuple[tuple[str, ...], tuple[str, ...]]] = {
         (
             "tests/assess",
             "tests/test_fixtures.py",
+            # the titration scenarios end to end: points, fit, facts and grades
+            "tests/test_titration_fixtures.py",
             "tests/engine/test_catalogue.py",
             # a site's declared finding codes, whose `about` the assessment maps (about_data)
             "tests/engine/test_declared_findings.py",
