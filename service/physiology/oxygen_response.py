@@ -1177,7 +1177,11 @@ def _moved(
 # --- the odds range between slices -------------------------------------------------------------
 
 _GOLDEN_SECTION = (math.sqrt(5.0) - 1.0) / 2.0
-_REFINE_STEPS = 12  # golden-section steps: two slice intervals shrink to 0.3 % of themselves
+# Golden-section steps: two slice intervals shrink to 5.6 % of themselves. The end sought is a
+# maximum, flat where it is found, so the odds found are within about 3e-6 of the shunt's end
+# (300 random titrations; twelve steps gave the same to 0.1 %): finer than the ΔPO2 range's
+# own bracketing (1/64 of its bracket) and than the 0.1 % shown.
+_REFINE_STEPS = 6
 
 
 def _refined_odds(
