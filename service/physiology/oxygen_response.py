@@ -608,23 +608,12 @@ class _ContentSpace:
         From the least-squares ``estimate`` (odds, ΔPO2) the ΔPO2 range is bracketed by steps
         that double from 5 mmHg, each end then bisected to within 1/64 of its bracket; the
         odds range is the hull of parabola slices across it, each end refined between slices
-        (``_refined_odds``). Both ranges hold the estimate.
+        (``_odds_range``). Both ranges hold the estimate.
         """
         odds_est, drop_est = estimate
         drop_low = self._edge(threshold, drop_est, 0.0)
         drop_high = self._edge(threshold, drop_est, max_drop)
-        odds_low, odds_high = odds_est, odds_est
-        for i in range(_RANGE_SLICES + 1):
-            values = self.at(drop_low + (drop_high - drop_low) * i / _RANGE_SLICES)
-            if values is None:
-                continue
-            odds_u, chi2_u, curvature, odds_max = values
-            if chi2_u > threshold:
-                continue
-            half = math.sqrt((threshold - chi2_u) / curvature)
-            odds_low = min(odds_low, max(0.0, odds_u - half))
-            odds_high = max(odds_high, min(odds_max, odds_u + half))
-        return _refined_odds(self, threshold, (drop_low, drop_high), (odds_low, odds_high))
+        return _odds_range(self, threshold, (drop_low, drop_high), odds_est)
 
     def _inside(self, drop: float, threshold: float) -> bool:
         values = self.profile(drop)
@@ -1184,13 +1173,15 @@ _GOLDEN_SECTION = (math.sqrt(5.0) - 1.0) / 2.0
 _REFINE_STEPS = 6
 
 
-def _refined_odds(
+def _odds_range(
     space: _ContentSpace,
     threshold: float,
     drops: tuple[float, float],
-    odds: tuple[float, float],
+    odds_estimate: float,
 ) -> tuple[tuple[float, float], tuple[float, float]]:
-    """The odds range of ``_ContentSpace.ranges`` with each end refined between slices.
+    """The odds range of ``_ContentSpace.ranges`` over the ΔPO2 range ``drops``: the hull of
+    the estimate and of the region's parabola slices at evenly spaced ΔPO2s across it, each
+    end then refined between slices.
 
     The hull of evenly spaced slices misses an end that lies between two of them: where the
     region is tilted its extreme odds sit near a narrow tip, and the slices' hull was up to a
@@ -1198,10 +1189,7 @@ def _refined_odds(
     golden section over the two slice intervals beside the slice that holds it.
     """
     drop_low, drop_high = drops
-    odds_low, odds_high = odds
     step = (drop_high - drop_low) / _RANGE_SLICES
-    if step <= 0.0:
-        return odds, drops
 
     def ends(drop: float) -> tuple[float, float] | None:
         """(low, high) odds of the region's slice at ``drop``; None off the region."""
@@ -1217,6 +1205,10 @@ def _refined_odds(
         slice_ends = ends(drop_low + step * i)
         if slice_ends is not None:
             cached[drop_low + step * i] = slice_ends
+    odds_low = min([odds_estimate, *(low for low, _ in cached.values())])
+    odds_high = max([odds_estimate, *(high for _, high in cached.values())])
+    if step <= 0.0:
+        return (odds_low, odds_high), drops
     for k in (0, 1):
         sign = 1.0 if k else -1.0  # outwards: the low end down, the high end up
 
