@@ -216,3 +216,34 @@ def test_the_shunt_range_ends_are_the_regions_between_and_beyond_its_slices(name
     odds_high = float(brentq(above_odds, fit.shunt_odds, 4.0, xtol=1e-12))
     assert fit.shunt.low == pytest.approx(odds_low / (1.0 + odds_low), abs=1e-4)
     assert fit.shunt.high == pytest.approx(odds_high / (1.0 + odds_high), abs=1e-4)
+
+
+def test_the_shunt_range_is_the_regions_over_the_vq_term_range_reported() -> None:
+    # Four gases (one severely hypoxaemic on air) whose region ends at the service's largest
+    # ΔPO2 (1 mmHg short of the steady-state edge, docs/oxygen-response.md), where the shunt's
+    # least value lies. The shunt's range is the region's over the ΔPO2 range the fit reports
+    # (scipy's profile over ΔPO2 from 0 to its upper end): a slice beyond that end, outside
+    # the parameters' limits, may not widen it.
+    points = [
+        TitrationPoint(START + timedelta(minutes=10 * i), inspired(f), pao2_mmhg=v, paco2_mmhg=40.0)
+        for i, (f, v) in enumerate(
+            ((0.21, 16.7226), (0.25, 45.9206), (0.3, 75.286), (0.8, 356.7497))
+        )
+    ]
+    fit = fit_oxygen_response(points=points).two_parameter
+    assert fit is not None
+    rows = ref.content_rows(points)
+    dof = fit.degrees_of_freedom
+    inflation = max(1.0, fit.chi_square / dof) if dof > 0 else 1.0
+    drop = fit.vq_drop_mmhg.value
+    threshold = ref.content_profile_over_odds(rows, drop) + DELTA_95 * inflation
+    edge = float(brentq(lambda d: ref.largest_odds(rows, d), drop, drop + 200.0, xtol=1e-9))
+    assert edge - 1.2 < fit.vq_drop_mmhg.high < edge - 1.0  # the region reaches the limit
+
+    def above_odds(o: float) -> float:
+        return ref.content_profile_over_drop(rows, o, fit.vq_drop_mmhg.high) - threshold
+
+    odds_low = float(brentq(above_odds, 0.0, fit.shunt_odds, xtol=1e-12))
+    odds_high = float(brentq(above_odds, fit.shunt_odds, 4.0, xtol=1e-12))
+    assert fit.shunt.low == pytest.approx(odds_low / (1.0 + odds_low), abs=1e-6)
+    assert fit.shunt.high == pytest.approx(odds_high / (1.0 + odds_high), abs=1e-6)
