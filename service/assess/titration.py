@@ -128,7 +128,7 @@ def _fitted(
 
 
 _Qk, _Bk, _Ck = FactKind.QUANTITY, FactKind.BOOLEAN, FactKind.CODE
-_COUNT = (0.0, 1000.0)
+_COUNT = (0.0, float(MAX_POINTS))  # a fit takes at most MAX_POINTS points
 _PERCENT = (0.0, 100.0)
 _DROP = (0.0, 700.0)
 _EXCESS = (-700.0, 700.0)
