@@ -285,13 +285,15 @@ def _sensitivity(fit: ModelFit, assumption: str) -> Sensitivity:
     return found
 
 
-def test_the_fit_reports_an_assumed_av_difference_at_3_5_and_6_5_exactly() -> None:
+def test_the_fit_reports_an_assumed_av_difference_at_3_5_and_7_exactly() -> None:
     # 3.5 mL/dL, the "estimated shunt" equations' value for the critically ill, to a low-output
-    # 6.5 mL/dL (common practice; docs/oxygen-response.md). The shunt enters only as odds ×
-    # avd, so each edge is exactly the fit made with that a-v difference measured.
+    # 7 mL/dL (common practice; docs/oxygen-response.md), the range the site's settings hold
+    # by default. The shunt enters only as odds × avd, so each edge is exactly the fit made
+    # with that a-v difference measured.
     av = _sensitivity(_fitted(("pao2", "spo2")), "av_difference_ml_dl")
     assert av.method == "exact"
-    for avd, shunt in ((3.5, av.shunt_at_low), (6.5, av.shunt_at_high)):
+    assert (av.low_value, av.high_value) == (3.5, 7.0)
+    for avd, shunt in ((3.5, av.shunt_at_low), (7.0, av.shunt_at_high)):
         refit = _fitted(("pao2", "spo2"), av_difference_ml_dl=avd)
         assert shunt == pytest.approx(refit.shunt.value, rel=1e-6)
 
