@@ -120,9 +120,7 @@ def test_a_reading_before_the_first_setting_takes_it_up_to_exactly_the_pairing_w
     assert found is not None and found.left_out == []
 
 
-def test_an_untimed_setting_counts_as_a_second_setting_and_is_paired_when_no_timed_one_is() -> (
-    None
-):
+def test_an_untimed_setting_counts_as_a_second_setting_and_is_paired_when_no_timed_one_is() -> None:
     # Room air charted without a time and one timed FiO2 of 0.35: two settings, so the record
     # can hold a titration; a reading far from the timed FiO2 takes the untimed one.
     record = intake(
@@ -156,7 +154,7 @@ def test_a_reading_without_a_time_is_neither_a_point_nor_left_out() -> None:
 
 def test_an_spo2_at_the_oximeters_lower_limit_is_kept_and_one_below_is_left_out() -> None:
     # Pulse oximeters are specified from 70 % SpO2 upwards (ISO 80601-2-61:2017, accuracy
-    # over 70-100 %); the rule set's limit is the lowest value still specified.
+    # over 70-100 %, from memory); the rule set's limit is the lowest value still specified.
     rules = TitrationRules()
     assert rules.oximeter_low == 0.70
     record = intake(
