@@ -39,7 +39,7 @@ from service.exceptions import PhysiologyError
 from service.intake.model import Fio2Source as IntakeFio2Source
 from service.intake.model import Intake, Measurement, Quantity, Source
 from service.physiology import constants as c
-from service.physiology.oxygen_content import oxygen_content_ml_dl
+from service.physiology.oxygen_content import fractional_saturation, oxygen_content_ml_dl
 from service.physiology.oxygen_exchange import (
     SHUNT_LIMITS,
     ExchangeConditions,
@@ -62,15 +62,16 @@ from service.physiology.oxygen_response import (
 )
 from service.physiology.reference import vq_drop_upper_limit_range_mmhg
 from service.physiology.titration import (
-    SAME_STEP_FIO2,
     DroppedPoint,
     Fio2Source,
     InspiredOxygen,
     MeasuredKind,
     TitrationPoint,
     TitrationSeries,
+    same_fio2_step,
     select_titration_points,
 )
+from service.physiology.units import from_fact_unit
 
 from .pairing import ByQuantity, PairedGas, Windows, group_measurements, pair_at
 from .sources import choose_inspired_oxygen
@@ -365,7 +366,7 @@ def _settled(
     if settle <= timedelta(0):
         return None
     before, _ = index.inspired(index.at(time - settle))
-    if before is None or abs(before.fio2 - inspired.fio2) <= SAME_STEP_FIO2:
+    if before is None or same_fio2_step(before.fio2, inspired.fio2):
         return None
     return (
         f"taken less than {settings.titration_settle_minutes:g} min after the FiO2 changed "
@@ -534,13 +535,23 @@ def _conditions(index: dict[str, FactValue], settings: Settings) -> ExchangeCond
         value = index.get(name)
         return value if isinstance(value, float) else None
 
+    def fraction(name: str) -> float:
+        value = number(name)
+        return 0.0 if value is None else from_fact_unit(value, "%")
+
     hb = number("haemoglobin")
     avd: float | None = None
     content, svo2 = number("arterial_o2_content"), number("mixed_venous_so2")
     if hb is not None and content is not None and svo2 is not None:
+        # COHb and MetHb carry no oxygen, in mixed venous blood as in the arterial content
+        # (``admixture.arterial_o2_content``): the saturation is taken of the rest.
         venous = oxygen_content_ml_dl(
             haemoglobin_g_dl=hb,
-            saturation=svo2 / 100.0,
+            saturation=fractional_saturation(
+                functional_saturation=fraction("mixed_venous_so2"),
+                carboxyhaemoglobin=fraction("carboxyhaemoglobin"),
+                methaemoglobin=fraction("methaemoglobin"),
+            ),
             po2_mmhg=number("mixed_venous_po2") or c.NORMAL_MIXED_VENOUS_PO2_MMHG,
             hufner_ml_per_g=settings.hufner_ml_per_g,
         )
@@ -627,7 +638,7 @@ def _levels(points: list[TitrationPoint]) -> int:
     count = 0
     last = -1.0
     for f in fio2s:
-        if f - last > SAME_STEP_FIO2:
+        if not same_fio2_step(f, last):
             count += 1
             last = f
     return count

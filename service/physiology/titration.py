@@ -246,11 +246,15 @@ def _merge_oximetry_steps(points: list[TitrationPoint]) -> list[TitrationPoint]:
     return sorted(out, key=lambda p: p.time)
 
 
+def same_fio2_step(a: float, b: float) -> bool:
+    """Whether two FiO2s are one step: no more than ``SAME_STEP_FIO2`` apart, compared after
+    rounding (0.405 - 0.40 is 0.0050000000000000044 in binary floating point)."""
+    return round(abs(a - b), 9) <= SAME_STEP_FIO2
+
+
 def _same_step(a: TitrationPoint, b: TitrationPoint) -> bool:
-    # Rounded: 0.405 - 0.40 is 0.0050000000000000044 in binary floating point.
     return (
-        round(abs(a.inspired.fio2 - b.inspired.fio2), 9) <= SAME_STEP_FIO2
-        and a.inspired.source == b.inspired.source
+        same_fio2_step(a.inspired.fio2, b.inspired.fio2) and a.inspired.source == b.inspired.source
     )
 
 

@@ -291,13 +291,9 @@ def test_the_window_ends_at_the_latest_point_up_to_exactly_one_window_after_the_
     assert window_end(later, None, window) is None  # no index time: the series decides
 
 
-# --- half a point of FiO2 is one step (fails today: see the report) ----------------------------
+# --- half a point of FiO2 is one step (0.405 - 0.40 is 0.0050000000000000044 in floating point) ---
 
 
-@pytest.mark.xfail(
-    reason="float trap: |0.405 - 0.40| computes as 0.0050000000000000044 > SAME_STEP_FIO2 in "
-    "_settled and _levels; physiology.titration rounds to 9 places first (fix proposed)"
-)
 def test_a_change_of_half_a_point_of_fio2_is_the_same_step() -> None:
     # An analyser charting FiO2 to 0.1 % reads 0.405 after 0.40: no more than SAME_STEP_FIO2
     # apart, the same step, so the reading 2 min later is settled and the two are one level.
@@ -313,10 +309,6 @@ def test_a_change_of_half_a_point_of_fio2_is_the_same_step() -> None:
     assert _titration(record, index_minutes=22.0) is None  # one FiO2 level: nothing to fit
 
 
-@pytest.mark.xfail(
-    reason="float trap: |0.405 - 0.40| computes as 0.0050000000000000044 > SAME_STEP_FIO2 in "
-    "_levels; physiology.titration rounds to 9 places first (fix proposed)"
-)
 def test_fio2s_half_a_point_apart_count_as_one_level() -> None:
     # A gas on an analysed FiO2 of 0.405 between oximetry on 0.40 and 0.50: two levels.
     record = intake(
