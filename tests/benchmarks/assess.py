@@ -9,7 +9,8 @@ throughput with 1 and 2 worker processes.
 
 Then what the oxygen-response fit adds: the assess path of each titration fixture (and of the
 demo Bundle, which has no titration) with the titration as shipped and with it switched off
-(``assess_titration`` and the trend's fits replaced by a function that finds none), in CPU time
+(``record_points``, ``assess_titration`` and the trend's fits replaced by a function that finds
+none), in CPU time
 of this process (steadier than wall time on a shared machine), the difference in µs and as a
 ratio to the floor.
 """
@@ -96,8 +97,13 @@ def titration_costs(runtime: Runtime, rounds: int, floor: float) -> None:
     print("alone = the points, fit, predictions and facts by themselves)")
     header = f"{'input':<34} {'with':>9} {'off':>9} {'adds':>9} {'× floor':>8}"
     print(f"{header} {'alone':>9} {'× floor':>8}")
-    modules = (assess_module, trend_module)
-    shipped = [getattr(module, "assess_titration") for module in modules]  # noqa: B009
+    # Switched off: the record's points (sorted out once per assessment) and every fit.
+    switched = (
+        (assess_module, "record_points"),
+        (assess_module, "assess_titration"),
+        (trend_module, "assess_titration"),
+    )
+    shipped = [getattr(module, name) for module, name in switched]
     for path in bundles:
         raw = orjson.dumps(orjson.loads(path.read_bytes()))
 
@@ -105,13 +111,13 @@ def titration_costs(runtime: Runtime, rounds: int, floor: float) -> None:
             return orjson.dumps(runtime.assess_bundle(orjson.loads(raw)))
 
         with_fit = median_us(run, rounds, time.process_time)
-        for module in modules:
-            setattr(module, "assess_titration", none)  # noqa: B010
+        for module, name in switched:
+            setattr(module, name, none)
         try:
             without = median_us(run, rounds, time.process_time)
         finally:
-            for module, function in zip(modules, shipped, strict=True):
-                setattr(module, "assess_titration", function)  # noqa: B010
+            for (module, name), function in zip(switched, shipped, strict=True):
+                setattr(module, name, function)
         added = with_fit - without
         alone = median_us(_titration_alone(runtime, orjson.loads(raw)), rounds, time.process_time)
         name = path.name.removesuffix(".bundle.json")
