@@ -23,7 +23,7 @@ from scipy.stats import chi2
 
 from service.physiology.oxygen_affinity import oxygen_affinity
 from service.physiology.oxygen_exchange import exchange_conditions
-from service.physiology.oxygen_response import IdentifiabilityLimits, fit_oxygen_response
+from service.physiology.oxygen_response import IdentifiabilityLimits, ModelFit, fit_oxygen_response
 from service.physiology.titration import TitrationPoint
 from tests.physiology import weighted_fit_reference as ref
 from tests.physiology.oxygen_points import START, generated_points, inspired
@@ -196,9 +196,11 @@ SHUNT_CASES = {
 }
 
 
-@pytest.mark.parametrize("name", list(SHUNT_CASES))
-def test_the_shunt_range_ends_are_the_regions_between_and_beyond_its_slices(name: str) -> None:
-    points = SHUNT_CASES[name]
+def _region_at_the_edge(
+    points: list[TitrationPoint],
+) -> tuple[ModelFit, list[ref.ContentRow], float, float]:
+    """The two-parameter fit of ``points``, the reference's content rows, the χ² threshold of
+    its 95 % region, and the largest ΔPO2 with a steady state at no shunt (scipy's Brent)."""
     fit = fit_oxygen_response(points=points).two_parameter
     assert fit is not None
     rows = ref.content_rows(points)
@@ -206,8 +208,13 @@ def test_the_shunt_range_ends_are_the_regions_between_and_beyond_its_slices(name
     inflation = max(1.0, fit.chi_square / dof) if dof > 0 else 1.0
     drop = fit.vq_drop_mmhg.value
     threshold = ref.content_profile_over_odds(rows, drop) + DELTA_95 * inflation
-    # the largest ΔPO2 with a steady state at no shunt
     edge = float(brentq(lambda d: ref.largest_odds(rows, d), drop, drop + 200.0, xtol=1e-9))
+    return fit, rows, threshold, edge
+
+
+@pytest.mark.parametrize("name", list(SHUNT_CASES))
+def test_the_shunt_range_ends_are_the_regions_between_and_beyond_its_slices(name: str) -> None:
+    fit, rows, threshold, edge = _region_at_the_edge(SHUNT_CASES[name])
 
     def above_odds(o: float) -> float:
         return ref.content_profile_over_drop(rows, o, edge) - threshold
@@ -220,7 +227,7 @@ def test_the_shunt_range_ends_are_the_regions_between_and_beyond_its_slices(name
 
 def test_the_shunt_range_is_the_regions_over_the_vq_term_range_reported() -> None:
     # Four gases (one severely hypoxaemic on air) whose region ends at the service's largest
-    # ΔPO2 (1 mmHg short of the steady-state edge, docs/oxygen-response.md), where the shunt's
+    # ΔPO2 (about 1 mmHg short of the steady-state edge, docs/oxygen-response.md), where the shunt's
     # least value lies. The shunt's range is the region's over the ΔPO2 range the fit reports
     # (scipy's profile over ΔPO2 from 0 to its upper end): a slice beyond that end, outside
     # the parameters' limits, may not widen it.
@@ -230,14 +237,7 @@ def test_the_shunt_range_is_the_regions_over_the_vq_term_range_reported() -> Non
             ((0.21, 16.7226), (0.25, 45.9206), (0.3, 75.286), (0.8, 356.7497))
         )
     ]
-    fit = fit_oxygen_response(points=points).two_parameter
-    assert fit is not None
-    rows = ref.content_rows(points)
-    dof = fit.degrees_of_freedom
-    inflation = max(1.0, fit.chi_square / dof) if dof > 0 else 1.0
-    drop = fit.vq_drop_mmhg.value
-    threshold = ref.content_profile_over_odds(rows, drop) + DELTA_95 * inflation
-    edge = float(brentq(lambda d: ref.largest_odds(rows, d), drop, drop + 200.0, xtol=1e-9))
+    fit, rows, threshold, edge = _region_at_the_edge(points)
     assert edge - 1.2 < fit.vq_drop_mmhg.high < edge - 1.0  # the region reaches the limit
 
     def above_odds(o: float) -> float:
