@@ -137,6 +137,37 @@ def room_air_projection(
     return po2_for_content(content(pa_air, hb, p50) - deficit, hb, p50, pa_air)
 
 
+def pao2_at(alveolar_po2: float, shunt: float, drop: float) -> float:
+    """PaO2 of the model at an alveolar PO2 (Hb 14 g/dL, a-v difference 5 mL/dL, the standard
+    curve of Severinghaus 1979 eq. 1)."""
+    hb, avd, p50 = 14.0, 5.0, p50_eq1()
+    capillary = alveolar_po2 - drop
+    arterial_content = content(capillary, hb, p50) - avd * shunt / (1.0 - shunt)
+    return po2_for_content(arterial_content, hb, p50, capillary)
+
+
+def lung_meeting(
+    air: float, oxygen: float, air_target: float, oxygen_target: float
+) -> tuple[float, float]:
+    """(shunt, V/Q term in mm[Hg]) of the lung whose PaO2 is ``air_target`` at the room-air
+    alveolar PO2 ``air`` and ``oxygen_target`` at the 100 %-oxygen one ``oxygen`` (Brent's
+    method, nested); the room-air target alone, with no V/Q term, where the shunt that meets
+    the oxygen target already lowers the room-air PaO2 below it."""
+
+    def shunt_for(alveolar_po2: float, target: float, drop: float) -> float:
+        return float(
+            brentq(lambda s: pao2_at(alveolar_po2, s, drop) - target, 0.0, 0.3, xtol=1e-14)
+        )
+
+    def air_excess(drop: float) -> float:
+        return pao2_at(air, shunt_for(oxygen, oxygen_target, drop), drop) - air_target
+
+    if air_excess(0.0) <= 0.0:
+        return shunt_for(air, air_target, 0.0), 0.0
+    drop = float(brentq(air_excess, 0.0, air - air_target, xtol=1e-12))
+    return shunt_for(oxygen, oxygen_target, drop), drop
+
+
 def fio2_for_saturation(
     target: float,
     *,

@@ -15,6 +15,11 @@ from service.physiology.oxygen_exchange import (
 from service.physiology.titration import Fio2Source, InspiredOxygen, TitrationPoint
 
 START = datetime(2025, 3, 1, 8, 0, tzinfo=UTC)
+# The widest range limits a rule set may set: every fit that converges is reported, so that the
+# statistics of a fit the default limits refuse can be checked too.
+LOOSE_LIMITS = fitting.IdentifiabilityLimits(
+    max_shunt_range_width=0.95, max_vq_drop_range_width_mmhg=700.0
+)
 
 
 def inspired(fio2: float, half_range: float = 0.0) -> InspiredOxygen:
@@ -86,3 +91,29 @@ def half_chi_square(used: list[fitting._Observation], odds: float, drop: float) 
     evaluation = fitting._evaluate(used, odds, drop, STANDARD_CONDITIONS)
     assert evaluation is not None
     return evaluation.chi_square / 2.0
+
+
+def five_gases() -> list[TitrationPoint]:
+    """Five gases on measured FiO2s 0.25–0.8 with 5 % PaO2 scatter (shunt 12 %, ΔPO2 35 mmHg)."""
+    return generated_points(
+        shunt=0.12,
+        vq_drop_mmhg=35.0,
+        fio2s=(0.25, 0.3, 0.4, 0.6, 0.8),
+        rng=random.Random(4),
+        pao2_relative_noise=0.05,
+    )
+
+
+def device_oximetry() -> list[TitrationPoint]:
+    """Oximetry and co-oximetry on the steep part of the curve with a device-estimated FiO2
+    (± 0.04, read as a 95 % interval), where the FiO2 error dominates a point's expected
+    error (shunt 18 %, ΔPO2 40 mmHg)."""
+    return generated_points(
+        shunt=0.18,
+        vq_drop_mmhg=40.0,
+        fio2s=(0.24, 0.28, 0.32, 0.4, 0.5),
+        kinds=("spo2", "sao2"),
+        rng=random.Random(8),
+        spo2_noise=0.01,
+        fio2_half_range=0.04,
+    )

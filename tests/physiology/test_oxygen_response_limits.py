@@ -23,9 +23,7 @@ from service.physiology.oxygen_response import (
 )
 from service.physiology.titration import TitrationPoint
 from service.physiology.units import FIO2_LIMITS
-from tests.physiology.oxygen_points import START, generated_points, inspired
-
-LOOSE = IdentifiabilityLimits(max_shunt_range_width=0.95, max_vq_drop_range_width_mmhg=700.0)
+from tests.physiology.oxygen_points import LOOSE_LIMITS, START, generated_points, inspired
 
 
 def test_a_shunt_range_just_wider_than_20_points_is_refused() -> None:
@@ -40,7 +38,7 @@ def test_a_shunt_range_just_wider_than_20_points_is_refused() -> None:
         rng=random.Random(121),
         spo2_noise=0.01,
     )
-    loose = fit_oxygen_response(points=points, limits=LOOSE).two_parameter
+    loose = fit_oxygen_response(points=points, limits=LOOSE_LIMITS).two_parameter
     assert loose is not None
     assert 0.20 < loose.shunt.width < 0.215 and loose.vq_drop_mmhg.width < 75.0
     response = fit_oxygen_response(points=points)
@@ -59,7 +57,7 @@ def test_a_vq_range_just_wider_than_10_kpa_is_refused() -> None:
         rng=random.Random(48),
         pao2_relative_noise=0.05,
     )
-    loose = fit_oxygen_response(points=points, limits=LOOSE).two_parameter
+    loose = fit_oxygen_response(points=points, limits=LOOSE_LIMITS).two_parameter
     assert loose is not None
     assert 75.0 < loose.vq_drop_mmhg.width < 80.0 and loose.shunt.width < 0.2
     response = fit_oxygen_response(points=points)

@@ -23,12 +23,18 @@ from scipy.stats import chi2
 
 from service.physiology.oxygen_affinity import oxygen_affinity
 from service.physiology.oxygen_exchange import exchange_conditions
-from service.physiology.oxygen_response import IdentifiabilityLimits, ModelFit, fit_oxygen_response
+from service.physiology.oxygen_response import ModelFit, fit_oxygen_response
 from service.physiology.titration import TitrationPoint
 from tests.physiology import weighted_fit_reference as ref
-from tests.physiology.oxygen_points import START, generated_points, inspired
+from tests.physiology.oxygen_points import (
+    LOOSE_LIMITS,
+    START,
+    device_oximetry,
+    five_gases,
+    generated_points,
+    inspired,
+)
 
-LOOSE = IdentifiabilityLimits(max_shunt_range_width=0.95, max_vq_drop_range_width_mmhg=700.0)
 DELTA_95 = float(chi2.ppf(0.95, 1))
 # The shunt range's ends, to a hundredth of the 0.1 % the shunt is shown to (the two codings of
 # the curve for a point's own pH differ by about 2e-7 here).
@@ -39,23 +45,9 @@ def _cases() -> dict[str, list[TitrationPoint]]:
     acid = exchange_conditions(affinity=oxygen_affinity(ph=7.25))
     return {
         # five gases, 5 % PaO2 scatter, measured FiO2
-        "gases": generated_points(
-            shunt=0.12,
-            vq_drop_mmhg=35.0,
-            fio2s=(0.25, 0.3, 0.4, 0.6, 0.8),
-            rng=random.Random(4),
-            pao2_relative_noise=0.05,
-        ),
+        "gases": five_gases(),
         # oximetry and co-oximetry with a device-estimated FiO2 (± 0.04)
-        "oximetry-device-fio2": generated_points(
-            shunt=0.18,
-            vq_drop_mmhg=40.0,
-            fio2s=(0.24, 0.28, 0.32, 0.4, 0.5),
-            kinds=("spo2", "sao2"),
-            rng=random.Random(8),
-            spo2_noise=0.01,
-            fio2_half_range=0.04,
-        ),
+        "oximetry-device-fio2": device_oximetry(),
         # oximetry of acidaemic blood (pH 7.25): each point on its own shifted curve
         "oximetry-ph-7.25": [
             replace(p, ph=7.25)
@@ -136,7 +128,7 @@ def _bracket_width(distance: float) -> float:
 @pytest.mark.parametrize("name", list(CASES))
 def test_the_profile_ranges_are_the_region_where_chi_square_rises_by_3_84(name: str) -> None:
     points = CASES[name]
-    response = fit_oxygen_response(points=points, limits=LOOSE)
+    response = fit_oxygen_response(points=points, limits=LOOSE_LIMITS)
     fit = response.two_parameter
     assert fit is not None
     rows = ref.content_rows(points)

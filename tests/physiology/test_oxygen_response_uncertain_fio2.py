@@ -10,30 +10,24 @@ against scipy in ``test_oxygen_response.py``.
 
 from __future__ import annotations
 
-import random
 from datetime import timedelta
 
 import pytest
 
-from service.physiology.oxygen_response import IdentifiabilityLimits, fit_oxygen_response
+from service.physiology.oxygen_response import fit_oxygen_response
 from service.physiology.titration import TitrationPoint
 from tests.physiology import weighted_fit_reference as ref
-from tests.physiology.oxygen_points import START, generated_points, inspired
-
-LOOSE = IdentifiabilityLimits(max_shunt_range_width=0.95, max_vq_drop_range_width_mmhg=700.0)
+from tests.physiology.oxygen_points import (
+    LOOSE_LIMITS,
+    START,
+    device_oximetry,
+    inspired,
+)
 
 
 def test_with_a_device_fio2_the_fit_reaches_the_least_chi_square_scipy_finds() -> None:
-    points = generated_points(
-        shunt=0.18,
-        vq_drop_mmhg=40.0,
-        fio2s=(0.24, 0.28, 0.32, 0.4, 0.5),
-        kinds=("spo2", "sao2"),
-        rng=random.Random(8),
-        spo2_noise=0.01,
-        fio2_half_range=0.04,
-    )
-    fit = fit_oxygen_response(points=points, limits=LOOSE).two_parameter
+    points = device_oximetry()
+    fit = fit_oxygen_response(points=points, limits=LOOSE_LIMITS).two_parameter
     assert fit is not None
     theirs = ref.fit(ref.rows_of(points), fit_drop=True)
     assert fit.chi_square <= theirs.chi_square + 1e-6 * (1.0 + theirs.chi_square)

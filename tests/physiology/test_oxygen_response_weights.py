@@ -14,34 +14,21 @@ from service.physiology.oxygen_response import (
     DELTA_CHI_SQUARE_95,
     Z_95,
     FitModel,
-    IdentifiabilityLimits,
     fit_oxygen_response,
 )
 from service.physiology.titration import TitrationPoint
 from tests.physiology import weighted_fit_reference as ref
-from tests.physiology.oxygen_points import START, generated_points, inspired
+from tests.physiology.oxygen_points import (
+    LOOSE_LIMITS,
+    START,
+    device_oximetry,
+    five_gases,
+    generated_points,
+    inspired,
+)
 
-# Five gases with 5 % PaO2 scatter, FiO2 measured (a Venturi titration).
-GASES = generated_points(
-    shunt=0.12,
-    vq_drop_mmhg=35.0,
-    fio2s=(0.25, 0.3, 0.4, 0.6, 0.8),
-    rng=random.Random(4),
-    pao2_relative_noise=0.05,
-)
-# Oximetry and co-oximetry on the steep part of the curve with a device-estimated FiO2
-# (± 0.04, read as a 95 % interval), where the FiO2 error dominates a point's expected error.
-MIXED = generated_points(
-    shunt=0.18,
-    vq_drop_mmhg=40.0,
-    fio2s=(0.24, 0.28, 0.32, 0.4, 0.5),
-    kinds=("spo2", "sao2"),
-    rng=random.Random(8),
-    spo2_noise=0.01,
-    fio2_half_range=0.04,
-)
-# The widest range limits a rule set may set: every fit that converges is reported, so that
-# the statistics of a fit the default limits refuse can be checked too.
+GASES = five_gases()  # a Venturi titration, FiO2 measured
+MIXED = device_oximetry()  # where the FiO2 error dominates a point's expected error
 # Oximetry and co-oximetry on measured FiO2s.
 OXIMETRY = generated_points(
     shunt=0.25,
@@ -51,7 +38,6 @@ OXIMETRY = generated_points(
     rng=random.Random(6),
     spo2_noise=0.01,
 )
-LOOSE = IdentifiabilityLimits(max_shunt_range_width=0.95, max_vq_drop_range_width_mmhg=700.0)
 
 
 def test_the_statistical_constants_are_the_normal_and_chi_square_quantiles() -> None:
@@ -68,7 +54,7 @@ def test_each_points_expected_error_is_its_documented_sd_and_the_fio2_term(
     # docs/oxygen-response.md §3: SpO2 0.02, SaO2 0.01, PaO2 √(2² + (5 % of PaO2)²) mmHg,
     # combined with the model's slope in FiO2 times the FiO2 SD (effective variance, Orear
     # 1982); the slope here by a central difference on the independent model.
-    fit = fit_oxygen_response(points=points, limits=LOOSE).two_parameter
+    fit = fit_oxygen_response(points=points, limits=LOOSE_LIMITS).two_parameter
     assert fit is not None
     odds = fit.shunt_odds
     rows = ref.rows_of(points)
@@ -91,7 +77,7 @@ def test_measured_fio2_gives_each_kind_exactly_its_own_sd() -> None:
         TitrationPoint(START.replace(minute=10), inspired(0.4), sao2=0.93, paco2_mmhg=40.0),
         TitrationPoint(START.replace(minute=20), inspired(0.5), pao2_mmhg=80.0, paco2_mmhg=40.0),
     ]
-    response = fit_oxygen_response(points=points, limits=LOOSE)
+    response = fit_oxygen_response(points=points, limits=LOOSE_LIMITS)
     for fit in (response.two_parameter, response.effective_shunt):
         assert fit is not None
         errors = [f.expected_error for f in fit.points]
@@ -100,7 +86,7 @@ def test_measured_fio2_gives_each_kind_exactly_its_own_sd() -> None:
 
 @pytest.mark.parametrize("points", [GASES, OXIMETRY], ids=["gases", "oximetry"])
 def test_both_fits_reach_the_least_chi_square_scipy_finds(points: list[TitrationPoint]) -> None:
-    response = fit_oxygen_response(points=points, limits=LOOSE)
+    response = fit_oxygen_response(points=points, limits=LOOSE_LIMITS)
     two, one = response.two_parameter, response.effective_shunt
     assert two is not None and one is not None
     rows = ref.rows_of(points)

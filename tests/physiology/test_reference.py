@@ -7,7 +7,6 @@ import math
 import pytest
 from hypothesis import given
 from hypothesis import strategies as st
-from scipy.optimize import brentq
 
 from service.exceptions import ImpossibleValueError
 from service.physiology import reference as r
@@ -238,13 +237,6 @@ def _oxygen_anchor(age: float, young: float, old: float) -> float:
     return young + (old - young) * (a - 25.0) / 25.0
 
 
-def _pao2_at(alveolar: float, shunt: float, drop: float) -> float:
-    hb, avd, p50 = 14.0, 5.0, tr.p50_eq1()
-    capillary = alveolar - drop
-    arterial_content = tr.content(capillary, hb, p50) - avd * shunt / (1.0 - shunt)
-    return tr.po2_for_content(arterial_content, hb, p50, capillary)
-
-
 def _independent_lung(age: float, limit: bool) -> tuple[float, float]:
     """(shunt fraction, V/Q term in mm[Hg]) meeting both anchors; the room-air one alone,
     with no V/Q term, where the oxygen anchor's shunt already lowers the room-air PaO2."""
@@ -256,17 +248,7 @@ def _independent_lung(age: float, limit: bool) -> tuple[float, float]:
     else:
         air_target = _cerveri_mean(age)
         oxygen_target = oxygen - _oxygen_anchor(age, 48.0, 93.0)
-
-    def shunt_for(alveolar: float, target: float, drop: float) -> float:
-        return float(brentq(lambda s: _pao2_at(alveolar, s, drop) - target, 0.0, 0.3, xtol=1e-14))
-
-    def air_excess(drop: float) -> float:
-        return _pao2_at(air, shunt_for(oxygen, oxygen_target, drop), drop) - air_target
-
-    if air_excess(0.0) <= 0.0:
-        return shunt_for(air, air_target, 0.0), 0.0
-    drop = float(brentq(air_excess, 0.0, air - air_target, xtol=1e-12))
-    return shunt_for(oxygen, oxygen_target, drop), drop
+    return tr.lung_meeting(air, oxygen, air_target, oxygen_target)
 
 
 @pytest.mark.parametrize("limit", [False, True])
@@ -289,8 +271,8 @@ def test_the_normal_gradient_on_oxygen_is_the_independent_lungs(age: float, fio2
     alveolar = tr.alveolar(fio2, 40.0, 760.0, tr.ph2o_37_mmhg())
     mean, limit = _independent_lung(age, False), _independent_lung(age, True)
     normal = r.normal_aa_gradient(age_years=age, alveolar_po2_mmhg=alveolar)
-    assert normal.expected == pytest.approx(alveolar - _pao2_at(alveolar, *mean), abs=0.01)
-    assert normal.upper_limit == pytest.approx(alveolar - _pao2_at(alveolar, *limit), abs=0.01)
+    assert normal.expected == pytest.approx(alveolar - tr.pao2_at(alveolar, *mean), abs=0.01)
+    assert normal.upper_limit == pytest.approx(alveolar - tr.pao2_at(alveolar, *limit), abs=0.01)
 
 
 @pytest.mark.parametrize(

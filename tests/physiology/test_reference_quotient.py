@@ -12,7 +12,6 @@ alveolar gas equation.
 from __future__ import annotations
 
 import pytest
-from scipy.optimize import brentq
 
 from service.physiology import reference as r
 from tests import titration_reference as tr
@@ -23,30 +22,13 @@ def _alveolar(fio2: float, r_quotient: float) -> float:
     return fio2 * (760.0 - tr.ph2o_37_mmhg()) - 40.0 * (fio2 + (1.0 - fio2) / r_quotient)
 
 
-def _pao2_at(alveolar: float, shunt: float, drop: float) -> float:
-    hb, avd, p50 = 14.0, 5.0, tr.p50_eq1()
-    capillary = alveolar - drop
-    arterial_content = tr.content(capillary, hb, p50) - avd * shunt / (1.0 - shunt)
-    return tr.po2_for_content(arterial_content, hb, p50, capillary)
-
-
 def _mean_lung(age: float, r_quotient: float) -> tuple[float, float]:
     """(shunt, V/Q term) of the mean healthy lung meeting both anchors (or the room-air one
     alone where the oxygen anchor's shunt already lowers the room-air PaO2 below it)."""
     air, oxygen = _alveolar(0.21, r_quotient), _alveolar(1.0, r_quotient)
     air_target = 143.6 - 0.39 * age - 0.56 * 25.0 - 0.57 * 40.0  # Cerveri 1995 mean
     oxygen_target = oxygen - (48.0 + (93.0 - 48.0) * (min(age, 50.0) - 25.0) / 25.0)
-
-    def shunt_for(alveolar: float, target: float, drop: float) -> float:
-        return float(brentq(lambda s: _pao2_at(alveolar, s, drop) - target, 0.0, 0.3, xtol=1e-14))
-
-    def air_excess(drop: float) -> float:
-        return _pao2_at(air, shunt_for(oxygen, oxygen_target, drop), drop) - air_target
-
-    if air_excess(0.0) <= 0.0:
-        return shunt_for(air, air_target, 0.0), 0.0
-    drop = float(brentq(air_excess, 0.0, air - air_target, xtol=1e-12))
-    return shunt_for(oxygen, oxygen_target, drop), drop
+    return tr.lung_meeting(air, oxygen, air_target, oxygen_target)
 
 
 @pytest.mark.parametrize("age", [30, 40])
@@ -58,4 +40,4 @@ def test_with_r_1_the_oxygen_anchor_of_the_young_group_binds(age: int) -> None:
     assert lung.vq_drop_mmhg == pytest.approx(drop, abs=1e-3)
     oxygen = _alveolar(1.0, 1.0)
     normal = r.normal_aa_gradient(age_years=age, alveolar_po2_mmhg=oxygen, respiratory_quotient=1.0)
-    assert normal.expected == pytest.approx(oxygen - _pao2_at(oxygen, shunt, drop), abs=0.01)
+    assert normal.expected == pytest.approx(oxygen - tr.pao2_at(oxygen, shunt, drop), abs=0.01)
