@@ -52,31 +52,38 @@ DECIMALS = {"fio2": 2, "a-a-ratio": 2, "pf-ratio": 0, "sf-ratio": 0}
 
 def quantity(name: str, value: float, unit: str, pressure_unit: PressureUnit) -> Json:
     """A UCUM Quantity, converting pressures to kPa when asked, rounded for display."""
-    return quantity_of(name, unit, pressure_unit)(value)
+    return _quantity(value, *_shown(name, unit, pressure_unit))
 
 
 def quantity_of(name: str, unit: str, pressure_unit: PressureUnit) -> Callable[[float], Json]:
     """``quantity`` for one name and unit, its decimals and conversion looked up once (for a
     series of values of one kind: the oxygen-response prediction curve)."""
-    decimals = DECIMALS.get(name, 1)
-    convert = unit == "mm[Hg]" and pressure_unit == "kPa"
-    if convert:
-        unit = "kPa"
-        decimals = 2 if name != "pf-ratio" else 1
+    shown = _shown(name, unit, pressure_unit)
 
     def of(value: float) -> Json:
-        if convert:
-            value = kpa_from_mmhg(value)
-        # + 0.0 turns a negative zero (a part that rounds to nothing) into 0.0.
-        rounded = round(value, decimals) + 0.0
-        return {
-            "value": rounded if decimals else float(int(rounded)),
-            "unit": unit,
-            "system": UCUM,
-            "code": unit,
-        }
+        return _quantity(value, *shown)
 
     return of
+
+
+def _shown(name: str, unit: str, pressure_unit: PressureUnit) -> tuple[int, str, bool]:
+    """(display decimals, unit shown, whether a mm[Hg] value is converted to kPa)."""
+    if unit == "mm[Hg]" and pressure_unit == "kPa":
+        return (2 if name != "pf-ratio" else 1), "kPa", True
+    return DECIMALS.get(name, 1), unit, False
+
+
+def _quantity(value: float, decimals: int, unit: str, convert: bool) -> Json:
+    if convert:
+        value = kpa_from_mmhg(value)
+    # + 0.0 turns a negative zero (a part that rounds to nothing) into 0.0.
+    rounded = round(value, decimals) + 0.0
+    return {
+        "value": rounded if decimals else float(int(rounded)),
+        "unit": unit,
+        "system": UCUM,
+        "code": unit,
+    }
 
 
 KPA_PER_MMHG_SHOWN = kpa_from_mmhg(1.0)
