@@ -25,15 +25,12 @@ from dataclasses import dataclass
 from datetime import datetime
 from enum import StrEnum
 
-from service.physiology.units import FIO2_LIMITS, mmhg_from_kpa
+from service.physiology.units import FIO2_LIMITS, comparable, mmhg_from_kpa
 
 MIN_POINTS = 3
 FIO2_VARIED = 0.10  # FiO2 range across the gases above which P/F and a/A are confounded
 _FIO2_BOUND = frozenset({"pf_ratio", "arterial_alveolar_ratio"})
 VQ_DROP_CHANGE_MMHG = mmhg_from_kpa(3.0)  # Rowe 2010 (module docstring)
-# Changes and FiO2 ranges are compared with their thresholds at this many decimals: far below
-# any shown decimal, far above floating-point rests.
-_DECIMALS = 9
 
 
 class Direction(StrEnum):
@@ -140,7 +137,7 @@ def oxygenation_trend(
     )
     fio2s = [g.fio2 for g in ordered]
     # Rounded so that FiO2 0.30 to 0.40 varied by 0.10, not by 0.10000000000000003.
-    fio2_range = round(max(fio2s) - min(fio2s), _DECIMALS) if fio2s else 0.0
+    fio2_range = comparable(max(fio2s) - min(fio2s)) if fio2s else 0.0
     varied = fio2_range > FIO2_VARIED
     # P/F and a/A move with FiO2 alone: when it varied they are shown but do not decide.
     deciding = [t for t in trends if not (varied and t.measure in _FIO2_BOUND)]
@@ -187,7 +184,7 @@ def _measure_trend(
     limit = threshold.size * abs(start) if threshold.relative else threshold.size
     # Rounded so that a change of exactly the threshold counts as one whatever the
     # floating-point rest (0.15 − 0.10 is 0.04999999999999999); no change is never a change.
-    if change == 0.0 or round(abs(change), _DECIMALS) < round(limit, _DECIMALS):
+    if change == 0.0 or comparable(abs(change)) < comparable(limit):
         direction = Direction.STABLE
     elif (change > 0) == higher_is_better:
         direction = Direction.IMPROVING

@@ -27,7 +27,7 @@ from service.physiology.bounds import (
     PH,
     require_possible,
 )
-from service.physiology.units import FIO2_LIMITS
+from service.physiology.units import FIO2_LIMITS, comparable
 
 # How far back from the latest point (or the given anchor) a titration reaches: long enough
 # for a stepped titration or a repeat gas after a change of mask, short enough that the lung
@@ -249,7 +249,7 @@ def _merge_oximetry_steps(points: list[TitrationPoint]) -> list[TitrationPoint]:
 def same_fio2_step(a: float, b: float) -> bool:
     """Whether two FiO2s are one step: no more than ``SAME_STEP_FIO2`` apart, compared after
     rounding (0.405 - 0.40 is 0.0050000000000000044 in binary floating point)."""
-    return round(abs(a - b), 9) <= SAME_STEP_FIO2
+    return comparable(abs(a - b)) <= SAME_STEP_FIO2
 
 
 def _same_step(a: TitrationPoint, b: TitrationPoint) -> bool:

@@ -16,6 +16,17 @@ from enum import StrEnum
 from service.exceptions import ImpossibleValueError, UnitError
 from service.physiology import constants as c
 
+# Thresholds, steps and ranges are compared at this many decimals: far below any decimal shown,
+# far above the rests binary floating point leaves (0.405 - 0.40 is 0.0050000000000000044,
+# 0.15 - 0.10 is 0.04999999999999999).
+COMPARISON_DECIMALS = 9
+
+
+def comparable(value: float) -> float:
+    """``value`` rounded to ``COMPARISON_DECIMALS``, to be compared with a threshold or a step
+    without floating-point traps."""
+    return round(value, COMPARISON_DECIMALS)
+
 
 def kpa_from_mmhg(mmhg: float) -> float:
     """Pressure in kPa from mm[Hg] (UCUM: 1 mm[Hg] = 0.1333220 kPa)."""
