@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import io
 import logging
+import time
 import warnings
 from collections.abc import Callable, Iterator
 from pathlib import Path
@@ -98,6 +99,18 @@ def log_lines() -> Iterator[Callable[[], list[str]]]:
     yield lambda: stream.getvalue().splitlines()
     logger.removeHandler(handler)
     logger.setLevel(level)
+
+
+def logged_requests(log_lines: Callable[[], list[str]], count: int) -> list[str]:
+    """The log's lines once it holds `count` request lines. A request's line is written once
+    its answer has gone, so the last one may lag the client a little."""
+    deadline = time.monotonic() + 5
+    while True:
+        lines = log_lines()
+        if sum('"message":"request"' in line for line in lines) >= count:
+            return lines
+        assert time.monotonic() < deadline, "\n".join(lines)
+        time.sleep(0.01)
 
 
 def issue(body: dict[str, Any], index: int = 0) -> dict[str, Any]:

@@ -15,7 +15,7 @@ import pytest
 from service.api import create_app
 from service.config import ServerSettings, Settings
 from service.runtime import Runtime
-from tests.api.conftest import ALTITUDE, ASSESS, FHIR_JSON, issue
+from tests.api.conftest import ALTITUDE, ASSESS, FHIR_JSON, issue, logged_requests
 
 Serve = Callable[..., httpx.Client]
 
@@ -234,7 +234,7 @@ def test_an_internal_error_is_a_500_outcome_with_a_correlation_id_and_no_traceba
     assert correlation in found["diagnostics"]
     for secret in ("Quorvale", "MRN-99812", "47.3", "RuntimeError", ".py"):
         assert secret not in response.text
-    logged = [json.loads(line) for line in log_lines()]
+    logged = [json.loads(line) for line in logged_requests(log_lines, 1)]
     error = next(line for line in logged if line["message"] == "internal error")
     assert error["correlation_id"] == correlation
     assert error["error_type"] == "RuntimeError"
