@@ -126,8 +126,20 @@ class RequestMiddleware:
 
         service = self.service
 
+        limited = record.route in LIMITED
+        flight = _Flight(service)
+
         async def send_with_id(message: Message) -> None:
             nonlocal answered
+            if message["type"] == "http.response.body" and not message.get("more_body"):
+                # The last of the answer: its work is done. Released here, not when the app
+                # returns, because the client may already have its answer and sent the next
+                # request while the app's exit work (after its last send) waits its turn on
+                # the loop; counted until then, a client keeping exactly the limit's number
+                # of connections busy met 429s (measured: 40 % of them at 64 connections).
+                await send(message)
+                flight.release()
+                return
             if message["type"] == "http.response.start":
                 answered = True
                 record.status = message["status"]
@@ -139,7 +151,6 @@ class RequestMiddleware:
                     headers.append("Connection", "close")
             await send(message)
 
-        limited = record.route in LIMITED
         try:
             if service.generations is not None:
                 await follow_generation(service)
@@ -154,14 +165,11 @@ class RequestMiddleware:
                 await response(scope, receive, send_with_id)
                 return
             if limited:
-                service.in_flight += 1
-                service.metrics.in_flight.set(service.in_flight)
+                flight.enter()
             try:
                 await self.app(scope, receive, send_with_id)
             finally:
-                if limited:
-                    service.in_flight -= 1
-                    service.metrics.in_flight.set(service.in_flight)
+                flight.release()
         except ClientDisconnect:
             record.status = record.status or CLIENT_CLOSED  # nobody is left to answer
         except Exception as exc:  # the last resort: no 500 leaves with a traceback
@@ -188,6 +196,28 @@ class RequestMiddleware:
             seconds = time.perf_counter() - started
             service.metrics.request(record.route, record.method, record.status, seconds)
             _log_request(record, seconds)
+
+
+class _Flight:
+    """One limited request's place among the assessments in flight: taken once, given back
+    once, whichever comes first of its answer's last byte and the app's return."""
+
+    __slots__ = ("counted", "service")
+
+    def __init__(self, service: ServiceState) -> None:
+        self.service = service
+        self.counted = False
+
+    def enter(self) -> None:
+        self.counted = True
+        self.service.in_flight += 1
+        self.service.metrics.in_flight.set(self.service.in_flight)
+
+    def release(self) -> None:
+        if self.counted:
+            self.counted = False
+            self.service.in_flight -= 1
+            self.service.metrics.in_flight.set(self.service.in_flight)
 
 
 class CredentialsMiddleware:
