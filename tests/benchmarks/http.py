@@ -47,7 +47,9 @@ MAX_SECONDS = 60  # per run, whatever is asked
 
 @dataclass(frozen=True, slots=True)
 class Run:
-    """One load run: throughput and latency percentiles in milliseconds."""
+    """One load run: answers with status 200 per second, latency percentiles of every answer in
+    milliseconds, and the answers of any other status (a 429 when the service's
+    ``max_concurrent_requests`` were in flight) or failed connections."""
 
     requests_per_second: float
     p50_ms: float
@@ -68,8 +70,16 @@ def floor_app() -> FastAPI:
     return app
 
 
-def serve_floor(port: int) -> None:
-    uvicorn.run(floor_app(), host="127.0.0.1", port=port, access_log=False, log_level="warning")
+def serve_floor(port: int, workers: int) -> None:
+    uvicorn.run(
+        "tests.benchmarks.http:floor_app",
+        factory=True,
+        host="127.0.0.1",
+        port=port,
+        workers=workers,
+        access_log=False,
+        log_level="warning",
+    )
 
 
 def serve_hollow(port: int) -> int:
@@ -158,12 +168,15 @@ def with_wrk(url: str, body_file: Path, connections: int, seconds: float) -> Run
     out = subprocess.run(
         command, capture_output=True, text=True, check=True, timeout=seconds + 30
     ).stdout
-    rate = float(_find(r"Requests/sec:\s+([\d.]+)", out))
+    total = int(_find(r"(\d+) requests in", out))
+    duration = _ms(_find(r"requests in ([\d.]+m?s),", out)) / 1000
     p50 = _ms(_find(r"\s50%\s+(\S+)", out))
     p99 = _ms(_find(r"\s99%\s+(\S+)", out))
     errors = re.search(r"Non-2xx or 3xx responses:\s+(\d+)", out)
     socket_errors = re.search(r"Socket errors:.*", out)
     count = int(errors[1]) if errors else 0
+    # Requests/s counts answers of every status; only the 200s are work done.
+    rate = (total - count) / duration
     if socket_errors:
         count += sum(int(n) for n in re.findall(r"\d+", socket_errors[0]))
     return Run(rate, p50, p99, count)
@@ -191,13 +204,45 @@ async def _with_httpx(url: str, body: bytes, connections: int, seconds: float) -
         await asyncio.gather(*(worker() for _ in range(connections)))
         elapsed = time.perf_counter() - began
     cuts = statistics.quantiles(latencies, n=100)
-    return Run(len(latencies) / elapsed, cuts[49], cuts[98], errors)
+    return Run((len(latencies) - errors) / elapsed, cuts[49], cuts[98], errors)
 
 
 def load(url: str, body_file: Path, connections: int, seconds: float) -> Run:
     if shutil.which("wrk"):
         return with_wrk(url, body_file, connections, seconds)
     return asyncio.run(_with_httpx(url, body_file.read_bytes(), connections, seconds))
+
+
+def _tree(pid: int) -> list[int]:
+    """``pid`` and its descendants (from ``/proc``; empty once it has gone)."""
+    found, queue = [], [pid]
+    while queue:
+        current = queue.pop()
+        found.append(current)
+        try:
+            children = Path(f"/proc/{current}/task/{current}/children").read_text().split()
+        except OSError:
+            continue
+        queue.extend(int(child) for child in children)
+    return found
+
+
+def worker_peaks_mib(pid: int, workers: int) -> list[float]:
+    """Peak resident memory (VmHWM) of each process that serves requests under ``pid``: the
+    process itself with one worker, else its worker processes (uvicorn starts them with
+    multiprocessing's spawn; the supervisor and any helper process are left out)."""
+    peaks = []
+    for current in _tree(pid):
+        try:
+            status = Path(f"/proc/{current}/status").read_text()
+            command = Path(f"/proc/{current}/cmdline").read_bytes()
+        except OSError:
+            continue
+        serving = current == pid if workers == 1 else b"spawn_main" in command
+        match = re.search(r"VmHWM:\s+(\d+) kB", status)
+        if serving and match:
+            peaks.append(int(match[1]) / 1024)
+    return peaks
 
 
 def core_microseconds(body: bytes, rounds: int = 300) -> float:
@@ -214,107 +259,160 @@ def core_microseconds(body: bytes, rounds: int = 300) -> float:
     return statistics.median(samples)
 
 
+def median_of(runs: list[Run], field: str) -> float:
+    return float(statistics.median(float(getattr(run, field)) for run in runs))
+
+
+def measure(
+    workers: int, connections: list[int], seconds: float, rounds: int, body: bytes
+) -> tuple[dict[tuple[str, int], list[Run]], list[float]]:
+    """Every server for ``workers`` at every connection count; and the service's workers'
+    peak memory after it all."""
+    service_port, floor_port, hollow_port = free_port(), free_port(), free_port()
+    python = sys.executable
+    commands = {
+        "service": (
+            [
+                python,
+                "-m",
+                "service.cli",
+                "serve",
+                f"--port={service_port}",
+                f"--workers={workers}",
+            ],
+            service_port,
+            "/readyz",
+            ASSESS,
+        ),
+        "floor": (
+            [
+                python,
+                "-m",
+                "tests.benchmarks.http",
+                f"--serve-floor={floor_port}",
+                f"--floor-workers={workers}",
+            ],
+            floor_port,
+            "/docs",
+            FLOOR,
+        ),
+    }
+    if workers == 1:
+        commands["hollow"] = (
+            [python, "-m", "tests.benchmarks.http", "--serve-hollow", str(hollow_port)],
+            hollow_port,
+            "/readyz",
+            ASSESS,
+        )
+    processes: dict[str, subprocess.Popen[bytes]] = {}
+    results: dict[tuple[str, int], list[Run]] = {}
+    try:
+        for name, (command, port, probe, _) in commands.items():
+            processes[name] = start(command, port, probe)
+        urls = {
+            name: f"http://127.0.0.1:{port}{path}" for name, (_, port, _, path) in commands.items()
+        }
+        for url in urls.values():
+            check(url, body)
+        with tempfile.TemporaryDirectory() as work:
+            body_file = Path(work) / "body.json"
+            body_file.write_bytes(body)
+            for url in urls.values():  # warm-up, not counted
+                load(url, body_file, max(connections), min(2.0, seconds))
+            for count in connections:
+                for _ in range(rounds):
+                    for name, url in urls.items():
+                        run = load(url, body_file, count, seconds)
+                        results.setdefault((name, count), []).append(run)
+        peaks = worker_peaks_mib(processes["service"].pid, workers)
+    finally:
+        for process in processes.values():
+            process.terminate()
+            process.wait(15)
+    return results, peaks
+
+
+def report(workers: int, results: dict[tuple[str, int], list[Run]], peaks: list[float]) -> None:
+    print(f"\n{workers} uvicorn worker{'s' if workers > 1 else ''} each (httptools, uvloop)")
+    print(f"{'server':<44} {'conns':>5} {'req/s':>9} {'p50 ms':>8} {'p99 ms':>8} {'not 200':>7}")
+    labels = {
+        "floor": "floor: FastAPI, orjson.loads, constant",
+        "service": "oxyrule POST /fhir/$assess-hypoxaemia",
+        "hollow": "the same, its assessment a constant result",
+    }
+    for (name, count), runs in sorted(
+        results.items(), key=lambda item: (item[0][1], list(labels).index(item[0][0]))
+    ):
+        errors = sum(run.errors for run in runs)
+        print(
+            f"{labels[name]:<44} {count:5d} {median_of(runs, 'requests_per_second'):9.0f} "
+            f"{median_of(runs, 'p50_ms'):8.2f} {median_of(runs, 'p99_ms'):8.2f} {errors:7d}"
+        )
+    for count in sorted({count for _, count in results}):
+        service = results[("service", count)]
+        floor_rate = median_of(results[("floor", count)], "requests_per_second")
+        ratio = median_of(service, "requests_per_second") / floor_rate
+        p99 = median_of(service, "p99_ms")
+        print(
+            f"{count} connections: service / floor throughput {ratio:.2f} (target >= 0.5: "
+            f"{'met' if ratio >= 0.5 else 'NOT met'}); service p99 {p99:.2f} ms"
+            + (f" (target < 25 ms: {'met' if p99 < 25 else 'NOT met'})" if count == 16 else "")
+        )
+        if ("hollow", count) in results:
+            # One saturated worker: a request's cost is the inverse of the throughput.
+            floor_us = 1e6 / floor_rate
+            hollow_rate = median_of(results[("hollow", count)], "requests_per_second")
+            own_us = 1e6 / hollow_rate - floor_us
+            print(
+                f"  the service's own work per request beyond the floor's: {own_us:.0f} us "
+                f"against the floor's whole request, {floor_us:.0f} us ({own_us / floor_us:.2f};"
+                f" target <= 1: {'met' if own_us <= floor_us else 'NOT met'})"
+            )
+    shown = ", ".join(f"{peak:.0f}" for peak in peaks) or "not found"
+    verdict = "met" if peaks and max(peaks) <= 80 else "NOT met"
+    print(f"service worker peak resident memory, MiB: {shown} (target <= 80: {verdict})")
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--seconds", type=float, default=10.0, help="per run (at most 60)")
+    parser.add_argument("--seconds", type=float, default=5.0, help="per run (at most 60)")
     parser.add_argument("--rounds", type=int, default=2, help="alternating runs of each server")
-    parser.add_argument("--connections", type=int, default=16)
+    parser.add_argument("--connections", type=int, nargs="+", default=[16, 64])
+    parser.add_argument("--workers", type=int, nargs="+", default=[1, 2])
     parser.add_argument("--serve-floor", type=int, metavar="PORT", help=argparse.SUPPRESS)
+    parser.add_argument("--floor-workers", type=int, default=1, help=argparse.SUPPRESS)
     parser.add_argument("--serve-hollow", type=int, metavar="PORT", help=argparse.SUPPRESS)
     args = parser.parse_args()
     if args.serve_floor:
-        serve_floor(args.serve_floor)
+        serve_floor(args.serve_floor, min(max(args.floor_workers, 1), 8))
         return
     if args.serve_hollow:
         raise SystemExit(serve_hollow(args.serve_hollow))
     seconds = min(max(args.seconds, 1.0), MAX_SECONDS)
-    connections = min(max(args.connections, 1), 256)
+    connections = sorted({min(max(count, 1), 256) for count in args.connections})
+    worker_counts = sorted({min(max(count, 1), 8) for count in args.workers})
     rounds = min(max(args.rounds, 1), 5)
     body = BUNDLE.read_bytes()
     core_us = core_microseconds(body)
     tool = "wrk (1 thread)" if shutil.which("wrk") else "asyncio httpx client (wrk not found)"
-    service_port, floor_port, hollow_port = free_port(), free_port(), free_port()
-    servers = [
-        start(
-            [sys.executable, "-m", "service.cli", "serve", "--port", str(service_port)],
-            service_port,
-            "/readyz",
-        ),
-        start(
-            [sys.executable, "-m", "tests.benchmarks.http", "--serve-floor", str(floor_port)],
-            floor_port,
-            "/docs",
-        ),
-        start(
-            [sys.executable, "-m", "tests.benchmarks.http", "--serve-hollow", str(hollow_port)],
-            hollow_port,
-            "/readyz",
-        ),
-    ]
-    service_url = f"http://127.0.0.1:{service_port}{ASSESS}"
-    floor_url = f"http://127.0.0.1:{floor_port}{FLOOR}"
-    hollow_url = f"http://127.0.0.1:{hollow_port}{ASSESS}"
-    results: dict[str, list[Run]] = {"floor": [], "service": [], "hollow": []}
-    try:
-        check(service_url, body)
-        check(floor_url, body)
-        check(hollow_url, body)
-        with tempfile.TemporaryDirectory() as work:
-            body_file = Path(work) / "body.json"
-            body_file.write_bytes(body)
-            for url in (floor_url, service_url, hollow_url):  # warm-up, not counted
-                load(url, body_file, connections, min(2.0, seconds))
-            for _ in range(rounds):
-                results["floor"].append(load(floor_url, body_file, connections, seconds))
-                results["service"].append(load(service_url, body_file, connections, seconds))
-                results["hollow"].append(load(hollow_url, body_file, connections, seconds))
-    finally:
-        for process in servers:
-            process.terminate()
-            process.wait(15)
-
-    def median(name: str, field: str) -> float:
-        return float(statistics.median(float(getattr(run, field)) for run in results[name]))
-
-    print(f"load: {tool}, {connections} connections, {rounds} x {seconds:g} s per server")
-    print(f"body: {BUNDLE.name}, {len(body)} bytes; 1 uvicorn worker each (httptools, uvloop)")
-    print(f"{'server':<44} {'req/s':>9} {'p50 ms':>8} {'p99 ms':>8} {'errors':>7}")
-    for name, label in (
-        ("floor", "floor: FastAPI, orjson.loads, constant"),
-        ("service", "oxyrule POST /fhir/$assess-hypoxaemia"),
-        ("hollow", "the same, its assessment a constant result"),
-    ):
-        errors = sum(run.errors for run in results[name])
-        print(
-            f"{label:<44} {median(name, 'requests_per_second'):9.0f} "
-            f"{median(name, 'p50_ms'):8.2f} {median(name, 'p99_ms'):8.2f} {errors:7d}"
-        )
-    ratio = median("service", "requests_per_second") / median("floor", "requests_per_second")
-    p99 = median("service", "p99_ms")
-    verdict = "met" if ratio >= 0.5 else "NOT met"
-    print(f"service / floor throughput: {ratio:.2f} (target >= 0.5: {verdict})")
-    print(f"service p99: {p99:.2f} ms (target < 25 ms: {'met' if p99 < 25 else 'NOT met'})")
-    # One saturated worker: a request's cost is the inverse of the throughput.
-    floor_us = 1e6 / median("floor", "requests_per_second")
-    own_us = 1e6 / median("hollow", "requests_per_second") - floor_us
-    verdict = "met" if own_us <= floor_us else "NOT met"
-    print(
-        f"the service's own work per request beyond the floor's: {own_us:.0f} us against the "
-        f"floor's whole request, {floor_us:.0f} us ({own_us / floor_us:.2f}; target <= 1: "
-        f"{verdict})"
-    )
-    for name in ("floor", "service", "hollow"):
-        rates = ", ".join(f"{run.requests_per_second:.0f}" for run in results[name])
-        print(f"  {name} req/s per round: {rates}")
-    # Where the time goes: the assess path itself, measured in this process, bounds the ratio.
-    floor_rate = median("floor", "requests_per_second")
-    ceiling = 1 / (1 / floor_rate + core_us / 1e6)
-    share = median("service", "requests_per_second") / ceiling
-    print(
-        f"assess path alone, in process: {core_us:.0f} us per Bundle; with an HTTP layer that "
-        f"cost nothing beyond the floor the service would reach {ceiling:.0f} req/s "
-        f"(ratio {ceiling / floor_rate:.2f}); it reaches {share:.0%} of that"
-    )
+    print(f"load: {tool}, {rounds} x {seconds:g} s per server and connection count")
+    print(f"body: {BUNDLE.name}, {len(body)} bytes")
+    for workers in worker_counts:
+        results, peaks = measure(workers, connections, seconds, rounds, body)
+        report(workers, results, peaks)
+        if workers == 1:
+            # Where the time goes: the assess path itself, measured in this process, bounds
+            # the ratio.
+            count = connections[0]
+            floor_rate = median_of(results[("floor", count)], "requests_per_second")
+            ceiling = 1 / (1 / floor_rate + core_us / 1e6)
+            share = median_of(results[("service", count)], "requests_per_second") / ceiling
+            print(
+                f"assess path alone, in process: {core_us:.0f} us per Bundle; with an HTTP "
+                f"layer that cost nothing beyond the floor the service would reach "
+                f"{ceiling:.0f} req/s at {count} connections (ratio {ceiling / floor_rate:.2f}); "
+                f"it reaches {share:.0%} of that"
+            )
 
 
 if __name__ == "__main__":
