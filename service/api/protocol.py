@@ -54,6 +54,12 @@ class Connection:
         """Close at once, dropping what is not sent (the peer sees a reset)."""
         self._transport.abort()
 
+    def drained(self) -> bool:
+        """Nothing written is waiting to be sent. Then uvicorn's writing is not paused (it
+        pauses above the buffer's high-water mark and resumes below its low one), so a send
+        of at most the high-water mark goes straight into the buffer without waiting."""
+        return not self._transport.is_closing() and not self._transport.get_write_buffer_size()
+
 
 def _service_of(app: Any) -> Any:
     """The ``ServiceState`` of the app behind uvicorn's wrappers, if there is one."""

@@ -22,7 +22,7 @@ from starlette.background import BackgroundTask
 from starlette.responses import Response
 from starlette.types import Message, Receive, Scope, Send
 
-from service.api.protocol import CONNECTION
+from service.api.protocol import CONNECTION, Connection
 from service.api.state import RequestRecord
 
 CHUNK = 64 * 1024  # uvicorn's high-water mark: one piece fills the buffer, no more
@@ -79,13 +79,18 @@ class PacedResponse(Response):
         def last_progress() -> float:
             return moved
 
+        connection = scope.get("extensions", {}).get(CONNECTION)
         start = {"type": "http.response.start", "status": self.status_code}
         await send(start | {"headers": self.raw_headers})
         for offset in range(0, max(len(body), 1), CHUNK):
             piece = body[offset : offset + CHUNK]
             more = offset + CHUNK < len(body)
             message = {"type": "http.response.body", "body": piece, "more_body": more}
-            if not await send_within(send, message, self.timeout_s, last_progress):
+            if isinstance(connection, Connection) and connection.drained():
+                # Nothing is waiting ahead of this piece, so sending it cannot wait: sent
+                # directly, without the watch (a task and a timed wait, ~40 µs a request).
+                await send(message)
+            elif not await send_within(send, message, self.timeout_s, last_progress):
                 self.record.stream = "client-not-reading"
                 await abort(scope)
                 return
