@@ -3,9 +3,12 @@
     python -m tests.benchmarks.assess [--rounds N] [--bulk N] [--titration-only]
 
 Prints, measured in the same run on the same bytes: the median time of ``orjson.loads`` (the
-floor), of the whole assess path (bytes → result bytes), and of full ``fhir.resources`` R4B
-validation of the input (what strict mode adds), each as a ratio to the floor; then NDJSON bulk
-throughput with 1 and 2 worker processes.
+floor), of the whole assess path (bytes → result bytes), of the same as an HTTP request
+computes it in its work thread (``service.api.answers.answer_bundle``: with the duplicate-key
+check, the Parameters form and the tally), and of full ``fhir.resources`` R4B validation of
+the input (what strict mode adds), each as a ratio to the floor; then NDJSON bulk throughput
+with 1 and 2 worker processes (``oxyrule assess --ndjson``'s path), also as the cost of a line
+against the floor.
 
 Then what the oxygen-response fit adds: the assess path of each titration fixture (and of the
 demo Bundle, which has no titration) with the titration as shipped and with it switched off
@@ -27,7 +30,8 @@ from pathlib import Path
 import orjson
 
 from service.batch import assess_lines
-from service.config import Settings
+from service.config import ServerSettings, Settings
+from service.intake.limits import ReadLimits
 from service.runtime import Runtime
 
 BUNDLE = Path(__file__).resolve().parents[2] / "fixtures" / "demo" / "altitude-visitor.bundle.json"
@@ -144,14 +148,26 @@ def main() -> None:
     def assess() -> bytes:
         return orjson.dumps(runtime.assess_bundle(orjson.loads(raw)))
 
+    from service.api.answers import answer_bundle
+
+    server = ServerSettings()
+    limits = ReadLimits(server.max_bundle_entries, server.max_issues)
+
+    def http_work() -> bytes:
+        """What an HTTP request computes in its work thread (``answer_bundle``): besides the
+        above, the duplicate-key check, the Parameters form and the tally for the metrics."""
+        return answer_bundle(runtime, raw, None, limits).body
+
     from fhir.resources.R4B.bundle import Bundle
 
     floor = median_us(lambda: orjson.loads(raw), args.rounds)
     whole = median_us(assess, args.rounds)
+    answered = median_us(http_work, args.rounds)
     strict = median_us(lambda: Bundle.model_validate_json(raw), max(args.rounds // 10, 20))
     print(f"input: {BUNDLE.name}, {len(raw)} bytes, {raw.count(b'resourceType')} resources")
     print(f"orjson.loads (floor)          {floor:9.1f} µs   1.0 ×")
     print(f"assess path, bytes → bytes    {whole:9.1f} µs  {whole / floor:5.1f} ×")
+    print(f"the same as HTTP computes it  {answered:9.1f} µs  {answered / floor:5.1f} ×")
     print(f"R4B validation of the input   {strict:9.1f} µs  {strict / floor:5.1f} ×")
 
     lines = [(n, raw) for n in range(1, args.bulk + 1)]
@@ -163,7 +179,11 @@ def main() -> None:
         )
         elapsed = time.perf_counter() - start
         rate = count / elapsed
-        print(f"NDJSON, {workers} worker(s): {count} bundles in {elapsed:5.2f} s = {rate:7.0f} /s")
+        ratio = elapsed / count * 1e6 / floor
+        print(
+            f"NDJSON, {workers} worker(s): {count} bundles in {elapsed:5.2f} s = {rate:7.0f} /s"
+            f" ({ratio:5.1f} × orjson.loads a line)"
+        )
     cpu_floor = median_us(lambda: orjson.loads(raw), args.rounds, time.process_time)
     print(f"orjson.loads (floor, CPU time) {cpu_floor:9.1f} µs")
     titration_costs(runtime, max(args.rounds // 10, 20), cpu_floor)
