@@ -232,6 +232,13 @@ class ServerSettings(BaseSettings):
         le=64,
         description="threads that parse and assess, off the event loop (0: on it, unsafe)",
     )
+    inline_bytes: int = Field(
+        16 * 1024,
+        ge=0,
+        le=1024 * 1024,
+        description="FHIR bodies up to this size are assessed on the event loop itself, "
+        "saving the hand-off to a work thread (0: every body goes to a thread)",
+    )
     hl7_max_segments: int = Field(500, ge=10, le=1_000_000)
     hl7_max_field_parts: int = Field(256, ge=16, le=1_000_000)
     hl7_max_parts: int = Field(20_000, ge=100, le=10_000_000)

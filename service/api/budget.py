@@ -79,13 +79,15 @@ ANSWER_BYTES = 640 * 1024  # the largest answer inside the budgets (1,000 gases:
 
 def worst_case_bytes(server: ServerSettings) -> int:
     """Start-up, plus every budget full at once: bodies held, one large body being parsed
-    (``service.work``: one at a time) beside small ones in the other threads, an answer held
+    (``service.work``: one at a time) beside small ones in the other threads and one on the
+    event loop (``OXYRULE_INLINE_BYTES``), an answer held
     for every request in flight, and MLLP's unfinished frames when MLLP is on."""
     from service.work import HEAVY_BYTES
 
     largest = server.max_body_bytes * PARSE_FACTOR
     smaller = min(server.max_body_bytes, HEAVY_BYTES) * PARSE_FACTOR
     parsing = largest + smaller * max(server.work_threads - 1, 0)
+    parsing += min(server.inline_bytes, server.max_body_bytes) * PARSE_FACTOR
     mllp = server.mllp_max_buffered_bytes if server.mllp_port is not None else 0
     answers = server.max_concurrent_requests * ANSWER_BYTES
     return BASE_BYTES + server.max_buffered_bytes + parsing + answers + mllp

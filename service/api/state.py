@@ -50,7 +50,7 @@ class ServiceState:
     def __post_init__(self) -> None:
         server = self.server
         self.budget = ByteBudget(server.max_buffered_bytes)
-        self.work = WorkPool(server.work_threads)
+        self.work = WorkPool(server.work_threads, inline_bytes=server.inline_bytes)
         self.read_limits = ReadLimits(server.max_bundle_entries, server.max_issues)
         self.v2_limits = V2Limits(
             max_segments=server.hl7_max_segments,

@@ -114,7 +114,7 @@ async def assess_hypoxaemia(request: Request) -> Response:
         request, server.max_body_bytes, server.body_timeout_s, service.budget
     ) as raw:
         record.bytes_in = len(raw)
-        answered = await service.work.run_heavy(
+        answered = await service.work.run_sized(
             len(raw), answer_bundle, runtime, raw, units, service.read_limits
         )
     record.pattern = answered.tally.pattern
