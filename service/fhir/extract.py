@@ -33,7 +33,13 @@ from service.fhir import addresses, codes
 from service.fhir.dates import parse_date
 from service.fhir.observation import ObservationReader
 from service.fhir.outcome import NotABundleError, Problem, TooLargeError, error
-from service.fhir.references import FHIR_ID, BundleIndex, resource_reference, type_and_id
+from service.fhir.references import (
+    FHIR_ID,
+    BundleIndex,
+    own_reference,
+    resource_reference,
+    type_and_id,
+)
 from service.fhir.shape import (
     Collector,
     JsonObject,
@@ -257,10 +263,11 @@ def _plain_entry(i: int, item: object, index: BundleIndex) -> _Entry | None:
         if "id" in resource:
             return None
         reference = full_url or ""
-    elif type(rid) is str and FHIR_ID.fullmatch(rid):
-        reference = f"{kind}/{rid}"
     else:
-        return None
+        found = own_reference(kind, rid) if type(rid) is str else None
+        if found is None:
+            return None  # not a FHIR id: the thorough reader says so
+        reference = found
     index.add(i, resource, full_url)
     return _Entry(i, resource, kind, full_url, reference, at)
 

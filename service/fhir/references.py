@@ -86,7 +86,11 @@ def resource_reference(resource: JsonObject, full_url: str | None) -> str:
     An empty string means the resource has neither an id nor a fullUrl and cannot be referenced;
     renderers leave such a reference out.
     """
-    kind, rid = resource.get("resourceType"), resource.get("id")
+    return own_reference(resource.get("resourceType"), resource.get("id")) or full_url or ""
+
+
+def own_reference(kind: object, rid: object) -> str | None:
+    """``Type/id`` of a resource of type ``kind`` whose ``id`` is a FHIR id, else None."""
     if isinstance(kind, str) and isinstance(rid, str) and FHIR_ID.fullmatch(rid):
         return f"{kind}/{rid}"
-    return full_url or ""
+    return None
