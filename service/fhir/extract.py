@@ -278,12 +278,13 @@ def _plain_entry(i: int, item: object, index: BundleIndex) -> _Entry | None:
         if "id" in resource:
             return None
         reference = full_url or ""
+        index.add(i, resource, full_url)
     else:
         found = own_reference(kind, rid) if type(rid) is str else None
         if found is None:
             return None  # not a FHIR id: the thorough reader says so
         reference = found
-    index.add(i, resource, full_url)
+        index.add(i, resource, full_url, reference)
     return _Entry(i, resource, kind, full_url, reference, at)
 
 
