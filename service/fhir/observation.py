@@ -14,7 +14,6 @@ because the sender cannot say whether the value stands. Any other status refuses
 
 from __future__ import annotations
 
-import sys
 from dataclasses import dataclass, field, replace
 from datetime import datetime
 
@@ -24,6 +23,7 @@ from service.fhir.references import BundleIndex
 from service.fhir.shape import (
     Collector,
     JsonObject,
+    finite_float,
     member_list,
     member_object,
     objects,
@@ -53,7 +53,6 @@ _PLAIN_ELEMENTS = frozenset(
     }
 )  # fmt: skip
 _PLAIN_QUANTITY = frozenset({"value", "unit", "system", "code"})
-_LARGEST = sys.float_info.max
 
 
 @dataclass(slots=True)
@@ -109,18 +108,33 @@ class ObservationReader:
         if converted is not None:
             severity, message = converted
             self.out.issue("unit-converted", severity, message, f"{at}.valueQuantity")
-        quantity: Quantity = concept.quantity
-        specimen = concept.specimen
-        if concept.by_specimen is not None:
-            specimen, known = self._specimen(resource, at)
-            if known:
-                quantity = concept.by_specimen.get(specimen, quantity)
         source = Source(reference, at)
         return [
-            Measurement(
-                quantity, value, time, source, specimen, sent_value, sent_unit, concept.fio2_source
-            )
+            self._measurement(concept, value, time, source, resource, at, sent_value, sent_unit)
         ]
+
+    def _measurement(
+        self,
+        concept: Concept,
+        value: float | str,
+        time: datetime | None,
+        source: Source,
+        observation: JsonObject,
+        observation_at: str,
+        sent_value: float | None = None,
+        sent_unit: str | None = None,
+    ) -> Measurement:
+        """The measurement of a value read for ``concept`` (both paths build it here): the
+        quantity of a "Bld" code follows the specimen of the Observation at
+        ``observation_at``."""
+        quantity, specimen = concept.quantity, concept.specimen
+        if concept.by_specimen is not None:
+            specimen, known = self._specimen(observation, observation_at)
+            if known:
+                quantity = concept.by_specimen.get(specimen, quantity)
+        return Measurement(
+            quantity, value, time, source, specimen, sent_value, sent_unit, concept.fio2_source
+        )
 
     def _plain_time(self, sent: object) -> datetime | None:
         """An ``effectiveDateTime`` with a time and a zone (parsed once per Bundle), or None."""
@@ -254,21 +268,16 @@ class ObservationReader:
         reading = _value(holder, at, concept, self.out)
         if reading is None:
             return
-        quantity, specimen = concept.quantity, concept.specimen
-        if concept.by_specimen is not None:
-            specimen, known = self._specimen(observation or holder, observation_at)
-            if known:
-                quantity = concept.by_specimen.get(specimen, quantity)
         found.append(
-            Measurement(
-                quantity=quantity,
-                value=reading.value,
-                time=time,
-                source=Source(reference, at),
-                specimen=specimen,
-                sent_value=reading.sent_value,
-                sent_unit=reading.sent_unit,
-                fio2_source=concept.fio2_source,
+            self._measurement(
+                concept,
+                reading.value,
+                time,
+                Source(reference, at),
+                observation or holder,
+                observation_at,
+                reading.sent_value,
+                reading.sent_unit,
             )
         )
         if concept.lower_limit is not None:
@@ -385,17 +394,12 @@ def _plain_quantity(q: object, concept: Concept) -> Settled | None:
     """A ``valueQuantity`` with a finite value and a UCUM code, read for ``concept``, or None."""
     if type(q) is not dict or not q.keys() <= _PLAIN_QUANTITY:
         return None
-    value, unit = q.get("value"), q.get("code")
-    if type(value) is float:
-        if not -_LARGEST <= value <= _LARGEST:  # also false for NaN
-            return None
-    elif type(value) is int:
-        try:
-            value = float(value)
-        except OverflowError:
-            return None
-    else:
+    sent, unit = q.get("value"), q.get("code")
+    if type(sent) is not float and type(sent) is not int:
         return None  # absent, null, a bool, a string: the thorough reader says which
+    value = finite_float(sent)
+    if value is None:
+        return None
     if type(unit) is not str or not unit.strip() or unit in NOT_UCUM:
         return None
     if q.get("system") != codes.UCUM:

@@ -12,6 +12,8 @@ from __future__ import annotations
 from dataclasses import dataclass, replace
 from typing import TypeVar
 
+from msgspec.structs import replace as struct_replace  # the intake records are Structs
+
 from service.fhir.outcome import BundleError, LocatedError, NotABundleError, Problem, error
 from service.intake.model import Intake
 
@@ -96,9 +98,13 @@ def rebased_intake(intake: Intake, root: str) -> Intake:
     """The intake with every location rooted at ``root`` (the Bundle inside a Parameters)."""
     if root == BUNDLE:
         return intake
-    intake.issues = [replace(i, expression=rebased_path(i.expression, root)) for i in intake.issues]
+    intake.issues = [
+        struct_replace(i, expression=rebased_path(i.expression, root)) for i in intake.issues
+    ]
     intake.measurements = [
-        replace(m, source=replace(m.source, expression=rebased_path(m.source.expression, root)))
+        struct_replace(
+            m, source=struct_replace(m.source, expression=rebased_path(m.source.expression, root))
+        )
         for m in intake.measurements
     ]
     return intake

@@ -44,15 +44,24 @@ class BundleIndex:
     _by_full_url_type_id: dict[str, int] = field(default_factory=dict)
     _parsed: int = 0  # how many of ``_full_urls`` have been parsed into the dict above
 
-    def add(self, entry: int, resource: JsonObject, full_url: str | None) -> None:
-        """Index the resource of ``Bundle.entry[entry]``; the first of duplicates wins."""
+    def add(
+        self, entry: int, resource: JsonObject, full_url: str | None, own: str | None = None
+    ) -> None:
+        """Index the resource of ``Bundle.entry[entry]``; the first of duplicates wins.
+
+        ``own``: its ``Type/id`` when the caller has formed it already (the reader's plain path
+        has); otherwise it is formed here, from any string id.
+        """
         self.resources[entry] = resource
         if full_url is not None:
             self._by_full_url.setdefault(full_url, entry)
             self._full_urls.append((entry, full_url))
-        kind, rid = resource.get("resourceType"), resource.get("id")
-        if isinstance(kind, str) and isinstance(rid, str):
-            self._by_own_type_id.setdefault(f"{kind}/{rid}", entry)
+        if own is None:
+            kind, rid = resource.get("resourceType"), resource.get("id")
+            if not isinstance(kind, str) or not isinstance(rid, str):
+                return
+            own = f"{kind}/{rid}"
+        self._by_own_type_id.setdefault(own, entry)
 
     def resolve(self, reference: str) -> int | None:
         """The entry index a reference points at, or None when it is not in the Bundle."""
@@ -86,7 +95,11 @@ def resource_reference(resource: JsonObject, full_url: str | None) -> str:
     An empty string means the resource has neither an id nor a fullUrl and cannot be referenced;
     renderers leave such a reference out.
     """
-    kind, rid = resource.get("resourceType"), resource.get("id")
+    return own_reference(resource.get("resourceType"), resource.get("id")) or full_url or ""
+
+
+def own_reference(kind: object, rid: object) -> str | None:
+    """``Type/id`` of a resource of type ``kind`` whose ``id`` is a FHIR id, else None."""
     if isinstance(kind, str) and isinstance(rid, str) and FHIR_ID.fullmatch(rid):
         return f"{kind}/{rid}"
-    return full_url or ""
+    return None

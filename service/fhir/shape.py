@@ -154,14 +154,20 @@ def member_number(
     if isinstance(value, bool) or not isinstance(value, int | float):
         _wrong_type(out, "a number", value, path)
         return None
+    number = finite_float(value)
+    if number is None:
+        out.problem("value", "expected a finite number", path)
+    return number
+
+
+def finite_float(value: int | float) -> float | None:
+    """A JSON number as a finite float; None when it is not finite or too large for one.
+    The one rule of both reading paths (``member_number`` and the plain path's quantity)."""
     try:
         number = float(value)
     except OverflowError:
-        number = math.inf
-    if not math.isfinite(number):
-        out.problem("value", "expected a finite number", path)
         return None
-    return number
+    return number if math.isfinite(number) else None
 
 
 def str_items(obj: JsonObject, key: str, at: str, out: Collector) -> list[str]:

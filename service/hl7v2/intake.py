@@ -25,7 +25,7 @@ message whose parts cannot all be used gives ``IntakeIssue``s and is assessed.
 
 from __future__ import annotations
 
-from dataclasses import replace
+from msgspec.structs import replace  # the intake records are msgspec Structs
 
 from service.hl7v2 import tables
 from service.hl7v2.errors import ErrorCode, Location, MessageInError, condensed_errors

@@ -3,6 +3,15 @@
 Both the FHIR and the HL7 v2 adapters produce an ``Intake``; everything after them (pairing,
 physiology, rules) reads only this. Values are already converted to the canonical unit of
 their ``Quantity`` (see ``QUANTITY_UNITS``), once, by the adapter.
+
+The records built for every value read (``Source``, ``Measurement``, ``IntakeIssue``,
+``Patient``) are frozen msgspec Structs rather than frozen dataclasses: the same immutable,
+hashable, comparable records, built in C (an eight-field ``Measurement`` in about 0.08 µs
+against 0.9 µs for a frozen slotted dataclass, whose ``__init__`` sets each field through
+``object.__setattr__``; they were 1.3 µs of the reader's ~8 µs per Observation). Change one with
+``msgspec.structs.replace``. ``gc=False``: none of them can take part in a reference cycle
+(they hold strings, numbers, enums, dates and other such records only), so the garbage
+collector need not track them.
 """
 
 from __future__ import annotations
@@ -10,6 +19,8 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from datetime import date, datetime
 from enum import StrEnum
+
+import msgspec
 
 
 class Quantity(StrEnum):
@@ -110,8 +121,7 @@ class Fio2Source(StrEnum):
     SITE_SETTING = "site-setting"
 
 
-@dataclass(frozen=True, slots=True)
-class Source:
+class Source(msgspec.Struct, frozen=True, gc=False):
     """Where a value was read: a reference for ``derivedFrom`` and a FHIRPath (or v2 path)
     for error messages, e.g. ``Observation/pao2-1`` and ``Bundle.entry[3].resource``."""
 
@@ -119,8 +129,7 @@ class Source:
     expression: str
 
 
-@dataclass(frozen=True, slots=True)
-class Measurement:
+class Measurement(msgspec.Struct, frozen=True, gc=False):
     """One value, converted to the canonical unit of its quantity.
 
     ``sent_value``/``sent_unit`` keep what the sender wrote when a conversion happened.
@@ -150,8 +159,7 @@ class Severity(StrEnum):
     INFORMATION = "information"
 
 
-@dataclass(frozen=True, slots=True)
-class IntakeIssue:
+class IntakeIssue(msgspec.Struct, frozen=True, gc=False):
     """Something met while reading the input that the result must report.
 
     ``code`` is a finding code of the result (``unit-converted``, ``observation-ignored``,
@@ -164,8 +172,7 @@ class IntakeIssue:
     expression: str
 
 
-@dataclass(frozen=True, slots=True)
-class Patient:
+class Patient(msgspec.Struct, frozen=True, gc=False):
     """The little the service needs of the patient. No name, no identifier."""
 
     reference: str | None

@@ -6,14 +6,14 @@ conversions alike.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+import msgspec
 
 from service.intake.model import QUANTITY_UNITS, Quantity, Severity
 
 
-@dataclass(frozen=True, slots=True)
-class Reading:
-    """A value in its quantity's canonical unit; ``sent_*`` are set when it was converted."""
+class Reading(msgspec.Struct, frozen=True, gc=False):
+    """A value in its quantity's canonical unit; ``sent_*`` are set when it was converted.
+    (A msgspec Struct like the intake records: ``service.intake.model``.)"""
 
     value: float | str
     sent_value: float | None = None

@@ -17,8 +17,10 @@ that PaCO2 and the same bicarbonate would read. The physiology core computes it.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 from datetime import date, datetime
+
+from msgspec.structs import replace  # the intake records are msgspec Structs
 
 from service.assess.pairing import PairedGas
 from service.intake.model import (
