@@ -58,6 +58,7 @@ PART_MEANINGS = {
     GAS_EXCHANGE: "A-a gradient above the normal for age at this alveolar PO2",
     UNATTRIBUTED: "ventilation and gas exchange together: no PaCO2 to tell them apart",
 }
+_RESIDENCES = tuple(r.value for r in ref.Residence)
 RESIDENCE_WORDS = {
     ref.Residence.RESIDENT.value: "if the patient lives at this altitude",
     ref.Residence.VISITOR.value: "if the patient has come from lower down",
@@ -152,11 +153,10 @@ def _partition(facts: dict[str, FactValue]) -> DeficitPartition | None:
 def _method(gas: GasFacts, facts: dict[str, FactValue], settings: Settings) -> str:
     imputed = "arterial_po2" not in facts
     expected = gas.derived.get("pao2-expected")
-    reference = f" ({expected.method})" if expected is not None and expected.method else ""
     residence = facts.get("altitude_residence")
     return _method_text(
         imputed,
-        reference,
+        expected.method if expected is not None else "",
         _number(facts, "barometric_pressure"),
         residence if isinstance(residence, str) else None,
         "arterial_pco2" not in facts or imputed,
@@ -167,7 +167,7 @@ def _method(gas: GasFacts, facts: dict[str, FactValue], settings: Settings) -> s
 @lru_cache(maxsize=256)
 def _method_text(
     imputed: bool,
-    reference: str,
+    expected_method: str,
     pb: float | None,
     residence: str | None,
     no_paco2: bool,
@@ -177,6 +177,7 @@ def _method_text(
     site share a few (writing it, with the expected PaCO2's source, cost more than the rest of
     the partition)."""
     used = "PaO2 imputed from SpO2 (Brown 2016)" if imputed else "PaO2"
+    reference = f" ({expected_method})" if expected_method else ""
     paco2 = ""
     if pb is not None:
         who = ref.Residence(residence) if residence is not None else ref.Residence.RESIDENT
@@ -245,9 +246,9 @@ def partitions(gas: GasFacts, settings: Settings) -> tuple[ShownPartition, ...]:
         return ()
     inputs = _read_sources(gas)
     shown = []
-    for residence in ref.Residence:
-        facts = derive_again(gas, {"altitude_residence": residence.value}, settings=settings)
-        found = _shown(gas, facts, residence.value, inputs, settings)
+    for residence in _RESIDENCES:
+        facts = derive_again(gas, {"altitude_residence": residence}, settings=settings)
+        found = _shown(gas, facts, residence, inputs, settings)
         if found is None:
             return ()
         shown.append(found)

@@ -23,8 +23,10 @@ read-only: serialise it (orjson does not change it) or ``copy.deepcopy`` it befo
 
 from __future__ import annotations
 
+import re
 import uuid
 from collections.abc import Iterable, Mapping
+from datetime import timedelta
 from functools import lru_cache
 from typing import Any
 from urllib.parse import quote
@@ -68,6 +70,7 @@ GAS_EXCHANGE_SYSTEM = BASE + "gas-exchange-status"
 INTERPRETATION = "http://terminology.hl7.org/CodeSystem/v3-ObservationInterpretation"
 CANONICAL = "https://oxyrule.org/fhir"
 URI_SYSTEM = "urn:ietf:rfc:3986"
+_CANONICAL_UUID = re.compile(r"[0-9a-f]{8}-[0-9a-f]{4}-[0-9a-f]{4}-[0-9a-f]{4}-[0-9a-f]{12}")
 
 # Findings about processing the input (what was not read, converted or used): issues of the
 # OperationOutcome, with the FHIRPath of the element in the input. The issue type says what
@@ -214,7 +217,19 @@ _KEPT = 4096
 codes are a few hundred; past the limit the table starts again)."""
 _FINDING_CODINGS: dict[tuple[str | None, str, str | None], Json] = {}
 _REQUIREMENTS: dict[tuple[str, str], Json] = {}
-_SHAPES: dict[str, dict[tuple[str, str], QuantityShape]] = {"mm[Hg]": {}, "kPa": {}}
+_PRESSURE_UNITS: tuple[PressureUnit, ...] = ("mm[Hg]", "kPa")
+# Each derived value's shape by name, with the unit it was for (the catalogue's, one per name).
+_SHAPES: dict[str, dict[str, tuple[str, QuantityShape]]] = {u: {} for u in _PRESSURE_UNITS}
+# The names a partition's pressures are shown under: the PaO2, the expected PaO2, the fall, then
+# the parts (``pao2-expected``, ``pao2-fall`` and ``deficit-…`` are also the Observation's
+# component codes, so the two show one Quantity).
+_PRESSURE_SHAPES = {
+    u: {
+        n: quantity_shape(n, "mm[Hg]", u)
+        for n in ("pao2", "pao2-expected", "pao2-fall", *_DEFICIT_NAMES.values())
+    }
+    for u in _PRESSURE_UNITS
+}
 
 
 def _kept(table: dict[Any, Json], key: Any, build: Json) -> Json:
@@ -272,7 +287,10 @@ class _Links:
     def __init__(self, decision_id: str, addresses: Mapping[str, Json]) -> None:
         # Entry URLs derive from the decision id (its last 12 hex digits replaced by the
         # entry's number), so a result is reproducible apart from it and needs no hashing.
-        self.prefix = str(uuid.UUID(decision_id))[:24]
+        # A decision id in the canonical form (the service's own) is its own spelling;
+        # any other goes through ``uuid`` (which refuses what is no UUID).
+        canonical = _CANONICAL_UUID.fullmatch(decision_id) is not None
+        self.prefix = (decision_id if canonical else str(uuid.UUID(decision_id)))[:24]
         self.addresses = addresses
         self.urls: dict[str, str] = {}
         self.described: dict[str, Json] = {}
@@ -320,7 +338,7 @@ class _Quantities:
         # parts, and each value's Quantity by name.
         self.listed_by: dict[int, tuple[list[Json], dict[str, Json]]] = {}
         # By the identity of a shown partition: its Quantities.
-        self.partition: dict[int, tuple[Json, Json, Json, list[tuple[str, Json]]]] = {}
+        self.partition: dict[int, tuple[list[Json], list[tuple[str, Json]]]] = {}
 
     def listed(self, derived: dict[str, Derived]) -> tuple[list[Json], dict[str, Json]]:
         """The ``name``/``valueQuantity`` parts of ``derived`` in ``QUANTITY_ORDER``, and
@@ -337,11 +355,11 @@ class _Quantities:
             if d is None:
                 continue
             unit = d.unit
-            shape = shapes.get((name, unit))
-            if shape is None:
-                shape = shapes[(name, unit)] = derived_shape(name, unit, pressure_unit)
+            known = shapes.get(name)
+            if known is None or known[0] != unit:
+                known = shapes[name] = (unit, derived_shape(name, unit, pressure_unit))
             # As ``presentation.shaped``, inlined: this loop runs for every value shown.
-            decimals, shown, convert = shape
+            decimals, shown, convert = known[1]
             value = kpa_from_mmhg(d.value) if convert else d.value
             rounded = round(value, decimals) + 0.0  # + 0.0: no negative zero
             q = by_name[name] = {
@@ -354,27 +372,41 @@ class _Quantities:
         found = self.listed_by[key] = (parts, by_name)
         return found
 
-    def pressures(self, shown: ShownPartition) -> tuple[Json, Json, Json, list[tuple[str, Json]]]:
-        """The PaO2, expected PaO2 and fall of a partition, and each (part, Quantity)."""
+    def pressures(self, shown: ShownPartition) -> tuple[list[Json], list[tuple[str, Json]]]:
+        """The Quantities of a partition: [PaO2, expected PaO2, fall], and (part, Quantity)
+        of each part."""
         key = id(shown)
         found = self.partition.get(key)
-        if found is None:
-            d = shown.partition
-            found = self.partition[key] = (
-                self.pressure_of("pao2", d.arterial_po2),
-                self.pressure_of("pao2-expected", d.expected_pao2),
-                self.pressure_of("pao2-fall", d.fall),
-                [(k, self.pressure_of(_DEFICIT_NAMES[k], v)) for k, v in shown.parts],
+        if found is not None:
+            return found
+        shapes = _PRESSURE_SHAPES[self.pressure_unit]
+        d = shown.partition
+        shown_parts = shown.parts
+        named = [
+            ("pao2", d.arterial_po2),
+            ("pao2-expected", d.expected_pao2),
+            ("pao2-fall", d.fall),
+        ]
+        named += [(_DEFICIT_NAMES[k], v) for k, v in shown_parts]
+        out: list[Json] = []
+        for name, mmhg in named:
+            # As ``presentation.shaped``, inlined.
+            decimals, unit, convert = shapes[name]
+            value = kpa_from_mmhg(mmhg) if convert else mmhg
+            rounded = round(value, decimals) + 0.0  # + 0.0: no negative zero
+            out.append(
+                {
+                    "value": rounded if decimals else float(int(rounded)),
+                    "unit": unit,
+                    "system": UCUM,
+                    "code": unit,
+                }
             )
+        found = self.partition[key] = (
+            out[:3],
+            [(k, q) for (k, _), q in zip(shown_parts, out[3:], strict=True)],
+        )
         return found
-
-    def pressure_of(self, name: str, mmhg: float) -> Json:
-        shape = self.shapes.get((name, "mm[Hg]"))
-        if shape is None:
-            shape = self.shapes[(name, "mm[Hg]")] = quantity_shape(
-                name, "mm[Hg]", self.pressure_unit
-            )
-        return shaped(mmhg, shape)
 
 
 def _mechanism_parameter(m: MechanismVerdict) -> Json:
@@ -419,31 +451,42 @@ def _paired(gas: GasFacts, links: _Links) -> list[Json]:
     """Each value paired with the gas and how long before it (negative: after) it was taken,
     so a reader can judge whether an Hb of yesterday or a DLCO of last spring still holds."""
     out: list[Json] = []
-    anchor = gas.gas.anchor
+    paired = gas.gas
+    anchor = paired.anchor
     at = anchor.time if anchor is not None else None
-    to_input = links.to_input
-    for quantity, m in gas.gas.values.items():
+    addresses, to_input = links.addresses, links.to_input
+    for quantity, m in paired.values.items():
         if m is anchor:
             continue
+        reference = m.source.reference
         item: list[Json] = [
             _PAIRED_QUANTITY[quantity],
-            {"name": "observation", "valueReference": to_input(m.source.reference)},
+            {
+                "name": "observation",
+                "valueReference": addresses.get(reference) or to_input(reference),
+            },
         ]
         if at is not None and m.time is not None:
-            minutes = round((at - m.time).total_seconds() / 60.0, 1)
-            item.append(
-                {
-                    "name": "taken-before-gas",
-                    "valueQuantity": {
-                        "value": minutes,
-                        "unit": "min",
-                        "system": UCUM,
-                        "code": "min",
-                    },
-                }
-            )
+            before = {
+                "value": minutes_before(at - m.time),
+                "unit": "min",
+                "system": UCUM,
+                "code": "min",
+            }
+            item.append({"name": "taken-before-gas", "valueQuantity": before})
         out.append({"name": "paired", "part": item})
     return out
+
+
+def minutes_before(offset: timedelta) -> float:
+    """``offset`` in minutes to one decimal, as ``round(offset.total_seconds() / 60.0, 1)``.
+
+    Written out because most offsets are whole minutes (values of one panel: none at all),
+    whose float is exact without the decimal rounding, the costlier step."""
+    seconds = offset.seconds  # timedelta keeps 0 <= seconds < 86400, the sign in days
+    if not offset.microseconds and not seconds % 60:
+        return float(offset.days * 1440 + seconds // 60)
+    return round(offset.total_seconds() / 60.0, 1)
 
 
 def _deficit_parameter(
@@ -461,7 +504,7 @@ def _deficit_parameter(
     if shown.residence is not None:
         part.append({"name": "altitude-residence", "valueCode": shown.residence})
         part.append({"name": "assumption", "valueString": shown.assumption})
-    pao2, expected, fall, parts = q.pressures(shown)
+    (pao2, expected, fall), parts = q.pressures(shown)
     part += [
         {"name": "pao2", "valueQuantity": pao2},
         _BASIS_PART[shown.imputed],
@@ -626,7 +669,7 @@ def _deficit_observation(shown: ShownPartition, about: Json, q: _Quantities, lin
     code, display = DEFICIT_OBSERVATION
     identifier = code if shown.residence is None else f"{code}-{shown.residence}"
     # The same Quantities as the ``deficit`` parameter's: shown under the same decimals.
-    _, expected, fall, parts = q.pressures(shown)
+    (_, expected, fall), parts = q.pressures(shown)
     components = [
         {"code": _DEFICIT_CODE["expected"], "valueQuantity": expected},
         {"code": _DEFICIT_CODE["fall"], "valueQuantity": fall},
