@@ -70,6 +70,8 @@ GAS_EXCHANGE_SYSTEM = BASE + "gas-exchange-status"
 INTERPRETATION = "http://terminology.hl7.org/CodeSystem/v3-ObservationInterpretation"
 CANONICAL = "https://oxyrule.org/fhir"
 URI_SYSTEM = "urn:ietf:rfc:3986"
+# The last 12 hex digits of an entry's fullUrl: its number, written once for the usual counts.
+_ENTRY_NUMBERS = [f"{n:012x}" for n in range(64)]
 _CANONICAL_UUID = re.compile(r"[0-9a-f]{8}-[0-9a-f]{4}-[0-9a-f]{4}-[0-9a-f]{4}-[0-9a-f]{12}")
 
 # Findings about processing the input (what was not read, converted or used): issues of the
@@ -282,7 +284,7 @@ def _rule_url(rule: str) -> str:
 class _Links:
     """The fullUrls of the result's entries and the References to the input's resources."""
 
-    __slots__ = ("addresses", "described", "prefix", "urls")
+    __slots__ = ("addresses", "base", "described", "urls")
 
     def __init__(self, decision_id: str, addresses: Mapping[str, Json]) -> None:
         # Entry URLs derive from the decision id (its last 12 hex digits replaced by the
@@ -290,7 +292,8 @@ class _Links:
         # A decision id in the canonical form (the service's own) is its own spelling;
         # any other goes through ``uuid`` (which refuses what is no UUID).
         canonical = _CANONICAL_UUID.fullmatch(decision_id) is not None
-        self.prefix = (decision_id if canonical else str(uuid.UUID(decision_id)))[:24]
+        prefix = (decision_id if canonical else str(uuid.UUID(decision_id)))[:24]
+        self.base = f"urn:uuid:{prefix}"
         self.addresses = addresses
         self.urls: dict[str, str] = {}
         self.described: dict[str, Json] = {}
@@ -299,8 +302,15 @@ class _Links:
         """The fullUrl of the result entry ``local_id`` (numbered in order of first use)."""
         url = self.urls.get(local_id)
         if url is None:
-            url = self.urls[local_id] = f"urn:uuid:{self.prefix}{len(self.urls) + 1:012x}"
+            n = len(self.urls) + 1
+            number = _ENTRY_NUMBERS[n] if n < len(_ENTRY_NUMBERS) else f"{n:012x}"
+            url = self.urls[local_id] = self.base + number
         return url
+
+    def to_inputs(self, references: Iterable[str]) -> list[Json]:
+        """``to_input`` of each reference."""
+        get, to_input = self.addresses.get, self.to_input
+        return [get(r) or to_input(r) for r in references]
 
     def to_entry(self, local_id: str) -> Json:
         return {"reference": self.entry(local_id)}
@@ -626,7 +636,7 @@ def _derived_from(name: str, d: Derived, gas: GasFacts) -> list[str]:
     """The input references behind a derived value: its own inputs, and with an FiO2
     estimated from the device and the flow, the Observations of those."""
     refs = [s.reference for s in d.inputs]
-    if name in USES_FIO2 and gas.fio2_source == "device-estimate":
+    if gas.fio2_source == "device-estimate" and name in USES_FIO2:
         for fact in _FIO2_ESTIMATE_FACTS:
             refs += [s.reference for s in gas.sources.get(fact, ())]
     return [r for r in dict.fromkeys(refs) if r]
@@ -659,7 +669,7 @@ def _observation(
         obs["referenceRange"] = [{"high": limit[1], "text": "room-air limit for age"}]
     refs = _derived_from(name, d, gas)
     if refs:
-        obs["derivedFrom"] = [links.to_input(r) for r in refs]
+        obs["derivedFrom"] = links.to_inputs(refs)
     return obs
 
 
@@ -692,9 +702,9 @@ def _deficit_observation(shown: ShownPartition, about: Json, q: _Quantities, lin
     }
     if shown.assumption is not None:
         obs["note"] = [{"text": f"Residence not sent: computed {shown.assumption}."}]
-    refs = [r for r in dict.fromkeys(s.reference for s in shown.inputs) if r]
+    refs = [r for r in dict.fromkeys([s.reference for s in shown.inputs]) if r]
     if refs:
-        obs["derivedFrom"] = [links.to_input(r) for r in refs]
+        obs["derivedFrom"] = links.to_inputs(refs)
     return obs
 
 
