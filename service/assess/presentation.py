@@ -90,8 +90,9 @@ def derived_shape(name: str, unit: str, pressure_unit: PressureUnit) -> Quantity
 
 
 def shaped(value: float, shape: QuantityShape) -> Json:
-    """The Quantity of ``value`` (canonical unit) shown as ``shape`` says: the one place a
-    shown value is converted and rounded."""
+    """The Quantity of ``value`` (canonical unit) shown as ``shape`` says: the one rule by
+    which a shown value is converted and rounded (``service.fhir.render`` writes it out in its
+    loops over many values, the same three steps)."""
     decimals, unit, convert = shape
     if convert:
         value = kpa_from_mmhg(value)

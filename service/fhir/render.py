@@ -491,10 +491,11 @@ def _paired(gas: GasFacts, links: _Links) -> list[Json]:
 def minutes_before(offset: timedelta) -> float:
     """``offset`` in minutes to one decimal, as ``round(offset.total_seconds() / 60.0, 1)``.
 
-    Written out because most offsets are whole minutes (values of one panel: none at all),
-    whose float is exact without the decimal rounding, the costlier step."""
+    Written out because most offsets are whole minutes (values of one panel: none at all):
+    a whole number of minutes, give or take less than a second (under a tenth of a minute
+    either way), is its own rounding, exact as a float, without the costlier decimal step."""
     seconds = offset.seconds  # timedelta keeps 0 <= seconds < 86400, the sign in days
-    if not offset.microseconds and not seconds % 60:
+    if not seconds % 60:
         return float(offset.days * 1440 + seconds // 60)
     return round(offset.total_seconds() / 60.0, 1)
 
