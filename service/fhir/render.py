@@ -513,8 +513,7 @@ def _deficit_parameter(
         part.append({"name": "not-computed", "valueString": gas.absent or "not computable"})
         return {"name": "deficit", "part": part}
     if shown.residence is not None:
-        part.append({"name": "altitude-residence", "valueCode": shown.residence})
-        part.append({"name": "assumption", "valueString": shown.assumption})
+        part += _assumed(shown.residence, shown.assumption).parts
     (pao2, expected, fall), parts = q.pressures(shown)
     part += [
         {"name": "pao2", "valueQuantity": pao2},
@@ -674,6 +673,40 @@ def _observation(
     return obs
 
 
+class _Assumed:
+    """What a partition computed for an assumed residence shows of it: the ``deficit``
+    parameter's parts, the Observation's component and note (one per residence, shared)."""
+
+    __slots__ = ("component", "note", "parts")
+
+    def __init__(self, residence: str, assumption: str | None) -> None:
+        self.parts: list[Json] = [
+            {"name": "altitude-residence", "valueCode": residence},
+            {"name": "assumption", "valueString": assumption},
+        ]
+        coding = _coding(ALTITUDE_RESIDENCE_CODES, residence)
+        self.component: Json = {
+            "code": _RESIDENCE_CODE,
+            "valueCodeableConcept": {"coding": [coding]},
+        }
+        self.note: list[Json] = [{"text": f"Residence not sent: computed {assumption}."}]
+
+
+_ASSUMED: dict[tuple[str, str | None], _Assumed] = {}
+# The partition Observation's code, by the PaO2 it partitions (measured or imputed).
+_DEFICIT_CONCEPTS: dict[str, Json] = {}
+
+
+def _assumed(residence: str, assumption: str | None) -> _Assumed:
+    key = (residence, assumption)
+    found = _ASSUMED.get(key)
+    if found is None:
+        if len(_ASSUMED) >= _KEPT:
+            _ASSUMED.clear()
+        found = _ASSUMED[key] = _Assumed(residence, assumption)
+    return found
+
+
 def _deficit_observation(shown: ShownPartition, about: Json, q: _Quantities, links: _Links) -> Json:
     """The index gas's partition as an Observation: one component per part, in the requested
     pressure unit; ``derivedFrom`` the inputs; the method names the partition and sources."""
@@ -686,23 +719,25 @@ def _deficit_observation(shown: ShownPartition, about: Json, q: _Quantities, lin
         {"code": _DEFICIT_CODE["fall"], "valueQuantity": fall},
     ]
     components += [{"code": _DEFICIT_CODE[key], "valueQuantity": value} for key, value in parts]
-    if shown.residence is not None:
-        residence = _coding(ALTITUDE_RESIDENCE_CODES, shown.residence)
-        components.append(
-            {"code": _RESIDENCE_CODE, "valueCodeableConcept": {"coding": [residence]}}
-        )
-    text = f"{display}: the fall of the {shown.pao2_label} below the PaO2 expected for age"
+    assumed = None if shown.residence is None else _assumed(shown.residence, shown.assumption)
+    if assumed is not None:
+        components.append(assumed.component)
+    label = shown.pao2_label
+    concept = _DEFICIT_CONCEPTS.get(label)
+    if concept is None:
+        text = f"{display}: the fall of the {label} below the PaO2 expected for age"
+        concept = _DEFICIT_CONCEPTS[label] = {"coding": _DEFICIT_OBSERVATION_CODING, "text": text}
     obs: Json = {
         "resourceType": "Observation",
         "id": identifier,
         "status": "final",
-        "code": {"coding": _DEFICIT_OBSERVATION_CODING, "text": text},
+        "code": concept,
         "method": {"text": shown.method},
         **about,
         "component": components,
     }
-    if shown.assumption is not None:
-        obs["note"] = [{"text": f"Residence not sent: computed {shown.assumption}."}]
+    if assumed is not None:
+        obs["note"] = assumed.note
     refs = [r for r in dict.fromkeys([s.reference for s in shown.inputs]) if r]
     if refs:
         obs["derivedFrom"] = links.to_inputs(refs)
