@@ -15,6 +15,7 @@ The steps of the waterfall, the parts shown and their order come from
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import lru_cache
 
 from service.config import Settings
 from service.intake.model import Source
@@ -57,6 +58,7 @@ PART_MEANINGS = {
     GAS_EXCHANGE: "A-a gradient above the normal for age at this alveolar PO2",
     UNATTRIBUTED: "ventilation and gas exchange together: no PaCO2 to tell them apart",
 }
+_RESIDENCES = tuple(r.value for r in ref.Residence)
 RESIDENCE_WORDS = {
     ref.Residence.RESIDENT.value: "if the patient lives at this altitude",
     ref.Residence.VISITOR.value: "if the patient has come from lower down",
@@ -150,24 +152,45 @@ def _partition(facts: dict[str, FactValue]) -> DeficitPartition | None:
 
 def _method(gas: GasFacts, facts: dict[str, FactValue], settings: Settings) -> str:
     imputed = "arterial_po2" not in facts
-    used = "PaO2 imputed from SpO2 (Brown 2016)" if imputed else "PaO2"
     expected = gas.derived.get("pao2-expected")
-    reference = f" ({expected.method})" if expected is not None and expected.method else ""
-    pb = _number(facts, "barometric_pressure")
     residence = facts.get("altitude_residence")
+    return _method_text(
+        imputed,
+        expected.method if expected is not None else "",
+        _number(facts, "barometric_pressure"),
+        residence if isinstance(residence, str) else None,
+        "arterial_pco2" not in facts or imputed,
+        settings.respiratory_quotient,
+    )
+
+
+@lru_cache(maxsize=256)
+def _method_text(
+    imputed: bool,
+    expected_method: str,
+    pb: float | None,
+    residence: str | None,
+    no_paco2: bool,
+    respiratory_quotient: float,
+) -> str:
+    """The method of a partition in words, from all it depends on: kept, as the gases of one
+    site share a few (writing it, with the expected PaCO2's source, cost more than the rest of
+    the partition)."""
+    used = "PaO2 imputed from SpO2 (Brown 2016)" if imputed else "PaO2"
+    reference = f" ({expected_method})" if expected_method else ""
     paco2 = ""
     if pb is not None:
-        who = ref.Residence(residence) if isinstance(residence, str) else ref.Residence.RESIDENT
+        who = ref.Residence(residence) if residence is not None else ref.Residence.RESIDENT
         paco2 = f" ({ref.expected_paco2(barometric_mmhg=pb, residence=who).method})"
     rest = (
         "; without a PaCO2, ventilation and gas exchange are reported together as unattributed"
-        if "arterial_pco2" not in facts or imputed
+        if no_paco2
         else ""
     )
     return (
         f"PaO2 deficit partition: the fall of the {used} below the PaO2 expected for age at sea "
         f"level on air{reference}, split through the full alveolar gas equation "
-        f"(R {settings.respiratory_quotient:g}) into inspired PO2 (altitude, FiO2), PaCO2 above "
+        f"(R {respiratory_quotient:g}) into inspired PO2 (altitude, FiO2), PaCO2 above "
         f"the value expected for the setting{paco2}, and A-a gradient above the normal for age "
         "at this alveolar PO2 (healthy-lung model: Cerveri 1995 on air, healthy men on 100 % "
         f"oxygen){rest}"
@@ -223,9 +246,9 @@ def partitions(gas: GasFacts, settings: Settings) -> tuple[ShownPartition, ...]:
         return ()
     inputs = _read_sources(gas)
     shown = []
-    for residence in ref.Residence:
-        facts = derive_again(gas, {"altitude_residence": residence.value}, settings=settings)
-        found = _shown(gas, facts, residence.value, inputs, settings)
+    for residence in _RESIDENCES:
+        facts = derive_again(gas, {"altitude_residence": residence}, settings=settings)
+        found = _shown(gas, facts, residence, inputs, settings)
         if found is None:
             return ()
         shown.append(found)

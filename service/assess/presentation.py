@@ -8,6 +8,7 @@ converted for display.
 from __future__ import annotations
 
 from collections.abc import Callable
+from functools import lru_cache
 from typing import TYPE_CHECKING, Any, Literal
 
 from service.engine.rationale import NO_UNITS, DisplayUnit, Units
@@ -50,30 +51,49 @@ QUANTITY_ORDER = (
 DECIMALS = {"fio2": 2, "a-a-ratio": 2, "pf-ratio": 0, "sf-ratio": 0}
 
 
+QuantityShape = tuple[int, str, bool]
+"""How one kind of value is shown: (display decimals, UCUM unit shown, whether a mm[Hg] value
+is converted to kPa). Depends only on the value's name, unit and the pressure unit asked for."""
+
+
 def quantity(name: str, value: float, unit: str, pressure_unit: PressureUnit) -> Json:
     """A UCUM Quantity, converting pressures to kPa when asked, rounded for display."""
-    return _quantity(value, *_shown(name, unit, pressure_unit))
+    return shaped(value, quantity_shape(name, unit, pressure_unit))
 
 
 def quantity_of(name: str, unit: str, pressure_unit: PressureUnit) -> Callable[[float], Json]:
     """``quantity`` for one name and unit, its decimals and conversion looked up once (for a
     series of values of one kind: the oxygen-response prediction curve)."""
-    shown = _shown(name, unit, pressure_unit)
+    shape = quantity_shape(name, unit, pressure_unit)
 
     def of(value: float) -> Json:
-        return _quantity(value, *shown)
+        return shaped(value, shape)
 
     return of
 
 
-def _shown(name: str, unit: str, pressure_unit: PressureUnit) -> tuple[int, str, bool]:
-    """(display decimals, unit shown, whether a mm[Hg] value is converted to kPa)."""
+@lru_cache(maxsize=1024)
+def quantity_shape(name: str, unit: str, pressure_unit: PressureUnit) -> QuantityShape:
+    """How a value of ``name`` in ``unit`` is shown for ``pressure_unit`` (looked up once per
+    kind: the names and units are the service's own, a few dozen)."""
     if unit == "mm[Hg]" and pressure_unit == "kPa":
         return (2 if name != "pf-ratio" else 1), "kPa", True
     return DECIMALS.get(name, 1), unit, False
 
 
-def _quantity(value: float, decimals: int, unit: str, convert: bool) -> Json:
+def derived_shape(name: str, unit: str, pressure_unit: PressureUnit) -> QuantityShape:
+    """``quantity_shape`` of a derived value (``shown_quantity``): S/F is shown in %."""
+    if name == "sf-ratio":
+        decimals, _, convert = quantity_shape(name, "1", pressure_unit)
+        return decimals, "%", convert
+    return quantity_shape(name, unit, pressure_unit)
+
+
+def shaped(value: float, shape: QuantityShape) -> Json:
+    """The Quantity of ``value`` (canonical unit) shown as ``shape`` says: the one rule by
+    which a shown value is converted and rounded (``service.fhir.render`` writes it out in its
+    loops over many values, the same three steps)."""
+    decimals, unit, convert = shape
     if convert:
         value = kpa_from_mmhg(value)
     # + 0.0 turns a negative zero (a part that rounds to nothing) into 0.0.
@@ -115,7 +135,4 @@ def pressure_label(unit: PressureUnit) -> str:
 def shown_quantity(name: str, d: Derived, pressure_unit: PressureUnit) -> Json:
     """A derived value's Quantity. S/F is SpO2 in % over FiO2 as a fraction, so its number
     (e.g. 405) is in UCUM ``%``; unit ``1`` would make it 405, not 4.05 (UCUM: % = 10^-2)."""
-    if name == "sf-ratio":
-        shown = quantity(name, d.value, "1", pressure_unit)
-        return {**shown, "unit": "%", "code": "%"}
-    return quantity(name, d.value, d.unit, pressure_unit)
+    return shaped(d.value, derived_shape(name, d.unit, pressure_unit))

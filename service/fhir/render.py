@@ -13,28 +13,46 @@ at as ``service.fhir.addresses`` says (a literal reference only where the receiv
 it). Built as dicts for speed; the tests validate every produced Bundle against the FHIR R4
 JSON Schema and the R4 and R4B models (tests/conformance). Pressures leave in mm[Hg] unless
 ``pressure_unit`` is ``kPa``: the one place where canonical units are converted for display.
+
+Speed: the parts that do not depend on the input (codings, code texts, the mechanism and
+status components, the caution) are built once, at import, and every result holds the same
+objects; each number is rounded once per render and its Quantity shared wherever it appears;
+the References to the input are the input's own (``Intake.addresses``). A result is therefore
+read-only: serialise it (orjson does not change it) or ``copy.deepcopy`` it before editing.
 """
 
 from __future__ import annotations
 
+import re
 import uuid
 from collections.abc import Iterable, Mapping
+from datetime import timedelta
+from functools import lru_cache
 from typing import Any
 from urllib.parse import quote
 
 from service.assess.derive import Derived, GasFacts
 from service.assess.partition import GasPartitions, ShownPartition, assessment_partitions
-from service.assess.presentation import QUANTITY_ORDER, PressureUnit, quantity, shown_quantity
+from service.assess.presentation import (
+    QUANTITY_ORDER,
+    PressureUnit,
+    QuantityShape,
+    derived_shape,
+    quantity_shape,
+    shaped,
+)
 from service.assess.result import CAUTION, Assessment, Finding, MechanismVerdict
 from service.config import Settings
-from service.engine import FindingCode
+from service.engine import FindingCode, GasExchangeStatus, Grade, Mechanism, Pattern
 from service.fhir.addresses import of_reference
 from service.fhir.oxygen_response import (
     oxygen_response_observation,
     oxygen_response_parameter,
     trend_parameter,
 )
+from service.intake.model import Quantity
 from service.physiology.deficit_steps import GAS_EXCHANGE, INSPIRED, UNATTRIBUTED, VENTILATION
+from service.physiology.units import kpa_from_mmhg
 from service.terminology.codes import ALTITUDE_RESIDENCE_CODES, UCUM
 from service.terminology.codes import DERIVED_OBSERVATION_CODES as OBSERVATION_CODES
 
@@ -51,6 +69,10 @@ DERIVED_SYSTEM = BASE + "derived"
 GAS_EXCHANGE_SYSTEM = BASE + "gas-exchange-status"
 INTERPRETATION = "http://terminology.hl7.org/CodeSystem/v3-ObservationInterpretation"
 CANONICAL = "https://oxyrule.org/fhir"
+URI_SYSTEM = "urn:ietf:rfc:3986"
+# The last 12 hex digits of an entry's fullUrl: its number, written once for the usual counts.
+_ENTRY_NUMBERS = [f"{n:012x}" for n in range(64)]
+_CANONICAL_UUID = re.compile(r"[0-9a-f]{8}-[0-9a-f]{4}-[0-9a-f]{4}-[0-9a-f]{4}-[0-9a-f]{12}")
 
 # Findings about processing the input (what was not read, converted or used): issues of the
 # OperationOutcome, with the FHIRPath of the element in the input. The issue type says what
@@ -102,6 +124,8 @@ USES_FIO2 = frozenset(
         "shunt-fraction",
     }
 )
+# The facts whose Observations an FiO2 estimated from the device and the flow came from.
+_FIO2_ESTIMATE_FACTS = ("fio2", "oxygen_device", "oxygen_flow")
 
 # The PaO2 deficit partition: the parts' names in the ``deficit`` parameter, and the codes (our
 # CodeSystem .../derived, the names the derived values are filed under) and displays of the
@@ -124,30 +148,182 @@ DEFICIT_COMPONENTS = {
 RESIDENCE_COMPONENT = ("altitude-residence-assumed", "Residence at altitude assumed")
 
 
+def _coding(system: str, code: str, display: str | None = None) -> Json:
+    coding: Json = {"system": system, "code": code}
+    if display:
+        coding["display"] = display
+    return coding
+
+
+def _concept(system: str, code: str, display: str) -> Json:
+    """A CodeableConcept of one coding, its display also the text."""
+    return {"coding": [_coding(system, code, display)], "text": display}
+
+
+# --- Skeletons: the fixed parts of every result, built once and shared ----------------------
+
+_CAUTION_NOTE = [{"text": CAUTION}]
+_CAUTION_ISSUE = {"severity": "information", "code": "informational", "diagnostics": CAUTION}
+_INDEX_PART = {
+    True: {"name": "index", "valueBoolean": True},
+    False: {"name": "index", "valueBoolean": False},
+}
+_BASIS_PART = {
+    True: {"name": "pao2-basis", "valueCode": "imputed-from-spo2"},
+    False: {"name": "pao2-basis", "valueCode": "measured"},
+}
+# Each derived Observation's code: LOINC where there is a term, else our CodeSystem.
+_OBSERVATION_CODE = {
+    name: _concept(LOINC, loinc, display) if loinc else _concept(DERIVED_SYSTEM, name, display)
+    for name, (loinc, display) in OBSERVATION_CODES.items()
+}
+_INTERPRETATION = {
+    raised: [{"coding": [_coding(INTERPRETATION, "H" if raised else "N")]}]
+    for raised in (True, False)
+}
+_DEFICIT_CODE = {key: _concept(DERIVED_SYSTEM, *code) for key, code in DEFICIT_COMPONENTS.items()}
+_DEFICIT_OBSERVATION_CODING = [_coding(DERIVED_SYSTEM, *DEFICIT_OBSERVATION)]
+# The names a part's Quantity is shown under (its decimals and unit).
+_DEFICIT_NAMES = {key: f"deficit-{key}" for key in DEFICIT_PARTS}
+_RESIDENCE_CODE = _concept(DERIVED_SYSTEM, *RESIDENCE_COMPONENT)
+_PAIRED_QUANTITY = {q: {"name": "quantity", "valueCode": q.value} for q in Quantity}
+_MECHANISM_ASSESSMENT_CODE = {
+    "coding": [_coding(DERIVED_SYSTEM, "hypoxaemia-mechanism-assessment")],
+    "text": "Likely mechanism of hypoxaemia (decision support, not a diagnosis)",
+}
+
+
+def _mechanism_component(code: str, grade: str) -> Json:
+    return {
+        "code": {"coding": [_coding(MECHANISM_SYSTEM, code)]},
+        "valueCodeableConcept": {"coding": [_coding(GRADE_SYSTEM, grade)]},
+    }
+
+
+def _gas_exchange_component(status: str) -> Json:
+    return {
+        "code": _concept(DERIVED_SYSTEM, "gas-exchange-status", "Gas exchange for age"),
+        "valueCodeableConcept": {"coding": [_coding(GAS_EXCHANGE_SYSTEM, status)]},
+    }
+
+
+def _pattern_value(pattern: str) -> Json:
+    return {"coding": [_coding(PATTERN_SYSTEM, pattern)]}
+
+
+_MECHANISM_COMPONENT = {(m, g): _mechanism_component(m, g) for m in Mechanism for g in Grade}
+_GAS_EXCHANGE_COMPONENT = {s: _gas_exchange_component(s) for s in GasExchangeStatus}
+_PATTERN_VALUE = {p: _pattern_value(p) for p in Pattern}
+_KEPT = 4096
+"""The most codings and data requirements kept by their code (the rule set's and the intake's
+codes are a few hundred; past the limit the table starts again)."""
+_FINDING_CODINGS: dict[tuple[str | None, str, str | None], Json] = {}
+_REQUIREMENTS: dict[tuple[str, str], Json] = {}
+_PRESSURE_UNITS: tuple[PressureUnit, ...] = ("mm[Hg]", "kPa")
+# Each derived value's shape by name, with the unit it was for (the catalogue's, one per name).
+_SHAPES: dict[str, dict[str, tuple[str, QuantityShape]]] = {u: {} for u in _PRESSURE_UNITS}
+# The names a partition's pressures are shown under: the PaO2, the expected PaO2, the fall, then
+# the parts (``pao2-expected``, ``pao2-fall`` and ``deficit-…`` are also the Observation's
+# component codes, so the two show one Quantity).
+_PRESSURE_SHAPES = {
+    u: {
+        n: quantity_shape(n, "mm[Hg]", u)
+        for n in ("pao2", "pao2-expected", "pao2-fall", *_DEFICIT_NAMES.values())
+    }
+    for u in _PRESSURE_UNITS
+}
+
+
+def _kept(table: dict[Any, Json], key: Any, build: Json) -> Json:
+    if len(table) >= _KEPT:
+        table.clear()
+    table[key] = build
+    return build
+
+
+def _finding_coding(f: Finding) -> Json:
+    """A finding's code: from the rule set's own code system when it declared one."""
+    key = (f.system, f.code, f.display)
+    found = _FINDING_CODINGS.get(key)
+    if found is None:
+        found = _kept(_FINDING_CODINGS, key, _coding(f.system or FINDING_SYSTEM, f.code, f.display))
+    return found
+
+
+def _data_requirements(codes: Iterable[tuple[str, str]]) -> list[Json]:
+    out = []
+    for system, code in codes:
+        found = _REQUIREMENTS.get((system, code))
+        if found is None:
+            built = {
+                "type": "Observation",
+                "codeFilter": [{"path": "code", "code": [_coding(system, code)]}],
+            }
+            found = _kept(_REQUIREMENTS, (system, code), built)
+        out.append(found)
+    return out
+
+
+@lru_cache(maxsize=64)
+def _module_uri(identity: str, ruleset_hash: str) -> str:
+    """The rule set as a URL: id and version as path segments, the content hash as the
+    fragment (also the ``ruleset-hash`` parameter)."""
+    name, _, version = identity.partition("|")
+    path = f"{quote(name, safe='')}/{quote(version, safe='')}"
+    return f"{CANONICAL}/ruleset/{path}#sha256:{ruleset_hash}"
+
+
+@lru_cache(maxsize=1024)
+def _rule_url(rule: str) -> str:
+    return f"{CANONICAL}/rule/{quote(rule, safe='')}"
+
+
+# --- One render -----------------------------------------------------------------------------
+
+
 class _Links:
     """The fullUrls of the result's entries and the References to the input's resources."""
+
+    __slots__ = ("addresses", "base", "described", "urls")
 
     def __init__(self, decision_id: str, addresses: Mapping[str, Json]) -> None:
         # Entry URLs derive from the decision id (its last 12 hex digits replaced by the
         # entry's number), so a result is reproducible apart from it and needs no hashing.
-        self.prefix = str(uuid.UUID(decision_id))[:24]
+        # A decision id in the canonical form (the service's own) is its own spelling;
+        # any other goes through ``uuid`` (which refuses what is no UUID).
+        canonical = _CANONICAL_UUID.fullmatch(decision_id) is not None
+        prefix = (decision_id if canonical else str(uuid.UUID(decision_id)))[:24]
+        self.base = f"urn:uuid:{prefix}"
         self.addresses = addresses
         self.urls: dict[str, str] = {}
+        self.described: dict[str, Json] = {}
 
     def entry(self, local_id: str) -> str:
         """The fullUrl of the result entry ``local_id`` (numbered in order of first use)."""
         url = self.urls.get(local_id)
         if url is None:
-            url = self.urls[local_id] = f"urn:uuid:{self.prefix}{len(self.urls) + 1:012x}"
+            n = len(self.urls) + 1
+            number = _ENTRY_NUMBERS[n] if n < len(_ENTRY_NUMBERS) else f"{n:012x}"
+            url = self.urls[local_id] = self.base + number
         return url
+
+    def to_inputs(self, references: Iterable[str]) -> list[Json]:
+        """``to_input`` of each reference."""
+        get, to_input = self.addresses.get, self.to_input
+        return [get(r) or to_input(r) for r in references]
 
     def to_entry(self, local_id: str) -> Json:
         return {"reference": self.entry(local_id)}
 
     def to_input(self, reference: str) -> Json:
-        """The Reference to an input resource, as ``service.fhir.addresses`` says."""
+        """The Reference to an input resource, as ``service.fhir.addresses`` says (the
+        input's own, shared: a result is read-only)."""
         found = self.addresses.get(reference)
-        return dict(found) if found is not None else of_reference(reference, None)
+        if found is None:
+            found = self.described.get(reference)
+            if found is None:
+                found = self.described[reference] = of_reference(reference, None)
+        return found
 
     def to_source(self, reference: str) -> Json:
         """The Reference to a point's source as a module that does not know the result's
@@ -158,16 +334,89 @@ class _Links:
         return self.to_input(reference)
 
 
-def _finding_coding(f: Finding) -> Json:
-    """A finding's code: from the rule set's own code system when it declared one."""
-    return _coding(f.system or FINDING_SYSTEM, f.code, f.display)
+class _Quantities:
+    """The Quantities of one render: each derived value's rounded once, whatever the number
+    of places it appears in (the index gas's values at the top level, in its ``gas``
+    parameter and in its Observations; a partition's in its parameter and Observation)."""
 
+    __slots__ = ("listed_by", "partition", "pressure_unit", "shapes")
 
-def _coding(system: str, code: str, display: str | None = None) -> Json:
-    coding: Json = {"system": system, "code": code}
-    if display:
-        coding["display"] = display
-    return coding
+    def __init__(self, pressure_unit: PressureUnit) -> None:
+        self.pressure_unit = pressure_unit
+        self.shapes = _SHAPES[pressure_unit]
+        # By the identity of the derived-values mapping (alive while rendering): its listed
+        # parts, and each value's Quantity by name.
+        self.listed_by: dict[int, tuple[list[Json], dict[str, Json]]] = {}
+        # By the identity of a shown partition: its Quantities.
+        self.partition: dict[int, tuple[list[Json], list[tuple[str, Json]]]] = {}
+
+    def listed(self, derived: dict[str, Derived]) -> tuple[list[Json], dict[str, Json]]:
+        """The ``name``/``valueQuantity`` parts of ``derived`` in ``QUANTITY_ORDER``, and
+        each value's Quantity by name."""
+        key = id(derived)
+        found = self.listed_by.get(key)
+        if found is not None:
+            return found
+        shapes, pressure_unit = self.shapes, self.pressure_unit
+        parts: list[Json] = []
+        by_name: dict[str, Json] = {}
+        for name in QUANTITY_ORDER:
+            d = derived.get(name)
+            if d is None:
+                continue
+            unit = d.unit
+            known = shapes.get(name)
+            if known is None or known[0] != unit:
+                known = shapes[name] = (unit, derived_shape(name, unit, pressure_unit))
+            # As ``presentation.shaped``, inlined: this loop runs for every value shown.
+            decimals, shown, convert = known[1]
+            value = kpa_from_mmhg(d.value) if convert else d.value
+            rounded = round(value, decimals) + 0.0  # + 0.0: no negative zero
+            q = by_name[name] = {
+                "value": rounded if decimals else float(int(rounded)),
+                "unit": shown,
+                "system": UCUM,
+                "code": shown,
+            }
+            parts.append({"name": name, "valueQuantity": q})
+        found = self.listed_by[key] = (parts, by_name)
+        return found
+
+    def pressures(self, shown: ShownPartition) -> tuple[list[Json], list[tuple[str, Json]]]:
+        """The Quantities of a partition: [PaO2, expected PaO2, fall], and (part, Quantity)
+        of each part."""
+        key = id(shown)
+        found = self.partition.get(key)
+        if found is not None:
+            return found
+        shapes = _PRESSURE_SHAPES[self.pressure_unit]
+        d = shown.partition
+        shown_parts = shown.parts
+        named = [
+            ("pao2", d.arterial_po2),
+            ("pao2-expected", d.expected_pao2),
+            ("pao2-fall", d.fall),
+        ]
+        named += [(_DEFICIT_NAMES[k], v) for k, v in shown_parts]
+        out: list[Json] = []
+        for name, mmhg in named:
+            # As ``presentation.shaped``, inlined.
+            decimals, unit, convert = shapes[name]
+            value = kpa_from_mmhg(mmhg) if convert else mmhg
+            rounded = round(value, decimals) + 0.0  # + 0.0: no negative zero
+            out.append(
+                {
+                    "value": rounded if decimals else float(int(rounded)),
+                    "unit": unit,
+                    "system": UCUM,
+                    "code": unit,
+                }
+            )
+        found = self.partition[key] = (
+            out[:3],
+            [(k, q) for (k, _), q in zip(shown_parts, out[3:], strict=True)],
+        )
+        return found
 
 
 def _mechanism_parameter(m: MechanismVerdict) -> Json:
@@ -196,36 +445,14 @@ def _finding_parameter(f: Finding, links: _Links) -> Json:
     return {"name": "finding", "part": part}
 
 
-class _Quantities:
-    """Each derived value's Quantity, built once per render (the index gas's values appear both
-    at the top level and in its ``gas`` parameter)."""
-
-    def __init__(self, pressure_unit: PressureUnit) -> None:
-        self.pressure_unit = pressure_unit
-        self.built: dict[tuple[str, int], Json] = {}
-
-    def of(self, name: str, d: Derived) -> Json:
-        key = (name, id(d))
-        found = self.built.get(key)
-        if found is None:
-            found = self.built[key] = shown_quantity(name, d, self.pressure_unit)
-        return found
-
-    def listed(self, derived: dict[str, Derived]) -> list[Json]:
-        return [
-            {"name": name, "valueQuantity": self.of(name, d)}
-            for name in QUANTITY_ORDER
-            if (d := derived.get(name)) is not None
-        ]
-
-
 def _gas_parameter(gas: GasFacts, index: bool, quantities: _Quantities, links: _Links) -> Json:
     part: list[Json] = []
-    if gas.gas.anchor is not None:
-        reference = links.to_input(gas.gas.anchor.source.reference)
+    anchor = gas.gas.anchor
+    if anchor is not None:
+        reference = links.to_input(anchor.source.reference)
         part.append({"name": "observation", "valueReference": reference})
-    part.append({"name": "index", "valueBoolean": index})
-    part += quantities.listed(gas.derived)
+    part.append(_INDEX_PART[index])
+    part += quantities.listed(gas.derived)[0]
     part += _paired(gas, links)
     return {"name": "gas", "part": part}
 
@@ -234,34 +461,43 @@ def _paired(gas: GasFacts, links: _Links) -> list[Json]:
     """Each value paired with the gas and how long before it (negative: after) it was taken,
     so a reader can judge whether an Hb of yesterday or a DLCO of last spring still holds."""
     out: list[Json] = []
-    anchor = gas.gas.anchor
-    for quantity_, m in gas.gas.values.items():
+    paired = gas.gas
+    anchor = paired.anchor
+    at = anchor.time if anchor is not None else None
+    addresses, to_input = links.addresses, links.to_input
+    for quantity, m in paired.values.items():
         if m is anchor:
             continue
-        offset = gas.gas.offset(quantity_)
+        reference = m.source.reference
         item: list[Json] = [
-            {"name": "quantity", "valueCode": quantity_.value},
-            {"name": "observation", "valueReference": links.to_input(m.source.reference)},
+            _PAIRED_QUANTITY[quantity],
+            {
+                "name": "observation",
+                "valueReference": addresses.get(reference) or to_input(reference),
+            },
         ]
-        if offset is not None:
-            minutes = round(offset.total_seconds() / 60.0, 1)
-            item.append(
-                {
-                    "name": "taken-before-gas",
-                    "valueQuantity": {
-                        "value": minutes,
-                        "unit": "min",
-                        "system": UCUM,
-                        "code": "min",
-                    },
-                }
-            )
+        if at is not None and m.time is not None:
+            before = {
+                "value": minutes_before(at - m.time),
+                "unit": "min",
+                "system": UCUM,
+                "code": "min",
+            }
+            item.append({"name": "taken-before-gas", "valueQuantity": before})
         out.append({"name": "paired", "part": item})
     return out
 
 
-def _pressure(name: str, value_mmhg: float, quantities: _Quantities) -> Json:
-    return quantity(name, value_mmhg, "mm[Hg]", quantities.pressure_unit)
+def minutes_before(offset: timedelta) -> float:
+    """``offset`` in minutes to one decimal, as ``round(offset.total_seconds() / 60.0, 1)``.
+
+    Written out because most offsets are whole minutes (values of one panel: none at all):
+    a whole number of minutes, give or take less than a second (under a tenth of a minute
+    either way), is its own rounding, exact as a float, without the costlier decimal step."""
+    seconds = offset.seconds  # timedelta keeps 0 <= seconds < 86400, the sign in days
+    if not seconds % 60:
+        return float(offset.days * 1440 + seconds // 60)
+    return round(offset.total_seconds() / 60.0, 1)
 
 
 def _deficit_parameter(
@@ -272,25 +508,20 @@ def _deficit_parameter(
     part: list[Json] = []
     if gas.reference is not None:
         part.append({"name": "observation", "valueReference": links.to_input(gas.reference)})
-    part.append({"name": "index", "valueBoolean": gas.index})
+    part.append(_INDEX_PART[gas.index])
     if shown is None:
         part.append({"name": "not-computed", "valueString": gas.absent or "not computable"})
         return {"name": "deficit", "part": part}
     if shown.residence is not None:
-        part.append({"name": "altitude-residence", "valueCode": shown.residence})
-        part.append({"name": "assumption", "valueString": shown.assumption})
-    d = shown.partition
-    basis = "imputed-from-spo2" if shown.imputed else "measured"
+        part += _assumed(shown.residence, shown.assumption).parts
+    (pao2, expected, fall), parts = q.pressures(shown)
     part += [
-        {"name": "pao2", "valueQuantity": _pressure("pao2", d.arterial_po2, q)},
-        {"name": "pao2-basis", "valueCode": basis},
-        {"name": "expected-pao2", "valueQuantity": _pressure("pao2-expected", d.expected_pao2, q)},
-        {"name": "fall", "valueQuantity": _pressure("pao2-fall", d.fall, q)},
+        {"name": "pao2", "valueQuantity": pao2},
+        _BASIS_PART[shown.imputed],
+        {"name": "expected-pao2", "valueQuantity": expected},
+        {"name": "fall", "valueQuantity": fall},
     ]
-    part += [
-        {"name": DEFICIT_PARTS[key], "valueQuantity": _pressure(f"deficit-{key}", value, q)}
-        for key, value in shown.parts
-    ]
+    part += [{"name": DEFICIT_PARTS[key], "valueQuantity": value} for key, value in parts]
     part.append({"name": "method", "valueString": shown.method})
     return {"name": "deficit", "part": part}
 
@@ -335,7 +566,7 @@ def _parameters(
         if extra is not None:
             params.append(extra)
     index = a.index
-    params += quantities.listed(index.derived)
+    params += quantities.listed(index.derived)[0]
     if index.barometric_source:
         params.append({"name": "barometric-pressure-source", "valueCode": index.barometric_source})
     if index.fio2_source:
@@ -368,25 +599,16 @@ def _issue(f: Finding) -> Json:
     return issue
 
 
-def _operation_outcome(a: Assessment) -> Json:
+def _operation_outcome(processing: list[Finding]) -> Json:
     """How the input was processed, and the caution: never a clinical finding."""
-    issues = [_issue(f) for f in a.findings if is_processing(f)]
-    issues.append({"severity": "information", "code": "informational", "diagnostics": CAUTION})
+    issues = [_issue(f) for f in processing]
+    issues.append(_CAUTION_ISSUE)
     return {"resourceType": "OperationOutcome", "id": "processing", "issue": issues}
 
 
-def _implicated(f: Finding, a: Assessment, links: _Links) -> list[Json]:
-    """The input resources a data-quality finding is about: its subject, else the resource of
-    the entry its expression locates, else the index gas."""
-    if f.subject is not None:
-        return [links.to_input(f.subject.reference)]
-    anchor = a.index.gas.anchor
-    if f.expression is None and anchor is not None:
-        return [links.to_input(anchor.source.reference)]
-    return []
-
-
-def _detected_issue(f: Finding, n: int, a: Assessment, links: _Links) -> Json:
+def _detected_issue(
+    f: Finding, n: int, a: Assessment, when: str, subject: Json | None, links: _Links
+) -> Json:
     """A data-quality finding as a DetectedIssue: a problem with the data sent."""
     issue: Json = {
         "resourceType": "DetectedIssue",
@@ -394,52 +616,28 @@ def _detected_issue(f: Finding, n: int, a: Assessment, links: _Links) -> Json:
         "status": "final",
         "code": {"coding": [_finding_coding(f)], "text": f.message},
         "severity": DETECTED_ISSUE_SEVERITY[f.severity],
-        "identifiedDateTime": a.timestamp.isoformat(),
+        "identifiedDateTime": when,
         "detail": f.message + (f" (in the input at {f.expression})" if f.expression else ""),
     }
-    if (subject := _subject(a, links)) is not None:
+    if subject is not None:
         issue["patient"] = subject
-    implicated = _implicated(f, a, links)
-    if implicated:
-        issue["implicated"] = implicated
+    # The input resources it is about: its subject, else the resource of the entry its
+    # expression locates, else the index gas.
+    if f.subject is not None:
+        issue["implicated"] = [links.to_input(f.subject.reference)]
+    elif f.expression is None and (anchor := a.index.gas.anchor) is not None:
+        issue["implicated"] = [links.to_input(anchor.source.reference)]
     if f.rule:
-        issue["reference"] = f"{CANONICAL}/rule/{quote(f.rule, safe='')}"
+        issue["reference"] = _rule_url(f.rule)
     return issue
-
-
-def _data_requirements(codes: Iterable[tuple[str, str]]) -> list[Json]:
-    return [
-        {
-            "type": "Observation",
-            "codeFilter": [{"path": "code", "code": [_coding(system, code)]}],
-        }
-        for system, code in codes
-    ]
-
-
-def _subject(a: Assessment, links: _Links) -> Json | None:
-    if a.patient is not None and a.patient.reference:
-        return links.to_input(a.patient.reference)
-    return None
-
-
-def _about(a: Assessment, links: _Links) -> Json:
-    """The subject and effective time every derived Observation shares."""
-    about: Json = {}
-    if (subject := _subject(a, links)) is not None:
-        about["subject"] = subject
-    time = a.index.gas.time
-    if time is not None:
-        about["effectiveDateTime"] = time.isoformat()
-    return about
 
 
 def _derived_from(name: str, d: Derived, gas: GasFacts) -> list[str]:
     """The input references behind a derived value: its own inputs, and with an FiO2
     estimated from the device and the flow, the Observations of those."""
     refs = [s.reference for s in d.inputs]
-    if name in USES_FIO2 and gas.fio2_source == "device-estimate":
-        for fact in ("fio2", "oxygen_device", "oxygen_flow"):
+    if gas.fio2_source == "device-estimate" and name in USES_FIO2:
+        for fact in _FIO2_ESTIMATE_FACTS:
             refs += [s.reference for s in gas.sources.get(fact, ())]
     return [r for r in dict.fromkeys(refs) if r]
 
@@ -447,38 +645,66 @@ def _derived_from(name: str, d: Derived, gas: GasFacts) -> list[str]:
 def _observation(
     name: str,
     d: Derived,
+    value: Json,
     about: Json,
-    aa_limit: Derived | None,
-    quantities: _Quantities,
+    limit: tuple[Derived, Json] | None,
     links: _Links,
     gas: GasFacts,
 ) -> Json:
-    loinc, display = OBSERVATION_CODES[name]
-    code = _coding(LOINC, loinc, display) if loinc else _coding(DERIVED_SYSTEM, name, display)
+    """A derived value as an Observation; ``limit`` is the room-air A-a gradient limit for age
+    and its Quantity (the A-a gradient is interpreted against it)."""
     # No category: observation-category has none for a value computed from others (laboratory
     # would say a laboratory measured it).
     obs: Json = {
         "resourceType": "Observation",
         "id": name,
         "status": "final",
-        "code": {"coding": [code], "text": display},
-        "valueQuantity": quantities.of(name, d),
+        "code": _OBSERVATION_CODE[name],
+        "valueQuantity": value,
         "method": {"text": d.method},
         **about,
     }
-    if name == "aa-gradient" and aa_limit is not None:
-        raised = d.value > aa_limit.value
-        obs["interpretation"] = [{"coding": [_coding(INTERPRETATION, "H" if raised else "N")]}]
-        limit = quantities.of("aa-gradient-upper-limit", aa_limit)
-        obs["referenceRange"] = [{"high": limit, "text": "room-air limit for age"}]
+    if name == "aa-gradient" and limit is not None:
+        obs["interpretation"] = _INTERPRETATION[d.value > limit[0].value]
+        obs["referenceRange"] = [{"high": limit[1], "text": "room-air limit for age"}]
     refs = _derived_from(name, d, gas)
     if refs:
-        obs["derivedFrom"] = [links.to_input(r) for r in refs]
+        obs["derivedFrom"] = links.to_inputs(refs)
     return obs
 
 
-def _component(code: tuple[str, str], value: Json) -> Json:
-    return {"code": {"coding": [_coding(DERIVED_SYSTEM, *code)], "text": code[1]}, **value}
+class _Assumed:
+    """What a partition computed for an assumed residence shows of it: the ``deficit``
+    parameter's parts, the Observation's component and note (one per residence, shared)."""
+
+    __slots__ = ("component", "note", "parts")
+
+    def __init__(self, residence: str, assumption: str | None) -> None:
+        self.parts: list[Json] = [
+            {"name": "altitude-residence", "valueCode": residence},
+            {"name": "assumption", "valueString": assumption},
+        ]
+        coding = _coding(ALTITUDE_RESIDENCE_CODES, residence)
+        self.component: Json = {
+            "code": _RESIDENCE_CODE,
+            "valueCodeableConcept": {"coding": [coding]},
+        }
+        self.note: list[Json] = [{"text": f"Residence not sent: computed {assumption}."}]
+
+
+_ASSUMED: dict[tuple[str, str | None], _Assumed] = {}
+# The partition Observation's code, by the PaO2 it partitions (measured or imputed).
+_DEFICIT_CONCEPTS: dict[str, Json] = {}
+
+
+def _assumed(residence: str, assumption: str | None) -> _Assumed:
+    key = (residence, assumption)
+    found = _ASSUMED.get(key)
+    if found is None:
+        if len(_ASSUMED) >= _KEPT:
+            _ASSUMED.clear()
+        found = _ASSUMED[key] = _Assumed(residence, assumption)
+    return found
 
 
 def _deficit_observation(shown: ShownPartition, about: Json, q: _Quantities, links: _Links) -> Json:
@@ -486,85 +712,124 @@ def _deficit_observation(shown: ShownPartition, about: Json, q: _Quantities, lin
     pressure unit; ``derivedFrom`` the inputs; the method names the partition and sources."""
     code, display = DEFICIT_OBSERVATION
     identifier = code if shown.residence is None else f"{code}-{shown.residence}"
-    d = shown.partition
-    values = [("expected", d.expected_pao2), ("fall", d.fall), *shown.parts]
+    # The same Quantities as the ``deficit`` parameter's: shown under the same decimals.
+    (_, expected, fall), parts = q.pressures(shown)
     components = [
-        _component(
-            DEFICIT_COMPONENTS[key],
-            {"valueQuantity": _pressure(DEFICIT_COMPONENTS[key][0], value, q)},
-        )
-        for key, value in values
+        {"code": _DEFICIT_CODE["expected"], "valueQuantity": expected},
+        {"code": _DEFICIT_CODE["fall"], "valueQuantity": fall},
     ]
-    if shown.residence is not None:
-        residence = _coding(ALTITUDE_RESIDENCE_CODES, shown.residence)
-        components.append(
-            _component(RESIDENCE_COMPONENT, {"valueCodeableConcept": {"coding": [residence]}})
-        )
-    text = f"{display}: the fall of the {shown.pao2_label} below the PaO2 expected for age"
+    components += [{"code": _DEFICIT_CODE[key], "valueQuantity": value} for key, value in parts]
+    assumed = None if shown.residence is None else _assumed(shown.residence, shown.assumption)
+    if assumed is not None:
+        components.append(assumed.component)
+    label = shown.pao2_label
+    concept = _DEFICIT_CONCEPTS.get(label)
+    if concept is None:
+        text = f"{display}: the fall of the {label} below the PaO2 expected for age"
+        concept = _DEFICIT_CONCEPTS[label] = {"coding": _DEFICIT_OBSERVATION_CODING, "text": text}
     obs: Json = {
         "resourceType": "Observation",
         "id": identifier,
         "status": "final",
-        "code": {"coding": [_coding(DERIVED_SYSTEM, code, display)], "text": text},
+        "code": concept,
         "method": {"text": shown.method},
         **about,
         "component": components,
     }
-    if shown.assumption is not None:
-        obs["note"] = [{"text": f"Residence not sent: computed {shown.assumption}."}]
-    refs = [r for r in dict.fromkeys(s.reference for s in shown.inputs) if r]
+    if assumed is not None:
+        obs["note"] = assumed.note
+    refs = [r for r in dict.fromkeys([s.reference for s in shown.inputs]) if r]
     if refs:
-        obs["derivedFrom"] = [links.to_input(r) for r in refs]
+        obs["derivedFrom"] = links.to_inputs(refs)
     return obs
 
 
-def _context_components(a: Assessment) -> list[Json]:
+def _context_components(context: Iterable[Finding]) -> list[Json]:
     """One component per clinical context finding: the finding, present."""
     return [
         {
             "code": {"coding": [_finding_coding(f)], "text": f.message},
             "valueBoolean": True,
         }
-        for f in {f.code: f for f in a.findings if is_context(f)}.values()
+        for f in {f.code: f for f in context}.values()
     ]
 
 
 def _mechanism_observation(
-    a: Assessment, about: Json, derived_ids: list[str], links: _Links
+    a: Assessment, context: list[Finding], about: Json, derived_ids: list[str], links: _Links
 ) -> Json:
+    components = [
+        _MECHANISM_COMPONENT.get((m.code, m.grade)) or _mechanism_component(m.code, m.grade)
+        for m in a.mechanisms
+    ]
+    status = a.gas_exchange
+    components.append(_GAS_EXCHANGE_COMPONENT.get(status) or _gas_exchange_component(status))
+    components += _context_components(context)
     obs: Json = {
         "resourceType": "Observation",
         "id": "mechanism-assessment",
         "status": "final",
-        "code": {
-            "coding": [_coding(DERIVED_SYSTEM, "hypoxaemia-mechanism-assessment")],
-            "text": "Likely mechanism of hypoxaemia (decision support, not a diagnosis)",
-        },
-        "valueCodeableConcept": {"coding": [_coding(PATTERN_SYSTEM, a.pattern)]},
-        "note": [{"text": CAUTION}],
-        "component": [
-            {
-                "code": {"coding": [_coding(MECHANISM_SYSTEM, m.code)]},
-                "valueCodeableConcept": {"coding": [_coding(GRADE_SYSTEM, m.grade)]},
-            }
-            for m in a.mechanisms
-        ]
-        + [
-            _component(
-                ("gas-exchange-status", "Gas exchange for age"),
-                {
-                    "valueCodeableConcept": {
-                        "coding": [_coding(GAS_EXCHANGE_SYSTEM, a.gas_exchange)]
-                    }
-                },
-            )
-        ]
-        + _context_components(a),
+        "code": _MECHANISM_ASSESSMENT_CODE,
+        "valueCodeableConcept": _PATTERN_VALUE.get(a.pattern) or _pattern_value(a.pattern),
+        "note": _CAUTION_NOTE,
+        "component": components,
         **about,
     }
     if derived_ids:
         obs["derivedFrom"] = [links.to_entry(i) for i in derived_ids]
     return obs
+
+
+def _sorted_findings(
+    findings: Iterable[Finding],
+) -> tuple[list[Finding], list[Finding], list[Finding]]:
+    """The findings about processing (OperationOutcome issues), clinical context (components
+    of the mechanism Observation) and data quality (DetectedIssues), each in order, sorted
+    in one pass."""
+    processing: list[Finding] = []
+    context: list[Finding] = []
+    data_quality: list[Finding] = []
+    for f in findings:
+        about_patient = is_context(f)
+        if about_patient:
+            context.append(f)
+        if is_processing(f):
+            processing.append(f)
+        elif not about_patient:
+            data_quality.append(f)
+    return processing, context, data_quality
+
+
+def _derived_observations(
+    a: Assessment,
+    partitions: tuple[GasPartitions, ...],
+    about: Json,
+    quantities: _Quantities,
+    links: _Links,
+) -> list[Json]:
+    """The index gas's derived values and partitions as Observations, and its oxygen-response
+    fit, in that order."""
+    index_gas = a.index
+    derived = index_gas.derived
+    shown_by_name = quantities.listed(derived)[1]
+    limit_value = derived.get("aa-gradient-upper-limit")
+    limit = None
+    if limit_value is not None:
+        limit = (limit_value, shown_by_name["aa-gradient-upper-limit"])
+    out: list[Json] = []
+    for name in OBSERVATION_CODES:
+        if (d := derived.get(name)) is not None:
+            value = shown_by_name.get(name) or shaped(
+                d.value, derived_shape(name, d.unit, quantities.pressure_unit)
+            )
+            out.append(_observation(name, d, value, about, limit, links, index_gas))
+    index = next((g for g in partitions if g.index), None)
+    for shown in index.shown if index is not None else ():
+        out.append(_deficit_observation(shown, about, quantities, links))
+    response = oxygen_response_observation(a, about, quantities.pressure_unit, links.to_source)
+    if response is not None:
+        out.append(response)
+    return out
 
 
 def render_bundle(
@@ -577,11 +842,13 @@ def render_bundle(
     addresses: Mapping[str, Json] | None = None,
     site: str | None = None,
 ) -> Json:
-    """The result Bundle for ``a``. ``data_requirements`` are (system, code) pairs;
-    ``settings`` are those ``a`` was assessed with (a partition that depends on an unknown
-    residence is shown for each residence, derived again with them); ``settings_hash`` names
-    them; ``addresses`` say how to point at each input resource (``Intake.addresses``); ``site``
-    is the label of the site file they came from (None: none)."""
+    """The result Bundle for ``a`` (read-only: it shares its fixed parts with every other
+    result, and its References with ``addresses``). ``data_requirements`` are (system, code)
+    pairs; ``settings`` are those ``a`` was assessed with (a partition that depends on an
+    unknown residence is shown for each residence, derived again with them);
+    ``settings_hash`` names them; ``addresses`` say how to point at each input resource
+    (``Intake.addresses``); ``site`` is the label of the site file they came from (None:
+    none)."""
     links = _Links(a.decision_id, addresses or {})
     for first in ("guidance", "result", "processing"):  # numbered in entry order
         links.entry(first)
@@ -591,55 +858,48 @@ def render_bundle(
     quantities = _Quantities(pressure_unit)
     partitions = assessment_partitions(a, settings)
     parameters = _parameters(a, quantities, settings_hash, partitions, links, site)
-    outcome = _operation_outcome(a)
-    identity, _, version = a.ruleset_identity.partition("|")
+    processing, context, data_quality = _sorted_findings(a.findings)
+    outcome = _operation_outcome(processing)
+    when = a.timestamp.isoformat()
+    identifier = {"system": URI_SYSTEM, "value": f"urn:uuid:{a.decision_id}"}
+    patient = a.patient
+    subject = (
+        links.to_input(patient.reference) if patient is not None and patient.reference else None
+    )
     guidance: Json = {
         "resourceType": "GuidanceResponse",
         "id": "guidance",
-        "identifier": [{"system": "urn:ietf:rfc:3986", "value": f"urn:uuid:{a.decision_id}"}],
-        # The rule set as a URL: id and version as path segments, the content hash as the
-        # fragment (also the ``ruleset-hash`` parameter).
-        "moduleUri": f"{CANONICAL}/ruleset/{quote(identity, safe='')}/{quote(version, safe='')}"
-        f"#sha256:{a.ruleset_hash}",
+        "identifier": [identifier],
+        "moduleUri": _module_uri(a.ruleset_identity, a.ruleset_hash),
         "status": status,
-        "occurrenceDateTime": a.timestamp.isoformat(),
+        "occurrenceDateTime": when,
         "outputParameters": links.to_entry(parameters["id"]),
         "evaluationMessage": [links.to_entry(outcome["id"])],
-        "note": [{"text": CAUTION}],
+        "note": _CAUTION_NOTE,
     }
-    if (subject := _subject(a, links)) is not None:
+    if subject is not None:
         guidance["subject"] = subject
     if requirements:
         guidance["dataRequirement"] = requirements
     resources: list[Json] = [guidance, parameters, outcome]
     resources += [
-        _detected_issue(f, n, a, links)
-        for n, f in enumerate(
-            (f for f in a.findings if not is_processing(f) and not is_context(f)), start=1
-        )
+        _detected_issue(f, n, a, when, subject, links) for n, f in enumerate(data_quality, start=1)
     ]
-    derived = a.index.derived
-    about = _about(a, links)
-    limit = derived.get("aa-gradient-upper-limit")
-    derived_ids: list[str] = []
-    for name in OBSERVATION_CODES:
-        if (d := derived.get(name)) is not None:
-            resources.append(_observation(name, d, about, limit, quantities, links, a.index))
-            derived_ids.append(name)
-    index = next((g for g in partitions if g.index), None)
-    for shown in index.shown if index is not None else ():
-        observation = _deficit_observation(shown, about, quantities, links)
-        resources.append(observation)
-        derived_ids.append(observation["id"])
-    response = oxygen_response_observation(a, about, pressure_unit, links.to_source)
-    if response is not None:
-        resources.append(response)
-        derived_ids.append(response["id"])
-    resources.append(_mechanism_observation(a, about, derived_ids, links))
+    about: Json = {}
+    if subject is not None:
+        about["subject"] = subject
+    time = a.index.gas.time
+    if time is not None:
+        about["effectiveDateTime"] = time.isoformat()
+    derived = _derived_observations(a, partitions, about, quantities, links)
+    resources += derived
+    derived_ids = [r["id"] for r in derived]
+    resources.append(_mechanism_observation(a, context, about, derived_ids, links))
+    entry = links.entry
     return {
         "resourceType": "Bundle",
         "type": "collection",
-        "identifier": {"system": "urn:ietf:rfc:3986", "value": f"urn:uuid:{a.decision_id}"},
-        "timestamp": a.timestamp.isoformat(),
-        "entry": [{"fullUrl": links.entry(r["id"]), "resource": r} for r in resources],
+        "identifier": identifier,
+        "timestamp": when,
+        "entry": [{"fullUrl": entry(r["id"]), "resource": r} for r in resources],
     }
