@@ -130,11 +130,12 @@ def paco2_above_limit(*, arterial_pco2: float, paco2_upper_limit: float) -> floa
     "A-a gradient of a healthy person of this age at this alveolar PO2",
 )
 def aa_gradient_expected(*, age: float, alveolar_po2: float, settings: Settings) -> float:
-    return ref.normal_aa_gradient(
+    return ref.normal_aa_gradient_mmhg(
         age_years=age,
         alveolar_po2_mmhg=alveolar_po2,
         respiratory_quotient=settings.respiratory_quotient,
-    ).expected
+        limit=False,
+    )
 
 
 @table.quantity(
@@ -147,11 +148,12 @@ def aa_gradient_expected(*, age: float, alveolar_po2: float, settings: Settings)
 )
 def aa_gradient_upper_limit(*, age: float, alveolar_po2: float, settings: Settings) -> Computed:
     return Computed(
-        ref.normal_aa_gradient(
+        ref.normal_aa_gradient_mmhg(
             age_years=age,
             alveolar_po2_mmhg=alveolar_po2,
             respiratory_quotient=settings.respiratory_quotient,
-        ).upper_limit,
+            limit=True,
+        ),
         "healthy lung for age (Cerveri 1995 on air; healthy men on 100 % oxygen, Upsala J Med "
         "Sci) at this alveolar PO2",
     )
