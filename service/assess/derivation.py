@@ -271,29 +271,41 @@ def _plan_of(entries: Iterable[DerivedFact], specs: Mapping[str, FactSpec]) -> _
     return plan
 
 
-def _outcome(
-    step: _Step, facts: Mapping[str, FactValue], settings: Settings
-) -> tuple[FactValue | None, str, str | None]:
-    """(value in the catalogue unit or None, method, problem) of ``step`` on ``facts``,
-    whose needed facts are all known. The arguments are the known facts ``step`` reads, in
-    canonical units (``units.from_fact_unit``)."""
+def _arguments(step: _Step, facts: Mapping[str, FactValue], settings: Settings) -> dict[str, Any]:
+    """The known facts ``step`` reads, in canonical units (``units.from_fact_unit``), and the
+    settings if it takes them."""
     if step.unknown and not step.unknown.isdisjoint(facts):
         # The first known one the table reads that the catalogue lacks, as a lookup would.
         raise KeyError(next(n for n in step.reads if n in step.unknown and n in facts))
-    arguments: dict[str, Any] = {name: facts[name] for name in step.reads if name in facts}
+    # A loop, not a comprehension: in Python 3.11 a comprehension is a function call.
+    arguments: dict[str, Any] = {}
+    for name in step.reads:
+        if name in facts:
+            arguments[name] = facts[name]
     for name in step.percent_reads:
         value = arguments.get(name)
         if isinstance(value, float):
             arguments[name] = from_fact_unit(value, "%")
     if step.wants_settings:
         arguments[SETTINGS] = settings
+    return arguments
+
+
+def _outcome(
+    step: _Step, facts: Mapping[str, FactValue], settings: Settings
+) -> tuple[FactValue | None, str, str | None]:
+    """(value in the catalogue unit or None, method, problem) of ``step`` on ``facts``,
+    whose needed facts are all known."""
     try:
-        out = step.compute(**arguments)
+        out = step.compute(**_arguments(step, facts, settings))
     except PhysiologyError as error:
         return None, "", str(error)
     if out is None:
         return None, "", None
-    value, method = (out.value, out.method) if isinstance(out, Computed) else (out, "")
+    if isinstance(out, Computed):
+        value, method = out.value, out.method
+    else:
+        value, method = out, ""
     if step.quantity:
         assert not isinstance(value, bool)
         value = float(value)
@@ -333,7 +345,7 @@ def _compute(
     problems: list[str] = []
     known = facts.keys()
     for step in plan.steps:
-        if not step.needed <= known:
+        if not known >= step.needed:
             continue
         value, method, problem = _outcome(step, facts, settings)
         if problem is not None:
@@ -405,7 +417,7 @@ def derive_changed(
             continue
         before = derived.get(name, _MISSING)
         value = None
-        if step.needed <= known:
+        if known >= step.needed:
             value, _, _ = _outcome(step, facts, settings)
         if value is not None:
             facts[name] = value

@@ -102,7 +102,11 @@ def paco2_upper_limit(
     return None if found is None else Computed(found.upper_limit_mmhg, found.method)
 
 
+@lru_cache(maxsize=64)
 def _expected_paco2(pb: float, residence: str | None) -> ref.ExpectedPaCO2 | None:
+    """The PaCO2 of healthy people at ``pb`` for the residence, None when it depends on an
+    unknown residence. Both PaCO2 facts read it, with the same arguments (cached, like
+    ``_projections``: each scenario derives them again)."""
     if residence is not None:
         return ref.expected_paco2(barometric_mmhg=pb, residence=ref.Residence(residence))
     resident, visitor = (ref.expected_paco2(barometric_mmhg=pb, residence=r) for r in ref.Residence)
