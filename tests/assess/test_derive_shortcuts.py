@@ -28,6 +28,7 @@ from service.config import Settings
 from service.engine.facts import FactKind, FactSpec
 from service.fhir.extract import read_bundle
 from service.intake.model import Quantity as Q
+from service.intake.model import Source
 from service.physiology import reference as ref
 from service.physiology.atmosphere import barometric_pressure_west_mmhg
 from service.runtime import Runtime
@@ -238,29 +239,44 @@ def test_the_reference_alveolar_po2_is_the_same_number_every_time() -> None:
 # --- The PaCO2 anchors, worked out at import ----------------------------------------------------
 
 
+_RESIDENT, _VISITOR = ref.RESIDENT_PACO2, ref.VISITOR_PACO2
+
+
+def _between(high: ref.PaCO2Anchor, low: ref.PaCO2Anchor) -> str:
+    return f"interpolated between {high.source} and {low.source}"
+
+
 @pytest.mark.parametrize(
-    ("residence", "altitude_m", "mean", "upper"),
+    ("residence", "altitude_m", "mean", "upper", "method"),
     [
         # Sea level: 40 mmHg, upper 45 (reference range 35-45 mmHg, common practice).
-        (ref.Residence.RESIDENT, 0.0, 40.0, 45.0),
-        (ref.Residence.VISITOR, 0.0, 40.0, 45.0),
-        # Mexico City residents, 2,240 m: 30.2 ± 3.4 mmHg (Cid-Juárez et al. 2023).
-        (ref.Residence.RESIDENT, 2240.0, 30.2, 30.2 + 1.645 * 3.4),
+        (ref.Residence.RESIDENT, 0.0, 40.0, 45.0, _RESIDENT[0].source),
+        (ref.Residence.VISITOR, 0.0, 40.0, 45.0, _VISITOR[0].source),
+        # Mexico City residents, 2,240 m: 30.2 ± 3.4 mmHg (Cid-Juárez et al. 2023); at an
+        # anchor's own pressure the segment that ends there is used.
+        (
+            ref.Residence.RESIDENT,
+            2240.0,
+            30.2,
+            30.2 + 1.645 * 3.4,
+            _between(_RESIDENT[0], _RESIDENT[1]),
+        ),
         # Cusco residents, 3,350 m: 30.6, 97.5th centile 36.1 (Pereira-Victorio 2014).
-        (ref.Residence.RESIDENT, 3350.0, 30.6, 36.1),
+        (ref.Residence.RESIDENT, 3350.0, 30.6, 36.1, _between(_RESIDENT[1], _RESIDENT[2])),
         # Visitors: little hyperventilation below ~3,000 m (Rahn & Otis 1949).
-        (ref.Residence.VISITOR, 3000.0, 40.0, 45.0),
+        (ref.Residence.VISITOR, 3000.0, 40.0, 45.0, _between(_VISITOR[0], _VISITOR[1])),
         # Climbers at 8,400 m: 13.3 mmHg, up to 15.7 (Grocott et al. 2009).
-        (ref.Residence.VISITOR, 8400.0, 13.3, 15.7),
+        (ref.Residence.VISITOR, 8400.0, 13.3, 15.7, _between(_VISITOR[1], _VISITOR[2])),
     ],
 )
 def test_at_each_published_anchor_the_expected_paco2_is_the_published_one(
-    residence: ref.Residence, altitude_m: float, mean: float, upper: float
+    residence: ref.Residence, altitude_m: float, mean: float, upper: float, method: str
 ) -> None:
     pb = barometric_pressure_west_mmhg(altitude_m=altitude_m)
     found = ref.expected_paco2(barometric_mmhg=pb, residence=residence)
     assert found.mean_mmhg == pytest.approx(mean, abs=1e-9)
     assert found.upper_limit_mmhg == pytest.approx(upper, abs=1e-9)
+    assert found.method == method
 
 
 def test_between_anchors_the_expected_paco2_is_linear_in_pressure() -> None:
@@ -279,3 +295,31 @@ def test_between_anchors_the_expected_paco2_is_linear_in_pressure() -> None:
     assert top.method.startswith("Grocott")
     above = ref.expected_paco2(barometric_mmhg=800.0, residence=ref.Residence.RESIDENT)
     assert (above.mean_mmhg, above.upper_limit_mmhg) == (40.0, 45.0)
+
+
+# --- The observations a derived value was computed from, without repeats -------------------
+
+
+def test_two_facts_from_one_observation_name_it_once() -> None:
+    table = DerivedTable()
+
+    @table.quantity("w", "1", (0.0, 100.0), 2, "a plus b")
+    def w(*, a: float, b: float) -> float:
+        return a + b
+
+    b_spec = FactSpec("b", FactKind.QUANTITY, "1", "an input", 0.0, 100.0, decimals=2)
+    specs = {"a": _A, "b": b_spec, "w": table.facts[0].spec}
+    one = Source("Observation/panel", "Bundle.entry[0].resource")
+    same = Source("Observation/panel", "Bundle.entry[0].resource")  # equal, not identical
+    other = Source("Observation/other", "Bundle.entry[1].resource")
+    for a_from, b_from, expected in (
+        ((one,), (one,), (one,)),
+        ((one,), (same,), (one,)),
+        ((one,), (other,), (one, other)),
+        ((one, other), (same,), (one, other)),
+    ):
+        facts: dict[str, FactValue] = {"a": 1.0, "b": 2.0}
+        sources: dict[str, tuple[Source, ...]] = {"a": a_from, "b": b_from}
+        derivation.compute_derived(table.facts, facts, sources, specs, Settings())
+        assert sources["w"] == expected
+        assert sources["w"][0] is one
