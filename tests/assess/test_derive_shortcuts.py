@@ -18,9 +18,9 @@ from typing import Any
 import orjson
 import pytest
 
-from service.assess import derivation
+from service.assess import derivation, normals
 from service.assess.assess import ALVEOLAR_TOLERANCE, windows
-from service.assess.derivation import DerivedTable, FactValue
+from service.assess.derivation import Computed, DerivedTable, FactValue
 from service.assess.derive import GasFacts, derive_gas_facts
 from service.assess.pairing import _WINDOW_OF, Windows, _nearest, pair_gases
 from service.assess.uncertainty import input_ranges, representative_changes
@@ -323,3 +323,21 @@ def test_two_facts_from_one_observation_name_it_once() -> None:
         derivation.compute_derived(table.facts, facts, sources, specs, Settings())
         assert sources["w"] == expected
         assert sources["w"][0] is one
+
+
+def test_the_expected_gradient_fact_is_the_expected_not_the_limit() -> None:
+    # At the reference alveolar PO2 (sea level, air, PaCO2 40) the expected A-a gradient is
+    # PAO2_ref minus the PaO2 expected for age (Cerveri 1995: 143.6 - 0.39 age - 0.56 BMI
+    # - 0.57 PaCO2, BMI 25); the upper limit uses the 5th centile, 1.645 x SEE 7.48 lower.
+    alveolar = ref.reference_alveolar_po2_mmhg()
+    mean = 143.6 - 0.39 * 50.0 - 0.56 * 25.0 - 0.57 * 40.0
+    settings = Settings()
+    expected = normals.aa_gradient_expected.compute(
+        age=50.0, alveolar_po2=alveolar, settings=settings
+    )
+    limit = normals.aa_gradient_upper_limit.compute(
+        age=50.0, alveolar_po2=alveolar, settings=settings
+    )
+    assert expected == pytest.approx(alveolar - mean, abs=1e-9)
+    assert isinstance(limit, Computed)
+    assert limit.value == pytest.approx(alveolar - (mean - 1.645 * 7.48), abs=1e-9)
