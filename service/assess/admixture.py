@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from functools import lru_cache
+
 from service.config import Settings
 from service.physiology import constants as c
 from service.physiology import oxygen_content as oc
@@ -76,6 +78,34 @@ def arterial_o2_content(
     )
 
 
+@lru_cache(maxsize=64)
+def _capillary_content(
+    haemoglobin: float,
+    arterial_po2: float,
+    alveolar_po2: float,
+    hufner_ml_per_g: float,
+    arterial_so2: float | None,
+    carboxyhaemoglobin: float | None,
+    methaemoglobin: float | None,
+    arterial_ph: float | None,
+) -> float:
+    """The end-capillary O2 content (mL/dL). The end-capillary saturation comes from the same
+    curve as the arterial one (the patient's, with a pH). Cached: the three admixture facts
+    (at the assumed a-v difference and at both ends of its range) share it."""
+    capillary_saturation = oc.end_capillary_saturation(
+        alveolar_po2_mmhg=alveolar_po2,
+        arterial_po2_mmhg=arterial_po2,
+        arterial_saturation=arterial_so2,
+        affinity=_curve(arterial_ph),
+    )
+    return oc.oxygen_content_ml_dl(
+        haemoglobin_g_dl=haemoglobin,
+        saturation=_carried(capillary_saturation, carboxyhaemoglobin, methaemoglobin),
+        po2_mmhg=alveolar_po2,
+        hufner_ml_per_g=hufner_ml_per_g,
+    )
+
+
 def venous_admixture_fraction(
     *,
     haemoglobin: float,
@@ -97,17 +127,15 @@ def venous_admixture_fraction(
     with a pH)."""
     if alveolar_po2 <= arterial_po2:
         return None  # no end-capillary to arterial gap: nothing to apportion
-    capillary_saturation = oc.end_capillary_saturation(
-        alveolar_po2_mmhg=alveolar_po2,
-        arterial_po2_mmhg=arterial_po2,
-        arterial_saturation=arterial_so2,
-        affinity=_curve(arterial_ph),
-    )
-    capillary = oc.oxygen_content_ml_dl(
-        haemoglobin_g_dl=haemoglobin,
-        saturation=_carried(capillary_saturation, carboxyhaemoglobin, methaemoglobin),
-        po2_mmhg=alveolar_po2,
-        hufner_ml_per_g=hufner_ml_per_g,
+    capillary = _capillary_content(
+        haemoglobin,
+        arterial_po2,
+        alveolar_po2,
+        hufner_ml_per_g,
+        arterial_so2,
+        carboxyhaemoglobin,
+        methaemoglobin,
+        arterial_ph,
     )
     venous_content: float | None = None
     if mixed_venous_so2 is not None:

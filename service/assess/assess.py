@@ -33,7 +33,7 @@ from .result import Assessment, Finding, GasResult, MechanismVerdict, ResultStat
 from .serial import serial_facts
 from .titration import TitrationRules, assess_titration, record_points
 from .trend import assessment_trend
-from .uncertainty import input_ranges
+from .uncertainty import input_ranges, representative_changes
 
 # The rule-set parameter that says how far a PaO2 may exceed the alveolar PO2 before the data
 # are doubted; the uncertain ranges are narrowed with it (0 when a rule set has none).
@@ -120,8 +120,21 @@ def _status(verdict: Verdict) -> ResultStatus:
     return ResultStatus.SUCCESS
 
 
+# The windows of the settings last asked about (settings are frozen; a process has one).
+_LAST_WINDOWS: list[tuple[Settings, Windows]] = []
+
+
 def windows(settings: Settings) -> Windows:
-    """The pairing windows of the site's settings."""
+    """The pairing windows of the site's settings (worked out once per settings object)."""
+    last = _LAST_WINDOWS[-1] if _LAST_WINDOWS else None
+    if last is not None and last[0] is settings:
+        return last[1]
+    found = _windows(settings)
+    _LAST_WINDOWS[:] = [(settings, found)]
+    return found
+
+
+def _windows(settings: Settings) -> Windows:
     return Windows(
         same_sample=timedelta(minutes=settings.same_sample_minutes),
         context=timedelta(minutes=settings.pairing_window_minutes),
@@ -178,7 +191,8 @@ def _fio2_raised(index: GasFacts, ruleset: RuleSet, settings: Settings) -> float
     """The FiO2 the index gas's PaO2 proves, when above its device estimate (else None)."""
     parameter = ruleset.parameters.get(ALVEOLAR_TOLERANCE)
     tolerance = parameter.value if parameter is not None else 0.0
-    changes = input_ranges(index, tolerance_mmhg=tolerance, settings=settings).representative
+    # Only the representative's changes: the scenarios are built once, by ``evaluate_gas``.
+    changes = representative_changes(index, tolerance_mmhg=tolerance, settings=settings)
     fio2 = changes.get("fio2")
     return fio2 if isinstance(fio2, float) and changes.get("fio2_raised_by_pao2") is True else None
 

@@ -185,21 +185,30 @@ def check_order(entries: Iterable[DerivedFact], known: Iterable[str]) -> None:
 
 @dataclass(frozen=True, slots=True)
 class _Step:
-    """One entry as the loop runs it, with everything looked up once: which facts it needs
-    and reads, which of those the catalogue presents as percentages (divided by 100 on the
-    way in: ``units.from_fact_unit``), and whether its value goes out as one."""
+    """One entry as the loop runs it, with everything looked up once (at plan time, never per
+    call): its function, which facts it needs and reads, which of those the catalogue presents
+    as percentages (divided by 100 on the way in: ``units.from_fact_unit``), whether its value
+    goes out as one, and the range a quantity must lie in."""
 
     entry: DerivedFact
     name: str
     needed: frozenset[str]
     reads: tuple[str, ...]
-    marked: tuple[tuple[str, bool], ...]
-    """Each fact read, and whether its catalogue unit is ``%``."""
+    percent_reads: tuple[str, ...]
+    """The facts read whose catalogue unit is ``%``."""
     unknown: frozenset[str]
     """Facts read that the catalogue lacks (an error when one of them is known)."""
     read_set: frozenset[str]
     quantity: bool
     out_percent: bool
+    compute: Compute
+    wants_settings: bool
+    spec: FactSpec
+    result: str | None
+    low: float
+    high: float
+    """A quantity's accepted range (``FactSpec.minimum``/``maximum``): a value inside it is
+    accepted without asking ``FactSpec.problem``, which says the same (it would return None)."""
 
 
 @dataclass(frozen=True, slots=True)
@@ -217,20 +226,26 @@ def _plan(entries: tuple[DerivedFact, ...], specs: Mapping[str, FactSpec]) -> _P
     for entry in entries:
         spec = entry.spec
         unknown = frozenset(name for name in entry.reads if name not in specs)
-        marked = tuple(
-            (name, name not in unknown and specs[name].unit == "%") for name in entry.reads
-        )
+        quantity = spec.kind is FactKind.QUANTITY
         steps.append(
             _Step(
                 entry=entry,
                 name=spec.name,
                 needed=frozenset(spec.inputs),
                 reads=entry.reads,
-                marked=marked,
+                percent_reads=tuple(
+                    name for name in entry.reads if name not in unknown and specs[name].unit == "%"
+                ),
                 unknown=unknown,
                 read_set=frozenset(entry.reads),
-                quantity=spec.kind is FactKind.QUANTITY,
-                out_percent=spec.kind is FactKind.QUANTITY and spec.unit == "%",
+                quantity=quantity,
+                out_percent=quantity and spec.unit == "%",
+                compute=entry.compute,
+                wants_settings=entry.wants_settings,
+                spec=spec,
+                result=entry.result,
+                low=spec.minimum if spec.minimum is not None else math.inf,
+                high=spec.maximum if spec.maximum is not None else -math.inf,
             )
         )
     names = [step.name for step in steps]
@@ -256,46 +271,49 @@ def _plan_of(entries: Iterable[DerivedFact], specs: Mapping[str, FactSpec]) -> _
     return plan
 
 
-def _arguments(
-    step: _Step, facts: Mapping[str, FactValue], specs: Mapping[str, FactSpec]
-) -> dict[str, Any]:
-    """The known facts ``step`` reads, in canonical units (``units.from_fact_unit``)."""
+def _arguments(step: _Step, facts: Mapping[str, FactValue], settings: Settings) -> dict[str, Any]:
+    """The known facts ``step`` reads, in canonical units (``units.from_fact_unit``), and the
+    settings if it takes them."""
     if step.unknown and not step.unknown.isdisjoint(facts):
         # The first known one the table reads that the catalogue lacks, as a lookup would.
         raise KeyError(next(n for n in step.reads if n in step.unknown and n in facts))
+    # A loop, not a comprehension: in Python 3.11 a comprehension is a function call.
     arguments: dict[str, Any] = {}
-    for name, percent in step.marked:
+    for name in step.reads:
         if name in facts:
-            value = facts[name]
-            arguments[name] = (
-                from_fact_unit(value, "%") if percent and isinstance(value, float) else value
-            )
+            arguments[name] = facts[name]
+    for name in step.percent_reads:
+        value = arguments.get(name)
+        if isinstance(value, float):
+            arguments[name] = from_fact_unit(value, "%")
+    if step.wants_settings:
+        arguments[SETTINGS] = settings
     return arguments
 
 
 def _outcome(
-    step: _Step,
-    facts: Mapping[str, FactValue],
-    specs: Mapping[str, FactSpec],
-    settings: Settings,
+    step: _Step, facts: Mapping[str, FactValue], settings: Settings
 ) -> tuple[FactValue | None, str, str | None]:
     """(value in the catalogue unit or None, method, problem) of ``step`` on ``facts``,
     whose needed facts are all known."""
-    arguments = _arguments(step, facts, specs)
-    entry = step.entry
-    if entry.wants_settings:
-        arguments[SETTINGS] = settings
     try:
-        out = entry.compute(**arguments)
+        out = step.compute(**_arguments(step, facts, settings))
     except PhysiologyError as error:
         return None, "", str(error)
     if out is None:
         return None, "", None
-    value, method = (out.value, out.method) if isinstance(out, Computed) else (out, "")
+    if isinstance(out, Computed):
+        value, method = out.value, out.method
+    else:
+        value, method = out, ""
     if step.quantity:
         assert not isinstance(value, bool)
-        value = to_fact_unit(float(value), "%" if step.out_percent else "")
-    problem = entry.spec.problem(value)
+        value = float(value)
+        if step.out_percent:
+            value = to_fact_unit(value, "%")
+        if step.low <= value <= step.high:
+            return value, method, None
+    problem = step.spec.problem(value)
     if problem is not None:
         return None, method, f"{problem}; not used"
     return value, method, None
@@ -314,23 +332,22 @@ def compute_derived(
     derived fact (the union over what it read). Returns the values filed in the result and
     the problems met (each ``fact: why``).
     """
-    return _compute(_plan_of(entries, specs), facts, sources, specs, settings)
+    return _compute(_plan_of(entries, specs), facts, sources, settings)
 
 
 def _compute(
     plan: _Plan,
     facts: dict[str, FactValue],
     sources: dict[str, tuple[Source, ...]],
-    specs: Mapping[str, FactSpec],
     settings: Settings,
 ) -> tuple[dict[str, Derived], list[str]]:
     filed: dict[str, Derived] = {}
     problems: list[str] = []
     known = facts.keys()
     for step in plan.steps:
-        if not step.needed <= known:
+        if not known >= step.needed:
             continue
-        value, method, problem = _outcome(step, facts, specs, settings)
+        value, method, problem = _outcome(step, facts, settings)
         if problem is not None:
             problems.append(f"{step.name}: {problem}")
             continue
@@ -340,14 +357,15 @@ def _compute(
         for name in step.reads:
             if name in facts:
                 found += sources.get(name, ())
-        used = tuple(dict.fromkeys(found))
+        # One source needs no de-duplication (dict.fromkeys hashes every Source).
+        used = found if len(found) < 2 else tuple(dict.fromkeys(found))
         facts[step.name] = value
         sources[step.name] = used
-        result = step.entry.result
+        result = step.result
         if result is not None:  # only quantities are filed (see DerivedTable.flag)
-            spec = step.entry.spec
-            assert spec.unit is not None and isinstance(value, float)
-            filed[result] = Derived(value, spec.unit, method, used)
+            unit = step.spec.unit
+            assert unit is not None and isinstance(value, float)
+            filed[result] = Derived(value, unit, method, used)
     return filed, problems
 
 
@@ -385,7 +403,7 @@ def derive_changed(
     facts = {**measured, **changes}
     if not plan.distinct or not plan.names.isdisjoint(facts):
         # An entry that overwrites an input or another entry: no shortcut, all again.
-        _compute(plan, facts, {}, specs, settings)
+        _compute(plan, facts, {}, settings)
         return facts
     changed = {
         name for name, value in changes.items() if not _same(measured.get(name, _MISSING), value)
@@ -399,8 +417,8 @@ def derive_changed(
             continue
         before = derived.get(name, _MISSING)
         value = None
-        if step.needed <= known:
-            value, _, _ = _outcome(step, facts, specs, settings)
+        if known >= step.needed:
+            value, _, _ = _outcome(step, facts, settings)
         if value is not None:
             facts[name] = value
         if not _same(_MISSING if value is None else value, before):

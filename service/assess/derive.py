@@ -102,16 +102,32 @@ def age_years(birth: date, at: date) -> float:
     return float(years)
 
 
+# The measured facts as ``_measured`` reads them, looked up once: (quantity, fact name, the
+# unit the catalogue presents it in, its catalogue entry), in the catalogue's order.
+_MEASURED_PLAN = tuple(
+    (m.quantity, m.name, m.unit, DEFAULT_CATALOGUE[m.name]) for m in MEASURED_FACTS
+)
+
+
 def _measured(out: GasFacts, patient: Patient | None, today: date) -> None:
     gas = out.gas
-    for measured in MEASURED_FACTS:
-        m = gas.get(measured.quantity)
+    values = gas.values
+    facts, sources, problems = out.facts, out.sources, out.problems
+    for quantity, name, unit, spec in _MEASURED_PLAN:
+        m = values.get(quantity)
         if m is None:
             continue
-        value = m.value if isinstance(m.value, str) else to_fact_unit(m.value, measured.unit)
-        out.set_fact(measured.name, value, (m.source,))
-    out.facts["arterial_gas_present"] = Quantity.ARTERIAL_PO2 in gas.values
-    out.facts["sao2_by_cooximetry"] = Quantity.ARTERIAL_SO2 in gas.values
+        value = m.value if isinstance(m.value, str) else to_fact_unit(m.value, unit)
+        # GasFacts.set_fact, with the catalogue entry looked up once.
+        problem = spec.problem(value)
+        if problem is not None:
+            problems.append(f"{name}: {problem}; not used")
+            facts.pop(name, None)
+            continue
+        facts[name] = value
+        sources[name] = (m.source,)
+    facts["arterial_gas_present"] = Quantity.ARTERIAL_PO2 in values
+    facts["sao2_by_cooximetry"] = Quantity.ARTERIAL_SO2 in values
     if patient is not None and patient.birth_date is not None:
         at = gas.time.date() if gas.time else today
         out.set_fact(AGE, age_years(patient.birth_date, at))

@@ -102,7 +102,11 @@ def paco2_upper_limit(
     return None if found is None else Computed(found.upper_limit_mmhg, found.method)
 
 
+@lru_cache(maxsize=64)
 def _expected_paco2(pb: float, residence: str | None) -> ref.ExpectedPaCO2 | None:
+    """The PaCO2 of healthy people at ``pb`` for the residence, None when it depends on an
+    unknown residence. Both PaCO2 facts read it, with the same arguments (cached, like
+    ``_projections``: each scenario derives them again)."""
     if residence is not None:
         return ref.expected_paco2(barometric_mmhg=pb, residence=ref.Residence(residence))
     resident, visitor = (ref.expected_paco2(barometric_mmhg=pb, residence=r) for r in ref.Residence)
@@ -130,11 +134,12 @@ def paco2_above_limit(*, arterial_pco2: float, paco2_upper_limit: float) -> floa
     "A-a gradient of a healthy person of this age at this alveolar PO2",
 )
 def aa_gradient_expected(*, age: float, alveolar_po2: float, settings: Settings) -> float:
-    return ref.normal_aa_gradient(
+    return ref.normal_aa_gradient_mmhg(
         age_years=age,
         alveolar_po2_mmhg=alveolar_po2,
         respiratory_quotient=settings.respiratory_quotient,
-    ).expected
+        limit=False,
+    )
 
 
 @table.quantity(
@@ -147,11 +152,12 @@ def aa_gradient_expected(*, age: float, alveolar_po2: float, settings: Settings)
 )
 def aa_gradient_upper_limit(*, age: float, alveolar_po2: float, settings: Settings) -> Computed:
     return Computed(
-        ref.normal_aa_gradient(
+        ref.normal_aa_gradient_mmhg(
             age_years=age,
             alveolar_po2_mmhg=alveolar_po2,
             respiratory_quotient=settings.respiratory_quotient,
-        ).upper_limit,
+            limit=True,
+        ),
         "healthy lung for age (Cerveri 1995 on air; healthy men on 100 % oxygen, Upsala J Med "
         "Sci) at this alveolar PO2",
     )

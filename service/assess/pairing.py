@@ -16,9 +16,10 @@ kept (``offset``) so the result can show it.
 
 from __future__ import annotations
 
-from collections.abc import Iterable
+from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
 from datetime import datetime, timedelta
+from typing import cast
 
 from service.intake.model import Intake, Measurement, Quantity, Specimen
 
@@ -84,17 +85,23 @@ class Windows:
 
     def limit(self, quantity: Quantity) -> timedelta | None:
         """The window of ``quantity``: a time, or None for any time (patient-level values)."""
-        for group, window in (
-            (SAME_SAMPLE, self.same_sample),
-            (CONTEXT, self.context),
-            (HAEMOGLOBIN, self.haemoglobin),
-            (DYSHAEMOGLOBINS, self.dyshaemoglobins),
-            (TEMPERATURE, self.temperature),
-            (LUNG_FUNCTION, self.lung_function),
-        ):
-            if quantity in group:
-                return window
-        return None
+        name = _WINDOW_OF.get(quantity)
+        return None if name is None else cast(timedelta, getattr(self, name))
+
+
+# The field of ``Windows`` each kind of value is taken within, looked up once: the first group
+# a quantity belongs to, in this order, decides (settings are context too).
+_WINDOW_OF: dict[Quantity, str] = {}
+for _group, _field in (
+    (SAME_SAMPLE, "same_sample"),
+    (CONTEXT, "context"),
+    (HAEMOGLOBIN, "haemoglobin"),
+    (DYSHAEMOGLOBINS, "dyshaemoglobins"),
+    (TEMPERATURE, "temperature"),
+    (LUNG_FUNCTION, "lung_function"),
+):
+    for _quantity in _group:
+        _WINDOW_OF.setdefault(_quantity, _field)
 
 
 PAIRED: frozenset[Quantity] = (
@@ -176,9 +183,18 @@ def _in_force(
 
 
 def _nearest(
-    candidates: Iterable[Measurement], anchor_time: datetime | None, limit: timedelta | None
+    candidates: Sequence[Measurement], anchor_time: datetime | None, limit: timedelta | None
 ) -> tuple[Measurement | None, Measurement | None, bool]:
     """(chosen, nearest rejected as out of window, chosen-is-untimed)."""
+    if len(candidates) == 1:
+        # The usual case, one value of a kind: what the general search below gives for it,
+        # without its lists and sorts.
+        (only,) = candidates
+        if only.time is None:
+            return only, None, True
+        if anchor_time is None or limit is None or abs(only.time - anchor_time) <= limit:
+            return only, None, False
+        return None, only, False
     timed = [m for m in candidates if m.time is not None]
     untimed = [m for m in candidates if m.time is None]
     if anchor_time is None or limit is None:

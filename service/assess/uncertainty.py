@@ -33,7 +33,7 @@ from .derive import GasFacts
 from .normals import SAME_PACO2_MMHG
 from .presentation import PressureUnit, pressure_text
 
-__all__ = ["Ranges", "input_ranges"]
+__all__ = ["Ranges", "input_ranges", "representative_changes"]
 
 SETTLE_FIO2 = Discriminator(
     "A measured FiO2 (or the oxygen set on a device with a known FiO2, such as a Venturi mask "
@@ -230,6 +230,15 @@ def _combinations(ranges: list[_Range]) -> list[tuple[str, dict[str, FactValue]]
         label = ", ".join(r.labelled(value) for r, value in zip(ranges, ends, strict=True))
         out.append((label, changes))
     return out
+
+
+def representative_changes(
+    gas: GasFacts, *, tolerance_mmhg: float, settings: Settings
+) -> dict[str, FactValue]:
+    """``input_ranges(gas, ...).representative`` without the rest of the ranges: the changes
+    the representative evaluation makes (only the FiO2's range makes any), for a caller that
+    needs no scenario."""
+    return _fio2_range(gas, tolerance_mmhg, settings)[1]
 
 
 def input_ranges(

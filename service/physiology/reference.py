@@ -118,12 +118,15 @@ def reference_method(age_years: float) -> str:
     return "Cerveri 1995, 75 years and over"
 
 
+@lru_cache(maxsize=16)
 def reference_alveolar_po2_mmhg(
     *, respiratory_quotient: float = c.DEFAULT_RESPIRATORY_QUOTIENT
 ) -> float:
     """Alveolar PO2 of the reference person: sea level (760 mmHg), room air, PaCO2 40, 37 °C.
 
-    Full alveolar gas equation with PH2O at 37 °C (IAPWS-IF97): about 101.8 mmHg.
+    Full alveolar gas equation with PH2O at 37 °C (IAPWS-IF97): about 101.8 mmHg. Cached:
+    it depends only on the respiratory quotient (a site setting), and every normal A-a
+    gradient asks for it.
     """
     return alveolar_po2_mmhg(
         fio2=c.ROOM_AIR_FIO2,
@@ -248,20 +251,43 @@ def normal_aa_gradient(
     Raises:
         ImpossibleValueError: an impossible age.
     """
+    return NormalGradient(
+        normal_aa_gradient_mmhg(
+            age_years=age_years,
+            alveolar_po2_mmhg=alveolar_po2_mmhg,
+            respiratory_quotient=respiratory_quotient,
+            limit=False,
+        ),
+        normal_aa_gradient_mmhg(
+            age_years=age_years,
+            alveolar_po2_mmhg=alveolar_po2_mmhg,
+            respiratory_quotient=respiratory_quotient,
+            limit=True,
+        ),
+    )
+
+
+def normal_aa_gradient_mmhg(
+    *,
+    age_years: float,
+    alveolar_po2_mmhg: float,
+    respiratory_quotient: float = c.DEFAULT_RESPIRATORY_QUOTIENT,
+    limit: bool,
+) -> float:
+    """One of ``normal_aa_gradient``'s two values (``limit``: the upper limit, else the
+    expected gradient), for a caller that needs only one: the same number, at half the cost.
+
+    Raises:
+        ImpossibleValueError: an impossible age.
+    """
     reference_pao2 = reference_alveolar_po2_mmhg(respiratory_quotient=respiratory_quotient)
     alveolar = max(alveolar_po2_mmhg, 0.0)
     if alveolar <= reference_pao2:
-        scale = alveolar / reference_pao2
-        return NormalGradient(
-            (reference_pao2 - expected_pao2_mmhg(age_years=age_years)) * scale,
-            (reference_pao2 - pao2_lower_limit_mmhg(age_years=age_years)) * scale,
-        )
+        reference = pao2_lower_limit_mmhg if limit else expected_pao2_mmhg
+        return (reference_pao2 - reference(age_years=age_years)) * (alveolar / reference_pao2)
     age = round(_reference_age(age_years))
-    gradients = []
-    for limit in (False, True):
-        pao2 = _arterial(alveolar, healthy_lung(age, limit, respiratory_quotient))
-        gradients.append(alveolar if pao2 is None else alveolar - pao2)
-    return NormalGradient(gradients[0], gradients[1])
+    pao2 = _arterial(alveolar, healthy_lung(age, limit, respiratory_quotient))
+    return alveolar if pao2 is None else alveolar - pao2
 
 
 def projected_pao2_mmhg(*, a_a_ratio: float, alveolar_po2_mmhg: float) -> float:
@@ -337,22 +363,66 @@ class ExpectedPaCO2:
     method: str
 
 
-def _interpolate(anchors: tuple[PaCO2Anchor, ...], barometric_mmhg: float) -> ExpectedPaCO2:
+@dataclass(frozen=True, slots=True)
+class _Segment:
+    """Two neighbouring anchors as the interpolation reads them, with their pressures and
+    method text worked out once at import (``PaCO2Anchor.barometric_mmhg`` is West 1996 of
+    the altitude, the same number every time)."""
+
+    high_pb: float
+    low_pb: float
+    high: PaCO2Anchor
+    low: PaCO2Anchor
+    method: str
+
+
+@dataclass(frozen=True, slots=True)
+class _Anchors:
+    """One residence's anchors as the interpolation reads them."""
+
+    top_pb: float
+    top: ExpectedPaCO2
+    segments: tuple[_Segment, ...]
+    bottom: ExpectedPaCO2
+
+
+def _anchors(anchors: tuple[PaCO2Anchor, ...]) -> _Anchors:
     # Anchors run from high to low pressure (sea level first); outside them, the end value.
-    points = [(a.barometric_mmhg, a) for a in anchors]
-    if barometric_mmhg >= points[0][0]:
-        first = points[0][1]
-        return ExpectedPaCO2(first.mean_mmhg, first.upper_limit_mmhg, first.source)
-    for (high_pb, high), (low_pb, low) in itertools.pairwise(points):
-        if barometric_mmhg >= low_pb:
-            t = (high_pb - barometric_mmhg) / (high_pb - low_pb)
+    first, last = anchors[0], anchors[-1]
+    return _Anchors(
+        first.barometric_mmhg,
+        ExpectedPaCO2(first.mean_mmhg, first.upper_limit_mmhg, first.source),
+        tuple(
+            _Segment(
+                high.barometric_mmhg,
+                low.barometric_mmhg,
+                high,
+                low,
+                f"interpolated between {high.source} and {low.source}",
+            )
+            for high, low in itertools.pairwise(anchors)
+        ),
+        ExpectedPaCO2(last.mean_mmhg, last.upper_limit_mmhg, last.source),
+    )
+
+
+def _interpolate(anchors: _Anchors, barometric_mmhg: float) -> ExpectedPaCO2:
+    if barometric_mmhg >= anchors.top_pb:
+        return anchors.top
+    for segment in anchors.segments:
+        if barometric_mmhg >= segment.low_pb:
+            high, low = segment.high, segment.low
+            t = (segment.high_pb - barometric_mmhg) / (segment.high_pb - segment.low_pb)
             return ExpectedPaCO2(
                 high.mean_mmhg + t * (low.mean_mmhg - high.mean_mmhg),
                 high.upper_limit_mmhg + t * (low.upper_limit_mmhg - high.upper_limit_mmhg),
-                f"interpolated between {high.source} and {low.source}",
+                segment.method,
             )
-    last = points[-1][1]
-    return ExpectedPaCO2(last.mean_mmhg, last.upper_limit_mmhg, last.source)
+    return anchors.bottom
+
+
+_RESIDENT_ANCHORS = _anchors(RESIDENT_PACO2)
+_VISITOR_ANCHORS = _anchors(VISITOR_PACO2)
 
 
 def expected_paco2(*, barometric_mmhg: float, residence: Residence) -> ExpectedPaCO2:
@@ -363,7 +433,7 @@ def expected_paco2(*, barometric_mmhg: float, residence: Residence) -> ExpectedP
     above sea-level pressure: mean 40, upper limit 45 mmHg.
     """
     require_possible("barometric_mmhg", barometric_mmhg, *PRESSURE_BAROMETRIC_MMHG, "mm[Hg]")
-    anchors = RESIDENT_PACO2 if residence is Residence.RESIDENT else VISITOR_PACO2
+    anchors = _RESIDENT_ANCHORS if residence is Residence.RESIDENT else _VISITOR_ANCHORS
     return _interpolate(anchors, barometric_mmhg)
 
 
