@@ -99,12 +99,23 @@ def evaluate(
     # A private copy (results render text later and must not see the caller's edits), with
     # every number at its stated precision: rules compare values as stated.
     known: dict[str, FactValue] = ruleset.catalogue.as_stated(facts)  # type: ignore[assignment]
-    states = BlockStates([test(known) for test in ruleset.leaf_tests])
-    rule_states = [truth(states) for truth in ruleset.rule_truths]
+    program = ruleset.program
+    leaf_states, rule_states, node_states = program.run(known)
+    states = BlockStates(leaf_states)
     results = _Results(
         ruleset.evaluated, rule_states, EvaluationContext(known, states, ruleset.leaves)
     )
+
+    def undecided_of(position: int) -> tuple[str, ...]:
+        return program.undecided(position, leaf_states, node_states)
+
     verdict = decide_states(
-        ruleset.verdict_plan, rule_states, results, known, ruleset.catalogue, input_errors
+        ruleset.verdict_plan,
+        rule_states,
+        results,
+        known,
+        ruleset.catalogue,
+        input_errors,
+        undecided_of,
     )
     return Evaluation(ruleset.identity, ruleset.content_hash, verdict, results)

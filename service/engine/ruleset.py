@@ -12,6 +12,7 @@ from service.engine.compiled import CompiledCondition, StateVector
 from service.engine.leaves import FactTest, Leaf
 from service.engine.logic import TruthValue
 from service.engine.parameters import Parameter
+from service.engine.program import RuleProgram
 from service.engine.rationale import Template
 from service.engine.vocabulary import (
     GasExchangeStatus,
@@ -144,6 +145,8 @@ class VerdictPlan:
     """Rules that state hypoxaemia present or absent, each with its `ref`."""
     gas_exchange: tuple[tuple[int, GasExchangeOutcome, str], ...] = ()
     """Rules that state gas exchange abnormal or normal, each with its `ref`."""
+    refs: tuple[str, ...] = ()
+    """`id@version` of every rule, by position."""
 
     @classmethod
     def of(cls, rules: Sequence[Rule]) -> "VerdictPlan":
@@ -171,6 +174,7 @@ class VerdictPlan:
             tuple(findings),
             tuple(hypoxaemia),
             tuple(gas_exchange),
+            tuple([rule.ref for rule in rules]),
         )
 
 
@@ -204,6 +208,8 @@ class RuleSet:
     """The condition of each evaluated rule, in the order of `evaluated`."""
     verdict_plan: VerdictPlan = field(init=False, repr=False, compare=False)
     """What each evaluated rule can contribute to the verdict."""
+    program: RuleProgram = field(init=False, repr=False, compare=False)
+    """The leaf tests and the evaluated rules' conditions as one function (``program``)."""
 
     def __post_init__(self) -> None:
         evaluated = tuple(
@@ -213,6 +219,8 @@ class RuleSet:
         object.__setattr__(self, "leaf_tests", tuple(leaf.test for leaf in self.leaves))
         object.__setattr__(self, "rule_truths", tuple(rule.condition.truth for rule in evaluated))
         object.__setattr__(self, "verdict_plan", VerdictPlan.of(evaluated))
+        program = RuleProgram(self.leaves, [rule.condition for rule in evaluated])
+        object.__setattr__(self, "program", program)
 
     @property
     def identity(self) -> str:

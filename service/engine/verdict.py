@@ -75,6 +75,7 @@ _MECHANISMS = tuple(Mechanism)
 _LIKELY, _POSSIBLE, _NOT_ASSESSABLE = Grade.LIKELY, Grade.POSSIBLE, Grade.NOT_ASSESSABLE
 _PRESENT, _ABSENT = HypoxaemiaStatus.PRESENT, HypoxaemiaStatus.ABSENT
 _DEFECT, _NORMAL = GasExchangeStatus.DEFECT, GasExchangeStatus.NORMAL
+_NO_STATUS, _NO_EXCHANGE = HypoxaemiaStatus.UNKNOWN, GasExchangeStatus.UNKNOWN
 GAS_EXCHANGE_MECHANISMS = frozenset(
     {Mechanism.VQ_MISMATCH, Mechanism.SHUNT, Mechanism.DIFFUSION_LIMITATION}
 )
@@ -293,7 +294,8 @@ def _unassessed(
     mechanism: Mechanism,
     grading: Sequence[tuple[int, MechanismOutcome]],
     states: Sequence[TruthValue],
-    result_of: Callable[[int], RuleResult],
+    refs: Sequence[str],
+    undecided_of: Callable[[int], tuple[str, ...]],
     requests: DataRequests,
 ) -> MechanismAssessment:
     """A mechanism no rule fired for, with the missing facts that keep its rules unknown
@@ -301,13 +303,20 @@ def _unassessed(
     undecided: dict[str, None] = {}
     for position, _ in grading:
         if states[position] is None:
-            result = result_of(position)
-            for fact in result.undecided:
+            ref = refs[position]
+            for fact in undecided_of(position):
                 undecided[fact] = None
-                requests.ask(fact, result.ref)
+                requests.ask(fact, ref)
     if not undecided:
         return _UNASSESSED[mechanism]
     return MechanismAssessment(mechanism, _NOT_ASSESSABLE, undecided=tuple(undecided))
+
+
+def _undecided_from(result_of: Callable[[int], RuleResult]) -> Callable[[int], tuple[str, ...]]:
+    def undecided_of(position: int) -> tuple[str, ...]:
+        return result_of(position).undecided
+
+    return undecided_of
 
 
 def _ask_discriminators(assessment: MechanismAssessment, requests: DataRequests) -> None:
@@ -340,14 +349,20 @@ def decide_states(
     facts: Mapping[str, FactValue],
     catalogue: FactCatalogue,
     input_errors: Sequence[str] = (),
+    undecided_of: Callable[[int], tuple[str, ...]] | None = None,
 ) -> Verdict:
     """`decide` from the rules' states (True, False, None) as `evaluate` has them.
 
     `plan` positions index `states`; `result_of(position)` gives that rule's result, and is
-    asked only for the rules the verdict cites or asks about. `input_errors` are the codes of
-    error findings met before the rules (values the input reader refused): they make the
-    gas not classifiable, as an error finding of a rule does.
+    asked only for the rules the verdict cites. `input_errors` are the codes of error
+    findings met before the rules (values the input reader refused): they make the gas not
+    classifiable, as an error finding of a rule does. `undecided_of(position)` is that
+    rule's `RuleResult.undecided` (by default read from `result_of`), which `evaluate` has
+    without making the result.
     """
+    if undecided_of is None:
+        undecided_of = _undecided_from(result_of)
+    refs = plan.refs
     findings = [
         FindingResult(found.code, found.severity, result_of(position))
         for position, found in plan.findings
@@ -356,31 +371,27 @@ def decide_states(
     if len(findings) > 1:
         findings.sort(key=finding_order)
     said = _stated(plan.hypoxaemia, states)
-    if _PRESENT in said:
-        hypoxaemia = _PRESENT
-    elif _ABSENT in said:
-        hypoxaemia = _ABSENT
-    else:
-        hypoxaemia = HypoxaemiaStatus.UNKNOWN
+    hypoxaemia = _PRESENT if _PRESENT in said else _ABSENT if _ABSENT in said else _NO_STATUS
     exchange_said = _stated(plan.gas_exchange, states)
-    if _DEFECT in exchange_said:
-        gas_exchange = _DEFECT
-    elif _NORMAL in exchange_said:
-        gas_exchange = _NORMAL
-    else:
-        gas_exchange = GasExchangeStatus.UNKNOWN
+    gas_exchange = (
+        _DEFECT
+        if _DEFECT in exchange_said
+        else _NORMAL
+        if _NORMAL in exchange_said
+        else _NO_EXCHANGE
+    )
     demotion = _demotion(findings, facts, input_errors)
     requests = DataRequests(facts, catalogue)
     mechanisms: list[MechanismAssessment] = []
     for mechanism, grading in plan.mechanisms:
         fired = [(position, graded) for position, graded in grading if states[position] is True]
         if not fired:
-            mechanisms.append(_unassessed(mechanism, grading, states, result_of, requests))
+            mechanisms.append(_unassessed(mechanism, grading, states, refs, undecided_of, requests))
             continue
         assessment = _assess(mechanism, fired, result_of, demotion)
         if assessment.grade is _NOT_ASSESSABLE:
             # A rule said why the data cannot speak; still ask for what would let them.
-            missing = _unassessed(mechanism, grading, states, result_of, requests)
+            missing = _unassessed(mechanism, grading, states, refs, undecided_of, requests)
             assessment = replace(assessment, undecided=missing.undecided)
         mechanisms.append(assessment)
         if assessment.grade is _POSSIBLE:
