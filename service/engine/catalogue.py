@@ -25,7 +25,16 @@ __all__ = [
 class FactCatalogue(Mapping[str, FactSpec]):
     """An immutable mapping of fact name to `FactSpec`."""
 
-    __slots__ = ("_booleans", "_codes", "_decimals", "_order", "_ranges", "_specs")
+    __slots__ = (
+        "_booleans",
+        "_codes",
+        "_decimals",
+        "_needs",
+        "_order",
+        "_quantities",
+        "_ranges",
+        "_specs",
+    )
 
     def __init__(self, specs: Iterable[FactSpec]) -> None:
         table: dict[str, FactSpec] = {}
@@ -53,6 +62,13 @@ class FactCatalogue(Mapping[str, FactSpec]):
         self._decimals = {n: s.decimals for n, s in table.items() if s.kind is FactKind.QUANTITY}
         self._booleans = frozenset(n for n, s in table.items() if s.kind is FactKind.BOOLEAN)
         self._codes = {n: s.allowed for n, s in table.items() if s.kind is FactKind.CODE}
+        # `stated`'s quick path: a number's bounds and decimals in one look-up.
+        self._quantities = {n: (*bounds, self._decimals[n]) for n, bounds in self._ranges.items()}
+        self._needs = {
+            spec.name: (spec.inputs, spec.optional_inputs)
+            for spec in table.values()
+            if spec.inputs or spec.optional_inputs
+        }
 
     def __getitem__(self, name: str) -> FactSpec:
         return self._specs[name]
@@ -111,6 +127,42 @@ class FactCatalogue(Mapping[str, FactSpec]):
                 if allowed is not None and value in allowed:
                     continue
             self._raise_problems(facts)
+
+    @property
+    def needs(self) -> Mapping[str, tuple[tuple[str, ...], tuple[str, ...]]]:
+        """``inputs`` and ``optional_inputs`` of every fact that has any, by name."""
+        return self._needs
+
+    def stated(self, facts: Mapping[str, object]) -> dict[str, object]:
+        """``check`` the facts, then return them ``as_stated``: one pass, one look-up a fact.
+
+        A private copy in either case; the value ``check`` lets through and ``as_stated``
+        rounds are the same (``tests/engine/test_catalogue.py`` compares them).
+        """
+        quantities, booleans, codes = self._quantities, self._booleans, self._codes
+        stated: dict[str, object] = {}
+        for name, value in facts.items():
+            kind = type(value)
+            if kind is float or kind is int:
+                found = quantities.get(name)
+                if found is not None and found[0] <= value <= found[1]:  # type: ignore[operator]
+                    if kind is float:  # at its stated precision; an int is stated as it is
+                        value = round(value, found[2])  # type: ignore[call-overload]
+                    stated[name] = value
+                    continue
+            elif kind is bool:
+                if name in booleans:
+                    stated[name] = value
+                    continue
+            elif kind is str:
+                allowed = codes.get(name)
+                if allowed is not None and value in allowed:
+                    stated[name] = value
+                    continue
+            self._raise_problems(facts)
+            # No problem after all (a quantity with an open bound): stated as `as_stated` has it.
+            stated.update(self.as_stated({name: value}))
+        return stated
 
     def _raise_problems(self, facts: Mapping[str, object]) -> None:
         """Raise `FactError` with every problem (the checks of `FactSpec.problem`)."""

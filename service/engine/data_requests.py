@@ -34,9 +34,12 @@ class DataRequest:
 class DataRequests:
     """Collects data requests, translating missing derived facts into missing inputs."""
 
+    __slots__ = ("_asked", "_facts", "_needs", "_positions", "_turned")
+
     def __init__(self, facts: Mapping[str, FactValue], catalogue: FactCatalogue) -> None:
         self._facts = facts
-        self._catalogue = catalogue
+        self._needs = catalogue.needs
+        self._positions = catalogue.positions
         self._asked: dict[str, tuple[set[str], set[str]]] = {}
         self._turned: dict[str, tuple[str, ...]] = {}
 
@@ -49,21 +52,29 @@ class DataRequests:
         value of it). An empty `rule` asks on behalf of the verdict itself (a gas that is
         not classifiable asks for a trusted one).
         """
+        asked = self._asked
         if fact in self._facts:
             if even_if_known:
-                requested_by, _ = self._entry(fact)
+                entry = asked.get(fact)
+                if entry is None:
+                    entry = asked[fact] = (set(), set())
                 if rule:
-                    requested_by.add(rule)
+                    entry[0].add(rule)
             return
-        for name in self._requested(fact):
-            requested_by, needed_for = self._entry(name)
+        names = self._turned.get(fact)
+        if names is None:
+            names = self._requested(fact)
+        for name in names:
+            entry = asked.get(name)
+            if entry is None:
+                entry = asked[name] = (set(), set())
             if rule:
-                requested_by.add(rule)
+                entry[0].add(rule)
             # The fact itself is asked for the derived fact it was wanted for (if any); an
             # input it stands in for, for the fact (or what the fact was wanted for).
             feeds = wanted if name == fact else (wanted or fact)
             if feeds is not None:
-                needed_for.add(feeds)
+                entry[1].add(feeds)
 
     def _requested(self, fact: str) -> tuple[str, ...]:
         """What a request for the missing ``fact`` asks for: its missing inputs, recursively,
@@ -71,28 +82,23 @@ class DataRequests:
         whoever asks, so worked out once per fact."""
         found = self._turned.get(fact)
         if found is None:
-            spec = self._catalogue[fact]
-            facts = self._facts
-            missing_inputs = [name for name in spec.inputs if name not in facts]
-            if not missing_inputs:
-                missing_inputs = [name for name in spec.optional_inputs if name not in facts]
-            found = (
-                tuple(
-                    dict.fromkeys(
-                        asked for name in missing_inputs for asked in self._requested(name)
-                    )
+            needs = self._needs.get(fact)
+            missing: list[str] = []
+            if needs is not None:
+                facts = self._facts
+                missing = [name for name in needs[0] if name not in facts] or [
+                    name for name in needs[1] if name not in facts
+                ]
+            if not missing:
+                found = (fact,)
+            elif len(missing) == 1:  # already without repeats
+                found = self._requested(missing[0])
+            else:
+                found = tuple(
+                    dict.fromkeys([asked for name in missing for asked in self._requested(name)])
                 )
-                if missing_inputs
-                else (fact,)
-            )
             self._turned[fact] = found
         return found
-
-    def _entry(self, fact: str) -> tuple[set[str], set[str]]:
-        entry = self._asked.get(fact)
-        if entry is None:
-            entry = self._asked[fact] = (set(), set())
-        return entry
 
     @property
     def empty(self) -> bool:
@@ -102,12 +108,8 @@ class DataRequests:
     def collected(self) -> tuple[DataRequest, ...]:
         """The requests so far, in catalogue order."""
         asked = self._asked
-        return tuple(
-            [
-                DataRequest(fact, tuple(sorted(by)), tuple(sorted(needed)) if needed else ())
-                for fact, (by, needed) in ((fact, asked[fact]) for fact in self._order(asked))
-            ]
-        )
-
-    def _order(self, asked: Mapping[str, object]) -> list[str]:
-        return sorted(asked, key=self._catalogue.positions.__getitem__)
+        requests = []
+        for fact in sorted(asked, key=self._positions.__getitem__):
+            by, needed = asked[fact]
+            requests.append(DataRequest(fact, tuple(sorted(by)), tuple(sorted(needed))))
+        return tuple(requests)

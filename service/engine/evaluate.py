@@ -95,10 +95,9 @@ def evaluate(
     `input_errors` are the codes of error findings met before the rules (values the input
     reader refused): like a fired error finding, they make the verdict not classifiable.
     """
-    ruleset.catalogue.check(facts)
-    # A private copy (results render text later and must not see the caller's edits), with
-    # every number at its stated precision: rules compare values as stated.
-    known: dict[str, FactValue] = ruleset.catalogue.as_stated(facts)  # type: ignore[assignment]
+    # Checked, and a private copy (results render text later and must not see the caller's
+    # edits), with every number at its stated precision: rules compare values as stated.
+    known: dict[str, FactValue] = ruleset.catalogue.stated(facts)  # type: ignore[assignment]
     program = ruleset.program
     leaf_states, rule_states, node_states = program.run(known)
     states = BlockStates(leaf_states)
