@@ -34,6 +34,7 @@ class FactCatalogue(Mapping[str, FactSpec]):
         "_quantities",
         "_ranges",
         "_specs",
+        "_tables",
     )
 
     def __init__(self, specs: Iterable[FactSpec]) -> None:
@@ -63,7 +64,10 @@ class FactCatalogue(Mapping[str, FactSpec]):
         self._booleans = frozenset(n for n, s in table.items() if s.kind is FactKind.BOOLEAN)
         self._codes = {n: s.allowed for n, s in table.items() if s.kind is FactKind.CODE}
         # `stated`'s quick path: a number's bounds and decimals in one look-up.
-        self._quantities = {n: (*bounds, self._decimals[n]) for n, bounds in self._ranges.items()}
+        self._quantities: dict[str, tuple[float, float, int | None]] = {
+            n: (*bounds, self._decimals[n]) for n, bounds in self._ranges.items()
+        }
+        self._tables: dict[frozenset[str], dict[str, tuple[float, float, int | None]]] = {}
         self._needs = {
             spec.name: (spec.inputs, spec.optional_inputs)
             for spec in table.values()
@@ -133,20 +137,25 @@ class FactCatalogue(Mapping[str, FactSpec]):
         """``inputs`` and ``optional_inputs`` of every fact that has any, by name."""
         return self._needs
 
-    def stated(self, facts: Mapping[str, object]) -> dict[str, object]:
+    def stated(
+        self, facts: Mapping[str, object], compared: frozenset[str] | None = None
+    ) -> dict[str, object]:
         """``check`` the facts, then return them ``as_stated``: one pass, one look-up a fact.
 
         A private copy in either case; the value ``check`` lets through and ``as_stated``
-        rounds are the same (``tests/engine/test_catalogue.py`` compares them).
+        rounds are the same (``tests/engine/test_catalogue_stated.py`` compares them). With
+        ``compared``, only the numbers of those facts are rounded (a rule set's tested facts:
+        a rationale rounds what it shows itself, so rounding the rest here would be wasted).
         """
-        quantities, booleans, codes = self._quantities, self._booleans, self._codes
+        quantities = self._quantities if compared is None else self._rounding(compared)
+        booleans, codes = self._booleans, self._codes
         stated: dict[str, object] = {}
         for name, value in facts.items():
             kind = type(value)
             if kind is float or kind is int:
                 found = quantities.get(name)
                 if found is not None and found[0] <= value <= found[1]:  # type: ignore[operator]
-                    if kind is float:  # at its stated precision; an int is stated as it is
+                    if kind is float and found[2] is not None:  # an int is stated as it is
                         value = round(value, found[2])  # type: ignore[call-overload]
                     stated[name] = value
                     continue
@@ -163,6 +172,16 @@ class FactCatalogue(Mapping[str, FactSpec]):
             # No problem after all (a quantity with an open bound): stated as `as_stated` has it.
             stated.update(self.as_stated({name: value}))
         return stated
+
+    def _rounding(self, compared: frozenset[str]) -> Mapping[str, tuple[float, float, int | None]]:
+        """``stated``'s table for ``compared``: decimals only for the facts in it (made once)."""
+        table = self._tables.get(compared)
+        if table is None:
+            table = self._tables[compared] = {
+                name: (low, high, decimals if name in compared else None)
+                for name, (low, high, decimals) in self._quantities.items()
+            }
+        return table
 
     def _raise_problems(self, facts: Mapping[str, object]) -> None:
         """Raise `FactError` with every problem (the checks of `FactSpec.problem`)."""

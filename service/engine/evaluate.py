@@ -96,8 +96,9 @@ def evaluate(
     reader refused): like a fired error finding, they make the verdict not classifiable.
     """
     # Checked, and a private copy (results render text later and must not see the caller's
-    # edits), with every number at its stated precision: rules compare values as stated.
-    known: dict[str, FactValue] = ruleset.catalogue.stated(facts)  # type: ignore[assignment]
+    # edits), with every number a rule compares at its stated precision: rules compare values
+    # as stated (a rationale rounds the numbers it shows itself).
+    known: dict[str, FactValue] = ruleset.catalogue.stated(facts, ruleset.compared)  # type: ignore[assignment]
     program = ruleset.program
     leaf_states, rule_states, node_states = program.run(known)
     states = BlockStates(leaf_states)

@@ -208,6 +208,8 @@ class RuleSet:
     """The condition of each evaluated rule, in the order of `evaluated`."""
     verdict_plan: VerdictPlan = field(init=False, repr=False, compare=False)
     """What each evaluated rule can contribute to the verdict."""
+    compared: frozenset[str] = field(init=False, repr=False, compare=False)
+    """The facts some leaf tests: the numbers `evaluate` rounds to their stated precision."""
     program: RuleProgram = field(init=False, repr=False, compare=False)
     """The leaf tests and the evaluated rules' conditions as one function (``program``)."""
 
@@ -219,6 +221,7 @@ class RuleSet:
         object.__setattr__(self, "leaf_tests", tuple(leaf.test for leaf in self.leaves))
         object.__setattr__(self, "rule_truths", tuple(rule.condition.truth for rule in evaluated))
         object.__setattr__(self, "verdict_plan", VerdictPlan.of(evaluated))
+        object.__setattr__(self, "compared", frozenset(leaf.fact for leaf in self.leaves))
         program = RuleProgram(self.leaves, [rule.condition for rule in evaluated])
         object.__setattr__(self, "program", program)
 

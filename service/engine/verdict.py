@@ -23,7 +23,7 @@ Only active rules count; `testing` rules are shadow-evaluated and reported only.
 """
 
 from collections.abc import Callable, Mapping, Sequence
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 
 from service.engine.catalogue import FactCatalogue
 from service.engine.data_requests import DataRequest, DataRequests
@@ -209,10 +209,16 @@ def _assess(
     demotion: str | None,
 ) -> MechanismAssessment:
     """The grade of a mechanism some rules fired for (`fired` in rule order, not empty)."""
-    best = min([outcome.priority for _, outcome in fired])
-    grade = next(outcome.grade for _, outcome in fired if outcome.priority == best)
-    deciding = tuple([result_of(p) for p, outcome in fired if outcome.priority == best])
-    losing = tuple([result_of(p) for p, outcome in fired if outcome.priority != best])
+    deciding: tuple[RuleResult, ...]
+    losing: tuple[RuleResult, ...]
+    if len(fired) == 1:  # the usual case: one rule fired, it decides
+        position, outcome = fired[0]
+        grade, deciding, losing = outcome.grade, (result_of(position),), ()
+    else:
+        best = min([outcome.priority for _, outcome in fired])
+        grade = next(outcome.grade for _, outcome in fired if outcome.priority == best)
+        deciding = tuple([result_of(p) for p, outcome in fired if outcome.priority == best])
+        losing = tuple([result_of(p) for p, outcome in fired if outcome.priority != best])
     if demotion is not None and grade is _LIKELY:
         return MechanismAssessment(mechanism, _POSSIBLE, deciding, losing, demotion)
     return MechanismAssessment(mechanism, grade, deciding, losing)
@@ -392,7 +398,14 @@ def decide_states(
         if assessment.grade is _NOT_ASSESSABLE:
             # A rule said why the data cannot speak; still ask for what would let them.
             missing = _unassessed(mechanism, grading, states, refs, undecided_of, requests)
-            assessment = replace(assessment, undecided=missing.undecided)
+            if missing.undecided:
+                assessment = MechanismAssessment(
+                    mechanism,
+                    _NOT_ASSESSABLE,
+                    assessment.deciding,
+                    assessment.losing,
+                    undecided=missing.undecided,
+                )
         mechanisms.append(assessment)
         if assessment.grade is _POSSIBLE:
             _ask_discriminators(assessment, requests)
