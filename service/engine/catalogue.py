@@ -22,6 +22,10 @@ __all__ = [
 ]
 
 
+KEPT_SETS = 256
+"""How many sets of known facts a catalogue keeps data-request answers for."""
+
+
 class FactCatalogue(Mapping[str, FactSpec]):
     """An immutable mapping of fact name to `FactSpec`."""
 
@@ -33,6 +37,7 @@ class FactCatalogue(Mapping[str, FactSpec]):
         "_order",
         "_quantities",
         "_ranges",
+        "_requests",
         "_specs",
         "_tables",
     )
@@ -68,6 +73,7 @@ class FactCatalogue(Mapping[str, FactSpec]):
             n: (*bounds, self._decimals[n]) for n, bounds in self._ranges.items()
         }
         self._tables: dict[frozenset[str], dict[str, tuple[float, float, int | None]]] = {}
+        self._requests: dict[frozenset[str], dict[str, tuple[str, ...]]] = {}
         self._needs = {
             spec.name: (spec.inputs, spec.optional_inputs)
             for spec in table.values()
@@ -172,6 +178,17 @@ class FactCatalogue(Mapping[str, FactSpec]):
             # No problem after all (a quantity with an open bound): stated as `as_stated` has it.
             stated.update(self.as_stated({name: value}))
         return stated
+
+    def kept_requests(self, known: frozenset[str]) -> dict[str, tuple[str, ...]]:
+        """A place to keep, for one set of known facts, what a data request for each missing
+        fact turns into (``data_requests``: a function of that set alone). Bounded: past
+        ``KEPT_SETS`` sets it starts afresh."""
+        kept = self._requests.get(known)
+        if kept is None:
+            if len(self._requests) >= KEPT_SETS:
+                self._requests.clear()
+            kept = self._requests[known] = {}
+        return kept
 
     def _rounding(self, compared: frozenset[str]) -> Mapping[str, tuple[float, float, int | None]]:
         """``stated``'s table for ``compared``: decimals only for the facts in it (made once)."""

@@ -34,14 +34,15 @@ class DataRequest:
 class DataRequests:
     """Collects data requests, translating missing derived facts into missing inputs."""
 
-    __slots__ = ("_asked", "_facts", "_needs", "_positions", "_turned")
+    __slots__ = ("_asked", "_catalogue", "_facts", "_needs", "_positions", "_turned")
 
     def __init__(self, facts: Mapping[str, FactValue], catalogue: FactCatalogue) -> None:
         self._facts = facts
+        self._catalogue = catalogue
         self._needs = catalogue.needs
         self._positions = catalogue.positions
         self._asked: dict[str, tuple[set[str], set[str]]] = {}
-        self._turned: dict[str, tuple[str, ...]] = {}
+        self._turned: dict[str, tuple[str, ...]] | None = None
 
     def ask(
         self, fact: str, rule: str, *, even_if_known: bool = False, wanted: str | None = None
@@ -61,7 +62,7 @@ class DataRequests:
                 if rule:
                     entry[0].add(rule)
             return
-        names = self._turned.get(fact)
+        names = self._kept().get(fact)
         if names is None:
             names = self._requested(fact)
         for name in names:
@@ -80,7 +81,8 @@ class DataRequests:
         """What a request for the missing ``fact`` asks for: its missing inputs, recursively,
         or the missing optional inputs when every needed one is known, or itself. The same
         whoever asks, so worked out once per fact."""
-        found = self._turned.get(fact)
+        turned = self._kept()
+        found = turned.get(fact)
         if found is None:
             needs = self._needs.get(fact)
             missing: list[str] = []
@@ -97,8 +99,19 @@ class DataRequests:
                 found = tuple(
                     dict.fromkeys([asked for name in missing for asked in self._requested(name)])
                 )
-            self._turned[fact] = found
+            turned[fact] = found
         return found
+
+    def _kept(self) -> dict[str, tuple[str, ...]]:
+        """What each missing fact turns into for this set of known facts: a function of that
+        set alone, and the same few sets come back again and again (one panel of
+        measurements, the uncertain-input scenarios of one gas), so the catalogue keeps the
+        answers of each set and the walk through a derived fact's inputs is made once per
+        set, not once per evaluation."""
+        turned = self._turned
+        if turned is None:
+            turned = self._turned = self._catalogue.kept_requests(frozenset(self._facts))
+        return turned
 
     @property
     def empty(self) -> bool:
