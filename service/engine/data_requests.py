@@ -13,7 +13,7 @@ A known fact is requested only when a discriminator names it: a discriminator su
 them out because the current gas has them would drop exactly what would settle the grade.
 """
 
-from collections.abc import Mapping
+from collections.abc import Iterable, Mapping
 from dataclasses import dataclass
 
 from service.engine.catalogue import FactCatalogue
@@ -53,29 +53,41 @@ class DataRequests:
         value of it). An empty `rule` asks on behalf of the verdict itself (a gas that is
         not classifiable asks for a trusted one).
         """
-        asked = self._asked
-        if fact in self._facts:
-            if even_if_known:
-                entry = asked.get(fact)
+        self.ask_all((fact,), rule, even_if_known=even_if_known, wanted=wanted)
+
+    def ask_all(
+        self,
+        facts: Iterable[str],
+        rule: str,
+        *,
+        even_if_known: bool = False,
+        wanted: str | None = None,
+    ) -> None:
+        """`ask` for each of `facts` in turn (one call for all the facts a rule asks for)."""
+        known, asked = self._facts, self._asked
+        for fact in facts:
+            if fact in known:
+                if even_if_known:
+                    entry = asked.get(fact)
+                    if entry is None:
+                        entry = asked[fact] = (set(), set())
+                    if rule:
+                        entry[0].add(rule)
+                continue
+            names = self._kept().get(fact)
+            if names is None:
+                names = self._requested(fact)
+            for name in names:
+                entry = asked.get(name)
                 if entry is None:
-                    entry = asked[fact] = (set(), set())
+                    entry = asked[name] = (set(), set())
                 if rule:
                     entry[0].add(rule)
-            return
-        names = self._kept().get(fact)
-        if names is None:
-            names = self._requested(fact)
-        for name in names:
-            entry = asked.get(name)
-            if entry is None:
-                entry = asked[name] = (set(), set())
-            if rule:
-                entry[0].add(rule)
-            # The fact itself is asked for the derived fact it was wanted for (if any); an
-            # input it stands in for, for the fact (or what the fact was wanted for).
-            feeds = wanted if name == fact else (wanted or fact)
-            if feeds is not None:
-                entry[1].add(feeds)
+                # The fact itself is asked for the derived fact it was wanted for (if any); an
+                # input it stands in for, for the fact (or what the fact was wanted for).
+                feeds = wanted if name == fact else (wanted or fact)
+                if feeds is not None:
+                    entry[1].add(feeds)
 
     def _requested(self, fact: str) -> tuple[str, ...]:
         """What a request for the missing ``fact`` asks for: its missing inputs, recursively,

@@ -309,10 +309,10 @@ def _unassessed(
     undecided: dict[str, None] = {}
     for position, _ in grading:
         if states[position] is None:
-            ref = refs[position]
-            for fact in undecided_of(position):
-                undecided[fact] = None
-                requests.ask(fact, ref)
+            missing = undecided_of(position)
+            if missing:
+                undecided.update(dict.fromkeys(missing))
+                requests.ask_all(missing, refs[position])
     if not undecided:
         return _UNASSESSED[mechanism]
     return MechanismAssessment(mechanism, _NOT_ASSESSABLE, undecided=tuple(undecided))
@@ -330,8 +330,7 @@ def _ask_discriminators(assessment: MechanismAssessment, requests: DataRequests)
     for result in assessment.deciding:
         rule = result.rule
         if rule.discriminator is not None:
-            for fact in rule.discriminator.requests:
-                requests.ask(fact, rule.ref, even_if_known=True)
+            requests.ask_all(rule.discriminator.requests, rule.ref, even_if_known=True)
 
 
 def decide(
@@ -411,8 +410,7 @@ def decide_states(
             _ask_discriminators(assessment, requests)
     pattern, reason = pattern_of(demotion, hypoxaemia, gas_exchange, mechanisms)
     if pattern is Pattern.NOT_CLASSIFIABLE and requests.empty:
-        for fact in REPEAT_SAMPLE.requests:
-            requests.ask(fact, "", even_if_known=True)  # asked by the verdict itself
+        requests.ask_all(REPEAT_SAMPLE.requests, "", even_if_known=True)  # by the verdict itself
     return Verdict(
         pattern=pattern,
         pattern_reason=reason,
