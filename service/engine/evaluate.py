@@ -22,6 +22,9 @@ from service.engine.verdict import Verdict, decide_states
 __all__ = ["Evaluation", "evaluate"]
 
 
+_TRUTH = {value: truth_of(value) for value in (True, False, None)}
+
+
 class _Results:
     """The results of one evaluation, each made once, when first asked for."""
 
@@ -37,10 +40,8 @@ class _Results:
     def __call__(self, position: int) -> RuleResult:
         made = self._made[position]
         if made is None:
-            made = RuleResult(
-                self._rules[position], truth_of(self._states[position]), self._context
-            )
-            self._made[position] = made
+            state = _TRUTH[self._states[position]]
+            made = self._made[position] = RuleResult(self._rules[position], state, self._context)
         return made
 
     def all(self) -> tuple[RuleResult, ...]:

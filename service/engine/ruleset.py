@@ -6,6 +6,7 @@ rationales are parsed templates, parameters already include site overrides.
 
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
+from operator import itemgetter
 
 from service.engine.catalogue import FactCatalogue
 from service.engine.compiled import CompiledCondition, StateVector
@@ -129,6 +130,24 @@ class RetiredRule:
     file: str
 
 
+StatesAt = Callable[[StateVector], tuple[TruthValue, ...]]
+
+
+def _no_states(states: StateVector) -> tuple[TruthValue, ...]:
+    return ()
+
+
+def states_at(positions: Sequence[int]) -> StatesAt:
+    """A function giving the states at ``positions`` as a tuple, in one call (``itemgetter``,
+    which reads them in C; a tuple even for one position)."""
+    if len(positions) > 1:
+        return itemgetter(*positions)
+    if positions:
+        only = positions[0]
+        return lambda states: (states[only],)
+    return _no_states
+
+
 @dataclass(frozen=True, slots=True)
 class VerdictPlan:
     """Which rules can shape the verdict, by what they assert: positions in a rule sequence.
@@ -147,6 +166,10 @@ class VerdictPlan:
     """Rules that state gas exchange abnormal or normal, each with its `ref`."""
     refs: tuple[str, ...] = ()
     """`id@version` of every rule, by position."""
+    finding_states: "StatesAt" = field(default=_no_states, compare=False, repr=False)
+    """The states of the `findings` rules, in their order, read in one call."""
+    grading_states: tuple["StatesAt", ...] = field(default=(), compare=False, repr=False)
+    """For each of `mechanisms`, the states of its grading rules, in their order."""
 
     @classmethod
     def of(cls, rules: Sequence[Rule]) -> "VerdictPlan":
@@ -175,6 +198,8 @@ class VerdictPlan:
             tuple(hypoxaemia),
             tuple(gas_exchange),
             tuple([rule.ref for rule in rules]),
+            states_at([position for position, _ in findings]),
+            tuple(states_at([position for position, _ in found]) for found in grading.values()),
         )
 
 

@@ -368,11 +368,16 @@ def decide_states(
     if undecided_of is None:
         undecided_of = _undecided_from(result_of)
     refs = plan.refs
-    findings = [
-        FindingResult(found.code, found.severity, result_of(position))
-        for position, found in plan.findings
-        if states[position] is True
-    ]
+    found_states = plan.finding_states(states)
+    findings = (
+        [
+            FindingResult(found.code, found.severity, result_of(position))
+            for (position, found), state in zip(plan.findings, found_states, strict=True)
+            if state is True
+        ]
+        if True in found_states  # states are True, False or None: `in` finds only True
+        else []
+    )
     if len(findings) > 1:
         findings.sort(key=finding_order)
     said = _stated(plan.hypoxaemia, states)
@@ -388,11 +393,16 @@ def decide_states(
     demotion = _demotion(findings, facts, input_errors)
     requests = DataRequests(facts, catalogue)
     mechanisms: list[MechanismAssessment] = []
-    for mechanism, grading in plan.mechanisms:
-        fired = [(position, graded) for position, graded in grading if states[position] is True]
-        if not fired:
+    for (mechanism, grading), states_of in zip(plan.mechanisms, plan.grading_states, strict=True):
+        graded_states = states_of(states)
+        count = graded_states.count(True)  # states are True, False or None: counts only True
+        if not count:
             mechanisms.append(_unassessed(mechanism, grading, states, refs, undecided_of, requests))
             continue
+        if count == 1:
+            fired = [grading[graded_states.index(True)]]
+        else:
+            fired = [pair for pair, state in zip(grading, graded_states, strict=True) if state]
         assessment = _assess(mechanism, fired, result_of, demotion)
         if assessment.grade is _NOT_ASSESSABLE:
             # A rule said why the data cannot speak; still ask for what would let them.
