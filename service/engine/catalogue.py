@@ -73,7 +73,7 @@ class FactCatalogue(Mapping[str, FactSpec]):
             n: (*bounds, self._decimals[n]) for n, bounds in self._ranges.items()
         }
         self._tables: dict[frozenset[str], dict[str, tuple[float, float, int | None]]] = {}
-        self._requests: dict[frozenset[str], dict[str, tuple[str, ...]]] = {}
+        self._requests: dict[tuple[str, ...], dict[str, tuple[str, ...]]] = {}
         self._needs = {
             spec.name: (spec.inputs, spec.optional_inputs)
             for spec in table.values()
@@ -179,10 +179,10 @@ class FactCatalogue(Mapping[str, FactSpec]):
             stated.update(self.as_stated({name: value}))
         return stated
 
-    def kept_requests(self, known: frozenset[str]) -> dict[str, tuple[str, ...]]:
-        """A place to keep, for one set of known facts, what a data request for each missing
-        fact turns into (``data_requests``: a function of that set alone). Bounded: past
-        ``KEPT_SETS`` sets it starts afresh."""
+    def kept_requests(self, known: tuple[str, ...]) -> dict[str, tuple[str, ...]]:
+        """A place to keep, for the known facts named in ``known``, what a data request for
+        each missing fact turns into (``data_requests``: a function of which facts are known
+        alone). Bounded: past ``KEPT_SETS`` sets it starts afresh."""
         kept = self._requests.get(known)
         if kept is None:
             if len(self._requests) >= KEPT_SETS:

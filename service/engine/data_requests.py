@@ -122,7 +122,9 @@ class DataRequests:
         set, not once per evaluation."""
         turned = self._turned
         if turned is None:
-            turned = self._turned = self._catalogue.kept_requests(frozenset(self._facts))
+            # keyed by the names in order (cheaper than a set; an order not met before only
+            # makes an entry of its own)
+            turned = self._turned = self._catalogue.kept_requests(tuple(self._facts))
         return turned
 
     @property

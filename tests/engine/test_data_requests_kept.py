@@ -33,6 +33,11 @@ def test_a_kept_answer_is_the_answer_worked_out_afresh() -> None:
 def test_another_set_of_known_facts_gets_its_own_answer() -> None:
     catalogue = _fresh_catalogue()
     assert [r.fact for r in _asked(catalogue, KNOWN, "aa_gradient")] == ["arterial_pco2", "fio2"]
+    reordered = dict(reversed(KNOWN.items()))  # the same facts named in another order
+    assert [r.fact for r in _asked(catalogue, reordered, "aa_gradient")] == [
+        "arterial_pco2",
+        "fio2",
+    ]
     more = {**KNOWN, "fio2": 0.21}
     assert [r.fact for r in _asked(catalogue, more, "aa_gradient")] == ["arterial_pco2"]
     assert [r.fact for r in _asked(catalogue, KNOWN, "aa_gradient")] == ["arterial_pco2", "fio2"]
@@ -42,12 +47,12 @@ def test_the_kept_sets_are_bounded() -> None:
     specs = [FactSpec(f"f{i}", FactKind.BOOLEAN, None, "x") for i in range(KEPT_SETS + 2)]
     catalogue = FactCatalogue(specs)
     for i in range(KEPT_SETS):
-        catalogue.kept_requests(frozenset({f"f{i}"}))
-    kept = catalogue.kept_requests(frozenset({"f0"}))
+        catalogue.kept_requests((f"f{i}",))
+    kept = catalogue.kept_requests(("f0",))
     kept["f1"] = ("f1",)
-    assert catalogue.kept_requests(frozenset({"f0"})) is kept  # still kept at the bound
-    catalogue.kept_requests(frozenset({f"f{KEPT_SETS}"}))  # one more: starts afresh
-    assert catalogue.kept_requests(frozenset({"f0"})) == {}
+    assert catalogue.kept_requests(("f0",)) is kept  # still kept at the bound
+    catalogue.kept_requests((f"f{KEPT_SETS}",))  # one more: starts afresh
+    assert catalogue.kept_requests(("f0",)) == {}
     for i in range(3 * KEPT_SETS):
-        catalogue.kept_requests(frozenset({f"f{i % (KEPT_SETS + 2)}", "x"}))
+        catalogue.kept_requests((f"f{i % (KEPT_SETS + 2)}", "x"))
     assert len(catalogue._requests) <= KEPT_SETS
