@@ -123,3 +123,14 @@ def _value(spec: FactSpec) -> st.SearchStrategy[object]:
 )
 def test_any_accepted_facts_are_stated_as_as_stated_has_them(facts: dict[str, object]) -> None:
     _same(facts)
+
+
+def test_a_number_on_a_bound_is_stated_like_any_other() -> None:
+    # A bound written with more decimals than the fact is stated at: on it, the value is still
+    # rounded only when compared, as anywhere inside the range.
+    catalogue = FactCatalogue(
+        [FactSpec("x", FactKind.QUANTITY, "1", "x", 0.125, 2.375, decimals=1)]
+    )
+    for value in (0.125, 2.375):
+        assert catalogue.stated({"x": value}, frozenset()) == {"x": value}
+        assert catalogue.stated({"x": value}, frozenset({"x"})) == {"x": round(value, 1)}

@@ -8,6 +8,7 @@ from service.assess.catalogue import DEFAULT_CATALOGUE
 from service.engine.catalogue import KEPT_SETS, FactCatalogue, FactKind, FactSpec
 from service.engine.data_requests import DataRequest, DataRequests
 
+BUDGET = 256  # the engine README ("Timing"): at most 256 sets of known facts per catalogue
 KNOWN = {"arterial_po2": 60.0, "barometric_pressure": 700.0, "water_vapour_pressure": 47.1}
 
 
@@ -44,6 +45,7 @@ def test_another_set_of_known_facts_gets_its_own_answer() -> None:
 
 
 def test_the_kept_sets_are_bounded() -> None:
+    assert KEPT_SETS == BUDGET
     specs = [FactSpec(f"f{i}", FactKind.BOOLEAN, None, "x") for i in range(KEPT_SETS + 2)]
     catalogue = FactCatalogue(specs)
     for i in range(KEPT_SETS):
@@ -56,3 +58,11 @@ def test_the_kept_sets_are_bounded() -> None:
     for i in range(3 * KEPT_SETS):
         catalogue.kept_requests((f"f{i % (KEPT_SETS + 2)}", "x"))
     assert len(catalogue._requests) <= KEPT_SETS
+
+
+def test_asking_for_several_facts_at_once_skips_the_known_ones_unless_told() -> None:
+    requests = DataRequests({"spo2": 93.0, "fio2": 0.5}, DEFAULT_CATALOGUE)
+    requests.ask_all(("spo2", "mixed_venous_po2"), "r@1")
+    assert requests.collected() == (DataRequest("mixed_venous_po2", ("r@1",)),)
+    requests.ask_all(("fio2",), "d@1", even_if_known=True)
+    assert [r.fact for r in requests.collected()] == ["fio2", "mixed_venous_po2"]
