@@ -22,10 +22,25 @@ __all__ = [
 ]
 
 
+KEPT_SETS = 256
+"""How many sets of known facts a catalogue keeps data-request answers for."""
+
+
 class FactCatalogue(Mapping[str, FactSpec]):
     """An immutable mapping of fact name to `FactSpec`."""
 
-    __slots__ = ("_booleans", "_codes", "_decimals", "_order", "_ranges", "_specs")
+    __slots__ = (
+        "_booleans",
+        "_codes",
+        "_decimals",
+        "_needs",
+        "_order",
+        "_quantities",
+        "_ranges",
+        "_requests",
+        "_specs",
+        "_tables",
+    )
 
     def __init__(self, specs: Iterable[FactSpec]) -> None:
         table: dict[str, FactSpec] = {}
@@ -53,6 +68,17 @@ class FactCatalogue(Mapping[str, FactSpec]):
         self._decimals = {n: s.decimals for n, s in table.items() if s.kind is FactKind.QUANTITY}
         self._booleans = frozenset(n for n, s in table.items() if s.kind is FactKind.BOOLEAN)
         self._codes = {n: s.allowed for n, s in table.items() if s.kind is FactKind.CODE}
+        # `stated`'s quick path: a number's bounds and decimals in one look-up.
+        self._quantities: dict[str, tuple[float, float, int | None]] = {
+            n: (*bounds, self._decimals[n]) for n, bounds in self._ranges.items()
+        }
+        self._tables: dict[frozenset[str], dict[str, tuple[float, float, int | None]]] = {}
+        self._requests: dict[tuple[str, ...], dict[str, tuple[str, ...]]] = {}
+        self._needs = {
+            spec.name: (spec.inputs, spec.optional_inputs)
+            for spec in table.values()
+            if spec.inputs or spec.optional_inputs
+        }
 
     def __getitem__(self, name: str) -> FactSpec:
         return self._specs[name]
@@ -111,6 +137,68 @@ class FactCatalogue(Mapping[str, FactSpec]):
                 if allowed is not None and value in allowed:
                     continue
             self._raise_problems(facts)
+
+    @property
+    def needs(self) -> Mapping[str, tuple[tuple[str, ...], tuple[str, ...]]]:
+        """``inputs`` and ``optional_inputs`` of every fact that has any, by name."""
+        return self._needs
+
+    def stated(
+        self, facts: Mapping[str, object], compared: frozenset[str] | None = None
+    ) -> dict[str, object]:
+        """``check`` the facts, then return them ``as_stated``: one pass, one look-up a fact.
+
+        A private copy in either case; the value ``check`` lets through and ``as_stated``
+        rounds are the same (``tests/engine/test_catalogue_stated.py`` compares them). With
+        ``compared``, only the numbers of those facts are rounded (a rule set's tested facts:
+        a rationale rounds what it shows itself, so rounding the rest here would be wasted).
+        """
+        quantities = self._quantities if compared is None else self._rounding(compared)
+        booleans, codes = self._booleans, self._codes
+        stated: dict[str, object] = {}
+        for name, value in facts.items():
+            kind = type(value)
+            if kind is float or kind is int:
+                found = quantities.get(name)
+                if found is not None and found[0] <= value <= found[1]:  # type: ignore[operator]
+                    if kind is float and found[2] is not None:  # an int is stated as it is
+                        value = round(value, found[2])  # type: ignore[call-overload]
+                    stated[name] = value
+                    continue
+            elif kind is bool:
+                if name in booleans:
+                    stated[name] = value
+                    continue
+            elif kind is str:
+                allowed = codes.get(name)
+                if allowed is not None and value in allowed:
+                    stated[name] = value
+                    continue
+            self._raise_problems(facts)
+            # No problem after all (a quantity with an open bound): stated as `as_stated` has it.
+            stated.update(self.as_stated({name: value}))
+        return stated
+
+    def kept_requests(self, known: tuple[str, ...]) -> dict[str, tuple[str, ...]]:
+        """A place to keep, for the known facts named in ``known``, what a data request for
+        each missing fact turns into (``data_requests``: a function of which facts are known
+        alone). Bounded: past ``KEPT_SETS`` sets it starts afresh."""
+        kept = self._requests.get(known)
+        if kept is None:
+            if len(self._requests) >= KEPT_SETS:
+                self._requests.clear()
+            kept = self._requests[known] = {}
+        return kept
+
+    def _rounding(self, compared: frozenset[str]) -> Mapping[str, tuple[float, float, int | None]]:
+        """``stated``'s table for ``compared``: decimals only for the facts in it (made once)."""
+        table = self._tables.get(compared)
+        if table is None:
+            table = self._tables[compared] = {
+                name: (low, high, decimals if name in compared else None)
+                for name, (low, high, decimals) in self._quantities.items()
+            }
+        return table
 
     def _raise_problems(self, facts: Mapping[str, object]) -> None:
         """Raise `FactError` with every problem (the checks of `FactSpec.problem`)."""

@@ -13,7 +13,7 @@ A known fact is requested only when a discriminator names it: a discriminator su
 them out because the current gas has them would drop exactly what would settle the grade.
 """
 
-from collections.abc import Mapping
+from collections.abc import Iterable, Mapping
 from dataclasses import dataclass
 
 from service.engine.catalogue import FactCatalogue
@@ -34,11 +34,15 @@ class DataRequest:
 class DataRequests:
     """Collects data requests, translating missing derived facts into missing inputs."""
 
+    __slots__ = ("_asked", "_catalogue", "_facts", "_needs", "_positions", "_turned")
+
     def __init__(self, facts: Mapping[str, FactValue], catalogue: FactCatalogue) -> None:
         self._facts = facts
         self._catalogue = catalogue
+        self._needs = catalogue.needs
+        self._positions = catalogue.positions
         self._asked: dict[str, tuple[set[str], set[str]]] = {}
-        self._turned: dict[str, tuple[str, ...]] = {}
+        self._turned: dict[str, tuple[str, ...]] | None = None
 
     def ask(
         self, fact: str, rule: str, *, even_if_known: bool = False, wanted: str | None = None
@@ -49,50 +53,79 @@ class DataRequests:
         value of it). An empty `rule` asks on behalf of the verdict itself (a gas that is
         not classifiable asks for a trusted one).
         """
-        if fact in self._facts:
-            if even_if_known:
-                requested_by, _ = self._entry(fact)
+        self.ask_all((fact,), rule, even_if_known=even_if_known, wanted=wanted)
+
+    def ask_all(
+        self,
+        facts: Iterable[str],
+        rule: str,
+        *,
+        even_if_known: bool = False,
+        wanted: str | None = None,
+    ) -> None:
+        """`ask` for each of `facts` in turn (one call for all the facts a rule asks for)."""
+        known, asked = self._facts, self._asked
+        for fact in facts:
+            if fact in known:
+                if even_if_known:
+                    entry = asked.get(fact)
+                    if entry is None:
+                        entry = asked[fact] = (set(), set())
+                    if rule:
+                        entry[0].add(rule)
+                continue
+            names = self._kept().get(fact)
+            if names is None:
+                names = self._requested(fact)
+            for name in names:
+                entry = asked.get(name)
+                if entry is None:
+                    entry = asked[name] = (set(), set())
                 if rule:
-                    requested_by.add(rule)
-            return
-        for name in self._requested(fact):
-            requested_by, needed_for = self._entry(name)
-            if rule:
-                requested_by.add(rule)
-            # The fact itself is asked for the derived fact it was wanted for (if any); an
-            # input it stands in for, for the fact (or what the fact was wanted for).
-            feeds = wanted if name == fact else (wanted or fact)
-            if feeds is not None:
-                needed_for.add(feeds)
+                    entry[0].add(rule)
+                # The fact itself is asked for the derived fact it was wanted for (if any); an
+                # input it stands in for, for the fact (or what the fact was wanted for).
+                feeds = wanted if name == fact else (wanted or fact)
+                if feeds is not None:
+                    entry[1].add(feeds)
 
     def _requested(self, fact: str) -> tuple[str, ...]:
         """What a request for the missing ``fact`` asks for: its missing inputs, recursively,
         or the missing optional inputs when every needed one is known, or itself. The same
         whoever asks, so worked out once per fact."""
-        found = self._turned.get(fact)
+        turned = self._kept()
+        found = turned.get(fact)
         if found is None:
-            spec = self._catalogue[fact]
-            facts = self._facts
-            missing_inputs = [name for name in spec.inputs if name not in facts]
-            if not missing_inputs:
-                missing_inputs = [name for name in spec.optional_inputs if name not in facts]
-            found = (
-                tuple(
-                    dict.fromkeys(
-                        asked for name in missing_inputs for asked in self._requested(name)
-                    )
+            needs = self._needs.get(fact)
+            missing: list[str] = []
+            if needs is not None:
+                facts = self._facts
+                missing = [name for name in needs[0] if name not in facts] or [
+                    name for name in needs[1] if name not in facts
+                ]
+            if not missing:
+                found = (fact,)
+            elif len(missing) == 1:  # already without repeats
+                found = self._requested(missing[0])
+            else:
+                found = tuple(
+                    dict.fromkeys([asked for name in missing for asked in self._requested(name)])
                 )
-                if missing_inputs
-                else (fact,)
-            )
-            self._turned[fact] = found
+            turned[fact] = found
         return found
 
-    def _entry(self, fact: str) -> tuple[set[str], set[str]]:
-        entry = self._asked.get(fact)
-        if entry is None:
-            entry = self._asked[fact] = (set(), set())
-        return entry
+    def _kept(self) -> dict[str, tuple[str, ...]]:
+        """What each missing fact turns into for this set of known facts: a function of that
+        set alone, and the same few sets come back again and again (one panel of
+        measurements, the uncertain-input scenarios of one gas), so the catalogue keeps the
+        answers of each set and the walk through a derived fact's inputs is made once per
+        set, not once per evaluation."""
+        turned = self._turned
+        if turned is None:
+            # keyed by the names in order (cheaper than a set; an order not met before only
+            # makes an entry of its own)
+            turned = self._turned = self._catalogue.kept_requests(tuple(self._facts))
+        return turned
 
     @property
     def empty(self) -> bool:
@@ -102,12 +135,8 @@ class DataRequests:
     def collected(self) -> tuple[DataRequest, ...]:
         """The requests so far, in catalogue order."""
         asked = self._asked
-        return tuple(
-            [
-                DataRequest(fact, tuple(sorted(by)), tuple(sorted(needed)) if needed else ())
-                for fact, (by, needed) in ((fact, asked[fact]) for fact in self._order(asked))
-            ]
-        )
-
-    def _order(self, asked: Mapping[str, object]) -> list[str]:
-        return sorted(asked, key=self._catalogue.positions.__getitem__)
+        requests = []
+        for fact in sorted(asked, key=self._positions.__getitem__):
+            by, needed = asked[fact]
+            requests.append(DataRequest(fact, tuple(sorted(by)), tuple(sorted(needed))))
+        return tuple(requests)

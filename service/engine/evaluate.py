@@ -22,6 +22,9 @@ from service.engine.verdict import Verdict, decide_states
 __all__ = ["Evaluation", "evaluate"]
 
 
+_TRUTH = {value: truth_of(value) for value in (True, False, None)}
+
+
 class _Results:
     """The results of one evaluation, each made once, when first asked for."""
 
@@ -37,10 +40,8 @@ class _Results:
     def __call__(self, position: int) -> RuleResult:
         made = self._made[position]
         if made is None:
-            made = RuleResult(
-                self._rules[position], truth_of(self._states[position]), self._context
-            )
-            self._made[position] = made
+            state = _TRUTH[self._states[position]]
+            made = self._made[position] = RuleResult(self._rules[position], state, self._context)
         return made
 
     def all(self) -> tuple[RuleResult, ...]:
@@ -95,16 +96,27 @@ def evaluate(
     `input_errors` are the codes of error findings met before the rules (values the input
     reader refused): like a fired error finding, they make the verdict not classifiable.
     """
-    ruleset.catalogue.check(facts)
-    # A private copy (results render text later and must not see the caller's edits), with
-    # every number at its stated precision: rules compare values as stated.
-    known: dict[str, FactValue] = ruleset.catalogue.as_stated(facts)  # type: ignore[assignment]
-    states = BlockStates([test(known) for test in ruleset.leaf_tests])
-    rule_states = [truth(states) for truth in ruleset.rule_truths]
+    # Checked, and a private copy (results render text later and must not see the caller's
+    # edits), with every number a rule compares at its stated precision: rules compare values
+    # as stated (a rationale rounds the numbers it shows itself).
+    known: dict[str, FactValue] = ruleset.catalogue.stated(facts, ruleset.compared)  # type: ignore[assignment]
+    program = ruleset.program
+    leaf_states, rule_states, node_states = program.run(known)
+    states = BlockStates(leaf_states)
     results = _Results(
         ruleset.evaluated, rule_states, EvaluationContext(known, states, ruleset.leaves)
     )
+
+    def undecided_of(position: int) -> tuple[str, ...]:
+        return program.undecided(position, leaf_states, node_states)
+
     verdict = decide_states(
-        ruleset.verdict_plan, rule_states, results, known, ruleset.catalogue, input_errors
+        ruleset.verdict_plan,
+        rule_states,
+        results,
+        known,
+        ruleset.catalogue,
+        input_errors,
+        undecided_of,
     )
     return Evaluation(ruleset.identity, ruleset.content_hash, verdict, results)

@@ -12,7 +12,7 @@ from typing import Any
 
 from service.engine.logic import Operator, TruthValue
 
-__all__ = ["FactTest", "Leaf", "Threshold", "leaf_test", "shown_value"]
+__all__ = ["FactTest", "Leaf", "Threshold", "leaf_test", "near", "shown_value"]
 
 FactTest = Callable[[Mapping[str, Any]], TruthValue]
 Threshold = float | tuple[float, float] | bool | tuple[str, ...]
@@ -67,6 +67,11 @@ def shown_value(value: object) -> str:
     return f"{value:.4g}" if isinstance(value, float) else str(value).lower()
 
 
+def near(value: float, target: float) -> bool:
+    """Tolerant equality (``eq``): a computed 0.21000000000000002 equals a written 0.21."""
+    return math.isclose(value, target, rel_tol=1e-9, abs_tol=1e-12)
+
+
 def _comparison_test(name: str, operator: Operator, threshold: Threshold) -> FactTest:
     # One closure per operator keeps the hot path to a dict lookup and one comparison.
     if operator is Operator.LT:
@@ -83,12 +88,7 @@ def _comparison_test(name: str, operator: Operator, threshold: Threshold) -> Fac
         return lambda facts: None if (v := facts.get(name)) is None else v >= limit
     if operator is Operator.EQ:
         target = float(threshold)  # type: ignore[arg-type]
-        # Tolerant equality: a computed 0.21000000000000002 should equal a written 0.21.
-        return lambda facts: (
-            None
-            if (v := facts.get(name)) is None
-            else math.isclose(v, target, rel_tol=1e-9, abs_tol=1e-12)
-        )
+        return lambda facts: None if (v := facts.get(name)) is None else near(v, target)
     low, high = threshold  # type: ignore[misc]
     return lambda facts: None if (v := facts.get(name)) is None else low <= v <= high
 

@@ -138,7 +138,14 @@ class Template:
                 out.append(_format_parameter(part.parameter, units) if units else part.text)
             else:
                 value = facts.get(part.name)
-                out.append(NOT_KNOWN if value is None else format_value(part, value, units))
+                if value is None:
+                    out.append(NOT_KNOWN)
+                    continue
+                if type(value) is float:
+                    # As stated (``FactCatalogue.as_stated``); the engine rounds only the facts
+                    # its rules compare, and rounding again changes nothing.
+                    value = round(value, part.decimals)
+                out.append(format_value(part, value, units))
         return "".join(out)
 
 

@@ -32,6 +32,9 @@ class EvaluationContext:
     leaves: Sequence[Leaf]
     blocks: dict[str, "TraceNode"] = field(default_factory=dict, compare=False, repr=False)
     """Each named block's trace, made once per evaluation for all the rules that use it."""
+    lines: dict[int, str] = field(default_factory=dict, compare=False, repr=False)
+    """Each leaf's trace line after the rule's ``id@version: ``, made once per evaluation for
+    all the rules that test it (blocks share leaves)."""
 
 
 @dataclass(frozen=True, slots=True)
@@ -147,15 +150,19 @@ class RuleResult:
     @property
     def trace_lines(self) -> tuple[str, ...]:
         """One line per condition: ``id@version: fact value op threshold → state``."""
-        facts, states, leaves = self.context.facts, self.context.states, self.context.leaves
-        ref = self.rule.ref
+        context = self.context
+        made = context.lines
+        prefix = self.rule.ref + ": "
         lines = []
         for index in self.rule.condition.leaves:
-            leaf = leaves[index]
-            value = facts.get(leaf.fact)
-            seen = "missing" if value is None else f"{shown_value(value)}{leaf.shown_unit}"
-            state = _STATE_TEXT[states[index]]
-            lines.append(f"{ref}: {leaf.fact} {seen} {leaf.shown_test} → {state}")
+            text = made.get(index)
+            if text is None:
+                leaf = context.leaves[index]
+                value = context.facts.get(leaf.fact)
+                seen = "missing" if value is None else f"{shown_value(value)}{leaf.shown_unit}"
+                state = _STATE_TEXT[context.states[index]]
+                text = made[index] = f"{leaf.fact} {seen} {leaf.shown_test} → {state}"
+            lines.append(prefix + text)
         return tuple(lines)
 
     @property

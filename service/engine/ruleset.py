@@ -6,12 +6,14 @@ rationales are parsed templates, parameters already include site overrides.
 
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
+from operator import itemgetter
 
 from service.engine.catalogue import FactCatalogue
 from service.engine.compiled import CompiledCondition, StateVector
 from service.engine.leaves import FactTest, Leaf
 from service.engine.logic import TruthValue
 from service.engine.parameters import Parameter
+from service.engine.program import RuleProgram
 from service.engine.rationale import Template
 from service.engine.vocabulary import (
     GasExchangeStatus,
@@ -128,6 +130,24 @@ class RetiredRule:
     file: str
 
 
+StatesAt = Callable[[StateVector], tuple[TruthValue, ...]]
+
+
+def _no_states(states: StateVector) -> tuple[TruthValue, ...]:
+    return ()
+
+
+def states_at(positions: Sequence[int]) -> StatesAt:
+    """A function giving the states at ``positions`` as a tuple, in one call (``itemgetter``,
+    which reads them in C; a tuple even for one position)."""
+    if len(positions) > 1:
+        return itemgetter(*positions)
+    if positions:
+        only = positions[0]
+        return lambda states: (states[only],)
+    return _no_states
+
+
 @dataclass(frozen=True, slots=True)
 class VerdictPlan:
     """Which rules can shape the verdict, by what they assert: positions in a rule sequence.
@@ -144,6 +164,12 @@ class VerdictPlan:
     """Rules that state hypoxaemia present or absent, each with its `ref`."""
     gas_exchange: tuple[tuple[int, GasExchangeOutcome, str], ...] = ()
     """Rules that state gas exchange abnormal or normal, each with its `ref`."""
+    refs: tuple[str, ...] = ()
+    """`id@version` of every rule, by position."""
+    finding_states: "StatesAt" = field(default=_no_states, compare=False, repr=False)
+    """The states of the `findings` rules, in their order, read in one call."""
+    grading_states: tuple["StatesAt", ...] = field(default=(), compare=False, repr=False)
+    """For each of `mechanisms`, the states of its grading rules, in their order."""
 
     @classmethod
     def of(cls, rules: Sequence[Rule]) -> "VerdictPlan":
@@ -171,6 +197,9 @@ class VerdictPlan:
             tuple(findings),
             tuple(hypoxaemia),
             tuple(gas_exchange),
+            tuple([rule.ref for rule in rules]),
+            states_at([position for position, _ in findings]),
+            tuple(states_at([position for position, _ in found]) for found in grading.values()),
         )
 
 
@@ -204,6 +233,10 @@ class RuleSet:
     """The condition of each evaluated rule, in the order of `evaluated`."""
     verdict_plan: VerdictPlan = field(init=False, repr=False, compare=False)
     """What each evaluated rule can contribute to the verdict."""
+    compared: frozenset[str] = field(init=False, repr=False, compare=False)
+    """The facts some leaf tests: the numbers `evaluate` rounds to their stated precision."""
+    program: RuleProgram = field(init=False, repr=False, compare=False)
+    """The leaf tests and the evaluated rules' conditions as one function (``program``)."""
 
     def __post_init__(self) -> None:
         evaluated = tuple(
@@ -213,6 +246,9 @@ class RuleSet:
         object.__setattr__(self, "leaf_tests", tuple(leaf.test for leaf in self.leaves))
         object.__setattr__(self, "rule_truths", tuple(rule.condition.truth for rule in evaluated))
         object.__setattr__(self, "verdict_plan", VerdictPlan.of(evaluated))
+        object.__setattr__(self, "compared", frozenset(leaf.fact for leaf in self.leaves))
+        program = RuleProgram(self.leaves, [rule.condition for rule in evaluated])
+        object.__setattr__(self, "program", program)
 
     @property
     def identity(self) -> str:

@@ -23,7 +23,7 @@ Only active rules count; `testing` rules are shadow-evaluated and reported only.
 """
 
 from collections.abc import Callable, Mapping, Sequence
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 
 from service.engine.catalogue import FactCatalogue
 from service.engine.data_requests import DataRequest, DataRequests
@@ -75,6 +75,7 @@ _MECHANISMS = tuple(Mechanism)
 _LIKELY, _POSSIBLE, _NOT_ASSESSABLE = Grade.LIKELY, Grade.POSSIBLE, Grade.NOT_ASSESSABLE
 _PRESENT, _ABSENT = HypoxaemiaStatus.PRESENT, HypoxaemiaStatus.ABSENT
 _DEFECT, _NORMAL = GasExchangeStatus.DEFECT, GasExchangeStatus.NORMAL
+_NO_STATUS, _NO_EXCHANGE = HypoxaemiaStatus.UNKNOWN, GasExchangeStatus.UNKNOWN
 GAS_EXCHANGE_MECHANISMS = frozenset(
     {Mechanism.VQ_MISMATCH, Mechanism.SHUNT, Mechanism.DIFFUSION_LIMITATION}
 )
@@ -208,10 +209,16 @@ def _assess(
     demotion: str | None,
 ) -> MechanismAssessment:
     """The grade of a mechanism some rules fired for (`fired` in rule order, not empty)."""
-    best = min([outcome.priority for _, outcome in fired])
-    grade = next(outcome.grade for _, outcome in fired if outcome.priority == best)
-    deciding = tuple([result_of(p) for p, outcome in fired if outcome.priority == best])
-    losing = tuple([result_of(p) for p, outcome in fired if outcome.priority != best])
+    deciding: tuple[RuleResult, ...]
+    losing: tuple[RuleResult, ...]
+    if len(fired) == 1:  # the usual case: one rule fired, it decides
+        position, outcome = fired[0]
+        grade, deciding, losing = outcome.grade, (result_of(position),), ()
+    else:
+        best = min([outcome.priority for _, outcome in fired])
+        grade = next(outcome.grade for _, outcome in fired if outcome.priority == best)
+        deciding = tuple([result_of(p) for p, outcome in fired if outcome.priority == best])
+        losing = tuple([result_of(p) for p, outcome in fired if outcome.priority != best])
     if demotion is not None and grade is _LIKELY:
         return MechanismAssessment(mechanism, _POSSIBLE, deciding, losing, demotion)
     return MechanismAssessment(mechanism, grade, deciding, losing)
@@ -293,7 +300,8 @@ def _unassessed(
     mechanism: Mechanism,
     grading: Sequence[tuple[int, MechanismOutcome]],
     states: Sequence[TruthValue],
-    result_of: Callable[[int], RuleResult],
+    refs: Sequence[str],
+    undecided_of: Callable[[int], tuple[str, ...]],
     requests: DataRequests,
 ) -> MechanismAssessment:
     """A mechanism no rule fired for, with the missing facts that keep its rules unknown
@@ -301,13 +309,20 @@ def _unassessed(
     undecided: dict[str, None] = {}
     for position, _ in grading:
         if states[position] is None:
-            result = result_of(position)
-            for fact in result.undecided:
-                undecided[fact] = None
-                requests.ask(fact, result.ref)
+            missing = undecided_of(position)
+            if missing:
+                undecided.update(dict.fromkeys(missing))
+                requests.ask_all(missing, refs[position])
     if not undecided:
         return _UNASSESSED[mechanism]
     return MechanismAssessment(mechanism, _NOT_ASSESSABLE, undecided=tuple(undecided))
+
+
+def _undecided_from(result_of: Callable[[int], RuleResult]) -> Callable[[int], tuple[str, ...]]:
+    def undecided_of(position: int) -> tuple[str, ...]:
+        return result_of(position).undecided
+
+    return undecided_of
 
 
 def _ask_discriminators(assessment: MechanismAssessment, requests: DataRequests) -> None:
@@ -315,8 +330,7 @@ def _ask_discriminators(assessment: MechanismAssessment, requests: DataRequests)
     for result in assessment.deciding:
         rule = result.rule
         if rule.discriminator is not None:
-            for fact in rule.discriminator.requests:
-                requests.ask(fact, rule.ref, even_if_known=True)
+            requests.ask_all(rule.discriminator.requests, rule.ref, even_if_known=True)
 
 
 def decide(
@@ -340,55 +354,73 @@ def decide_states(
     facts: Mapping[str, FactValue],
     catalogue: FactCatalogue,
     input_errors: Sequence[str] = (),
+    undecided_of: Callable[[int], tuple[str, ...]] | None = None,
 ) -> Verdict:
     """`decide` from the rules' states (True, False, None) as `evaluate` has them.
 
     `plan` positions index `states`; `result_of(position)` gives that rule's result, and is
-    asked only for the rules the verdict cites or asks about. `input_errors` are the codes of
-    error findings met before the rules (values the input reader refused): they make the
-    gas not classifiable, as an error finding of a rule does.
+    asked only for the rules the verdict cites. `input_errors` are the codes of error
+    findings met before the rules (values the input reader refused): they make the gas not
+    classifiable, as an error finding of a rule does. `undecided_of(position)` is that
+    rule's `RuleResult.undecided` (by default read from `result_of`), which `evaluate` has
+    without making the result.
     """
-    findings = [
-        FindingResult(found.code, found.severity, result_of(position))
-        for position, found in plan.findings
-        if states[position] is True
-    ]
+    if undecided_of is None:
+        undecided_of = _undecided_from(result_of)
+    refs = plan.refs
+    found_states = plan.finding_states(states)
+    findings = (
+        [
+            FindingResult(found.code, found.severity, result_of(position))
+            for (position, found), state in zip(plan.findings, found_states, strict=True)
+            if state is True
+        ]
+        if True in found_states  # states are True, False or None: `in` finds only True
+        else []
+    )
     if len(findings) > 1:
         findings.sort(key=finding_order)
     said = _stated(plan.hypoxaemia, states)
-    if _PRESENT in said:
-        hypoxaemia = _PRESENT
-    elif _ABSENT in said:
-        hypoxaemia = _ABSENT
-    else:
-        hypoxaemia = HypoxaemiaStatus.UNKNOWN
+    hypoxaemia = _PRESENT if _PRESENT in said else _ABSENT if _ABSENT in said else _NO_STATUS
     exchange_said = _stated(plan.gas_exchange, states)
-    if _DEFECT in exchange_said:
-        gas_exchange = _DEFECT
-    elif _NORMAL in exchange_said:
-        gas_exchange = _NORMAL
-    else:
-        gas_exchange = GasExchangeStatus.UNKNOWN
+    gas_exchange = (
+        _DEFECT
+        if _DEFECT in exchange_said
+        else _NORMAL
+        if _NORMAL in exchange_said
+        else _NO_EXCHANGE
+    )
     demotion = _demotion(findings, facts, input_errors)
     requests = DataRequests(facts, catalogue)
     mechanisms: list[MechanismAssessment] = []
-    for mechanism, grading in plan.mechanisms:
-        fired = [(position, graded) for position, graded in grading if states[position] is True]
-        if not fired:
-            mechanisms.append(_unassessed(mechanism, grading, states, result_of, requests))
+    for (mechanism, grading), states_of in zip(plan.mechanisms, plan.grading_states, strict=True):
+        graded_states = states_of(states)
+        count = graded_states.count(True)  # states are True, False or None: counts only True
+        if not count:
+            mechanisms.append(_unassessed(mechanism, grading, states, refs, undecided_of, requests))
             continue
+        if count == 1:
+            fired = [grading[graded_states.index(True)]]
+        else:
+            fired = [pair for pair, state in zip(grading, graded_states, strict=True) if state]
         assessment = _assess(mechanism, fired, result_of, demotion)
         if assessment.grade is _NOT_ASSESSABLE:
             # A rule said why the data cannot speak; still ask for what would let them.
-            missing = _unassessed(mechanism, grading, states, result_of, requests)
-            assessment = replace(assessment, undecided=missing.undecided)
+            missing = _unassessed(mechanism, grading, states, refs, undecided_of, requests)
+            if missing.undecided:
+                assessment = MechanismAssessment(
+                    mechanism,
+                    _NOT_ASSESSABLE,
+                    assessment.deciding,
+                    assessment.losing,
+                    undecided=missing.undecided,
+                )
         mechanisms.append(assessment)
         if assessment.grade is _POSSIBLE:
             _ask_discriminators(assessment, requests)
     pattern, reason = pattern_of(demotion, hypoxaemia, gas_exchange, mechanisms)
     if pattern is Pattern.NOT_CLASSIFIABLE and requests.empty:
-        for fact in REPEAT_SAMPLE.requests:
-            requests.ask(fact, "", even_if_known=True)  # asked by the verdict itself
+        requests.ask_all(REPEAT_SAMPLE.requests, "", even_if_known=True)  # by the verdict itself
     return Verdict(
         pattern=pattern,
         pattern_reason=reason,

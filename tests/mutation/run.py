@@ -57,8 +57,10 @@ ENGINE_EVALUATION = (
     "facts.py",
     "leaves.py",
     "logic.py",
+    "program.py",
     "rationale.py",
     "results.py",
+    "ruleset.py",
     "scenarios.py",
     "verdict.py",
 )
