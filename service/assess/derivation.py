@@ -23,7 +23,8 @@ from __future__ import annotations
 import inspect
 import math
 from collections.abc import Callable, Iterable, Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
+from functools import partial
 from typing import Any
 
 from service.config import Settings
@@ -31,6 +32,8 @@ from service.engine.facts import FactKind, FactOrigin, FactSpec, FactValue
 from service.exceptions import PhysiologyError
 from service.intake.model import Source
 from service.physiology.units import from_fact_unit, to_fact_unit
+
+from .step_code import Outcome, Run, write_step
 
 __all__ = [
     "Computed",
@@ -209,6 +212,32 @@ class _Step:
     high: float
     """A quantity's accepted range (``FactSpec.minimum``/``maximum``): a value inside it is
     accepted without asking ``FactSpec.problem``, which says the same (it would return None)."""
+    run: Run
+    """``_outcome`` of this step as one function written for it (``step_code``); the general
+    path itself when the entry reads a fact the catalogue lacks."""
+
+
+def _unplanned(facts: Mapping[str, FactValue], settings: Settings) -> Outcome:
+    raise AssertionError("a step is run only once planned")  # pragma: no cover
+
+
+def _runner(step: _Step) -> Run:
+    """The function that gives ``_outcome(step, facts, settings)``."""
+    if step.unknown:
+        return partial(_outcome, step)
+    return write_step(
+        step.compute,
+        Computed,
+        step.spec.inputs,
+        step.entry.optional,
+        frozenset(step.percent_reads),
+        step.wants_settings,
+        step.quantity,
+        step.out_percent,
+        step.low,
+        step.high,
+        step.spec.problem,
+    )
 
 
 @dataclass(frozen=True, slots=True)
@@ -246,8 +275,10 @@ def _plan(entries: tuple[DerivedFact, ...], specs: Mapping[str, FactSpec]) -> _P
                 result=entry.result,
                 low=spec.minimum if spec.minimum is not None else math.inf,
                 high=spec.maximum if spec.maximum is not None else -math.inf,
+                run=_unplanned,
             )
         )
+        steps[-1] = replace(steps[-1], run=_runner(steps[-1]))
     names = [step.name for step in steps]
     return _Plan(tuple(steps), frozenset(names), len(set(names)) == len(names))
 
@@ -347,7 +378,7 @@ def _compute(
     for step in plan.steps:
         if not known >= step.needed:
             continue
-        value, method, problem = _outcome(step, facts, settings)
+        value, method, problem = step.run(facts, settings)
         if problem is not None:
             problems.append(f"{step.name}: {problem}")
             continue
@@ -418,7 +449,7 @@ def derive_changed(
         before = derived.get(name, _MISSING)
         value = None
         if known >= step.needed:
-            value, _, _ = _outcome(step, facts, settings)
+            value, _, _ = step.run(facts, settings)
         if value is not None:
             facts[name] = value
         if not _same(_MISSING if value is None else value, before):
