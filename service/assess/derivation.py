@@ -69,6 +69,26 @@ class Derived:
 
 Compute = Callable[..., float | bool | Computed | None]
 
+_new = object.__new__
+# The slots' own setters (member descriptors), which a frozen class's __setattr__ does not
+# stand in front of.
+_set_value: Callable[[Derived, float], None] = vars(Derived)["value"].__set__
+_set_unit: Callable[[Derived, str], None] = vars(Derived)["unit"].__set__
+_set_method: Callable[[Derived, str], None] = vars(Derived)["method"].__set__
+_set_inputs: Callable[[Derived, tuple[Source, ...]], None] = vars(Derived)["inputs"].__set__
+
+
+def _derived(value: float, unit: str, method: str, inputs: tuple[Source, ...]) -> Derived:
+    """``Derived(value, unit, method, inputs)`` set through its slots: a frozen dataclass's
+    ``__init__`` sets each field through ``object.__setattr__``, twice as slow, and the
+    loop files about 17 a gas (``tests/assess/test_step_code.py`` compares the two)."""
+    out: Derived = _new(Derived)
+    _set_value(out, value)
+    _set_unit(out, unit)
+    _set_method(out, method)
+    _set_inputs(out, inputs)
+    return out
+
 
 @dataclass(frozen=True, slots=True)
 class DerivedFact:
@@ -388,15 +408,22 @@ def _compute(
         for name in step.reads:
             if name in facts:
                 found += sources.get(name, ())
-        # One source needs no de-duplication (dict.fromkeys hashes every Source).
-        used = found if len(found) < 2 else tuple(dict.fromkeys(found))
+        # One source needs no de-duplication (dict.fromkeys hashes every Source), and two
+        # need one comparison: dict.fromkeys keeps the first of two equal ones.
+        size = len(found)
+        if size < 2:
+            used = found
+        elif size == 2:
+            used = found if found[0] != found[1] else found[:1]
+        else:
+            used = tuple(dict.fromkeys(found))
         facts[step.name] = value
         sources[step.name] = used
         result = step.result
         if result is not None:  # only quantities are filed (see DerivedTable.flag)
             unit = step.spec.unit
             assert unit is not None and isinstance(value, float)
-            filed[result] = Derived(value, unit, method, used)
+            filed[result] = _derived(value, unit, method, used)
     return filed, problems
 
 

@@ -19,7 +19,7 @@ import pytest
 from service.assess import derivation
 from service.assess.assess import windows
 from service.assess.catalogue import DEFAULT_CATALOGUE
-from service.assess.derivation import Computed, DerivedTable, FactValue
+from service.assess.derivation import Computed, Derived, DerivedTable, FactValue
 from service.assess.derive import derive_gas_facts
 from service.assess.derived import DERIVED_FACTS
 from service.assess.pairing import pair_gases
@@ -27,6 +27,7 @@ from service.assess.step_code import _source_is_safe, write_step
 from service.config import Settings
 from service.exceptions import PhysiologyError
 from service.fhir.extract import read_bundle
+from service.intake.model import Source
 
 from .builders import T0
 
@@ -167,3 +168,86 @@ def test_a_step_reading_a_fact_the_catalogue_lacks_keeps_the_general_path() -> N
     (step,) = plan.steps
     with pytest.raises(KeyError, match="no_such_fact"):
         step.run({"no_such_fact": 0.5}, Settings())
+
+
+def _compute_the_long_way(
+    facts: dict[str, FactValue],
+    sources: dict[str, tuple[Source, ...]],
+    settings: Settings,
+) -> tuple[dict[str, Derived], list[str]]:
+    """``derivation._compute`` written plainly: the general outcome of every step, every
+    union of sources de-duplicated by ``dict.fromkeys``, every record built by its class."""
+    filed: dict[str, Derived] = {}
+    problems: list[str] = []
+    for step in PLAN.steps:
+        if not facts.keys() >= step.needed:
+            continue
+        value, method, problem = derivation._outcome(step, facts, settings)
+        if problem is not None:
+            problems.append(f"{step.name}: {problem}")
+            continue
+        if value is None:
+            continue
+        found: list[Source] = []
+        for name in step.reads:
+            if name in facts:
+                found += sources.get(name, ())
+        used = tuple(dict.fromkeys(found))
+        facts[step.name] = value
+        sources[step.name] = used
+        if step.result is not None:
+            assert step.spec.unit is not None and isinstance(value, float)
+            filed[step.result] = Derived(value, step.spec.unit, method, used)
+    return filed, problems
+
+
+def _copies(sources: dict[str, tuple[Source, ...]]) -> dict[str, tuple[Source, ...]]:
+    """``sources`` with every Source an equal copy, and each fact's first source repeated
+    as a copy, so that de-duplication meets equal sources that are not the same object."""
+    return {
+        k: tuple(Source(s.reference, s.expression) for s in v) + v[:1] for k, v in sources.items()
+    }
+
+
+@pytest.mark.parametrize("path", FIXTURES, ids=lambda p: p.name)
+def test_the_loop_files_what_the_long_way_files(path: Path) -> None:
+    settings = Settings()
+    data = read_bundle(orjson.loads(path.read_bytes()))
+    for gas in pair_gases(data, windows=windows(settings)).gases:
+        derived = derive_gas_facts(gas, patient=data.patient, settings=settings, today=T0.date())
+        for facts in _variants(derived.measured):
+            for sources in (dict(derived.measured_sources), _copies(derived.measured_sources)):
+                fast_facts, fast_sources = dict(facts), dict(sources)
+                fast = derivation._compute(PLAN, fast_facts, fast_sources, settings)
+                long_facts, long_sources = dict(facts), dict(sources)
+                expected = _compute_the_long_way(long_facts, long_sources, settings)
+                assert list(fast_facts) == list(long_facts)
+                assert all(_same(fast_facts[k], long_facts[k]) for k in fast_facts)
+                assert fast_sources == long_sources
+                assert fast[1] == expected[1]
+                assert list(fast[0]) == list(expected[0])
+                for name, record in fast[0].items():
+                    other = expected[0][name]
+                    assert type(record) is Derived
+                    assert _same(record.value, other.value)
+                    assert (record.unit, record.method, record.inputs) == (
+                        other.unit,
+                        other.method,
+                        other.inputs,
+                    )
+                    assert record == other and hash(record) == hash(other)
+                    assert repr(record) == repr(other)
+
+
+def test_a_record_set_through_its_slots_is_the_classes_own() -> None:
+    inputs = (Source("Observation/a", "Bundle.entry[0].resource"),)
+    record = derivation._derived(7.5, "mm[Hg]", "by a method", inputs)
+    assert record == Derived(7.5, "mm[Hg]", "by a method", inputs)
+    assert (record.value, record.unit, record.method, record.inputs) == (
+        7.5,
+        "mm[Hg]",
+        "by a method",
+        inputs,
+    )
+    with pytest.raises(AttributeError):
+        record.value = 1.0  # type: ignore[misc]
