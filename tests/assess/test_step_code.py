@@ -144,6 +144,10 @@ def test_the_source_check_refuses_quotes_and_unknown_names() -> None:
     assert not _source_is_safe("def run(facts):\n    a0 = facts['x']\n", frozenset())
     assert not _source_is_safe('def run(facts):\n    a0 = "x"\n', frozenset())
     assert not _source_is_safe("def run(facts):\n    a0 = open(n0)\n", frozenset())
+    # A quote or a backslash alone is refused, every name being allowed.
+    assert not _source_is_safe("def run(facts):\n    a0 = n0 + ''\n", frozenset())
+    assert not _source_is_safe('def run(facts):\n    a0 = n0 + ""\n', frozenset())
+    assert not _source_is_safe("def run(facts):\n    a0 = n0 \\\n", frozenset())
     assert _source_is_safe("def run(facts):\n    out = c(pao2=a0)\n", frozenset({"pao2"}))
     assert not _source_is_safe("def run(facts):\n    out = c(pao2=a0)\n", frozenset())
 
