@@ -96,7 +96,7 @@ def _mechanism(item: MechanismAssessment, units: Units) -> MechanismVerdict:
         rationale=" ".join(item.rationales_in(units)),
         rules=item.rules,
         discriminator=discriminators or None,
-        trace=tuple(line for result in item.deciding for line in result.trace_lines),
+        trace=tuple([line for result in item.deciding for line in result.trace_lines]),
     )
 
 
