@@ -20,7 +20,7 @@ from datetime import UTC, datetime, timedelta
 from service.config import Settings
 from service.engine import Evaluation, Pattern, RuleSet, Severity, evaluate
 from service.engine.rationale import Units
-from service.engine.scenarios import Scenario, combine
+from service.engine.scenarios import combine, evaluate_scenarios
 from service.engine.verdict import SEVERITY_RANK, MechanismAssessment, Verdict
 from service.intake.model import Intake, Quantity, Specimen
 from service.physiology.oxygen_prediction import TargetBand
@@ -96,7 +96,7 @@ def _mechanism(item: MechanismAssessment, units: Units) -> MechanismVerdict:
         rationale=" ".join(item.rationales_in(units)),
         rules=item.rules,
         discriminator=discriminators or None,
-        trace=tuple(line for result in item.deciding for line in result.trace_lines),
+        trace=tuple([line for result in item.deciding for line in result.trace_lines]),
     )
 
 
@@ -226,18 +226,14 @@ def evaluate_gas(
     representative = evaluate(ruleset, facts, input_errors=input_errors)
     if not ranges.scenarios or not ranges.uncertainties:
         return representative, representative.verdict, ()
-    scenarios = [
-        Scenario(
-            label,
-            evaluate(
-                ruleset,
-                {**derive_again(index, changes, settings=settings), **common},
-                input_errors=input_errors,
-            ),
-            only_for,
-        )
-        for label, changes, only_for in ranges.scenarios
-    ]
+    scenarios = evaluate_scenarios(
+        ruleset,
+        (
+            (label, {**derive_again(index, changes, settings=settings), **common}, only_for)
+            for label, changes, only_for in ranges.scenarios
+        ),
+        input_errors=input_errors,
+    )
     verdict = combine(
         representative,
         scenarios,

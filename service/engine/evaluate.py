@@ -19,7 +19,7 @@ from service.engine.results import EvaluationContext, RuleResult
 from service.engine.ruleset import Rule, RuleSet
 from service.engine.verdict import Verdict, decide_states
 
-__all__ = ["Evaluation", "evaluate"]
+__all__ = ["Evaluation", "RuleRun", "evaluate", "run_rules"]
 
 
 _TRUTH = {value: truth_of(value) for value in (True, False, None)}
@@ -96,27 +96,62 @@ def evaluate(
     `input_errors` are the codes of error findings met before the rules (values the input
     reader refused): like a fired error finding, they make the verdict not classifiable.
     """
-    # Checked, and a private copy (results render text later and must not see the caller's
-    # edits), with every number a rule compares at its stated precision: rules compare values
-    # as stated (a rationale rounds the numbers it shows itself).
-    known: dict[str, FactValue] = ruleset.catalogue.stated(facts, ruleset.compared)  # type: ignore[assignment]
-    program = ruleset.program
-    leaf_states, rule_states, node_states = program.run(known)
-    states = BlockStates(leaf_states)
-    results = _Results(
-        ruleset.evaluated, rule_states, EvaluationContext(known, states, ruleset.leaves)
-    )
+    return run_rules(ruleset, facts).decided(input_errors)
 
-    def undecided_of(position: int) -> tuple[str, ...]:
-        return program.undecided(position, leaf_states, node_states)
 
-    verdict = decide_states(
-        ruleset.verdict_plan,
-        rule_states,
-        results,
-        known,
-        ruleset.catalogue,
-        input_errors,
-        undecided_of,
-    )
-    return Evaluation(ruleset.identity, ruleset.content_hash, verdict, results)
+class RuleRun:
+    """The first half of an evaluation: the facts checked and stated, every leaf test run.
+
+    `decided` builds the verdict from it. Two runs whose leaves came out the same over the
+    same set of known facts have the same rule states, the same undecided facts and so the
+    same grades, findings, statuses and data requests (`decide_states` reads the facts' names
+    only, never their values): only the numbers in their rationales and traces differ
+    (`same_states` says when; `scenarios.evaluate_scenarios` uses it).
+    """
+
+    __slots__ = ("known", "leaf_states", "node_states", "rule_states", "ruleset")
+
+    def __init__(self, ruleset: RuleSet, facts: Mapping[str, FactValue]) -> None:
+        # Checked, and a private copy (results render text later and must not see the
+        # caller's edits), with every number a rule compares at its stated precision: rules
+        # compare values as stated (a rationale rounds the numbers it shows itself).
+        self.ruleset = ruleset
+        self.known: dict[str, FactValue] = ruleset.catalogue.stated(facts, ruleset.compared)  # type: ignore[assignment]
+        self.leaf_states, self.rule_states, self.node_states = ruleset.program.run(self.known)
+
+    def same_states(self, other: "RuleRun") -> bool:
+        """Whether `other` ran the same rule set to the same leaf states over the same set
+        of known facts (see the class docstring)."""
+        return (
+            self.ruleset is other.ruleset
+            and self.leaf_states == other.leaf_states
+            and self.known.keys() == other.known.keys()
+        )
+
+    def decided(self, input_errors: Sequence[str] = ()) -> Evaluation:
+        """The evaluation: results (made when read) and the verdict."""
+        ruleset, program = self.ruleset, self.ruleset.program
+        known, leaf_states, node_states = self.known, self.leaf_states, self.node_states
+        states = BlockStates(leaf_states)
+        results = _Results(
+            ruleset.evaluated, self.rule_states, EvaluationContext(known, states, ruleset.leaves)
+        )
+
+        def undecided_of(position: int) -> tuple[str, ...]:
+            return program.undecided(position, leaf_states, node_states)
+
+        verdict = decide_states(
+            ruleset.verdict_plan,
+            self.rule_states,
+            results,
+            known,
+            ruleset.catalogue,
+            input_errors,
+            undecided_of,
+        )
+        return Evaluation(ruleset.identity, ruleset.content_hash, verdict, results)
+
+
+def run_rules(ruleset: RuleSet, facts: Mapping[str, FactValue]) -> RuleRun:
+    """Check and state `facts` and run every leaf test of `ruleset` (see `RuleRun`)."""
+    return RuleRun(ruleset, facts)

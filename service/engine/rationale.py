@@ -131,21 +131,27 @@ class Template:
     def render(self, facts: Mapping[str, float | bool | str], units: Units = NO_UNITS) -> str:
         """Fill the slots from `facts`, numbers in `units` where it names their unit."""
         out: list[str] = []
+        append = out.append
         for part in self.parts:
-            if isinstance(part, str):
-                out.append(part)
-            elif isinstance(part, _ParameterSlot):
-                out.append(_format_parameter(part.parameter, units) if units else part.text)
+            kind = type(part)  # exact types: literals are str, slots are made here
+            if kind is str:
+                append(part)  # type: ignore[arg-type]
+            elif kind is _ParameterSlot:
+                append(_format_parameter(part.parameter, units) if units else part.text)  # type: ignore[union-attr]
             else:
+                assert isinstance(part, FactSpec)
                 value = facts.get(part.name)
                 if value is None:
-                    out.append(NOT_KNOWN)
+                    append(NOT_KNOWN)
                     continue
                 if type(value) is float:
                     # As stated (``FactCatalogue.as_stated``); the engine rounds only the facts
                     # its rules compare, and rounding again changes nothing.
                     value = round(value, part.decimals)
-                out.append(format_value(part, value, units))
+                    if part.kind is FactKind.QUANTITY:  # ``format_value``'s usual case, direct
+                        append(format_quantity(value, part.decimals, part.unit or "1", units))
+                        continue
+                append(format_value(part, value, units))
         return "".join(out)
 
 

@@ -22,12 +22,13 @@ themselves refute that end of the range (an arterial PO2 above the alveolar PO2 
 assumed FiO2, for example). When every scenario has the error, it stands.
 """
 
-from collections.abc import Sequence
+from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, replace
 
 from service.engine.data_requests import DataRequest
-from service.engine.evaluate import Evaluation
-from service.engine.ruleset import Discriminator
+from service.engine.evaluate import Evaluation, RuleRun, run_rules
+from service.engine.facts import FactValue
+from service.engine.ruleset import Discriminator, RuleSet
 from service.engine.verdict import MechanismAssessment, Verdict, finding_order, pattern_of
 from service.engine.vocabulary import (
     GasExchangeStatus,
@@ -37,7 +38,7 @@ from service.engine.vocabulary import (
     Severity,
 )
 
-__all__ = ["Scenario", "Uncertainty", "combine"]
+__all__ = ["Scenario", "Uncertainty", "combine", "evaluate_scenarios"]
 
 
 @dataclass(frozen=True, slots=True)
@@ -61,6 +62,34 @@ class Scenario:
     only_for: frozenset[Mechanism] | None = None
     """When set, the scenario bears only on these mechanisms (an assumption whose other
     consequences the result states rather than bounds: the pressure assumed at sea level)."""
+
+
+def evaluate_scenarios(
+    ruleset: RuleSet,
+    scenarios: Iterable[tuple[str, Mapping[str, FactValue], frozenset[Mechanism] | None]],
+    *,
+    input_errors: Sequence[str] = (),
+) -> list[Scenario]:
+    """One `Scenario` per (label, facts, only_for), each evaluated over its facts.
+
+    A scenario whose rules ran to the same states as an earlier one bearing on the same
+    mechanisms (``RuleRun.same_states``) shares that one's evaluation instead of deciding
+    again: it has the same grades, findings, statuses and data requests, which is all that
+    `combine` reads of a later scenario. The text of a scenario's evaluation (rationales,
+    traces) is read only from the first scenario that agrees with it (``standing[0]``, the
+    first bearing scenario of a grade, the first general scenario's findings), and the
+    earlier scenario always comes first wherever the later one does, so no text changes.
+    """
+    made: list[tuple[Scenario, RuleRun]] = []
+    for label, facts, only_for in scenarios:
+        run = run_rules(ruleset, facts)
+        same = next(
+            (s for s, r in made if s.only_for == only_for and r.same_states(run)),
+            None,
+        )
+        evaluation = same.evaluation if same is not None else run.decided(input_errors)
+        made.append((Scenario(label, evaluation, only_for), run))
+    return [scenario for scenario, _ in made]
 
 
 def _refuted(evaluation: Evaluation) -> bool:
