@@ -233,11 +233,12 @@ class ServerSettings(BaseSettings):
         description="threads that parse and assess, off the event loop (0: on it, unsafe)",
     )
     inline_bytes: int = Field(
-        16 * 1024,
+        0,
         ge=0,
         le=1024 * 1024,
         description="FHIR bodies up to this size are assessed on the event loop itself, "
-        "saving the hand-off to a work thread (0: every body goes to a thread)",
+        "saving the hand-off to a work thread, at the cost of a longer latency tail under "
+        "many connections (0, the default: every body goes to a thread)",
     )
     hl7_max_segments: int = Field(500, ge=10, le=1_000_000)
     hl7_max_field_parts: int = Field(256, ge=16, le=1_000_000)

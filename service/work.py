@@ -1,11 +1,10 @@
 """The threads that parse, assess and render, so that no request holds the event loop.
 
 Everything a request costs in CPU (JSON or HL7 v2 parsing, reading, the assessment, rendering
-and serialising the answer) runs here, ``OXYRULE_WORK_THREADS`` at a time, except the few
-milliseconds of a small FHIR body (below); otherwise the event loop only moves bytes. So a
-slow request (the worst inside the limits takes a quarter of a second)
-delays the requests queued behind it, but never ``/healthz``, ``/readyz`` or the reading of other
-requests: measured, ``/healthz`` answered with a p99 of ~260 ms and never missed its 2 s
+and serialising the answer) runs here, ``OXYRULE_WORK_THREADS`` at a time (unless small FHIR
+bodies are set to run on the loop, below); the event loop only moves bytes. So a slow request
+(the worst inside the limits takes a quarter of a second) delays the requests queued behind
+it, but never ``/healthz``, ``/readyz`` or the reading of other requests: measured, ``/healthz`` answered with a p99 of ~260 ms and never missed its 2 s
 probe timeout while 16 clients sent hostile inputs (``tests/load/hostile.py healthz``), where
 every probe failed before.
 
@@ -16,12 +15,14 @@ the event loop answers while a thread computes. The price, measured with
 
 The hand-off has a price too: measured in process, a request whose answer was made in a
 thread cost ~120 µs of CPU more than one made on the loop (the wake-ups of two threads and
-the interpreter lock passing between them), more than a bare FastAPI request costs whole.
-So the assessment of a small FHIR body (``run_sized``: at most ``OXYRULE_INLINE_BYTES``,
-16 KiB by default) is made on the loop itself: the worst such body, 47 PaO2 an hour apart to
-pair, took 7.5 ms, so a probe waits at most that long behind each one ahead of it. HL7 v2
-messages (six times the work per byte: 230 OBX in 16 kB took 46 ms) and NDJSON lines always
-go to the threads.
+the interpreter lock passing between them), about the whole of a bare FastAPI request. A
+deployment that wants it back can have small FHIR bodies (``run_sized``: at most
+``OXYRULE_INLINE_BYTES``; 0 by default) assessed on the loop itself: the worst 16 kB body, 47
+PaO2 an hour apart to pair, took 7.5 ms, so a probe waits at most that long behind each one
+ahead of it. It is off by default because, measured with wrk on the demo Bundle, it gained ~3 %
+of throughput but lengthened the latency tail: p99 76–96 ms against 45–68 ms at 16
+connections, 1.3 s against 0.6–0.7 s at 64. HL7 v2 messages (six times the work per byte: 230
+OBX in 16 kB took 46 ms) and NDJSON lines always go to the threads.
 
 Parsing a large body costs memory: JSON parsed into Python objects takes up to ~20 times its
 size (4.5 MB of ``{"resource": {...}}`` entries: 93 MiB). Work on more than ``HEAVY_BYTES``

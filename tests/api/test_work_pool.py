@@ -9,7 +9,7 @@ import threading
 from service.config import ServerSettings
 from service.work import HEAVY_BYTES, WorkPool
 
-INLINE_BYTES = ServerSettings().inline_bytes
+INLINE_BYTES = 16 * 1024  # a deployment's choice (OXYRULE_INLINE_BYTES)
 
 
 def thread_of(size: int, threads: int = 2, inline_bytes: int = INLINE_BYTES) -> str:
@@ -39,6 +39,11 @@ def test_without_work_threads_everything_runs_on_the_loop() -> None:
 
 def test_with_no_inline_size_even_an_empty_body_goes_to_a_work_thread() -> None:
     assert thread_of(0, inline_bytes=0).startswith("oxyrule-work")
+
+
+def test_by_default_every_body_goes_to_a_work_thread() -> None:
+    assert ServerSettings().inline_bytes == 0
+    assert thread_of(0, inline_bytes=ServerSettings().inline_bytes).startswith("oxyrule-work")
 
 
 def test_an_exception_reaches_the_caller_wherever_the_work_ran() -> None:
