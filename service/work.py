@@ -3,10 +3,10 @@
 Everything a request costs in CPU (JSON or HL7 v2 parsing, reading, the assessment, rendering
 and serialising the answer) runs here, ``OXYRULE_WORK_THREADS`` at a time (unless small FHIR
 bodies are set to run on the loop, below); the event loop only moves bytes. So a slow request
-(the worst inside the limits takes a quarter of a second) delays the requests queued behind
-it, but never ``/healthz``, ``/readyz`` or the reading of other requests: measured, ``/healthz`` answered with a p99 of ~260 ms and never missed its 2 s
-probe timeout while 16 clients sent hostile inputs (``tests/load/hostile.py healthz``), where
-every probe failed before.
+(the worst inside the limits takes a quarter of a second) delays the requests queued behind it,
+but never ``/healthz``, ``/readyz`` or the reading of other requests: measured, ``/healthz``
+answered with a p99 of ~260 ms and never missed its 2 s probe timeout while 16 clients sent
+hostile inputs (``tests/load/hostile.py healthz``), where every probe failed before.
 
 Threads rather than processes: the rule set and runtime are shared as they are, and Python
 gives a thread waiting for the interpreter lock its turn within the switch interval (5 ms), so
