@@ -96,28 +96,3 @@ def test_scenarios_without_requests_combine_to_the_same_verdict(
 
 def test_the_refuted_representative_is_exercised(refuted: Evaluation) -> None:
     assert _refuted(refuted)
-
-
-@pytest.mark.parametrize("path", UNCERTAIN, ids=lambda p: p.name)
-def test_the_assessment_is_the_one_of_scenarios_decided_in_full(
-    runtime: Runtime, path: Path, monkeypatch: pytest.MonkeyPatch
-) -> None:
-    import service.assess.assess as assess_module  # the module whose look-up is replaced
-
-    intake = runtime.read(orjson.loads(path.read_bytes()))
-    found = runtime.assess_intake(intake)
-    decide_in_full = evaluate_scenarios
-
-    def in_full(*args: object, **kwargs: object) -> object:
-        return decide_in_full(*args, **{**kwargs, "ask": True})  # type: ignore[arg-type]
-
-    monkeypatch.setattr(assess_module, "evaluate_scenarios", in_full)
-    expected = runtime.assess_intake(intake)
-    assert found.data_requested == expected.data_requested
-    assert found.mechanisms == expected.mechanisms
-    assert found.findings == expected.findings
-    assert (found.pattern, found.hypoxaemia, found.gas_exchange) == (
-        expected.pattern,
-        expected.hypoxaemia,
-        expected.gas_exchange,
-    )
