@@ -233,6 +233,8 @@ def evaluate_gas(
             for label, changes, only_for in ranges.scenarios
         ),
         input_errors=input_errors,
+        # Scenarios' data requests are read only when the representative is not counted.
+        ask=not ranges.representative_counts,
     )
     verdict = combine(
         representative,

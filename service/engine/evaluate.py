@@ -128,8 +128,9 @@ class RuleRun:
             and self.known.keys() == other.known.keys()
         )
 
-    def decided(self, input_errors: Sequence[str] = ()) -> Evaluation:
-        """The evaluation: results (made when read) and the verdict."""
+    def decided(self, input_errors: Sequence[str] = (), *, ask: bool = True) -> Evaluation:
+        """The evaluation: results (made when read) and the verdict (without its data
+        requests when ``ask`` is false, see `decide_states`)."""
         ruleset, program = self.ruleset, self.ruleset.program
         known, leaf_states, node_states = self.known, self.leaf_states, self.node_states
         states = BlockStates(leaf_states)
@@ -148,6 +149,7 @@ class RuleRun:
             ruleset.catalogue,
             input_errors,
             undecided_of,
+            ask=ask,
         )
         return Evaluation(ruleset.identity, ruleset.content_hash, verdict, results)
 

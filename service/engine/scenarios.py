@@ -22,8 +22,8 @@ themselves refute that end of the range (an arterial PO2 above the alveolar PO2 
 assumed FiO2, for example). When every scenario has the error, it stands.
 """
 
-from collections.abc import Iterable, Mapping, Sequence
-from dataclasses import dataclass, replace
+from collections.abc import Callable, Iterable, Mapping, Sequence
+from dataclasses import dataclass, field, replace
 
 from service.engine.data_requests import DataRequest
 from service.engine.evaluate import Evaluation, RuleRun, run_rules
@@ -62,6 +62,29 @@ class Scenario:
     only_for: frozenset[Mechanism] | None = None
     """When set, the scenario bears only on these mechanisms (an assumption whose other
     consequences the result states rather than bounds: the pressure assumed at sea level)."""
+    complete: Callable[[], Evaluation] | None = field(default=None, compare=False, repr=False)
+    """When set, ``evaluation`` was decided without data requests (they are empty) and this
+    gives the evaluation with them, decided when first asked for (see `evaluate_scenarios`)."""
+
+
+def _complete(scenario: Scenario) -> Evaluation:
+    """The scenario's evaluation with its data requests."""
+    return scenario.evaluation if scenario.complete is None else scenario.complete()
+
+
+class _Decided:
+    """A rule run's complete evaluation, decided once, when first asked for."""
+
+    __slots__ = ("_input_errors", "_made", "_run")
+
+    def __init__(self, run: RuleRun, input_errors: Sequence[str]) -> None:
+        self._run, self._input_errors = run, input_errors
+        self._made: Evaluation | None = None
+
+    def __call__(self) -> Evaluation:
+        if self._made is None:
+            self._made = self._run.decided(self._input_errors)
+        return self._made
 
 
 def evaluate_scenarios(
@@ -69,6 +92,7 @@ def evaluate_scenarios(
     scenarios: Iterable[tuple[str, Mapping[str, FactValue], frozenset[Mechanism] | None]],
     *,
     input_errors: Sequence[str] = (),
+    ask: bool = True,
 ) -> list[Scenario]:
     """One `Scenario` per (label, facts, only_for), each evaluated over its facts.
 
@@ -79,6 +103,12 @@ def evaluate_scenarios(
     traces) is read only from the first scenario that agrees with it (``standing[0]``, the
     first bearing scenario of a grade, the first general scenario's findings), and the
     earlier scenario always comes first wherever the later one does, so no text changes.
+
+    With ``ask`` false, each evaluation is decided without its data requests (a quarter of
+    deciding), which `combine` reads of a scenario only when the representative is not itself
+    a point of the ranges (``representative_counts`` false: pass ``ask`` true then) or when
+    the representative is refuted and a scenario's verdict stands in for it; the latter is
+    then decided again with them (``Scenario.complete``).
     """
     made: list[tuple[Scenario, RuleRun]] = []
     for label, facts, only_for in scenarios:
@@ -87,8 +117,14 @@ def evaluate_scenarios(
             (s for s, r in made if s.only_for == only_for and r.same_states(run)),
             None,
         )
-        evaluation = same.evaluation if same is not None else run.decided(input_errors)
-        made.append((Scenario(label, evaluation, only_for), run))
+        if same is not None:
+            scenario = Scenario(label, same.evaluation, only_for, same.complete)
+        elif ask:
+            scenario = Scenario(label, run.decided(input_errors), only_for)
+        else:
+            light = run.decided(input_errors, ask=False)
+            scenario = Scenario(label, light, only_for, _Decided(run, input_errors))
+        made.append((scenario, run))
     return [scenario for scenario, _ in made]
 
 
@@ -119,7 +155,7 @@ def combine(
         return verdict
     if _refuted(representative) and not any(_refuted(s.evaluation) for s in standing):
         # The inputs as sent are refuted by the data; a possible end of the ranges stands in.
-        verdict = standing[0].evaluation.verdict
+        verdict = _complete(standing[0]).verdict
         representative_counts = False
     shown_point = [Scenario("the values as sent", representative)] if representative_counts else []
     general = shown_point + [s for s in standing if s.only_for is None]
@@ -179,7 +215,7 @@ def combine(
     if not representative_counts and len(verdicts) > 0 and general:
         # What the representative lacked only because the uncertain input was missing is
         # filled in every scenario; a request stands when every scenario still makes it.
-        still = [{r.fact for r in v.data_requested} for v in verdicts]
+        still = [{r.fact for r in _complete(s).verdict.data_requested} for s in general]
         requested = [r for r in requested if all(r.fact in asked_by for asked_by in still)]
     known = {r.fact for r in requested}
     for item in dict.fromkeys(asked):

@@ -22,7 +22,7 @@ Only active rules count; `testing` rules are shadow-evaluated and reported only.
   missing inputs, so the request names something that can be measured or recorded.
 """
 
-from collections.abc import Callable, Mapping, Sequence
+from collections.abc import Callable, Iterable, Mapping, Sequence
 from dataclasses import dataclass
 
 from service.engine.catalogue import FactCatalogue
@@ -325,6 +325,38 @@ def _undecided_from(result_of: Callable[[int], RuleResult]) -> Callable[[int], t
     return undecided_of
 
 
+class _Unasked(DataRequests):
+    """Collects nothing: for a verdict whose reader never looks at its data requests (a
+    scenario that `scenarios.combine` compares by grades, findings and statuses only)."""
+
+    __slots__ = ()
+
+    def __init__(self) -> None:  # no facts, no catalogue: nothing is ever translated
+        pass
+
+    def ask_all(
+        self,
+        facts: Iterable[str],
+        rule: str,
+        *,
+        even_if_known: bool = False,
+        wanted: str | None = None,
+    ) -> None:
+        """Asks for nothing."""
+
+    @property
+    def empty(self) -> bool:
+        """Never empty, so the verdict adds no request of its own."""
+        return False
+
+    def collected(self) -> tuple[DataRequest, ...]:
+        """No requests."""
+        return ()
+
+
+_UNASKED = _Unasked()
+
+
 def _ask_discriminators(assessment: MechanismAssessment, requests: DataRequests) -> None:
     """A `possible` grade: what its deciding rules say would settle it, known or not."""
     for result in assessment.deciding:
@@ -355,6 +387,8 @@ def decide_states(
     catalogue: FactCatalogue,
     input_errors: Sequence[str] = (),
     undecided_of: Callable[[int], tuple[str, ...]] | None = None,
+    *,
+    ask: bool = True,
 ) -> Verdict:
     """`decide` from the rules' states (True, False, None) as `evaluate` has them.
 
@@ -363,7 +397,8 @@ def decide_states(
     findings met before the rules (values the input reader refused): they make the gas not
     classifiable, as an error finding of a rule does. `undecided_of(position)` is that
     rule's `RuleResult.undecided` (by default read from `result_of`), which `evaluate` has
-    without making the result.
+    without making the result. With ``ask`` false, no data requests are worked out and
+    ``data_requested`` is empty; everything else is the same.
     """
     if undecided_of is None:
         undecided_of = _undecided_from(result_of)
@@ -391,7 +426,7 @@ def decide_states(
         else _NO_EXCHANGE
     )
     demotion = _demotion(findings, facts, input_errors)
-    requests = DataRequests(facts, catalogue)
+    requests = DataRequests(facts, catalogue) if ask else _UNASKED
     mechanisms: list[MechanismAssessment] = []
     for (mechanism, grading), states_of in zip(plan.mechanisms, plan.grading_states, strict=True):
         graded_states = states_of(states)
