@@ -17,16 +17,11 @@ from pathlib import Path
 import orjson
 import pytest
 
-from service.assess.assess import ALVEOLAR_TOLERANCE
-from service.assess.derive import derive_again
-from service.assess.uncertainty import Ranges, input_ranges
-from service.engine import evaluate
 from service.engine.evaluate import Evaluation
-from service.engine.facts import FactValue
 from service.engine.scenarios import combine, evaluate_scenarios
-from service.engine.vocabulary import Mechanism, Severity
+from service.engine.vocabulary import Severity
 from service.runtime import Runtime
-from tests.engine.test_scenario_sharing import BUNDLES, UNCERTAIN, _said
+from tests.engine.test_scenario_sharing import BUNDLES, UNCERTAIN, _said, labelled_scenarios
 
 
 @pytest.fixture(scope="module")
@@ -48,31 +43,12 @@ def refuted(runtime: Runtime) -> Evaluation:
     pytest.fail("no fixture raises an error finding")
 
 
-def _labelled(
-    runtime: Runtime, path: Path
-) -> tuple[Evaluation, list[tuple[str, dict[str, FactValue], frozenset[Mechanism] | None]], Ranges]:
-    ruleset, settings = runtime.ruleset, runtime.settings
-    assessment = runtime.assess_intake(runtime.read(orjson.loads(path.read_bytes())))
-    index = assessment.index
-    tolerance = ruleset.parameters.get(ALVEOLAR_TOLERANCE)
-    ranges = input_ranges(
-        index, tolerance_mmhg=tolerance.value if tolerance else 0.0, settings=settings
-    )
-    assert ranges.scenarios and ranges.uncertainties
-    common = dict(assessment.serial or {})
-    labelled = [
-        (label, {**derive_again(index, changes, settings=settings), **common}, only_for)
-        for label, changes, only_for in ranges.scenarios
-    ]
-    return evaluate(ruleset, {**index.facts, **common}), labelled, ranges
-
-
 @pytest.mark.parametrize("path", UNCERTAIN, ids=lambda p: p.name)
 def test_scenarios_without_requests_combine_to_the_same_verdict(
     runtime: Runtime, refuted: Evaluation, path: Path
 ) -> None:
     ruleset = runtime.ruleset
-    representative, labelled, ranges = _labelled(runtime, path)
+    representative, labelled, ranges = labelled_scenarios(runtime, path)
     full = evaluate_scenarios(ruleset, labelled)
     light = evaluate_scenarios(ruleset, labelled, ask=False)
     assert [s.complete for s in full] == [None] * len(full)

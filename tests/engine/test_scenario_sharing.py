@@ -16,9 +16,9 @@ import pytest
 
 from service.assess.assess import ALVEOLAR_TOLERANCE
 from service.assess.derive import derive_again
-from service.assess.uncertainty import input_ranges
+from service.assess.uncertainty import Ranges, input_ranges
 from service.engine import Mechanism, evaluate
-from service.engine.evaluate import run_rules
+from service.engine.evaluate import Evaluation, run_rules
 from service.engine.facts import FactValue
 from service.engine.rationale import NO_UNITS
 from service.engine.scenarios import Scenario, combine, evaluate_scenarios
@@ -67,10 +67,11 @@ def test_most_fixtures_have_uncertain_inputs_to_share() -> None:
     assert len(UNCERTAIN) >= 40, len(UNCERTAIN)
 
 
-@pytest.mark.parametrize("path", UNCERTAIN, ids=lambda p: p.name)
-def test_shared_scenarios_combine_to_the_verdict_of_separate_ones(
+def labelled_scenarios(
     runtime: Runtime, path: Path
-) -> None:
+) -> tuple[Evaluation, list[tuple[str, dict[str, FactValue], frozenset[Mechanism] | None]], Ranges]:
+    """A fixture's representative evaluation, its scenarios' facts (labelled, as the assess
+    path makes them) and its ranges."""
     ruleset, settings = runtime.ruleset, runtime.settings
     assessment = runtime.assess_intake(runtime.read(orjson.loads(path.read_bytes())))
     index = assessment.index
@@ -84,8 +85,15 @@ def test_shared_scenarios_combine_to_the_verdict_of_separate_ones(
         (label, {**derive_again(index, changes, settings=settings), **common}, only_for)
         for label, changes, only_for in ranges.scenarios
     ]
-    facts = {**index.facts, **common}
-    representative = evaluate(ruleset, facts)
+    return evaluate(ruleset, {**index.facts, **common}), labelled, ranges
+
+
+@pytest.mark.parametrize("path", UNCERTAIN, ids=lambda p: p.name)
+def test_shared_scenarios_combine_to_the_verdict_of_separate_ones(
+    runtime: Runtime, path: Path
+) -> None:
+    ruleset = runtime.ruleset
+    representative, labelled, ranges = labelled_scenarios(runtime, path)
     separate = [Scenario(label, evaluate(ruleset, f), o) for label, f, o in labelled]
     shared = evaluate_scenarios(ruleset, labelled)
     assert [(s.label, s.only_for) for s in shared] == [(s.label, s.only_for) for s in separate]
