@@ -17,8 +17,7 @@ import pytest
 from service.engine.evaluate import Evaluation, RuleRun
 from service.engine.scenarios import evaluate_scenarios
 from service.runtime import Runtime
-from tests.engine.test_scenario_requests import _labelled
-from tests.engine.test_scenario_sharing import UNCERTAIN
+from tests.engine.test_scenario_sharing import UNCERTAIN, labelled_scenarios
 
 
 @pytest.fixture(scope="module")
@@ -57,7 +56,7 @@ def test_the_assess_path_decides_each_scenario_once(
 ) -> None:
     """Without its requests only when the representative counts (then `combine` never reads
     them); else with them, at once, never a second time."""
-    _, _, ranges = _labelled(runtime, path)
+    _, _, ranges = labelled_scenarios(runtime, path)
     decided = RuleRun.decided
     calls: list[tuple[RuleRun, bool]] = []  # the runs kept, so that no id is reused
 
