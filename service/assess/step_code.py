@@ -25,6 +25,7 @@ import re
 from collections.abc import Callable, Mapping
 from typing import Any
 
+from service.engine.written_source import compiled, is_safe
 from service.exceptions import PhysiologyError
 from service.physiology.units import fraction_from_percent, percent_from_fraction
 
@@ -39,18 +40,12 @@ _FIXED_NAMES = frozenset(
     | {"problem", "assert", "bool", "PE", "C", "c", "pct", "spct", "spec", "L", "H", "E", "S"}
 )
 _NUMBERED = re.compile(r"[an][0-9]+")
-_NAME = re.compile(r"[A-Za-z_][A-Za-z_0-9]*")
 
 
 def _source_is_safe(source: str, keywords: frozenset[str]) -> bool:
     """True when ``source`` holds no string literal and no name outside the forms made here
     and the computation's own parameter names."""
-    if "'" in source or '"' in source or "\\" in source:
-        return False
-    return all(
-        name in _FIXED_NAMES or name in keywords or _NUMBERED.fullmatch(name)
-        for name in _NAME.findall(source)
-    )
+    return is_safe(source, _FIXED_NAMES | keywords, _NUMBERED)
 
 
 def write_step(
@@ -126,6 +121,5 @@ def write_step(
     source = "\n".join(lines) + "\n"
     if not _source_is_safe(source, keywords):
         raise ValueError(f"{compute.__name__}: refused to write its step")
-    exec(compile(source, f"<derived step {compute.__name__}>", "exec"), namespace)
-    run: Run = namespace["run"]  # type: ignore[assignment]
+    run: Run = compiled(source, namespace, f"derived step {compute.__name__}")
     return run

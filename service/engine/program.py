@@ -23,6 +23,7 @@ from typing import Any
 from service.engine.compiled import CompiledCondition
 from service.engine.leaves import Leaf, near
 from service.engine.logic import Operator, TruthValue
+from service.engine.written_source import compiled, is_safe
 
 __all__ = ["RuleProgram"]
 
@@ -36,14 +37,11 @@ _FIXED_NAMES = frozenset(
     | {"or", "return", "near"}
 )
 _NUMBERED = re.compile(r"[flnNTLH][0-9]+")
-_NAME = re.compile(r"[A-Za-z_][A-Za-z_0-9]*")
 
 
 def _source_is_safe(source: str) -> bool:
     """True when ``source`` holds no string literal and no name outside the forms made here."""
-    if "'" in source or '"' in source or "\\" in source:
-        return False
-    return all(name in _FIXED_NAMES or _NUMBERED.fullmatch(name) for name in _NAME.findall(source))
+    return is_safe(source, _FIXED_NAMES, _NUMBERED)
 
 
 # A path from a rule's root to one occurrence of a leaf: the node variables (all/any) on it.
@@ -166,9 +164,7 @@ class RuleProgram:
         self.source = "def run(facts):\n" + "".join(f"    {line}\n" for line in body)
         if not _source_is_safe(self.source):  # pragma: no cover - cannot happen, see above
             raise ValueError("the rule program's source holds something it must not")
-        namespace = writer.namespace
-        exec(compile(self.source, "<rule program>", "exec"), namespace)
-        self.run: Run = namespace["run"]  # type: ignore[assignment]
+        self.run: Run = compiled(self.source, writer.namespace, "rule program")
         """``run(facts)``: the leaves' states, the rules' states and the nodes' states."""
         undecided = []
         for condition in conditions:

@@ -63,6 +63,7 @@ ENGINE_EVALUATION = (
     "ruleset.py",
     "scenarios.py",
     "verdict.py",
+    "written_source.py",  # the check every source written at load passes (derivation steps too)
 )
 AREAS: dict[str, tuple[tuple[str, ...], tuple[str, ...]]] = {
     "physiology": (
