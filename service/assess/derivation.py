@@ -76,9 +76,6 @@ class Derived(msgspec.Struct, frozen=True, gc=False):
 
 Compute = Callable[..., float | bool | Computed | None]
 
-# The name the loop files its records by (kept for ``tests/assess/test_step_code.py``).
-_derived = Derived
-
 
 @dataclass(frozen=True, slots=True)
 class DerivedFact:
@@ -414,7 +411,7 @@ def _compute(
         if result is not None:  # only quantities are filed (see DerivedTable.flag)
             unit = step.spec.unit
             assert unit is not None and isinstance(value, float)
-            filed[result] = _derived(value, unit, method, used)
+            filed[result] = Derived(value, unit, method, used)
     return filed, problems
 
 

@@ -245,7 +245,7 @@ def test_the_loop_files_what_the_long_way_files(path: Path) -> None:
 
 def test_a_record_set_through_its_slots_is_the_classes_own() -> None:
     inputs = (Source("Observation/a", "Bundle.entry[0].resource"),)
-    record = derivation._derived(7.5, "mm[Hg]", "by a method", inputs)
+    record = derivation.Derived(7.5, "mm[Hg]", "by a method", inputs)
     assert record == Derived(7.5, "mm[Hg]", "by a method", inputs)
     assert (record.value, record.unit, record.method, record.inputs) == (
         7.5,
