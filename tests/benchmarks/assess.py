@@ -134,7 +134,9 @@ def titration_costs(runtime: Runtime, rounds: int, floor: float) -> None:
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--rounds", type=int, default=300)
-    parser.add_argument("--bulk", type=int, default=3000)
+    parser.add_argument(
+        "--bulk", type=int, default=3000, help="NDJSON lines through the CLI path (0: skip it)"
+    )
     parser.add_argument("--titration-only", action="store_true", help="only the fit's cost")
     args = parser.parse_args()
     raw = orjson.dumps(orjson.loads(BUNDLE.read_bytes()))
@@ -172,7 +174,7 @@ def main() -> None:
 
     lines = [(n, raw) for n in range(1, args.bulk + 1)]
     settings = Settings()
-    for workers in (1, 2):
+    for workers in (1, 2) if lines else ():
         start = time.perf_counter()
         count = sum(
             1 for _ in assess_lines(iter(lines), settings=settings, unit=None, workers=workers)
