@@ -13,9 +13,11 @@ gives a thread waiting for the interpreter lock its turn within the switch inter
 the event loop answers while a thread computes. The price, measured with
 ``python -m tests.benchmarks.work`` on the demo Bundle, is given in deploy/README.md.
 
-The hand-off has a price too: measured in process, a request whose answer was made in a
-thread cost ~120 µs of CPU more than one made on the loop (the wake-ups of two threads and
-the interpreter lock passing between them), about the whole of a bare FastAPI request. A
+The hand-off has a price too: the wake-ups of two threads and the interpreter lock passing
+between them. ``WorkPool.run`` keeps it small (a queue and one ``call_soon_threadsafe``, no
+executor futures): with wrk on the service whose answer is made once, the HTTP layer's own work
+per request beyond a bare FastAPI request fell from 152–165 µs with ``run_in_executor`` to
+110–117 µs (``python -m tests.benchmarks.http``, alternating runs). A
 deployment that wants it back can have small FHIR bodies (``run_sized``: at most
 ``OXYRULE_INLINE_BYTES``; 0 by default) assessed on the loop itself: the worst 16 kB body, 47
 PaO2 an hour apart to pair, took 7.5 ms, so a probe waits at most that long behind each one
@@ -33,14 +35,20 @@ the memory of parsing is bounded by one large body and ``threads`` small ones.
 from __future__ import annotations
 
 import asyncio
+import contextlib
 import functools
+import queue
+import threading
 from collections.abc import Callable
-from concurrent.futures import ThreadPoolExecutor
-from typing import ParamSpec, TypeVar
+from typing import Any, ParamSpec, TypeVar
 
 P = ParamSpec("P")
 T = TypeVar("T")
 HEAVY_BYTES = 1024 * 1024  # inputs larger than this are parsed one at a time
+
+# One piece of work: the loop to answer on, the future it awaits and the call; None tells a
+# thread to stop.
+_Job = tuple[asyncio.AbstractEventLoop, "asyncio.Future[Any]", Callable[[], Any]] | None
 
 
 class WorkPool:
@@ -51,7 +59,7 @@ class WorkPool:
         ``inline_bytes``: the largest input ``run_sized`` runs on the loop."""
         self.threads = threads
         self.inline_bytes = inline_bytes
-        self._executor: ThreadPoolExecutor | None = None  # started with the first work
+        self._jobs: queue.SimpleQueue[_Job] | None = None  # threads started with the first work
         self._heavy = asyncio.Semaphore(1)
 
     async def run_sized(
@@ -73,18 +81,70 @@ class WorkPool:
             return await self.run(function, *args, **kwargs)
 
     async def run(self, function: Callable[P, T], *args: P.args, **kwargs: P.kwargs) -> T:
-        """``function(*args, **kwargs)`` in one of the threads; its result or its exception."""
+        """``function(*args, **kwargs)`` in one of the threads; its result or its exception.
+
+        Written here rather than ``loop.run_in_executor`` with a ``ThreadPoolExecutor``: that
+        chains a ``concurrent.futures.Future`` (a lock and a condition) to an asyncio one, and
+        measured on one core's hand-off of a trivial call (uvloop, CPU time) it cost 22–31 µs
+        against 14–19 µs for this queue and one ``call_soon_threadsafe``."""
         if not self.threads:
             return function(*args, **kwargs)
-        if self._executor is None:
-            self._executor = ThreadPoolExecutor(self.threads, thread_name_prefix="oxyrule-work")
+        jobs = self._jobs
+        if jobs is None:
+            jobs = self._jobs = self._start()
         loop = asyncio.get_running_loop()
-        call = functools.partial(function, *args, **kwargs)
-        return await loop.run_in_executor(self._executor, call)
+        answer: asyncio.Future[T] = loop.create_future()
+        jobs.put((loop, answer, functools.partial(function, *args, **kwargs)))
+        return await answer
+
+    def _start(self) -> queue.SimpleQueue[_Job]:
+        jobs: queue.SimpleQueue[_Job] = queue.SimpleQueue()
+        for number in range(self.threads):
+            name = f"oxyrule-work_{number}"
+            threading.Thread(target=_work, args=(jobs,), name=name, daemon=True).start()
+        return jobs
 
     def close(self) -> None:
-        """Let the threads go (work queued and not started is dropped); more work starts new
-        ones (an app whose lifespan runs again, as in tests)."""
-        if self._executor is not None:
-            self._executor.shutdown(wait=False, cancel_futures=True)
-            self._executor = None
+        """Let the threads go (work queued and not started is dropped: its caller's wait is
+        cancelled); more work starts new ones (an app whose lifespan runs again, as in tests)."""
+        jobs, self._jobs = self._jobs, None
+        if jobs is None:
+            return
+        while True:  # what no thread has taken yet
+            try:
+                job = jobs.get_nowait()
+            except queue.Empty:
+                break
+            if job is not None:
+                _answer(job[0], job[1].cancel)
+        for _ in range(self.threads):
+            jobs.put(None)
+
+
+def _work(jobs: queue.SimpleQueue[_Job]) -> None:
+    """A work thread: run each job and hand its outcome back to the job's loop."""
+    while (job := jobs.get()) is not None:
+        loop, answer, call = job
+        if answer.cancelled():  # its caller has gone (a read of a flag; set on the loop)
+            continue
+        try:
+            result = call()
+        except BaseException as exc:  # the caller's to handle, as the executor did
+            _answer(loop, functools.partial(_set_exception, answer, exc))
+        else:
+            _answer(loop, functools.partial(_set_result, answer, result))
+
+
+def _answer(loop: asyncio.AbstractEventLoop, callback: Callable[[], object]) -> None:
+    with contextlib.suppress(RuntimeError):  # the loop has closed: nobody waits any more
+        loop.call_soon_threadsafe(callback)
+
+
+def _set_result(answer: asyncio.Future[T], result: T) -> None:
+    if not answer.done():  # cancelled while the thread ran
+        answer.set_result(result)
+
+
+def _set_exception(answer: asyncio.Future[Any], exc: BaseException) -> None:
+    if not answer.done():
+        answer.set_exception(exc)

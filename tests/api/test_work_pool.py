@@ -62,3 +62,64 @@ def test_an_exception_reaches_the_caller_wherever_the_work_ran() -> None:
 
     assert asyncio.run(scenario(10)) == "refused"
     assert asyncio.run(scenario(INLINE_BYTES * 2)) == "refused"
+
+
+def test_closing_cancels_the_work_no_thread_has_taken_and_lets_the_running_one_finish() -> None:
+    release = threading.Event()
+    ran: list[str] = []
+
+    def first() -> str:
+        release.wait(5)
+        ran.append("first")
+        return "first"
+
+    async def scenario() -> tuple[object, bool]:
+        pool = WorkPool(1)
+        running = asyncio.ensure_future(pool.run(first))
+        queued = asyncio.ensure_future(pool.run(ran.append, "second"))
+        await asyncio.sleep(0.05)  # the one thread has taken the first job
+        pool.close()
+        release.set()
+        outcome = await running
+        try:
+            await queued
+        except asyncio.CancelledError:
+            return outcome, True
+        return outcome, False
+
+    assert asyncio.run(scenario()) == ("first", True)
+    assert ran == ["first"]  # the queued call never ran
+
+
+def test_work_whose_caller_has_gone_before_a_thread_took_it_is_not_run() -> None:
+    release = threading.Event()
+    ran: list[str] = []
+
+    async def scenario() -> None:
+        pool = WorkPool(1)
+        try:
+            busy = asyncio.ensure_future(pool.run(release.wait, 5))
+            gone = asyncio.ensure_future(pool.run(ran.append, "gone"))
+            await asyncio.sleep(0.05)
+            gone.cancel()  # the client went away while its work waited in the queue
+            await asyncio.sleep(0)
+            release.set()
+            await busy
+            await pool.run(ran.append, "next")  # the thread goes on working
+        finally:
+            pool.close()
+
+    asyncio.run(scenario())
+    assert ran == ["next"]
+
+
+def test_a_pool_closed_and_used_again_starts_new_threads() -> None:
+    async def scenario() -> list[str]:
+        pool = WorkPool(2)
+        names = [await pool.run(lambda: threading.current_thread().name)]
+        pool.close()
+        names.append(await pool.run(lambda: threading.current_thread().name))
+        pool.close()
+        return names
+
+    assert all(name.startswith("oxyrule-work") for name in asyncio.run(scenario()))
