@@ -18,25 +18,29 @@ Two kinds of trouble, kept apart:
   the whole Bundle: the rest is still assessed, and the error finding tells the rules that the
   data cannot be fully trusted (docs/clinical-logic.md, "Trust the data first").
 
-Each entry, Observation and subject reference is first offered to a plain path that checks the
-usual shape with ``type()`` tests and builds no FHIRPath; what it is not sure of it declines
-before recording anything, and the thorough reader reads that part from the start and locates
-every problem. The two agree on every input (``tests/fhir/test_plain_path.py``); the plain path
-is there for speed only (``python -m tests.benchmarks.stages``). What they share is written once:
-the codes (``observation.identify``), units and values (``values``, ``intake.reading``), times
-(``dates``), references (``references``), the finite-number rule (``shape.finite_float``) and
-the building of a measurement (``ObservationReader._measurement``).
+One reader, each reading rule written once. Each element is read where the reading order
+puts it: first its usual shape is tested with ``type()`` and builds no FHIRPath, so a
+well-formed Bundle costs only those tests; only when the test fails is the element read again
+by the located readers (``service.fhir.shape``), which record what is wrong and where.
+Nothing is recorded before that point, so problems and issues come in the same order whatever
+the shape. Locations are built from the entry index and the element names only when something
+is recorded (the entry's own ``Bundle.entry[i].resource`` excepted: every measurement keeps it
+as its source). What is shared is written once: the codes (``observation.identify``), units
+and values (``values``, ``intake.reading``), times (``dates``), references (``references``),
+the finite-number rule (``shape.finite_float``) and the building of a measurement
+(``ObservationReader._measurement``). ``tests/fhir/test_usual_shape.py`` checks the outcome of
+each departure from the usual shape.
 
-Why not one typed decode (msgspec Structs) in place of the two paths, measured on the demo
+Why not one typed decode (msgspec Structs) in place of the hand-written reader, measured on the demo
 Bundle: converting the parsed Bundle into narrow Structs costs about 0.5× ``orjson.loads`` and
 decoding its bytes into them 0.8–1.1×, but a Struct declares a shape unconditionally, and this
 reader's errors are conditional: a ``valueQuantity`` is read, and its faults located, only when
 the code is one the service reads (a wrong value under an unknown code is an ignored
 Observation, not a refused Bundle), a ``referenceRange`` only for a DLCO, a ``specimen`` only for
 a "Bld" code. A diagnosis derived from the Structs would refuse Bundles accepted today, so the
-located reading stays hand-written. Per Observation, a Struct with the plain shape (other
-elements forbidden) converts in 1.6–1.8 µs against 0.75 µs for the type tests of the plain
-path. Most of the reader's time is the work after the shape (codes, units, times, references)
+located reading stays hand-written. Per Observation, a Struct with the usual shape (other
+elements forbidden) converts in 1.6–1.8 µs against 0.75 µs for the type tests of the usual
+shape. Most of the reader's time is the work after the shape (codes, units, times, references)
 and the records it returns; those records are msgspec Structs (``service.intake.model``).
 """
 
@@ -170,7 +174,7 @@ def _contained_patient(
     """The Patient a ``#id`` subject names, read from the contained resources of the first
     Observation that holds it (FHIR: a contained resource is known only to its container)."""
     for entry in entries:
-        if entry.kind != "Observation" or subjects.plain_reference(entry.resource) != reference:
+        if entry.kind != "Observation" or subject_reference(entry.resource) != reference:
             continue
         contained = entry.resource.get("contained")
         if not isinstance(contained, list):
@@ -242,9 +246,7 @@ def _entries(bundle: JsonObject, index: BundleIndex, out: Collector) -> list[_En
         if type(item) is dict and "modifierExtension" in item:
             refuse_modifiers(item, f"Bundle.entry[{i}]", out)
             continue
-        entry = _plain_entry(i, item, index)
-        if entry is None:
-            entry = _entry(i, item, index, out)
+        entry = _entry(i, item, index, out)
         if entry is not None:
             if entry.kind in ("Patient", "Location", "Specimen"):
                 refuse_modifiers(entry.resource, entry.at, out, resource=True)
@@ -252,44 +254,38 @@ def _entries(bundle: JsonObject, index: BundleIndex, out: Collector) -> list[_En
     return found
 
 
-def _plain_entry(i: int, item: object, index: BundleIndex) -> _Entry | None:
-    """A well-formed entry with a resource, indexed; None (nothing recorded) for ``_entry``."""
-    if type(item) is not dict:
-        return None
-    resource = item.get("resource")
-    if type(resource) is not dict:
-        return None
-    full_url = item.get("fullUrl")
-    if full_url is None:
-        if "fullUrl" in item:
-            return None
-    elif type(full_url) is not str or not full_url.strip():
-        return None
-    kind = resource.get("resourceType")
-    if type(kind) is not str:
-        return None
-    at = f"Bundle.entry[{i}].resource"
-    if kind not in _READ:
-        if not kind.strip():
-            return None
-        return _Entry(i, resource, kind, full_url, resource_reference(resource, full_url), at)
-    rid = resource.get("id")
-    if rid is None:
-        if "id" in resource:
-            return None
-        reference = full_url or ""
-        index.add(i, resource, full_url)
-    else:
-        found = own_reference(kind, rid) if type(rid) is str else None
-        if found is None:
-            return None  # not a FHIR id: the thorough reader says so
-        reference = found
-        index.add(i, resource, full_url, reference)
-    return _Entry(i, resource, kind, full_url, reference, at)
-
-
 def _entry(i: int, item: object, index: BundleIndex, out: Collector) -> _Entry | None:
-    """Any entry, every problem located; None when there is no resource to read."""
+    """Any entry, indexed when its resource is read; None when there is no resource to read.
+
+    The usual shape is tested first with ``type()`` and records nothing: a resource object,
+    a fullUrl absent or not blank, a resourceType, and for a resource the service reads an id
+    absent or a FHIR id. Anything else is read again below, every problem located.
+    """
+    if type(item) is dict:
+        resource, full_url = item.get("resource"), item.get("fullUrl")
+        if type(resource) is dict and (
+            (type(full_url) is str and full_url.strip())
+            or (full_url is None and "fullUrl" not in item)
+        ):
+            kind, rid = resource.get("resourceType"), resource.get("id")
+            at = f"Bundle.entry[{i}].resource"
+            if type(kind) is not str:
+                pass
+            elif kind not in _READ:
+                if kind.strip():
+                    reference = resource_reference(resource, full_url)
+                    return _Entry(i, resource, kind, full_url, reference, at)
+            elif rid is None and "id" not in resource:
+                index.add(i, resource, full_url)
+                return _Entry(i, resource, kind, full_url, full_url or "", at)
+            elif (own := own_reference(kind, rid)) is not None:
+                index.add(i, resource, full_url, own)
+                return _Entry(i, resource, kind, full_url, own, at)
+    return _located_entry(i, item, index, out)
+
+
+def _located_entry(i: int, item: object, index: BundleIndex, out: Collector) -> _Entry | None:
+    """``_entry`` for any shape: every problem recorded where it is."""
     at = f"Bundle.entry[{i}]"
     entry = as_object(item, at, out)
     if entry is None:
@@ -357,11 +353,9 @@ class _Subjects:
         self._agree(("entry", self.index.resolve(reference)), entry, "")
 
     def observation(self, entry: _Entry) -> None:
-        reference = self.plain_reference(entry.resource)
+        reference = self._reference(entry)
         if reference is None:
-            reference = self._reference(entry)
-            if reference is None:
-                return
+            return
         key = self._keys.get(reference)
         if key is None:
             key = self._keys[reference] = self._key_of(reference)
@@ -373,17 +367,12 @@ class _Subjects:
             self.first = reference
         self._agree(key, entry, ".subject.reference")
 
-    @staticmethod
-    def plain_reference(resource: JsonObject) -> str | None:
-        """``subject.reference`` when it is a usable string; None to look with ``_reference``."""
-        subject = resource.get("subject")
-        if type(subject) is not dict:
-            return None
-        reference = subject.get("reference")
-        return reference if type(reference) is str and reference.strip() else None
-
     def _reference(self, entry: _Entry) -> str | None:
         """``subject.reference`` of an Observation, its shape checked and located."""
+        reference = subject_reference(entry.resource)
+        if reference is not None:
+            return reference
+        # Not the usual shape: read again, recording what is wrong.
         found = member_object(entry.resource, "subject", entry.at, self.out)
         if found is None:
             return None
@@ -425,6 +414,16 @@ class _Subjects:
                 ):
                     return entry
         return None
+
+
+def subject_reference(resource: JsonObject) -> str | None:
+    """``subject.reference`` of an Observation when it is a usable string, else None; records
+    nothing (``_Subjects._reference`` says what is wrong with any other)."""
+    subject = resource.get("subject")
+    if type(subject) is not dict:
+        return None
+    reference = subject.get("reference")
+    return reference if type(reference) is str and reference.strip() else None
 
 
 def _patient(
