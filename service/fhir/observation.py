@@ -92,16 +92,50 @@ class ObservationReader:
             self._ignore_unknown(codings, at)
             return []
         time = self._time(resource, at, usual)
+        if usual and concept is not None:  # (usual, an unknown code was ignored above)
+            return self._usual_value(resource, at, concept, time, reference)
+        return self._values(resource, at, concept, codings, time, reference)
+
+    def _usual_value(
+        self,
+        resource: JsonObject,
+        at: str,
+        concept: Concept,
+        time: datetime | None,
+        reference: str,
+    ) -> list[Measurement]:
+        """The value of a usual Observation: no component, and valueQuantity the only value[x]
+        it can have (read directly when it is an object and the quantity is not coded)."""
+        q = resource.get("valueQuantity")
+        if type(q) is dict and concept.quantity not in CODED:
+            reading = read_quantity(q, at, concept, self.out, key="valueQuantity")
+        elif "valueQuantity" in resource:
+            reading = _value(resource, at, concept, self.out)
+        else:
+            self.out.issue("observation-ignored", Severity.INFORMATION, "no value sent", at)
+            return []
+        return self._measured(reading, resource, at, at, concept, time, reference)
+
+    def _values(
+        self,
+        resource: JsonObject,
+        at: str,
+        concept: Concept | None,
+        codings: list[tuple[str, str]],
+        time: datetime | None,
+        reference: str,
+    ) -> list[Measurement]:
+        """The values of any Observation: its value[x] and its components."""
+        out = self.out
         measurements: list[Measurement] = []
         used = False
         if concept is not None:
             used = True
-            if "valueQuantity" in resource if usual else _has_value(resource):
-                self._add(measurements, resource, at, at, concept, time, reference, usual=usual)
-            elif usual or "component" not in resource:
+            if _has_value(resource):
+                reading = _value(resource, at, concept, out)
+                measurements += self._measured(reading, resource, at, at, concept, time, reference)
+            elif "component" not in resource:
                 out.issue("observation-ignored", Severity.INFORMATION, "no value sent", at)
-        if usual:
-            return measurements  # no components
         unknown: list[str] = []
         if self._components(measurements, resource, at, time, reference, unknown):
             used = True
@@ -213,12 +247,13 @@ class ObservationReader:
         if not _has_value(component):
             self.out.issue("observation-ignored", Severity.INFORMATION, "no value sent", at)
             return True
-        self._add(found, component, at, parent_at, concept, time, reference, parent)
+        reading = _value(component, at, concept, self.out)
+        found += self._measured(reading, component, at, parent_at, concept, time, reference, parent)
         return True
 
-    def _add(
+    def _measured(
         self,
-        found: list[Measurement],
+        reading: Reading | None,
         holder: JsonObject,
         at: str,
         observation_at: str,
@@ -226,13 +261,12 @@ class ObservationReader:
         time: datetime | None,
         reference: str,
         observation: JsonObject | None = None,
-        *,
-        usual: bool = False,
-    ) -> None:
-        reading = _value(holder, at, concept, self.out, usual)
+    ) -> list[Measurement]:
+        """The measurements of the value read at ``at`` (none when it could not be used):
+        the value, and the lower limit of normal of a DLCO."""
         if reading is None:
-            return
-        found.append(
+            return []
+        found = [
             self._measurement(
                 concept,
                 reading.value,
@@ -243,9 +277,10 @@ class ObservationReader:
                 reading.sent_value,
                 reading.sent_unit,
             )
-        )
+        ]
         if concept.lower_limit is not None:
             self._lower_limit(found, holder, at, concept, time, reference)
+        return found
 
     def _lower_limit(
         self,
@@ -297,6 +332,7 @@ class ObservationReader:
 
 _DIRECT = codes.CONCEPTS_BY_SYSTEM
 _SPO2 = codes.LOINC_CONCEPTS[codes.SPO2_LOINC]
+_ARTERIAL_SO2 = Quantity.ARTERIAL_SO2  # an Enum member looked up once: 60 ns a look-up
 
 
 def identify(
@@ -316,7 +352,7 @@ def identify(
         concept = None if loinc is None else codes.LOINC_CONCEPTS[loinc]
     if (
         concept is not None
-        and concept.quantity is Quantity.ARTERIAL_SO2
+        and concept.quantity is _ARTERIAL_SO2
         and _says_pulse_oximetry(codings, profiles)
     ):
         concept = _SPO2
@@ -390,12 +426,9 @@ def _has_value(holder: JsonObject) -> bool:
     return bool(_value_keys(holder)) or "dataAbsentReason" in holder
 
 
-def _value(
-    holder: JsonObject, at: str, concept: Concept, out: Collector, usual: bool = False
-) -> Reading | None:
-    """Read value[x] for ``concept``; report a dataAbsentReason or a value of the wrong type.
-    ``usual``: the holder is a usual Observation (``valueQuantity`` its only value[x])."""
-    keys = ["valueQuantity"] if usual else _value_keys(holder)
+def _value(holder: JsonObject, at: str, concept: Concept, out: Collector) -> Reading | None:
+    """Read value[x] for ``concept``; report a dataAbsentReason or a value of the wrong type."""
+    keys = _value_keys(holder)
     if len(keys) > 1:
         out.problem("structure", f"only one value[x] is allowed, got {', '.join(keys)}", at)
         return None

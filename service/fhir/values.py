@@ -114,6 +114,7 @@ def _convert(
 
 
 _USUAL_QUANTITY = frozenset({"value", "unit", "system", "code"})
+_UCUM = codes.UCUM
 
 
 def read_quantity(
@@ -133,7 +134,7 @@ def read_quantity(
         if (
             (type(sent) is float or type(sent) is int)
             and type(unit) is str
-            and q.get("system") == codes.UCUM
+            and q.get("system") == _UCUM
             and unit not in NOT_UCUM
             and unit.strip()
             and (
@@ -142,13 +143,14 @@ def read_quantity(
             )
             and (value := finite_float(sent)) is not None
         ):
+            quantity = concept.quantity
             try:
                 canonical, reinterpreted = concept.to_canonical(value, unit)
             except (UnitError, ImpossibleValueError):
                 pass
             else:
-                if out_of_range(concept.quantity, canonical) is None:
-                    return _settled(value, unit, canonical, reinterpreted, concept, out, at, key)
+                if out_of_range(quantity, canonical) is None:
+                    return _settled(value, unit, canonical, reinterpreted, quantity, out, at, key)
     return _located_quantity(q, at if key is None else f"{at}.{key}", concept, out)
 
 
@@ -157,7 +159,7 @@ def _settled(
     unit: str,
     canonical: float,
     reinterpreted: bool,
-    concept: Concept,
+    quantity: Quantity,
     out: Collector,
     at: str,
     key: str | None = None,
@@ -165,11 +167,11 @@ def _settled(
     """The reading of a possible value; a conversion worth saying is reported at ``at``
     (or at ``at.key``)."""
     canonical, sent_value, sent_unit, issue = settle(
-        value, unit, canonical, reinterpreted, concept.quantity
+        value, unit, canonical, reinterpreted, quantity
     )
     if issue is not None:
         out.issue("unit-converted", issue[0], issue[1], at if key is None else f"{at}.{key}")
-    return Reading(canonical, sent_value=sent_value, sent_unit=sent_unit)
+    return Reading(canonical, sent_value, sent_unit)
 
 
 def _located_quantity(q: JsonObject, at: str, concept: Concept, out: Collector) -> Reading | None:
@@ -208,7 +210,7 @@ def _located_quantity(q: JsonObject, at: str, concept: Concept, out: Collector) 
             f"{at}.value",
         )
         return None
-    return _settled(value, unit, canonical, reinterpreted, concept, out, at)
+    return _settled(value, unit, canonical, reinterpreted, quantity, out, at)
 
 
 def read_coded(cc: JsonObject, at: str, quantity: Quantity, out: Collector) -> Reading | None:
