@@ -36,7 +36,17 @@ from service.fhir.references import BundleIndex, type_and_id
 from service.intake.model import Intake
 from service.terminology import codes
 
-from .builders import ROOT, Json, bundle, fixture, fixture_names, observation, patient, quantity
+from .builders import (
+    ROOT,
+    Json,
+    bundle,
+    fixture,
+    fixture_names,
+    observation,
+    patient,
+    quantity,
+    tagged,
+)
 from .test_extract_fuzz import JSON, _paths
 
 FUZZ = settings(max_examples=400, deadline=None, suppress_health_check=[HealthCheck.too_slow])
@@ -330,6 +340,70 @@ def test_a_departure_from_the_usual_shape_reads_as_expected(
         assert [v for _, v in found] == pytest.approx([v for _, v in expected[1]], rel=1e-5)
     else:
         assert found == expected[1]
+    assert_located(data)
+
+
+# A Patient's birthDate (FHIR date: YYYY, YYYY-MM or YYYY-MM-DD) and gender (required binding
+# AdministrativeGender: male, female, other, unknown).
+P = "Bundle.entry[0].resource"
+PATIENT_EDITS: list[tuple[str, object, object]] = [
+    ("birthDate", "1961-04-12", ("reads", [], [])),
+    ("birthDate", "1961-04", ("reads", [], [("time-imprecise", "warning", f"{P}.birthDate")])),
+    ("birthDate", " ", refused(("value", f"{P}.birthDate"))),
+    ("birthDate", 19610412, refused(("structure", f"{P}.birthDate"))),
+    ("birthDate", None, refused(("structure", f"{P}.birthDate"))),
+    ("birthDate", "12/04/1961", refused(("value", f"{P}.birthDate"))),
+    ("gender", "other", ("reads", [], [])),
+    ("gender", "F", refused(("code-invalid", f"{P}.gender"))),
+    ("gender", " ", refused(("value", f"{P}.gender"))),
+    ("gender", 1, refused(("structure", f"{P}.gender"))),
+    ("gender", None, refused(("structure", f"{P}.gender"))),
+]
+
+
+@pytest.mark.parametrize(
+    ("element", "value", "expected"),
+    PATIENT_EDITS,
+    ids=[f"{e}={v!r}" for e, v, _ in PATIENT_EDITS],
+)
+def test_a_patient_reads_as_expected(element: str, value: object, expected: object) -> None:
+    resource = patient()
+    resource[element] = value
+    data = bundle(resource)
+    assert answer(data) == expected
+    assert_located(data)
+
+
+# Location.position.altitude: metres (FHIR R4 Location), a decimal; possible from -500 m (below
+# the Dead Sea shore, -430 m) to 9,000 m (above Everest, 8,849 m): common practice, the
+# service's bounds.
+A = "Bundle.entry[0].resource.position"
+LOCATION_EDITS: list[tuple[object, object]] = [
+    ({"altitude": 2500}, ("reads", [("altitude", 2500.0)], [])),
+    ({"altitude": 2500.5}, ("reads", [("altitude", 2500.5)], [])),
+    ({"altitude": -500}, ("reads", [("altitude", -500.0)], [])),
+    ({"altitude": 9000}, ("reads", [("altitude", 9000.0)], [])),
+    ({"altitude": 9500}, ("reads", [], [("value-out-of-range", "error", f"{A}.altitude")])),
+    ({"altitude": -1000}, ("reads", [], [("value-out-of-range", "error", f"{A}.altitude")])),
+    ({"altitude": "high"}, refused(("structure", f"{A}.altitude"))),
+    ({"altitude": True}, refused(("structure", f"{A}.altitude"))),
+    ({"altitude": 10**400}, refused(("value", f"{A}.altitude"))),
+    ({"altitude": float("nan")}, refused(("value", f"{A}.altitude"))),
+    (
+        {"altitude": 2500, "modifierExtension": [{"url": "urn:x"}]},
+        refused(("not-supported", f"{A}.modifierExtension")),
+    ),
+    ([], refused(("structure", A))),
+    ({}, ("reads", [], [])),
+]  # fmt: skip
+
+
+@pytest.mark.parametrize(
+    ("position", "expected"), LOCATION_EDITS, ids=[repr(p)[:40] for p, _ in LOCATION_EDITS]
+)
+def test_a_location_reads_as_expected(position: object, expected: object) -> None:
+    data = bundle(tagged({"resourceType": "Location", "id": "l1", "position": position}))
+    assert answer(data) == expected
     assert_located(data)
 
 
