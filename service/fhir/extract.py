@@ -93,9 +93,10 @@ class _Entry(msgspec.Struct, frozen=True, gc=False):
     at: str  # Bundle.entry[index].resource
 
 
-# ``Bundle.entry[i].resource`` of the first entries, formed once per process (every entry's
-# location is kept as the source of what it gives).
+# ``Bundle.entry[i].resource`` of the first entries, and how the result names them, formed
+# once per process (every entry's location is kept as the source of what it gives).
 _ENTRY_AT = tuple(f"Bundle.entry[{i}].resource" for i in range(256))
+_ENTRY_WORDS = tuple(f"entry {i} of the input Bundle" for i in range(256))  # for the result
 
 
 def read_bundle(
@@ -162,7 +163,8 @@ def _addresses(entries: list[_Entry], subjects: _Subjects) -> dict[str, dict[str
     found: dict[str, dict[str, object]] = {}
     for entry in entries:
         if entry.reference and entry.reference not in found:
-            where = f"entry {entry.index} of the input Bundle"
+            i = entry.index
+            where = _ENTRY_WORDS[i] if i < 256 else f"entry {i} of the input Bundle"
             found[entry.reference] = addresses.of_entry(
                 entry.kind, entry.full_url, entry.resource, where
             )
