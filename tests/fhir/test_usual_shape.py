@@ -31,7 +31,7 @@ from service.fhir import observation as observation_module
 from service.fhir.concept_map import read_concept_map
 from service.fhir.dates import parse_date_time
 from service.fhir.extract import read_bundle
-from service.fhir.outcome import BundleError
+from service.fhir.outcome import BundleError, NotABundleError
 from service.fhir.references import BundleIndex, type_and_id
 from service.intake.model import Intake
 from service.terminology import codes
@@ -100,6 +100,11 @@ def assert_located(data: object) -> None:
     """Every problem and every issue of ``data`` names an element that is in it."""
     try:
         intake = read_bundle(copy.deepcopy(data), concept_map=LOCAL)
+    except NotABundleError as exc:
+        # Not a Bundle: located at the resource sent, or nowhere (FHIRPath names nothing else).
+        sent = data.get("resourceType") if isinstance(data, dict) else None
+        assert all(p.expression in ("", sent) for p in exc.problems)
+        return
     except BundleError as exc:
         where = [p.expression for p in exc.problems]
     else:
@@ -560,3 +565,14 @@ def test_bundle_index_resolves_as_the_first_matching_entry(
         key = type_and_id(reference)
         expected = by_url.get(reference, None if key is None else by_type_id.get(key))
         assert index.resolve(reference) == expected
+
+
+def test_a_specimen_reference_without_a_reference_is_located_at_the_reference() -> None:
+    # FHIR R4 Reference: an identifier or a display alone is allowed; the Specimen cannot be
+    # found then, and the warning names the Reference, not its absent ``reference``.
+    data = bundle(observation("11556-8", 80, "mm[Hg]", specimen={"display": "blood"}), patient())
+    assert answer(data) == ("reads", PAO2, [("specimen-unknown", "warning", f"{R}.specimen")])
+    assert_located(data)
+    data["entry"][0]["resource"]["specimen"] = {"reference": "Specimen/elsewhere"}
+    where = f"{R}.specimen.reference"
+    assert answer(data) == ("reads", PAO2, [("specimen-unknown", "warning", where)])
