@@ -28,7 +28,7 @@ is recorded (the entry's own ``Bundle.entry[i].resource`` excepted: every measur
 as its source). What is shared is written once: the codes (``observation.identify``), units
 and values (``values``, ``intake.reading``), times (``dates``), references (``references``),
 the finite-number rule (``shape.finite_float``) and the building of a measurement
-(``ObservationReader._measurement``). ``tests/fhir/test_usual_shape.py`` checks the outcome of
+(``ObservationReader._measured``). ``tests/fhir/test_usual_shape.py`` checks the outcome of
 each departure from the usual shape.
 
 Why not one typed decode (msgspec Structs) in place of the hand-written reader, measured on the demo

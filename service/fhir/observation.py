@@ -162,28 +162,6 @@ class ObservationReader:
                 return time
         return effective_time(resource, at, self.out)
 
-    def _measurement(
-        self,
-        concept: Concept,
-        value: float | str,
-        time: datetime | None,
-        source: Source,
-        observation: JsonObject,
-        observation_at: str,
-        sent_value: float | None = None,
-        sent_unit: str | None = None,
-    ) -> Measurement:
-        """The measurement of a value read for ``concept``: the quantity of a "Bld" code
-        follows the specimen of the Observation at ``observation_at``."""
-        quantity, specimen = concept.quantity, concept.specimen
-        if concept.by_specimen is not None:
-            specimen, known = self._specimen(observation, observation_at)
-            if known:
-                quantity = concept.by_specimen.get(specimen, quantity)
-        return Measurement(
-            quantity, value, time, source, specimen, sent_value, sent_unit, concept.fio2_source
-        )
-
     def _components(
         self,
         measurements: list[Measurement],
@@ -266,16 +244,22 @@ class ObservationReader:
         the value, and the lower limit of normal of a DLCO."""
         if reading is None:
             return []
+        # The quantity of a "Bld" code follows the specimen of the Observation.
+        quantity, specimen = concept.quantity, concept.specimen
+        if concept.by_specimen is not None:
+            specimen, known = self._specimen(observation or holder, observation_at)
+            if known:
+                quantity = concept.by_specimen.get(specimen, quantity)
         found = [
-            self._measurement(
-                concept,
+            Measurement(
+                quantity,
                 reading.value,
                 time,
                 Source(reference, at),
-                observation or holder,
-                observation_at,
+                specimen,
                 reading.sent_value,
                 reading.sent_unit,
+                concept.fio2_source,
             )
         ]
         if concept.lower_limit is not None:
