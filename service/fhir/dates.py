@@ -136,8 +136,8 @@ def _parse_time(value: str, at: str, out: Collector, *, instant: bool = False) -
 def precise_time(text: str) -> datetime | None:
     """The time of a FHIR dateTime that has a time and a zone, else None.
 
-    For the reader's plain path: None covers a partial date and a bad value alike, and the
-    caller then reads the element with ``effective_time``, which reports either.
+    For the usual shape of an Observation's time: None covers a partial date and a bad value
+    alike, and the caller then reads the element with ``effective_time``, which reports either.
     """
     try:
         value, precise = _date_time(text, False)

@@ -23,7 +23,6 @@ from service.fhir.references import BundleIndex
 from service.fhir.shape import (
     Collector,
     JsonObject,
-    finite_float,
     member_list,
     member_object,
     objects,
@@ -32,18 +31,18 @@ from service.fhir.shape import (
 )
 from service.fhir.shape import member_str as text
 from service.fhir.specimens import observation_specimen
-from service.fhir.values import plain_value, read_coded, read_quantity
+from service.fhir.values import read_coded, read_quantity
 from service.intake.model import CODED, Measurement, Quantity, Severity, Source, Specimen
-from service.intake.reading import Reading, Settled
-from service.physiology.units import NOT_UCUM
+from service.intake.reading import Reading
 from service.terminology import codes
 from service.terminology.codes import Concept
 from service.terminology.local_codes import LocalCodeMap
 
-# The elements a plain Observation may have: everything the reader ignores, plus the ones the
-# plain path reads itself. Anything else (component, another value[x] or effective[x],
-# dataAbsentReason, an unknown or misspelt element) is left to the thorough reader.
-_PLAIN_ELEMENTS = frozenset(
+# The elements of a usual Observation: everything the reader ignores, plus ``status``,
+# ``code``, ``effectiveDateTime``, ``issued``, ``valueQuantity`` and ``specimen``. When an
+# Observation has no others (one set comparison), the reader need not look for the unusual
+# ones one by one: modifiers, components, another value[x] or effective[x], dataAbsentReason.
+_USUAL_ELEMENTS = frozenset(
     {
         "resourceType", "id", "meta", "language", "text", "contained",
         "extension", "identifier", "basedOn", "partOf", "status",
@@ -52,18 +51,20 @@ _PLAIN_ELEMENTS = frozenset(
         "specimen", "device", "referenceRange", "hasMember", "derivedFrom",
     }
 )  # fmt: skip
-_PLAIN_QUANTITY = frozenset({"value", "unit", "system", "code"})
+_USED = fhir_codes.OBSERVATION_STATUS_USED
 
 
 @dataclass(slots=True)
 class ObservationReader:
     """Reads Observations of one Bundle; shares the Bundle index and the issue collector.
 
-    Each Observation is first offered to a plain path that checks the usual shape with cheap
-    type tests and builds no FHIRPath; anything it is not sure of, it declines before it has
-    recorded anything, and the thorough reader reads the Observation from the start and says
-    where the trouble is. Both give the same measurements and issues
-    (``tests/fhir/test_plain_path.py`` compares them).
+    One reader, every problem located. Each element is read where the reading order puts it:
+    first the usual shape is tested with ``type()`` and builds no FHIRPath (the cost of
+    reading a well-formed Observation); only when the test fails is the element read again by
+    the located readers of ``service.fhir.shape``, which record what is wrong and where.
+    Nothing is recorded before that point, so the problems and issues come in the same order
+    whatever the shape. (Why hand-written rather than msgspec Structs: the module docstring
+    of ``service.fhir.extract``.)
     """
 
     out: Collector
@@ -74,104 +75,65 @@ class ObservationReader:
 
     def read(self, resource: JsonObject, at: str, reference: str) -> list[Measurement]:
         """The measurements of the Observation at ``at`` (``Bundle.entry[i].resource``)."""
-        found = self.plain(resource, at, reference)
-        return self.thorough(resource, at, reference) if found is None else found
-
-    def plain(self, resource: JsonObject, at: str, reference: str) -> list[Measurement] | None:
-        """The measurement of a plain Observation, or None (nothing recorded) to read it
-        thoroughly.
-
-        Plain: a used status, codings that all have a system and a code, a known code, one
-        ``effectiveDateTime`` with a time and a zone, and one ``valueQuantity`` with a finite
-        value and a UCUM code the quantity takes, possible once converted; no component.
-        """
-        if not resource.keys() <= _PLAIN_ELEMENTS:
-            return None
-        status = resource.get("status")
-        if type(status) is not str or status not in fhir_codes.OBSERVATION_STATUS_USED:
-            return None
-        codings = _plain_codings(resource.get("code"))
-        profiles = _plain_profiles(resource)
-        if codings is None or profiles is None:
-            return None
-        concept = identify(codings, profiles, self.concept_map)
-        if concept is None or concept.quantity in CODED:
-            return None  # unknown (reported) or coded (valueCodeableConcept)
-        if concept.lower_limit is not None and "referenceRange" in resource:
-            return None  # the lower limit of normal is read thoroughly
-        time = self._plain_time(resource.get("effectiveDateTime"))
-        settled = _plain_quantity(resource.get("valueQuantity"), concept)
-        if time is None or settled is None:
-            return None
-        # Accepted: from here on the reader records what the thorough reader would.
-        value, sent_value, sent_unit, converted = settled
-        if converted is not None:
-            severity, message = converted
-            self.out.issue("unit-converted", severity, message, f"{at}.valueQuantity")
-        source = Source(reference, at)
-        return [
-            self._measurement(concept, value, time, source, resource, at, sent_value, sent_unit)
-        ]
-
-    def _measurement(
-        self,
-        concept: Concept,
-        value: float | str,
-        time: datetime | None,
-        source: Source,
-        observation: JsonObject,
-        observation_at: str,
-        sent_value: float | None = None,
-        sent_unit: str | None = None,
-    ) -> Measurement:
-        """The measurement of a value read for ``concept`` (both paths build it here): the
-        quantity of a "Bld" code follows the specimen of the Observation at
-        ``observation_at``."""
-        quantity, specimen = concept.quantity, concept.specimen
-        if concept.by_specimen is not None:
-            specimen, known = self._specimen(observation, observation_at)
-            if known:
-                quantity = concept.by_specimen.get(specimen, quantity)
-        return Measurement(
-            quantity, value, time, source, specimen, sent_value, sent_unit, concept.fio2_source
-        )
-
-    def _plain_time(self, sent: object) -> datetime | None:
-        """An ``effectiveDateTime`` with a time and a zone (parsed once per Bundle), or None."""
-        if type(sent) is not str:
-            return None
-        time = self._times.get(sent)
-        if time is None:
-            time = precise_time(sent)
-            if time is not None:
-                self._times[sent] = time
-        return time
-
-    def thorough(self, resource: JsonObject, at: str, reference: str) -> list[Measurement]:
-        """The measurements of any Observation, every problem and issue located."""
         out = self.out
-        if refuse_modifiers(resource, at, out, resource=True):
+        usual = resource.keys() <= _USUAL_ELEMENTS
+        if not usual and refuse_modifiers(resource, at, out, resource=True):
             return []
-        if not self._status_allows_use(resource, at):
+        status = resource.get("status")
+        if (type(status) is not str or status not in _USED) and not self._status_allows_use(
+            resource, at
+        ):
             return []
-        code_found = member_object(resource, "code", at, out, required=True)
-        if code_found is None:
+        codings = _code(resource, at, out)
+        if codings is None:
             return []
-        code_obj, code_at = code_found
-        codings = _codings(code_obj, code_at, out)
-        meta = member_object(resource, "meta", at, out)
-        profiles = str_items(meta[0], "profile", meta[1], out) if meta else []
-        concept = self._identify(codings, profiles)
-        if concept is None and "component" not in resource:
+        concept = identify(codings, _profiles(resource, at, out), self.concept_map)
+        if concept is None and (usual or "component" not in resource):
             self._ignore_unknown(codings, at)
             return []
-        time = effective_time(resource, at, out)
+        time = self._time(resource, at, usual)
+        if usual and concept is not None:  # (usual, an unknown code was ignored above)
+            return self._usual_value(resource, at, concept, time, reference)
+        return self._values(resource, at, concept, codings, time, reference)
+
+    def _usual_value(
+        self,
+        resource: JsonObject,
+        at: str,
+        concept: Concept,
+        time: datetime | None,
+        reference: str,
+    ) -> list[Measurement]:
+        """The value of a usual Observation: no component, and valueQuantity the only value[x]
+        it can have (read directly when it is an object and the quantity is not coded)."""
+        q = resource.get("valueQuantity")
+        if type(q) is dict and concept.quantity not in CODED:
+            reading = read_quantity(q, at, concept, self.out, key="valueQuantity")
+        elif "valueQuantity" in resource:
+            reading = _value(resource, at, concept, self.out)
+        else:
+            self.out.issue("observation-ignored", Severity.INFORMATION, "no value sent", at)
+            return []
+        return self._measured(reading, resource, at, at, concept, time, reference)
+
+    def _values(
+        self,
+        resource: JsonObject,
+        at: str,
+        concept: Concept | None,
+        codings: list[tuple[str, str]],
+        time: datetime | None,
+        reference: str,
+    ) -> list[Measurement]:
+        """The values of any Observation: its value[x] and its components."""
+        out = self.out
         measurements: list[Measurement] = []
         used = False
         if concept is not None:
             used = True
             if _has_value(resource):
-                self._add(measurements, resource, at, at, concept, time, reference)
+                reading = _value(resource, at, concept, out)
+                measurements += self._measured(reading, resource, at, at, concept, time, reference)
             elif "component" not in resource:
                 out.issue("observation-ignored", Severity.INFORMATION, "no value sent", at)
         unknown: list[str] = []
@@ -184,6 +146,21 @@ class ObservationReader:
         else:
             self._ignore_unknown(codings, at)
         return measurements
+
+    def _time(self, resource: JsonObject, at: str, usual: bool) -> datetime | None:
+        """When the Observation was made (``dates.effective_time``). The usual
+        ``effectiveDateTime`` with a time and a zone is parsed once per Bundle and records
+        nothing; anything else is read by ``effective_time``, which says what is wrong."""
+        sent = resource.get("effectiveDateTime")
+        if usual and type(sent) is str:  # usual: no other effective[x] beside it
+            time = self._times.get(sent)
+            if time is None:
+                time = precise_time(sent)
+                if time is not None:
+                    self._times[sent] = time
+            if time is not None:
+                return time
+        return effective_time(resource, at, self.out)
 
     def _components(
         self,
@@ -214,6 +191,8 @@ class ObservationReader:
         self.out.issue("observation-ignored", Severity.INFORMATION, message, f"{at}.code")
 
     def _status_allows_use(self, resource: JsonObject, at: str) -> bool:
+        """Whether a status other than the usual ones (``OBSERVATION_STATUS_USED``) lets the
+        Observation be used: never, and the reader says why."""
         status = text(resource, "status", at, self.out, required=True)
         if status is None:
             return False
@@ -227,11 +206,6 @@ class ObservationReader:
             return False
         return True
 
-    def _identify(
-        self, codings: list[tuple[str, str]], profiles: list[str] | None = None
-    ) -> Concept | None:
-        return identify(codings, profiles or [], self.concept_map)
-
     def _component(
         self,
         found: list[Measurement],
@@ -242,21 +216,22 @@ class ObservationReader:
         time: datetime | None,
         reference: str,
     ) -> bool:
-        code_found = member_object(component, "code", at, self.out, required=True)
-        if code_found is None:
+        codings = _code(component, at, self.out)
+        if codings is None:
             return False
-        concept = self._identify(_codings(code_found[0], code_found[1], self.out))
+        concept = identify(codings, [], self.concept_map)
         if concept is None:
             return False
         if not _has_value(component):
             self.out.issue("observation-ignored", Severity.INFORMATION, "no value sent", at)
             return True
-        self._add(found, component, at, parent_at, concept, time, reference, parent)
+        reading = _value(component, at, concept, self.out)
+        found += self._measured(reading, component, at, parent_at, concept, time, reference, parent)
         return True
 
-    def _add(
+    def _measured(
         self,
-        found: list[Measurement],
+        reading: Reading | None,
         holder: JsonObject,
         at: str,
         observation_at: str,
@@ -264,24 +239,32 @@ class ObservationReader:
         time: datetime | None,
         reference: str,
         observation: JsonObject | None = None,
-    ) -> None:
-        reading = _value(holder, at, concept, self.out)
+    ) -> list[Measurement]:
+        """The measurements of the value read at ``at`` (none when it could not be used):
+        the value, and the lower limit of normal of a DLCO."""
         if reading is None:
-            return
-        found.append(
-            self._measurement(
-                concept,
+            return []
+        # The quantity of a "Bld" code follows the specimen of the Observation.
+        quantity, specimen = concept.quantity, concept.specimen
+        if concept.by_specimen is not None:
+            specimen, known = self._specimen(observation or holder, observation_at)
+            if known:
+                quantity = concept.by_specimen.get(specimen, quantity)
+        found = [
+            Measurement(
+                quantity,
                 reading.value,
                 time,
                 Source(reference, at),
-                observation or holder,
-                observation_at,
+                specimen,
                 reading.sent_value,
                 reading.sent_unit,
+                concept.fio2_source,
             )
-        )
+        ]
         if concept.lower_limit is not None:
             self._lower_limit(found, holder, at, concept, time, reference)
+        return found
 
     def _lower_limit(
         self,
@@ -333,6 +316,7 @@ class ObservationReader:
 
 _DIRECT = codes.CONCEPTS_BY_SYSTEM
 _SPO2 = codes.LOINC_CONCEPTS[codes.SPO2_LOINC]
+_ARTERIAL_SO2 = Quantity.ARTERIAL_SO2  # an Enum member looked up once: 60 ns a look-up
 
 
 def identify(
@@ -352,77 +336,60 @@ def identify(
         concept = None if loinc is None else codes.LOINC_CONCEPTS[loinc]
     if (
         concept is not None
-        and concept.quantity is Quantity.ARTERIAL_SO2
+        and concept.quantity is _ARTERIAL_SO2
         and _says_pulse_oximetry(codings, profiles)
     ):
         concept = _SPO2
     return concept
 
 
-def _plain_codings(code: object) -> list[tuple[str, str]] | None:
-    """The (system, code) pairs of a CodeableConcept whose codings all have both, else None."""
-    if type(code) is not dict:
+def _code(holder: JsonObject, at: str, out: Collector) -> list[tuple[str, str]] | None:
+    """The (system, code) pairs of the ``code`` of an Observation or a component at ``at``;
+    codings without both are skipped. None when there is no usable ``code`` (recorded)."""
+    code = holder.get("code")
+    if type(code) is dict:
+        items = code.get("coding")
+        if type(items) is list:
+            # The usual shape: every coding an object with a system and a code.
+            pairs: list[tuple[str, str]] = []
+            for coding in items:
+                if type(coding) is not dict:
+                    break
+                system, value = coding.get("system"), coding.get("code")
+                if type(system) is not str or type(value) is not str:
+                    break
+                if not system.strip() or not value.strip():
+                    break
+                pairs.append((system, value))
+            else:
+                return pairs
+    found = member_object(holder, "code", at, out, required=True)
+    if found is None:
         return None
-    items = code.get("coding")
-    if type(items) is not list:
-        return None
-    pairs: list[tuple[str, str]] = []
-    for coding in items:
-        if type(coding) is not dict:
-            return None
-        system, value = coding.get("system"), coding.get("code")
-        if type(system) is not str or type(value) is not str:
-            return None
-        if not system.strip() or not value.strip():
-            return None
-        pairs.append((system, value))
-    return pairs
-
-
-def _plain_profiles(resource: JsonObject) -> list[str] | None:
-    """``meta.profile`` when ``meta`` and its profiles are of the right JSON type, else None."""
-    meta = resource.get("meta")
-    if type(meta) is not dict:
-        return [] if meta is None and "meta" not in resource else None
-    listed = meta.get("profile")
-    if type(listed) is list and all(type(item) is str for item in listed):
-        return listed
-    return [] if listed is None and "profile" not in meta else None
-
-
-def _plain_quantity(q: object, concept: Concept) -> Settled | None:
-    """A ``valueQuantity`` with a finite value and a UCUM code, read for ``concept``, or None."""
-    if type(q) is not dict or not q.keys() <= _PLAIN_QUANTITY:
-        return None
-    sent, unit = q.get("value"), q.get("code")
-    if type(sent) is not float and type(sent) is not int:
-        return None  # absent, null, a bool, a string: the thorough reader says which
-    value = finite_float(sent)
-    if value is None:
-        return None
-    if type(unit) is not str or not unit.strip() or unit in NOT_UCUM:
-        return None
-    if q.get("system") != codes.UCUM:
-        return None  # no system (qty-3) or another one: the thorough reader says how it reads
-    text_unit = q.get("unit")
-    if text_unit is not None:
-        if type(text_unit) is not str or not text_unit.strip():
-            return None
-    elif "unit" in q:
-        return None
-    return plain_value(value, unit, concept)
-
-
-def _codings(code_obj: JsonObject, at: str, out: Collector) -> list[tuple[str, str]]:
-    """The (system, code) pairs of a CodeableConcept; codings without both are skipped."""
-    pairs: list[tuple[str, str]] = []
-    items = member_list(code_obj, "coding", at, out) or []
-    for coding, coding_at in objects(items, f"{at}.coding", out):
+    code_obj, code_at = found
+    pairs = []
+    items = member_list(code_obj, "coding", code_at, out) or []
+    for coding, coding_at in objects(items, f"{code_at}.coding", out):
         system = text(coding, "system", coding_at, out)
-        code = text(coding, "code", coding_at, out)
-        if system is not None and code is not None:
-            pairs.append((system, code))
+        value = text(coding, "code", coding_at, out)
+        if system is not None and value is not None:
+            pairs.append((system, value))
     return pairs
+
+
+def _profiles(resource: JsonObject, at: str, out: Collector) -> list[str]:
+    """``meta.profile`` of the Observation at ``at``; items that are not strings recorded."""
+    meta = resource.get("meta")
+    if type(meta) is dict:
+        listed = meta.get("profile")
+        if listed is None and "profile" not in meta:
+            return []
+        if type(listed) is list and all(type(item) is str for item in listed):
+            return listed
+    elif meta is None and "meta" not in resource:
+        return []
+    found = member_object(resource, "meta", at, out)
+    return [] if found is None else str_items(found[0], "profile", found[1], out)
 
 
 def _says_pulse_oximetry(codings: list[tuple[str, str]], profiles: list[str]) -> bool:
@@ -469,9 +436,12 @@ def _value(holder: JsonObject, at: str, concept: Concept, out: Collector) -> Rea
             f"{at}.{key}",
         )
         return None
-    found = member_object(holder, key, at, out)
-    if found is None:
-        return None
+    value = holder[key]
+    if type(value) is not dict:  # not the usual shape: a located reading says what it is
+        found = member_object(holder, key, at, out)
+        if found is None:
+            return None
+        value = found[0]
     if key == "valueCodeableConcept":
-        return read_coded(found[0], found[1], concept.quantity, out)
-    return read_quantity(found[0], found[1], concept, out)
+        return read_coded(value, f"{at}.{key}", concept.quantity, out)
+    return read_quantity(value, at, concept, out, key=key)

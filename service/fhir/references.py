@@ -49,8 +49,8 @@ class BundleIndex:
     ) -> None:
         """Index the resource of ``Bundle.entry[entry]``; the first of duplicates wins.
 
-        ``own``: its ``Type/id`` when the caller has formed it already (the reader's plain path
-        has); otherwise it is formed here, from any string id.
+        ``own``: its ``Type/id`` when the caller has formed it already (the reader has, for an
+        entry of the usual shape); otherwise it is formed here, from any string id.
         """
         self.resources[entry] = resource
         if full_url is not None:

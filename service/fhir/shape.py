@@ -162,7 +162,7 @@ def member_number(
 
 def finite_float(value: int | float) -> float | None:
     """A JSON number as a finite float; None when it is not finite or too large for one.
-    The one rule of both reading paths (``member_number`` and the plain path's quantity)."""
+    The one rule of ``member_number`` and of the usual shape of a quantity (``values``)."""
     try:
         number = float(value)
     except OverflowError:

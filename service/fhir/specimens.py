@@ -73,7 +73,10 @@ def observation_specimen(
     ref_path = f"{ref_at}.reference"
     reference = text(ref_obj, "reference", ref_at, out)
     if reference is None:
-        return SpecimenFinding(Specimen.UNKNOWN, "the specimen reference is empty", ref_path)
+        # At the Reference itself when it has no ``reference`` (an identifier or a display
+        # only): a path to an absent element selects nothing (FHIRPath).
+        where = ref_path if "reference" in ref_obj else ref_at
+        return SpecimenFinding(Specimen.UNKNOWN, "the specimen reference is empty", where)
     if reference.startswith("#"):
         target, target_at = _contained(observation, at, reference[1:], out)
         if target:

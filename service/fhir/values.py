@@ -12,11 +12,18 @@ from __future__ import annotations
 
 from service.exceptions import ImpossibleValueError, UnitError
 from service.fhir import codes as fhir_codes
-from service.fhir.shape import Collector, JsonObject, member_list, member_number, objects
+from service.fhir.shape import (
+    Collector,
+    JsonObject,
+    finite_float,
+    member_list,
+    member_number,
+    objects,
+)
 from service.fhir.shape import member_str as text
 from service.intake.model import Quantity, Severity
 from service.intake.plausibility import out_of_range
-from service.intake.reading import Reading, Settled, settle
+from service.intake.reading import Reading, settle
 from service.physiology.units import (
     FIO2_LIMITS,
     NOT_UCUM,
@@ -106,23 +113,69 @@ def _convert(
     return None
 
 
-def plain_value(value: float, unit: str, concept: Concept) -> Settled | None:
-    """The reading of a finite ``value`` in ``unit``, or None when it cannot be used as it is.
+_USUAL_QUANTITY = frozenset({"value", "unit", "system", "code"})
+_UCUM = codes.UCUM
 
-    For the reader's plain path: None (a unit the quantity cannot take, an impossible value)
-    sends the Observation to ``read_quantity``, which reports why.
+
+def read_quantity(
+    q: JsonObject, at: str, concept: Concept, out: Collector, *, key: str | None = None
+) -> Reading | None:
+    """Read the ``valueQuantity`` at ``at`` for ``concept``; None when it cannot be used.
+
+    ``key``: when given, ``at`` is the FHIRPath of the element that holds the quantity as
+    ``key``; the quantity's own path is then formed only if something is recorded.
     """
-    try:
-        canonical, reinterpreted = concept.to_canonical(value, unit)
-    except (UnitError, ImpossibleValueError):
-        return None
-    if out_of_range(concept.quantity, canonical) is not None:
-        return None
-    return settle(value, unit, canonical, reinterpreted, concept.quantity)
+    # The usual shape, tested with type() and no FHIRPath: a finite value and a UCUM code
+    # the quantity takes, with the UCUM system, no comparator, a unit text (if any) not
+    # blank, possible once converted. Anything else, and a value the conversion or the
+    # possible range refuses, is read below, which records what is wrong and where.
+    if q.keys() <= _USUAL_QUANTITY:
+        sent, unit = q.get("value"), q.get("code")
+        if (
+            (type(sent) is float or type(sent) is int)
+            and type(unit) is str
+            and q.get("system") == _UCUM
+            and unit not in NOT_UCUM
+            and unit.strip()
+            and (
+                (type(text_unit := q.get("unit")) is str and text_unit.strip())
+                or (text_unit is None and "unit" not in q)
+            )
+            and (value := finite_float(sent)) is not None
+        ):
+            quantity = concept.quantity
+            try:
+                canonical, reinterpreted = concept.to_canonical(value, unit)
+            except (UnitError, ImpossibleValueError):
+                pass
+            else:
+                if out_of_range(quantity, canonical) is None:
+                    return _settled(value, unit, canonical, reinterpreted, quantity, out, at, key)
+    return _located_quantity(q, at if key is None else f"{at}.{key}", concept, out)
 
 
-def read_quantity(q: JsonObject, at: str, concept: Concept, out: Collector) -> Reading | None:
-    """Read the ``valueQuantity`` at ``at`` for ``concept``; None when it cannot be used."""
+def _settled(
+    value: float,
+    unit: str,
+    canonical: float,
+    reinterpreted: bool,
+    quantity: Quantity,
+    out: Collector,
+    at: str,
+    key: str | None = None,
+) -> Reading:
+    """The reading of a possible value; a conversion worth saying is reported at ``at``
+    (or at ``at.key``)."""
+    canonical, sent_value, sent_unit, issue = settle(
+        value, unit, canonical, reinterpreted, quantity
+    )
+    if issue is not None:
+        out.issue("unit-converted", issue[0], issue[1], at if key is None else f"{at}.{key}")
+    return Reading(canonical, sent_value, sent_unit)
+
+
+def _located_quantity(q: JsonObject, at: str, concept: Concept, out: Collector) -> Reading | None:
+    """``read_quantity`` for any shape: every problem and issue recorded where it is."""
     quantity = concept.quantity
     value = member_number(q, "value", at, out, required=True)
     comparator = text(q, "comparator", at, out)
@@ -157,12 +210,7 @@ def read_quantity(q: JsonObject, at: str, concept: Concept, out: Collector) -> R
             f"{at}.value",
         )
         return None
-    canonical, sent_value, sent_unit, issue = settle(
-        value, unit, canonical, reinterpreted, quantity
-    )
-    if issue is not None:
-        out.issue("unit-converted", issue[0], issue[1], at)
-    return Reading(canonical, sent_value=sent_value, sent_unit=sent_unit)
+    return _settled(value, unit, canonical, reinterpreted, quantity, out, at)
 
 
 def read_coded(cc: JsonObject, at: str, quantity: Quantity, out: Collector) -> Reading | None:
