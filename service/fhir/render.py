@@ -43,7 +43,7 @@ from service.assess.presentation import (
 )
 from service.assess.result import CAUTION, Assessment, Finding, MechanismVerdict
 from service.config import Settings
-from service.engine import FindingCode, GasExchangeStatus, Grade, Mechanism, Pattern
+from service.engine import FindingCode, GasExchangeStatus, Grade, Mechanism, Pattern, Severity
 from service.fhir.addresses import of_reference
 from service.fhir.oxygen_response import (
     oxygen_response_observation,
@@ -72,6 +72,8 @@ CANONICAL = "https://oxyrule.org/fhir"
 URI_SYSTEM = "urn:ietf:rfc:3986"
 # The last 12 hex digits of an entry's fullUrl: its number, written once for the usual counts.
 _ENTRY_NUMBERS = [f"{n:012x}" for n in range(64)]
+# The entries every result opens with, numbered in entry order before any other.
+_FIRST_ENTRIES = ("guidance", "result", "processing")
 _CANONICAL_UUID = re.compile(r"[0-9a-f]{8}-[0-9a-f]{4}-[0-9a-f]{4}-[0-9a-f]{4}-[0-9a-f]{12}")
 
 # Findings about processing the input (what was not read, converted or used): issues of the
@@ -223,6 +225,9 @@ _REQUIREMENTS: dict[tuple[str, str], Json] = {}
 _MECHANISM_CODE_PART = {m: {"name": "code", "valueCode": m} for m in Mechanism}
 _GRADE_PART = {g: {"name": "grade", "valueCode": g} for g in Grade}
 _RULE_PARTS: dict[str, Json] = {}
+# A finding parameter's code part (by code) and severity part.
+_FINDING_CODE_PARTS: dict[str, Json] = {}
+_SEVERITY_PART = {s: {"name": "severity", "valueCode": s} for s in Severity}
 # The ``taken-before-gas`` part of a paired value, by its offset from the gas (the values of
 # one panel share 0, and most offsets are a few whole minutes).
 _TAKEN_BEFORE: dict[timedelta, Json] = {}
@@ -317,16 +322,21 @@ class _Links:
 
     __slots__ = ("addresses", "base", "described", "urls")
 
-    def __init__(self, decision_id: str, addresses: Mapping[str, Json]) -> None:
+    def __init__(
+        self, decision_id: str, addresses: Mapping[str, Json], first: tuple[str, ...] = ()
+    ) -> None:
+        """``first``: entries numbered from 1 at once, in order (distinct ids)."""
         # Entry URLs derive from the decision id (its last 12 hex digits replaced by the
         # entry's number), so a result is reproducible apart from it and needs no hashing.
         # A decision id in the canonical form (the service's own) is its own spelling;
         # any other goes through ``uuid`` (which refuses what is no UUID).
         canonical = _CANONICAL_UUID.fullmatch(decision_id) is not None
         prefix = (decision_id if canonical else str(uuid.UUID(decision_id)))[:24]
-        self.base = f"urn:uuid:{prefix}"
+        base = self.base = f"urn:uuid:{prefix}"
         self.addresses = addresses
-        self.urls: dict[str, str] = {}
+        self.urls: dict[str, str] = {
+            local_id: base + _ENTRY_NUMBERS[n] for n, local_id in enumerate(first, start=1)
+        }
         self.described: dict[str, Json] = {}
 
     def entry(self, local_id: str) -> str:
@@ -478,9 +488,13 @@ def _mechanism_parameter(m: MechanismVerdict) -> Json:
 
 
 def _finding_parameter(f: Finding, links: _Links) -> Json:
+    code, severity = f.code, f.severity
+    found = _FINDING_CODE_PARTS.get(code)
+    if found is None:
+        found = _kept(_FINDING_CODE_PARTS, code, {"name": "code", "valueCode": code})
     part: list[Json] = [
-        {"name": "code", "valueCode": f.code},
-        {"name": "severity", "valueCode": f.severity},
+        found,
+        _SEVERITY_PART.get(severity) or {"name": "severity", "valueCode": severity},
         {"name": "message", "valueString": f.message},
     ]
     if f.subject is not None:
@@ -902,9 +916,7 @@ def render_bundle(
     ``settings_hash`` names them; ``addresses`` say how to point at each input resource
     (``Intake.addresses``); ``site`` is the label of the site file they came from (None:
     none)."""
-    links = _Links(a.decision_id, addresses or {})
-    for first in ("guidance", "result", "processing"):  # numbered in entry order
-        links.entry(first)
+    links = _Links(a.decision_id, addresses or {}, _FIRST_ENTRIES)
     requirements = _data_requirements(data_requirements)
     # More data was asked for only if some of it can be named as a FHIR data requirement.
     status = "success" if a.status == "data-requested" and not requirements else a.status
