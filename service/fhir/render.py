@@ -537,19 +537,18 @@ def _paired(gas: GasFacts, links: _Links) -> list[Json]:
         ]
         if at is not None and (taken := m.time) is not None:
             offset = at - taken
-            before = _TAKEN_BEFORE.get(offset)
-            if before is None:
-                quantity_before = {
-                    "value": minutes_before(offset),
-                    "unit": "min",
-                    "system": UCUM,
-                    "code": "min",
-                }
-                before = {"name": "taken-before-gas", "valueQuantity": quantity_before}
-                _kept(_TAKEN_BEFORE, offset, before)
-            item.append(before)
+            item.append(_TAKEN_BEFORE.get(offset) or _taken_before(offset))
         out.append({"name": "paired", "part": item})
     return out
+
+
+def _taken_before(offset: timedelta) -> Json:
+    """The ``taken-before-gas`` part of a value taken ``offset`` before the gas (kept)."""
+    found = _TAKEN_BEFORE.get(offset)
+    if found is None:
+        before = {"value": minutes_before(offset), "unit": "min", "system": UCUM, "code": "min"}
+        found = _kept(_TAKEN_BEFORE, offset, {"name": "taken-before-gas", "valueQuantity": before})
+    return found
 
 
 def minutes_before(offset: timedelta) -> float:
