@@ -16,9 +16,14 @@ JSON Schema and the R4 and R4B models (tests/conformance). Pressures leave in mm
 
 Speed: the parts that do not depend on the input (codings, code texts, the mechanism and
 status components, the caution) are built once, at import, and every result holds the same
-objects; each number is rounded once per render and its Quantity shared wherever it appears;
-the References to the input are the input's own (``Intake.addresses``). A result is therefore
-read-only: serialise it (orjson does not change it) or ``copy.deepcopy`` it before editing.
+objects; so do the parts that depend only on a code, a rule id or an offset (a mechanism's
+code and grade, a rule, a finding's code and severity, a paired value's ``taken-before-gas``:
+kept, within ``_KEPT`` each). Each number is rounded once per render, its Quantity copied from
+a template per kind of value and shared wherever it appears (a partition's parameter parts
+and Observation components are built in one pass); the References to the input are the
+input's own (``Intake.addresses``). A result is therefore read-only: serialise it (orjson
+does not change it) or ``copy.deepcopy`` it before editing. ``tests/fhir/test_render_kept.py``
+checks the written-out steps against the general ones.
 """
 
 from __future__ import annotations
