@@ -43,6 +43,7 @@ from service.assess.presentation import (
     PressureUnit,
     QuantityShape,
     derived_shape,
+    display_round,
     quantity_shape,
     shaped,
 )
@@ -238,16 +239,18 @@ _SEVERITY_PART = {s: {"name": "severity", "valueCode": s} for s in Severity}
 _TAKEN_BEFORE: dict[timedelta, Json] = {}
 _PRESSURE_UNITS: tuple[PressureUnit, ...] = ("mm[Hg]", "kPa")
 # How a value of one name is shown, with the unit it was for (the catalogue's, one per name):
-# (unit, display decimals, whether a mm[Hg] value is converted to kPa, the Quantity with
-# everything but its number, copied for each value).
-_Shape = tuple[str, int, bool, Json]
+# (unit, display decimals, 10 to their power, whether a mm[Hg] value is converted to kPa, the
+# Quantity with everything but its number, copied for each value).
+_Shape = tuple[str, int, float, bool, Json]
 _SHAPES: dict[str, dict[str, _Shape]] = {u: {} for u in _PRESSURE_UNITS}
 
 
-def _template(shape: QuantityShape) -> tuple[int, bool, Json]:
-    """A shape's decimals, conversion and Quantity template (its ``value`` set per number)."""
+def _template(shape: QuantityShape) -> tuple[int, float, bool, Json]:
+    """A shape's decimals (and ``display_round``'s scale), conversion and Quantity template
+    (its ``value`` set per number)."""
     decimals, unit, convert = shape
-    return decimals, convert, {"value": 0.0, "unit": unit, "system": UCUM, "code": unit}
+    template = {"value": 0.0, "unit": unit, "system": UCUM, "code": unit}
+    return decimals, 10.0**decimals, convert, template
 
 
 def _shape(pressure_unit: PressureUnit, name: str, unit: str) -> _Shape:
@@ -415,11 +418,10 @@ class _Quantities:
             if known is None or known[0] != unit:
                 known = _shape(self.pressure_unit, name, unit)
             # As ``presentation.shaped``, written out: this loop runs for every value shown.
-            _, decimals, convert, template = known
+            _, decimals, scale, convert, template = known
             value = kpa_from_mmhg(d.value) if convert else d.value
-            rounded = round(value, decimals) + 0.0  # + 0.0: no negative zero
             q = by_name[name] = template.copy()
-            q["value"] = rounded if decimals else float(int(rounded))
+            q["value"] = display_round(value, decimals, scale)
             parts.append({"name": name, "valueQuantity": q})
         found = self.listed_by[key] = (parts, by_name)
         return found
@@ -434,16 +436,15 @@ class _Quantities:
             return found
         d = shown.partition
         fixed: list[Json] = []
-        for (decimals, convert, template), mmhg in zip(
+        for (decimals, scale, convert, template), mmhg in zip(
             _PARTITION_SHAPES[self.pressure_unit],
             (d.arterial_po2, d.expected_pao2, d.fall),
             strict=True,
         ):
             # As ``presentation.shaped``, written out.
             value = kpa_from_mmhg(mmhg) if convert else mmhg
-            rounded = round(value, decimals) + 0.0  # + 0.0: no negative zero
             q = template.copy()
-            q["value"] = rounded if decimals else float(int(rounded))
+            q["value"] = display_round(value, decimals, scale)
             fixed.append(q)
         pao2, expected, fall = fixed
         assumed = None if shown.residence is None else _assumed(shown.residence, shown.assumption)
@@ -460,11 +461,10 @@ class _Quantities:
         ]
         shapes = _PART_SHAPES[self.pressure_unit]
         for part, mmhg in shown.parts:
-            decimals, convert, template, name, code = shapes[part]
+            decimals, scale, convert, template, name, code = shapes[part]
             value = kpa_from_mmhg(mmhg) if convert else mmhg
-            rounded = round(value, decimals) + 0.0  # + 0.0: no negative zero
             q = template.copy()
-            q["value"] = rounded if decimals else float(int(rounded))
+            q["value"] = display_round(value, decimals, scale)
             parts.append({"name": name, "valueQuantity": q})
             components.append({"code": code, "valueQuantity": q})
         parts.append({"name": "method", "valueString": shown.method})

@@ -12,15 +12,18 @@ tables stay within their budget and change nothing when they start again.
 
 from __future__ import annotations
 
+import math
 from datetime import UTC, datetime, timedelta
 from pathlib import Path
 from typing import Any
 
 import orjson
 import pytest
+from hypothesis import example, given
+from hypothesis import strategies as st
 
 from service.assess.partition import assessment_partitions
-from service.assess.presentation import PressureUnit, quantity, shown_quantity
+from service.assess.presentation import PressureUnit, display_round, quantity, shown_quantity
 from service.fhir import render
 from service.fhir.extract import read_bundle
 from service.runtime import Runtime
@@ -92,6 +95,46 @@ def test_every_quantity_shown_is_the_general_rules(runtime: Runtime, unit: Press
                 assert repr(found[name]["value"]) == repr(expected["value"])  # no -0.0
                 checked += 1
     assert checked > 500  # every fixture's values, not a few
+
+
+def _round_reference(value: float, decimals: int) -> float:
+    """The general rule (``presentation.shaped``): Python's own ``round``."""
+    rounded = round(value, decimals) + 0.0
+    return rounded if decimals else float(int(rounded))
+
+
+@given(
+    st.floats(allow_nan=False, allow_infinity=False)
+    | st.floats(min_value=-2e9, max_value=2e9)
+    | st.integers(min_value=-(10**7), max_value=10**7).map(lambda n: n / 200),  # midpoints
+    st.sampled_from([0, 1, 2, 3]),
+)
+@example(0.25, 1)  # an exact midpoint: to even, 0.2
+@example(0.35, 1)  # not exactly 0.35 in binary: 0.3
+@example(2.675, 2)  # 2.67499999…: 2.67
+@example(-0.04, 1)  # -0.0 before + 0.0
+@example(-0.5, 0)
+@example(1.5, 0)
+@example(99999999.95, 1)
+@example(1e9 / 10 - 0.05, 1)  # at the edge of the written-out range
+@example(5e-324, 2)
+def test_display_round_is_python_s_round(value: float, decimals: int) -> None:
+    found = display_round(value, decimals, 10.0**decimals)
+    expected = _round_reference(value, decimals)
+    assert repr(found) == repr(expected)  # the same double, the same sign of zero
+    assert type(found) is float
+
+
+@pytest.mark.parametrize("value", [math.nan, math.inf, -math.inf])
+@pytest.mark.parametrize("decimals", [0, 1, 2])
+def test_display_round_leaves_what_is_no_number_to_round(value: float, decimals: int) -> None:
+    try:
+        expected: object = _round_reference(value, decimals)
+    except (ValueError, OverflowError) as exc:
+        with pytest.raises(type(exc)):
+            display_round(value, decimals, 10.0**decimals)
+    else:
+        assert repr(display_round(value, decimals, 10.0**decimals)) == repr(expected)
 
 
 def test_a_paired_value_s_offset_is_the_general_rounding_kept_or_not() -> None:
