@@ -106,6 +106,26 @@ def shaped(value: float, shape: QuantityShape) -> Json:
     }
 
 
+def display_round(value: float, decimals: int, scale: float) -> float:
+    """``round(value, decimals) + 0.0`` as ``shaped`` shows it (a whole number as a float when
+    ``decimals`` is 0); ``scale`` is ``10.0 ** decimals``.
+
+    Written out because Python's ``round`` with places (a correctly rounded decimal string
+    and back) costs more than the rest of a shown Quantity, and the renderer rounds a few
+    dozen values per result. The exact product ``value * 10**decimals`` lies within a
+    rounding error (under 2.5e-7 below 1e9) of ``scaled``; when ``scaled`` is farther than
+    1e-4 from the midpoint between two integers, the nearest integer to both is the same, so
+    it is the one ``round`` rounds to, and dividing it by the exact power of ten gives the
+    double nearest the decimal, as ``round`` does (IEEE 754 division is correctly rounded; a
+    zero comes out +0.0). Near a midpoint, or out of range (NaN, infinities), ``round``
+    itself decides. ``tests/fhir/test_render_kept.py`` checks it against ``round``."""
+    scaled = value * scale
+    if -1e9 < scaled < 1e9 and -0.4999 < scaled - (whole := round(scaled)) < 0.4999:
+        return whole / scale
+    rounded = round(value, decimals) + 0.0  # + 0.0: no negative zero
+    return rounded if decimals else float(int(rounded))
+
+
 KPA_PER_MMHG_SHOWN = kpa_from_mmhg(1.0)
 """The factor text uses to show a mm[Hg] value in kPa (the one conversion, ``units``)."""
 _DISPLAY: dict[PressureUnit, Units] = {

@@ -16,9 +16,14 @@ JSON Schema and the R4 and R4B models (tests/conformance). Pressures leave in mm
 
 Speed: the parts that do not depend on the input (codings, code texts, the mechanism and
 status components, the caution) are built once, at import, and every result holds the same
-objects; each number is rounded once per render and its Quantity shared wherever it appears;
-the References to the input are the input's own (``Intake.addresses``). A result is therefore
-read-only: serialise it (orjson does not change it) or ``copy.deepcopy`` it before editing.
+objects; so do the parts that depend only on a code, a rule id or an offset (a mechanism's
+code and grade, a rule, a finding's code and severity, a paired value's ``taken-before-gas``:
+kept, within ``_KEPT`` each). Each number is rounded once per render, its Quantity copied from
+a template per kind of value and shared wherever it appears (a partition's parameter parts
+and Observation components are built in one pass); the References to the input are the
+input's own (``Intake.addresses``). A result is therefore read-only: serialise it (orjson
+does not change it) or ``copy.deepcopy`` it before editing. ``tests/fhir/test_render_kept.py``
+checks the written-out steps against the general ones.
 """
 
 from __future__ import annotations
@@ -38,12 +43,13 @@ from service.assess.presentation import (
     PressureUnit,
     QuantityShape,
     derived_shape,
+    display_round,
     quantity_shape,
     shaped,
 )
 from service.assess.result import CAUTION, Assessment, Finding, MechanismVerdict
 from service.config import Settings
-from service.engine import FindingCode, GasExchangeStatus, Grade, Mechanism, Pattern
+from service.engine import FindingCode, GasExchangeStatus, Grade, Mechanism, Pattern, Severity
 from service.fhir.addresses import of_reference
 from service.fhir.oxygen_response import (
     oxygen_response_observation,
@@ -72,6 +78,8 @@ CANONICAL = "https://oxyrule.org/fhir"
 URI_SYSTEM = "urn:ietf:rfc:3986"
 # The last 12 hex digits of an entry's fullUrl: its number, written once for the usual counts.
 _ENTRY_NUMBERS = [f"{n:012x}" for n in range(64)]
+# The entries every result opens with, numbered in entry order before any other.
+_FIRST_ENTRIES = ("guidance", "result", "processing")
 _CANONICAL_UUID = re.compile(r"[0-9a-f]{8}-[0-9a-f]{4}-[0-9a-f]{4}-[0-9a-f]{4}-[0-9a-f]{12}")
 
 # Findings about processing the input (what was not read, converted or used): issues of the
@@ -219,16 +227,52 @@ _KEPT = 4096
 codes are a few hundred; past the limit the table starts again)."""
 _FINDING_CODINGS: dict[tuple[str | None, str, str | None], Json] = {}
 _REQUIREMENTS: dict[tuple[str, str], Json] = {}
+# A mechanism parameter's code and grade parts, and each rule's part (by its id@version).
+_MECHANISM_CODE_PART = {m: {"name": "code", "valueCode": m} for m in Mechanism}
+_GRADE_PART = {g: {"name": "grade", "valueCode": g} for g in Grade}
+_RULE_PARTS: dict[str, Json] = {}
+# A finding parameter's code part (by code) and severity part.
+_FINDING_CODE_PARTS: dict[str, Json] = {}
+_SEVERITY_PART = {s: {"name": "severity", "valueCode": s} for s in Severity}
+# The ``taken-before-gas`` part of a paired value, by its offset from the gas (the values of
+# one panel share 0, and most offsets are a few whole minutes).
+_TAKEN_BEFORE: dict[timedelta, Json] = {}
 _PRESSURE_UNITS: tuple[PressureUnit, ...] = ("mm[Hg]", "kPa")
-# Each derived value's shape by name, with the unit it was for (the catalogue's, one per name).
-_SHAPES: dict[str, dict[str, tuple[str, QuantityShape]]] = {u: {} for u in _PRESSURE_UNITS}
-# The names a partition's pressures are shown under: the PaO2, the expected PaO2, the fall, then
-# the parts (``pao2-expected``, ``pao2-fall`` and ``deficit-…`` are also the Observation's
-# component codes, so the two show one Quantity).
-_PRESSURE_SHAPES = {
+# How a value of one name is shown, with the unit it was for (the catalogue's, one per name):
+# (unit, display decimals, 10 to their power, whether a mm[Hg] value is converted to kPa, the
+# Quantity with everything but its number, copied for each value).
+_Shape = tuple[str, int, float, bool, Json]
+_SHAPES: dict[str, dict[str, _Shape]] = {u: {} for u in _PRESSURE_UNITS}
+
+
+def _template(shape: QuantityShape) -> tuple[int, float, bool, Json]:
+    """A shape's decimals (and ``display_round``'s scale), conversion and Quantity template
+    (its ``value`` set per number)."""
+    decimals, unit, convert = shape
+    template = {"value": 0.0, "unit": unit, "system": UCUM, "code": unit}
+    return decimals, 10.0**decimals, convert, template
+
+
+def _shape(pressure_unit: PressureUnit, name: str, unit: str) -> _Shape:
+    """``derived_shape`` of ``name`` in ``unit``, kept by name for ``pressure_unit``."""
+    shape = (unit, *_template(derived_shape(name, unit, pressure_unit)))
+    _SHAPES[pressure_unit][name] = shape
+    return shape
+
+
+# The shapes of a partition's pressures (all mm[Hg]): the PaO2, the expected PaO2 and the fall,
+# then each part by its key (``pao2-expected``, ``pao2-fall`` and ``deficit-…`` are also the
+# Observation's component codes, so the two show one Quantity).
+_PARTITION_SHAPES = {
+    u: tuple(
+        _template(quantity_shape(n, "mm[Hg]", u)) for n in ("pao2", "pao2-expected", "pao2-fall")
+    )
+    for u in _PRESSURE_UNITS
+}
+_PART_SHAPES = {
     u: {
-        n: quantity_shape(n, "mm[Hg]", u)
-        for n in ("pao2", "pao2-expected", "pao2-fall", *_DEFICIT_NAMES.values())
+        k: (*_template(quantity_shape(n, "mm[Hg]", u)), DEFICIT_PARTS[k], _DEFICIT_CODE[k])
+        for k, n in _DEFICIT_NAMES.items()
     }
     for u in _PRESSURE_UNITS
 }
@@ -286,16 +330,21 @@ class _Links:
 
     __slots__ = ("addresses", "base", "described", "urls")
 
-    def __init__(self, decision_id: str, addresses: Mapping[str, Json]) -> None:
+    def __init__(
+        self, decision_id: str, addresses: Mapping[str, Json], first: tuple[str, ...] = ()
+    ) -> None:
+        """``first``: entries numbered from 1 at once, in order (distinct ids)."""
         # Entry URLs derive from the decision id (its last 12 hex digits replaced by the
         # entry's number), so a result is reproducible apart from it and needs no hashing.
         # A decision id in the canonical form (the service's own) is its own spelling;
         # any other goes through ``uuid`` (which refuses what is no UUID).
         canonical = _CANONICAL_UUID.fullmatch(decision_id) is not None
         prefix = (decision_id if canonical else str(uuid.UUID(decision_id)))[:24]
-        self.base = f"urn:uuid:{prefix}"
+        base = self.base = f"urn:uuid:{prefix}"
         self.addresses = addresses
-        self.urls: dict[str, str] = {}
+        self.urls: dict[str, str] = {
+            local_id: base + _ENTRY_NUMBERS[n] for n, local_id in enumerate(first, start=1)
+        }
         self.described: dict[str, Json] = {}
 
     def entry(self, local_id: str) -> str:
@@ -347,8 +396,8 @@ class _Quantities:
         # By the identity of the derived-values mapping (alive while rendering): its listed
         # parts, and each value's Quantity by name.
         self.listed_by: dict[int, tuple[list[Json], dict[str, Json]]] = {}
-        # By the identity of a shown partition: its Quantities.
-        self.partition: dict[int, tuple[list[Json], list[tuple[str, Json]]]] = {}
+        # By the identity of a shown partition: its parts and components.
+        self.partition: dict[int, tuple[list[Json], list[Json]]] = {}
 
     def listed(self, derived: dict[str, Derived]) -> tuple[list[Json], dict[str, Json]]:
         """The ``name``/``valueQuantity`` parts of ``derived`` in ``QUANTITY_ORDER``, and
@@ -357,75 +406,86 @@ class _Quantities:
         found = self.listed_by.get(key)
         if found is not None:
             return found
-        shapes, pressure_unit = self.shapes, self.pressure_unit
+        shapes, get = self.shapes, derived.get
         parts: list[Json] = []
         by_name: dict[str, Json] = {}
         for name in QUANTITY_ORDER:
-            d = derived.get(name)
+            d = get(name)
             if d is None:
                 continue
             unit = d.unit
             known = shapes.get(name)
             if known is None or known[0] != unit:
-                known = shapes[name] = (unit, derived_shape(name, unit, pressure_unit))
-            # As ``presentation.shaped``, inlined: this loop runs for every value shown.
-            decimals, shown, convert = known[1]
+                known = _shape(self.pressure_unit, name, unit)
+            # As ``presentation.shaped``, written out: this loop runs for every value shown.
+            _, decimals, scale, convert, template = known
             value = kpa_from_mmhg(d.value) if convert else d.value
-            rounded = round(value, decimals) + 0.0  # + 0.0: no negative zero
-            q = by_name[name] = {
-                "value": rounded if decimals else float(int(rounded)),
-                "unit": shown,
-                "system": UCUM,
-                "code": shown,
-            }
+            q = by_name[name] = template.copy()
+            q["value"] = display_round(value, decimals, scale)
             parts.append({"name": name, "valueQuantity": q})
         found = self.listed_by[key] = (parts, by_name)
         return found
 
-    def pressures(self, shown: ShownPartition) -> tuple[list[Json], list[tuple[str, Json]]]:
-        """The Quantities of a partition: [PaO2, expected PaO2, fall], and (part, Quantity)
-        of each part."""
+    def pressures(self, shown: ShownPartition) -> tuple[list[Json], list[Json]]:
+        """What a partition shows, each pressure rounded once: the ``deficit`` parameter's
+        parts from the assumed residence to the method, and the Observation's components
+        (the same Quantities)."""
         key = id(shown)
         found = self.partition.get(key)
         if found is not None:
             return found
-        shapes = _PRESSURE_SHAPES[self.pressure_unit]
         d = shown.partition
-        shown_parts = shown.parts
-        named = [
-            ("pao2", d.arterial_po2),
-            ("pao2-expected", d.expected_pao2),
-            ("pao2-fall", d.fall),
-        ]
-        named += [(_DEFICIT_NAMES[k], v) for k, v in shown_parts]
-        out: list[Json] = []
-        for name, mmhg in named:
-            # As ``presentation.shaped``, inlined.
-            decimals, unit, convert = shapes[name]
+        fixed: list[Json] = []
+        for (decimals, scale, convert, template), mmhg in zip(
+            _PARTITION_SHAPES[self.pressure_unit],
+            (d.arterial_po2, d.expected_pao2, d.fall),
+            strict=True,
+        ):
+            # As ``presentation.shaped``, written out.
             value = kpa_from_mmhg(mmhg) if convert else mmhg
-            rounded = round(value, decimals) + 0.0  # + 0.0: no negative zero
-            out.append(
-                {
-                    "value": rounded if decimals else float(int(rounded)),
-                    "unit": unit,
-                    "system": UCUM,
-                    "code": unit,
-                }
-            )
-        found = self.partition[key] = (
-            out[:3],
-            [(k, q) for (k, _), q in zip(shown_parts, out[3:], strict=True)],
-        )
+            q = template.copy()
+            q["value"] = display_round(value, decimals, scale)
+            fixed.append(q)
+        pao2, expected, fall = fixed
+        assumed = None if shown.residence is None else _assumed(shown.residence, shown.assumption)
+        parts: list[Json] = [] if assumed is None else list(assumed.parts)
+        parts += [
+            {"name": "pao2", "valueQuantity": pao2},
+            _BASIS_PART[shown.imputed],
+            {"name": "expected-pao2", "valueQuantity": expected},
+            {"name": "fall", "valueQuantity": fall},
+        ]
+        components = [
+            {"code": _DEFICIT_CODE["expected"], "valueQuantity": expected},
+            {"code": _DEFICIT_CODE["fall"], "valueQuantity": fall},
+        ]
+        shapes = _PART_SHAPES[self.pressure_unit]
+        for part, mmhg in shown.parts:
+            decimals, scale, convert, template, name, code = shapes[part]
+            value = kpa_from_mmhg(mmhg) if convert else mmhg
+            q = template.copy()
+            q["value"] = display_round(value, decimals, scale)
+            parts.append({"name": name, "valueQuantity": q})
+            components.append({"code": code, "valueQuantity": q})
+        parts.append({"name": "method", "valueString": shown.method})
+        if assumed is not None:
+            components.append(assumed.component)
+        found = self.partition[key] = (parts, components)
         return found
 
 
 def _mechanism_parameter(m: MechanismVerdict) -> Json:
+    code, grade = m.code, m.grade
     part: list[Json] = [
-        {"name": "code", "valueCode": m.code},
-        {"name": "grade", "valueCode": m.grade},
+        _MECHANISM_CODE_PART.get(code) or {"name": "code", "valueCode": code},
+        _GRADE_PART.get(grade) or {"name": "grade", "valueCode": grade},
         {"name": "rationale", "valueString": m.rationale},
     ]
-    part += [{"name": "rule", "valueString": rule} for rule in m.rules]
+    for rule in m.rules:
+        found = _RULE_PARTS.get(rule)
+        if found is None:
+            found = _kept(_RULE_PARTS, rule, {"name": "rule", "valueString": rule})
+        part.append(found)
     if m.discriminator:
         part.append({"name": "discriminator", "valueString": m.discriminator})
     part += [{"name": "trace", "valueString": line} for line in m.trace]
@@ -433,9 +493,13 @@ def _mechanism_parameter(m: MechanismVerdict) -> Json:
 
 
 def _finding_parameter(f: Finding, links: _Links) -> Json:
+    code, severity = f.code, f.severity
+    found = _FINDING_CODE_PARTS.get(code)
+    if found is None:
+        found = _kept(_FINDING_CODE_PARTS, code, {"name": "code", "valueCode": code})
     part: list[Json] = [
-        {"name": "code", "valueCode": f.code},
-        {"name": "severity", "valueCode": f.severity},
+        found,
+        _SEVERITY_PART.get(severity) or {"name": "severity", "valueCode": severity},
         {"name": "message", "valueString": f.message},
     ]
     if f.subject is not None:
@@ -476,16 +540,20 @@ def _paired(gas: GasFacts, links: _Links) -> list[Json]:
                 "valueReference": addresses.get(reference) or to_input(reference),
             },
         ]
-        if at is not None and m.time is not None:
-            before = {
-                "value": minutes_before(at - m.time),
-                "unit": "min",
-                "system": UCUM,
-                "code": "min",
-            }
-            item.append({"name": "taken-before-gas", "valueQuantity": before})
+        if at is not None and (taken := m.time) is not None:
+            offset = at - taken
+            item.append(_TAKEN_BEFORE.get(offset) or _taken_before(offset))
         out.append({"name": "paired", "part": item})
     return out
+
+
+def _taken_before(offset: timedelta) -> Json:
+    """The ``taken-before-gas`` part of a value taken ``offset`` before the gas (kept)."""
+    found = _TAKEN_BEFORE.get(offset)
+    if found is None:
+        before = {"value": minutes_before(offset), "unit": "min", "system": UCUM, "code": "min"}
+        found = _kept(_TAKEN_BEFORE, offset, {"name": "taken-before-gas", "valueQuantity": before})
+    return found
 
 
 def minutes_before(offset: timedelta) -> float:
@@ -511,18 +579,8 @@ def _deficit_parameter(
     part.append(_INDEX_PART[gas.index])
     if shown is None:
         part.append({"name": "not-computed", "valueString": gas.absent or "not computable"})
-        return {"name": "deficit", "part": part}
-    if shown.residence is not None:
-        part += _assumed(shown.residence, shown.assumption).parts
-    (pao2, expected, fall), parts = q.pressures(shown)
-    part += [
-        {"name": "pao2", "valueQuantity": pao2},
-        _BASIS_PART[shown.imputed],
-        {"name": "expected-pao2", "valueQuantity": expected},
-        {"name": "fall", "valueQuantity": fall},
-    ]
-    part += [{"name": DEFICIT_PARTS[key], "valueQuantity": value} for key, value in parts]
-    part.append({"name": "method", "valueString": shown.method})
+    else:
+        part += q.pressures(shown)[0]
     return {"name": "deficit", "part": part}
 
 
@@ -632,14 +690,38 @@ def _detected_issue(
     return issue
 
 
-def _derived_from(name: str, d: Derived, gas: GasFacts) -> list[str]:
-    """The input references behind a derived value: its own inputs, and with an FiO2
-    estimated from the device and the flow, the Observations of those."""
+def _fio2_estimate_references(gas: GasFacts) -> list[str]:
+    """With an FiO2 estimated from the device and the flow, the references of the
+    Observations it came from (else none)."""
+    if gas.fio2_source != "device-estimate":
+        return []
+    sources = gas.sources
+    return [s.reference for fact in _FIO2_ESTIMATE_FACTS for s in sources.get(fact, ())]
+
+
+def _derived_from(name: str, d: Derived, fio2_refs: list[str], links: _Links) -> list[Json]:
+    """The References to the inputs behind a derived value, each once: its own inputs, and
+    for a value that takes the FiO2, ``fio2_refs`` (``_fio2_estimate_references``)."""
     refs = [s.reference for s in d.inputs]
-    if gas.fio2_source == "device-estimate" and name in USES_FIO2:
-        for fact in _FIO2_ESTIMATE_FACTS:
-            refs += [s.reference for s in gas.sources.get(fact, ())]
-    return [r for r in dict.fromkeys(refs) if r]
+    if fio2_refs and name in USES_FIO2:
+        refs += fio2_refs
+    get, to_input = links.addresses.get, links.to_input
+    return [get(r) or to_input(r) for r in dict.fromkeys(refs) if r]
+
+
+# Each derived Observation's opening, copied for each value: the ``valueQuantity`` and
+# ``method`` keep their places and are set per value.
+_OBSERVATION_OPENING = {
+    name: {
+        "resourceType": "Observation",
+        "id": name,
+        "status": "final",
+        "code": code,
+        "valueQuantity": None,
+        "method": None,
+    }
+    for name, code in _OBSERVATION_CODE.items()
+}
 
 
 def _observation(
@@ -649,27 +731,23 @@ def _observation(
     about: Json,
     limit: tuple[Derived, Json] | None,
     links: _Links,
-    gas: GasFacts,
+    fio2_refs: list[str],
 ) -> Json:
     """A derived value as an Observation; ``limit`` is the room-air A-a gradient limit for age
-    and its Quantity (the A-a gradient is interpreted against it)."""
+    and its Quantity (the A-a gradient is interpreted against it); ``fio2_refs`` as
+    ``_derived_from`` takes them."""
     # No category: observation-category has none for a value computed from others (laboratory
     # would say a laboratory measured it).
-    obs: Json = {
-        "resourceType": "Observation",
-        "id": name,
-        "status": "final",
-        "code": _OBSERVATION_CODE[name],
-        "valueQuantity": value,
-        "method": {"text": d.method},
-        **about,
-    }
+    obs: Json = _OBSERVATION_OPENING[name].copy()
+    obs["valueQuantity"] = value
+    obs["method"] = {"text": d.method}
+    obs.update(about)
     if name == "aa-gradient" and limit is not None:
         obs["interpretation"] = _INTERPRETATION[d.value > limit[0].value]
         obs["referenceRange"] = [{"high": limit[1], "text": "room-air limit for age"}]
-    refs = _derived_from(name, d, gas)
+    refs = _derived_from(name, d, fio2_refs, links)
     if refs:
-        obs["derivedFrom"] = links.to_inputs(refs)
+        obs["derivedFrom"] = refs
     return obs
 
 
@@ -711,17 +789,7 @@ def _deficit_observation(shown: ShownPartition, about: Json, q: _Quantities, lin
     """The index gas's partition as an Observation: one component per part, in the requested
     pressure unit; ``derivedFrom`` the inputs; the method names the partition and sources."""
     code, display = DEFICIT_OBSERVATION
-    identifier = code if shown.residence is None else f"{code}-{shown.residence}"
-    # The same Quantities as the ``deficit`` parameter's: shown under the same decimals.
-    (_, expected, fall), parts = q.pressures(shown)
-    components = [
-        {"code": _DEFICIT_CODE["expected"], "valueQuantity": expected},
-        {"code": _DEFICIT_CODE["fall"], "valueQuantity": fall},
-    ]
-    components += [{"code": _DEFICIT_CODE[key], "valueQuantity": value} for key, value in parts]
-    assumed = None if shown.residence is None else _assumed(shown.residence, shown.assumption)
-    if assumed is not None:
-        components.append(assumed.component)
+    residence = shown.residence
     label = shown.pao2_label
     concept = _DEFICIT_CONCEPTS.get(label)
     if concept is None:
@@ -729,15 +797,16 @@ def _deficit_observation(shown: ShownPartition, about: Json, q: _Quantities, lin
         concept = _DEFICIT_CONCEPTS[label] = {"coding": _DEFICIT_OBSERVATION_CODING, "text": text}
     obs: Json = {
         "resourceType": "Observation",
-        "id": identifier,
+        "id": code if residence is None else f"{code}-{residence}",
         "status": "final",
         "code": concept,
         "method": {"text": shown.method},
         **about,
-        "component": components,
+        # The same Quantities as the ``deficit`` parameter's: shown under the same decimals.
+        "component": q.pressures(shown)[1],
     }
-    if assumed is not None:
-        obs["note"] = assumed.note
+    if residence is not None:
+        obs["note"] = _assumed(residence, shown.assumption).note
     refs = [r for r in dict.fromkeys([s.reference for s in shown.inputs]) if r]
     if refs:
         obs["derivedFrom"] = links.to_inputs(refs)
@@ -776,7 +845,8 @@ def _mechanism_observation(
         **about,
     }
     if derived_ids:
-        obs["derivedFrom"] = [links.to_entry(i) for i in derived_ids]
+        urls, entry = links.urls, links.entry
+        obs["derivedFrom"] = [{"reference": urls.get(i) or entry(i)} for i in derived_ids]
     return obs
 
 
@@ -817,12 +887,13 @@ def _derived_observations(
     if limit_value is not None:
         limit = (limit_value, shown_by_name["aa-gradient-upper-limit"])
     out: list[Json] = []
+    fio2_refs = _fio2_estimate_references(index_gas)
     for name in OBSERVATION_CODES:
         if (d := derived.get(name)) is not None:
             value = shown_by_name.get(name) or shaped(
                 d.value, derived_shape(name, d.unit, quantities.pressure_unit)
             )
-            out.append(_observation(name, d, value, about, limit, links, index_gas))
+            out.append(_observation(name, d, value, about, limit, links, fio2_refs))
     index = next((g for g in partitions if g.index), None)
     for shown in index.shown if index is not None else ():
         out.append(_deficit_observation(shown, about, quantities, links))
@@ -849,9 +920,7 @@ def render_bundle(
     ``settings_hash`` names them; ``addresses`` say how to point at each input resource
     (``Intake.addresses``); ``site`` is the label of the site file they came from (None:
     none)."""
-    links = _Links(a.decision_id, addresses or {})
-    for first in ("guidance", "result", "processing"):  # numbered in entry order
-        links.entry(first)
+    links = _Links(a.decision_id, addresses or {}, _FIRST_ENTRIES)
     requirements = _data_requirements(data_requirements)
     # More data was asked for only if some of it can be named as a FHIR data requirement.
     status = "success" if a.status == "data-requested" and not requirements else a.status
@@ -895,11 +964,13 @@ def render_bundle(
     resources += derived
     derived_ids = [r["id"] for r in derived]
     resources.append(_mechanism_observation(a, context, about, derived_ids, links))
-    entry = links.entry
+    urls, entry = links.urls, links.entry
     return {
         "resourceType": "Bundle",
         "type": "collection",
         "identifier": identifier,
         "timestamp": when,
-        "entry": [{"fullUrl": entry(r["id"]), "resource": r} for r in resources],
+        "entry": [
+            {"fullUrl": urls.get(i := r["id"]) or entry(i), "resource": r} for r in resources
+        ],
     }
