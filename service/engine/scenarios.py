@@ -93,6 +93,7 @@ def evaluate_scenarios(
     *,
     input_errors: Sequence[str] = (),
     ask: bool = True,
+    like: RuleRun | None = None,
 ) -> list[Scenario]:
     """One `Scenario` per (label, facts, only_for), each evaluated over its facts.
 
@@ -109,10 +110,13 @@ def evaluate_scenarios(
     a point of the ranges (``representative_counts`` false: pass ``ask`` true then) or when
     the representative is refuted and a scenario's verdict stands in for it; the latter is
     then decided again with them (``Scenario.complete``).
+
+    ``like`` is the representative's run, whose facts every scenario's mostly repeat: only the
+    facts that differ are checked and rounded again (``run_rules``).
     """
     made: list[tuple[Scenario, RuleRun]] = []
     for label, facts, only_for in scenarios:
-        run = run_rules(ruleset, facts)
+        run = run_rules(ruleset, facts, like=like)
         same = next(
             (s for s, r in made if s.only_for == only_for and r.same_states(run)),
             None,
