@@ -149,19 +149,16 @@ class RuleResult:
         """One line per condition: ``id@version: fact value op threshold → state``."""
         context = self.context
         made = context.lines
-        prefix = self.rule.ref + ": "
-        lines = []
-        for index in self.rule.condition.leaves:
-            text = made.get(index)
-            if text is None:
+        written = self.rule.condition.leaves
+        for index in written:
+            if index not in made:
                 leaf = context.leaves[index]
                 fact = leaf.fact
                 value = context.facts.get(fact)
                 after, missing = leaf.traced[context.states[index]]  # the fixed text, made once
-                text = missing if value is None else f"{fact} {shown_value(value)}{after}"
-                made[index] = text
-            lines.append(prefix + text)
-        return tuple(lines)
+                made[index] = missing if value is None else f"{fact} {shown_value(value)}{after}"
+        prefix = self.rule.ref + ": "
+        return tuple([prefix + made[index] for index in written])
 
     @property
     def missing(self) -> tuple[str, ...]:
