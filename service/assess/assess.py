@@ -18,7 +18,8 @@ from dataclasses import replace
 from datetime import UTC, datetime, timedelta
 
 from service.config import Settings
-from service.engine import Evaluation, Pattern, RuleSet, Severity, evaluate
+from service.engine import Evaluation, Pattern, RuleSet, Severity
+from service.engine.evaluate import run_rules
 from service.engine.rationale import Units
 from service.engine.scenarios import combine, evaluate_scenarios
 from service.engine.verdict import SEVERITY_RANK, MechanismAssessment, Verdict
@@ -223,7 +224,8 @@ def evaluate_gas(
         if ranges.representative
         else {**index.facts, **common}
     )
-    representative = evaluate(ruleset, facts, input_errors=input_errors)
+    run = run_rules(ruleset, facts)
+    representative = run.decided(input_errors)
     if not ranges.scenarios or not ranges.uncertainties:
         return representative, representative.verdict, ()
     scenarios = evaluate_scenarios(
@@ -235,6 +237,7 @@ def evaluate_gas(
         input_errors=input_errors,
         # Scenarios' data requests are read only when the representative is not counted.
         ask=not ranges.representative_counts,
+        like=run,
     )
     verdict = combine(
         representative,

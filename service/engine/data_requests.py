@@ -65,6 +65,7 @@ class DataRequests:
     ) -> None:
         """`ask` for each of `facts` in turn (one call for all the facts a rule asks for)."""
         known, asked = self._facts, self._asked
+        turned = self._turned
         for fact in facts:
             if fact in known:
                 if even_if_known:
@@ -74,7 +75,9 @@ class DataRequests:
                     if rule:
                         entry[0].add(rule)
                 continue
-            names = self._kept().get(fact)
+            if turned is None:
+                turned = self._kept()
+            names = turned.get(fact)
             if names is None:
                 names = self._requested(fact)
             for name in names:
@@ -138,5 +141,12 @@ class DataRequests:
         requests = []
         for fact in sorted(asked, key=self._positions.__getitem__):
             by, needed = asked[fact]
-            requests.append(DataRequest(fact, tuple(sorted(by)), tuple(sorted(needed))))
+            # Mostly one rule and one derived fact: a set of one needs no sorting.
+            requests.append(
+                DataRequest(
+                    fact,
+                    tuple(by) if len(by) < 2 else tuple(sorted(by)),
+                    tuple(needed) if len(needed) < 2 else tuple(sorted(needed)),
+                )
+            )
         return tuple(requests)

@@ -109,15 +109,24 @@ class RuleRun:
     (`same_states` says when; `scenarios.evaluate_scenarios` uses it).
     """
 
-    __slots__ = ("known", "leaf_states", "node_states", "rule_states", "ruleset")
+    __slots__ = ("known", "leaf_states", "node_states", "rule_states", "ruleset", "sent")
 
-    def __init__(self, ruleset: RuleSet, facts: Mapping[str, FactValue]) -> None:
+    def __init__(
+        self, ruleset: RuleSet, facts: Mapping[str, FactValue], like: "RuleRun | None" = None
+    ) -> None:
         # Checked, and a private copy (results render text later and must not see the
         # caller's edits), with every number a rule compares at its stated precision: rules
         # compare values as stated (a rationale rounds the numbers it shows itself).
         self.ruleset = ruleset
-        self.known: dict[str, FactValue] = ruleset.catalogue.stated(facts, ruleset.compared)  # type: ignore[assignment]
-        self.leaf_states, self.rule_states, self.node_states = ruleset.program.run(self.known)
+        catalogue, compared = ruleset.catalogue, ruleset.compared
+        # The facts as sent, a private copy: a run made ``like`` this one reads them again.
+        self.sent: dict[str, FactValue] = dict(facts)
+        if like is not None and like.ruleset is ruleset:
+            known = catalogue.restated(self.sent, compared, like.sent, like.known)
+        else:
+            known = catalogue.stated(self.sent, compared)
+        self.known: dict[str, FactValue] = known  # type: ignore[assignment]
+        self.leaf_states, self.rule_states, self.node_states = ruleset.program.run(known)
 
     def same_states(self, other: "RuleRun") -> bool:
         """Whether `other` ran the same rule set to the same leaf states over the same set
@@ -154,6 +163,12 @@ class RuleRun:
         return Evaluation(ruleset.identity, ruleset.content_hash, verdict, results)
 
 
-def run_rules(ruleset: RuleSet, facts: Mapping[str, FactValue]) -> RuleRun:
-    """Check and state `facts` and run every leaf test of `ruleset` (see `RuleRun`)."""
-    return RuleRun(ruleset, facts)
+def run_rules(
+    ruleset: RuleSet, facts: Mapping[str, FactValue], *, like: RuleRun | None = None
+) -> RuleRun:
+    """Check and state `facts` and run every leaf test of `ruleset` (see `RuleRun`).
+
+    With ``like``, an earlier run of the same rule set whose facts these mostly repeat (a
+    scenario of the representative's), only the facts that differ from its are checked and
+    rounded again (``FactCatalogue.restated``); the run is the same either way."""
+    return RuleRun(ruleset, facts, like)

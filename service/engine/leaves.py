@@ -10,7 +10,7 @@ from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
-from service.engine.logic import Operator, TruthValue
+from service.engine.logic import Operator, TruthValue, truth_of
 
 __all__ = ["FactTest", "Leaf", "Threshold", "leaf_test", "near", "shown_value"]
 
@@ -34,6 +34,9 @@ class Leaf:
     """The unit as a trace line shows it after a value (empty for none and for "1")."""
     shown_test: str = field(init=False, compare=False, repr=False)
     """The test as a trace line shows it: ``≤ 0 mm[Hg] (paco2_margin)``."""
+    traced: Mapping[TruthValue, tuple[str, str]] = field(init=False, compare=False, repr=False)
+    """By the leaf's state: its trace line after the value shown (`` mm[Hg] > 45 mm[Hg] →
+    true``, the unit included) and its whole line when the fact is missing."""
 
     def __post_init__(self) -> None:
         # Traces are part of every result: the fixed text of a leaf is built once, here.
@@ -51,6 +54,14 @@ class Leaf:
             named = f" ({', '.join(self.parameters)})" if self.parameters else ""
             test = f"{_SYMBOL.get(self.operator, self.operator.value)} {shown}{unit}{named}"
         object.__setattr__(self, "shown_test", test)
+        traced = {
+            state: (
+                f"{unit} {test} → {truth_of(state).value}",
+                f"{self.fact} missing {test} → {truth_of(state).value}",
+            )
+            for state in (True, False, None)
+        }
+        object.__setattr__(self, "traced", traced)
 
 
 _SYMBOL = {

@@ -111,6 +111,37 @@ class _ParameterSlot:
     text: str
 
 
+@dataclass(frozen=True, slots=True)
+class _FactSlot:
+    """A fact placeholder: the fact's catalogue entry, and what a number of it shown in its
+    catalogue unit needs (``format_quantity``'s format and unit text), worked out once."""
+
+    spec: FactSpec
+    quantity: bool
+    """Whether the fact is a quantity (its floats are shown by ``format_quantity``)."""
+    unit: str
+    """The catalogue unit (``1`` for none)."""
+    shape: str
+    """The format of its number: ``.1f`` for one decimal."""
+    suffix: str
+    """What follows the number in the catalogue unit: `` mmHg``, ``%`` or nothing."""
+
+    @classmethod
+    def of(cls, spec: FactSpec) -> "_FactSlot":
+        unit = spec.unit or "1"
+        suffix = _with_unit("", unit)  # the number's text, then this (``_with_unit``)
+        return cls(spec, spec.kind is FactKind.QUANTITY, unit, f".{spec.decimals}f", suffix)
+
+    def shown(self, value: float, units: Units) -> str:
+        """``format_quantity(value, decimals, unit, units)`` of a quantity's float."""
+        if units and self.unit in units:
+            return format_quantity(value, self.spec.decimals, self.unit, units)
+        text = format(value, self.shape)
+        if text[0] == "-" and float(text) == 0:
+            text = text[1:]  # as ``format_quantity``: no "-0.0"
+        return text + self.suffix
+
+
 # What a rationale shows for a fact that was not sent or could not be derived. The trace and
 # `explain` name the missing fact itself; a sentence for clinicians stays readable.
 NOT_KNOWN = "not known"
@@ -121,12 +152,12 @@ class Template:
     """A parsed rationale: literal text interleaved with fact slots."""
 
     source: str
-    parts: tuple[str | FactSpec | _ParameterSlot, ...]
+    parts: tuple[str | _FactSlot | _ParameterSlot, ...]
 
     @property
     def facts(self) -> tuple[str, ...]:
         """Names of the facts the template shows."""
-        return tuple(part.name for part in self.parts if isinstance(part, FactSpec))
+        return tuple(part.spec.name for part in self.parts if isinstance(part, _FactSlot))
 
     def render(self, facts: Mapping[str, float | bool | str], units: Units = NO_UNITS) -> str:
         """Fill the slots from `facts`, numbers in `units` where it names their unit."""
@@ -139,19 +170,20 @@ class Template:
             elif kind is _ParameterSlot:
                 append(_format_parameter(part.parameter, units) if units else part.text)  # type: ignore[union-attr]
             else:
-                assert isinstance(part, FactSpec)
-                value = facts.get(part.name)
+                assert isinstance(part, _FactSlot)
+                spec = part.spec
+                value = facts.get(spec.name)
                 if value is None:
                     append(NOT_KNOWN)
                     continue
                 if type(value) is float:
                     # As stated (``FactCatalogue.as_stated``); the engine rounds only the facts
                     # its rules compare, and rounding again changes nothing.
-                    value = round(value, part.decimals)
-                    if part.kind is FactKind.QUANTITY:  # ``format_value``'s usual case, direct
-                        append(format_quantity(value, part.decimals, part.unit or "1", units))
+                    value = round(value, spec.decimals)
+                    if part.quantity:  # ``format_value``'s usual case, direct
+                        append(part.shown(value, units))
                         continue
-                append(format_value(part, value, units))
+                append(format_value(spec, value, units))
         return "".join(out)
 
 
@@ -160,7 +192,7 @@ def compile_template(
 ) -> tuple[Template, list[tuple[str, str]]]:
     """Parse `text`; return the template and a list of (message, hint) problems."""
     problems: list[tuple[str, str]] = []
-    parts: list[str | FactSpec | _ParameterSlot] = []
+    parts: list[str | _FactSlot | _ParameterSlot] = []
     try:
         pieces = list(Formatter().parse(text))
     except ValueError as error:
@@ -179,7 +211,7 @@ def compile_template(
                 )
             )
         elif name in catalogue:
-            parts.append(catalogue[name])
+            parts.append(_FactSlot.of(catalogue[name]))
         elif name in parameters:
             parameter = parameters[name]
             parts.append(_ParameterSlot(parameter, _format_parameter(parameter)))
@@ -191,7 +223,7 @@ def compile_template(
                 )
             )
     # Adjacent literals are joined so rendering touches as few parts as possible.
-    merged: list[str | FactSpec | _ParameterSlot] = []
+    merged: list[str | _FactSlot | _ParameterSlot] = []
     for part in parts:
         if isinstance(part, str) and merged and isinstance(merged[-1], str):
             merged[-1] += part

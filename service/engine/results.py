@@ -19,9 +19,6 @@ from service.engine.ruleset import Outcome, Rule
 
 __all__ = ["EvaluationContext", "LeafTrace", "RuleResult", "TraceNode"]
 
-# A state as a trace line spells it (``Truth``'s values), without an enum lookup per line.
-_STATE_TEXT: dict[TruthValue, str] = {value: truth_of(value).value for value in (True, False, None)}
-
 
 @dataclass(frozen=True, slots=True)
 class EvaluationContext:
@@ -152,18 +149,16 @@ class RuleResult:
         """One line per condition: ``id@version: fact value op threshold → state``."""
         context = self.context
         made = context.lines
-        prefix = self.rule.ref + ": "
-        lines = []
-        for index in self.rule.condition.leaves:
-            text = made.get(index)
-            if text is None:
+        written = self.rule.condition.leaves
+        for index in written:
+            if index not in made:
                 leaf = context.leaves[index]
-                value = context.facts.get(leaf.fact)
-                seen = "missing" if value is None else f"{shown_value(value)}{leaf.shown_unit}"
-                state = _STATE_TEXT[context.states[index]]
-                text = made[index] = f"{leaf.fact} {seen} {leaf.shown_test} → {state}"
-            lines.append(prefix + text)
-        return tuple(lines)
+                fact = leaf.fact
+                value = context.facts.get(fact)
+                after, missing = leaf.traced[context.states[index]]  # the fixed text, made once
+                made[index] = missing if value is None else f"{fact} {shown_value(value)}{after}"
+        prefix = self.rule.ref + ": "
+        return tuple([prefix + made[index] for index in written])
 
     @property
     def missing(self) -> tuple[str, ...]:

@@ -23,7 +23,7 @@ assumed FiO2, for example). When every scenario has the error, it stands.
 """
 
 from collections.abc import Callable, Iterable, Mapping, Sequence
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, field
 
 from service.engine.data_requests import DataRequest
 from service.engine.evaluate import Evaluation, RuleRun, run_rules
@@ -93,6 +93,7 @@ def evaluate_scenarios(
     *,
     input_errors: Sequence[str] = (),
     ask: bool = True,
+    like: RuleRun | None = None,
 ) -> list[Scenario]:
     """One `Scenario` per (label, facts, only_for), each evaluated over its facts.
 
@@ -109,10 +110,13 @@ def evaluate_scenarios(
     a point of the ranges (``representative_counts`` false: pass ``ask`` true then) or when
     the representative is refuted and a scenario's verdict stands in for it; the latter is
     then decided again with them (``Scenario.complete``).
+
+    ``like`` is the representative's run, whose facts every scenario's mostly repeat: only the
+    facts that differ are checked and rounded again (``run_rules``).
     """
     made: list[tuple[Scenario, RuleRun]] = []
     for label, facts, only_for in scenarios:
-        run = run_rules(ruleset, facts)
+        run = run_rules(ruleset, facts, like=like)
         same = next(
             (s for s, r in made if s.only_for == only_for and r.same_states(run)),
             None,
@@ -172,13 +176,13 @@ def combine(
         pairs = [(s, s.evaluation.verdict.mechanisms[position]) for s in bearing]
         # A scenario that cannot assess the mechanism (a value beyond a model's range at the
         # end of a range) says nothing against the others.
-        graded = [(s, m) for s, m in pairs if m.grade is not Grade.NOT_ASSESSABLE] or pairs
+        graded = [pair for pair in pairs if pair[1].grade is not Grade.NOT_ASSESSABLE] or pairs
+        first = graded[0][1]
+        if all(m.grade is first.grade for _, m in graded):  # the usual case: they agree
+            mechanisms.append(shown if shown.grade is first.grade else first)
+            continue
         bearing = [s for s, _ in graded]
         found = [m for _, m in graded]
-        grades = [item.grade for item in found]
-        if all(g is grades[0] for g in grades):
-            mechanisms.append(shown if shown.grade is grades[0] else found[0])
-            continue
         bearing_on = [
             u for u in uncertainties if u.only_for is None or shown.mechanism in u.only_for
         ]
@@ -223,13 +227,14 @@ def combine(
             if fact not in known:
                 requested.append(DataRequest(fact, (), ()))
                 known.add(fact)
-    return replace(
-        verdict,
+    return Verdict(  # every field (``replace`` would look them up one by one)
         pattern=pattern,
         pattern_reason=reason,
         hypoxaemia=hypoxaemia,
-        gas_exchange=gas_exchange,
+        hypoxaemia_rules=verdict.hypoxaemia_rules,
         mechanisms=tuple(mechanisms),
         findings=findings,
         data_requested=tuple(requested),
+        gas_exchange=gas_exchange,
+        gas_exchange_rules=verdict.gas_exchange_rules,
     )

@@ -148,7 +148,11 @@ class MechanismAssessment:
             return (REPEAT_SAMPLE,)
         if self.uncertain_because is not None:
             return self.settled_by
-        found = (result.rule.discriminator for result in self.deciding)
+        deciding = self.deciding
+        if len(deciding) == 1:  # the usual case: one rule decided
+            only = deciding[0].rule.discriminator
+            return () if only is None else (only,)
+        found = (result.rule.discriminator for result in deciding)
         return tuple(dict.fromkeys(item for item in found if item is not None))
 
 
