@@ -172,7 +172,13 @@ def derive_again(
     found = gas.again.get(key)
     if found is None:
         found = derive_changed(
-            DERIVED_FACTS, gas.measured, base.facts, changes, DEFAULT_CATALOGUE, settings
+            DERIVED_FACTS,
+            gas.measured,
+            base.facts,
+            changes,
+            DEFAULT_CATALOGUE,
+            settings,
+            in_order=True,  # _derivation keeps the table's names in table order
         )
         if len(gas.again) >= _KEPT_SCENARIOS:
             gas.again.clear()
