@@ -73,7 +73,7 @@ _FIXED_NAMES = frozenset(
     | {"M", "E", "E0", "S", "C", "D", "PE", "pct", "spct", "dd", "u", "out", "value"}
     | {"method", "problem", "error", "try", "except", "as", "if", "else", "elif", "is"}
     | {"not", "None", "isinstance", "float", "bool", "str", "assert", "len", "and", "get"}
-    | {"return", "K"}
+    | {"return", "K", "P", "isdisjoint"}
 )
 _NUMBERED = re.compile(r"[vsancqpLHUr][0-9]+")
 
@@ -126,11 +126,25 @@ def write_table(steps: Sequence[TableStep], computed: type, derived: type) -> Ta
     read = {name for step in steps for name in step.reads}
     lines = ["def run(facts, sources, settings, filed, problems):", "    g = facts.get"]
     lines.append("    h = sources.get")
+    # A fact the table sets is usually not known before it (a scenario derived in full may
+    # bring one): when none is, each starts unknown without a look-up. Its observations are
+    # read only once it is known, so only a fact known before needs them looked up.
+    set_here = {step.name for step in steps}
+    namespace["P"] = frozenset(set_here)
+    unset, looked_up = ["    if P.isdisjoint(facts):"], ["    else:"]
     for name, i in index.items():
         namespace[f"n{i}"] = name
-        lines.append(f"    v{i} = g(n{i}, M)")
-        if name in read:
-            lines.append(f"    s{i} = h(n{i}, E0)")
+        if name in set_here:
+            unset.append(f"        v{i} = M")
+            looked_up.append(f"        v{i} = g(n{i}, M)")
+            if name in read:
+                looked_up.append(f"        s{i} = h(n{i}, E0)")
+        else:
+            lines.append(f"    v{i} = g(n{i}, M)")
+            if name in read:
+                lines.append(f"    s{i} = h(n{i}, E0)")
+    if set_here:
+        lines += unset + looked_up
     for j, step in enumerate(steps):
         for name in step.reads:
             if not name.isidentifier() or keyword.iskeyword(name) or name in _FIXED_NAMES:
