@@ -9,6 +9,8 @@ of deriving (every entry's general outcome, every union of observations de-dupli
 
 from __future__ import annotations
 
+import inspect
+from collections.abc import Callable
 from dataclasses import replace
 from datetime import timedelta
 from pathlib import Path
@@ -243,3 +245,26 @@ def test_each_windows_pairs_by_its_own_limits_when_two_alternate() -> None:
             inside = timedelta(minutes=20 if quantity is Q.SPO2 else 180) <= limit
             assert (quantity in gas.values) is inside
             assert (quantity in gas.out_of_window) is not inside
+
+
+@pytest.mark.parametrize("name", ["filed", "problems", "sources", "dd", "isdisjoint"])
+def test_a_parameter_the_table_cannot_write_is_refused(name: str) -> None:
+    # Names the step writer takes but the table's own source uses: the plan is refused
+    # rather than written with a keyword that could be read as one of its words.
+    table = DerivedTable()
+
+    def compute(**arguments: float) -> float:
+        return 1.0
+
+    entry = table.quantity("odd", "1", (0.0, 10.0), 1, "test: an odd parameter name")
+    fact = entry(_with_parameter(compute, name))
+    specs = {**_SPECS, name: FactSpec(name, FactKind.QUANTITY, "1", name, 0.0, 10.0)}
+    with pytest.raises(ValueError, match="cannot be written"):
+        derivation._plan((fact,), {**specs, "odd": fact.spec})
+
+
+def _with_parameter(compute: Callable[..., float], name: str) -> Callable[..., float]:
+    """``compute`` with one keyword-only parameter ``name`` in its signature."""
+    parameter = inspect.Parameter(name, inspect.Parameter.KEYWORD_ONLY, annotation=float)
+    compute.__signature__ = inspect.Signature([parameter])  # type: ignore[attr-defined]
+    return compute
