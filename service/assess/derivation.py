@@ -284,10 +284,10 @@ class _Plan:
     names: frozenset[str]
     distinct: bool
     """Whether no two entries share a name (what re-deriving part of a table relies on)."""
-    ordered: bool = False
+    ordered: bool
     """Whether no entry reads a fact that it or a later entry sets: what lets ``derive_changed``
     start from every kept value and compute again only the entries a change reaches."""
-    order: tuple[str, ...] = ()
+    order: tuple[str, ...]
     """The entries' names in table order."""
     reached: dict[frozenset[str], tuple[_Step, ...]] = field(default_factory=dict)
     """For a set of changed facts, the entries that read one of them or a fact set by an

@@ -10,6 +10,7 @@ of deriving (every entry's general outcome, every union of observations de-dupli
 from __future__ import annotations
 
 import inspect
+import math
 from collections.abc import Callable
 from dataclasses import replace
 from datetime import timedelta
@@ -18,8 +19,9 @@ from pathlib import Path
 import orjson
 import pytest
 
-from service.assess import derivation
+from service.assess import derivation, derive
 from service.assess.assess import windows
+from service.assess.catalogue import DEFAULT_CATALOGUE
 from service.assess.derivation import Derived, DerivedFact, DerivedTable, FactValue
 from service.assess.derive import derive_gas_facts
 from service.assess.pairing import Windows, pair_gases
@@ -149,6 +151,7 @@ def _in_full(
         ({"a": 1.0}, {"b": 2.0}),  # w and y appear before x and z
         ({"a": 1.0, "b": 2.0}, {"a": 1.0}),  # the measured value again: nothing computed
         ({"a": 1.0, "b": 2.0}, {"b": 5.0}),
+        ({"a": 60.0}, {"a": 3.0}),  # x appears with only what it needs known
     ],
 )
 @pytest.mark.parametrize("in_order", [True, False])
@@ -175,6 +178,17 @@ def test_a_scenario_derived_from_the_kept_values_is_the_scenario_derived_in_full
     else:  # only what reads a changed fact, directly or through another, is computed
         assert set(calls) <= {n for n, r in reads.items() if r & changed} | {"z"}
         assert "y" not in calls or "b" in changed
+
+
+def test_kept_values_are_taken_in_table_order_unless_the_caller_says_they_are() -> None:
+    entries = _small_table([])
+    specs = {**_SPECS, **{e.name: e.spec for e in entries}}
+    measured: dict[str, FactValue] = {"a": 1.0, "b": 2.0}
+    base = _in_full(entries, specs, measured, {})
+    kept = dict(reversed([(k, v) for k, v in base.items() if k not in measured]))
+    again = derivation.derive_changed(entries, measured, kept, {"b": 5.0}, specs, Settings())
+    assert list(again) == ["a", "b", "w", "x", "y", "z"]
+    assert again == _in_full(entries, specs, measured, {"b": 5.0})
 
 
 def test_a_table_that_reads_a_fact_set_after_it_is_derived_in_full() -> None:
@@ -268,3 +282,36 @@ def _with_parameter(compute: Callable[..., float], name: str) -> Callable[..., f
     parameter = inspect.Parameter(name, inspect.Parameter.KEYWORD_ONLY, annotation=float)
     compute.__signature__ = inspect.Signature([parameter])  # type: ignore[attr-defined]
     return compute
+
+
+_ODD_RANGES = [
+    FactSpec("low_open", FactKind.QUANTITY, "1", "test", -math.inf, 5.0),
+    FactSpec("high_open", FactKind.QUANTITY, "1", "test", 0.0, math.inf),
+    FactSpec("closed", FactKind.QUANTITY, "1", "test", -2.0, 5.0),
+    FactSpec("flag", FactKind.BOOLEAN, None, "test"),
+]
+
+
+@pytest.mark.parametrize(
+    "spec",
+    [*(DEFAULT_CATALOGUE[name] for name in DEFAULT_CATALOGUE), *_ODD_RANGES],
+    ids=lambda s: s.name,
+)
+def test_a_measured_float_is_accepted_unasked_only_where_its_entry_accepts_it(
+    spec: FactSpec,
+) -> None:
+    # The shortcut's range is the entry's own when both ends are finite, else empty: every
+    # float inside it is one FactSpec.problem accepts, and at its ends too.
+    low, high = derive._accepted(spec)
+    finite = (
+        spec.minimum is not None
+        and spec.maximum is not None
+        and math.isfinite(spec.minimum)
+        and math.isfinite(spec.maximum)
+    )
+    if not finite:
+        assert (low, high) == (math.inf, -math.inf)
+        return
+    assert (low, high) == (spec.minimum, spec.maximum)
+    for value in (low, (low + high) / 2.0, high):
+        assert spec.problem(float(value)) is None
