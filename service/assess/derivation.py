@@ -36,6 +36,7 @@ from service.intake.model import Source
 from service.physiology.units import from_fact_unit, to_fact_unit
 
 from .step_code import Outcome, Run, write_step
+from .table_code import TableRun, write_table
 
 __all__ = [
     "Computed",
@@ -50,9 +51,13 @@ __all__ = [
 SETTINGS = "settings"
 
 
-@dataclass(frozen=True, slots=True)
-class Computed:
-    """A computed value (canonical unit) with the method that produced it, for the result."""
+class Computed(msgspec.Struct, frozen=True, gc=False):
+    """A computed value (canonical unit) with the method that produced it, for the result.
+
+    A frozen msgspec Struct, as ``Derived`` below: about 20 computations a gas return one,
+    and a frozen dataclass's ``__init__`` (each field set through ``object.__setattr__``) was
+    several times the cost of the Struct's. It holds a number or a bool and a string, so no
+    cycle can run through it (``gc=False``)."""
 
     value: float | bool
     method: str
@@ -223,6 +228,20 @@ class _Step:
     """``_outcome`` of this step as one function written for it (``step_code``); the general
     path itself when the entry reads a fact the catalogue lacks."""
 
+    @property
+    def needed_order(self) -> tuple[str, ...]:
+        """The facts the computation needs, in its signature's order."""
+        return self.spec.inputs
+
+    @property
+    def unit(self) -> str | None:
+        return self.spec.unit
+
+    @property
+    def problem(self) -> Callable[[object], str | None]:
+        """Why the catalogue refuses a value (None: accepted)."""
+        return self.spec.problem
+
 
 def _unplanned(facts: Mapping[str, FactValue], settings: Settings) -> Outcome:
     raise AssertionError("a step is run only once planned")  # pragma: no cover
@@ -247,6 +266,16 @@ def _runner(step: _Step) -> Run:
     )
 
 
+def _unplanned_table(
+    facts: dict[str, Any],
+    sources: dict[str, Any],
+    settings: Any,
+    filed: dict[str, Any],
+    problems: list[str],
+) -> None:
+    raise AssertionError("a table is run only once planned")  # pragma: no cover
+
+
 @dataclass(frozen=True, slots=True)
 class _Plan:
     """The steps of one table against one catalogue."""
@@ -255,6 +284,16 @@ class _Plan:
     names: frozenset[str]
     distinct: bool
     """Whether no two entries share a name (what re-deriving part of a table relies on)."""
+    ordered: bool
+    """Whether no entry reads a fact that it or a later entry sets: what lets ``derive_changed``
+    start from every kept value and compute again only the entries a change reaches."""
+    order: tuple[str, ...]
+    """The entries' names in table order."""
+    reached: dict[frozenset[str], tuple[_Step, ...]] = field(default_factory=dict)
+    """For a set of changed facts, the entries that read one of them or a fact set by an
+    entry that does, in table order (worked out on first use)."""
+    table: TableRun = _unplanned_table
+    """The whole table as one written function (``table_code``): what ``_compute`` runs."""
 
 
 def _plan(entries: tuple[DerivedFact, ...], specs: Mapping[str, FactSpec]) -> _Plan:
@@ -287,7 +326,17 @@ def _plan(entries: tuple[DerivedFact, ...], specs: Mapping[str, FactSpec]) -> _P
         )
         steps[-1] = replace(steps[-1], run=_runner(steps[-1]))
     names = [step.name for step in steps]
-    return _Plan(tuple(steps), frozenset(names), len(set(names)) == len(names))
+    ordered = all(step.read_set.isdisjoint(names[index:]) for index, step in enumerate(steps))
+    table = write_table(steps, Computed, Derived)
+    return _Plan(
+        tuple(steps),
+        frozenset(names),
+        len(set(names)) == len(names),
+        ordered,
+        tuple(names),
+        {},
+        table,
+    )
 
 
 # Plans of the tables in use, by the identity of the table (a tuple) and the catalogue, each
@@ -381,37 +430,7 @@ def _compute(
 ) -> tuple[dict[str, Derived], list[str]]:
     filed: dict[str, Derived] = {}
     problems: list[str] = []
-    known = facts.keys()
-    source_of = sources.get
-    for step in plan.steps:
-        if not known >= step.needed:
-            continue
-        value, method, problem = step.run(facts, settings)
-        if problem is not None:
-            problems.append(f"{step.name}: {problem}")
-            continue
-        if value is None:
-            continue
-        found: tuple[Source, ...] = ()
-        for name in step.reads:
-            if name in facts:
-                found += source_of(name, ())
-        # One source needs no de-duplication (dict.fromkeys hashes every Source), and two
-        # need one comparison: dict.fromkeys keeps the first of two equal ones.
-        size = len(found)
-        if size < 2:
-            used = found
-        elif size == 2:
-            used = found if found[0] != found[1] else found[:1]
-        else:
-            used = tuple(dict.fromkeys(found))
-        facts[step.name] = value
-        sources[step.name] = used
-        result = step.result
-        if result is not None:  # only quantities are filed (see DerivedTable.flag)
-            unit = step.spec.unit
-            assert unit is not None and isinstance(value, float)
-            filed[result] = Derived(value, unit, method, used)
+    plan.table(facts, sources, settings, filed, problems)
     return filed, problems
 
 
@@ -429,6 +448,58 @@ def _same(a: object, b: object) -> bool:
     )
 
 
+_KEPT_REACHES = 64  # sets of changed facts per plan: the few inputs a scenario varies
+
+
+def _reached(plan: _Plan, changed: frozenset[str]) -> tuple[_Step, ...]:
+    """The entries of ``plan`` that read a fact of ``changed`` or one set by such an entry,
+    in table order: the only ones a change of ``changed`` can make compute anything else."""
+    found = plan.reached.get(changed)
+    if found is None:
+        touched = set(changed)
+        steps = []
+        for step in plan.steps:
+            if not touched.isdisjoint(step.read_set):
+                touched.add(step.name)
+                steps.append(step)
+        found = tuple(steps)
+        if len(plan.reached) >= _KEPT_REACHES:
+            plan.reached.clear()
+        plan.reached[changed] = found
+    return found
+
+
+def _again(
+    plan: _Plan,
+    facts: dict[str, FactValue],
+    derived: Mapping[str, FactValue],
+    changed: set[str],
+    settings: Settings,
+) -> bool:
+    """Compute again, in ``facts`` (which holds every kept value), each entry that reads a
+    fact of ``changed``, which grows by every fact whose value or presence that changes.
+    Returns whether a fact was added that ``derived`` lacks (``facts`` is then out of order)."""
+    known = facts.keys()
+    added = False
+    for step in _reached(plan, frozenset(changed)):
+        if changed.isdisjoint(step.read_set):
+            continue
+        name = step.name
+        before = derived.get(name, _MISSING)
+        value = None
+        if known >= step.needed:
+            value, _, _ = step.run(facts, settings)
+        if value is None:
+            if before is not _MISSING:
+                del facts[name]
+        else:
+            added = added or before is _MISSING
+            facts[name] = value
+        if not _same(_MISSING if value is None else value, before):
+            changed.add(name)
+    return added
+
+
 def derive_changed(
     entries: Iterable[DerivedFact],
     measured: Mapping[str, FactValue],
@@ -436,6 +507,8 @@ def derive_changed(
     changes: Mapping[str, FactValue],
     specs: Mapping[str, FactSpec],
     settings: Settings,
+    *,
+    in_order: bool = False,
 ) -> dict[str, FactValue]:
     """The facts ``compute_derived`` gives from ``measured`` with ``changes`` applied, given
     ``derived``, the facts it set from ``measured`` alone; problems are not reported.
@@ -443,30 +516,33 @@ def derive_changed(
     Each entry's outcome is a pure function of the facts it reads (and the settings), so only
     an entry that reads a fact whose value or presence changed is computed again; every other
     one keeps its value from ``derived``. Computing everything again gives the same facts
-    (``tests/assess/test_derivation.py`` compares the two).
+    (``tests/assess/test_derivation.py`` compares the two). ``in_order``: ``derived`` holds
+    only names the table sets, in table order (as ``compute_derived`` sets them), so it is
+    taken whole instead of name by name.
     """
     plan = _plan_of(entries, specs)
     facts = {**measured, **changes}
-    if not plan.distinct or not plan.names.isdisjoint(facts):
-        # An entry that overwrites an input or another entry: no shortcut, all again.
+    if not plan.distinct or not plan.ordered or not plan.names.isdisjoint(facts):
+        # An entry that overwrites an input or another entry, or reads a fact set after it:
+        # no shortcut, all again.
         _compute(plan, facts, {}, settings)
         return facts
     changed = {
         name for name, value in changes.items() if not _same(measured.get(name, _MISSING), value)
     }
-    known = facts.keys()
-    for step in plan.steps:
-        name = step.name
-        if changed.isdisjoint(step.read_set):
+    # Every kept value first, in table order: an entry the change does not reach keeps its
+    # own, and one it reaches is overwritten in place or dropped, which keeps the order.
+    if in_order:
+        facts.update(derived)
+    else:
+        for name in plan.order:
             if name in derived:
                 facts[name] = derived[name]
-            continue
-        before = derived.get(name, _MISSING)
-        value = None
-        if known >= step.needed:
-            value, _, _ = step.run(facts, settings)
-        if value is not None:
-            facts[name] = value
-        if not _same(_MISSING if value is None else value, before):
-            changed.add(name)
+    if changed and _again(plan, facts, derived, changed, settings):
+        # A fact set now and not before goes where the table sets it.
+        ordered = {**measured, **changes}
+        for name in plan.order:
+            if name in facts:
+                ordered[name] = facts[name]
+        return ordered
     return facts

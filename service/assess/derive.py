@@ -10,10 +10,12 @@ result reports (with nothing computed from it).
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 from datetime import date
 
 from service.config import Settings
+from service.engine.facts import FactSpec
 from service.intake.model import Patient, Quantity, Source
 from service.physiology.units import to_fact_unit
 
@@ -103,9 +105,20 @@ def age_years(birth: date, at: date) -> float:
 
 
 # The measured facts as ``_measured`` reads them, looked up once: (quantity, fact name, the
-# unit the catalogue presents it in, its catalogue entry), in the catalogue's order.
+# unit the catalogue presents it in, its catalogue entry, and the range inside which a float
+# is accepted without asking the entry), in the catalogue's order. The range is the entry's
+# own when it is finite (``FactSpec.problem`` then says None for a float inside it, as it
+# would), else empty, so that every value goes to ``FactSpec.problem``.
+def _accepted(spec: FactSpec) -> tuple[float, float]:
+    low, high = spec.minimum, spec.maximum  # None but for a quantity (FactSpec checks)
+    if low is None or high is None or not (math.isfinite(low) and math.isfinite(high)):
+        return math.inf, -math.inf
+    return low, high
+
+
 _MEASURED_PLAN = tuple(
-    (m.quantity, m.name, m.unit, DEFAULT_CATALOGUE[m.name]) for m in MEASURED_FACTS
+    (m.quantity, m.name, m.unit, DEFAULT_CATALOGUE[m.name], *_accepted(DEFAULT_CATALOGUE[m.name]))
+    for m in MEASURED_FACTS
 )
 
 
@@ -113,11 +126,15 @@ def _measured(out: GasFacts, patient: Patient | None, today: date) -> None:
     gas = out.gas
     values = gas.values
     facts, sources, problems = out.facts, out.sources, out.problems
-    for quantity, name, unit, spec in _MEASURED_PLAN:
+    for quantity, name, unit, spec, low, high in _MEASURED_PLAN:
         m = values.get(quantity)
         if m is None:
             continue
         value = m.value if isinstance(m.value, str) else to_fact_unit(m.value, unit)
+        if type(value) is float and low <= value <= high:
+            facts[name] = value  # what GasFacts.set_fact does with an accepted value
+            sources[name] = (m.source,)
+            continue
         # GasFacts.set_fact, with the catalogue entry looked up once.
         problem = spec.problem(value)
         if problem is not None:
@@ -172,7 +189,13 @@ def derive_again(
     found = gas.again.get(key)
     if found is None:
         found = derive_changed(
-            DERIVED_FACTS, gas.measured, base.facts, changes, DEFAULT_CATALOGUE, settings
+            DERIVED_FACTS,
+            gas.measured,
+            base.facts,
+            changes,
+            DEFAULT_CATALOGUE,
+            settings,
+            in_order=True,  # _derivation keeps the table's names in table order
         )
         if len(gas.again) >= _KEPT_SCENARIOS:
             gas.again.clear()

@@ -212,6 +212,20 @@ def _nearest(
 
 ByQuantity = dict[Quantity, list[Measurement]]
 
+# The window of every paired quantity for the last ``Windows`` seen (one per site's settings),
+# worked out once rather than by attribute name for each value of each gas.
+_LAST_LIMITS: list[tuple[Windows, dict[Quantity, timedelta | None]]] = []
+
+
+def _limits(windows: Windows) -> dict[Quantity, timedelta | None]:
+    """``windows.limit`` of every quantity of ``PAIRED``."""
+    last = _LAST_LIMITS[0] if _LAST_LIMITS else None
+    if last is not None and last[0] is windows:
+        return last[1]
+    found = {quantity: windows.limit(quantity) for quantity in PAIRED}
+    _LAST_LIMITS[:] = [(windows, found)]
+    return found
+
 
 def group_measurements(intake: Intake) -> tuple[ByQuantity, list[Measurement]]:
     """The usable measurements of ``intake`` by quantity, and the arterial-coded ones whose
@@ -236,7 +250,7 @@ def pair_at(
 ) -> PairedGas:
     """The values of the quantities ``only`` that describe the moment of ``anchor`` (or the
     time ``at``), by the same windows as a gas: a titration point's FiO2 and blood."""
-    return _pair_one(anchor, by_quantity, windows, only=only, at=at)
+    return _pair_one(anchor, by_quantity, windows, only=PAIRED & only, at=at)
 
 
 def pair_gases(intake: Intake, *, windows: Windows) -> Pairing:
@@ -266,16 +280,18 @@ def _pair_one(
     only: frozenset[Quantity] = PAIRED,
     at: datetime | None = None,
 ) -> PairedGas:
+    """The gas of ``anchor``: the values of the quantities ``only`` (of ``PAIRED``)."""
     gas = PairedGas(anchor=anchor)
     anchor_time = at if at is not None else anchor.time if anchor else None
     if anchor is not None:
         gas.values[anchor.quantity] = anchor
+    limits = _limits(windows)
     for quantity, candidates in by_quantity.items():
         if quantity in gas.values or quantity is Quantity.ARTERIAL_PO2:
             continue
-        if quantity not in PAIRED or quantity not in only:
+        if quantity not in only:
             continue
-        limit = windows.limit(quantity)
+        limit = limits[quantity]
         chosen, rejected, untimed = _nearest(candidates, anchor_time, limit)
         if quantity in SETTINGS:
             # The setting in force (charted before the gas) wins over one charted just after.

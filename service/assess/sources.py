@@ -8,9 +8,10 @@ provenance flags the data-quality rules read) so the result can say how the numb
 
 from __future__ import annotations
 
-from dataclasses import dataclass
 from datetime import timedelta
 from typing import TYPE_CHECKING
+
+import msgspec
 
 from service.config import Settings
 from service.exceptions import PhysiologyError
@@ -46,7 +47,12 @@ def _number(m: Measurement | None) -> float | None:
 
 
 def _sources(*found: Measurement | None) -> tuple[Source, ...]:
-    return tuple(m.source for m in found if m is not None)
+    # A loop, not a generator: in Python 3.11 a generator is a frame made and thrown away.
+    out: tuple[Source, ...] = ()
+    for m in found:
+        if m is not None:
+            out += (m.source,)
+    return out
 
 
 def barometric_pressure(out: GasFacts, settings: Settings) -> float:
@@ -85,11 +91,14 @@ def barometric_pressure(out: GasFacts, settings: Settings) -> float:
     return pb
 
 
-@dataclass(frozen=True, slots=True)
-class InspiredChoice:
+class InspiredChoice(msgspec.Struct, frozen=True, gc=False):
     """The FiO2 of one moment and how it was known: ``fio2`` None when it cannot be known;
     ``fio2_range`` the range of a device estimate (None when measured, set or assumed);
-    ``source`` a ``Fio2Source`` value; ``estimated`` True for a flow-based estimate."""
+    ``source`` a ``Fio2Source`` value; ``estimated`` True for a flow-based estimate.
+
+    A frozen msgspec Struct rather than a frozen dataclass, whose ``__init__`` sets each of
+    its seven fields through ``object.__setattr__``: one is made per gas. Numbers, strings
+    and tuples of ``Source`` (a Struct without gc) cannot form a cycle, hence ``gc=False``."""
 
     fio2: float | None
     fio2_range: tuple[float, float] | None

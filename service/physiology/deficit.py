@@ -76,6 +76,14 @@ def alveolar_bracket(*, fio2: float, respiratory_quotient: float) -> float:
     return fio2 + (1.0 - fio2) / respiratory_quotient
 
 
+# The reference's water vapour pressure (37 °C) and inspired PO2 (sea level, air): fixed
+# numbers, worked out once here by the same functions rather than on every partition.
+_PH2O_37_MMHG = water_vapour_pressure_mmhg(temperature_cel=c.NORMAL_BODY_TEMPERATURE_CEL)
+_REFERENCE_PIO2_MMHG = inspired_po2_mmhg(
+    fio2=c.ROOM_AIR_FIO2, barometric_mmhg=c.SEA_LEVEL_PRESSURE_MMHG, water_vapour_mmhg=_PH2O_37_MMHG
+)
+
+
 def partition_pao2_deficit(
     *,
     arterial_po2_mmhg: float,
@@ -98,13 +106,10 @@ def partition_pao2_deficit(
     """
     require_possible("arterial_po2_mmhg", arterial_po2_mmhg, *PARTIAL_PRESSURE_MMHG, "mm[Hg]")
     r = respiratory_quotient
-    ph2o_37 = water_vapour_pressure_mmhg(temperature_cel=c.NORMAL_BODY_TEMPERATURE_CEL)
-    ph2o = ph2o_37 if water_vapour_mmhg is None else water_vapour_mmhg
+    ph2o = _PH2O_37_MMHG if water_vapour_mmhg is None else water_vapour_mmhg
     expected = reference.expected_pao2_mmhg(age_years=age_years)
     ref_alveolar = reference.reference_alveolar_po2_mmhg(respiratory_quotient=r)
-    ref_pio2 = inspired_po2_mmhg(
-        fio2=c.ROOM_AIR_FIO2, barometric_mmhg=c.SEA_LEVEL_PRESSURE_MMHG, water_vapour_mmhg=ph2o_37
-    )
+    ref_pio2 = _REFERENCE_PIO2_MMHG
     pio2 = inspired_po2_mmhg(fio2=fio2, barometric_mmhg=barometric_mmhg, water_vapour_mmhg=ph2o)
     k = alveolar_bracket(fio2=fio2, respiratory_quotient=r)
     k_ref = alveolar_bracket(fio2=c.ROOM_AIR_FIO2, respiratory_quotient=r)
