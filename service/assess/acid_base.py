@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+from functools import lru_cache
 
 from service.physiology import acid_base as ab
 from service.physiology import constants as c
@@ -58,13 +59,23 @@ _HCO3_DIFFERENCE = (BICARBONATE_MMOL_L[0] - _HCO3_IMPLIED_MAX, BICARBONATE_MMOL_
     result="expected-hco3",
 )
 def expected_hco3_acute(*, arterial_pco2: float) -> Computed:
-    acute = ab.HCO3_PER_MMHG
-    rise, fall = acute[(ab.Chronicity.ACUTE, True)], acute[(ab.Chronicity.ACUTE, False)]
     return Computed(
         ab.expected_hco3_mmol_l(paco2_mmhg=arterial_pco2, chronicity=ab.Chronicity.ACUTE),
-        f"expected HCO3 for an acute respiratory change: {c.NORMAL_HCO3_MMOL_L:g} + {rise:g} per "
-        f"mmHg PaCO2 above {c.NORMAL_PACO2_MMHG:g} ({fall:g} per mmHg below)",
+        _ACUTE_METHOD,
     )
+
+
+def _acute_method() -> str:
+    acute = ab.HCO3_PER_MMHG
+    rise, fall = acute[(ab.Chronicity.ACUTE, True)], acute[(ab.Chronicity.ACUTE, False)]
+    return (
+        f"expected HCO3 for an acute respiratory change: {c.NORMAL_HCO3_MMOL_L:g} + {rise:g} per "
+        f"mmHg PaCO2 above {c.NORMAL_PACO2_MMHG:g} ({fall:g} per mmHg below)"
+    )
+
+
+# Fixed numbers make a fixed text: written once at import, not on every call.
+_ACUTE_METHOD = _acute_method()
 
 
 @table.quantity("expected_hco3_chronic", MMOL_L, _CHRONIC, 1, "Expected HCO3, chronic CO2 change")
@@ -110,9 +121,14 @@ def hco3_above_expected_chronic(
 def hco3_henderson_difference(
     *, arterial_ph: float, arterial_pco2: float, arterial_hco3: float
 ) -> float:
-    return ab.henderson_check(
-        ph=arterial_ph, paco2_mmhg=arterial_pco2, hco3_mmol_l=arterial_hco3
-    ).hco3_difference_mmol_l
+    return _henderson(arterial_ph, arterial_pco2, arterial_hco3).hco3_difference_mmol_l
+
+
+@lru_cache(maxsize=64)
+def _henderson(ph: float, paco2: float, hco3: float) -> ab.HendersonCheck:
+    """The Henderson check of one gas: both differences read it (cached, a pure function; an
+    impossible input raises, and a raise is never cached)."""
+    return ab.henderson_check(ph=ph, paco2_mmhg=paco2, hco3_mmol_l=hco3)
 
 
 @table.quantity(
@@ -125,9 +141,7 @@ def hco3_henderson_difference(
 def ph_henderson_difference(
     *, arterial_ph: float, arterial_pco2: float, arterial_hco3: float
 ) -> float:
-    return ab.henderson_check(
-        ph=arterial_ph, paco2_mmhg=arterial_pco2, hco3_mmol_l=arterial_hco3
-    ).ph_difference
+    return _henderson(arterial_ph, arterial_pco2, arterial_hco3).ph_difference
 
 
 @table.quantity(

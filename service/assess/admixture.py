@@ -7,6 +7,7 @@ from functools import lru_cache
 from service.config import Settings
 from service.physiology import constants as c
 from service.physiology import oxygen_content as oc
+from service.physiology.bounds import PH, require_possible
 from service.physiology.oxygen_affinity import OxygenAffinity, oxygen_affinity
 from service.physiology.saturation import saturation_from_po2
 
@@ -15,10 +16,37 @@ from .derivation import Computed, DerivedTable
 table = DerivedTable()
 
 
+@lru_cache(maxsize=64)
 def _curve(arterial_ph: float | None) -> OxygenAffinity | None:
     """The patient's dissociation curve at 37 °C (where the analyser reports the gases): the
-    standard curve shifted for the measured pH (Severinghaus 1979 eq. 4), or None without one."""
+    standard curve shifted for the measured pH (Severinghaus 1979 eq. 4), or None without one.
+    Cached: a pure function of the pH, which every scenario of a gas and every admixture fact
+    share (an impossible pH raises, and a raise is never cached)."""
     return None if arterial_ph is None else oxygen_affinity(ph=arterial_ph)
+
+
+@lru_cache(maxsize=64)
+def _curve_note(arterial_ph: float) -> str:
+    """How the SaO2 was found on the patient's curve at this pH (a fixed text per pH)."""
+    curve = _curve(arterial_ph)
+    assert curve is not None
+    return (
+        f"SaO2 from PaO2 on the patient's curve (Severinghaus, P50 {curve.p50_mmhg:.1f} "
+        f"mmHg for pH {arterial_ph:.2f}, eq. 4)"
+    )
+
+
+_MEASURED_NOTE = "measured saturation"
+_STANDARD_NOTE = "SaO2 from PaO2 on the standard curve (Severinghaus; no pH)"
+
+
+@lru_cache(maxsize=64)
+def _content_method(hufner: float, note: str, corrected: bool) -> str:
+    """The CaO2 method text: it depends only on the Hüfner factor (a setting), how the
+    saturation was found and whether COHb or MetHb corrected it, so it is written once."""
+    if corrected:
+        note += ", times (1 − COHb − MetHb)"
+    return f"CaO2 = {hufner:g} × Hb × SaO2 + {c.O2_SOLUBILITY_ML_DL_PER_MMHG:g} × PaO2 ({note})"
 
 
 def _carried(
@@ -52,20 +80,20 @@ def arterial_o2_content(
 ) -> Computed:
     # The functional saturation is the analyser's SaO2 or a co-oximeter's fractional O2Hb
     # divided by 1 − COHb − MetHb; times that factor again it is the measured O2Hb fraction.
-    curve = _curve(arterial_ph)
     if arterial_so2_functional is not None:
-        functional, note = arterial_so2_functional, "measured saturation"
-    elif curve is not None:
+        # A measured SaO2 needs no curve; a pH is still checked as the curve would check it,
+        # so that an impossible pH is refused on every path.
+        if arterial_ph is not None:
+            require_possible("ph", arterial_ph, *PH, "[pH]")
+        functional, note = arterial_so2_functional, _MEASURED_NOTE
+    elif arterial_ph is not None:
+        curve = _curve(arterial_ph)
+        assert curve is not None
         functional = curve.saturation(po2_mmhg=arterial_po2)
-        note = (
-            f"SaO2 from PaO2 on the patient's curve (Severinghaus, P50 {curve.p50_mmhg:.1f} "
-            f"mmHg for pH {arterial_ph:.2f}, eq. 4)"
-        )
+        note = _curve_note(arterial_ph)
     else:
         functional = saturation_from_po2(po2_mmhg=arterial_po2)
-        note = "SaO2 from PaO2 on the standard curve (Severinghaus; no pH)"
-    if carboxyhaemoglobin or methaemoglobin:
-        note += ", times (1 − COHb − MetHb)"
+        note = _STANDARD_NOTE
     hufner = settings.hufner_ml_per_g
     return Computed(
         oc.oxygen_content_ml_dl(
@@ -74,7 +102,7 @@ def arterial_o2_content(
             po2_mmhg=arterial_po2,
             hufner_ml_per_g=hufner,
         ),
-        f"CaO2 = {hufner:g} × Hb × SaO2 + {c.O2_SOLUBILITY_ML_DL_PER_MMHG:g} × PaO2 ({note})",
+        _content_method(hufner, note, bool(carboxyhaemoglobin or methaemoglobin)),
     )
 
 
@@ -157,7 +185,13 @@ def venous_admixture_fraction(
 
 
 def _label(fio2: float, venous: bool, difference: float | None) -> str:
-    kind = "shunt (on near-pure oxygen)" if fio2 >= c.TRUE_SHUNT_MIN_FIO2 else "venous admixture"
+    return _label_text(fio2 >= c.TRUE_SHUNT_MIN_FIO2, venous, difference)
+
+
+@lru_cache(maxsize=64)
+def _label_text(shunt: bool, venous: bool, difference: float | None) -> str:
+    # Written once per choice (and the a-v difference, a setting), not on every call.
+    kind = "shunt (on near-pure oxygen)" if shunt else "venous admixture"
     how = (
         "measured mixed-venous content"
         if venous
@@ -325,11 +359,19 @@ def _bound_at(end: int | None) -> object:
             oc.shunt_fraction_dissolved_bound(
                 aa_gradient_mmhg=aa_gradient, av_difference_ml_dl=difference
             ),
-            "dissolved-oxygen bound on near-pure oxygen: 0.003 × A-a / (0.003 × A-a + avd), "
-            f"avd {difference:g} mL/dL (no Hb needed)",
+            _bound_method(difference),
         )
 
     return compute
+
+
+@lru_cache(maxsize=16)
+def _bound_method(difference: float) -> str:
+    # Depends only on the a-v difference (a setting): written once, not on every call.
+    return (
+        "dissolved-oxygen bound on near-pure oxygen: 0.003 × A-a / (0.003 × A-a + avd), "
+        f"avd {difference:g} mL/dL (no Hb needed)"
+    )
 
 
 table.quantity(

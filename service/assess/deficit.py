@@ -80,11 +80,19 @@ def _of(
     )
 
 
-def _method(arterial_po2: float | None) -> str:
-    used = "PaO2" if arterial_po2 is not None else "PaO2 imputed from SpO2 (Brown 2016)"
+def _method_text(used: str) -> str:
     return (
         f"partition of the fall of {used} below the value expected for age (docs/clinical-logic.md)"
     )
+
+
+# The two method texts, written once: which one depends only on whether the PaO2 was measured.
+_MEASURED_METHOD = _method_text("PaO2")
+_IMPUTED_METHOD = _method_text("PaO2 imputed from SpO2 (Brown 2016)")
+
+
+def _method(arterial_po2: float | None) -> str:
+    return _MEASURED_METHOD if arterial_po2 is not None else _IMPUTED_METHOD
 
 
 @table.quantity(

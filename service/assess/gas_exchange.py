@@ -4,6 +4,8 @@ and the oxygenation ratios (their normal values: ``normals``). Every number come
 
 from __future__ import annotations
 
+from functools import lru_cache
+
 from service.config import Settings
 from service.physiology import constants as c
 from service.physiology import gas_exchange as gx
@@ -27,6 +29,10 @@ _DIFFERENCE = (-PARTIAL_PRESSURE_MMHG[1], PARTIAL_PRESSURE_MMHG[1])
     result="water-vapour-pressure",
 )
 def water_vapour_pressure() -> Computed:
+    return _WATER_VAPOUR
+
+
+def _water_vapour() -> Computed:
     # One convention for every number: the analyser reports PaO2 and PaCO2 at 37 Cel, and the
     # reference values (Cerveri 1995) were measured so; the alveolar gas equation takes the
     # water vapour pressure at the same temperature. Body temperature is not applied.
@@ -36,6 +42,10 @@ def water_vapour_pressure() -> Computed:
         f"IAPWS-IF97 saturation pressure at {at:g} Cel, the temperature the analyser reports "
         "PaO2 and PaCO2 at",
     )
+
+
+# It takes no input: worked out once at import (a frozen Struct, shared by every gas).
+_WATER_VAPOUR = _water_vapour()
 
 
 @table.quantity("inspired_po2", MMHG, _PRESSURE, 1, "Inspired PO2", result="inspired-po2")
@@ -86,8 +96,16 @@ def alveolar_po2(
             water_vapour_mmhg=water_vapour_pressure,
             respiratory_quotient=quotient,
         ),
+        _alveolar_method(quotient),
+    )
+
+
+@lru_cache(maxsize=16)
+def _alveolar_method(quotient: float) -> str:
+    # Depends only on R (a setting): written once, not on every call.
+    return (
         "alveolar gas equation, full form: PAO2 = FiO2 (PB − PH2O) − PaCO2 "
-        f"[FiO2 + (1 − FiO2)/R], R = {quotient:g}",
+        f"[FiO2 + (1 − FiO2)/R], R = {quotient:g}"
     )
 
 

@@ -41,10 +41,25 @@ SAME_PACO2_MMHG = 1.0
     result="pao2-expected",
 )
 def pao2_expected(*, age: float) -> Computed:
-    return Computed(
-        ref.expected_pao2_mmhg(age_years=age),
-        f"{ref.reference_method(age)}, PaCO2 40, BMI {ref.REFERENCE_BMI_KG_M2:g}",
-    )
+    value = ref.expected_pao2_mmhg(age_years=age)
+    return Computed(value, _EXPECTED_METHODS[ref.reference_method(age)])
+
+
+# The reference's method texts: one per age band (``reference_method``), each written once
+# here rather than on every call.
+_BAND_AGES = (
+    0.0,
+    ref.ADULT_REFERENCE_FROM_YEARS,
+    ref.CERVERI_STUDIED_FROM_YEARS,
+    ref.CERVERI_ELDERLY_FROM_YEARS,
+)
+_EXPECTED_METHODS = {
+    ref.reference_method(a): f"{ref.reference_method(a)}, PaCO2 40, BMI {ref.REFERENCE_BMI_KG_M2:g}"
+    for a in _BAND_AGES
+}
+_LOWER_LIMIT_METHODS = {
+    ref.reference_method(a): f"{ref.reference_method(a)}: 5th centile" for a in _BAND_AGES
+}
 
 
 @table.quantity(
@@ -56,10 +71,8 @@ def pao2_expected(*, age: float) -> Computed:
     result="pao2-lower-limit",
 )
 def pao2_lower_limit(*, age: float) -> Computed:
-    return Computed(
-        ref.pao2_lower_limit_mmhg(age_years=age),
-        f"{ref.reference_method(age)}: 5th centile",
-    )
+    value = ref.pao2_lower_limit_mmhg(age_years=age)
+    return Computed(value, _LOWER_LIMIT_METHODS[ref.reference_method(age)])
 
 
 @table.quantity(

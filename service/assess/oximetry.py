@@ -83,11 +83,14 @@ def sf_ratio(*, spo2: float, fio2: float) -> Computed:
 def imputed_pao2(*, spo2: float) -> Computed | None:
     if not 0.0 < spo2 <= c.IMPUTATION_MAX_SPO2:
         return None  # on the flat part of the curve (or no saturation): nothing to impute
-    return Computed(
-        saturation.impute_pao2_from_spo2(spo2=spo2),
-        "exact inverse of the Severinghaus 1979 curve (Brown 2016), "
-        f"SpO2 ≤ {c.IMPUTATION_MAX_SPO2 * 100:g} %",
-    )
+    return Computed(saturation.impute_pao2_from_spo2(spo2=spo2), _IMPUTED_METHOD)
+
+
+# Fixed numbers make a fixed text: written once at import, not on every call.
+_IMPUTED_METHOD = (
+    "exact inverse of the Severinghaus 1979 curve (Brown 2016), "
+    f"SpO2 ≤ {c.IMPUTATION_MAX_SPO2 * 100:g} %"
+)
 
 
 @table.flag(

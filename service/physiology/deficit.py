@@ -115,9 +115,11 @@ def partition_pao2_deficit(
     k_ref = alveolar_bracket(fio2=c.ROOM_AIR_FIO2, respiratory_quotient=r)
 
     def normal(alveolar: float) -> float:
-        return reference.normal_aa_gradient(
-            age_years=age_years, alveolar_po2_mmhg=alveolar, respiratory_quotient=r
-        ).expected
+        # Only the expected gradient is read: the same number as ``normal_aa_gradient``'s
+        # ``expected``, without working out the upper limit beside it.
+        return reference.normal_aa_gradient_mmhg(
+            age_years=age_years, alveolar_po2_mmhg=alveolar, respiratory_quotient=r, limit=False
+        )
 
     # The alveolar PO2 this person would have at the PaCO2 expected here, and the normal A-a
     # gradient that goes with it.

@@ -21,10 +21,6 @@ from service.physiology.bounds import (
 from service.physiology.units import FIO2_LIMITS
 
 
-def _check_fio2(fio2: float) -> None:
-    require_possible("fio2", fio2, *FIO2_LIMITS, "1")
-
-
 def inspired_po2_mmhg(
     *,
     fio2: float,
@@ -39,7 +35,7 @@ def inspired_po2_mmhg(
     Raises:
         ImpossibleValueError: FiO2 outside 0.10–1.0, PB outside 150–1200 mmHg, or PH2O ≥ PB.
     """
-    _check_fio2(fio2)
+    require_possible("fio2", fio2, *FIO2_LIMITS, "1")
     require_possible("barometric_mmhg", barometric_mmhg, *PRESSURE_BAROMETRIC_MMHG, "mm[Hg]")
     require_possible("water_vapour_mmhg", water_vapour_mmhg, 0.0, barometric_mmhg, "mm[Hg]")
     return fio2 * (barometric_mmhg - water_vapour_mmhg)
@@ -192,7 +188,7 @@ def pf_ratio_mmhg(*, arterial_po2_mmhg: float, fio2: float) -> float:
     Source: ARDS Definition Task Force (Berlin), JAMA 2012;307:2526 — bands 300 / 200 / 100.
     """
     require_possible("arterial_po2_mmhg", arterial_po2_mmhg, *PARTIAL_PRESSURE_MMHG, "mm[Hg]")
-    _check_fio2(fio2)
+    require_possible("fio2", fio2, *FIO2_LIMITS, "1")
     return arterial_po2_mmhg / fio2
 
 
@@ -212,7 +208,7 @@ def sf_ratio(*, spo2: float, fio2: float) -> float:
     Chest 2007;132:410 and the 2024 global ARDS definition do.
     """
     require_possible("spo2", spo2, 0.0, 1.0, "1")
-    _check_fio2(fio2)
+    require_possible("fio2", fio2, *FIO2_LIMITS, "1")
     return spo2 * 100.0 / fio2
 
 
@@ -267,7 +263,7 @@ def lowest_barometric_for_pao2(
     Solving the full alveolar gas equation for PB: PB = (PaO2 − tol + PaCO2 k) / FiO2 + PH2O,
     k = FiO2 + (1 − FiO2)/R. Bounds an assumed (unknown) pressure from below.
     """
-    _check_fio2(fio2)
+    require_possible("fio2", fio2, *FIO2_LIMITS, "1")
     require_possible("paco2_mmhg", paco2_mmhg, *PARTIAL_PRESSURE_MMHG, "mm[Hg]")
     k = fio2 + (1.0 - fio2) / respiratory_quotient
     return (arterial_po2_mmhg - tolerance_mmhg + paco2_mmhg * k) / fio2 + water_vapour_mmhg
