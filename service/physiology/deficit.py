@@ -33,7 +33,7 @@ from dataclasses import dataclass
 from service.physiology import constants as c
 from service.physiology import reference
 from service.physiology.bounds import PARTIAL_PRESSURE_MMHG, require_possible
-from service.physiology.gas_exchange import alveolar_po2_mmhg, inspired_po2_mmhg
+from service.physiology.gas_exchange import inspired_po2_mmhg
 from service.physiology.water_vapour import water_vapour_pressure_mmhg
 
 
@@ -84,6 +84,13 @@ _REFERENCE_PIO2_MMHG = inspired_po2_mmhg(
 )
 
 
+def _alveolar(pio2: float, paco2_mmhg: float, k: float) -> float:
+    """``alveolar_po2_mmhg`` from its inspired PO2 and bracket, already worked out (and their
+    inputs checked): PIO2 − PaCO2 × k, with the PaCO2 checked as there."""
+    require_possible("paco2_mmhg", paco2_mmhg, *PARTIAL_PRESSURE_MMHG, "mm[Hg]")
+    return pio2 - paco2_mmhg * k
+
+
 def partition_pao2_deficit(
     *,
     arterial_po2_mmhg: float,
@@ -122,14 +129,10 @@ def partition_pao2_deficit(
         )
 
     # The alveolar PO2 this person would have at the PaCO2 expected here, and the normal A-a
-    # gradient that goes with it.
-    setting_alveolar = alveolar_po2_mmhg(
-        fio2=fio2,
-        paco2_mmhg=expected_paco2_mmhg,
-        barometric_mmhg=barometric_mmhg,
-        water_vapour_mmhg=ph2o,
-        respiratory_quotient=r,
-    )
+    # gradient that goes with it. PIO2 − PaCO2 × k is ``alveolar_po2_mmhg`` term for term (the
+    # same expressions, so the same number); its FiO2, PB, PH2O and R were checked above (R by
+    # the reference's alveolar PO2), so only the PaCO2 is checked here.
+    setting_alveolar = _alveolar(pio2, expected_paco2_mmhg, k)
     setting_normal_aa = normal(setting_alveolar)
     inspired = (
         (ref_pio2 - pio2)
@@ -146,13 +149,7 @@ def partition_pao2_deficit(
             gas_exchange=None,
             unattributed=fall - inspired,
         )
-    alveolar = alveolar_po2_mmhg(
-        fio2=fio2,
-        paco2_mmhg=paco2_mmhg,
-        barometric_mmhg=barometric_mmhg,
-        water_vapour_mmhg=ph2o,
-        respiratory_quotient=r,
-    )
+    alveolar = _alveolar(pio2, paco2_mmhg, k)
     normal_aa = normal(alveolar)
     # A PaCO2 away from the expected value moves the alveolar PO2 by ΔPaCO2 × k, and the
     # normal A-a gradient with it: ventilation takes both, so that the parts add up exactly.
