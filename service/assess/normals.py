@@ -312,6 +312,18 @@ _ROOM_AIR_METHOD = (
 )
 
 
+def _room_air_method(measured_hb: bool, ph: bool) -> str:
+    hb = "measured Hb" if measured_hb else "Hb 14 g/dL assumed"
+    curve = ", the curve moved for the pH (Severinghaus 1979)" if ph else ""
+    return f"{_ROOM_AIR_METHOD}; {hb}{curve}"
+
+
+# The four method texts (Hb measured or assumed, a pH or none), written once at import.
+_ROOM_AIR_METHODS = {
+    (hb, ph): _room_air_method(hb, ph) for hb in (False, True) for ph in (False, True)
+}
+
+
 @table.quantity(
     "room_air_pao2",
     MMHG,
@@ -343,9 +355,7 @@ def room_air_pao2(
     )
     if found is None:
         return None
-    hb = "measured Hb" if haemoglobin is not None else "Hb 14 g/dL assumed"
-    curve = ", the curve moved for the pH (Severinghaus 1979)" if arterial_ph is not None else ""
-    return Computed(found[0], f"{_ROOM_AIR_METHOD}; {hb}{curve}")
+    return Computed(found[0], _ROOM_AIR_METHODS[haemoglobin is not None, arterial_ph is not None])
 
 
 @table.quantity(
