@@ -91,28 +91,23 @@ class ObservationReader:
         if concept is None and (usual or "component" not in resource):
             self._ignore_unknown(codings, at)
             return []
-        time = self._time(resource, at, usual)
-        if usual and concept is not None:  # (usual, an unknown code was ignored above)
-            return self._usual_value(resource, at, concept, time, reference)
-        return self._values(resource, at, concept, codings, time, reference)
-
-    def _usual_value(
-        self,
-        resource: JsonObject,
-        at: str,
-        concept: Concept,
-        time: datetime | None,
-        reference: str,
-    ) -> list[Measurement]:
-        """The value of a usual Observation: no component, and valueQuantity the only value[x]
-        it can have (read directly when it is an object and the quantity is not coded)."""
+        # The time: a usual effectiveDateTime seen before in this Bundle is taken as parsed
+        # then (``_time``, which parses and keeps it, or reads any other shape located).
+        sent = resource.get("effectiveDateTime")
+        time = self._times.get(sent) if usual and type(sent) is str else None
+        if time is None:
+            time = self._time(resource, at, usual)
+        if not usual or concept is None:  # (usual, an unknown code was ignored above)
+            return self._values(resource, at, concept, codings, time, reference)
+        # The value of a usual Observation: no component, and valueQuantity the only value[x]
+        # it can have (read directly when it is an object and the quantity is not coded).
         q = resource.get("valueQuantity")
         if type(q) is dict and concept.quantity not in CODED:
-            reading = read_quantity(q, at, concept, self.out, key="valueQuantity")
+            reading = read_quantity(q, at, concept, out, key="valueQuantity")
         elif "valueQuantity" in resource:
-            reading = _value(resource, at, concept, self.out)
+            reading = _value(resource, at, concept, out)
         else:
-            self.out.issue("observation-ignored", Severity.INFORMATION, "no value sent", at)
+            out.issue("observation-ignored", Severity.INFORMATION, "no value sent", at)
             return []
         return self._measured(reading, resource, at, at, concept, time, reference)
 
