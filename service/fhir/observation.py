@@ -14,7 +14,7 @@ because the sender cannot say whether the value stands. Any other status refuses
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field, replace
+from dataclasses import replace
 from datetime import datetime
 
 from service.fhir import codes as fhir_codes
@@ -54,7 +54,6 @@ _USUAL_ELEMENTS = frozenset(
 _USED = fhir_codes.OBSERVATION_STATUS_USED
 
 
-@dataclass(slots=True)
 class ObservationReader:
     """Reads Observations of one Bundle; shares the Bundle index and the issue collector.
 
@@ -67,16 +66,21 @@ class ObservationReader:
     of ``service.fhir.extract``.)
     """
 
-    out: Collector
-    index: BundleIndex
-    concept_map: LocalCodeMap | None = None
-    _specimens: dict[str, tuple[Specimen, bool]] = field(default_factory=dict)
-    _times: dict[str, datetime] = field(default_factory=dict)
+    __slots__ = ("_specimens", "_times", "concept_map", "index", "out")
+
+    def __init__(
+        self, out: Collector, index: BundleIndex, concept_map: LocalCodeMap | None = None
+    ) -> None:
+        # A plain __init__: one reader is made per Bundle, and a dataclass's default
+        # factories cost about twice as much.
+        self.out, self.index, self.concept_map = out, index, concept_map
+        self._specimens: dict[str, tuple[Specimen, bool]] = {}
+        self._times: dict[str, datetime] = {}
 
     def read(self, resource: JsonObject, at: str, reference: str) -> list[Measurement]:
         """The measurements of the Observation at ``at`` (``Bundle.entry[i].resource``)."""
         out = self.out
-        usual = resource.keys() <= _USUAL_ELEMENTS
+        usual = _USUAL_ELEMENTS.issuperset(resource)  # (faster than keys() <=)
         if not usual and refuse_modifiers(resource, at, out, resource=True):
             return []
         status = resource.get("status")

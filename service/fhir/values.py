@@ -129,7 +129,7 @@ def read_quantity(
     # the quantity takes, with the UCUM system, no comparator, a unit text (if any) not
     # blank, possible once converted. Anything else, and a value the conversion or the
     # possible range refuses, is read below, which records what is wrong and where.
-    if q.keys() <= _USUAL_QUANTITY:
+    if _USUAL_QUANTITY.issuperset(q):
         sent, unit = q.get("value"), q.get("code")
         if (
             (type(sent) is float or type(sent) is int)
