@@ -69,12 +69,18 @@ def _identifier(resource: Mapping[str, object]) -> Json | None:
     return None
 
 
+_WEB = ("http://", "https://")  # how every RESTful URL starts: tested before the pattern
+
+
 def of_entry(kind: str, full_url: str | None, resource: Mapping[str, object], where: str) -> Json:
     """The Reference to the resource of an input entry (``where`` says which, in words)."""
     if full_url is not None:
-        if restful_base(full_url) is not None:
-            return {"reference": version_independent(full_url), "type": kind}
-        if _ABSOLUTE.match(full_url):
+        # One match gives both the test and the version-independent URL (``restful_base``,
+        # ``version_independent``); a fullUrl such as urn:uuid needs none.
+        match = RESTFUL.match(full_url) if full_url.startswith(_WEB) else None
+        if match is not None:
+            return {"reference": f"{match.group(1)}{match.group(2)}/{match.group(3)}", "type": kind}
+        if full_url.startswith("urn:") or _ABSOLUTE.match(full_url):  # "urn:" is absolute
             return {"type": kind, "identifier": {"system": URI_SYSTEM, "value": full_url}}
     return _described(kind, resource, where)
 

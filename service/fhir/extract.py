@@ -122,7 +122,9 @@ def read_bundle(
     out = Collector()
     # Bundle.type is 1..1 in FHIR: a Bundle without one is refused, not guessed at.
     refuse_modifiers(bundle, "Bundle", out, resource=True)
-    kind = text(bundle, "type", "Bundle", out, required=True)
+    kind = bundle.get("type")
+    if type(kind) is not str or kind not in codes.BUNDLE_TYPES:  # not the usual shape
+        kind = text(bundle, "type", "Bundle", out, required=True)
     if kind is not None and kind not in codes.BUNDLE_TYPES:
         out.problem("code-invalid", "not an R4 Bundle type", "Bundle.type")
     index = BundleIndex()
@@ -217,7 +219,9 @@ def _within_limits(bundle: JsonObject, limit: int) -> None:
         count = len(entries)
         for i, item in enumerate(entries):
             resource = item.get("resource") if type(item) is dict else None
-            components = resource.get("component") if type(resource) is dict else None
+            if type(resource) is not dict or "component" not in resource:
+                continue  # most entries: no components to count
+            components = resource["component"]
             if isinstance(components, list):
                 count += len(components)
                 if count > limit:
@@ -368,9 +372,13 @@ class _Subjects:
         self._agree(("entry", self.index.resolve(reference)), entry, "")
 
     def observation(self, entry: _Entry) -> None:
-        reference = subject_reference(entry.resource) or self._located_reference(entry)
-        if reference is None:
-            return
+        # ``subject_reference``, written out (once per Observation): the usual shape first.
+        subject = entry.resource.get("subject")
+        reference = subject.get("reference") if type(subject) is dict else None
+        if type(reference) is not str or not reference.strip():
+            reference = self._located_reference(entry)
+            if reference is None:
+                return
         key = self._keys.get(reference)
         if key is None:
             key = self._keys[reference] = self._key_of(reference)

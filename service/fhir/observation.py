@@ -14,7 +14,7 @@ because the sender cannot say whether the value stands. Any other status refuses
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field, replace
+from dataclasses import replace
 from datetime import datetime
 
 from service.fhir import codes as fhir_codes
@@ -54,7 +54,6 @@ _USUAL_ELEMENTS = frozenset(
 _USED = fhir_codes.OBSERVATION_STATUS_USED
 
 
-@dataclass(slots=True)
 class ObservationReader:
     """Reads Observations of one Bundle; shares the Bundle index and the issue collector.
 
@@ -67,16 +66,21 @@ class ObservationReader:
     of ``service.fhir.extract``.)
     """
 
-    out: Collector
-    index: BundleIndex
-    concept_map: LocalCodeMap | None = None
-    _specimens: dict[str, tuple[Specimen, bool]] = field(default_factory=dict)
-    _times: dict[str, datetime] = field(default_factory=dict)
+    __slots__ = ("_specimens", "_times", "concept_map", "index", "out")
+
+    def __init__(
+        self, out: Collector, index: BundleIndex, concept_map: LocalCodeMap | None = None
+    ) -> None:
+        # A plain __init__: one reader is made per Bundle, and a dataclass's default
+        # factories cost about twice as much.
+        self.out, self.index, self.concept_map = out, index, concept_map
+        self._specimens: dict[str, tuple[Specimen, bool]] = {}
+        self._times: dict[str, datetime] = {}
 
     def read(self, resource: JsonObject, at: str, reference: str) -> list[Measurement]:
         """The measurements of the Observation at ``at`` (``Bundle.entry[i].resource``)."""
         out = self.out
-        usual = resource.keys() <= _USUAL_ELEMENTS
+        usual = _USUAL_ELEMENTS.issuperset(resource)  # (faster than keys() <=)
         if not usual and refuse_modifiers(resource, at, out, resource=True):
             return []
         status = resource.get("status")
@@ -91,28 +95,23 @@ class ObservationReader:
         if concept is None and (usual or "component" not in resource):
             self._ignore_unknown(codings, at)
             return []
-        time = self._time(resource, at, usual)
-        if usual and concept is not None:  # (usual, an unknown code was ignored above)
-            return self._usual_value(resource, at, concept, time, reference)
-        return self._values(resource, at, concept, codings, time, reference)
-
-    def _usual_value(
-        self,
-        resource: JsonObject,
-        at: str,
-        concept: Concept,
-        time: datetime | None,
-        reference: str,
-    ) -> list[Measurement]:
-        """The value of a usual Observation: no component, and valueQuantity the only value[x]
-        it can have (read directly when it is an object and the quantity is not coded)."""
+        # The time: a usual effectiveDateTime seen before in this Bundle is taken as parsed
+        # then (``_time``, which parses and keeps it, or reads any other shape located).
+        sent = resource.get("effectiveDateTime")
+        time = self._times.get(sent) if usual and type(sent) is str else None
+        if time is None:
+            time = self._time(resource, at, usual)
+        if not usual or concept is None:  # (usual, an unknown code was ignored above)
+            return self._values(resource, at, concept, codings, time, reference)
+        # The value of a usual Observation: no component, and valueQuantity the only value[x]
+        # it can have (read directly when it is an object and the quantity is not coded).
         q = resource.get("valueQuantity")
         if type(q) is dict and concept.quantity not in CODED:
-            reading = read_quantity(q, at, concept, self.out, key="valueQuantity")
+            reading = read_quantity(q, at, concept, out, key="valueQuantity")
         elif "valueQuantity" in resource:
-            reading = _value(resource, at, concept, self.out)
+            reading = _value(resource, at, concept, out)
         else:
-            self.out.issue("observation-ignored", Severity.INFORMATION, "no value sent", at)
+            out.issue("observation-ignored", Severity.INFORMATION, "no value sent", at)
             return []
         return self._measured(reading, resource, at, at, concept, time, reference)
 

@@ -9,7 +9,6 @@ the Bundle.
 from __future__ import annotations
 
 import re
-from dataclasses import dataclass, field
 
 from service.fhir.shape import JsonObject
 
@@ -27,7 +26,6 @@ def type_and_id(reference: str) -> str | None:
     return None if match is None else f"{match.group(1)}/{match.group(2)}"
 
 
-@dataclass(slots=True)
 class BundleIndex:
     """The resources of a Bundle by ``fullUrl`` and by ``Type/id``.
 
@@ -37,12 +35,24 @@ class BundleIndex:
     reference to the first entry (the Patient, usually) never parses the fullUrls.
     """
 
-    resources: dict[int, JsonObject] = field(default_factory=dict)
-    _by_full_url: dict[str, int] = field(default_factory=dict)
-    _by_own_type_id: dict[str, int] = field(default_factory=dict)
-    _full_urls: list[tuple[int, str]] = field(default_factory=list)
-    _by_full_url_type_id: dict[str, int] = field(default_factory=dict)
-    _parsed: int = 0  # how many of ``_full_urls`` have been parsed into the dict above
+    __slots__ = (
+        "_by_full_url",
+        "_by_full_url_type_id",
+        "_by_own_type_id",
+        "_full_urls",
+        "_parsed",
+        "resources",
+    )
+
+    def __init__(self) -> None:
+        # A plain __init__: one is made per Bundle read, and a dataclass's default
+        # factories cost about twice as much.
+        self.resources: dict[int, JsonObject] = {}
+        self._by_full_url: dict[str, int] = {}
+        self._by_own_type_id: dict[str, int] = {}
+        self._full_urls: list[tuple[int, str]] = []
+        self._by_full_url_type_id: dict[str, int] = {}
+        self._parsed = 0  # how many of ``_full_urls`` have been parsed into the dict above
 
     def add(
         self, entry: int, resource: JsonObject, full_url: str | None, own: str | None = None

@@ -12,7 +12,7 @@ import math
 from typing import cast
 
 from service.fhir.outcome import BundleError, IssueType, Problem, condensed, error
-from service.intake.limits import DEFAULT_READ_LIMITS, condensed_issues
+from service.intake.limits import DEFAULT_READ_LIMITS, REPEATS, condensed_issues
 from service.intake.model import IntakeIssue, Severity
 
 JsonObject = dict[str, object]
@@ -44,6 +44,8 @@ class Collector:
 
     def listed_issues(self, limit: int = DEFAULT_READ_LIMITS.max_issues) -> list[IntakeIssue]:
         """The issues to report: repeats counted, at most ``limit`` listed."""
+        if len(self.issues) <= REPEATS:  # none repeated more than listed, under any limit
+            return list(self.issues)
         return condensed_issues(self.issues, limit)
 
 

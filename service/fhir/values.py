@@ -129,7 +129,7 @@ def read_quantity(
     # the quantity takes, with the UCUM system, no comparator, a unit text (if any) not
     # blank, possible once converted. Anything else, and a value the conversion or the
     # possible range refuses, is read below, which records what is wrong and where.
-    if q.keys() <= _USUAL_QUANTITY:
+    if _USUAL_QUANTITY.issuperset(q):
         sent, unit = q.get("value"), q.get("code")
         if (
             (type(sent) is float or type(sent) is int)
@@ -149,8 +149,14 @@ def read_quantity(
             except (UnitError, ImpossibleValueError):
                 pass
             else:
-                if out_of_range(quantity, canonical) is None:
-                    return _settled(value, unit, canonical, reinterpreted, quantity, out, at, key)
+                if out_of_range(quantity, canonical) is None:  # ``_settled``, inline
+                    canonical, sent_value, sent_unit, issue = settle(
+                        value, unit, canonical, reinterpreted, quantity
+                    )
+                    if issue is not None:
+                        where = at if key is None else f"{at}.{key}"
+                        out.issue("unit-converted", issue[0], issue[1], where)
+                    return Reading(canonical, sent_value, sent_unit)
     return _located_quantity(q, at if key is None else f"{at}.{key}", concept, out)
 
 
