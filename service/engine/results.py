@@ -157,7 +157,7 @@ class RuleResult:
                 value = context.facts.get(fact)
                 after, missing = leaf.traced[context.states[index]]  # the fixed text, made once
                 made[index] = missing if value is None else f"{fact} {shown_value(value)}{after}"
-        prefix = self.rule.ref + ": "
+        prefix = self.rule.trace_prefix
         return tuple([prefix + made[index] for index in written])
 
     @property
