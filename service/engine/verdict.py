@@ -418,6 +418,8 @@ def decide_states(
     demotion = _demotion(findings, facts, input_errors)
     requests = DataRequests(facts, catalogue) if ask else _UNASKED
     mechanisms: list[MechanismAssessment] = []
+    deciding: tuple[RuleResult, ...]
+    losing: tuple[RuleResult, ...]
     for (mechanism, grading), states_of in zip(plan.mechanisms, plan.grading_states, strict=True):
         graded_states = states_of(states)
         count = graded_states.count(True)  # states are True, False or None: counts only True
