@@ -90,6 +90,21 @@ def _specimen_flags(pairing: Pairing) -> dict[str, FactValue]:
 
 
 def _mechanism(item: MechanismAssessment, units: Units) -> MechanismVerdict:
+    deciding = item.deciding
+    if len(deciding) == 1 and item.demoted_because is None and item.uncertain_because is None:
+        # The usual case, one rule decided and nothing said beside it: the rule's own
+        # rationale, discriminator and trace lines, as the general way below joins them.
+        only = deciding[0]
+        rule = only.rule
+        found = rule.discriminator
+        return MechanismVerdict(
+            item.mechanism,
+            item.grade,
+            only.rationale_in(units),
+            (rule.ref,),
+            None if found is None else found.text or None,
+            only.trace_lines,
+        )
     discriminators = " ".join(d.text for d in item.discriminators)
     return MechanismVerdict(
         code=item.mechanism,

@@ -164,13 +164,12 @@ class Template:
         out: list[str] = []
         append = out.append
         for part in self.parts:
-            kind = type(part)  # exact types: literals are str, slots are made here
-            if kind is str:
-                append(part)  # type: ignore[arg-type]
-            elif kind is _ParameterSlot:
-                append(_format_parameter(part.parameter, units) if units else part.text)  # type: ignore[union-attr]
-            else:
-                assert isinstance(part, _FactSlot)
+            # exact types: literals are str, slots are made here
+            if type(part) is str:
+                append(part)
+            elif type(part) is _ParameterSlot:
+                append(_format_parameter(part.parameter, units) if units else part.text)
+            elif type(part) is _FactSlot:
                 spec = part.spec
                 value = facts.get(spec.name)
                 if value is None:

@@ -156,8 +156,13 @@ class RuleResult:
                 fact = leaf.fact
                 value = context.facts.get(fact)
                 after, missing = leaf.traced[context.states[index]]  # the fixed text, made once
-                made[index] = missing if value is None else f"{fact} {shown_value(value)}{after}"
-        prefix = self.rule.ref + ": "
+                if value is None:
+                    made[index] = missing
+                elif type(value) is float:  # ``shown_value`` of a float, direct
+                    made[index] = f"{fact} {value:.4g}{after}"
+                else:
+                    made[index] = f"{fact} {shown_value(value)}{after}"
+        prefix = self.rule.trace_prefix
         return tuple([prefix + made[index] for index in written])
 
     @property

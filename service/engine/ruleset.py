@@ -113,11 +113,14 @@ class Rule:
     """True for `testing` rules: evaluated and reported, never part of the verdict."""
     ref: str = field(init=False, compare=False, repr=False)
     """`id@version`, the way results cite a rule."""
+    trace_prefix: str = field(init=False, compare=False, repr=False)
+    """`id@version: `, what each of the rule's trace lines starts with."""
 
     def __post_init__(self) -> None:
-        # Precomputed: both are read for every rule on every evaluation.
+        # Precomputed: these are read for every rule on every evaluation.
         object.__setattr__(self, "shadow", self.status is RuleStatus.TESTING)
         object.__setattr__(self, "ref", f"{self.id}@{self.version}")
+        object.__setattr__(self, "trace_prefix", f"{self.id}@{self.version}: ")
 
 
 @dataclass(frozen=True, slots=True)

@@ -166,10 +166,16 @@ def combine(
     verdicts = [s.evaluation.verdict for s in general] or [verdict]
     mechanisms: list[MechanismAssessment] = []
     asked: list[Discriminator] = []
+    # Scenarios that bear on some mechanisms only are rare: without them, every mechanism's
+    # bearing scenarios are the general ones.
+    some_only = any(s.only_for is not None for s in standing)
     for position, shown in enumerate(verdict.mechanisms):
-        bearing = shown_point + [
-            s for s in standing if s.only_for is None or shown.mechanism in s.only_for
-        ]
+        bearing = (
+            shown_point
+            + [s for s in standing if s.only_for is None or shown.mechanism in s.only_for]
+            if some_only
+            else general
+        )
         if not bearing:
             mechanisms.append(shown)
             continue

@@ -206,26 +206,16 @@ class Verdict:
         return self.assessment(mechanism).grade
 
 
-def _assess(
-    mechanism: Mechanism,
-    fired: Sequence[tuple[int, MechanismOutcome]],
-    result_of: Callable[[int], RuleResult],
-    demotion: str | None,
-) -> MechanismAssessment:
-    """The grade of a mechanism some rules fired for (`fired` in rule order, not empty)."""
-    deciding: tuple[RuleResult, ...]
-    losing: tuple[RuleResult, ...]
-    if len(fired) == 1:  # the usual case: one rule fired, it decides
-        position, outcome = fired[0]
-        grade, deciding, losing = outcome.grade, (result_of(position),), ()
-    else:
-        best = min([outcome.priority for _, outcome in fired])
-        grade = next(outcome.grade for _, outcome in fired if outcome.priority == best)
-        deciding = tuple([result_of(p) for p, outcome in fired if outcome.priority == best])
-        losing = tuple([result_of(p) for p, outcome in fired if outcome.priority != best])
-    if demotion is not None and grade is _LIKELY:
-        return MechanismAssessment(mechanism, _POSSIBLE, deciding, losing, demotion)
-    return MechanismAssessment(mechanism, grade, deciding, losing)
+def _graded(
+    fired: Sequence[tuple[int, MechanismOutcome]], result_of: Callable[[int], RuleResult]
+) -> tuple[Grade, tuple[RuleResult, ...], tuple[RuleResult, ...]]:
+    """The grade, deciding and losing results of a mechanism several rules fired for
+    (`fired` in rule order)."""
+    best = min([outcome.priority for _, outcome in fired])
+    grade = next(outcome.grade for _, outcome in fired if outcome.priority == best)
+    deciding = tuple([result_of(p) for p, outcome in fired if outcome.priority == best])
+    losing = tuple([result_of(p) for p, outcome in fired if outcome.priority != best])
+    return grade, deciding, losing
 
 
 def _stated(
@@ -300,16 +290,14 @@ def _demotion(
     return "; ".join(reasons) if reasons else None
 
 
-def _unassessed(
-    mechanism: Mechanism,
+def _missing(
     grading: Sequence[tuple[int, MechanismOutcome]],
     states: Sequence[TruthValue],
     refs: Sequence[str],
     undecided_of: Callable[[int], tuple[str, ...]],
     requests: DataRequests,
-) -> MechanismAssessment:
-    """A mechanism no rule fired for, with the missing facts that keep its rules unknown
-    (each asked for)."""
+) -> tuple[str, ...]:
+    """The missing facts that keep a mechanism's unknown rules unknown (each asked for)."""
     undecided: dict[str, None] = {}
     for position, _ in grading:
         if states[position] is None:
@@ -317,9 +305,7 @@ def _unassessed(
             if missing:
                 undecided.update(dict.fromkeys(missing))
                 requests.ask_all(missing, refs[position])
-    if not undecided:
-        return _UNASSESSED[mechanism]
-    return MechanismAssessment(mechanism, _NOT_ASSESSABLE, undecided=tuple(undecided))
+    return tuple(undecided)
 
 
 def _undecided_from(result_of: Callable[[int], RuleResult]) -> Callable[[int], tuple[str, ...]]:
@@ -361,9 +347,9 @@ class _Unasked(DataRequests):
 _UNASKED = _Unasked()
 
 
-def _ask_discriminators(assessment: MechanismAssessment, requests: DataRequests) -> None:
+def _ask_discriminators(deciding: Sequence[RuleResult], requests: DataRequests) -> None:
     """A `possible` grade: what its deciding rules say would settle it, known or not."""
-    for result in assessment.deciding:
+    for result in deciding:
         rule = result.rule
         if rule.discriminator is not None:
             requests.ask_all(rule.discriminator.requests, rule.ref, even_if_known=True)
@@ -432,31 +418,39 @@ def decide_states(
     demotion = _demotion(findings, facts, input_errors)
     requests = DataRequests(facts, catalogue) if ask else _UNASKED
     mechanisms: list[MechanismAssessment] = []
+    deciding: tuple[RuleResult, ...]
+    losing: tuple[RuleResult, ...]
     for (mechanism, grading), states_of in zip(plan.mechanisms, plan.grading_states, strict=True):
         graded_states = states_of(states)
         count = graded_states.count(True)  # states are True, False or None: counts only True
-        if not count:
-            mechanisms.append(_unassessed(mechanism, grading, states, refs, undecided_of, requests))
+        if not count:  # no rule fired: not assessable, naming what was missing
+            undecided = _missing(grading, states, refs, undecided_of, requests)
+            mechanisms.append(
+                MechanismAssessment(mechanism, _NOT_ASSESSABLE, undecided=undecided)
+                if undecided
+                else _UNASSESSED[mechanism]
+            )
             continue
-        if count == 1:
-            fired = [grading[graded_states.index(True)]]
+        if count == 1:  # the usual case: one rule fired, it decides
+            position, outcome = grading[graded_states.index(True)]
+            grade, deciding, losing = outcome.grade, (result_of(position),), ()
         else:
             fired = [pair for pair, state in zip(grading, graded_states, strict=True) if state]
-        assessment = _assess(mechanism, fired, result_of, demotion)
-        if assessment.grade is _NOT_ASSESSABLE:
+            grade, deciding, losing = _graded(fired, result_of)
+        if grade is _NOT_ASSESSABLE:
             # A rule said why the data cannot speak; still ask for what would let them.
-            missing = _unassessed(mechanism, grading, states, refs, undecided_of, requests)
-            if missing.undecided:
-                assessment = MechanismAssessment(
-                    mechanism,
-                    _NOT_ASSESSABLE,
-                    assessment.deciding,
-                    assessment.losing,
-                    undecided=missing.undecided,
-                )
+            undecided = _missing(grading, states, refs, undecided_of, requests)
+            assessment = MechanismAssessment(
+                mechanism, grade, deciding, losing, undecided=undecided
+            )
+        elif grade is _LIKELY and demotion is not None:
+            assessment = MechanismAssessment(mechanism, _POSSIBLE, deciding, losing, demotion)
+            _ask_discriminators(deciding, requests)
+        else:
+            assessment = MechanismAssessment(mechanism, grade, deciding, losing)
+            if grade is _POSSIBLE:
+                _ask_discriminators(deciding, requests)
         mechanisms.append(assessment)
-        if assessment.grade is _POSSIBLE:
-            _ask_discriminators(assessment, requests)
     pattern, reason = pattern_of(demotion, hypoxaemia, gas_exchange, mechanisms)
     if pattern is Pattern.NOT_CLASSIFIABLE and requests.empty:
         requests.ask_all(REPEAT_SAMPLE.requests, "", even_if_known=True)  # by the verdict itself
