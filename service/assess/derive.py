@@ -20,7 +20,7 @@ from service.intake.model import Patient, Quantity, Source
 from service.physiology.units import to_fact_unit
 
 from .catalogue import AGE, DEFAULT_CATALOGUE, MEASURED_FACTS
-from .derivation import Derived, FactValue, compute_derived, derive_changed
+from .derivation import Derived, FactValue, compute_derived, derive_changed, prepare_table
 from .derived import DERIVED_FACTS
 from .pairing import PairedGas
 from .sources import barometric_pressure, inspired_oxygen_fraction
@@ -148,6 +148,11 @@ def _measured(out: GasFacts, patient: Patient | None, today: date) -> None:
     if patient is not None and patient.birth_date is not None:
         at = gas.time.date() if gas.time else today
         out.set_fact(AGE, age_years(patient.birth_date, at))
+
+
+def prepare() -> None:
+    """Write the derived-fact table's code now (see ``derivation.prepare_table``)."""
+    prepare_table(DERIVED_FACTS, DEFAULT_CATALOGUE)
 
 
 def derive_gas_facts(
