@@ -213,6 +213,33 @@ def _copies(sources: dict[str, tuple[Source, ...]]) -> dict[str, tuple[Source, .
     }
 
 
+def files_what_the_long_way_files(
+    facts: dict[str, FactValue], sources: dict[str, tuple[Source, ...]], settings: Settings
+) -> None:
+    """The plan's ``_compute`` and the long way, each on its own copy of ``facts`` and
+    ``sources``, set the same facts and sources in the same order and file equal records."""
+    fast_facts, fast_sources = dict(facts), dict(sources)
+    fast = derivation._compute(PLAN, fast_facts, fast_sources, settings)
+    long_facts, long_sources = dict(facts), dict(sources)
+    expected = _compute_the_long_way(long_facts, long_sources, settings)
+    assert list(fast_facts) == list(long_facts)
+    assert all(_same(fast_facts[k], long_facts[k]) for k in fast_facts)
+    assert fast_sources == long_sources
+    assert fast[1] == expected[1]
+    assert list(fast[0]) == list(expected[0])
+    for name, record in fast[0].items():
+        other = expected[0][name]
+        assert type(record) is Derived
+        assert _same(record.value, other.value)
+        assert (record.unit, record.method, record.inputs) == (
+            other.unit,
+            other.method,
+            other.inputs,
+        )
+        assert record == other and hash(record) == hash(other)
+        assert repr(record) == repr(other)
+
+
 @pytest.mark.parametrize("path", FIXTURES, ids=lambda p: p.name)
 def test_the_loop_files_what_the_long_way_files(path: Path) -> None:
     settings = Settings()
@@ -221,26 +248,7 @@ def test_the_loop_files_what_the_long_way_files(path: Path) -> None:
         derived = derive_gas_facts(gas, patient=data.patient, settings=settings, today=T0.date())
         for facts in _variants(derived.measured):
             for sources in (dict(derived.measured_sources), _copies(derived.measured_sources)):
-                fast_facts, fast_sources = dict(facts), dict(sources)
-                fast = derivation._compute(PLAN, fast_facts, fast_sources, settings)
-                long_facts, long_sources = dict(facts), dict(sources)
-                expected = _compute_the_long_way(long_facts, long_sources, settings)
-                assert list(fast_facts) == list(long_facts)
-                assert all(_same(fast_facts[k], long_facts[k]) for k in fast_facts)
-                assert fast_sources == long_sources
-                assert fast[1] == expected[1]
-                assert list(fast[0]) == list(expected[0])
-                for name, record in fast[0].items():
-                    other = expected[0][name]
-                    assert type(record) is Derived
-                    assert _same(record.value, other.value)
-                    assert (record.unit, record.method, record.inputs) == (
-                        other.unit,
-                        other.method,
-                        other.inputs,
-                    )
-                    assert record == other and hash(record) == hash(other)
-                    assert repr(record) == repr(other)
+                files_what_the_long_way_files(facts, sources, settings)
 
 
 def test_a_record_set_through_its_slots_is_the_classes_own() -> None:

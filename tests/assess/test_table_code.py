@@ -22,16 +22,22 @@ import pytest
 from service.assess import derivation, derive
 from service.assess.assess import windows
 from service.assess.catalogue import DEFAULT_CATALOGUE
-from service.assess.derivation import Derived, DerivedFact, DerivedTable, FactValue
+from service.assess.derivation import DerivedFact, DerivedTable, FactValue
 from service.assess.derive import derive_gas_facts
-from service.assess.pairing import Windows, pair_gases
+from service.assess.pairing import pair_gases
 from service.config import Settings
 from service.engine.facts import FactKind, FactSpec
 from service.fhir.extract import read_bundle
 from service.intake.model import Quantity as Q
 
 from .builders import T0, intake, m
-from .test_step_code import FIXTURES, PLAN, _compute_the_long_way, _copies, _same, _variants
+from .test_pairing import WINDOWS as WIDE
+from .test_step_code import (
+    FIXTURES,
+    _copies,
+    _variants,
+    files_what_the_long_way_files,
+)
 
 
 @pytest.mark.parametrize("path", FIXTURES, ids=lambda p: p.name)
@@ -46,18 +52,7 @@ def test_the_table_files_what_the_long_way_files_with_its_own_facts_known_before
         derived = derive_gas_facts(gas, patient=data.patient, settings=settings, today=T0.date())
         for facts in _variants(derived.facts):
             for sources in (dict(derived.sources), _copies(derived.sources)):
-                fast_facts, fast_sources = dict(facts), dict(sources)
-                fast = derivation._compute(PLAN, fast_facts, fast_sources, settings)
-                long_facts, long_sources = dict(facts), dict(sources)
-                expected = _compute_the_long_way(long_facts, long_sources, settings)
-                assert list(fast_facts) == list(long_facts)
-                assert all(_same(fast_facts[k], long_facts[k]) for k in fast_facts)
-                assert fast_sources == long_sources
-                assert fast[1] == expected[1]
-                assert list(fast[0]) == list(expected[0])
-                for name, record in fast[0].items():
-                    assert type(record) is Derived
-                    assert repr(record) == repr(expected[0][name])
+                files_what_the_long_way_files(facts, sources, settings)
 
 
 _SPECS = {
@@ -235,15 +230,6 @@ def test_many_sets_of_changes_each_reach_what_they_reach() -> None:
         assert list(again.items()) == list(_in_full(entries, specs, measured, changes).items())
 
 
-WIDE = Windows(
-    same_sample=timedelta(minutes=5),
-    context=timedelta(minutes=30),
-    setting=timedelta(hours=4),
-    haemoglobin=timedelta(hours=24),
-    dyshaemoglobins=timedelta(hours=4),
-    temperature=timedelta(hours=4),
-    lung_function=timedelta(days=180),
-)
 NARROW = replace(WIDE, context=timedelta(minutes=10), haemoglobin=timedelta(hours=1))
 
 
